@@ -1,0 +1,140 @@
+/* chem.h: the chemistry model of the beaker, used by everything.
+ *
+ * One module answers "what is the equilibrium state of this beaker after V mL
+ * of titrant?": the simulator, `stopcock predict`, `stopcock curve` and the
+ * model-based endpoint evaluation all call chem_solve(). It also holds the
+ * physical constants and temperature laws (Kw(T), Davies A(T), Nernst slope)
+ * and the electrode equation of INTERFACE.md, so nothing else re-derives them.
+ *
+ * Units: concentrations mol/L, volumes mL, temperatures degC, potentials mV.
+ */
+#ifndef STOPCOCK_CHEM_H
+#define STOPCOCK_CHEM_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "diag.h"
+
+#define CHEM_MAX_COMP 12 /* components per list (sample, titrant) */
+#define CHEM_MAX_PKA 6   /* protonation steps per weak system */
+#define CHEM_NAME_MAX 64
+
+typedef enum {
+	CHEM_WEAK = 0,	   /* weak system with pKa list */
+	CHEM_STRONG_ACID,  /* fully dissociated monoprotic acid, e.g. HCl */
+	CHEM_STRONG_BASE,  /* fully dissociated monoacidic base, e.g. NaOH */
+	CHEM_SALT,	   /* 1:1 fully dissociated salt, e.g. NaCl: ionic strength only */
+} chem_kind_t;
+
+typedef struct chem_comp {
+	char name[CHEM_NAME_MAX];
+	double molar;	    /* analytical concentration, mol/L */
+	chem_kind_t kind;
+	int n_pka;	    /* weak only: number of dissociation steps */
+	double pka[CHEM_MAX_PKA]; /* ascending, at the scenario temperature */
+	int charge;	    /* weak only: charge of the most protonated form */
+} chem_comp_t;
+
+typedef enum { CHEM_ACT_DAVIES = 0, CHEM_ACT_IDEAL } chem_activity_t;
+
+typedef struct chem_electrode {
+	double offset_mv;	 /* mV at pH 7 */
+	double slope_pct;	 /* % of the Nernst slope */
+	double tau_s;		 /* first-order response time constant, s */
+	double noise_mv;	 /* RMS noise, mV */
+	double drift_mv_per_min; /* linear drift, mV/min */
+} chem_electrode_t;
+
+typedef struct chem_burette {
+	double capacity_ml; /* syringe volume, mL */
+	long steps;	    /* motor steps per full stroke */
+} chem_burette_t;
+
+typedef struct chem_scenario {
+	double temperature_c;
+	chem_activity_t activity;
+	double sample_ml; /* sample volume put in the beaker */
+	double water_ml;  /* diluent added with it */
+	int n_sample;
+	chem_comp_t sample[CHEM_MAX_COMP];
+	int n_titrant;
+	chem_comp_t titrant[CHEM_MAX_COMP];
+	chem_electrode_t electrode;
+	chem_burette_t burette;
+	/* Optional (YAML `pkw`): when > 0, use this pKw instead of chem_pkw(T),
+	 * e.g. 14.00 to reproduce textbook tables that state Kw = 1.00e-14.
+	 * 0 (the default, and what a zeroed struct gives) means "from T". */
+	double pkw_override;
+} chem_scenario_t;
+
+/* Equilibrium state of the beaker. Species fractions: for component i of the
+ * combined list (sample first, then titrant; index i < n_sample is sample),
+ * alpha[i][j] is the fraction carrying j protons fewer than the most
+ * protonated form (j = 0 .. n_pka). Strong components have alpha[i][0] = 1. */
+typedef struct chem_state {
+	double titrant_ml;	 /* titrant added */
+	double volume_ml;	 /* total volume in the beaker */
+	double ph;		 /* -log10 a(H+) */
+	double h_molar;		 /* [H+], mol/L */
+	double oh_molar;	 /* [OH-], mol/L */
+	double ionic_strength;	 /* mol/L */
+	double gamma1;		 /* activity coefficient of a singly charged ion */
+	double pkw;		 /* used at this temperature */
+	int n_comp;		 /* n_sample + n_titrant */
+	double total_molar[2 * CHEM_MAX_COMP];	       /* diluted analytical conc., mol/L */
+	double alpha[2 * CHEM_MAX_COMP][CHEM_MAX_PKA + 1];
+	int iterations;		 /* solver work, for benchmarks */
+} chem_state_t;
+
+/* Solve the charge balance after `titrant_ml` mL of titrant.
+ * Bracketed (pH -1 .. 15), always converges: returns 0, never NaN; returns -1
+ * only for an unusable scenario (negative volume or concentration) with
+ * out->ph set to 7. Pure: no I/O, no global state, thread-safe. */
+int chem_solve(const chem_scenario_t *s, double titrant_ml, chem_state_t *out);
+
+/* Convenience: pH only. */
+double chem_ph(const chem_scenario_t *s, double titrant_ml);
+
+/* Stoichiometric equivalence volumes (mL) of the scenario's titrant against
+ * its sample, in order of increasing volume: each proton step of each weak
+ * system (only steps between pH ~ 2 and 12 that show as a step are listed by
+ * the caller; this lists all) and strong acid/base totals. Returns count. */
+int chem_equivalence_ml(const chem_scenario_t *s, double *out_ml, int cap);
+
+/* Net acid concentration of the titrant in mol/L (positive for an acid
+ * titrant, negative for a base), i.e. protons it donates per litre at the
+ * far end of the titration. */
+double chem_titrant_acidity(const chem_scenario_t *s);
+
+/* ---- physical laws ---- */
+
+/* pKw at t degC and 1 atm: IAPWS R11-07 (Bandura & Lvov 2006) with water
+ * density from Kell 1975. */
+double chem_pkw(double t_c);
+
+/* Davies/Debye-Hueckel A (log10 basis, (mol/kg)^-1/2) at t degC. */
+double chem_davies_a(double t_c);
+
+/* log10 of the Davies activity coefficient for charge z at ionic strength I. */
+double chem_davies_log_gamma(double a, int z, double ionic_strength);
+
+/* Nernst slope ln(10) R T / F in mV per pH at t degC (CODATA 2018 R, F). */
+double chem_nernst_mv(double t_c);
+
+/* Electrode equation of INTERFACE.md (no lag, noise or drift):
+ * mV = offset_mv - slope_pct/100 * k(T) * (pH - 7). */
+double chem_mv_from_ph(double offset_mv, double slope_pct, double ph, double t_c);
+double chem_ph_from_mv(double offset_mv, double slope_pct, double mv, double t_c);
+
+/* ---- scenario files (YAML keys of INTERFACE.md) ---- */
+
+/* Parse and validate. Returns 0, or -1 with every error added to d as
+ * "file:line:col: message". Defaults: temperature_c 25, activity davies,
+ * water_ml 0, electrode {0, 100, 1.0, 0.1, 0}, burette {10, 20000}. */
+int scenario_load(const char *path, chem_scenario_t *s, diag_list_t *d);
+int scenario_parse(const char *name, const char *buf, size_t len, chem_scenario_t *s,
+		   diag_list_t *d);
+void scenario_defaults(chem_scenario_t *s);
+
+#endif
