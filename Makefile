@@ -1,0 +1,188 @@
+# Stopcock build. `make check` and `make demo` each install missing Debian
+# packages first (when run as root), so either is one command on a fresh
+# Debian 12 machine.
+
+PREFIX ?= /usr/local
+BINDIR ?= $(PREFIX)/bin
+SBINDIR ?= $(PREFIX)/sbin
+DATADIR ?= $(PREFIX)/share/stopcock
+MANDIR ?= $(PREFIX)/share/man
+SYSCONFDIR ?= /etc
+UNITDIR ?= /lib/systemd/system
+DESTDIR ?=
+
+CC ?= cc
+PYTHON ?= /usr/bin/python3
+BUILD ?= build
+
+PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystemd
+
+# Debian packages the build, the tests, the demo and the benchmarks need.
+DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-dev \
+	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev \
+	python3 python3-pytest python3-pymodbus python3-serial python3-scipy \
+	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev
+
+VERSION := 0.1.0
+PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS))
+PKG_LIBS = $(shell pkg-config --libs $(PKGS))
+
+WARN := -Wall -Wextra -Werror -Wshadow -Wformat=2 -Wstrict-prototypes -Wmissing-prototypes
+BASE_CFLAGS = -std=c17 -D_GNU_SOURCE -DSTOPCOCK_VERSION='"$(VERSION)"' \
+	-DSTOPCOCK_DATADIR='"$(DATADIR)"' $(WARN) -Idaemon -Idrivers $(PKG_CFLAGS)
+REL_CFLAGS = $(BASE_CFLAGS) -O2 -g
+SAN_FLAGS := -fsanitize=address,undefined -fno-sanitize-recover=undefined -fno-omit-frame-pointer
+SAN_CFLAGS = $(BASE_CFLAGS) -O1 -g $(SAN_FLAGS)
+LDLIBS = $(PKG_LIBS) -lpthread -lm
+
+MAIN_SRC := daemon/stopcockd.c daemon/stopcock.c daemon/stopcock_sim.c
+LIB_SRC = $(filter-out $(MAIN_SRC),$(sort $(wildcard daemon/*.c) $(wildcard drivers/*.c)))
+UNIT_SRC = $(sort $(wildcard tests/unit/*.c))
+BENCH_SRC = $(sort $(wildcard tests/bench/*.c))
+HDRS = $(wildcard daemon/*.h drivers/*.h tests/unit/*.h)
+
+REL := $(BUILD)/rel
+SAN := $(BUILD)/san
+
+rel_obj = $(patsubst %.c,$(REL)/%.o,$(1))
+san_obj = $(patsubst %.c,$(SAN)/%.o,$(1))
+
+PROGS := stopcockd stopcock stopcock-sim
+REL_BINS := $(addprefix $(BUILD)/bin/,$(PROGS))
+SAN_BINS := $(addprefix $(SAN)/bin/,$(PROGS))
+
+export ASAN_OPTIONS := detect_leaks=1:abort_on_error=1
+export UBSAN_OPTIONS := print_stacktrace=1:halt_on_error=1
+
+.PHONY: all check check-run unit unit-valgrind pytest demo bench bench-run deps install \
+	uninstall clean format lint san fuzz
+
+all: $(REL_BINS)
+
+san: $(SAN_BINS) $(SAN)/unit_tests
+
+# ---- objects ----
+$(REL)/%.o: %.c $(HDRS)
+	@mkdir -p $(dir $@)
+	$(CC) $(REL_CFLAGS) -c $< -o $@
+
+$(SAN)/%.o: %.c $(HDRS)
+	@mkdir -p $(dir $@)
+	$(CC) $(SAN_CFLAGS) -c $< -o $@
+
+$(REL)/libstopcock.a: $(call rel_obj,$(LIB_SRC))
+	@rm -f $@
+	ar rcs $@ $^
+
+$(SAN)/libstopcock.a: $(call san_obj,$(LIB_SRC))
+	@rm -f $@
+	ar rcs $@ $^
+
+# ---- programs ----
+$(BUILD)/bin/stopcock-sim: $(REL)/daemon/stopcock_sim.o $(REL)/libstopcock.a
+	@mkdir -p $(dir $@)
+	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
+
+$(BUILD)/bin/%: $(REL)/daemon/%.o $(REL)/libstopcock.a
+	@mkdir -p $(dir $@)
+	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
+
+$(SAN)/bin/stopcock-sim: $(SAN)/daemon/stopcock_sim.o $(SAN)/libstopcock.a
+	@mkdir -p $(dir $@)
+	$(CC) $(SAN_CFLAGS) $^ -o $@ $(LDLIBS)
+
+$(SAN)/bin/%: $(SAN)/daemon/%.o $(SAN)/libstopcock.a
+	@mkdir -p $(dir $@)
+	$(CC) $(SAN_CFLAGS) $^ -o $@ $(LDLIBS)
+
+# ---- unit tests: one binary, every tests/unit/*.c ----
+$(SAN)/unit_tests: $(call san_obj,$(UNIT_SRC)) $(SAN)/libstopcock.a
+	$(CC) $(SAN_CFLAGS) $^ -o $@ $(LDLIBS)
+
+$(REL)/unit_tests: $(call rel_obj,$(UNIT_SRC)) $(REL)/libstopcock.a
+	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
+
+$(REL)/bench: $(call rel_obj,$(BENCH_SRC)) $(REL)/libstopcock.a
+	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
+
+# ---- Debian packages ----
+deps:
+	@missing=""; for p in $(DEB_PKGS); do \
+	  dpkg-query -W -f='$${Status}\n' $$p 2>/dev/null | grep -q '^install ok installed' \
+	    || missing="$$missing $$p"; done; \
+	if [ -z "$$missing" ]; then echo "deps: all Debian packages present"; \
+	elif [ "$$(id -u)" = 0 ]; then echo "deps: installing$$missing"; \
+	  apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends $$missing; \
+	else echo "deps: missing Debian packages; run as root:"; \
+	  echo "  apt-get update && apt-get install -y$$missing"; exit 1; fi
+
+# ---- tests ----
+check: deps
+	@$(MAKE) --no-print-directory check-run
+
+# Unit tests under ASan+UBSan, the same under valgrind (release build), then
+# the end-to-end tests against real processes. Nothing skips silently.
+check-run: all san $(REL)/unit_tests
+	@echo "== unit tests (AddressSanitizer + UBSan)"
+	$(SAN)/unit_tests
+	@echo "== unit tests (valgrind)"
+	STOPCOCK_QUICK=1 valgrind -q --leak-check=full --error-exitcode=1 $(REL)/unit_tests
+	@echo "== end-to-end tests"
+	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider tests
+
+unit: $(SAN)/unit_tests
+	$(SAN)/unit_tests $(T)
+
+pytest: all san
+	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider tests $(T)
+
+# ---- demo and benchmarks ----
+demo: deps
+	@$(MAKE) --no-print-directory all
+	@bash tests/demo.sh $(abspath $(BUILD))
+
+bench: deps
+	@$(MAKE) --no-print-directory bench-run
+
+bench-run: all $(REL)/bench
+	$(REL)/bench
+	@if [ -f tests/bench_http.sh ]; then bash tests/bench_http.sh $(abspath $(BUILD)); fi
+
+# ---- install ----
+install: all
+	install -d $(DESTDIR)$(BINDIR) $(DESTDIR)$(SBINDIR) $(DESTDIR)$(DATADIR)/methods \
+	  $(DESTDIR)$(DATADIR)/pumps $(DESTDIR)$(DATADIR)/scenarios \
+	  $(DESTDIR)$(SYSCONFDIR)/stopcock/methods
+	install -m 0755 $(BUILD)/bin/stopcockd $(DESTDIR)$(SBINDIR)/stopcockd
+	install -m 0755 $(BUILD)/bin/stopcock $(BUILD)/bin/stopcock-sim $(DESTDIR)$(BINDIR)/
+	install -m 0644 config/methods/*.yaml $(DESTDIR)$(DATADIR)/methods/
+	install -m 0644 config/pumps/*.yaml $(DESTDIR)$(DATADIR)/pumps/
+	install -m 0644 config/scenarios/*.yaml $(DESTDIR)$(DATADIR)/scenarios/
+	@if [ -f config/stopcockd.yaml ]; then install -m 0644 config/stopcockd.yaml \
+	  $(DESTDIR)$(SYSCONFDIR)/stopcock/stopcockd.yaml.example; fi
+	@if [ -d systemd ] && ls systemd/*.service >/dev/null 2>&1; then \
+	  install -d $(DESTDIR)$(UNITDIR) $(DESTDIR)$(PREFIX)/lib/sysusers.d $(DESTDIR)$(PREFIX)/lib/tmpfiles.d; \
+	  install -m 0644 systemd/*.service $(DESTDIR)$(UNITDIR)/; \
+	  for f in systemd/*sysusers*.conf; do [ -f $$f ] && install -m 0644 $$f $(DESTDIR)$(PREFIX)/lib/sysusers.d/stopcock.conf; done; \
+	  for f in systemd/*tmpfiles*.conf; do [ -f $$f ] && install -m 0644 $$f $(DESTDIR)$(PREFIX)/lib/tmpfiles.d/stopcock.conf; done; true; fi
+	@for f in docs/*.[1-8]; do [ -f "$$f" ] || continue; s=$${f##*.}; \
+	  install -d $(DESTDIR)$(MANDIR)/man$$s; install -m 0644 $$f $(DESTDIR)$(MANDIR)/man$$s/; done
+
+uninstall:
+	rm -f $(DESTDIR)$(SBINDIR)/stopcockd $(DESTDIR)$(BINDIR)/stopcock $(DESTDIR)$(BINDIR)/stopcock-sim
+	rm -rf $(DESTDIR)$(DATADIR)
+	rm -f $(DESTDIR)$(UNITDIR)/stopcockd.service $(DESTDIR)$(PREFIX)/lib/sysusers.d/stopcock.conf \
+	  $(DESTDIR)$(PREFIX)/lib/tmpfiles.d/stopcock.conf
+	@for f in docs/*.[1-8]; do [ -f "$$f" ] || continue; s=$${f##*.}; \
+	  rm -f $(DESTDIR)$(MANDIR)/man$$s/$$(basename $$f); done
+
+# ---- code hygiene ----
+format:
+	clang-format -i daemon/*.[ch] drivers/*.[ch] tests/unit/*.[ch] $(wildcard tests/bench/*.[ch])
+
+lint:
+	cppcheck --quiet --error-exitcode=1 --enable=warning,performance,portability \
+	  --inline-suppr --std=c11 -Idaemon -Idrivers daemon drivers
+
+clean:
+	rm -rf $(BUILD)

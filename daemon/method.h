@@ -1,0 +1,107 @@
+/* method.h: a validated titration method, as the engine consumes it.
+ *
+ * Method files are YAML written by people (keys in ../shared/INTERFACE.md and
+ * docs/methods.md). method_parse() checks every key, type, unit, range and
+ * cross-field rule and reports every error as "file:line:col: message".
+ * The struct it fills is plain data: no pointers into the YAML, so it may be
+ * copied freely (the formulas are compiled into fixed arrays).
+ */
+#ifndef STOPCOCK_METHOD_H
+#define STOPCOCK_METHOD_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "diag.h"
+#include "formula.h"
+
+#define METHOD_ID_MAX 64
+#define METHOD_TEXT_MAX 160
+#define METHOD_MAX_RESULTS 8
+#define METHOD_MAX_ENDPOINTS 4
+
+typedef enum { PURPOSE_ASSAY = 0, PURPOSE_STANDARDIZE, PURPOSE_BLANK } method_purpose_t;
+typedef enum { SIGNAL_PH = 0, SIGNAL_MV } method_signal_t;
+typedef enum { DOSING_ADAPTIVE = 0, DOSING_CONSTANT } method_dosing_t;
+typedef enum { DETECT_INFLECTION = 0, DETECT_TARGET, DETECT_GRAN } method_detect_t;
+typedef enum { UNIT_ML = 0, UNIT_G } method_unit_t;
+
+typedef struct method_result {
+	char name[METHOD_ID_MAX];
+	char formula_text[512];
+	formula_t formula; /* compiled */
+	char unit[32];
+	int decimals; /* 0..10 */
+	bool has_min, has_max;
+	double accept_min, accept_max;
+} method_result_t;
+
+typedef struct method {
+	char id[METHOD_ID_MAX]; /* [a-z0-9-]+, equal to the file name */
+	char title[METHOD_TEXT_MAX];
+	long revision; /* >= 1 */
+	method_purpose_t purpose;
+
+	char titrant_name[METHOD_TEXT_MAX];
+	double titrant_molarity; /* mol/L, nominal */
+
+	method_unit_t sample_unit;
+	double sample_min, sample_max; /* in sample_unit */
+
+	method_signal_t signal;
+
+	double stir_s;	   /* stirring before the first addition, s */
+	double predose_ml; /* added at once after stirring, mL */
+
+	method_dosing_t dosing;
+	double step_aim;    /* signal change aimed at per addition (pH or mV) */
+	double dose_min_ml;
+	double dose_max_ml;
+	double dose_ml;	    /* constant mode */
+
+	double wait_min_s, wait_max_s; /* settling bounds, s */
+	double still_within;	       /* signal units */
+	double still_for_s;	       /* s */
+
+	method_detect_t detect;
+	int count;	    /* endpoints to find before stopping, 1..METHOD_MAX_ENDPOINTS */
+	double min_jump;    /* smallest rise across an inflection, signal units */
+	bool has_window;
+	double window_lo, window_hi; /* signal units */
+	bool has_target;
+	double target;	    /* signal units, detect: target */
+
+	double past_endpoint_ml; /* keep dosing this much past the last endpoint */
+	double volume_max_ml;	 /* never dose beyond this total */
+	bool has_signal_limit;
+	double signal_limit;	 /* stop once the signal passes it */
+	double time_max_s;
+
+	int n_results;
+	method_result_t results[METHOD_MAX_RESULTS];
+
+	char sha256[65]; /* hex of the exact file bytes */
+} method_t;
+
+/* Limits from the daemon config for cross-checks; pass NULL offline
+ * (`stopcock check` without -c checks everything else). */
+typedef struct method_limits {
+	double vessel_max_ml;	     /* station */
+	double burette_capacity_ml;  /* station's burette */
+	int max_refills;	     /* allowed refills per run (0: none) */
+} method_limits_t;
+
+/* Parse and validate a method. `name` is the path or name used in messages;
+ * the file's base name (without .yaml) must equal `method:` when name ends in
+ * ".yaml". Returns 0, or -1 with all errors added (sorted by position). */
+int method_parse(const char *name, const char *buf, size_t len, const method_limits_t *lim,
+		 method_t *m, diag_list_t *d);
+int method_load(const char *path, const method_limits_t *lim, method_t *m, diag_list_t *d);
+
+/* Names for enum values as they appear in files and JSON. */
+const char *method_purpose_name(method_purpose_t p);
+const char *method_signal_name(method_signal_t s);
+const char *method_detect_name(method_detect_t k);
+const char *method_unit_name(method_unit_t u);
+
+#endif

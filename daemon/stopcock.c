@@ -1,0 +1,50 @@
+/* stopcock: the command-line client and offline tools. */
+#include <stdio.h>
+#include <string.h>
+
+#include "cmd.h"
+
+static const struct {
+	const char *name;
+	int (*fn)(int, char **);
+	const char *usage;
+} commands[] = {
+	{"check", cmd_check, "check METHOD.yaml...          validate method files offline"},
+	{"predict", cmd_predict, "predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N] [--json]"},
+	{"curve", cmd_curve, "curve S.yaml --ml 0,1,2.5,...  model pH and mV after each volume"},
+	{"start", cmd_start, "start --station N --method M --sample-id ID --amount X"},
+	{"status", cmd_status, "status                        stations and their current runs"},
+	{"show", cmd_show, "show RUN [--csv] [--svg FILE]"},
+	{"wait", cmd_wait, "wait RUN [--timeout S]"},
+	{"abort", cmd_abort, "abort RUN"},
+	{"halt", cmd_halt, "halt --station N"},
+	{"calibrate", cmd_calibrate, "calibrate --station N --buffers 4.01,7.00,10.01"},
+	{"ports", cmd_ports, "ports                         list serial ports"},
+};
+
+static void usage(FILE *f)
+{
+	fprintf(f, "usage: stopcock COMMAND [ARGS]\n\ncommands:\n");
+	for (size_t i = 0; i < sizeof commands / sizeof commands[0]; i++)
+		fprintf(f, "  stopcock %s\n", commands[i].usage);
+	fprintf(f, "\nclient commands take --url URL (default $STOPCOCK_URL or "
+		   "http://127.0.0.1:8470)\nand --token-file F (default $STOPCOCK_TOKEN_FILE).\n");
+}
+
+int main(int argc, char **argv)
+{
+	if (argc < 2 || !strcmp(argv[1], "-h") || !strcmp(argv[1], "--help")) {
+		usage(argc < 2 ? stderr : stdout);
+		return argc < 2 ? 2 : 0;
+	}
+	if (!strcmp(argv[1], "--version")) {
+		printf("stopcock %s\n", STOPCOCK_VERSION);
+		return 0;
+	}
+	for (size_t i = 0; i < sizeof commands / sizeof commands[0]; i++)
+		if (!strcmp(argv[1], commands[i].name))
+			return commands[i].fn(argc - 1, argv + 1);
+	fprintf(stderr, "stopcock: unknown command '%s'\n\n", argv[1]);
+	usage(stderr);
+	return 2;
+}
