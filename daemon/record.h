@@ -1,0 +1,121 @@
+/* record.h: the run record of INTERFACE.md as a C struct, and its one JSON form.
+ *
+ * `stopcock predict --json` and the daemon (GET /v1/runs/{id}, /v1/results)
+ * print the same record through record_to_json(), so the two can never
+ * disagree on a field name or on how a missing value is written.
+ *
+ * Text fields that are "" are written as JSON null (phase when not running,
+ * started_at/ended_at before they happen, stop_reason while running). Numbers
+ * that are NaN are written as null (jansson's json_real(NAN) is NULL).
+ * Reals are rounded by the caller's dump flags: use
+ * json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)).
+ */
+#ifndef STOPCOCK_RECORD_H
+#define STOPCOCK_RECORD_H
+
+#include <jansson.h>
+#include <stdbool.h>
+
+#include "engine.h"
+#include "method.h"
+
+#define RECORD_MAX_FAULTS 16
+#define RECORD_TIME_MAX   32 /* RFC 3339 UTC text, e.g. "2026-12-01T21:46:40.123Z" */
+
+typedef struct record_endpoint {
+	int n;              /* 1-based */
+	double volume_ml;   /* reported volume */
+	double u_volume_ml; /* standard uncertainty, mL; NaN -> null */
+	double ph;          /* NaN -> null */
+	double mv;          /* NaN -> null */
+	double half_ph;     /* pH at half the endpoint volume; NaN -> null */
+	char how[16];       /* "inflection", "model", "target", "gran" */
+	/* additions to INTERFACE.md: both evaluations side by side */
+	double derivative_ml; /* first-derivative / target / Gran volume; NaN -> null */
+	double model_ml;      /* model-fit volume; NaN -> null */
+} record_endpoint_t;
+
+typedef struct record_result {
+	char name[METHOD_ID_MAX];
+	bool has_value; /* false -> "value": null, with "note" saying why */
+	double value;
+	int decimals;
+	char unit[32];
+	char accept[8]; /* "pass", "low", "high", "none" */
+	char note[160]; /* "" -> no "note" key */
+} record_result_t;
+
+typedef struct record_fault {
+	char at[RECORD_TIME_MAX]; /* RFC 3339, or "" -> null */
+	char code[32];
+	char message[256];
+} record_fault_t;
+
+typedef struct run_record {
+	long long id; /* <= 0 -> null (predict has no id) */
+	char station[64];
+	struct {
+		char id[METHOD_ID_MAX];
+		long revision;
+		char sha256[65];
+	} method;
+	struct {
+		char id[128];
+		double amount;
+		char unit[8]; /* "mL" or "g" */
+	} sample;
+	char state[16]; /* queued running finished aborted failed interrupted */
+	char phase[16]; /* stirring dosing settling evaluating; "" -> null */
+	char queued_at[RECORD_TIME_MAX], started_at[RECORD_TIME_MAX], ended_at[RECORD_TIME_MAX];
+	struct {
+		char name[METHOD_TEXT_MAX];
+		double molarity; /* mol/L, nominal */
+		double titer;
+	} titrant;
+	bool has_calibration;
+	struct {
+		double slope_pct;
+		double offset_mv;
+		char at[RECORD_TIME_MAX];
+	} calibration;
+
+	int n_endpoints;
+	record_endpoint_t endpoints[METHOD_MAX_ENDPOINTS];
+	int n_results;
+	record_result_t results[METHOD_MAX_RESULTS];
+	int additions;
+	double dispensed_ml;
+	char stop_reason[24]; /* engine_stop_name(); "" -> null */
+	int n_faults;
+	record_fault_t faults[RECORD_MAX_FAULTS];
+
+	bool has_duration; /* predict: "duration_s", the simulated run time */
+	double duration_s;
+} run_record_t;
+
+/* Empty record: numbers 0 (NaN where null is meant), strings "", state "queued". */
+void record_init(run_record_t *r);
+
+/* Method id/revision/sha256, titrant name and molarity, sample unit. */
+void record_set_method(run_record_t *r, const method_t *m);
+
+/* The evaluation part from an engine (running or done): endpoints, results,
+ * additions, dispensed_ml, phase, and stop_reason once done. A fault that
+ * stopped the engine is appended to faults (at = `at`, may be "") unless a
+ * fault with the same code is already listed. */
+void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at);
+
+/* Append a fault (silently dropped past RECORD_MAX_FAULTS). */
+void record_add_fault(run_record_t *r, const char *at, const char *code, const char *message);
+
+/* The record as INTERFACE.md's JSON object (new reference; NULL on OOM). */
+json_t *record_to_json(const run_record_t *r);
+
+/* One point as INTERFACE.md's point object {t_s, volume_ml, mv, ph,
+ * temperature_c, settled, dpdv} (new reference). */
+json_t *record_point_to_json(const engine_point_t *p);
+
+/* A real, or null for NaN/inf (new reference). */
+json_t *record_real_or_null(double v);
+
+#endif
