@@ -21,7 +21,8 @@ PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystem
 DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-dev \
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev \
 	python3 python3-pytest python3-pymodbus python3-serial python3-scipy \
-	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev
+	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
+	python3-yaml systemd
 
 VERSION := 0.1.0
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS))
