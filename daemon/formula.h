@@ -10,6 +10,7 @@
 #define STOPCOCK_FORMULA_H
 
 #include <stdbool.h>
+#include <stddef.h>
 
 #define FORMULA_MAX_OPS 128
 #define FORMULA_MAX_END 4
