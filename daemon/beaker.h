@@ -22,8 +22,9 @@ beaker_t *beaker_new(const chem_scenario_t *s, unsigned long long seed);
 void beaker_free(beaker_t *b);
 
 /* A new beaker (the operator changed the sample or the buffer): scenario s is
- * copied, titrant back to 0 mL, drift restarts; the electrode lags from its
- * previous mV towards the new equilibrium. */
+ * copied, titrant back to 0 mL, elapsed time back to 0 s; the electrode lags
+ * from its previous mV towards the new equilibrium, and the drift it has
+ * gathered stays (drift belongs to the electrode, not to the beaker). */
 void beaker_load(beaker_t *b, const chem_scenario_t *s);
 
 /* Titrant arrives (ml >= 0; negative, NaN or infinite amounts are ignored). */
@@ -37,8 +38,8 @@ void beaker_advance(beaker_t *b, double dt_s);
  * noise (noise_mv RMS). Each call draws new noise, so it is not const. */
 double beaker_mv(beaker_t *b);
 
-double beaker_true_ph(const beaker_t *b);   /* equilibrium pH now */
-double beaker_true_mv(const beaker_t *b);   /* equilibrium mV (no lag, noise or drift) */
+double beaker_true_ph(const beaker_t *b);    /* equilibrium pH now */
+double beaker_true_mv(const beaker_t *b);    /* equilibrium mV (no lag, noise or drift) */
 double beaker_titrant_ml(const beaker_t *b); /* titrant added since the last load, mL */
 double beaker_temperature_c(const beaker_t *b);
 const chem_scenario_t *beaker_scenario(const beaker_t *b);

@@ -116,7 +116,13 @@ double chem_pkw(double t_c);
 /* Davies/Debye-Hueckel A (log10 basis, (mol/kg)^-1/2) at t degC. */
 double chem_davies_a(double t_c);
 
-/* log10 of the Davies activity coefficient for charge z at ionic strength I. */
+/* Ionic strength (mol/L) above which the Davies equation is held constant:
+ * the equation is meant for I up to ~0.5 mol/L and, past its minimum, turns
+ * upwards without bound; holding it keeps every coefficient finite. */
+#define CHEM_DAVIES_I_MAX 1.0
+
+/* log10 of the Davies activity coefficient for charge z at ionic strength I
+ * (I above CHEM_DAVIES_I_MAX is taken as CHEM_DAVIES_I_MAX). */
 double chem_davies_log_gamma(double a, int z, double ionic_strength);
 
 /* Nernst slope ln(10) R T / F in mV per pH at t degC (CODATA 2018 R, F). */
