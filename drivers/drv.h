@@ -36,11 +36,11 @@
 
 typedef enum {
 	DRV_OK = 0,
-	DRV_TIMEOUT,	  /* no (complete) reply within the deadline */
-	DRV_BAD_REPLY,	  /* a reply came but did not parse (garbage, CRC, framing) */
+	DRV_TIMEOUT,      /* no (complete) reply within the deadline */
+	DRV_BAD_REPLY,    /* a reply came but did not parse (garbage, CRC, framing) */
 	DRV_DEVICE_ERROR, /* the device answered with an error (motor stall, exception) */
-	DRV_UNPLUGGED,	  /* the link is gone (hang-up, EIO, connection refused) */
-	DRV_CONFIG,	  /* the request cannot be done as configured (bad volume, ...) */
+	DRV_UNPLUGGED,    /* the link is gone (hang-up, EIO, connection refused) */
+	DRV_CONFIG,       /* the request cannot be done as configured (bad volume, ...) */
 } drv_status_t;
 
 /* "ok", "timeout", "bad_reply", "device_error", "unplugged", "config". */
@@ -76,15 +76,15 @@ typedef struct drv_probe_ops {
 
 typedef struct drv_burette_info {
 	double capacity_ml; /* syringe volume, mL */
-	long steps;	    /* motor steps per full stroke */
+	long steps;         /* motor steps per full stroke */
 } drv_burette_info_t;
 
 typedef struct drv_burette_status {
-	bool moving;	     /* a dose, a refill or a valve move is in progress */
-	bool refilling;	     /* the move in progress is a refill */
+	bool moving;         /* a dose, a refill or a valve move is in progress */
+	bool refilling;      /* the move in progress is a refill */
 	double dispensed_ml; /* total dispensed since open; never decreases, refills excluded */
 	double contents_ml;  /* titrant left in the syringe, 0 .. capacity_ml */
-	bool fault;	     /* the device reports an error (stall); cleared by halt */
+	bool fault;          /* the device reports an error (stall); cleared by halt */
 } drv_burette_status_t;
 
 typedef struct drv_burette_ops {
@@ -151,11 +151,11 @@ typedef struct drv_stirrer {
  * An unknown driver name is an error at its mark listing the known ones.
  * Returns 0, or -1 with errors in d (the handle stays zeroed). */
 int drv_probe_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_probe_t *out,
-			diag_list_t *d);
+                        diag_list_t *d);
 int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette_t *out,
-			  diag_list_t *d);
+                          diag_list_t *d);
 int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer_t *out,
-			  diag_list_t *d);
+                          diag_list_t *d);
 
 /* Thin wrappers over the ops; each fills err when not DRV_OK. */
 drv_status_t drv_probe_open(drv_probe_t *p, drv_err_t *err);
@@ -176,7 +176,7 @@ void drv_stirrer_close(drv_stirrer_t *s);
 
 /* Fill err->msg with a formatted message and return st (for one-line returns). */
 drv_status_t drv_fail(drv_err_t *err, drv_status_t st, const char *fmt, ...)
-	__attribute__((format(printf, 3, 4)));
+    __attribute__((format(printf, 3, 4)));
 
 /* CLOCK_MONOTONIC in seconds. */
 double drv_now_s(void);

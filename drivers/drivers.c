@@ -1,0 +1,263 @@
+/* drivers.c: the one table of drivers, lookup by the `driver:` word, and the
+ * thin handle wrappers of drv.h. To add a driver: write drivers/<dev>_<wire>.c
+ * exporting one const ops struct, declare it here and list it below. */
+#include <stdarg.h>
+#include <stdio.h>
+#include <string.h>
+#include <time.h>
+
+#include "drv.h"
+
+extern const drv_burette_ops_t drv_pump_serial;
+extern const drv_probe_ops_t drv_probe_modbus;
+extern const drv_stirrer_ops_t drv_stirrer_modbus;
+
+static const drv_burette_ops_t *const burettes[] = {&drv_pump_serial, NULL};
+static const drv_probe_ops_t *const probes[] = {&drv_probe_modbus, NULL};
+static const drv_stirrer_ops_t *const stirrers[] = {&drv_stirrer_modbus, NULL};
+
+const char *drv_status_name(drv_status_t s)
+{
+	switch (s) {
+	case DRV_OK:
+		return "ok";
+	case DRV_TIMEOUT:
+		return "timeout";
+	case DRV_BAD_REPLY:
+		return "bad_reply";
+	case DRV_DEVICE_ERROR:
+		return "device_error";
+	case DRV_UNPLUGGED:
+		return "unplugged";
+	case DRV_CONFIG:
+		return "config";
+	}
+	return "unknown";
+}
+
+drv_status_t drv_fail(drv_err_t *err, drv_status_t st, const char *fmt, ...)
+{
+	if (err) {
+		va_list ap;
+		va_start(ap, fmt);
+		vsnprintf(err->msg, sizeof(err->msg), fmt, ap);
+		va_end(ap);
+	}
+	return st;
+}
+
+double drv_now_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_MONOTONIC, &ts);
+	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
+}
+
+const drv_probe_ops_t *const *drv_probe_table(void)
+{
+	return probes;
+}
+
+const drv_burette_ops_t *const *drv_burette_table(void)
+{
+	return burettes;
+}
+
+const drv_stirrer_ops_t *const *drv_stirrer_table(void)
+{
+	return stirrers;
+}
+
+const drv_probe_ops_t *drv_find_probe(const char *name)
+{
+	for (size_t i = 0; probes[i]; i++)
+		if (!strcmp(probes[i]->name, name))
+			return probes[i];
+	return NULL;
+}
+
+const drv_burette_ops_t *drv_find_burette(const char *name)
+{
+	for (size_t i = 0; burettes[i]; i++)
+		if (!strcmp(burettes[i]->name, name))
+			return burettes[i];
+	return NULL;
+}
+
+const drv_stirrer_ops_t *drv_find_stirrer(const char *name)
+{
+	for (size_t i = 0; stirrers[i]; i++)
+		if (!strcmp(stirrers[i]->name, name))
+			return stirrers[i];
+	return NULL;
+}
+
+/* Read `driver:`; on an unknown name list the known ones. */
+static bool driver_word(const yt_doc_t *doc, const yt_node_t *cfg, const char *what,
+                        const char *const *names, char *out, size_t cap, const yt_node_t **at,
+                        diag_list_t *d)
+{
+	if (!yt_want_map(doc, cfg, what, d))
+		return false;
+	const yt_node_t *n = yt_get(cfg, "driver");
+	if (!n) {
+		yt_missing(doc, cfg, "driver", what, d);
+		return false;
+	}
+	*at = n;
+	if (!yt_string(doc, n, "driver", out, cap, d))
+		return false;
+	for (size_t i = 0; names[i]; i++)
+		if (!strcmp(names[i], out))
+			return true;
+	char known[256] = "";
+	for (size_t i = 0; names[i]; i++) {
+		size_t l = strlen(known);
+		snprintf(known + l, sizeof(known) - l, "%s%s", i ? ", " : "", names[i]);
+	}
+	yt_error(doc, n, d, "unknown %s driver '%s' (known: %s)", what, out, known);
+	return false;
+}
+
+int drv_probe_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_probe_t *out, diag_list_t *d)
+{
+	memset(out, 0, sizeof(*out));
+	const char *names[8];
+	size_t k = 0;
+	for (; probes[k] && k < 7; k++)
+		names[k] = probes[k]->name;
+	names[k] = NULL;
+	char w[64];
+	const yt_node_t *at;
+	if (!driver_word(doc, cfg, "probe", names, w, sizeof(w), &at, d))
+		return -1;
+	const drv_probe_ops_t *ops = drv_find_probe(w);
+	void *priv = NULL;
+	if (ops->configure(doc, cfg, &priv, d) != 0)
+		return -1;
+	out->ops = ops;
+	out->priv = priv;
+	return 0;
+}
+
+int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette_t *out,
+                          diag_list_t *d)
+{
+	memset(out, 0, sizeof(*out));
+	const char *names[8];
+	size_t k = 0;
+	for (; burettes[k] && k < 7; k++)
+		names[k] = burettes[k]->name;
+	names[k] = NULL;
+	char w[64];
+	const yt_node_t *at;
+	if (!driver_word(doc, cfg, "burette", names, w, sizeof(w), &at, d))
+		return -1;
+	const drv_burette_ops_t *ops = drv_find_burette(w);
+	void *priv = NULL;
+	if (ops->configure(doc, cfg, &priv, d) != 0)
+		return -1;
+	out->ops = ops;
+	out->priv = priv;
+	return 0;
+}
+
+int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer_t *out,
+                          diag_list_t *d)
+{
+	memset(out, 0, sizeof(*out));
+	const char *names[8];
+	size_t k = 0;
+	for (; stirrers[k] && k < 7; k++)
+		names[k] = stirrers[k]->name;
+	names[k] = NULL;
+	char w[64];
+	const yt_node_t *at;
+	if (!driver_word(doc, cfg, "stirrer", names, w, sizeof(w), &at, d))
+		return -1;
+	const drv_stirrer_ops_t *ops = drv_find_stirrer(w);
+	void *priv = NULL;
+	if (ops->configure(doc, cfg, &priv, d) != 0)
+		return -1;
+	out->ops = ops;
+	out->priv = priv;
+	return 0;
+}
+
+static drv_status_t not_configured(drv_err_t *err)
+{
+	return drv_fail(err, DRV_CONFIG, "device not configured");
+}
+
+drv_status_t drv_probe_open(drv_probe_t *p, drv_err_t *err)
+{
+	return p->ops ? p->ops->open(p->priv, err) : not_configured(err);
+}
+
+drv_status_t drv_probe_read(drv_probe_t *p, drv_reading_t *out, drv_err_t *err)
+{
+	return p->ops ? p->ops->read(p->priv, out, err) : not_configured(err);
+}
+
+void drv_probe_close(drv_probe_t *p)
+{
+	if (p->ops)
+		p->ops->close(p->priv);
+	memset(p, 0, sizeof(*p));
+}
+
+void drv_burette_info(const drv_burette_t *b, drv_burette_info_t *out)
+{
+	memset(out, 0, sizeof(*out));
+	if (b->ops)
+		b->ops->info(b->priv, out);
+}
+
+drv_status_t drv_burette_open(drv_burette_t *b, drv_err_t *err)
+{
+	return b->ops ? b->ops->open(b->priv, err) : not_configured(err);
+}
+
+drv_status_t drv_burette_dose(drv_burette_t *b, double volume_ml, drv_err_t *err)
+{
+	return b->ops ? b->ops->dose(b->priv, volume_ml, err) : not_configured(err);
+}
+
+drv_status_t drv_burette_status(drv_burette_t *b, drv_burette_status_t *out, drv_err_t *err)
+{
+	return b->ops ? b->ops->status(b->priv, out, err) : not_configured(err);
+}
+
+drv_status_t drv_burette_halt(drv_burette_t *b, drv_err_t *err)
+{
+	return b->ops ? b->ops->halt(b->priv, err) : not_configured(err);
+}
+
+drv_status_t drv_burette_refill(drv_burette_t *b, drv_err_t *err)
+{
+	return b->ops ? b->ops->refill(b->priv, err) : not_configured(err);
+}
+
+void drv_burette_close(drv_burette_t *b)
+{
+	if (b->ops)
+		b->ops->close(b->priv);
+	memset(b, 0, sizeof(*b));
+}
+
+drv_status_t drv_stirrer_open(drv_stirrer_t *s, drv_err_t *err)
+{
+	return s->ops ? s->ops->open(s->priv, err) : not_configured(err);
+}
+
+drv_status_t drv_stirrer_set(drv_stirrer_t *s, bool on, double rpm, drv_err_t *err)
+{
+	return s->ops ? s->ops->set(s->priv, on, rpm, err) : not_configured(err);
+}
+
+void drv_stirrer_close(drv_stirrer_t *s)
+{
+	if (s->ops)
+		s->ops->close(s->priv);
+	memset(s, 0, sizeof(*s));
+}

@@ -1,0 +1,460 @@
+/* pump_serial.c: burette driver for line-based ASCII syringe pumps, driven by
+ * a profile (pump_profile.h) over the serial transport (serial.h).
+ *
+ * Idempotent commands (status, halt, valve) are retried up to `retries`
+ * times; a dose or fill is never re-sent blindly: after a lost or garbled
+ * reply the driver asks for the status and re-sends only if the plunger has
+ * not moved, so a noisy line cannot double a dose.
+ */
+#include <limits.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "drv.h"
+#include "link.h"
+#include "pump_profile.h"
+#include "serial.h"
+
+typedef enum {
+	MODE_IDLE = 0,
+	MODE_DOSE,
+	MODE_VALVE_IN, /* refill: valve turning to the reservoir */
+	MODE_FILL,     /* refill: plunger filling */
+	MODE_VALVE_OUT /* refill: valve turning back to the outlet */
+} pump_mode_t;
+
+typedef struct pump {
+	link_serial_t link;
+	pump_profile_t prof;
+	serial_t ser;
+	long steps;         /* steps per full stroke (station may override the profile) */
+	double capacity_ml; /* syringe volume */
+	bool known;         /* pos is from the device */
+	long pos;           /* last reported position, steps of titrant in the syringe */
+	long long dispensed_steps;
+	pump_mode_t mode;
+	bool moving;
+	bool fault;
+} pump_t;
+
+static const char *const own_keys[] = {"profile",          "capacity_ml",      "steps",
+                                       "dose_rate_ml_min", "fill_rate_ml_min", NULL};
+
+static bool file_exists(const char *p)
+{
+	return access(p, R_OK) == 0;
+}
+
+/* A relative profile path: beside the config file, then ./config/pumps, then
+ * the installed pumps directory; a bare name may leave out ".yaml". */
+static bool resolve_profile(const char *cfg_file, const char *name, char *out, size_t cap)
+{
+	if (name[0] == '/') {
+		snprintf(out, cap, "%s", name);
+		return file_exists(out);
+	}
+	char dir[PATH_MAX] = ".";
+	const char *slash = cfg_file ? strrchr(cfg_file, '/') : NULL;
+	if (slash)
+		snprintf(dir, sizeof(dir), "%.*s", (int)(slash - cfg_file), cfg_file);
+	const char *ext = strstr(name, ".yaml") ? "" : ".yaml";
+	const char *dirs[] = {dir, "config/pumps", STOPCOCK_DATADIR "/pumps"};
+	for (size_t i = 0; i < sizeof(dirs) / sizeof(dirs[0]); i++) {
+		snprintf(out, cap, "%s/%s", dirs[i], name);
+		if (file_exists(out))
+			return true;
+		snprintf(out, cap, "%s/%s%s", dirs[i], name, ext);
+		if (file_exists(out))
+			return true;
+	}
+	return false;
+}
+
+static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, diag_list_t *d)
+{
+	const char *keys[32];
+	if (!yt_want_map(doc, cfg, "burette", d))
+		return -1;
+	bool ok = yt_check_keys(doc, cfg, link_keys_join(link_serial_keys, own_keys, keys, 32),
+	                        "burette", d);
+	pump_t *p = calloc(1, sizeof(*p));
+	if (!p)
+		return -1;
+	serial_init(&p->ser);
+	ok &= link_serial_parse(doc, cfg, &p->link, d) == 0;
+	const yt_node_t *n = yt_get(cfg, "profile");
+	char name[LINK_PATH_MAX], path[PATH_MAX];
+	if (!n) {
+		yt_missing(doc, cfg, "profile", "burette", d);
+		ok = false;
+	} else if (yt_string(doc, n, "profile", name, sizeof(name), d)) {
+		if (!resolve_profile(doc->file, name, path, sizeof(path))) {
+			yt_error(doc, n, d,
+			         "pump profile '%s' not found (looked beside this file, "
+			         "in config/pumps and in %s/pumps)",
+			         name, STOPCOCK_DATADIR);
+			ok = false;
+		} else if (pump_profile_load(path, &p->prof, d) != 0) {
+			yt_error(doc, n, d, "pump profile '%s' is invalid (errors above)", path);
+			ok = false;
+		}
+	} else {
+		ok = false;
+	}
+	p->steps = p->prof.steps;
+	p->capacity_ml = p->prof.capacity_ml;
+	if ((n = yt_get(cfg, "steps")))
+		ok &= yt_long(doc, n, "steps", 1, 100000000, &p->steps, d);
+	if ((n = yt_get(cfg, "capacity_ml")))
+		ok &= yt_double_range(doc, n, "capacity_ml", "mL", 0.01, 1000, &p->capacity_ml, d);
+	if ((n = yt_get(cfg, "dose_rate_ml_min")))
+		ok &= yt_double_range(doc, n, "dose_rate_ml_min", "mL/min", 0.001, 10000,
+		                      &p->prof.dose_rate_ml_min, d);
+	if ((n = yt_get(cfg, "fill_rate_ml_min")))
+		ok &= yt_double_range(doc, n, "fill_rate_ml_min", "mL/min", 0.001, 10000,
+		                      &p->prof.fill_rate_ml_min, d);
+	if (!ok) {
+		free(p);
+		return -1;
+	}
+	*priv = p;
+	return 0;
+}
+
+static void pump_info(void *priv, drv_burette_info_t *out)
+{
+	pump_t *p = priv;
+	out->capacity_ml = p->capacity_ml;
+	out->steps = p->steps;
+}
+
+static double ml_per_step(const pump_t *p)
+{
+	return p->capacity_ml / (double)p->steps;
+}
+
+static long speed_for(const pump_t *p, double rate_ml_min)
+{
+	long v = lround(rate_ml_min / 60.0 / ml_per_step(p));
+	if (v < 1)
+		v = 1;
+	if (v > p->prof.max_speed)
+		v = p->prof.max_speed;
+	return v;
+}
+
+/* Send one command and wait for one reply that parses; garbage lines are
+ * discarded until the deadline. No retry here. */
+static drv_status_t transact_once(pump_t *p, const char *cmd, pump_reply_t *rep, drv_err_t *err)
+{
+	char buf[PUMP_STR + 16];
+	int n = snprintf(buf, sizeof(buf), "%s%s", cmd, p->prof.command_end);
+	if (n < 0 || (size_t)n >= sizeof(buf))
+		return drv_fail(err, DRV_CONFIG, "pump: command too long");
+	double deadline = drv_now_s() + (double)p->link.timeout_ms / 1000.0;
+	serial_drain(&p->ser);
+	drv_status_t st = serial_write(&p->ser, buf, (size_t)n, deadline, err);
+	if (st != DRV_OK)
+		return st;
+	int garbage = 0;
+	for (;;) {
+		char line[256];
+		st =
+		    serial_read_line(&p->ser, p->prof.reply_end, line, sizeof(line), deadline, err);
+		if (st == DRV_TIMEOUT && garbage)
+			return drv_fail(err, DRV_BAD_REPLY,
+			                "pump: %d unreadable line(s) and no valid reply to '%s' "
+			                "within %ld ms",
+			                garbage, cmd, p->link.timeout_ms);
+		if (st == DRV_TIMEOUT)
+			return drv_fail(err, DRV_TIMEOUT, "pump: no reply to '%s' within %ld ms",
+			                cmd, p->link.timeout_ms);
+		if (st != DRV_OK)
+			return st;
+		if (pump_parse_reply(&p->prof, line, rep) != PUMP_REPLY_UNKNOWN)
+			return DRV_OK;
+		garbage++;
+	}
+}
+
+static drv_status_t ensure_open(pump_t *p, drv_err_t *err);
+
+/* With bounded retries: for commands that are safe to repeat. */
+static drv_status_t transact(pump_t *p, const char *cmd, pump_reply_t *rep, drv_err_t *err)
+{
+	drv_status_t st = DRV_OK;
+	for (long i = 0; i <= p->link.retries; i++) {
+		st = ensure_open(p, err);
+		if (st != DRV_OK)
+			return st;
+		st = transact_once(p, cmd, rep, err);
+		if (st == DRV_OK || st == DRV_CONFIG)
+			return st;
+		if (st == DRV_UNPLUGGED && i > 0)
+			return st;
+	}
+	return st;
+}
+
+static drv_status_t expect_ok(pump_t *p, const char *what, const pump_reply_t *r, drv_err_t *err)
+{
+	switch (r->kind) {
+	case PUMP_REPLY_OK:
+		return DRV_OK;
+	case PUMP_REPLY_BUSY:
+		return drv_fail(err, DRV_DEVICE_ERROR, "pump: busy, refused '%s'", what);
+	case PUMP_REPLY_ERROR:
+		p->fault = true;
+		return drv_fail(err, DRV_DEVICE_ERROR, "pump: error %ld on '%s': %s", r->code, what,
+		                r->text[0] ? r->text : "(no text)");
+	default:
+		return drv_fail(err, DRV_BAD_REPLY, "pump: unexpected reply to '%s'", what);
+	}
+}
+
+static drv_status_t simple_cmd(pump_t *p, const char *tmpl, const pump_args_t *a, drv_err_t *err)
+{
+	char cmd[PUMP_STR * 2];
+	if (pump_expand(tmpl, a, cmd, sizeof(cmd)) < 0)
+		return drv_fail(err, DRV_CONFIG, "pump: cannot expand '%s'", tmpl);
+	pump_reply_t r;
+	drv_status_t st = transact(p, cmd, &r, err);
+	if (st != DRV_OK)
+		return st;
+	return expect_ok(p, cmd, &r, err);
+}
+
+/* Ask for the position; count what left the syringe while dosing. */
+static drv_status_t query(pump_t *p, bool *moving, drv_err_t *err)
+{
+	pump_reply_t r;
+	drv_status_t st = transact(p, p->prof.status, &r, err);
+	if (st != DRV_OK)
+		return st;
+	if (r.kind == PUMP_REPLY_ERROR) {
+		p->fault = true;
+		return drv_fail(err, DRV_DEVICE_ERROR, "pump: error %ld: %s", r.code,
+		                r.text[0] ? r.text : "(no text)");
+	}
+	if (r.kind != PUMP_REPLY_MOVING && r.kind != PUMP_REPLY_IDLE)
+		return drv_fail(err, DRV_BAD_REPLY, "pump: status reply without a position");
+	if (r.position < 0 || r.position > p->steps)
+		return drv_fail(err, DRV_BAD_REPLY, "pump: position %ld outside 0..%ld", r.position,
+		                p->steps);
+	bool counting = p->mode == MODE_DOSE || p->mode == MODE_IDLE;
+	if (p->known && counting && r.position < p->pos)
+		p->dispensed_steps += p->pos - r.position;
+	p->pos = r.position;
+	p->known = true;
+	*moving = r.kind == PUMP_REPLY_MOVING;
+	return DRV_OK;
+}
+
+static drv_status_t open_link(pump_t *p, drv_err_t *err)
+{
+	drv_status_t st = serial_open(&p->ser, &p->link, err);
+	if (st != DRV_OK)
+		return st;
+	if (p->prof.init[0]) {
+		pump_reply_t r;
+		st = transact_once(p, p->prof.init, &r, err);
+		if (st == DRV_OK)
+			st = expect_ok(p, p->prof.init, &r, err);
+		if (st != DRV_OK)
+			return st;
+	}
+	return DRV_OK;
+}
+
+static drv_status_t ensure_open(pump_t *p, drv_err_t *err)
+{
+	if (serial_is_open(&p->ser))
+		return DRV_OK;
+	return open_link(p, err);
+}
+
+static drv_status_t pump_open(void *priv, drv_err_t *err)
+{
+	pump_t *p = priv;
+	drv_status_t st = open_link(p, err);
+	if (st != DRV_OK)
+		return st;
+	bool mv;
+	return query(p, &mv, err);
+}
+
+static drv_status_t pump_dose(void *priv, double volume_ml, drv_err_t *err)
+{
+	pump_t *p = priv;
+	if (!(volume_ml > 0) || !isfinite(volume_ml))
+		return drv_fail(err, DRV_CONFIG, "pump: dose must be > 0 mL (got %g)", volume_ml);
+	long steps = lround(volume_ml / ml_per_step(p));
+	if (steps < 1)
+		return drv_fail(err, DRV_CONFIG, "pump: %g mL is less than one step (%g mL)",
+		                volume_ml, ml_per_step(p));
+	bool mv;
+	drv_status_t st = query(p, &mv, err);
+	if (st != DRV_OK)
+		return st;
+	if (mv || p->mode != MODE_IDLE)
+		return drv_fail(err, DRV_DEVICE_ERROR, "pump: still moving; dose refused");
+	if (steps > p->pos)
+		return drv_fail(err, DRV_CONFIG,
+		                "pump: syringe holds %.4f mL, dose of %.4f mL needs a refill",
+		                p->pos * ml_per_step(p), volume_ml);
+	pump_args_t a = {.steps = steps,
+	                 .volume_ml = steps * ml_per_step(p),
+	                 .speed = speed_for(p, p->prof.dose_rate_ml_min),
+	                 .position = p->pos - steps};
+	char cmd[PUMP_STR * 2];
+	if (pump_expand(p->prof.dose, &a, cmd, sizeof(cmd)) < 0)
+		return drv_fail(err, DRV_CONFIG, "pump: cannot expand dose command");
+	long before = p->pos;
+	for (long i = 0; i <= p->link.retries; i++) {
+		pump_reply_t r;
+		st = ensure_open(p, err);
+		if (st != DRV_OK)
+			return st;
+		st = transact_once(p, cmd, &r, err);
+		if (st == DRV_OK) {
+			st = expect_ok(p, cmd, &r, err);
+			if (st == DRV_OK)
+				p->mode = MODE_DOSE;
+			return st;
+		}
+		if (st == DRV_CONFIG)
+			return st;
+		/* Lost or garbled reply: did the plunger start? */
+		drv_err_t e2;
+		if (query(p, &mv, &e2) == DRV_OK && (mv || p->pos < before)) {
+			p->mode = MODE_DOSE;
+			return DRV_OK;
+		}
+	}
+	return st;
+}
+
+/* Advance a refill when the device is at rest. */
+static drv_status_t refill_step(pump_t *p, drv_err_t *err)
+{
+	pump_args_t a = {0};
+	drv_status_t st = DRV_OK;
+	switch (p->mode) {
+	case MODE_VALVE_IN:
+		a.steps = p->steps - p->pos;
+		a.volume_ml = a.steps * ml_per_step(p);
+		a.speed = speed_for(p, p->prof.fill_rate_ml_min);
+		a.position = p->steps;
+		if (a.steps > 0) {
+			st = simple_cmd(p, p->prof.fill, &a, err);
+			if (st == DRV_OK)
+				p->mode = MODE_FILL;
+			return st;
+		}
+		/* fall through: already full */
+		p->mode = MODE_FILL;
+		return refill_step(p, err);
+	case MODE_FILL:
+		if (!p->prof.valve_out[0]) {
+			p->mode = MODE_IDLE;
+			return DRV_OK;
+		}
+		st = simple_cmd(p, p->prof.valve_out, &a, err);
+		if (st == DRV_OK)
+			p->mode = MODE_VALVE_OUT;
+		return st;
+	case MODE_VALVE_OUT:
+	case MODE_DOSE:
+		p->mode = MODE_IDLE;
+		return DRV_OK;
+	case MODE_IDLE:
+		return DRV_OK;
+	}
+	return DRV_OK;
+}
+
+static drv_status_t pump_status(void *priv, drv_burette_status_t *out, drv_err_t *err)
+{
+	pump_t *p = priv;
+	bool mv = false;
+	drv_status_t st = query(p, &mv, err);
+	if (st == DRV_OK && !mv && p->mode != MODE_IDLE) {
+		st = refill_step(p, err);
+		if (st == DRV_OK && p->mode != MODE_IDLE)
+			mv = true; /* the next refill move has started */
+	}
+	p->moving = mv;
+	memset(out, 0, sizeof(*out));
+	out->moving = p->moving || (p->mode != MODE_IDLE && p->mode != MODE_DOSE);
+	out->refilling =
+	    p->mode == MODE_VALVE_IN || p->mode == MODE_FILL || p->mode == MODE_VALVE_OUT;
+	out->dispensed_ml = (double)p->dispensed_steps * ml_per_step(p);
+	out->contents_ml = p->known ? p->pos * ml_per_step(p) : 0;
+	out->fault = p->fault;
+	return st;
+}
+
+static drv_status_t pump_halt(void *priv, drv_err_t *err)
+{
+	pump_t *p = priv;
+	pump_args_t a = {0};
+	bool refilling = p->mode == MODE_VALVE_IN || p->mode == MODE_FILL;
+	drv_status_t st = simple_cmd(p, p->prof.halt, &a, err);
+	if (st != DRV_OK)
+		return st;
+	p->fault = false;
+	/* The plunger may have moved since the last status: count it now, in
+	 * the mode it moved in, before leaving that mode. */
+	bool mv;
+	drv_err_t e2;
+	(void)query(p, &mv, &e2);
+	p->mode = MODE_IDLE;
+	if (refilling && p->prof.valve_out[0])
+		return simple_cmd(p, p->prof.valve_out, &a, err);
+	return DRV_OK;
+}
+
+static drv_status_t pump_refill(void *priv, drv_err_t *err)
+{
+	pump_t *p = priv;
+	bool mv;
+	drv_status_t st = query(p, &mv, err);
+	if (st != DRV_OK)
+		return st;
+	if (mv || p->mode != MODE_IDLE)
+		return drv_fail(err, DRV_DEVICE_ERROR, "pump: still moving; refill refused");
+	pump_args_t a = {0};
+	if (p->prof.valve_in[0]) {
+		st = simple_cmd(p, p->prof.valve_in, &a, err);
+		if (st == DRV_OK)
+			p->mode = MODE_VALVE_IN;
+		return st;
+	}
+	p->mode = MODE_VALVE_IN; /* no valve: go straight to filling */
+	return refill_step(p, err);
+}
+
+static void pump_close(void *priv)
+{
+	pump_t *p = priv;
+	if (!p)
+		return;
+	serial_close(&p->ser);
+	free(p);
+}
+
+const drv_burette_ops_t drv_pump_serial = {
+    .name = "pump-serial",
+    .summary = "line-based ASCII syringe pump on a serial port, described by a profile",
+    .configure = pump_configure,
+    .info = pump_info,
+    .open = pump_open,
+    .dose = pump_dose,
+    .status = pump_status,
+    .halt = pump_halt,
+    .refill = pump_refill,
+    .close = pump_close,
+};
