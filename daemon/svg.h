@@ -38,6 +38,6 @@ typedef struct svg_opts {
  * or NULL only when out of memory. `pts` and `ends` may be NULL when their
  * counts are 0; `o` may be NULL for defaults. */
 char *svg_curve(const svg_point_t *pts, size_t n, const svg_endpoint_t *ends, size_t n_ends,
-		const svg_opts_t *o);
+                const svg_opts_t *o);
 
 #endif

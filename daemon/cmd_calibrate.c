@@ -1,0 +1,229 @@
+/* cmd_calibrate.c: `stopcock calibrate --station N --buffers 4.01,7.00,10.01`
+ * walks the operator through an electrode calibration on the daemon
+ * (POST /v1/calibrations, then POST .../next per buffer), showing each
+ * buffer's measured mV and, at the end, the slope, offset and verdict.
+ * Exit 0 when the calibration is accepted, 1 when rejected or broken off. */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "client.h"
+#include "cmd.h"
+
+#define CAL_MAX_BUFFERS   8     /* sent on; the daemon enforces its own limit */
+#define CAL_POLL_MS       500   /* ms between polls while a buffer is measured */
+#define CAL_MEASURE_MAX_S 600.0 /* s; the daemon has its own, shorter time limit */
+
+static const char usage[] = "calibrate --station N --buffers 4.01,7.00,10.01";
+
+static int parse_buffers(const char *s, double *ph, int max)
+{
+	int n = 0;
+	char *copy = strdup(s), *save = NULL;
+	if (!copy)
+		return -1;
+	for (char *tok = strtok_r(copy, ",", &save); tok; tok = strtok_r(NULL, ",", &save)) {
+		double v;
+		if (n == max || !client_parse_number(tok, &v) || v < 0 || v > 14) {
+			n = -1;
+			break;
+		}
+		ph[n++] = v;
+	}
+	free(copy);
+	return n;
+}
+
+static void sleep_ms(int ms)
+{
+	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
+	while (nanosleep(&ts, &ts) != 0)
+		;
+}
+
+static double mono_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_MONOTONIC, &ts);
+	return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
+}
+
+/* The entry of `buffers` for the nominal pH, or NULL. */
+static const json_t *buffer_entry(const json_t *cal, double nominal)
+{
+	size_t i;
+	json_t *b;
+	json_array_foreach(json_object_get(cal, "buffers"), i, b)
+	{
+		double v = client_num(b, "nominal");
+		if (isfinite(v) && fabs(v - nominal) < 1e-6)
+			return b;
+	}
+	return NULL;
+}
+
+static void print_verdict(const json_t *cal)
+{
+	char b1[32], b2[32], b3[32];
+	size_t i;
+	json_t *b;
+	printf("buffers:\n");
+	json_array_foreach(json_object_get(cal, "buffers"), i, b)
+	{
+		printf("  %s  pH %s at %s °C  %s mV  (off the line by %s mV)\n",
+		       client_fmt(b1, sizeof b1, client_num(b, "nominal"), 2),
+		       client_fmt(b2, sizeof b2, client_num(b, "ph"), 3),
+		       client_fmt(b3, sizeof b3, client_num(b, "temperature_c"), 1),
+		       client_fmt(b1, sizeof b1, client_num(b, "mv"), 1),
+		       client_fmt(b2, sizeof b2, client_num(b, "residual_mv"), 1));
+	}
+	printf("slope   %s %% of the Nernst slope\n",
+	       client_fmt(b1, sizeof b1, client_num(cal, "slope_pct"), 1));
+	printf("offset  %s mV at pH 7\n",
+	       client_fmt(b1, sizeof b1, client_num(cal, "offset_mv"), 1));
+	const char *state = client_str(cal, "state", "?");
+	if (!strcmp(state, "accepted")) {
+		printf("verdict accepted");
+		const char *exp = client_str(cal, "expires_at", NULL);
+		if (exp)
+			printf(", valid until %s", exp);
+		printf("\n");
+	} else {
+		printf("verdict %s: %s\n", state, client_str(cal, "reason", "no reason given"));
+	}
+}
+
+int cmd_calibrate(int argc, char **argv)
+{
+	static const struct option opts[] = {CLIENT_LONG_OPTIONS,
+	                                     {"station", required_argument, NULL, 's'},
+	                                     {"buffers", required_argument, NULL, 'b'},
+	                                     {0, 0, 0, 0}};
+	client_t c;
+	client_init(&c, "calibrate");
+	const char *station = NULL, *buffers_s = NULL;
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (client_option(&c, opt, optarg))
+			continue;
+		if (opt == 's') {
+			station = optarg;
+			continue;
+		}
+		if (opt == 'b') {
+			buffers_s = optarg;
+			continue;
+		}
+		if (opt == CLIENT_OPT_HELP) {
+			client_usage(&c, usage, NULL);
+			return CLIENT_EXIT_OK;
+		}
+		return client_usage(&c, usage, "unknown option or missing value: %s",
+		                    argv[optind - 1]);
+	}
+	if (optind < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	if (!station || !buffers_s)
+		return client_usage(&c, usage, "--station and --buffers are needed");
+	double ph[CAL_MAX_BUFFERS];
+	int n = parse_buffers(buffers_s, ph, CAL_MAX_BUFFERS);
+	if (n < 1)
+		return client_usage(&c, usage,
+		                    "--buffers takes pH values from 0 to 14 separated by commas, "
+		                    "not '%s'",
+		                    buffers_s);
+
+	json_t *list = json_array();
+	for (int i = 0; i < n; i++)
+		json_array_append_new(list, json_real(ph[i]));
+	json_t *body = json_pack("{s:s,s:o}", "station", station, "buffers", list);
+	json_t *cal = NULL;
+	int rc = client_json(&c, "POST", "/v1/calibrations", body, true, &cal, NULL);
+	json_decref(body);
+	if (rc)
+		return client_exit(&c, rc);
+	json_t *idj = json_object_get(cal, "id");
+	long long id = json_is_integer(idj) ? json_integer_value(idj) : 0;
+	if (id <= 0) {
+		client_say(&c, "stopcockd's reply has no calibration id");
+		json_decref(cal);
+		client_free(&c);
+		return CLIENT_EXIT_FAIL;
+	}
+	fprintf(stderr, "calibration %lld on station %s: %d buffers\n", id, station, n);
+	bool tty = isatty(STDERR_FILENO);
+	char path[96];
+	int exit_code = CLIENT_EXIT_FAIL;
+	for (;;) {
+		const char *state = client_str(cal, "state", "?");
+		if (!strcmp(state, "accepted") || !strcmp(state, "rejected")) {
+			print_verdict(cal);
+			exit_code = strcmp(state, "accepted") ? CLIENT_EXIT_FAIL : CLIENT_EXIT_OK;
+			break;
+		}
+		if (strcmp(state, "waiting")) {
+			client_say(&c, "unexpected calibration state '%s'", state);
+			break;
+		}
+		double next = client_num(cal, "next_buffer");
+		char nb[32];
+		fprintf(stderr, "Put the electrode in buffer %s and press Enter ",
+		        client_fmt(nb, sizeof nb, next, 2));
+		fflush(stderr);
+		char line[256];
+		if (!fgets(line, sizeof line, stdin)) {
+			fprintf(stderr, "\n");
+			client_say(&c, "no answer (end of input); calibration %lld left waiting",
+			           id);
+			break;
+		}
+		snprintf(path, sizeof path, "/v1/calibrations/%lld/next", id);
+		json_t *r = NULL;
+		if (client_json(&c, "POST", path, NULL, true, &r, NULL))
+			break;
+		json_decref(r);
+		/* Poll until this buffer is measured; show the live mV meanwhile. */
+		snprintf(path, sizeof path, "/v1/calibrations/%lld", id);
+		double t0 = mono_s();
+		bool broken = false;
+		for (;;) {
+			json_t *now = NULL;
+			if (client_json(&c, "GET", path, NULL, false, &now, NULL)) {
+				broken = true;
+				break;
+			}
+			json_decref(cal);
+			cal = now;
+			if (strcmp(client_str(cal, "state", "?"), "measuring"))
+				break;
+			if (mono_s() - t0 > CAL_MEASURE_MAX_S) {
+				client_say(&c, "buffer %s not stable after %.0f s; giving up", nb,
+				           CAL_MEASURE_MAX_S);
+				broken = true;
+				break;
+			}
+			if (tty) {
+				fprintf(stderr, "\r\033[Kmeasuring buffer %s ... %.0f s", nb,
+				        mono_s() - t0);
+				fflush(stderr);
+			}
+			sleep_ms(CAL_POLL_MS);
+		}
+		if (tty)
+			fprintf(stderr, "\r\033[K");
+		if (broken)
+			break;
+		const json_t *b = buffer_entry(cal, next);
+		char b1[32], b2[32];
+		if (b && isfinite(client_num(b, "mv")))
+			fprintf(stderr, "buffer %s: %s mV at %s °C\n", nb,
+			        client_fmt(b1, sizeof b1, client_num(b, "mv"), 1),
+			        client_fmt(b2, sizeof b2, client_num(b, "temperature_c"), 1));
+	}
+	json_decref(cal);
+	client_free(&c);
+	return exit_code;
+}

@@ -1,0 +1,436 @@
+/* cmd_client.c: the `stopcock` client commands start, status, wait, abort
+ * and halt, over the daemon's HTTP API (INTERFACE.md). `show` is in
+ * cmd_show.c, `calibrate` in cmd_calibrate.c; shared plumbing in client.c. */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "client.h"
+#include "cmd.h"
+
+#define WAIT_POLL_MS       500  /* how often `wait` asks, ms */
+#define WAIT_UNREACHABLE_S 10.0 /* `wait` gives up after the daemon is gone this long, s */
+
+static double mono_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_MONOTONIC, &ts);
+	return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
+}
+
+static void sleep_ms(int ms)
+{
+	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
+	while (nanosleep(&ts, &ts) != 0)
+		;
+}
+
+/* ---- start ---- */
+
+int cmd_start(int argc, char **argv)
+{
+	static const char usage[] = "start --station N --method M --sample-id ID --amount X";
+	static const struct option opts[] = {CLIENT_LONG_OPTIONS,
+	                                     {"station", required_argument, NULL, 's'},
+	                                     {"method", required_argument, NULL, 'm'},
+	                                     {"sample-id", required_argument, NULL, 'i'},
+	                                     {"amount", required_argument, NULL, 'a'},
+	                                     {0, 0, 0, 0}};
+	client_t c;
+	client_init(&c, "start");
+	const char *station = NULL, *method = NULL, *sample = NULL, *amount_s = NULL;
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (client_option(&c, opt, optarg))
+			continue;
+		switch (opt) {
+		case 's':
+			station = optarg;
+			break;
+		case 'm':
+			method = optarg;
+			break;
+		case 'i':
+			sample = optarg;
+			break;
+		case 'a':
+			amount_s = optarg;
+			break;
+		case CLIENT_OPT_HELP:
+			client_usage(&c, usage, NULL);
+			return CLIENT_EXIT_OK;
+		case ':':
+			return client_usage(&c, usage, "%s needs a value", argv[optind - 1]);
+		default:
+			return client_usage(&c, usage, "unknown option %s", argv[optind - 1]);
+		}
+	}
+	if (optind < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	if (!station || !method || !sample || !amount_s)
+		return client_usage(&c, usage,
+		                    "--station, --method, --sample-id and --amount are "
+		                    "all needed");
+	double amount;
+	if (!client_parse_number(amount_s, &amount) || amount <= 0)
+		return client_usage(&c, usage,
+		                    "--amount must be a positive number (mL or g, as the method's "
+		                    "sample unit says), not '%s'",
+		                    amount_s);
+
+	json_t *body = json_pack("{s:s,s:s,s:s,s:f}", "station", station, "method", method,
+	                         "sample_id", sample, "amount", amount);
+	json_t *reply = NULL;
+	int rc = client_json(&c, "POST", "/v1/runs", body, true, &reply, NULL);
+	json_decref(body);
+	if (rc == 0) {
+		json_t *id = json_object_get(reply, "id");
+		if (json_is_integer(id)) {
+			printf("%lld\n", (long long)json_integer_value(id));
+		} else {
+			client_say(&c, "stopcockd's reply has no run id");
+			rc = -1;
+		}
+	}
+	json_decref(reply);
+	return client_exit(&c, rc);
+}
+
+/* ---- status ---- */
+
+static void print_station(client_t *c, const json_t *st)
+{
+	char b1[32], b2[32], b3[32], b4[32], b5[32], b6[32];
+	const json_t *rd = json_object_get(st, "reading");
+	const json_t *bu = json_object_get(st, "burette");
+	double age_s = client_num(rd, "age_s");
+	if (!isfinite(age_s))
+		age_s = client_num(st, "reading_age_s");
+	const json_t *run = json_object_get(st, "run");
+	const char *phase = client_str(st, "phase", NULL);
+	char runs[32] = "-", phase_buf[16];
+	if (json_is_integer(run)) {
+		snprintf(runs, sizeof runs, "%lld", (long long)json_integer_value(run));
+		if (!phase) { /* the station does not say: ask the run */
+			char path[64];
+			json_t *rec = NULL;
+			char err[256];
+			snprintf(path, sizeof path, "/v1/runs/%lld",
+			         (long long)json_integer_value(run));
+			if (!client_json_quiet(c, "GET", path, &rec, NULL, err, sizeof err)) {
+				snprintf(phase_buf, sizeof phase_buf, "%s",
+				         client_str(rec, "phase", "-"));
+				phase = phase_buf;
+			}
+			json_decref(rec);
+		}
+	}
+	char temp[40];
+	double t_c = client_num(rd, "temperature_c");
+	if (isfinite(t_c))
+		snprintf(temp, sizeof temp, "%.1f °C", t_c);
+	else
+		snprintf(temp, sizeof temp, "-");
+	char burette[48];
+	snprintf(burette, sizeof burette, "%s / %s mL",
+	         client_fmt(b4, sizeof b4, client_num(bu, "dispensed_ml"), 3),
+	         client_fmt(b5, sizeof b5, client_num(bu, "capacity_ml"), 3));
+	/* "°C" is two bytes but one column: pad by hand. */
+	printf("%-10s %-9s %-11s %6s %8s %-9s %6s  %-20s %s\n", client_str(st, "name", "?"),
+	       client_str(st, "state", "?"), phase ? phase : "-",
+	       client_fmt(b1, sizeof b1, client_num(rd, "ph"), 2),
+	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp,
+	       isfinite(age_s) ? (snprintf(b6, sizeof b6, "%.1f s", age_s), b6)
+	                       : client_fmt(b3, sizeof b3, NAN, 0),
+	       burette, runs);
+}
+
+int cmd_status(int argc, char **argv)
+{
+	static const char usage[] = "status";
+	static const struct option opts[] = {CLIENT_LONG_OPTIONS, {0, 0, 0, 0}};
+	client_t c;
+	client_init(&c, "status");
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (client_option(&c, opt, optarg))
+			continue;
+		if (opt == CLIENT_OPT_HELP) {
+			client_usage(&c, usage, NULL);
+			return CLIENT_EXIT_OK;
+		}
+		return client_usage(&c, usage, "unknown option or missing value: %s",
+		                    argv[optind - 1]);
+	}
+	if (optind < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	json_t *j = NULL;
+	int rc = client_json(&c, "GET", "/v1/stations", NULL, false, &j, NULL);
+	if (rc == 0) {
+		/* A bare list, or {"stations": [...]} */
+		json_t *list = json_is_array(j) ? j : json_object_get(j, "stations");
+		if (!json_is_array(list)) {
+			client_say(&c, "stopcockd's station list is not a list");
+			rc = -1;
+		} else if (json_array_size(list) == 0) {
+			printf("no stations configured\n");
+		} else {
+			printf("%-10s %-9s %-11s %6s %8s %-8s %6s  %-20s %s\n", "STATION", "STATE",
+			       "PHASE", "PH", "MV", "TEMP", "AGE", "BURETTE", "RUN");
+			size_t i;
+			json_t *st;
+			json_array_foreach(list, i, st) print_station(&c, st);
+		}
+	}
+	json_decref(j);
+	return client_exit(&c, rc);
+}
+
+/* ---- wait ---- */
+
+static bool state_is_final(const char *s)
+{
+	return !strcmp(s, "finished") || !strcmp(s, "aborted") || !strcmp(s, "failed") ||
+	       !strcmp(s, "interrupted");
+}
+
+/* The station's live reading for the progress line, or NULL. */
+static json_t *station_reading(client_t *c, const char *name)
+{
+	json_t *j = NULL, *found = NULL;
+	char err[256];
+	if (client_json_quiet(c, "GET", "/v1/stations", &j, NULL, err, sizeof err))
+		return NULL;
+	json_t *list = json_is_array(j) ? j : json_object_get(j, "stations");
+	size_t i;
+	json_t *st;
+	json_array_foreach(list, i, st)
+	{
+		if (!strcmp(client_str(st, "name", ""), name)) {
+			found = json_object_get(st, "reading");
+			json_incref(found);
+			break;
+		}
+	}
+	json_decref(j);
+	return found;
+}
+
+/* The short summary printed when the run has ended. */
+static void print_final(long long id, const json_t *rec)
+{
+	char b[32];
+	printf("run %lld %s", id, client_str(rec, "state", "?"));
+	const char *why = client_str(rec, "stop_reason", NULL);
+	if (why)
+		printf(" (%s)", why);
+	size_t i;
+	json_t *e;
+	json_array_foreach(json_object_get(rec, "endpoints"), i, e)
+	{
+		printf("%s EP%lld %s mL", i ? "," : ":",
+		       (long long)json_integer_value(json_object_get(e, "n")),
+		       client_fmt(b, sizeof b, client_num(e, "volume_ml"), 3));
+	}
+	json_array_foreach(json_object_get(rec, "results"), i, e)
+	{
+		json_t *dec = json_object_get(e, "decimals");
+		printf("%s %s %s %s (%s)", i ? "," : ";", client_str(e, "name", "?"),
+		       client_fmt(b, sizeof b, client_num(e, "value"),
+		                  json_is_integer(dec) ? (int)json_integer_value(dec) : 3),
+		       client_str(e, "unit", ""), client_str(e, "accept", "none"));
+	}
+	printf("\n");
+	json_t *faults = json_object_get(rec, "faults");
+	json_array_foreach(faults, i, e)
+	    printf("  fault %s: %s\n", client_str(e, "code", "?"), client_str(e, "message", ""));
+}
+
+int cmd_wait(int argc, char **argv)
+{
+	static const char usage[] = "wait RUN [--timeout S]";
+	static const struct option opts[] = {
+	    CLIENT_LONG_OPTIONS, {"timeout", required_argument, NULL, 't'}, {0, 0, 0, 0}};
+	client_t c;
+	client_init(&c, "wait");
+	double timeout_s = 0; /* 0: as long as it takes */
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (client_option(&c, opt, optarg))
+			continue;
+		if (opt == 't') {
+			if (!client_parse_number(optarg, &timeout_s) || timeout_s <= 0)
+				return client_usage(&c, usage,
+				                    "--timeout must be a positive number of "
+				                    "seconds, not '%s'",
+				                    optarg);
+			continue;
+		}
+		if (opt == CLIENT_OPT_HELP) {
+			client_usage(&c, usage, NULL);
+			return CLIENT_EXIT_OK;
+		}
+		return client_usage(&c, usage, "unknown option or missing value: %s",
+		                    argv[optind - 1]);
+	}
+	long long id;
+	if (optind != argc - 1 || !client_parse_id(argv[optind], &id))
+		return client_usage(&c, usage, "give one run id (a positive integer)");
+
+	bool tty = isatty(STDERR_FILENO);
+	char path[64], line[256] = "", last_key[128] = "", last_err[1500] = "";
+	snprintf(path, sizeof path, "/v1/runs/%lld", id);
+	double t0 = mono_s(), gone_since = -1;
+	int rc = CLIENT_EXIT_FAIL;
+	for (;;) {
+		json_t *rec = NULL;
+		int status = 0;
+		char err[1500];
+		if (client_json_quiet(&c, "GET", path, &rec, &status, err, sizeof err)) {
+			if (status == 404) {
+				client_say(&c, "there is no run %lld", id);
+				break;
+			}
+			if (c.bad_args) {
+				client_say(&c, "%s", err);
+				rc = CLIENT_EXIT_USAGE;
+				break;
+			}
+			snprintf(last_err, sizeof last_err, "%s", err);
+			if (status == 0) { /* not reachable: the daemon may be restarting */
+				if (gone_since < 0)
+					gone_since = mono_s();
+				if (mono_s() - gone_since > WAIT_UNREACHABLE_S) {
+					if (tty && line[0])
+						fputc('\n', stderr);
+					client_say(&c, "%s", err);
+					break;
+				}
+			}
+		} else {
+			gone_since = -1;
+			const char *state = client_str(rec, "state", "?");
+			if (state_is_final(state)) {
+				if (tty && line[0])
+					fprintf(stderr, "\r\033[K");
+				print_final(id, rec);
+				rc = strcmp(state, "finished") ? CLIENT_EXIT_FAIL : CLIENT_EXIT_OK;
+				json_decref(rec);
+				break;
+			}
+			const char *phase = client_str(rec, "phase", NULL);
+			json_t *add = json_object_get(rec, "additions");
+			long long additions = json_is_integer(add) ? json_integer_value(add) : 0;
+			double vol_ml = client_num(rec, "dispensed_ml");
+			char b1[32], b2[32], b3[32], sig[64] = "";
+			if (!strcmp(state, "running")) {
+				json_t *rd = station_reading(&c, client_str(rec, "station", ""));
+				if (rd)
+					snprintf(
+					    sig, sizeof sig, "  pH %s  %s mV",
+					    client_fmt(b2, sizeof b2, client_num(rd, "ph"), 2),
+					    client_fmt(b3, sizeof b3, client_num(rd, "mv"), 1));
+				json_decref(rd);
+			}
+			snprintf(line, sizeof line, "run %lld %s%s%s  additions %lld  %s mL%s", id,
+			         state, phase ? "/" : "", phase ? phase : "", additions,
+			         client_fmt(b1, sizeof b1, vol_ml, 3), sig);
+			char key[128];
+			snprintf(key, sizeof key, "%s %s %lld", state, phase ? phase : "",
+			         additions);
+			if (tty) {
+				fprintf(stderr, "\r\033[K%s", line);
+				fflush(stderr);
+			} else if (strcmp(key, last_key)) {
+				fprintf(stderr, "%s\n", line);
+				snprintf(last_key, sizeof last_key, "%s", key);
+			}
+		}
+		json_decref(rec);
+		if (timeout_s > 0 && mono_s() - t0 >= timeout_s) {
+			if (tty && line[0])
+				fputc('\n', stderr);
+			if (gone_since >= 0)
+				client_say(&c, "%s", last_err);
+			else
+				client_say(&c, "run %lld has not ended after %g s", id, timeout_s);
+			break;
+		}
+		sleep_ms(WAIT_POLL_MS);
+	}
+	client_free(&c);
+	return rc;
+}
+
+/* ---- abort, halt ---- */
+
+int cmd_abort(int argc, char **argv)
+{
+	static const char usage[] = "abort RUN";
+	static const struct option opts[] = {CLIENT_LONG_OPTIONS, {0, 0, 0, 0}};
+	client_t c;
+	client_init(&c, "abort");
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (client_option(&c, opt, optarg))
+			continue;
+		if (opt == CLIENT_OPT_HELP) {
+			client_usage(&c, usage, NULL);
+			return CLIENT_EXIT_OK;
+		}
+		return client_usage(&c, usage, "unknown option or missing value: %s",
+		                    argv[optind - 1]);
+	}
+	long long id;
+	if (optind != argc - 1 || !client_parse_id(argv[optind], &id))
+		return client_usage(&c, usage, "give one run id (a positive integer)");
+	char path[64];
+	snprintf(path, sizeof path, "/v1/runs/%lld/abort", id);
+	json_t *reply = NULL;
+	int rc = client_json(&c, "POST", path, NULL, true, &reply, NULL);
+	if (rc == 0)
+		printf("run %lld %s\n", id, client_str(reply, "state", "aborted"));
+	json_decref(reply);
+	return client_exit(&c, rc);
+}
+
+int cmd_halt(int argc, char **argv)
+{
+	static const char usage[] = "halt --station N";
+	static const struct option opts[] = {
+	    CLIENT_LONG_OPTIONS, {"station", required_argument, NULL, 's'}, {0, 0, 0, 0}};
+	client_t c;
+	client_init(&c, "halt");
+	const char *station = NULL;
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (client_option(&c, opt, optarg))
+			continue;
+		if (opt == 's') {
+			station = optarg;
+			continue;
+		}
+		if (opt == CLIENT_OPT_HELP) {
+			client_usage(&c, usage, NULL);
+			return CLIENT_EXIT_OK;
+		}
+		return client_usage(&c, usage, "unknown option or missing value: %s",
+		                    argv[optind - 1]);
+	}
+	if (optind < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	if (!station || !*station)
+		return client_usage(&c, usage, "--station is needed");
+	char seg[200], path[256];
+	client_escape_segment(station, seg, sizeof seg);
+	snprintf(path, sizeof path, "/v1/stations/%s/halt", seg);
+	json_t *reply = NULL;
+	int rc = client_json(&c, "POST", path, NULL, true, &reply, NULL);
+	if (rc == 0)
+		printf("station %s halted\n", station);
+	json_decref(reply);
+	return client_exit(&c, rc);
+}
