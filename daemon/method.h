@@ -98,6 +98,10 @@ int method_parse(const char *name, const char *buf, size_t len, const method_lim
 		 method_t *m, diag_list_t *d);
 int method_load(const char *path, const method_limits_t *lim, method_t *m, diag_list_t *d);
 
+/* Fill m with every documented default (docs/methods.md); method_parse
+ * starts from these. Useful for tests that build a method by hand. */
+void method_defaults(method_t *m);
+
 /* Names for enum values as they appear in files and JSON. */
 const char *method_purpose_name(method_purpose_t p);
 const char *method_signal_name(method_signal_t s);

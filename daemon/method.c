@@ -1,0 +1,640 @@
+/* method.c: parse and validate a method file (see method.h, docs/methods.md).
+ *
+ * One pass over the YAML tree fills method_t with each key's value or its
+ * documented default and reports every bad key, type and range; a second pass
+ * (method_cross.c) checks the rules that tie keys together. Errors go on
+ * being collected after the first, so an author fixes a file in one round.
+ * Every physical range below is a unit-carrying bound stated once, here.
+ */
+#include "method.h"
+#include "method_priv.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "sha256.h"
+
+/* Electrode ranges: a glass electrode reads pH -1 .. 15; a mV input spans
+ * +-1000 mV (common practice for pH/mV transmitters). */
+#define PH_LO -1.0
+#define PH_HI 15.0
+#define MV_LO -1000.0
+#define MV_HI 1000.0
+
+static const char *const purpose_words[] = {"assay", "standardize", "blank", NULL};
+static const char *const signal_words[] = {"ph", "mv", NULL};
+static const char *const dosing_words[] = {"adaptive", "constant", NULL};
+static const char *const detect_words[] = {"inflection", "target", "gran", NULL};
+static const char *const unit_words[] = {"mL", "g", NULL};
+
+const char *method_purpose_name(method_purpose_t p)
+{
+	return (unsigned)p < 3 ? purpose_words[p] : "?";
+}
+
+const char *method_signal_name(method_signal_t s)
+{
+	return (unsigned)s < 2 ? signal_words[s] : "?";
+}
+
+const char *method_detect_name(method_detect_t k)
+{
+	return (unsigned)k < 3 ? detect_words[k] : "?";
+}
+
+const char *method_unit_name(method_unit_t u)
+{
+	return (unsigned)u < 2 ? unit_words[u] : "?";
+}
+
+const char *mp_signal_unit(const method_t *m)
+{
+	return m->signal == SIGNAL_MV ? "mV" : "pH";
+}
+
+void mp_signal_range(const method_t *m, double *lo, double *hi)
+{
+	*lo = m->signal == SIGNAL_MV ? MV_LO : PH_LO;
+	*hi = m->signal == SIGNAL_MV ? MV_HI : PH_HI;
+}
+
+void method_defaults(method_t *m)
+{
+	memset(m, 0, sizeof *m);
+	m->revision = 1;
+	m->purpose = PURPOSE_ASSAY;
+	m->titrant_molarity = 0.1;
+	m->sample_unit = UNIT_ML;
+	m->sample_min = 0.001;
+	m->sample_max = 1000.0;
+	m->signal = SIGNAL_PH;
+	m->stir_s = 10.0;
+	m->predose_ml = 0.0;
+	m->dosing = DOSING_ADAPTIVE;
+	m->step_aim = 0.10;
+	m->dose_min_ml = 0.005;
+	m->dose_max_ml = 0.50;
+	m->dose_ml = 0.05;
+	m->wait_min_s = 2.0;
+	m->wait_max_s = 30.0;
+	m->still_within = 0.02;
+	m->still_for_s = 3.0;
+	m->detect = DETECT_INFLECTION;
+	m->count = 1;
+	m->min_jump = 0.5;
+	m->past_endpoint_ml = 0.5;
+	m->volume_max_ml = 10.0;
+	m->time_max_s = 1800.0;
+}
+
+/* Defaults in signal units change with the signal: a 0.1 pH step is about
+ * 6 mV at 25 degC (59.16 mV/pH, CODATA 2018 via CHECKS.md section 4). */
+static void signal_defaults(method_t *m)
+{
+	if (m->signal == SIGNAL_MV) {
+		m->step_aim = 6.0;
+		m->still_within = 1.0;
+		m->min_jump = 30.0;
+	}
+}
+
+/* ---- small helpers shared with method_cross.c ---- */
+
+/* "missing key", unless a misspelt key already stands in its place: then the
+ * unknown-key error ("did you mean ...") says it all. */
+static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const char *where)
+{
+	/* Every key of the schema: a known key is never taken for a typo. */
+	static const char *const known[] = {"method",
+	                                    "title",
+	                                    "revision",
+	                                    "purpose",
+	                                    "titrant",
+	                                    "sample",
+	                                    "signal",
+	                                    "start",
+	                                    "dosing",
+	                                    "settle",
+	                                    "detect",
+	                                    "stop",
+	                                    "results",
+	                                    "name",
+	                                    "molarity",
+	                                    "unit",
+	                                    "min",
+	                                    "max",
+	                                    "stir_s",
+	                                    "predose_ml",
+	                                    "mode",
+	                                    "step_aim",
+	                                    "dose_min_ml",
+	                                    "dose_max_ml",
+	                                    "dose_ml",
+	                                    "wait_min_s",
+	                                    "wait_max_s",
+	                                    "still_within",
+	                                    "still_for_s",
+	                                    "kind",
+	                                    "count",
+	                                    "min_jump",
+	                                    "window",
+	                                    "target",
+	                                    "past_endpoint_ml",
+	                                    "volume_max_ml",
+	                                    "signal_limit",
+	                                    "time_max_s",
+	                                    "formula",
+	                                    "decimals",
+	                                    "accept",
+	                                    NULL};
+	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
+		const char *k = map->keys[i]->str;
+		bool is_known = false;
+		for (size_t j = 0; known[j]; j++)
+			if (!strcmp(k, known[j]))
+				is_known = true;
+		if (!is_known && yt_edit_distance(k, key, 2) <= 2)
+			return;
+	}
+	yt_missing(c->doc, map, key, where, c->d);
+}
+
+static const yt_node_t *section(mp_ctx_t *c, const yt_node_t *parent, const char *key,
+                                bool required, const char *const *allowed, bool *bad)
+{
+	const yt_node_t *n = yt_get(parent, key);
+	*bad = false;
+	if (!n) {
+		if (required)
+			missing(c, parent, key, "method");
+		*bad = required;
+		return NULL;
+	}
+	if (!yt_want_map(c->doc, n, key, c->d)) {
+		*bad = true;
+		return NULL;
+	}
+	yt_check_keys(c->doc, n, allowed, key, c->d);
+	return n;
+}
+
+/* A number in node n with lo <= v <= hi (lo < v when lo_open). An absent
+ * node keeps *out (the default) and leaves f->node NULL. */
+static bool num_node(mp_ctx_t *c, const yt_node_t *n, const char *path, const char *unit, double lo,
+                     bool lo_open, double hi, double *out, mp_field_t *f)
+{
+	double v;
+	f->node = n;
+	f->bad = false;
+	if (!n)
+		return true;
+	if (!yt_double(c->doc, n, path, unit, &v, c->d)) {
+		f->bad = true;
+		return false;
+	}
+	if ((lo_open ? v <= lo : v < lo) || v > hi) {
+		if (lo_open)
+			yt_error(c->doc, n, c->d, "%s must be above %g and at most %g %s (got %g)",
+			         path, lo, hi, unit, v);
+		else
+			yt_error(c->doc, n, c->d, "%s must be between %g and %g %s (got %g)", path,
+			         lo, hi, unit, v);
+		f->bad = true;
+		return false;
+	}
+	*out = v;
+	return true;
+}
+
+static bool num(mp_ctx_t *c, const yt_node_t *map, const char *key, const char *path,
+                const char *unit, double lo, bool lo_open, double hi, double *out, mp_field_t *f)
+{
+	return num_node(c, yt_get(map, key), path, unit, lo, lo_open, hi, out, f);
+}
+
+static bool word(mp_ctx_t *c, const yt_node_t *map, const char *key, const char *path,
+                 const char *const *words, int *out, mp_field_t *f)
+{
+	const yt_node_t *n = yt_get(map, key);
+	f->node = n;
+	f->bad = false;
+	if (!n)
+		return true;
+	if (!yt_enum(c->doc, n, path, words, out, c->d)) {
+		f->bad = true;
+		return false;
+	}
+	return true;
+}
+
+/* ---- sections ---- */
+
+static bool id_ok(const char *s)
+{
+	if (!*s)
+		return false;
+	for (; *s; s++)
+		if (!((*s >= 'a' && *s <= 'z') || (*s >= '0' && *s <= '9') || *s == '-'))
+			return false;
+	return true;
+}
+
+static void parse_head(mp_ctx_t *c, const yt_node_t *root, const char *name)
+{
+	method_t *m = c->m;
+	const yt_node_t *n;
+	int w;
+
+	n = yt_get(root, "method");
+	if (!n) {
+		missing(c, root, "method", "method");
+	} else if (yt_string(c->doc, n, "method", m->id, sizeof m->id, c->d)) {
+		if (!id_ok(m->id)) {
+			yt_error(c->doc, n, c->d,
+			         "method must be an id of lower-case letters, digits and '-' "
+			         "(got \"%s\")",
+			         m->id);
+		} else if (name) {
+			/* The id names the file, so a copied file cannot shadow another. */
+			const char *base = strrchr(name, '/');
+			size_t len;
+			base = base ? base + 1 : name;
+			len = strlen(base);
+			if (len > 5 && !strcmp(base + len - 5, ".yaml") &&
+			    (strlen(m->id) != len - 5 || strncmp(base, m->id, len - 5) != 0))
+				yt_error(c->doc, n, c->d,
+				         "method '%s' must equal the file name '%.*s' (without "
+				         ".yaml)",
+				         m->id, (int)(len - 5), base);
+		}
+	}
+
+	n = yt_get(root, "title");
+	if (!n)
+		missing(c, root, "title", "method");
+	else
+		yt_string(c->doc, n, "title", m->title, sizeof m->title, c->d);
+
+	n = yt_get(root, "revision");
+	if (!n)
+		missing(c, root, "revision", "method");
+	else
+		yt_long(c->doc, n, "revision", 1, 1000000000L, &m->revision, c->d);
+
+	w = (int)m->purpose;
+	if (word(c, root, "purpose", "purpose", purpose_words, &w, &c->f_purpose))
+		m->purpose = (method_purpose_t)w;
+
+	w = (int)m->signal;
+	if (word(c, root, "signal", "signal", signal_words, &w, &c->f_signal))
+		m->signal = (method_signal_t)w;
+	signal_defaults(m);
+}
+
+static void parse_titrant(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"name", "molarity", NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *t = section(c, root, "titrant", true, keys, &bad), *n;
+	if (!t)
+		return;
+	n = yt_get(t, "name");
+	if (!n)
+		missing(c, t, "name", "titrant");
+	else
+		yt_string(c->doc, n, "titrant.name", m->titrant_name, sizeof m->titrant_name, c->d);
+	if (!yt_get(t, "molarity"))
+		missing(c, t, "molarity", "titrant");
+	/* 20 mol/L: above the strongest aqueous titrants in use (common practice). */
+	num(c, t, "molarity", "titrant.molarity", "mol/L", 0.0, true, 20.0, &m->titrant_molarity,
+	    &c->f_molarity);
+}
+
+static void parse_sample(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"unit", "min", "max", NULL};
+	method_t *m = c->m;
+	bool blank = m->purpose == PURPOSE_BLANK;
+	bool bad;
+	const yt_node_t *s = section(c, root, "sample", !blank, keys, &bad);
+	int w = (int)m->sample_unit;
+	const char *u;
+	if (blank)
+		m->sample_min = 0.0; /* a blank may be solvent only */
+	c->f_sample_bad = bad;
+	if (!s)
+		return;
+	if (!yt_get(s, "unit"))
+		missing(c, s, "unit", "sample");
+	if (word(c, s, "unit", "sample.unit", unit_words, &w, &c->f_unit))
+		m->sample_unit = (method_unit_t)w;
+	u = method_unit_name(m->sample_unit);
+	/* Amounts divide results, so only a blank may have amount 0. */
+	num(c, s, "min", "sample.min", u, 0.0, !blank, 10000.0, &m->sample_min, &c->f_sample_min);
+	num(c, s, "max", "sample.max", u, 0.0, true, 10000.0, &m->sample_max, &c->f_sample_max);
+}
+
+static void parse_start(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"stir_s", "predose_ml", NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *s = section(c, root, "start", false, keys, &bad);
+	c->f_stir.bad = c->f_predose.bad = bad;
+	if (!s)
+		return;
+	num(c, s, "stir_s", "start.stir_s", "s", 0.0, false, 3600.0, &m->stir_s, &c->f_stir);
+	num(c, s, "predose_ml", "start.predose_ml", "mL", 0.0, false, 1000.0, &m->predose_ml,
+	    &c->f_predose);
+}
+
+static void not_here(mp_ctx_t *c, const yt_node_t *map, const char *key, const char *msg)
+{
+	const yt_node_t *k = yt_key(map, key);
+	if (k)
+		yt_error(c->doc, k, c->d, "%s", msg);
+}
+
+static void parse_dosing(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"mode",        "step_aim", "dose_min_ml",
+	                                   "dose_max_ml", "dose_ml",  NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *s = section(c, root, "dosing", false, keys, &bad);
+	double lo, hi;
+	int w = (int)m->dosing;
+	c->f_dose_min.bad = c->f_dose_max.bad = c->f_dose.bad = bad;
+	if (!s)
+		return;
+	if (word(c, s, "mode", "dosing.mode", dosing_words, &w, &c->f_mode))
+		m->dosing = (method_dosing_t)w;
+	if (c->f_mode.bad) {
+		c->f_dose_min.bad = c->f_dose_max.bad = c->f_dose.bad = true;
+		return;
+	}
+	/* Doses: 0.5 uL is about the resolution of a 1 mL syringe on a
+	 * 2000-step drive; 100 mL is more than any burette holds. */
+	if (m->dosing == DOSING_ADAPTIVE) {
+		mp_signal_range(m, &lo, &hi);
+		num(c, s, "step_aim", "dosing.step_aim", mp_signal_unit(m), 0.0, true,
+		    m->signal == SIGNAL_MV ? 120.0 : 2.0, &m->step_aim, &c->f_step_aim);
+		num(c, s, "dose_min_ml", "dosing.dose_min_ml", "mL", 0.0005, false, 100.0,
+		    &m->dose_min_ml, &c->f_dose_min);
+		num(c, s, "dose_max_ml", "dosing.dose_max_ml", "mL", 0.0005, false, 100.0,
+		    &m->dose_max_ml, &c->f_dose_max);
+		not_here(c, s, "dose_ml",
+		         "dosing.dose_ml applies only to mode: constant (this method doses "
+		         "adaptively; remove it or set mode: constant)");
+		return;
+	}
+	not_here(c, s, "step_aim", "dosing.step_aim applies only to mode: adaptive");
+	not_here(c, s, "dose_min_ml", "dosing.dose_min_ml applies only to mode: adaptive");
+	not_here(c, s, "dose_max_ml", "dosing.dose_max_ml applies only to mode: adaptive");
+	if (!yt_get(s, "dose_ml")) {
+		yt_error(c->doc, s, c->d,
+		         "missing key 'dose_ml' in dosing (required with mode: "
+		         "constant)");
+		c->f_dose.bad = true;
+		return;
+	}
+	if (num(c, s, "dose_ml", "dosing.dose_ml", "mL", 0.0005, false, 100.0, &m->dose_ml,
+	        &c->f_dose)) {
+		/* The engine sees one dose size in constant mode. */
+		m->dose_min_ml = m->dose_ml;
+		m->dose_max_ml = m->dose_ml;
+	}
+}
+
+static void parse_settle(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"wait_min_s", "wait_max_s", "still_within",
+	                                   "still_for_s", NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *s = section(c, root, "settle", false, keys, &bad);
+	c->f_wait_min.bad = c->f_wait_max.bad = c->f_still_for.bad = bad;
+	if (!s)
+		return;
+	num(c, s, "wait_min_s", "settle.wait_min_s", "s", 0.0, false, 600.0, &m->wait_min_s,
+	    &c->f_wait_min);
+	num(c, s, "wait_max_s", "settle.wait_max_s", "s", 0.0, true, 3600.0, &m->wait_max_s,
+	    &c->f_wait_max);
+	num(c, s, "still_within", "settle.still_within", mp_signal_unit(m), 0.0, true,
+	    m->signal == SIGNAL_MV ? 100.0 : 2.0, &m->still_within, &c->f_still_within);
+	num(c, s, "still_for_s", "settle.still_for_s", "s", 0.0, false, 600.0, &m->still_for_s,
+	    &c->f_still_for);
+}
+
+static void parse_window(mp_ctx_t *c, const yt_node_t *n)
+{
+	method_t *m = c->m;
+	double lo, hi, v[2] = {0, 0};
+	bool ok = true;
+	const char *u = mp_signal_unit(m);
+	mp_field_t f;
+	c->f_window.node = n;
+	c->f_window.bad = true;
+	if (n->kind != YT_SEQ || n->n != 2) {
+		if (n->kind == YT_SEQ)
+			yt_error(c->doc, n, c->d,
+			         "detect.window must be a list of two numbers [low, high] in %s "
+			         "(got %zu item%s)",
+			         u, n->n, n->n == 1 ? "" : "s");
+		else
+			yt_error(c->doc, n, c->d,
+			         "detect.window must be a list of two numbers [low, high] in %s",
+			         u);
+		return;
+	}
+	mp_signal_range(m, &lo, &hi);
+	if (!num_node(c, n->items[0], "detect.window low", u, lo, false, hi, &v[0], &f))
+		ok = false;
+	if (!num_node(c, n->items[1], "detect.window high", u, lo, false, hi, &v[1], &f))
+		ok = false;
+	if (!ok)
+		return;
+	if (v[0] >= v[1]) {
+		yt_error(c->doc, n->items[0], c->d,
+		         "detect.window low (%g %s) must be below its high (%g %s)", v[0], u, v[1],
+		         u);
+		return;
+	}
+	m->window_lo = v[0];
+	m->window_hi = v[1];
+	m->has_window = true;
+	c->f_window.bad = false;
+}
+
+static void parse_detect(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"kind", "count", "min_jump", "window", "target", NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *s = section(c, root, "detect", true, keys, &bad), *n;
+	const char *u = mp_signal_unit(m);
+	double lo, hi;
+	long count = m->count;
+	int w = (int)m->detect;
+	c->f_count.bad = c->f_window.bad = c->f_target.bad = bad;
+	if (!s)
+		return;
+	if (!yt_get(s, "kind")) {
+		missing(c, s, "kind", "detect");
+		c->f_kind.bad = true;
+	} else if (word(c, s, "kind", "detect.kind", detect_words, &w, &c->f_kind)) {
+		m->detect = (method_detect_t)w;
+	}
+	n = yt_get(s, "count");
+	c->f_count.node = n;
+	if (n) {
+		if (yt_long(c->doc, n, "detect.count", 1, METHOD_MAX_ENDPOINTS, &count, c->d))
+			m->count = (int)count;
+		else
+			c->f_count.bad = true;
+	}
+	if (c->f_kind.bad)
+		return;
+	mp_signal_range(m, &lo, &hi);
+	if (m->detect != DETECT_INFLECTION && n && !c->f_count.bad && m->count != 1) {
+		yt_error(c->doc, n, c->d, "detect.count must be 1 with kind: %s (got %d)",
+		         method_detect_name(m->detect), m->count);
+		c->f_count.bad = true;
+	}
+	if (m->detect == DETECT_INFLECTION)
+		num(c, s, "min_jump", "detect.min_jump", u, 0.0, true, hi - lo, &m->min_jump,
+		    &c->f_min_jump);
+	else
+		not_here(c, s, "min_jump", "detect.min_jump applies only to kind: inflection");
+
+	n = yt_get(s, "window");
+	if (n && m->detect == DETECT_TARGET)
+		not_here(c, s, "window",
+		         "detect.window applies only to kind: inflection or gran (a target "
+		         "is one value)");
+	else if (n)
+		parse_window(c, n);
+
+	n = yt_get(s, "target");
+	if (m->detect == DETECT_TARGET) {
+		if (!n) {
+			yt_error(c->doc, s, c->d,
+			         "missing key 'target' in detect (required with kind: target)");
+			c->f_target.bad = true;
+		} else if (num(c, s, "target", "detect.target", u, lo, false, hi, &m->target,
+		               &c->f_target)) {
+			m->has_target = true;
+		}
+	} else if (n) {
+		not_here(c, s, "target", "detect.target applies only to kind: target");
+	}
+}
+
+static void parse_stop(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"past_endpoint_ml", "volume_max_ml", "signal_limit",
+	                                   "time_max_s", NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *s = section(c, root, "stop", true, keys, &bad);
+	double lo, hi;
+	c->f_past.bad = c->f_vol_max.bad = c->f_limit.bad = c->f_time_max.bad = bad;
+	if (!s)
+		return;
+	num(c, s, "past_endpoint_ml", "stop.past_endpoint_ml", "mL", 0.0, false, 100.0,
+	    &m->past_endpoint_ml, &c->f_past);
+	/* The volume limit is a safety interlock: always written out. */
+	if (!yt_get(s, "volume_max_ml")) {
+		missing(c, s, "volume_max_ml", "stop");
+		c->f_vol_max.bad = true;
+	}
+	num(c, s, "volume_max_ml", "stop.volume_max_ml", "mL", 0.0, true, 1000.0, &m->volume_max_ml,
+	    &c->f_vol_max);
+	mp_signal_range(m, &lo, &hi);
+	if (num(c, s, "signal_limit", "stop.signal_limit", mp_signal_unit(m), lo, false, hi,
+	        &m->signal_limit, &c->f_limit) &&
+	    c->f_limit.node)
+		m->has_signal_limit = true;
+	/* 24 h: longer than any titration; catches a forgotten run. */
+	num(c, s, "time_max_s", "stop.time_max_s", "s", 0.0, true, 86400.0, &m->time_max_s,
+	    &c->f_time_max);
+}
+
+static int method_from_doc(const yt_doc_t *doc, const char *name, const method_limits_t *lim,
+                           method_t *m, diag_list_t *d)
+{
+	static const char *const top[] = {"method", "title",  "revision", "purpose", "titrant",
+	                                  "sample", "signal", "start",    "dosing",  "settle",
+	                                  "detect", "stop",   "results",  NULL};
+	mp_ctx_t c;
+	size_t before = d ? d->n : 0;
+	diag_list_t local = DIAG_LIST_INIT;
+	if (!d)
+		d = &local;
+	memset(&c, 0, sizeof c);
+	c.doc = doc;
+	c.d = d;
+	c.m = m;
+	c.lim = lim;
+	if (!yt_want_map(doc, doc->root, "a method file", d))
+		goto out;
+	yt_check_keys(doc, doc->root, top, "method", d);
+	parse_head(&c, doc->root, name);
+	parse_titrant(&c, doc->root);
+	parse_sample(&c, doc->root);
+	parse_start(&c, doc->root);
+	parse_dosing(&c, doc->root);
+	parse_settle(&c, doc->root);
+	parse_detect(&c, doc->root);
+	parse_stop(&c, doc->root);
+	mp_parse_results(&c, doc->root);
+	mp_cross_check(&c, doc->root);
+out:
+	diag_sort(d);
+	if (d == &local) {
+		size_t n = local.n;
+		diag_free(&local);
+		return n ? -1 : 0;
+	}
+	return d->n > before ? -1 : 0;
+}
+
+int method_parse(const char *name, const char *buf, size_t len, const method_limits_t *lim,
+                 method_t *m, diag_list_t *d)
+{
+	yt_doc_t doc;
+	int rc;
+	method_defaults(m);
+	sha256_hex(buf ? buf : "", buf ? len : 0, m->sha256);
+	memset(&doc, 0, sizeof doc);
+	if (yt_load_buffer(name, buf ? buf : "", buf ? len : 0, &doc, d) != 0) {
+		yt_free(&doc);
+		if (d)
+			diag_sort(d);
+		return -1;
+	}
+	rc = method_from_doc(&doc, name, lim, m, d);
+	yt_free(&doc);
+	return rc;
+}
+
+int method_load(const char *path, const method_limits_t *lim, method_t *m, diag_list_t *d)
+{
+	yt_doc_t doc;
+	int rc;
+	method_defaults(m);
+	memset(&doc, 0, sizeof doc);
+	if (yt_load_file(path, &doc, d) != 0) {
+		yt_free(&doc);
+		if (d)
+			diag_sort(d);
+		return -1;
+	}
+	sha256_hex(doc.text ? doc.text : "", doc.text ? doc.text_len : 0, m->sha256);
+	rc = method_from_doc(&doc, path, lim, m, d);
+	yt_free(&doc);
+	return rc;
+}
