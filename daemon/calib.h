@@ -28,24 +28,24 @@
 #include "diag.h"
 #include "yamltree.h"
 
-#define CALIB_MIN_BUFFERS 2
-#define CALIB_MAX_BUFFERS 5
-#define CALIB_MAX_ROWS 24       /* rows of one temperature table */
-#define CALIB_MAX_LAB_BUFFERS 8 /* lab-supplied tables in the daemon config */
-#define CALIB_NAME_MAX 64
-#define CALIB_REASON_MAX 256
+#define CALIB_MIN_BUFFERS     2
+#define CALIB_MAX_BUFFERS     5
+#define CALIB_MAX_ROWS        24 /* rows of one temperature table */
+#define CALIB_MAX_LAB_BUFFERS 8  /* lab-supplied tables in the daemon config */
+#define CALIB_NAME_MAX        64
+#define CALIB_REASON_MAX      256
 
 /* ---- buffers and their temperature tables ---- */
 
 typedef enum {
 	CALIB_BUF_IUPAC = 0, /* IUPAC 2002 primary (or secondary) standard */
 	CALIB_BUF_TECHNICAL, /* technical 4.01 / 7.00 / 10.01, default table (common practice) */
-	CALIB_BUF_LAB,	     /* table from the daemon config `calibration.buffers` */
+	CALIB_BUF_LAB,       /* table from the daemon config `calibration.buffers` */
 	CALIB_BUF_CUSTOM,    /* unknown value, no table: used as given at any temperature */
 } calib_buffer_kind_t;
 
 typedef struct calib_table {
-	int n;			   /* rows; 0 for a custom buffer */
+	int n;                      /* rows; 0 for a custom buffer */
 	double t_c[CALIB_MAX_ROWS]; /* ascending, degC */
 	double ph[CALIB_MAX_ROWS];
 } calib_table_t;
@@ -62,13 +62,13 @@ typedef struct calib_buffer {
 typedef struct calib_config {
 	double slope_min_pct, slope_max_pct; /* accepted slope, % of Nernst */
 	double offset_min_mv, offset_max_mv; /* accepted mV at pH 7 */
-	double residual_max_mv;		     /* largest distance of a buffer from the line */
-	double expires_h;		     /* a calibration is valid this long */
+	double residual_max_mv;              /* largest distance of a buffer from the line */
+	double expires_h;                    /* a calibration is valid this long */
 	/* stability of one buffer's reading */
-	double stable_drift_mv;	 /* drift over the window below this counts as stable */
-	double stable_window_s;	 /* the window the drift is measured over */
-	double stable_min_s;	 /* never accept a buffer sooner than this after `next` */
-	double stable_max_s;	 /* not stable by then: the calibration is rejected */
+	double stable_drift_mv; /* drift over the window below this counts as stable */
+	double stable_window_s; /* the window the drift is measured over */
+	double stable_min_s;    /* never accept a buffer sooner than this after `next` */
+	double stable_max_s;    /* not stable by then: the calibration is rejected */
 	int n_lab;
 	calib_buffer_t lab[CALIB_MAX_LAB_BUFFERS];
 } calib_config_t;
@@ -85,8 +85,7 @@ void calib_config_defaults(calib_config_t *c);
  *   stable: {drift_mv: X, window_s: X, min_s: X, max_s: X}
  *   buffers: [{nominal: 4.01, name: "...", table: [[T_C, PH], ...]}, ...]
  * Fills defaults first. Returns 0, or -1 with every error added to d. */
-int calib_config_parse(const yt_doc_t *doc, const yt_node_t *n, calib_config_t *c,
-		       diag_list_t *d);
+int calib_config_parse(const yt_doc_t *doc, const yt_node_t *n, calib_config_t *c, diag_list_t *d);
 
 /* What a nominal value means. Order: a lab table with this nominal (within
  * 0.0005), then the technical buffers 4.01/7.00/10.01 (same), then an IUPAC
@@ -94,7 +93,7 @@ int calib_config_parse(const yt_doc_t *doc, const yt_node_t *n, calib_config_t *
  * KHP, 6.86/6.865 phosphate, 9.18 borax, 10.012 carbonate, 1.68 tetroxalate),
  * else a custom buffer without table. Always fills *out; returns its kind. */
 calib_buffer_kind_t calib_buffer_lookup(const calib_config_t *c, double nominal_ph,
-					calib_buffer_t *out);
+                                        calib_buffer_t *out);
 
 /* The buffer's pH at t degC: linear interpolation between table rows (exact
  * at the rows). NaN outside the table's temperature range; a custom buffer
@@ -120,8 +119,8 @@ typedef enum {
 const char *calib_state_name(calib_state_t s); /* "waiting", "measuring", ... */
 
 typedef struct calib_reading {
-	double t_s;	      /* caller's clock, s; must not go backwards */
-	double mv;	      /* NaN: no reading (a tick: only the time limit is checked) */
+	double t_s;           /* caller's clock, s; must not go backwards */
+	double mv;            /* NaN: no reading (a tick: only the time limit is checked) */
 	double temperature_c; /* NaN: unknown, 25 degC assumed */
 } calib_reading_t;
 
@@ -130,11 +129,11 @@ typedef struct calib_point {
 	char name[CALIB_NAME_MAX];
 	calib_buffer_kind_t kind;
 	bool measured;
-	double ph;	      /* the buffer's value at the measured temperature */
-	double mv;	      /* mean over the stable window */
+	double ph;            /* the buffer's value at the measured temperature */
+	double mv;            /* mean over the stable window */
 	double temperature_c; /* mean over the stable window */
 	double drift_mv;      /* drift over the window when accepted */
-	double wait_s;	      /* from `next` to stable */
+	double wait_s;        /* from `next` to stable */
 	double residual_mv;   /* measured minus fitted line (after the fit) */
 } calib_point_t;
 
@@ -144,13 +143,13 @@ typedef struct calib_result {
 	calib_point_t buffers[CALIB_MAX_BUFFERS];
 	double next_buffer; /* nominal pH of the buffer waited for or measured; NaN when final */
 	/* the fit; NaN until accepted or rejected after a fit */
-	double slope_pct;	/* % of the Nernst slope */
-	double offset_mv;	/* mV at pH 7 */
-	double temperature_c;	/* mean measured temperature */
+	double slope_pct;       /* % of the Nernst slope */
+	double offset_mv;       /* mV at pH 7 */
+	double temperature_c;   /* mean measured temperature */
 	double slope_mv_per_ph; /* slope_pct/100 * Nernst at temperature_c */
 	/* wall clock, s since 1970; 0 while not final */
 	double at_unix_s;
-	double expires_at_unix_s; /* at + expires_h; 0 when rejected */
+	double expires_at_unix_s;      /* at + expires_h; 0 when rejected */
 	char reason[CALIB_REASON_MAX]; /* "" unless rejected */
 } calib_result_t;
 
@@ -160,7 +159,7 @@ typedef struct calib_session calib_session_t;
  * Refuses (NULL, message in err) fewer than 2 or more than 5 buffers, values
  * outside 0..14, and two buffers less than 1 pH apart. The config is copied. */
 calib_session_t *calib_session_new(const calib_config_t *c, const double *nominal_ph, int n,
-				   char *err, size_t err_cap);
+                                   char *err, size_t err_cap);
 void calib_session_free(calib_session_t *s);
 
 calib_state_t calib_session_state(const calib_session_t *s);
@@ -192,7 +191,7 @@ void calib_session_result(const calib_session_t *s, double at_unix_s, calib_resu
  * one temperature it is the ordinary straight line of mV against pH.
  * Returns 0, or -1 when fewer than 2 points or all at one pH. */
 int calib_fit(const double *ph, const double *mv, const double *temperature_c, int n,
-	      double *slope_pct, double *offset_mv);
+              double *slope_pct, double *offset_mv);
 
 /* pH from mV with the calibration's slope and offset and the Nernst slope at
  * the probe's temperature (temperature compensation; NaN -> 25 degC):
@@ -204,8 +203,8 @@ bool calib_is_valid(const calib_result_t *c, double now_unix_s);
 
 /* Why a pH run may not start: fills msg (for a 409) and returns false when c
  * is NULL (never calibrated), rejected, or expired; true when valid. */
-bool calib_check_for_run(const calib_result_t *c, const char *station, double now_unix_s,
-			 char *msg, size_t cap);
+bool calib_check_for_run(const calib_result_t *c, const char *station, double now_unix_s, char *msg,
+                         size_t cap);
 
 /* JSON of a calibration (INTERFACE.md): state, next_buffer (or null),
  * slope_pct, offset_mv, temperature_c, slope_mv_per_ph, buffers [{nominal,
@@ -218,20 +217,19 @@ int calib_result_from_json(const json_t *j, calib_result_t *c);
 /* ---- titrant standardization and blanks ---- */
 
 typedef struct stdz_config {
-	int replicates;	    /* standardization runs that make one titer, >= 2 */
+	int replicates;     /* standardization runs that make one titer, >= 2 */
 	double rsd_max_pct; /* accepted relative SD of their titers, % */
 } stdz_config_t;
 
 /* Defaults: 3 replicates, RSD at most 0.2 % (common practice). */
 void stdz_config_defaults(stdz_config_t *c);
 /* The daemon config's `standardization:` key: {replicates: N, rsd_max_pct: X}. */
-int stdz_config_parse(const yt_doc_t *doc, const yt_node_t *n, stdz_config_t *c,
-		      diag_list_t *d);
+int stdz_config_parse(const yt_doc_t *doc, const yt_node_t *n, stdz_config_t *c, diag_list_t *d);
 
 typedef struct stdz_result {
 	int n;
-	double mean;	/* mean titer */
-	double sd;	/* sample standard deviation (n - 1) */
+	double mean;    /* mean titer */
+	double sd;      /* sample standard deviation (n - 1) */
 	double rsd_pct; /* 100 sd / mean */
 	bool accepted;
 	char reason[160]; /* "" when accepted */
@@ -256,6 +254,6 @@ double stdz_titer(double measured_molarity, double nominal_molarity);
  * any with unit "mol/L") is the measured molarity, divided by the method's
  * nominal molarity. Returns 0, or -1 when no such result has a value. */
 int stdz_titer_from_result(const char *name, const char *unit, double value,
-			   double nominal_molarity, double *titer);
+                           double nominal_molarity, double *titer);
 
 #endif

@@ -1,0 +1,121 @@
+/* stdz.c: titrant standardization (titer from replicates, KHP molarity) and
+ * the daemon config's `standardization:` key (see calib.h).
+ */
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+#include <strings.h>
+
+#include "calib.h"
+
+void stdz_config_defaults(stdz_config_t *c)
+{
+	/* Common practice: three replicate titrations, accepted when their
+	 * relative standard deviation is at most 0.2 %. */
+	c->replicates = 3;
+	c->rsd_max_pct = 0.2;
+}
+
+int stdz_config_parse(const yt_doc_t *doc, const yt_node_t *n, stdz_config_t *c, diag_list_t *d)
+{
+	static const char *const keys[] = {"replicates", "rsd_max_pct", NULL};
+	stdz_config_defaults(c);
+	if (!n || yt_is_null(n))
+		return 0;
+	if (!yt_want_map(doc, n, "standardization", d))
+		return -1;
+	bool ok = yt_check_keys(doc, n, keys, "standardization", d);
+	const yt_node_t *v;
+	if ((v = yt_get(n, "replicates"))) {
+		long r;
+		if (yt_long(doc, v, "standardization.replicates", 2, 20, &r, d))
+			c->replicates = (int)r;
+		else
+			ok = false;
+	}
+	if ((v = yt_get(n, "rsd_max_pct")))
+		ok = yt_double_range(doc, v, "standardization.rsd_max_pct", "%", 0.001, 10.0,
+		                     &c->rsd_max_pct, d) &&
+		     ok;
+	return ok ? 0 : -1;
+}
+
+int stdz_replicates(const double *titers, int n, double max_rsd_pct, stdz_result_t *out)
+{
+	memset(out, 0, sizeof *out);
+	out->n = n;
+	out->mean = out->sd = out->rsd_pct = NAN;
+	if (n < 1 || !titers) {
+		snprintf(out->reason, sizeof out->reason, "no titers to average");
+		return -1;
+	}
+	for (int i = 0; i < n; i++) {
+		if (!isfinite(titers[i]) || !(titers[i] > 0)) {
+			snprintf(out->reason, sizeof out->reason,
+			         "replicate %d has no usable titer (%g)", i + 1, titers[i]);
+			return -1;
+		}
+	}
+	/* Two passes (mean, then squared deviations): exact enough for titers
+	 * near 1, where a one-pass sum of squares would cancel badly. */
+	double sum = 0;
+	for (int i = 0; i < n; i++)
+		sum += titers[i];
+	out->mean = sum / n;
+	if (n < 2) {
+		snprintf(out->reason, sizeof out->reason,
+		         "one replicate gives no spread: at least 2 are needed");
+		return 0;
+	}
+	double ss = 0;
+	for (int i = 0; i < n; i++)
+		ss += (titers[i] - out->mean) * (titers[i] - out->mean);
+	out->sd = sqrt(ss / (n - 1));
+	out->rsd_pct = 100.0 * out->sd / out->mean;
+	if (out->rsd_pct <= max_rsd_pct) {
+		out->accepted = true;
+	} else {
+		snprintf(out->reason, sizeof out->reason,
+		         "replicates spread too much: RSD %.3f %% is above %.3g %%", out->rsd_pct,
+		         max_rsd_pct);
+	}
+	return 0;
+}
+
+double stdz_khp_molarity(double mass_g, double purity, double volume_ml, double blank_ml)
+{
+	/* CHECKS.md section 8: c = 1000 m P / (204.22 (V - V_blank)), 1:1
+	 * stoichiometry (one acidic proton per phthalate). */
+	if (!isfinite(mass_g) || !isfinite(purity) || !isfinite(volume_ml) || !isfinite(blank_ml))
+		return NAN;
+	double net_ml = volume_ml - blank_ml;
+	if (!(net_ml > 0) || !(mass_g > 0) || !(purity > 0))
+		return NAN;
+	return 1000.0 * mass_g * purity / (STDZ_KHP_G_PER_MOL * net_ml);
+}
+
+double stdz_titer(double measured_molarity, double nominal_molarity)
+{
+	if (!(nominal_molarity > 0) || !isfinite(measured_molarity))
+		return NAN;
+	return measured_molarity / nominal_molarity;
+}
+
+int stdz_titer_from_result(const char *name, const char *unit, double value,
+                           double nominal_molarity, double *titer)
+{
+	if (!isfinite(value) || !(value > 0))
+		return -1;
+	if (name && strcmp(name, "titer") == 0) {
+		*titer = value;
+		return 0;
+	}
+	if ((name && strcmp(name, "molarity") == 0) || (unit && strcasecmp(unit, "mol/L") == 0)) {
+		double t = stdz_titer(value, nominal_molarity);
+		if (!isfinite(t))
+			return -1;
+		*titer = t;
+		return 0;
+	}
+	return -1;
+}
