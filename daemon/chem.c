@@ -16,11 +16,14 @@
  *   f(pH) = [H+] - [OH-] + sum(strong cations) - sum(strong anions)
  *           + sum_weak c * sum_j alpha_j (z0 - j) = 0
  *   [OH-] = Kw / (a(H+) gamma_1),  alpha_j / alpha_{j-1} = Ka_j g_{z(j-1)} / (g_{z(j)} a(H+)).
- * For fixed ionic strength f is strictly decreasing in pH (its derivative is
- * -ln10 ([H+] + [OH-] + sum c var(j)) < 0), so one root lies in the bracket
- * [-1, 15] or the bracket end is the answer. The ionic strength is made
- * self-consistent by fixed-point iteration, with a bisection on it as the
- * fallback, which always converges because I(I) is continuous and bounded.
+ * For fixed ionic strength the positive charges only fall with pH and the
+ * negative ones only rise, so g(pH) = ln(positive) - ln(negative) is strictly
+ * decreasing with one root in the bracket [-1, 15], or the bracket end is the
+ * answer; g is near-linear in pH, so Newton steps (kept in the bracket, with
+ * bisection as the fallback) take a handful of evaluations. The ionic
+ * strength is made self-consistent by accelerated fixed-point steps, with a
+ * bisection on it as the fallback, which always converges because I(I) is
+ * continuous and bounded.
  */
 #include "chem.h"
 
@@ -52,15 +55,12 @@ typedef struct mix {
 	weak_sys_t weak[2 * CHEM_MAX_COMP];
 } mix_t;
 
-/* Species fractions of one weak system at pH with log10 gamma_1 = lg1.
- * Returns the mean charge; *var_j the variance of j (for the derivative) and
- * *z2_mean the mean of z^2 (for the ionic strength). Log-domain so that no
- * pKa or pH makes an overflow. */
-static double weak_alpha(const weak_sys_t *w, double ph, double lg1, double *alpha, double *var_j,
-                         double *z2_mean)
+/* Species fractions of one weak system at pH with log10 gamma_1 = lg1, in
+ * the log domain so that no pKa or pH makes an overflow. */
+static void weak_alpha(const weak_sys_t *w, double ph, double lg1, double *alpha)
 {
 	double l[CHEM_MAX_PKA + 1];
-	double lmax = 0.0, sum = 0.0, mean_j = 0.0, mean_j2 = 0.0, z2 = 0.0;
+	double lmax = 0.0, sum = 0.0;
 	l[0] = 0.0;
 	for (int j = 1; j <= w->n; j++) {
 		int zp = w->z0 - j + 1, zj = w->z0 - j;
@@ -72,68 +72,84 @@ static double weak_alpha(const weak_sys_t *w, double ph, double lg1, double *alp
 		alpha[j] = exp(LN10 * (l[j] - lmax));
 		sum += alpha[j];
 	}
-	for (int j = 0; j <= w->n; j++) {
-		int zj = w->z0 - j;
+	for (int j = 0; j <= w->n; j++)
 		alpha[j] /= sum;
-		mean_j += alpha[j] * j;
-		mean_j2 += alpha[j] * j * j;
-		z2 += alpha[j] * (double)(zj * zj);
-	}
-	if (var_j)
-		*var_j = fmax(mean_j2 - mean_j * mean_j, 0.0);
-	if (z2_mean)
-		*z2_mean = z2;
-	return (double)w->z0 - mean_j;
 }
 
-/* Charge balance f(pH) (mol/L) and its derivative; *ionic the ionic
- * strength at this pH (mol/L). */
-static double charge_balance(const mix_t *m, double ph, double lg1, double *dfdph, double *ionic)
+/* The charge balance split into its positive and negative charges (mol/L),
+ * each with its derivative in pH; ionic strength as a by-product. */
+typedef struct balance {
+	double pos, neg;   /* > 0 always: [H+] and [OH-] are in them */
+	double dpos, dneg; /* d/dpH */
+	double ionic;      /* mol/L */
+} balance_t;
+
+static void charge_balance(const mix_t *m, double ph, double lg1, balance_t *b)
 {
 	double alpha[CHEM_MAX_PKA + 1];
 	double h = exp(LN10 * (-ph - lg1));
 	double oh = exp(LN10 * (ph - m->pkw - lg1));
-	double f = h - oh + m->strong_net_molar;
-	double slope = h + oh, i2 = h + oh;
+	double i2 = h + oh;
+	b->pos = h + fmax(m->strong_net_molar, 0.0);
+	b->neg = oh + fmax(-m->strong_net_molar, 0.0);
+	b->dpos = -LN10 * h;
+	b->dneg = LN10 * oh;
 	for (int k = 0; k < m->n_weak; k++) {
-		double var_j, z2;
-		double zbar = weak_alpha(&m->weak[k], ph, lg1, alpha, &var_j, &z2);
-		f += m->weak[k].c_molar * zbar;
-		slope += m->weak[k].c_molar * var_j;
-		i2 += m->weak[k].c_molar * z2;
+		const weak_sys_t *w = &m->weak[k];
+		double mean_j = 0.0, pos = 0.0, neg = 0.0, dpos = 0.0, dneg = 0.0, z2 = 0.0;
+		weak_alpha(w, ph, lg1, alpha);
+		for (int j = 0; j <= w->n; j++)
+			mean_j += alpha[j] * j;
+		for (int j = 0; j <= w->n; j++) {
+			int z = w->z0 - j;
+			/* d alpha_j / dpH = ln10 alpha_j (j - mean j) */
+			double q = alpha[j] * (double)z, dq = LN10 * q * ((double)j - mean_j);
+			if (z > 0) {
+				pos += q;
+				dpos += dq;
+			} else if (z < 0) {
+				neg -= q;
+				dneg -= dq;
+			}
+			z2 += alpha[j] * (double)(z * z);
+		}
+		b->pos += w->c_molar * pos;
+		b->neg += w->c_molar * neg;
+		b->dpos += w->c_molar * dpos;
+		b->dneg += w->c_molar * dneg;
+		i2 += w->c_molar * z2;
 	}
-	if (dfdph)
-		*dfdph = -LN10 * slope;
-	if (ionic)
-		*ionic = 0.5 * i2 + m->strong_i_molar;
-	return f;
+	b->ionic = 0.5 * i2 + m->strong_i_molar;
 }
 
-/* Root of the charge balance in [PH_LO, PH_HI] at fixed lg1: Newton steps
- * kept inside a shrinking bracket, bisection when a step leaves it or stalls. */
+/* Root of g(pH) = ln(positive) - ln(negative) in [PH_LO, PH_HI] at fixed lg1.
+ * g has the root of the charge balance, is strictly decreasing (positive
+ * charges only fall with pH, negative ones only rise) and close to linear
+ * over whole decades, where the balance itself is exponential: Newton on it
+ * converges in a few steps from anywhere. Steps are kept inside a shrinking
+ * bracket, with bisection when one leaves it or stalls; the bracket ends
+ * need no evaluation unless the root sits at one of them. */
 static double solve_ph(const mix_t *m, double lg1, double ph_start, int *work)
 {
-	double lo = PH_LO, hi = PH_HI, d;
-	if (charge_balance(m, lo, lg1, NULL, NULL) <= 0.0)
-		return lo; /* more basic than the bracket allows at its acid end */
-	if (charge_balance(m, hi, lg1, NULL, NULL) >= 0.0)
-		return hi;
-	*work += 2;
+	balance_t b;
+	double lo = PH_LO, hi = PH_HI;
 	double x = (ph_start > lo && ph_start < hi) ? ph_start : 7.0;
 	double prev_step = hi - lo;
 	for (int it = 0; it < NEWTON_MAX; it++) {
-		double f = charge_balance(m, x, lg1, &d, NULL);
+		charge_balance(m, x, lg1, &b);
 		(*work)++;
-		if (f > 0.0)
+		double g = log(b.pos) - log(b.neg);
+		double dg = b.dpos / b.pos - b.dneg / b.neg;
+		if (g > 0.0)
 			lo = x;
-		else if (f < 0.0)
+		else if (g < 0.0)
 			hi = x;
 		else
 			return x;
-		double next = x - f / d;
+		double next = dg < 0.0 ? x - g / dg : 0.5 * (lo + hi);
 		double step = fabs(next - x);
 		/* Bisect when Newton leaves the bracket or does not halve the step
-		 * every two iterations (flat or steep stretches). */
+		 * every two iterations. */
 		if (!(next > lo && next < hi) || step > 0.5 * prev_step) {
 			next = 0.5 * (lo + hi);
 			step = hi - lo;
@@ -143,7 +159,62 @@ static double solve_ph(const mix_t *m, double lg1, double ph_start, int *work)
 		if (step < PH_TOL || hi - lo < PH_TOL)
 			break;
 	}
+	/* Converged onto a bracket end: the root is there or beyond it. */
+	if (x > PH_HI - 1e-6) {
+		charge_balance(m, PH_HI, lg1, &b);
+		if (b.pos >= b.neg)
+			return PH_HI;
+	}
+	if (x < PH_LO + 1e-6) {
+		charge_balance(m, PH_LO, lg1, &b);
+		if (b.pos <= b.neg)
+			return PH_LO;
+	}
 	return x;
+}
+
+/* Ionic strength (held at CHEM_DAVIES_I_MAX) after solving at i_eff. */
+static double ionic_after(const mix_t *m, double i_eff, double *ph, int *work)
+{
+	balance_t b;
+	double lg1 = chem_davies_log_gamma(m->a, 1, i_eff);
+	*ph = solve_ph(m, lg1, *ph, work);
+	charge_balance(m, *ph, lg1, &b);
+	return fmin(b.ionic, CHEM_DAVIES_I_MAX);
+}
+
+/* pH with the ionic strength self-consistent: I = G(I), G = "solve at I, then
+ * recompute I". G varies slowly with I, so fixed-point steps converge;
+ * a secant (Aitken) step on G(I) - I makes it superlinear. Fallback, in
+ * case that has not converged: G(I) - I is >= 0 at 0 and <= 0 at I_MAX and
+ * continuous, so bisection on it always ends. Returns the I used. */
+static double solve_davies(const mix_t *m, double *ph, int *work)
+{
+	double i = m->strong_i_molar < CHEM_DAVIES_I_MAX ? m->strong_i_molar : CHEM_DAVIES_I_MAX;
+	double i_prev = 0.0, g_prev = 0.0;
+	for (int it = 0; it < OUTER_MAX; it++) {
+		double g = ionic_after(m, i, ph, work);
+		if (fabs(g - i) <= 1e-14 + 1e-11 * i)
+			return g;
+		double next = g;
+		if (it > 0 && i != i_prev) {
+			double slope = (g - g_prev) / (i - i_prev);
+			if (isfinite(slope) && fabs(slope) < 0.9)
+				next = i + (g - i) / (1.0 - slope);
+		}
+		i_prev = i;
+		g_prev = g;
+		i = fmin(fmax(next, 0.0), CHEM_DAVIES_I_MAX);
+	}
+	double lo = 0.0, hi = CHEM_DAVIES_I_MAX;
+	for (int it = 0; it < BISECT_I_MAX && hi - lo > 1e-14; it++) {
+		double mid = 0.5 * (lo + hi);
+		if (ionic_after(m, mid, ph, work) > mid)
+			lo = mid;
+		else
+			hi = mid;
+	}
+	return 0.5 * (lo + hi);
 }
 
 static bool comp_ok(const chem_comp_t *c)
@@ -233,39 +304,16 @@ int chem_solve(const chem_scenario_t *s, double titrant_ml, chem_state_t *out)
 	}
 
 	/* Ionic strength to self-consistency. lg1 = log10 gamma_1. */
-	double lg1 = 0.0, ph = 7.0, ionic = 0.0;
+	double lg1 = 0.0, ph = 7.0;
+	balance_t bal;
 	if (m.a > 0.0) {
-		bool done = false;
-		double i_eff = m.strong_i_molar;
-		for (int it = 0; it < OUTER_MAX && !done; it++) {
-			lg1 = chem_davies_log_gamma(m.a, 1, i_eff);
-			ph = solve_ph(&m, lg1, ph, &work);
-			charge_balance(&m, ph, lg1, NULL, &ionic);
-			double i_new = fmin(ionic, CHEM_DAVIES_I_MAX);
-			done = fabs(i_new - i_eff) <= 1e-13 + 1e-10 * i_eff;
-			i_eff = i_new;
-		}
-		if (!done) {
-			/* Fallback: g(I) = min(I(pH(I)), I_MAX) - I changes sign on
-			 * [0, I_MAX]; bisect it. */
-			double lo = 0.0, hi = CHEM_DAVIES_I_MAX;
-			for (int it = 0; it < BISECT_I_MAX && hi - lo > 1e-14; it++) {
-				double mid = 0.5 * (lo + hi);
-				lg1 = chem_davies_log_gamma(m.a, 1, mid);
-				ph = solve_ph(&m, lg1, ph, &work);
-				charge_balance(&m, ph, lg1, NULL, &ionic);
-				if (fmin(ionic, CHEM_DAVIES_I_MAX) > mid)
-					lo = mid;
-				else
-					hi = mid;
-			}
-			lg1 = chem_davies_log_gamma(m.a, 1, 0.5 * (lo + hi));
-			ph = solve_ph(&m, lg1, ph, &work);
-		}
+		double i_eff = solve_davies(&m, &ph, &work);
+		lg1 = chem_davies_log_gamma(m.a, 1, i_eff);
+		ph = solve_ph(&m, lg1, ph, &work);
 	} else {
 		ph = solve_ph(&m, 0.0, 7.0, &work);
 	}
-	charge_balance(&m, ph, lg1, NULL, &ionic);
+	charge_balance(&m, ph, lg1, &bal);
 
 	memset(out, 0, sizeof *out);
 	out->titrant_ml = titrant_ml;
@@ -274,7 +322,7 @@ int chem_solve(const chem_scenario_t *s, double titrant_ml, chem_state_t *out)
 	out->gamma1 = exp(LN10 * lg1);
 	out->h_molar = exp(LN10 * (-ph - lg1));
 	out->oh_molar = exp(LN10 * (ph - m.pkw - lg1));
-	out->ionic_strength = ionic;
+	out->ionic_strength = bal.ionic;
 	out->pkw = m.pkw;
 	out->n_comp = n;
 	out->iterations = work;
@@ -284,7 +332,7 @@ int chem_solve(const chem_scenario_t *s, double titrant_ml, chem_state_t *out)
 		    i < s->n_sample ? &s->sample[i] : &s->titrant[i - s->n_sample];
 		out->total_molar[i] = totals[i];
 		if (c->kind == CHEM_WEAK)
-			weak_alpha(&m.weak[k++], ph, lg1, out->alpha[i], NULL, NULL);
+			weak_alpha(&m.weak[k++], ph, lg1, out->alpha[i]);
 		else
 			out->alpha[i][0] = 1.0;
 	}
