@@ -1,0 +1,219 @@
+/* sim_control.c: the simulator's control socket (a Unix stream socket; one
+ * command a line, one reply line each: `ok`, `error: ...` or, for `state`,
+ * one line of JSON). */
+#include <errno.h>
+#include <poll.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/socket.h>
+#include <sys/un.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "sim.h"
+
+static double mono_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_MONOTONIC, &ts);
+	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
+}
+
+static void kinds(char *out, size_t cap)
+{
+	out[0] = '\0';
+	for (int i = 1; i < SIM_FAULT_COUNT; i++) {
+		size_t l = strlen(out);
+		snprintf(out + l, cap - l, "%s%s", i > 1 ? ", " : "",
+		         sim_fault_name((sim_fault_t)i));
+	}
+}
+
+void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
+{
+	while (*line == ' ')
+		line++;
+	char word[32] = "";
+	const char *rest = line;
+	size_t wl = strcspn(line, " ");
+	if (wl < sizeof(word)) {
+		memcpy(word, line, wl);
+		word[wl] = '\0';
+	}
+	rest = line + wl;
+	while (*rest == ' ')
+		rest++;
+	if (!strcmp(word, "state")) {
+		pthread_mutex_lock(&s->mu);
+		sim_tick(s, mono_s());
+		const char *f = sim_fault_name(s->fault);
+		char fq[40];
+		snprintf(fq, sizeof(fq), f ? "\"%s\"" : "null", f);
+		double ml_per_step = s->pump.capacity_ml / (double)s->pump.steps;
+		snprintf(reply, cap,
+		         "{\"dispensed_ml\":%.6f,\"ph\":%.4f,\"mv\":%.3f,\"temperature_c\":%.2f,"
+		         "\"moving\":%s,\"fault\":%s,\"contents_ml\":%.6f,\"valve\":\"%s\","
+		         "\"stirrer\":%s,\"stirrer_rpm\":%u}",
+		         beaker_titrant_ml(s->beaker), beaker_true_ph(s->beaker), s->mv,
+		         beaker_temperature_c(s->beaker), s->pump.moving ? "true" : "false", fq,
+		         (double)s->pump.pos * ml_per_step, s->pump.valve_in ? "in" : "out",
+		         s->stir_on ? "true" : "false", (unsigned)s->stir_rpm);
+		pthread_mutex_unlock(&s->mu);
+	} else if (!strcmp(word, "clear") && !*rest) {
+		pthread_mutex_lock(&s->mu);
+		s->fault = SIM_FAULT_NONE;
+		s->fault_until_s = 0;
+		pthread_mutex_unlock(&s->mu);
+		snprintf(reply, cap, "ok");
+	} else if (!strcmp(word, "fault")) {
+		char kind[32] = "", extra[32] = "";
+		double secs = 0;
+		int n = sscanf(rest, "%31s %lf %31s", kind, &secs, extra);
+		sim_fault_t f = n >= 1 ? sim_fault_parse(kind) : SIM_FAULT_COUNT;
+		char k[200];
+		kinds(k, sizeof(k));
+		if (n < 1) {
+			snprintf(reply, cap, "error: fault needs a kind (%s)", k);
+		} else if (f == SIM_FAULT_COUNT) {
+			snprintf(reply, cap, "error: unknown fault '%s' (kinds: %s)", kind, k);
+		} else if (n == 3 || (n == 2 && !(secs > 0 && secs < 1e6)) ||
+		           (n == 1 && strchr(rest, ' '))) {
+			snprintf(reply, cap,
+			         "error: fault %s [SECONDS]: SECONDS must be a number > 0", kind);
+		} else {
+			pthread_mutex_lock(&s->mu);
+			s->fault = f;
+			s->fault_until_s = n == 2 ? mono_s() + secs : 0;
+			pthread_mutex_unlock(&s->mu);
+			snprintf(reply, cap, "ok");
+		}
+	} else if (!strcmp(word, "load")) {
+		if (!*rest) {
+			snprintf(reply, cap, "error: load needs a scenario file");
+			return;
+		}
+		chem_scenario_t sc;
+		diag_list_t d = DIAG_LIST_INIT;
+		if (scenario_load(rest, &sc, &d) != 0) {
+			char *j = diag_join(&d);
+			/* one reply line: errors joined by "; " */
+			for (char *p = j; p && *p; p++)
+				if (*p == '\n')
+					*p = ';';
+			snprintf(reply, cap, "error: %s", j ? j : "cannot load scenario");
+			free(j);
+			diag_free(&d);
+			return;
+		}
+		diag_free(&d);
+		pthread_mutex_lock(&s->mu);
+		s->scen = sc;
+		beaker_load(s->beaker, &sc);
+		pthread_mutex_unlock(&s->mu);
+		snprintf(reply, cap, "ok");
+	} else {
+		snprintf(reply, cap, "error: unknown command '%s' (load, fault, clear, state)",
+		         word);
+	}
+}
+
+int sim_control_bind(const char *path)
+{
+	struct sockaddr_un a;
+	memset(&a, 0, sizeof(a));
+	a.sun_family = AF_UNIX;
+	if (strlen(path) >= sizeof(a.sun_path)) {
+		errno = ENAMETOOLONG;
+		return -1;
+	}
+	strcpy(a.sun_path, path);
+	int fd = socket(AF_UNIX, SOCK_STREAM | SOCK_CLOEXEC, 0);
+	if (fd < 0)
+		return -1;
+	unlink(path);
+	if (bind(fd, (struct sockaddr *)&a, sizeof(a)) != 0 || listen(fd, 4) != 0) {
+		int e = errno;
+		close(fd);
+		errno = e;
+		return -1;
+	}
+	return fd;
+}
+
+#define MAX_CTL 4
+
+typedef struct ctl_client {
+	int fd;
+	char buf[1024];
+	size_t len;
+} ctl_client_t;
+
+static void send_line(int fd, const char *s)
+{
+	char out[2100];
+	int n = snprintf(out, sizeof(out), "%s\n", s);
+	if (n > 0)
+		(void)send(fd, out, (size_t)n, MSG_NOSIGNAL);
+}
+
+void *sim_control_thread(void *arg)
+{
+	sim_control_arg_t *ca = arg;
+	sim_t *s = ca->sim;
+	ctl_client_t cl[MAX_CTL];
+	int nc = 0;
+	while (!atomic_load(&s->stop)) {
+		struct pollfd pf[MAX_CTL + 1];
+		pf[0].fd = ca->listen_fd;
+		pf[0].events = POLLIN;
+		for (int i = 0; i < nc; i++) {
+			pf[i + 1].fd = cl[i].fd;
+			pf[i + 1].events = POLLIN;
+		}
+		if (poll(pf, (nfds_t)nc + 1, 100) <= 0)
+			continue;
+		if (pf[0].revents & POLLIN) {
+			int c = accept4(ca->listen_fd, NULL, NULL, SOCK_CLOEXEC);
+			if (c >= 0 && nc < MAX_CTL) {
+				cl[nc].fd = c;
+				cl[nc].len = 0;
+				nc++;
+			} else if (c >= 0) {
+				send_line(c, "error: too many control connections");
+				close(c);
+			}
+		}
+		for (int i = nc - 1; i >= 0; i--) {
+			if (!(pf[i + 1].revents & (POLLIN | POLLHUP | POLLERR)))
+				continue;
+			ctl_client_t *c = &cl[i];
+			ssize_t r = recv(c->fd, c->buf + c->len, sizeof(c->buf) - 1 - c->len, 0);
+			if (r <= 0) {
+				close(c->fd);
+				cl[i] = cl[--nc];
+				continue;
+			}
+			c->len += (size_t)r;
+			char *nl;
+			while ((nl = memchr(c->buf, '\n', c->len))) {
+				*nl = '\0';
+				if (nl > c->buf && nl[-1] == '\r')
+					nl[-1] = '\0';
+				char reply[2048];
+				sim_control_command(s, c->buf, reply, sizeof(reply));
+				send_line(c->fd, reply);
+				size_t used = (size_t)(nl - c->buf) + 1;
+				memmove(c->buf, c->buf + used, c->len - used);
+				c->len -= used;
+			}
+			if (c->len == sizeof(c->buf) - 1) {
+				send_line(c->fd, "error: line too long");
+				c->len = 0;
+			}
+		}
+	}
+	for (int i = 0; i < nc; i++)
+		close(cl[i].fd);
+	return NULL;
+}

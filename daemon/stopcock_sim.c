@@ -1,0 +1,377 @@
+/* stopcock_sim.c: `stopcock-sim`, the simulated bench (INTERFACE.md).
+ *
+ * A burette on a pseudo-terminal (config/pumps/sim.yaml's protocol), a pH/mV
+ * transmitter and stirrer on Modbus TCP (and RTU on a second pty with
+ * --rtu-link), backed by the beaker model; a control socket to change the
+ * sample and inject faults. Prints `ready` when every link answers; SIGTERM
+ * or SIGINT ends it cleanly with status 0. */
+#include <errno.h>
+#include <fcntl.h>
+#include <limits.h>
+#include <pthread.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+#include <modbus.h>
+
+#include "serial.h"
+#include "sim.h"
+
+typedef struct opts {
+	const char *scenario, *tcp, *pump_link, *rtu_link, *control, *config_out, *state_dir;
+	const char *listen;
+	unsigned long long seed;
+} opts_t;
+
+static void usage(FILE *f)
+{
+	fprintf(f,
+	        "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
+	        "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
+	        "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n");
+}
+
+static int parse_args(int argc, char **argv, opts_t *o)
+{
+	memset(o, 0, sizeof(*o));
+	o->seed = 1;
+	for (int i = 1; i < argc; i++) {
+		const char *a = argv[i];
+		if (!strcmp(a, "-h") || !strcmp(a, "--help")) {
+			usage(stdout);
+			exit(0);
+		}
+		if (i + 1 >= argc) {
+			fprintf(stderr, "stopcock-sim: %s needs a value\n", a);
+			return -1;
+		}
+		const char *v = argv[++i];
+		if (!strcmp(a, "--scenario"))
+			o->scenario = v;
+		else if (!strcmp(a, "--modbus-tcp"))
+			o->tcp = v;
+		else if (!strcmp(a, "--pump-link"))
+			o->pump_link = v;
+		else if (!strcmp(a, "--rtu-link"))
+			o->rtu_link = v;
+		else if (!strcmp(a, "--control"))
+			o->control = v;
+		else if (!strcmp(a, "--config-out"))
+			o->config_out = v;
+		else if (!strcmp(a, "--state-dir"))
+			o->state_dir = v;
+		else if (!strcmp(a, "--listen"))
+			o->listen = v;
+		else if (!strcmp(a, "--seed"))
+			o->seed = strtoull(v, NULL, 10);
+		else {
+			fprintf(stderr, "stopcock-sim: unknown option %s\n", a);
+			return -1;
+		}
+	}
+	if (!o->scenario || !o->tcp || !o->pump_link) {
+		fprintf(stderr, "stopcock-sim: --scenario, --modbus-tcp and --pump-link are "
+		                "required\n");
+		return -1;
+	}
+	if (!o->config_out != !o->state_dir) {
+		fprintf(stderr, "stopcock-sim: --config-out and --state-dir go together\n");
+		return -1;
+	}
+	return 0;
+}
+
+/* Absolute form of a path whose last part may not exist yet. */
+static int abs_path(const char *p, char *out, size_t cap)
+{
+	char dir[PATH_MAX], real[PATH_MAX];
+	const char *slash = strrchr(p, '/');
+	const char *base = slash ? slash + 1 : p;
+	if (slash)
+		snprintf(dir, sizeof(dir), "%.*s", (int)(slash - p) ? (int)(slash - p) : 1, p);
+	else
+		snprintf(dir, sizeof(dir), ".");
+	if (!realpath(dir, real))
+		return -1;
+	int n = snprintf(out, cap, "%s/%s", strcmp(real, "/") ? real : "", base);
+	return n > 0 && (size_t)n < cap ? 0 : -1;
+}
+
+/* The repository (or installed data) root: the first directory above the
+ * executable, or the working directory, that holds config/pumps/sim.yaml. */
+static void find_root(char *out, size_t cap)
+{
+	char exe[PATH_MAX];
+	ssize_t n = readlink("/proc/self/exe", exe, sizeof(exe) - 1);
+	if (n > 0) {
+		exe[n] = '\0';
+		for (int up = 0; up < 5; up++) {
+			char *s = strrchr(exe, '/');
+			if (!s)
+				break;
+			*s = '\0';
+			char probe[PATH_MAX + 32];
+			snprintf(probe, sizeof(probe), "%s/config/pumps/sim.yaml", exe);
+			if (access(probe, R_OK) == 0) {
+				snprintf(out, cap, "%s", exe);
+				return;
+			}
+		}
+	}
+	char cwd[PATH_MAX];
+	if (getcwd(cwd, sizeof(cwd)) && access("config/pumps/sim.yaml", R_OK) == 0) {
+		snprintf(out, cap, "%s", cwd);
+		return;
+	}
+	snprintf(out, cap, "%s", STOPCOCK_DATADIR "/..");
+}
+
+static int write_token(const char *path)
+{
+	unsigned char r[16];
+	int fd = open("/dev/urandom", O_RDONLY | O_CLOEXEC);
+	if (fd < 0 || read(fd, r, sizeof(r)) != (ssize_t)sizeof(r)) {
+		if (fd >= 0)
+			close(fd);
+		return -1;
+	}
+	close(fd);
+	int out = open(path, O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0600);
+	if (out < 0)
+		return -1;
+	fchmod(out, 0600);
+	char line[64] = "sim:";
+	for (size_t i = 0; i < sizeof(r); i++)
+		snprintf(line + 4 + 2 * i, 3, "%02x", r[i]);
+	strcat(line, "\n");
+	ssize_t w = write(out, line, strlen(line));
+	close(out);
+	return w == (ssize_t)strlen(line) ? 0 : -1;
+}
+
+static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
+{
+	char root[PATH_MAX], cfg_abs[PATH_MAX], dir_abs[PATH_MAX], token[PATH_MAX + 16];
+	find_root(root, sizeof(root));
+	if (abs_path(o->config_out, cfg_abs, sizeof(cfg_abs)) != 0)
+		return -1;
+	mkdir(o->state_dir, 0755);
+	if (!realpath(o->state_dir, dir_abs))
+		return -1;
+	snprintf(token, sizeof(token), "%.*s/token", (int)(strrchr(cfg_abs, '/') - cfg_abs),
+	         cfg_abs);
+	if (write_token(token) != 0)
+		return -1;
+	FILE *f = fopen(o->config_out, "w");
+	if (!f)
+		return -1;
+	fprintf(
+	    f,
+	    "# Written by stopcock-sim for its bench: `stopcockd -c %s` drives it.\n"
+	    "http:\n"
+	    "  listen: %s\n"
+	    "  token_file: %s\n"
+	    "  read_needs_token: false\n"
+	    "storage:\n"
+	    "  database: %s/stopcock.db\n"
+	    "methods_dir: %s/config/methods\n"
+	    "stations:\n"
+	    "  - name: sim1\n"
+	    "    vessel_max_ml: 150\n"
+	    "    burette:\n"
+	    "      driver: pump-serial\n"
+	    "      port: %s\n"
+	    "      baud: 9600\n"
+	    "      parity: none\n"
+	    "      stop_bits: 1\n"
+	    "      timeout_ms: 500\n"
+	    "      profile: %s/config/pumps/sim.yaml\n"
+	    "      capacity_ml: %.6g\n"
+	    "      steps: %ld\n"
+	    "    probe:\n"
+	    "      driver: probe-modbus\n"
+	    "      transport: tcp\n"
+	    "      host: %s\n"
+	    "      port: %d\n"
+	    "      unit: 1\n"
+	    "      response_timeout_ms: 300\n"
+	    "      registers:\n"
+	    "        mv: {table: input, address: %d, type: float32, word_order: big}\n"
+	    "        temperature_c: {table: input, address: %d, type: float32, word_order: big}\n"
+	    "        status: {table: input, address: %d, type: uint16}\n"
+	    "        counter: {table: input, address: %d, type: uint16}\n"
+	    "    stirrer:\n"
+	    "      driver: stirrer-modbus\n"
+	    "      transport: tcp\n"
+	    "      host: %s\n"
+	    "      port: %d\n"
+	    "      unit: 1\n"
+	    "      coil: %d\n"
+	    "      speed_register: %d\n"
+	    "      rpm: 300\n",
+	    cfg_abs, o->listen ? o->listen : "127.0.0.1:8470", token, dir_abs, root, pump_abs, root,
+	    s->scen.burette.capacity_ml, s->scen.burette.steps, s->tcp_host, s->tcp_port,
+	    SIM_REG_MV, SIM_REG_TEMP, SIM_REG_STATUS, SIM_REG_COUNTER, s->tcp_host, s->tcp_port,
+	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM);
+	return fclose(f) == 0 ? 0 : -1;
+}
+
+/* Both ends answer: a status query over the pump pty, a register read over
+ * TCP (and RTU). Tries for up to 5 s. */
+static int self_check(const sim_t *s, const char *pump_abs)
+{
+	double until = drv_now_s() + 5.0;
+	bool pump_ok = false, tcp_ok = false, rtu_ok = !s->rtu_link[0];
+	while (drv_now_s() < until && !(pump_ok && tcp_ok && rtu_ok)) {
+		if (!pump_ok) {
+			link_serial_t l = {.baud = 9600, .parity = 'N', .stop_bits = 1};
+			snprintf(l.port, sizeof(l.port), "%s", pump_abs);
+			serial_t ser;
+			serial_init(&ser);
+			drv_err_t e;
+			char line[128];
+			if (serial_open(&ser, &l, &e) == DRV_OK &&
+			    serial_write(&ser, "STAT\n", 5, drv_now_s() + 0.5, &e) == DRV_OK &&
+			    serial_read_line(&ser, "\r\n", line, sizeof(line), drv_now_s() + 0.5,
+			                     &e) == DRV_OK &&
+			    !strncmp(line, "AT ", 3))
+				pump_ok = true;
+			serial_close(&ser);
+		}
+		for (int k = 0; k < 2; k++) {
+			if (k == 0 ? tcp_ok : rtu_ok)
+				continue;
+			modbus_t *ctx = k == 0 ? modbus_new_tcp(s->tcp_host, s->tcp_port)
+			                       : modbus_new_rtu(s->rtu_link, 19200, 'E', 8, 1);
+			if (!ctx)
+				continue;
+			modbus_set_slave(ctx, 1);
+			modbus_set_response_timeout(ctx, 0, 300000);
+			uint16_t r[2];
+			if (modbus_connect(ctx) == 0) {
+				if (modbus_read_input_registers(ctx, 0, 2, r) == 2) {
+					if (k == 0)
+						tcp_ok = true;
+					else
+						rtu_ok = true;
+				}
+				modbus_close(ctx);
+			}
+			modbus_free(ctx);
+		}
+		if (!(pump_ok && tcp_ok && rtu_ok)) {
+			struct timespec ts = {0, 50000000L};
+			nanosleep(&ts, NULL);
+		}
+	}
+	if (!pump_ok)
+		fprintf(stderr, "stopcock-sim: the pump pty does not answer\n");
+	if (!tcp_ok)
+		fprintf(stderr, "stopcock-sim: the Modbus TCP server does not answer\n");
+	if (!rtu_ok)
+		fprintf(stderr, "stopcock-sim: the Modbus RTU pty does not answer\n");
+	return pump_ok && tcp_ok && rtu_ok ? 0 : -1;
+}
+
+int main(int argc, char **argv)
+{
+	opts_t o;
+	if (parse_args(argc, argv, &o) != 0) {
+		usage(stderr);
+		return 2;
+	}
+	chem_scenario_t scen;
+	diag_list_t d = DIAG_LIST_INIT;
+	if (scenario_load(o.scenario, &scen, &d) != 0) {
+		diag_print(&d, stderr);
+		diag_free(&d);
+		return 2;
+	}
+	diag_free(&d);
+
+	static sim_t s;
+	if (sim_init(&s, &scen, o.seed) != 0) {
+		fprintf(stderr, "stopcock-sim: out of memory\n");
+		return 1;
+	}
+	int rc = 1;
+	int ctl_fd = -1;
+	char pump_abs[LINK_PATH_MAX];
+	const char *colon = strrchr(o.tcp, ':');
+	if (!colon || colon - o.tcp >= (long)sizeof(s.tcp_host)) {
+		fprintf(stderr, "stopcock-sim: --modbus-tcp wants HOST:PORT (got %s)\n", o.tcp);
+		sim_free(&s);
+		return 2;
+	}
+	snprintf(s.tcp_host, sizeof(s.tcp_host), "%.*s", (int)(colon - o.tcp), o.tcp);
+	int want_port = atoi(colon + 1);
+	if (abs_path(o.pump_link, pump_abs, sizeof(pump_abs)) != 0 ||
+	    (o.rtu_link && abs_path(o.rtu_link, s.rtu_link, sizeof(s.rtu_link)) != 0)) {
+		fprintf(stderr, "stopcock-sim: the directory of a link path does not exist\n");
+		sim_free(&s);
+		return 2;
+	}
+	snprintf(s.pump_link, sizeof(s.pump_link), "%s", pump_abs);
+	/* Open every fd early (libmodbus uses select: fds must stay < 1024). */
+	s.tcp_listen_fd = sim_tcp_listen(s.tcp_host, want_port, &s.tcp_port);
+	if (s.tcp_listen_fd < 0) {
+		fprintf(stderr, "stopcock-sim: cannot listen on %s: %s\n", o.tcp, strerror(errno));
+		sim_free(&s);
+		return 1;
+	}
+	if (o.control && (ctl_fd = sim_control_bind(o.control)) < 0) {
+		fprintf(stderr, "stopcock-sim: cannot bind %s: %s\n", o.control, strerror(errno));
+		close(s.tcp_listen_fd);
+		sim_free(&s);
+		return 1;
+	}
+
+	/* Signals are taken by sigwait in this thread only. */
+	sigset_t set;
+	sigemptyset(&set);
+	sigaddset(&set, SIGTERM);
+	sigaddset(&set, SIGINT);
+	pthread_sigmask(SIG_BLOCK, &set, NULL);
+	signal(SIGPIPE, SIG_IGN);
+
+	pthread_t th[4];
+	int nth = 0;
+	sim_control_arg_t ca = {&s, ctl_fd};
+	pthread_create(&th[nth++], NULL, sim_pump_thread, &s);
+	pthread_create(&th[nth++], NULL, sim_tcp_thread, &s);
+	if (o.rtu_link)
+		pthread_create(&th[nth++], NULL, sim_rtu_thread, &s);
+	if (ctl_fd >= 0)
+		pthread_create(&th[nth++], NULL, sim_control_thread, &ca);
+
+	if (self_check(&s, pump_abs) != 0)
+		goto out;
+	if (o.config_out && write_config(&o, &s, pump_abs) != 0) {
+		fprintf(stderr, "stopcock-sim: cannot write %s: %s\n", o.config_out,
+		        strerror(errno));
+		goto out;
+	}
+	fprintf(stderr, "stopcock-sim: pump on %s, Modbus TCP on %s:%d%s%s\n", pump_abs, s.tcp_host,
+	        s.tcp_port, o.rtu_link ? ", RTU on " : "", o.rtu_link ? s.rtu_link : "");
+	printf("ready\n");
+	fflush(stdout);
+	int sig;
+	sigwait(&set, &sig);
+	rc = 0;
+out:
+	atomic_store(&s.stop, true);
+	for (int i = 0; i < nth; i++)
+		pthread_join(th[i], NULL);
+	close(s.tcp_listen_fd);
+	if (ctl_fd >= 0) {
+		close(ctl_fd);
+		unlink(o.control);
+	}
+	sim_free(&s);
+	return rc;
+}
