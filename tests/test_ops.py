@@ -252,9 +252,13 @@ def test_man_page_renders_without_warnings(page):
     need_tool("man", "man-db")
     need_tool("groff", "groff-base")
     env = dict(os.environ, MANWIDTH="80", LC_ALL="C.UTF-8")
-    r = run(["man", "--warnings", "-l", str(page)], env=env)
+    # --warnings=w: every groff warning, not only the default undefined macros.
+    r = run(["man", "--warnings=w", "-l", str(page)], env=env)
     assert r.returncode == 0, r.stderr
     assert r.stderr.strip() == "", f"{page.name}: {r.stderr}"
+    # mandb must find the NAME line for whatis/apropos.
+    lg = run(["lexgrog", str(page)])
+    assert lg.returncode == 0 and page.stem.split(".")[0] in lg.stdout, lg.stdout + lg.stderr
     out = re.sub(r".\x08", "", r.stdout)  # overstrike bold and underline
     for section in ("NAME", "DESCRIPTION", "SEE ALSO"):
         assert re.search(rf"^{section}$", out, re.M), f"{page.name}: no {section} section"
