@@ -1,0 +1,290 @@
+/* cmd_ports.c: `stopcock ports`: list serial ports with their USB
+ * descriptions (libserialport), to fill in a station's config; and
+ * `stopcock ports --test CONFIG [--station NAME]`: talk to the devices a
+ * config names, one command a line on stdin, one JSON line each on stdout,
+ * to check wiring before the daemon runs (docs/drivers.md). */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include <libserialport.h>
+
+#include "cmd.h"
+#include "drv.h"
+#include "yamltree.h"
+
+static int list_ports(void)
+{
+	struct sp_port **ports = NULL;
+	if (sp_list_ports(&ports) != SP_OK) {
+		char *m = sp_last_error_message();
+		fprintf(stderr, "stopcock ports: cannot list serial ports: %s\n", m ? m : "?");
+		sp_free_error_message(m);
+		return 1;
+	}
+	int n = 0;
+	for (; ports[n]; n++) {
+		struct sp_port *p = ports[n];
+		const char *desc = sp_get_port_description(p);
+		printf("%s", sp_get_port_name(p));
+		if (sp_get_port_transport(p) == SP_TRANSPORT_USB) {
+			int vid = 0, pid = 0;
+			sp_get_port_usb_vid_pid(p, &vid, &pid);
+			const char *man = sp_get_port_usb_manufacturer(p);
+			const char *prod = sp_get_port_usb_product(p);
+			const char *ser = sp_get_port_usb_serial(p);
+			printf("  usb %04x:%04x", vid, pid);
+			if (man)
+				printf("  %s", man);
+			if (prod)
+				printf("  %s", prod);
+			if (ser)
+				printf("  serial %s", ser);
+		} else if (desc) {
+			printf("  %s", desc);
+		}
+		printf("\n");
+	}
+	sp_free_port_list(ports);
+	if (n == 0)
+		printf("no serial ports found (USB adapters appear as /dev/ttyUSB* or "
+		       "/dev/ttyACM* once plugged in; pseudo-terminals are never listed)\n");
+	return 0;
+}
+
+typedef struct bench {
+	drv_burette_t bur;
+	drv_probe_t probe;
+	drv_stirrer_t stir;
+	bool has_bur, has_probe, has_stir;
+} bench_t;
+
+static void json_str(const char *s)
+{
+	putchar('"');
+	for (; *s; s++) {
+		unsigned char c = (unsigned char)*s;
+		if (c == '"' || c == '\\')
+			printf("\\%c", c);
+		else if (c < 0x20 || c >= 0x7f)
+			printf("\\u%04x", c);
+		else
+			putchar(c);
+	}
+	putchar('"');
+}
+
+static void head(const char *cmd, drv_status_t st, double t0, const drv_err_t *e)
+{
+	printf("{\"cmd\":");
+	json_str(cmd);
+	printf(",\"status\":\"%s\",\"ms\":%.1f", drv_status_name(st), (drv_now_s() - t0) * 1000);
+	if (st != DRV_OK) {
+		printf(",\"error\":");
+		json_str(e->msg);
+	}
+}
+
+static void print_burette(const drv_burette_status_t *b)
+{
+	printf(",\"moving\":%s,\"refilling\":%s,\"dispensed_ml\":%.6f,\"contents_ml\":%.6f,"
+	       "\"fault\":%s",
+	       b->moving ? "true" : "false", b->refilling ? "true" : "false", b->dispensed_ml,
+	       b->contents_ml, b->fault ? "true" : "false");
+}
+
+static void sleep_s(double s)
+{
+	struct timespec ts = {(time_t)s, (long)((s - floor(s)) * 1e9)};
+	nanosleep(&ts, NULL);
+}
+
+static void run_command(bench_t *b, char *line)
+{
+	char word[32] = "";
+	double arg = NAN;
+	char extra[32] = "";
+	int n = sscanf(line, "%31s %lf", word, &arg);
+	if (n < 1)
+		return;
+	drv_err_t e = {""};
+	drv_status_t st = DRV_OK;
+	double t0 = drv_now_s();
+	bool need_bur = !strcmp(word, "status") || !strcmp(word, "dose") || !strcmp(word, "halt") ||
+	                !strcmp(word, "refill") || !strcmp(word, "wait");
+	if ((need_bur && !b->has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
+	    (!strcmp(word, "stir") && !b->has_stir)) {
+		st = drv_fail(&e, DRV_CONFIG, "this station has no such device");
+		head(word, st, t0, &e);
+		printf("}\n");
+		return;
+	}
+	if (!strcmp(word, "read")) {
+		drv_reading_t r;
+		st = drv_probe_read(&b->probe, &r, &e);
+		head(word, st, t0, &e);
+		if (st == DRV_OK) {
+			printf(",\"mv\":%.3f", r.mv);
+			if (r.has_ph)
+				printf(",\"ph\":%.4f", r.ph);
+			if (r.has_temperature)
+				printf(",\"temperature_c\":%.2f", r.temperature_c);
+		}
+	} else if (!strcmp(word, "status") || !strcmp(word, "wait")) {
+		drv_burette_status_t bs;
+		double limit = (!strcmp(word, "wait") && n == 2) ? arg : 0;
+		for (;;) {
+			st = drv_burette_status(&b->bur, &bs, &e);
+			if (st != DRV_OK || !bs.moving || drv_now_s() - t0 >= limit)
+				break;
+			sleep_s(0.05);
+		}
+		head(word, st, t0, &e);
+		if (st == DRV_OK)
+			print_burette(&bs);
+	} else if (!strcmp(word, "dose")) {
+		st = n == 2 ? drv_burette_dose(&b->bur, arg, &e)
+		            : drv_fail(&e, DRV_CONFIG, "dose needs a volume in mL");
+		head(word, st, t0, &e);
+	} else if (!strcmp(word, "halt")) {
+		st = drv_burette_halt(&b->bur, &e);
+		head(word, st, t0, &e);
+	} else if (!strcmp(word, "refill")) {
+		st = drv_burette_refill(&b->bur, &e);
+		head(word, st, t0, &e);
+	} else if (!strcmp(word, "stir")) {
+		char onoff[8] = "";
+		double rpm = 0;
+		int k = sscanf(line, "%*s %7s %lf", onoff, &rpm);
+		if (k < 1 || (strcmp(onoff, "on") && strcmp(onoff, "off")))
+			st = drv_fail(&e, DRV_CONFIG, "stir on [RPM] | stir off");
+		else
+			st = drv_stirrer_set(&b->stir, !strcmp(onoff, "on"), rpm, &e);
+		head(word, st, t0, &e);
+	} else if (!strcmp(word, "sleep")) {
+		if (n == 2 && arg > 0 && arg < 3600)
+			sleep_s(arg);
+		head(word, st, t0, &e);
+	} else {
+		snprintf(extra, sizeof(extra), "%s", word);
+		st = drv_fail(&e, DRV_CONFIG,
+		              "unknown command (read, status, dose ML, wait [S], refill, halt, "
+		              "stir on [RPM], stir off, sleep S)");
+		head(extra, st, t0, &e);
+	}
+	printf("}\n");
+	fflush(stdout);
+}
+
+static const yt_node_t *find_station(const yt_doc_t *doc, const char *name, diag_list_t *d)
+{
+	const yt_node_t *st = yt_get(doc->root, "stations");
+	if (!st || !yt_want_seq(doc, st, "stations", d))
+		return NULL;
+	for (size_t i = 0; i < st->n; i++) {
+		const yt_node_t *s = st->items[i];
+		const yt_node_t *nm = yt_get(s, "name");
+		if (!name || (nm && nm->kind == YT_SCALAR && !strcmp(nm->str, name)))
+			return s;
+	}
+	diag_add(d, doc->file, st->line, st->col, "no station named '%s'", name ? name : "");
+	return NULL;
+}
+
+static int test_devices(const char *path, const char *station)
+{
+	yt_doc_t doc;
+	memset(&doc, 0, sizeof(doc));
+	diag_list_t d = DIAG_LIST_INIT;
+	bench_t b;
+	memset(&b, 0, sizeof(b));
+	int rc = 2;
+	const yt_node_t *s;
+	if (yt_load_file(path, &doc, &d) != 0 || !(s = find_station(&doc, station, &d)))
+		goto out;
+	const yt_node_t *n;
+	if ((n = yt_get(s, "burette")))
+		b.has_bur = drv_burette_configure(&doc, n, &b.bur, &d) == 0;
+	if ((n = yt_get(s, "probe")))
+		b.has_probe = drv_probe_configure(&doc, n, &b.probe, &d) == 0;
+	if ((n = yt_get(s, "stirrer")))
+		b.has_stir = drv_stirrer_configure(&doc, n, &b.stir, &d) == 0;
+	if (d.n)
+		goto out;
+	rc = 0;
+	/* Open each device; report, but go on: commands reopen by themselves. */
+	drv_err_t e;
+	double t0 = drv_now_s();
+	if (b.has_bur) {
+		drv_status_t st = drv_burette_open(&b.bur, &e);
+		head("open burette", st, t0, &e);
+		if (st == DRV_OK) {
+			drv_burette_info_t info;
+			drv_burette_info(&b.bur, &info);
+			printf(",\"capacity_ml\":%.4f,\"steps\":%ld", info.capacity_ml, info.steps);
+		}
+		printf("}\n");
+	}
+	if (b.has_probe) {
+		t0 = drv_now_s();
+		drv_status_t st = drv_probe_open(&b.probe, &e);
+		head("open probe", st, t0, &e);
+		printf("}\n");
+	}
+	if (b.has_stir) {
+		t0 = drv_now_s();
+		drv_status_t st = drv_stirrer_open(&b.stir, &e);
+		head("open stirrer", st, t0, &e);
+		printf("}\n");
+	}
+	fflush(stdout);
+	char line[256];
+	while (fgets(line, sizeof(line), stdin)) {
+		line[strcspn(line, "\r\n")] = '\0';
+		if (!strcmp(line, "quit"))
+			break;
+		run_command(&b, line);
+	}
+out:
+	diag_sort(&d);
+	diag_print(&d, stderr);
+	diag_free(&d);
+	drv_burette_close(&b.bur);
+	drv_probe_close(&b.probe);
+	drv_stirrer_close(&b.stir);
+	yt_free(&doc);
+	return rc;
+}
+
+int cmd_ports(int argc, char **argv)
+{
+	const char *test = NULL, *station = NULL;
+	for (int i = 1; i < argc; i++) {
+		if (!strcmp(argv[i], "--test") && i + 1 < argc) {
+			test = argv[++i];
+		} else if (!strcmp(argv[i], "--station") && i + 1 < argc) {
+			station = argv[++i];
+		} else if (!strcmp(argv[i], "-h") || !strcmp(argv[i], "--help")) {
+			printf(
+			    "usage: stopcock ports                 list serial ports\n"
+			    "       stopcock ports --test CONFIG [--station NAME]\n"
+			    "           talk to a station's devices: commands on stdin (read, "
+			    "status,\n           dose ML, wait [S], refill, halt, stir on [RPM], "
+			    "stir off, sleep S),\n           one JSON line each on stdout\n");
+			return 0;
+		} else {
+			fprintf(stderr, "stopcock ports: unknown argument '%s' (try --help)\n",
+			        argv[i]);
+			return 2;
+		}
+	}
+	if (test)
+		return test_devices(test, station);
+	if (station) {
+		fprintf(stderr, "stopcock ports: --station goes with --test CONFIG\n");
+		return 2;
+	}
+	return list_ports();
+}
