@@ -457,6 +457,13 @@ bool calib_check_for_run(const calib_result_t *c, const char *station, double no
 		         st);
 		return false;
 	}
+	if (c->state == CALIB_WAITING || c->state == CALIB_MEASURING) {
+		snprintf(msg, cap,
+		         "%s's electrode calibration is still in progress (%s); finish it before "
+		         "a signal: ph run",
+		         st, calib_state_name(c->state));
+		return false;
+	}
 	if (c->state != CALIB_ACCEPTED || !isfinite(c->slope_pct)) {
 		snprintf(msg, cap,
 		         "%s's latest electrode calibration was not accepted; calibrate again "

@@ -394,6 +394,10 @@ TEST(calib_expiry_and_run_check)
 	CHECK(strstr(msg, "no electrode calibration") != NULL);
 	r.state = CALIB_REJECTED;
 	CHECK(!calib_check_for_run(&r, "sim1", at + 1, msg, sizeof msg));
+	CHECK(strstr(msg, "not accepted") != NULL);
+	r.state = CALIB_MEASURING;
+	CHECK(!calib_check_for_run(&r, "sim1", at + 1, msg, sizeof msg));
+	CHECK(strstr(msg, "in progress") != NULL);
 	/* A shorter validity from the config. */
 	cfg.expires_h = 1;
 	r = sim_calibrate(&cfg, &p, 25.0);
