@@ -1,0 +1,285 @@
+/* config.c: see config.h. */
+#include "config.h"
+
+#include <arpa/inet.h>
+#include <errno.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
+                                       "calibration", "standardization", NULL};
+static const char *const http_keys[] = {
+    "listen",     "token_file",     "read_needs_token",     "max_connections",
+    "max_per_ip", "max_body_bytes", "connection_timeout_s", "threads",
+    NULL};
+static const char *const storage_keys[] = {"database", NULL};
+static const char *const station_keys[] = {"name",  "vessel_max_ml", "burette",
+                                           "probe", "stirrer",       NULL};
+
+int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port)
+{
+	const char *colon;
+	const char *a = s;
+	size_t alen;
+	char *end;
+	long p;
+	unsigned char buf[16];
+
+	if (!s || !*s)
+		return -1;
+	if (s[0] == '[') {
+		const char *rb = strchr(s, ']');
+		if (!rb || rb[1] != ':')
+			return -1;
+		a = s + 1;
+		alen = (size_t)(rb - a);
+		colon = rb + 1;
+	} else {
+		colon = strrchr(s, ':');
+		if (!colon)
+			return -1;
+		alen = (size_t)(colon - s);
+	}
+	if (alen == 0 || alen >= addr_cap)
+		return -1;
+	memcpy(addr, a, alen);
+	addr[alen] = '\0';
+	errno = 0;
+	p = strtol(colon + 1, &end, 10);
+	if (errno || *end || end == colon + 1 || p < 0 || p > 65535)
+		return -1;
+	if (inet_pton(AF_INET, addr, buf) != 1 && inet_pton(AF_INET6, addr, buf) != 1)
+		return -1;
+	*port = (int)p;
+	return 0;
+}
+
+void cfg_resolve_path(const char *base_file, const char *rel, char *out, size_t cap)
+{
+	const char *slash;
+
+	if (rel[0] == '/' || !base_file || !(slash = strrchr(base_file, '/'))) {
+		snprintf(out, cap, "%s", rel);
+		return;
+	}
+	snprintf(out, cap, "%.*s/%s", (int)(slash - base_file), base_file, rel);
+}
+
+static bool valid_name(const char *s)
+{
+	if (!*s)
+		return false;
+	for (; *s; s++)
+		if (!((*s >= 'a' && *s <= 'z') || (*s >= '0' && *s <= '9') || *s == '-'))
+			return false;
+	return true;
+}
+
+static void get_uint(const yt_doc_t *doc, const yt_node_t *m, const char *key, const char *name,
+                     long lo, long hi, unsigned *out, diag_list_t *d)
+{
+	const yt_node_t *n = yt_get(m, key);
+	long v;
+
+	if (n && yt_long(doc, n, name, lo, hi, &v, d))
+		*out = (unsigned)v;
+}
+
+static void get_path(const cfg_t *c, const yt_node_t *n, const char *name, char *out, size_t cap,
+                     diag_list_t *d)
+{
+	char tmp[CFG_PATH_MAX];
+
+	if (!yt_string(&c->doc, n, name, tmp, sizeof tmp, d))
+		return;
+	cfg_resolve_path(c->path, tmp, out, cap);
+}
+
+static void parse_http(cfg_t *c, const yt_node_t *h, diag_list_t *d)
+{
+	const yt_node_t *n;
+
+	if (!yt_want_map(&c->doc, h, "http", d))
+		return;
+	yt_check_keys(&c->doc, h, http_keys, "http", d);
+	if ((n = yt_get(h, "listen"))) {
+		char tmp[128];
+		if (yt_string(&c->doc, n, "http.listen", tmp, sizeof tmp, d) &&
+		    cfg_parse_listen(tmp, c->listen_addr, sizeof c->listen_addr, &c->listen_port))
+			yt_error(&c->doc, n, d,
+			         "http.listen must be ADDR:PORT with a numeric address, e.g. "
+			         "127.0.0.1:8470 (got '%s')",
+			         tmp);
+	}
+	if ((n = yt_get(h, "token_file")))
+		get_path(c, n, "http.token_file", c->token_file, sizeof c->token_file, d);
+	if ((n = yt_get(h, "read_needs_token")))
+		yt_bool(&c->doc, n, "http.read_needs_token", &c->read_needs_token, d);
+	get_uint(&c->doc, h, "max_connections", "http.max_connections", 1, 10000,
+	         &c->max_connections, d);
+	get_uint(&c->doc, h, "max_per_ip", "http.max_per_ip", 0, 10000, &c->max_per_ip, d);
+	get_uint(&c->doc, h, "max_body_bytes", "http.max_body_bytes", 1024, 16L * 1024 * 1024,
+	         &c->max_body_bytes, d);
+	get_uint(&c->doc, h, "connection_timeout_s", "http.connection_timeout_s", 1, 3600,
+	         &c->connection_timeout_s, d);
+	get_uint(&c->doc, h, "threads", "http.threads", 2, 64, &c->threads, d);
+}
+
+static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
+{
+	cfg_station_t *st;
+	const yt_node_t *n;
+
+	if (!yt_want_map(&c->doc, s, "station", d))
+		return;
+	if (c->n_stations >= CFG_MAX_STATIONS) {
+		yt_error(&c->doc, s, d, "at most %d stations are supported", CFG_MAX_STATIONS);
+		return;
+	}
+	st = &c->stations[c->n_stations++];
+	memset(st, 0, sizeof *st);
+	st->line = s->line;
+	st->col = s->col;
+	yt_check_keys(&c->doc, s, station_keys, "station", d);
+	if (!(n = yt_get(s, "name"))) {
+		yt_missing(&c->doc, s, "name", "station", d);
+	} else if (yt_string(&c->doc, n, "name", st->name, sizeof st->name, d)) {
+		if (!valid_name(st->name))
+			yt_error(&c->doc, n, d,
+			         "station name must be lower-case letters, digits and '-' "
+			         "(got '%s')",
+			         st->name);
+		for (int i = 0; i < c->n_stations - 1; i++)
+			if (!strcmp(c->stations[i].name, st->name))
+				yt_error(&c->doc, n, d, "station name '%s' is used twice",
+				         st->name);
+	}
+	if (!(n = yt_get(s, "vessel_max_ml")))
+		yt_missing(&c->doc, s, "vessel_max_ml", "station", d);
+	else
+		yt_double_range(&c->doc, n, "vessel_max_ml", "mL", 1.0, 10000.0, &st->vessel_max_ml,
+		                d);
+	st->burette = yt_get(s, "burette");
+	st->probe = yt_get(s, "probe");
+	st->stirrer = yt_get(s, "stirrer");
+	if (!st->burette)
+		yt_missing(&c->doc, s, "burette", "station", d);
+	else
+		yt_want_map(&c->doc, st->burette, "burette", d);
+	if (!st->probe)
+		yt_missing(&c->doc, s, "probe", "station", d);
+	else
+		yt_want_map(&c->doc, st->probe, "probe", d);
+	if (st->stirrer && yt_is_null(st->stirrer))
+		st->stirrer = NULL;
+	else if (st->stirrer)
+		yt_want_map(&c->doc, st->stirrer, "stirrer", d);
+}
+
+int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
+{
+	const yt_node_t *root, *n;
+	size_t before = d->n;
+
+	memset(c, 0, sizeof *c);
+	snprintf(c->path, sizeof c->path, "%s", path);
+	snprintf(c->listen_addr, sizeof c->listen_addr, "127.0.0.1");
+	c->listen_port = 8470;
+	c->max_connections = 256;
+	c->max_per_ip = 64;
+	c->max_body_bytes = 256 * 1024; /* a method file is at most 256 KiB (YT_MAX_BYTES) */
+	c->connection_timeout_s = 30;
+	c->threads = 4;
+	snprintf(c->database, sizeof c->database, "/var/lib/stopcock/stopcock.db");
+
+	if (yt_load_file(path, &c->doc, d))
+		return -1;
+	root = c->doc.root;
+	if (!yt_want_map(&c->doc, root, "the daemon configuration", d))
+		return -1;
+	yt_check_keys(&c->doc, root, top_keys, "the daemon configuration", d);
+	if ((n = yt_get(root, "http")))
+		parse_http(c, n, d);
+	if ((n = yt_get(root, "storage")) && yt_want_map(&c->doc, n, "storage", d)) {
+		const yt_node_t *db;
+		yt_check_keys(&c->doc, n, storage_keys, "storage", d);
+		if ((db = yt_get(n, "database")))
+			get_path(c, db, "storage.database", c->database, sizeof c->database, d);
+	}
+	if ((n = yt_get(root, "methods_dir")) && !yt_is_null(n))
+		get_path(c, n, "methods_dir", c->methods_dir, sizeof c->methods_dir, d);
+	c->calibration = yt_get(root, "calibration");
+	c->standardization = yt_get(root, "standardization");
+	if (!(n = yt_get(root, "stations"))) {
+		yt_missing(&c->doc, root, "stations", "the daemon configuration", d);
+	} else if (yt_want_seq(&c->doc, n, "stations", d)) {
+		if (n->n == 0)
+			yt_error(&c->doc, n, d, "stations must list at least one station");
+		for (size_t i = 0; i < n->n; i++)
+			parse_station(c, n->items[i], d);
+	}
+	diag_sort(d);
+	return d->n > before ? -1 : 0;
+}
+
+void cfg_free(cfg_t *c)
+{
+	yt_free(&c->doc);
+	c->n_stations = 0;
+}
+
+const cfg_station_t *cfg_station(const cfg_t *c, const char *name)
+{
+	for (int i = 0; i < c->n_stations; i++)
+		if (!strcmp(c->stations[i].name, name))
+			return &c->stations[i];
+	return NULL;
+}
+
+int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d)
+{
+	FILE *f = fopen(path, "r");
+	char line[512];
+	int lineno = 0;
+	size_t before = d->n;
+
+	t->n = 0;
+	if (!f) {
+		diag_add(d, path, 0, 0, "cannot read the token file: %s", strerror(errno));
+		return -1;
+	}
+	while (fgets(line, sizeof line, f)) {
+		char *p = line, *colon, *end;
+		lineno++;
+		line[strcspn(line, "\r\n")] = '\0';
+		while (*p == ' ' || *p == '\t')
+			p++;
+		if (!*p || *p == '#')
+			continue;
+		colon = strchr(p, ':');
+		if (!colon) {
+			diag_add(d, path, lineno, 1, "a token line is 'name:token'");
+			continue;
+		}
+		*colon = '\0';
+		end = colon + 1 + strlen(colon + 1);
+		while (end > colon + 1 && (end[-1] == ' ' || end[-1] == '\t'))
+			*--end = '\0';
+		if (strlen(colon + 1) < 16 || strlen(colon + 1) >= sizeof t->v[0].token) {
+			diag_add(d, path, lineno, (int)(colon - line) + 2,
+			         "token of '%s' must be 16 to 255 characters long", p);
+			continue;
+		}
+		if (t->n >= CFG_MAX_TOKENS) {
+			diag_add(d, path, lineno, 1, "at most %d tokens are supported",
+			         CFG_MAX_TOKENS);
+			break;
+		}
+		snprintf(t->v[t->n].name, sizeof t->v[t->n].name, "%.63s", p);
+		snprintf(t->v[t->n].token, sizeof t->v[t->n].token, "%.255s", colon + 1);
+		t->n++;
+	}
+	fclose(f);
+	return d->n > before ? -1 : 0;
+}

@@ -1,0 +1,87 @@
+/* config.h: the daemon configuration, stopcockd.yaml (keys in docs/config.md).
+ *
+ * cfg_load() reads and checks the whole file and reports every problem as
+ * "file:line:col: message". Station device subtrees (burette, probe, stirrer)
+ * are kept as YAML nodes: each driver's own configure op validates its keys,
+ * so the daemon never learns a driver's options. The nodes live in cfg->doc,
+ * so a cfg_t must outlive every driver configured from it.
+ *
+ * Relative paths (token_file, database, methods_dir) resolve against the
+ * directory of the config file, so a config written beside its data works
+ * from any working directory.
+ */
+#ifndef STOPCOCK_CONFIG_H
+#define STOPCOCK_CONFIG_H
+
+#include <limits.h>
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "diag.h"
+#include "yamltree.h"
+
+#define CFG_MAX_STATIONS 16
+#define CFG_NAME_MAX     32
+#define CFG_PATH_MAX     1024
+#define CFG_MAX_TOKENS   32
+
+typedef struct cfg_station {
+	char name[CFG_NAME_MAX];  /* [a-z0-9-]+ */
+	double vessel_max_ml;     /* most liquid the beaker may hold, mL */
+	const yt_node_t *burette; /* driver subtrees, in cfg_t.doc */
+	const yt_node_t *probe;
+	const yt_node_t *stirrer; /* NULL when absent */
+	int line, col;            /* of the station's entry, for messages */
+} cfg_station_t;
+
+typedef struct cfg {
+	char path[CFG_PATH_MAX]; /* the file read */
+	/* http */
+	char listen_addr[64]; /* numeric IPv4 or IPv6 address */
+	int listen_port;
+	char token_file[CFG_PATH_MAX]; /* "" when none: then every write gets 401 */
+	bool read_needs_token;
+	unsigned max_connections;      /* total open connections */
+	unsigned max_per_ip;           /* per client address; 0 = no limit */
+	unsigned max_body_bytes;       /* request bodies above this get 413 */
+	unsigned connection_timeout_s; /* idle connections are closed after this */
+	unsigned threads;              /* HTTP worker threads */
+	/* storage */
+	char database[CFG_PATH_MAX];
+	char methods_dir[CFG_PATH_MAX]; /* "" when none */
+	int n_stations;
+	cfg_station_t stations[CFG_MAX_STATIONS];
+	/* parsed by calib.h (calib_config_parse, stdz_config_parse); NULL: absent */
+	const yt_node_t *calibration;
+	const yt_node_t *standardization;
+	yt_doc_t doc; /* owns the station subtrees */
+} cfg_t;
+
+/* Load and check. Returns 0, or -1 with every error added (sorted). On -1 the
+ * struct may be partly filled; always call cfg_free(). */
+int cfg_load(const char *path, cfg_t *c, diag_list_t *d);
+void cfg_free(cfg_t *c);
+
+/* "ADDR:PORT" or "[V6ADDR]:PORT". Returns 0 or -1. */
+int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port);
+
+/* Resolve `rel` against the directory of `base_file` into out. */
+void cfg_resolve_path(const char *base_file, const char *rel, char *out, size_t cap);
+
+/* Write tokens: file of lines "name:token" (blank lines and '#' comments
+ * skipped). Tokens shorter than 16 bytes are refused: they are guessable. */
+typedef struct cfg_token {
+	char name[64];
+	char token[256];
+} cfg_token_t;
+
+typedef struct cfg_tokens {
+	int n;
+	cfg_token_t v[CFG_MAX_TOKENS];
+} cfg_tokens_t;
+
+int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d);
+
+const cfg_station_t *cfg_station(const cfg_t *c, const char *name);
+
+#endif

@@ -1,0 +1,381 @@
+/* http.c: the server, bodies, authentication, dispatch and replies.
+ * Routes are in http_runs.c, http_misc.c and http_calib.c. */
+#include "http.h"
+
+#include <arpa/inet.h>
+#include <errno.h>
+#include <microhttpd.h>
+#include <netinet/in.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <strings.h>
+#include <unistd.h>
+
+#include "log.h"
+
+#define MAX_SEGMENTS 8
+
+struct http_server {
+	struct MHD_Daemon *d;
+	http_ctx_t *ctx;
+};
+
+/* Per-request state: the body as it arrives. */
+typedef struct conn_state {
+	char *buf;
+	size_t len, cap;
+	bool too_big;
+	bool answered; /* 413 queued at the first call */
+} conn_state_t;
+
+void http_reply_json(http_reply_t *r, int status, json_t *j)
+{
+	r->status = status;
+	r->content_type = "application/json";
+	free(r->body);
+	r->body = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
+	json_decref(j);
+	if (!r->body) {
+		r->status = 500;
+		r->body =
+		    strdup("{\"error\":{\"code\":\"internal\",\"message\":\"out of memory\"}}");
+	}
+	r->len = r->body ? strlen(r->body) : 0;
+}
+
+void http_reply_error(http_reply_t *r, int status, const char *code, const char *fmt, ...)
+{
+	char msg[4096];
+	va_list ap;
+
+	va_start(ap, fmt);
+	vsnprintf(msg, sizeof msg, fmt, ap);
+	va_end(ap);
+	http_reply_json(r, status,
+	                json_pack("{s:{s:s,s:s}}", "error", "code", code, "message", msg));
+}
+
+void http_reply_text(http_reply_t *r, int status, const char *ctype, char *text, size_t len)
+{
+	free(r->body);
+	r->status = status;
+	r->content_type = ctype;
+	r->body = text;
+	r->len = len;
+}
+
+const char *http_query(const http_req_t *q, const char *key)
+{
+	return MHD_lookup_connection_value(q->conn, MHD_GET_ARGUMENT_KIND, key);
+}
+
+bool http_parse_id(const char *s, long long *out)
+{
+	long long v = 0;
+
+	if (!s || !*s || strlen(s) > 15)
+		return false;
+	for (const char *p = s; *p; p++) {
+		if (*p < '0' || *p > '9')
+			return false;
+		v = v * 10 + (*p - '0');
+	}
+	if (v <= 0)
+		return false;
+	*out = v;
+	return true;
+}
+
+station_t *http_find_station(http_ctx_t *ctx, const char *name)
+{
+	for (int i = 0; i < ctx->n_stations; i++)
+		if (!strcmp(station_name(ctx->stations[i]), name))
+			return ctx->stations[i];
+	return NULL;
+}
+
+void http_method_limits(http_ctx_t *ctx, station_t *st, method_limits_t *lim)
+{
+	memset(lim, 0, sizeof *lim);
+	lim->max_refills = HTTP_MAX_REFILLS;
+	for (int i = 0; i < ctx->n_stations; i++) {
+		station_t *s = ctx->stations[i];
+		double v = station_vessel_max_ml(s), c = station_capacity_ml(s);
+		if (st && s != st)
+			continue;
+		if (v > 0 && (lim->vessel_max_ml == 0 || v < lim->vessel_max_ml))
+			lim->vessel_max_ml = v;
+		if (c > 0 && (lim->burette_capacity_ml == 0 || c < lim->burette_capacity_ml))
+			lim->burette_capacity_ml = c;
+	}
+}
+
+/* Equal in time independent of where the first difference is; every token
+ * is compared, so the time does not tell which one matched either. */
+static bool ct_equal(const char *a, size_t alen, const char *b, size_t blen)
+{
+	unsigned char diff = (unsigned char)(alen != blen);
+	for (size_t i = 0; i < blen; i++)
+		diff |= (unsigned char)((i < alen ? a[i] : 0) ^ b[i]);
+	return diff == 0;
+}
+
+static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c)
+{
+	const char *h =
+	    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_AUTHORIZATION);
+	const char *found = NULL;
+	size_t len;
+
+	if (!h || strncasecmp(h, "Bearer ", 7))
+		return NULL;
+	h += 7;
+	while (*h == ' ')
+		h++;
+	len = strlen(h);
+	for (int i = 0; i < ctx->tokens.n; i++) {
+		const cfg_token_t *t = &ctx->tokens.v[i];
+		if (ct_equal(h, len, t->token, strlen(t->token)) && !found)
+			found = t->name;
+	}
+	return found;
+}
+
+static int split_path(char *path, const char **seg, int max)
+{
+	int n = 0;
+	char *save = NULL;
+
+	for (char *p = strtok_r(path, "/", &save); p; p = strtok_r(NULL, "/", &save)) {
+		if (n == max)
+			return -1;
+		seg[n++] = p;
+	}
+	return n;
+}
+
+static void dispatch(const http_req_t *q, http_reply_t *r)
+{
+	char path[512];
+	const char *seg[MAX_SEGMENTS];
+	int n;
+
+	if (strlen(q->path) >= sizeof path) {
+		http_reply_error(r, 404, "not_found", "no such route");
+		return;
+	}
+	snprintf(path, sizeof path, "%s", q->path);
+	n = split_path(path, seg, MAX_SEGMENTS);
+	if (n > 0 && (http_route_misc(q, seg, n, r) || http_route_runs(q, seg, n, r) ||
+	              http_route_calib(q, seg, n, r)))
+		return;
+	http_reply_error(r, 404, "not_found", "no such route: %s %s", q->method, q->path);
+}
+
+static enum MHD_Result send_reply(struct MHD_Connection *c, http_ctx_t *ctx, http_reply_t *r)
+{
+	struct MHD_Response *resp;
+	enum MHD_Result ret;
+
+	if (!r->body) {
+		r->body = strdup("");
+		r->len = 0;
+	}
+	resp = MHD_create_response_from_buffer(r->len, r->body, MHD_RESPMEM_MUST_FREE);
+	if (!resp) {
+		free(r->body);
+		return MHD_NO;
+	}
+	r->body = NULL;
+	MHD_add_response_header(resp, MHD_HTTP_HEADER_CONTENT_TYPE,
+	                        r->content_type ? r->content_type : "application/json");
+	MHD_add_response_header(resp, MHD_HTTP_HEADER_CACHE_CONTROL, "no-store");
+	if (r->status == 401)
+		MHD_add_response_header(resp, MHD_HTTP_HEADER_WWW_AUTHENTICATE,
+		                        "Bearer realm=\"stopcock\"");
+	if (r->location[0])
+		MHD_add_response_header(resp, MHD_HTTP_HEADER_LOCATION, r->location);
+	ret = MHD_queue_response(c, (unsigned)r->status, resp);
+	MHD_destroy_response(resp);
+	if (r->status >= 500)
+		atomic_fetch_add(&ctx->requests_5xx, 1);
+	else if (r->status >= 400)
+		atomic_fetch_add(&ctx->requests_4xx, 1);
+	else
+		atomic_fetch_add(&ctx->requests_2xx, 1);
+	return ret;
+}
+
+static enum MHD_Result too_large(struct MHD_Connection *c, http_ctx_t *ctx)
+{
+	http_reply_t r = {0};
+	atomic_fetch_add(&ctx->body_too_large, 1);
+	http_reply_error(&r, 413, "too_large", "the request body is larger than %u bytes",
+	                 ctx->cfg->max_body_bytes);
+	return send_reply(c, ctx, &r);
+}
+
+static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const char *url,
+                                  const char *method, const char *version, const char *upload_data,
+                                  size_t *upload_size, void **con_cls)
+{
+	http_ctx_t *ctx = cls;
+	conn_state_t *cs = *con_cls;
+	http_reply_t r = {0};
+	http_req_t q = {0};
+	bool write = strcmp(method, "GET") && strcmp(method, "HEAD");
+	enum MHD_Result ret;
+	(void)version;
+
+	if (!cs) {
+		const char *cl =
+		    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);
+		cs = calloc(1, sizeof *cs);
+		if (!cs)
+			return MHD_NO;
+		*con_cls = cs;
+		/* Refuse a declared oversize body before reading it; MHD then
+		 * discards the rest and closes the connection. */
+		if (cl && strtoull(cl, NULL, 10) > ctx->cfg->max_body_bytes) {
+			cs->answered = true;
+			return too_large(c, ctx);
+		}
+		return MHD_YES;
+	}
+	if (*upload_size) {
+		size_t n = *upload_size;
+		*upload_size = 0;
+		if (cs->answered || cs->too_big)
+			return MHD_YES;
+		if (cs->len + n > ctx->cfg->max_body_bytes) {
+			cs->too_big = true; /* chunked: counted, answered at the end */
+			return MHD_YES;
+		}
+		if (cs->len + n + 1 > cs->cap) {
+			size_t cap = (cs->len + n + 1) * 2;
+			char *nb;
+			if (cap > (size_t)ctx->cfg->max_body_bytes + 1)
+				cap = (size_t)ctx->cfg->max_body_bytes + 1;
+			nb = realloc(cs->buf, cap);
+			if (!nb)
+				return MHD_NO;
+			cs->buf = nb;
+			cs->cap = cap;
+		}
+		memcpy(cs->buf + cs->len, upload_data, n);
+		cs->len += n;
+		cs->buf[cs->len] = '\0';
+		return MHD_YES;
+	}
+	if (cs->answered)
+		return MHD_YES;
+	if (cs->too_big)
+		return too_large(c, ctx);
+
+	q.ctx = ctx;
+	q.method = method;
+	q.path = url;
+	q.body = cs->buf;
+	q.body_len = cs->len;
+	q.conn = c;
+	if (write || ctx->cfg->read_needs_token) {
+		bool open_route = !write && !strcmp(url, "/v1/health");
+		q.token_name = check_token(ctx, c);
+		if (!q.token_name && !open_route) {
+			const char *h = MHD_lookup_connection_value(c, MHD_HEADER_KIND,
+			                                            MHD_HTTP_HEADER_AUTHORIZATION);
+			atomic_fetch_add(&ctx->auth_failures, 1);
+			http_reply_error(&r, 401, h ? "bad_token" : "no_token",
+			                 h ? "the bearer token is not valid"
+			                   : "this request needs 'Authorization: Bearer TOKEN'");
+			return send_reply(c, ctx, &r);
+		}
+	}
+	dispatch(&q, &r);
+	ret = send_reply(c, ctx, &r);
+	free(r.body);
+	return ret;
+}
+
+static void on_completed(void *cls, struct MHD_Connection *c, void **con_cls,
+                         enum MHD_RequestTerminationCode toe)
+{
+	conn_state_t *cs = *con_cls;
+	(void)cls;
+	(void)c;
+	(void)toe;
+	if (cs) {
+		free(cs->buf);
+		free(cs);
+	}
+	*con_cls = NULL;
+}
+
+static void on_mhd_log(void *cls, const char *fmt, va_list ap)
+{
+	char buf[512];
+	(void)cls;
+	vsnprintf(buf, sizeof buf, fmt, ap);
+	buf[strcspn(buf, "\n")] = '\0';
+	log_warn("http: %s", buf);
+}
+
+http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
+{
+	http_server_t *h = calloc(1, sizeof *h);
+	struct sockaddr_in a4;
+	struct sockaddr_in6 a6;
+	struct sockaddr *sa;
+	unsigned flags = MHD_USE_AUTO_INTERNAL_THREAD | MHD_USE_ITC | MHD_USE_ERROR_LOG;
+
+	if (!h) {
+		snprintf(err, cap, "out of memory");
+		return NULL;
+	}
+	h->ctx = ctx;
+	memset(&a4, 0, sizeof a4);
+	memset(&a6, 0, sizeof a6);
+	if (inet_pton(AF_INET, ctx->cfg->listen_addr, &a4.sin_addr) == 1) {
+		a4.sin_family = AF_INET;
+		a4.sin_port = htons((uint16_t)ctx->cfg->listen_port);
+		sa = (struct sockaddr *)&a4;
+	} else if (inet_pton(AF_INET6, ctx->cfg->listen_addr, &a6.sin6_addr) == 1) {
+		a6.sin6_family = AF_INET6;
+		a6.sin6_port = htons((uint16_t)ctx->cfg->listen_port);
+		sa = (struct sockaddr *)&a6;
+		flags |= MHD_USE_IPv6;
+	} else {
+		snprintf(err, cap, "bad listen address '%s'", ctx->cfg->listen_addr);
+		free(h);
+		return NULL;
+	}
+	h->d = MHD_start_daemon(flags, (uint16_t)ctx->cfg->listen_port, NULL, NULL, on_request, ctx,
+	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, NULL, MHD_OPTION_SOCK_ADDR,
+	                        sa, MHD_OPTION_THREAD_POOL_SIZE, ctx->cfg->threads,
+	                        MHD_OPTION_CONNECTION_LIMIT, ctx->cfg->max_connections,
+	                        MHD_OPTION_PER_IP_CONNECTION_LIMIT, ctx->cfg->max_per_ip,
+	                        MHD_OPTION_CONNECTION_TIMEOUT, ctx->cfg->connection_timeout_s,
+	                        MHD_OPTION_NOTIFY_COMPLETED, on_completed, NULL, MHD_OPTION_END);
+	if (!h->d) {
+		snprintf(err, cap, "cannot listen on %s:%d: %s", ctx->cfg->listen_addr,
+		         ctx->cfg->listen_port, errno ? strerror(errno) : "libmicrohttpd failed");
+		free(h);
+		return NULL;
+	}
+	return h;
+}
+
+void http_stop(http_server_t *h)
+{
+	MHD_socket fd;
+
+	if (!h)
+		return;
+	fd = MHD_quiesce_daemon(h->d);
+	MHD_stop_daemon(h->d);
+	if (fd != MHD_INVALID_SOCKET)
+		close(fd);
+	free(h);
+}

@@ -1,0 +1,92 @@
+/* http.h: the HTTP API of INTERFACE.md on libmicrohttpd (routes in docs/api.md).
+ *
+ * Handlers never touch a device: they read the store and station snapshots
+ * and post commands to station threads. Every error is JSON
+ * {"error":{"code","message"}} with its status. Writes need
+ * "Authorization: Bearer TOKEN" (constant-time compare against every token
+ * of the token file); reads too when http.read_needs_token is set.
+ */
+#ifndef STOPCOCK_HTTP_H
+#define STOPCOCK_HTTP_H
+
+#include <jansson.h>
+#include <stdatomic.h>
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "config.h"
+#include "method.h"
+#include "station.h"
+#include "store.h"
+
+/* Refills a method may count on when its volume_max_ml is checked against a
+ * station's burette capacity (the engine refills the syringe as needed). */
+#define HTTP_MAX_REFILLS 20
+
+typedef struct http_ctx {
+	const cfg_t *cfg;
+	store_t *store;
+	station_t **stations;
+	int n_stations;
+	cfg_tokens_t tokens; /* n == 0: every write gets 401 */
+	double started_mono_s;
+	/* counters for /metrics */
+	atomic_long requests_2xx, requests_4xx, requests_5xx;
+	atomic_long body_too_large, auth_failures;
+} http_ctx_t;
+
+typedef struct http_server http_server_t;
+
+/* Listen on cfg's address; NULL with a message on failure. */
+http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap);
+/* Stop accepting, finish the requests in flight, free. */
+void http_stop(http_server_t *h);
+
+/* ---- for the route files (http_*.c) ---- */
+
+typedef struct http_req {
+	http_ctx_t *ctx;
+	const char *method; /* "GET", ... */
+	const char *path;   /* without the query */
+	const char *body;   /* NUL-terminated copy, may be NULL */
+	size_t body_len;
+	void *conn;             /* struct MHD_Connection * */
+	const char *token_name; /* who wrote, for the events table */
+} http_req_t;
+
+typedef struct http_reply {
+	int status;
+	char *body; /* malloc'd */
+	size_t len;
+	const char *content_type;
+	char location[96];
+} http_reply_t;
+
+/* Fill a reply: JSON (steals j), an error, or text (copied). */
+void http_reply_json(http_reply_t *r, int status, json_t *j);
+void http_reply_error(http_reply_t *r, int status, const char *code, const char *fmt, ...)
+    __attribute__((format(printf, 4, 5)));
+void http_reply_text(http_reply_t *r, int status, const char *ctype, char *text_malloced,
+                     size_t len);
+
+/* Query argument, or NULL. */
+const char *http_query(const http_req_t *q, const char *key);
+
+/* Path id "123" -> 123; false when not a positive decimal integer. */
+bool http_parse_id(const char *s, long long *out);
+
+station_t *http_find_station(http_ctx_t *ctx, const char *name);
+
+/* Limits a method must meet on station st (NULL: the strictest of all). */
+void http_method_limits(http_ctx_t *ctx, station_t *st, method_limits_t *lim);
+
+/* Route groups. Each returns true when it handled the path (the reply is
+ * filled), false when the path is not its own. */
+bool http_route_runs(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
+bool http_route_misc(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
+bool http_route_calib(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
+
+/* /metrics text (http_misc.c). */
+char *http_metrics_text(http_ctx_t *ctx, size_t *len);
+
+#endif

@@ -1,0 +1,616 @@
+/* station.c: the station thread's life, its idle loop, commands and snapshot.
+ * The run itself is in station_run.c. */
+#include "station.h"
+#include "station_priv.h"
+
+#include <errno.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include "log.h"
+#include "notify.h"
+#include "record.h"
+
+#define IDLE_READ_S 1.0 /* probe reading while idle, for the live value */
+#define REOPEN_S    2.0 /* retry unanswering devices this often */
+
+double station_mono_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_MONOTONIC, &ts);
+	return (double)ts.tv_sec + ts.tv_nsec / 1e9;
+}
+
+static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_burette_t *b,
+                              drv_probe_t *p, drv_stirrer_t *st, diag_list_t *d)
+{
+	if (sc->burette)
+		drv_burette_configure(&c->doc, sc->burette, b, d);
+	if (sc->probe)
+		drv_probe_configure(&c->doc, sc->probe, p, d);
+	if (sc->stirrer)
+		drv_stirrer_configure(&c->doc, sc->stirrer, st, d);
+}
+
+int station_check_config(const cfg_t *c, const cfg_station_t *sc, diag_list_t *d)
+{
+	drv_burette_t b = {0};
+	drv_probe_t p = {0};
+	drv_stirrer_t st = {0};
+	size_t before = d->n;
+
+	configure_devices(c, sc, &b, &p, &st, d);
+	drv_burette_close(&b);
+	drv_probe_close(&p);
+	drv_stirrer_close(&st);
+	return d->n > before ? -1 : 0;
+}
+
+station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_config_t *cal,
+                       diag_list_t *d)
+{
+	station_t *s = calloc(1, sizeof *s);
+	pthread_condattr_t ca;
+	size_t before = d->n;
+
+	if (!s)
+		return NULL;
+	snprintf(s->name, sizeof s->name, "%s", sc->name);
+	s->vessel_max_ml = sc->vessel_max_ml;
+	configure_devices(c, sc, &s->bur, &s->probe, &s->stir, d);
+	s->has_stirrer = sc->stirrer != NULL;
+	if (d->n > before) {
+		drv_burette_close(&s->bur);
+		drv_probe_close(&s->probe);
+		drv_stirrer_close(&s->stir);
+		free(s);
+		return NULL;
+	}
+	drv_burette_info(&s->bur, &s->info);
+	if (cal)
+		s->cal_cfg = *cal;
+	else
+		calib_config_defaults(&s->cal_cfg);
+	pthread_mutex_init(&s->lock, NULL);
+	pthread_condattr_init(&ca);
+	pthread_condattr_setclock(&ca, CLOCK_MONOTONIC);
+	pthread_cond_init(&s->cond, &ca);
+	pthread_condattr_destroy(&ca);
+	snprintf(s->snap.name, sizeof s->snap.name, "%s", s->name);
+	snprintf(s->snap.state, sizeof s->snap.state, "offline");
+	s->snap.capacity_ml = s->info.capacity_ml;
+	s->snap.vessel_max_ml = s->vessel_max_ml;
+	return s;
+}
+
+const char *station_name(const station_t *s)
+{
+	return s->name;
+}
+
+double station_vessel_max_ml(const station_t *s)
+{
+	return s->vessel_max_ml;
+}
+
+double station_capacity_ml(const station_t *s)
+{
+	return s->info.capacity_ml;
+}
+
+void station_set_error(station_t *s, const char *msg)
+{
+	pthread_mutex_lock(&s->lock);
+	snprintf(s->snap.last_error, sizeof s->snap.last_error, "%s", msg ? msg : "");
+	pthread_mutex_unlock(&s->lock);
+}
+
+/* Open what is closed; on every (re)open of the burette halt it first, so a
+ * replugged pump never continues a move it was given before. */
+static void open_devices(station_t *s, bool force)
+{
+	drv_err_t err = {{0}};
+	double now = station_mono_s();
+
+	if (!force && now < s->next_open_try_s)
+		return;
+	s->next_open_try_s = now + REOPEN_S;
+	if (!s->bur_open) {
+		if (drv_burette_open(&s->bur, &err) == DRV_OK) {
+			drv_err_t e2 = {{0}};
+			s->bur_open = true;
+			if (drv_burette_halt(&s->bur, &e2) != DRV_OK)
+				log_warn("station %s: halt after open: %s", s->name, e2.msg);
+			log_info("station %s: burette open", s->name);
+		} else {
+			log_warn("station %s: burette: %s", s->name, err.msg);
+			station_set_error(s, err.msg);
+		}
+	}
+	if (!s->probe_open) {
+		if (drv_probe_open(&s->probe, &err) == DRV_OK) {
+			s->probe_open = true;
+			log_info("station %s: probe open", s->name);
+		} else {
+			log_warn("station %s: probe: %s", s->name, err.msg);
+			station_set_error(s, err.msg);
+		}
+	}
+	if (s->has_stirrer && !s->stir_open) {
+		if (drv_stirrer_open(&s->stir, &err) == DRV_OK)
+			s->stir_open = true;
+		else
+			log_warn("station %s: stirrer: %s", s->name, err.msg);
+	}
+}
+
+int station_halt_at_start(station_t *s, char *err, size_t cap)
+{
+	drv_err_t e = {{0}};
+
+	if (drv_burette_open(&s->bur, &e) != DRV_OK) {
+		snprintf(err, cap, "%s", e.msg);
+		return -1;
+	}
+	s->bur_open = true;
+	if (drv_burette_halt(&s->bur, &e) != DRV_OK) {
+		snprintf(err, cap, "%s", e.msg);
+		return -1;
+	}
+	return 0;
+}
+
+void station_halt_burette(station_t *s, const char *why)
+{
+	drv_err_t err = {{0}};
+
+	if (!s->bur_open) {
+		open_devices(s, true);
+		if (!s->bur_open)
+			return;
+	}
+	/* A halt is the one command worth a second try. */
+	for (int i = 0; i < 2; i++) {
+		if (drv_burette_halt(&s->bur, &err) == DRV_OK) {
+			log_info("station %s: burette halted (%s)", s->name, why);
+			return;
+		}
+	}
+	log_err("station %s: halt failed (%s): %s", s->name, why, err.msg);
+}
+
+drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err)
+{
+	drv_status_t st;
+
+	if (!s->probe_open)
+		open_devices(s, true);
+	if (!s->probe_open)
+		return drv_fail(err, DRV_UNPLUGGED, "probe is not connected");
+	st = drv_probe_read(&s->probe, r, err);
+	pthread_mutex_lock(&s->lock);
+	if (st == DRV_OK && isfinite(r->mv)) {
+		s->snap.has_reading = true;
+		s->snap.mv = r->mv;
+		s->snap.has_ph = r->has_ph && isfinite(r->ph);
+		s->snap.ph = r->ph;
+		s->snap.has_temperature = r->has_temperature && isfinite(r->temperature_c);
+		s->snap.temperature_c = r->temperature_c;
+		/* reading_age_s is derived from this on every snapshot */
+		s->snap.reading_age_s = r->t_s;
+	} else if (st == DRV_OK) {
+		st = drv_fail(err, DRV_BAD_REPLY, "probe reading is not a number");
+	}
+	pthread_mutex_unlock(&s->lock);
+	return st;
+}
+
+bool station_interrupted(station_t *s, int64_t run_id)
+{
+	bool r;
+	pthread_mutex_lock(&s->lock);
+	r = s->stop_req || s->halt_req || (run_id && s->abort_run == run_id);
+	pthread_mutex_unlock(&s->lock);
+	return r;
+}
+
+bool station_wait_until(station_t *s, double t_mono_s, int64_t run_id)
+{
+	bool r;
+
+	pthread_mutex_lock(&s->lock);
+	for (;;) {
+		double now = station_mono_s(), until;
+		struct timespec ts;
+		r = s->stop_req || s->halt_req || (run_id && s->abort_run == run_id);
+		s->snap.heartbeat_us = notify_now_us();
+		if (r || now >= t_mono_s)
+			break;
+		/* Wake at least every 250 ms, for the watchdog heartbeat. */
+		until = t_mono_s < now + 0.25 ? t_mono_s : now + 0.25;
+		ts.tv_sec = (time_t)until;
+		ts.tv_nsec = (long)((until - (double)ts.tv_sec) * 1e9);
+		if (ts.tv_nsec >= 1000000000L)
+			ts.tv_nsec = 999999999L;
+		pthread_cond_timedwait(&s->cond, &s->lock, &ts);
+	}
+	pthread_mutex_unlock(&s->lock);
+	return r;
+}
+
+void station_snapshot(station_t *s, station_snapshot_t *out)
+{
+	double now = station_mono_s();
+	pthread_mutex_lock(&s->lock);
+	*out = s->snap;
+	pthread_mutex_unlock(&s->lock);
+	/* snap.reading_age_s holds the reading's monotonic time */
+	out->reading_age_s = out->has_reading ? now - out->reading_age_s : 0.0;
+	if (out->reading_age_s < 0)
+		out->reading_age_s = 0;
+}
+
+static void set_state(station_t *s, const char *state)
+{
+	pthread_mutex_lock(&s->lock);
+	snprintf(s->snap.state, sizeof s->snap.state, "%s", state);
+	pthread_mutex_unlock(&s->lock);
+}
+
+void station_abort_queued(station_t *s, station_job_t *job, const char *why)
+{
+	json_t *j;
+	bool db_err;
+	char at[32];
+	char *text = NULL;
+
+	if (!s->store)
+		return;
+	store_time_rfc3339(store_now_unix_s(), at);
+	j = store_run_json(s->store, job->run_id, &db_err);
+	if (j) {
+		json_object_set_new(j, "state", json_string("aborted"));
+		json_object_set_new(j, "ended_at", json_string(at));
+		json_object_set_new(j, "stop_reason", json_string("aborted"));
+		json_object_del(j, "seq");
+		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
+		json_decref(j);
+	}
+	store_run_finish(s->store, job->run_id, "aborted", text, NULL);
+	store_event_add(s->store, at, s->name, job->run_id, "abort", "queued", why);
+	free(text);
+}
+
+/* ---- calibration, in the thread ---- */
+
+static void calib_store(station_t *s)
+{
+	calib_result_t res;
+	json_t *j;
+	char *text;
+	char at[32] = "", exp[32] = "";
+	calib_state_t state;
+
+	pthread_mutex_lock(&s->lock);
+	if (!s->cal) {
+		pthread_mutex_unlock(&s->lock);
+		return;
+	}
+	state = calib_session_state(s->cal);
+	calib_session_result(s->cal, store_now_unix_s(), &res);
+	s->cal_dirty = false;
+	pthread_mutex_unlock(&s->lock);
+	j = calib_result_json(&res);
+	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
+	json_decref(j);
+	if (res.at_unix_s > 0)
+		store_time_rfc3339(res.at_unix_s, at);
+	if (res.expires_at_unix_s > 0)
+		store_time_rfc3339(res.expires_at_unix_s, exp);
+	store_calib_update(s->store, s->cal_id, calib_state_name(state), at[0] ? at : NULL,
+	                   exp[0] ? exp : NULL, text);
+	free(text);
+}
+
+static void calib_step(station_t *s)
+{
+	calib_state_t before, after;
+	drv_reading_t r = {0};
+	drv_err_t err = {{0}};
+	calib_reading_t cr;
+
+	pthread_mutex_lock(&s->lock);
+	before = s->cal ? calib_session_state(s->cal) : CALIB_ACCEPTED;
+	pthread_mutex_unlock(&s->lock);
+	if (before != CALIB_MEASURING)
+		return;
+	cr.t_s = station_mono_s();
+	cr.mv = NAN;
+	cr.temperature_c = NAN;
+	if (station_read_probe(s, &r, &err) == DRV_OK) {
+		cr.mv = r.mv;
+		cr.temperature_c = r.has_temperature ? r.temperature_c : NAN;
+	}
+	pthread_mutex_lock(&s->lock);
+	after = s->cal ? calib_session_feed(s->cal, &cr) : before;
+	pthread_mutex_unlock(&s->lock);
+	if (after != before)
+		calib_store(s);
+}
+
+int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_out, char *err,
+                        size_t cap, bool *bad_input)
+{
+	calib_session_t *cs;
+	int64_t id;
+
+	*bad_input = false;
+	pthread_mutex_lock(&s->lock);
+	if (s->snap.run_id || s->qn) {
+		pthread_mutex_unlock(&s->lock);
+		snprintf(err, cap, "station %s has a run; calibrate between runs", s->name);
+		return -1;
+	}
+	if (s->cal && calib_session_state(s->cal) == CALIB_MEASURING) {
+		pthread_mutex_unlock(&s->lock);
+		snprintf(err, cap, "station %s is measuring calibration %lld", s->name,
+		         (long long)s->cal_id);
+		return -1;
+	}
+	pthread_mutex_unlock(&s->lock);
+	cs = calib_session_new(&s->cal_cfg, buffers, n, err, cap);
+	if (!cs) {
+		*bad_input = true;
+		return -1;
+	}
+	id = store_calib_create(s->store, s->name, NULL);
+	if (id < 0) {
+		calib_session_free(cs);
+		snprintf(err, cap, "database error");
+		return -1;
+	}
+	pthread_mutex_lock(&s->lock);
+	calib_session_free(s->cal);
+	s->cal = cs;
+	s->cal_id = id;
+	pthread_mutex_unlock(&s->lock);
+	calib_store(s);
+	*id_out = id;
+	return 0;
+}
+
+int station_calib_next(station_t *s, int64_t id, char *err, size_t cap)
+{
+	int rc;
+
+	pthread_mutex_lock(&s->lock);
+	if (!s->cal || s->cal_id != id) {
+		pthread_mutex_unlock(&s->lock);
+		snprintf(err, cap, "calibration %lld is not the current one of station %s",
+		         (long long)id, s->name);
+		return -1;
+	}
+	if (s->snap.run_id) {
+		pthread_mutex_unlock(&s->lock);
+		snprintf(err, cap, "station %s has a run", s->name);
+		return -1;
+	}
+	rc = calib_session_next(s->cal, station_mono_s(), err, cap);
+	s->cal_dirty = true;
+	pthread_cond_broadcast(&s->cond);
+	pthread_mutex_unlock(&s->lock);
+	return rc;
+}
+
+/* ---- the thread ---- */
+
+static void idle_tick(station_t *s, double *next_read)
+{
+	double now = station_mono_s();
+	drv_reading_t r = {0};
+	drv_burette_status_t bs = {0};
+	drv_err_t err = {{0}};
+	bool measuring;
+
+	open_devices(s, false);
+	pthread_mutex_lock(&s->lock);
+	measuring = s->cal && calib_session_state(s->cal) == CALIB_MEASURING;
+	if (s->halt_req) {
+		s->halt_req = false;
+		pthread_mutex_unlock(&s->lock);
+		station_halt_burette(s, "halt requested");
+		pthread_mutex_lock(&s->lock);
+	}
+	pthread_mutex_unlock(&s->lock);
+	if (s->cal_dirty)
+		calib_store(s);
+	if (measuring) {
+		calib_step(s);
+		*next_read = now + 0.25;
+		return;
+	}
+	if (now < *next_read)
+		return;
+	*next_read = now + IDLE_READ_S;
+	if (s->probe_open && station_read_probe(s, &r, &err) != DRV_OK) {
+		log_warn("station %s: probe: %s", s->name, err.msg);
+		station_set_error(s, err.msg);
+	}
+	if (s->bur_open) {
+		if (drv_burette_status(&s->bur, &bs, &err) == DRV_OK) {
+			pthread_mutex_lock(&s->lock);
+			s->snap.has_burette = true;
+			s->snap.burette_total_ml = bs.dispensed_ml;
+			s->snap.contents_ml = bs.contents_ml;
+			pthread_mutex_unlock(&s->lock);
+		} else {
+			log_warn("station %s: burette: %s", s->name, err.msg);
+			station_set_error(s, err.msg);
+		}
+	}
+	set_state(s, s->bur_open && s->probe_open ? "idle" : "offline");
+}
+
+static void *station_main(void *arg)
+{
+	station_t *s = arg;
+	double next_read = 0;
+
+	open_devices(s, true);
+	for (;;) {
+		station_job_t *job = NULL;
+		pthread_mutex_lock(&s->lock);
+		s->snap.heartbeat_us = notify_now_us();
+		if (s->stop_req) {
+			pthread_mutex_unlock(&s->lock);
+			break;
+		}
+		if (s->qn && !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
+			job = s->queue[0];
+			memmove(s->queue, s->queue + 1, (size_t)(s->qn - 1) * sizeof s->queue[0]);
+			s->qn--;
+			s->snap.queued = s->qn;
+			s->snap.run_id = job->run_id;
+			if (s->abort_run == job->run_id)
+				s->abort_run = 0;
+		}
+		pthread_mutex_unlock(&s->lock);
+		if (job) {
+			set_state(s, "running");
+			station_run_job(s, job);
+			free(job);
+			pthread_mutex_lock(&s->lock);
+			s->snap.run_id = 0;
+			s->snap.phase[0] = '\0';
+			s->snap.runs_done++;
+			s->halt_req = false;
+			pthread_mutex_unlock(&s->lock);
+			set_state(s, s->bur_open && s->probe_open ? "idle" : "offline");
+			continue;
+		}
+		idle_tick(s, &next_read);
+		station_wait_until(s, station_mono_s() + 0.1, 0);
+		/* a halt while idle is handled by idle_tick; stop ends the loop */
+		pthread_mutex_lock(&s->lock);
+		if (s->halt_req && !s->stop_req) {
+			pthread_mutex_unlock(&s->lock);
+			idle_tick(s, &next_read);
+		} else {
+			pthread_mutex_unlock(&s->lock);
+		}
+	}
+	/* Shutting down: halt the burette, end queued runs. */
+	station_halt_burette(s, "daemon stopping");
+	if (s->stir_open) {
+		drv_err_t err = {{0}};
+		drv_stirrer_set(&s->stir, false, 0, &err);
+	}
+	pthread_mutex_lock(&s->lock);
+	while (s->qn) {
+		station_job_t *job = s->queue[--s->qn];
+		pthread_mutex_unlock(&s->lock);
+		station_abort_queued(s, job, "the daemon stopped before the run started");
+		free(job);
+		pthread_mutex_lock(&s->lock);
+	}
+	pthread_mutex_unlock(&s->lock);
+	return NULL;
+}
+
+int station_start(station_t *s, store_t *store)
+{
+	s->store = store;
+	if (pthread_create(&s->thread, NULL, station_main, s))
+		return -1;
+	s->started = true;
+	return 0;
+}
+
+void station_stop(station_t *s)
+{
+	if (!s->started)
+		return;
+	pthread_mutex_lock(&s->lock);
+	s->stop_req = true;
+	pthread_cond_broadcast(&s->cond);
+	pthread_mutex_unlock(&s->lock);
+	pthread_join(s->thread, NULL);
+	s->started = false;
+}
+
+void station_free(station_t *s)
+{
+	if (!s)
+		return;
+	station_stop(s);
+	drv_burette_close(&s->bur);
+	drv_probe_close(&s->probe);
+	drv_stirrer_close(&s->stir);
+	for (int i = 0; i < s->qn; i++)
+		free(s->queue[i]);
+	calib_session_free(s->cal);
+	pthread_mutex_destroy(&s->lock);
+	pthread_cond_destroy(&s->cond);
+	free(s);
+}
+
+int station_enqueue(station_t *s, const station_job_t *job)
+{
+	station_job_t *copy;
+
+	copy = malloc(sizeof *copy);
+	if (!copy)
+		return -1;
+	*copy = *job;
+	pthread_mutex_lock(&s->lock);
+	if (s->qn >= STATION_QUEUE_MAX || s->stop_req) {
+		pthread_mutex_unlock(&s->lock);
+		free(copy);
+		return -1;
+	}
+	s->queue[s->qn++] = copy;
+	s->snap.queued = s->qn;
+	pthread_cond_broadcast(&s->cond);
+	pthread_mutex_unlock(&s->lock);
+	return 0;
+}
+
+station_cmd_t station_abort(station_t *s, int64_t run_id)
+{
+	station_job_t *job = NULL;
+
+	pthread_mutex_lock(&s->lock);
+	if (s->snap.run_id == run_id) {
+		s->abort_run = run_id;
+		pthread_cond_broadcast(&s->cond);
+		pthread_mutex_unlock(&s->lock);
+		return STATION_CMD_OK;
+	}
+	for (int i = 0; i < s->qn; i++) {
+		if (s->queue[i]->run_id != run_id)
+			continue;
+		job = s->queue[i];
+		memmove(s->queue + i, s->queue + i + 1, (size_t)(s->qn - i - 1) * sizeof job);
+		s->qn--;
+		s->snap.queued = s->qn;
+		break;
+	}
+	pthread_mutex_unlock(&s->lock);
+	if (!job)
+		return STATION_CMD_NOT_HERE;
+	station_abort_queued(s, job, "aborted before it started");
+	free(job);
+	return STATION_CMD_OK;
+}
+
+station_cmd_t station_halt(station_t *s)
+{
+	pthread_mutex_lock(&s->lock);
+	s->halt_req = true;
+	pthread_cond_broadcast(&s->cond);
+	pthread_mutex_unlock(&s->lock);
+	return STATION_CMD_OK;
+}

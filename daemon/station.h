@@ -1,0 +1,124 @@
+/* station.h: one titration station = one thread owning its devices.
+ *
+ * The station thread is the only code that calls its drivers. Everything else
+ * (HTTP handlers, the main thread) talks to it through a command queue and
+ * reads a snapshot kept under a mutex, so a slow device never blocks a
+ * request and a request never races a device call.
+ *
+ * A run: the HTTP handler creates the run row (state queued) and posts
+ * station_enqueue(); the thread takes runs in order, drives the engine
+ * (engine.h) and writes every accepted point to the store before it sends
+ * the next addition. Device faults halt the burette and end the run `failed`
+ * with the fault recorded; the daemon and the thread stay up and retry the
+ * devices.
+ *
+ * Volume interlocks (checked before every dose, whatever the engine asks):
+ * the total may not pass the method's volume_max_ml or the station's
+ * vessel_max_ml, and one dose may not exceed what the syringe holds.
+ */
+#ifndef STOPCOCK_STATION_H
+#define STOPCOCK_STATION_H
+
+#include <stdbool.h>
+#include <stdint.h>
+
+#include "calib.h"
+#include "config.h"
+#include "diag.h"
+#include "method.h"
+#include "store.h"
+
+typedef struct station station_t;
+
+typedef struct station_snapshot {
+	char name[CFG_NAME_MAX];
+	char state[16]; /* idle, running, offline (devices not answering) */
+	char phase[16]; /* while running: stirring dosing settling evaluating; else "" */
+	int64_t run_id; /* current run, 0 when none */
+	int queued;     /* runs waiting behind it */
+	bool has_reading;
+	double mv;
+	bool has_ph;
+	double ph;
+	bool has_temperature;
+	double temperature_c;
+	double reading_age_s;    /* since the last good probe reading, s */
+	bool has_burette;        /* burette status known */
+	double dispensed_ml;     /* by the current (or last) run, mL */
+	double burette_total_ml; /* dispensed since the driver opened, mL */
+	double contents_ml;      /* titrant left in the syringe, mL */
+	double capacity_ml;      /* syringe volume, mL */
+	double vessel_max_ml;
+	long additions_total; /* doses sent since start, for /metrics */
+	long runs_done;
+	/* scheduling: how late the thread woke for the engine's READ/WAIT times,
+	 * the figure behind "addition timing jitter" in the benchmark */
+	long wake_count;
+	double wake_late_sum_s;
+	double wake_late_max_s;
+	char last_error[256];  /* last device error, "" when none */
+	uint64_t heartbeat_us; /* notify_now_us() of the thread's last loop */
+} station_snapshot_t;
+
+/* Configure the drivers from the config (no I/O). NULL with errors in d. */
+station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_config_t *cal,
+                       diag_list_t *d);
+
+/* For --check-config: configure every driver of the station and free them. */
+int station_check_config(const cfg_t *c, const cfg_station_t *sc, diag_list_t *d);
+
+/* Open the burette and halt it, from the calling thread, before anything
+ * else runs. Returns 0, or -1 (the device did not answer) with a message. */
+int station_halt_at_start(station_t *s, char *err, size_t cap);
+
+/* Start / stop the thread. station_stop() halts the burette, ends the
+ * current run `aborted` (queued runs become `aborted` too: "daemon stopped"),
+ * and joins. */
+int station_start(station_t *s, store_t *store);
+void station_stop(station_t *s);
+void station_free(station_t *s);
+
+const char *station_name(const station_t *s);
+double station_vessel_max_ml(const station_t *s);
+/* Syringe volume from the driver's configuration, mL. */
+double station_capacity_ml(const station_t *s);
+
+void station_snapshot(station_t *s, station_snapshot_t *out);
+
+/* A queued run: the method is copied. */
+typedef struct station_job {
+	int64_t run_id;
+	method_t method;
+	double amount;
+	char sample_id[128];
+	char queued_at[32];
+} station_job_t;
+
+/* Post a run; 0, or -1 when the queue is full. */
+int station_enqueue(station_t *s, const station_job_t *job);
+/* End a queued (never started) run as aborted in the store, with a reason. */
+void station_abort_queued(station_t *s, station_job_t *job, const char *why);
+
+typedef enum {
+	STATION_CMD_OK = 0,
+	STATION_CMD_NOT_HERE = 1, /* run neither current nor queued here */
+	STATION_CMD_ERR = -1,
+} station_cmd_t;
+
+/* Abort a run that is current or queued on this station. The burette is
+ * halted by the thread at its next step (within one device deadline). */
+station_cmd_t station_abort(station_t *s, int64_t run_id);
+/* Halt the burette at once; the current run becomes aborted. */
+station_cmd_t station_halt(station_t *s);
+
+/* Electrode calibration (calib.h), run by the station thread between runs.
+ * station_calib_start() makes a session for the buffers and stores it;
+ * station_calib_next() moves it to `measuring`; the thread then feeds probe
+ * readings and stores the session's JSON on every state change. Both return
+ * 0, or -1 with a message for a 409 (run active, another calibration going,
+ * wrong state) or 400 (bad buffers: *bad_input set). */
+int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_out, char *err,
+                        size_t cap, bool *bad_input);
+int station_calib_next(station_t *s, int64_t id, char *err, size_t cap);
+
+#endif

@@ -1,0 +1,69 @@
+/* station_priv.h: what station.c and station_run.c share; nothing else includes it. */
+#ifndef STOPCOCK_STATION_PRIV_H
+#define STOPCOCK_STATION_PRIV_H
+
+#include <pthread.h>
+#include <stdbool.h>
+#include <stdint.h>
+
+#include "calib.h"
+#include "drv.h"
+#include "station.h"
+#include "store.h"
+
+#define STATION_QUEUE_MAX 32
+
+struct station {
+	char name[CFG_NAME_MAX];
+	double vessel_max_ml;
+	store_t *store;
+
+	/* devices: touched only by the station thread (and by
+	 * station_halt_at_start before the thread exists) */
+	drv_burette_t bur;
+	drv_probe_t probe;
+	drv_stirrer_t stir;
+	bool has_stirrer;
+	drv_burette_info_t info;
+	bool bur_open, probe_open, stir_open;
+	bool stir_on;
+	double next_open_try_s; /* monotonic, s */
+
+	pthread_t thread;
+	bool started;
+
+	/* under lock: commands, the queue, the snapshot, the calibration */
+	pthread_mutex_t lock;
+	pthread_cond_t cond; /* CLOCK_MONOTONIC; signalled on every command */
+	bool stop_req;
+	bool halt_req;
+	int64_t abort_run; /* abort this run id when current (0: none) */
+	station_job_t *queue[STATION_QUEUE_MAX];
+	int qn;
+	station_snapshot_t snap;
+
+	calib_config_t cal_cfg;
+	calib_session_t *cal; /* the station's calibration, NULL when none */
+	int64_t cal_id;
+	bool cal_dirty; /* state changed by an HTTP call: the thread stores it */
+};
+
+/* Monotonic clock, s. */
+double station_mono_s(void);
+
+/* Sleep until t_mono_s or a command that interrupts the current run.
+ * Returns true when interrupted (stop, halt, abort of run_id). */
+bool station_wait_until(station_t *s, double t_mono_s, int64_t run_id);
+
+/* Does a pending command stop the run run_id? (caller holds no lock) */
+bool station_interrupted(station_t *s, int64_t run_id);
+
+/* Devices, station thread only. */
+drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err);
+void station_halt_burette(station_t *s, const char *why);
+void station_set_error(station_t *s, const char *msg);
+
+/* Execute one run to its end (station_run.c). */
+void station_run_job(station_t *s, station_job_t *job);
+
+#endif

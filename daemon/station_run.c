@@ -1,0 +1,552 @@
+/* station_run.c: one run on a station, from queued to a final state.
+ *
+ * The engine decides; this file performs its actions on the devices, feeds
+ * back what happened, and stores every accepted point (committed) before the
+ * next addition is sent. Interlocks are checked here again, whatever the
+ * engine asks, because an engine bug must not flood a beaker.
+ */
+#include "station.h"
+#include "station_priv.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "calib.h"
+#include "engine.h"
+#include "log.h"
+#include "record.h"
+
+#define PROBE_TRIES     3     /* readings tried before a probe fault */
+#define PROBE_RETRY_S   0.2   /* between those tries */
+#define STALE_READING_S 10.0  /* a reading older than this is a fault */
+#define DOSE_POLL_S     0.02  /* status polls while the plunger moves */
+#define MOVE_DEADLINE_S 300.0 /* a dose or refill not done by then is a fault */
+
+typedef struct run {
+	station_t *s;
+	station_job_t *job;
+	engine_t *e;
+	run_record_t rec;
+	double t0; /* monotonic s at run start */
+	int stored_points;
+	char last_phase[16];
+	double burette_start_ml; /* driver's dispensed_ml at run start */
+	double dispensed_ml;     /* by this run, as the device reports */
+	bool fault;              /* a device fault ended the run */
+	bool interrupted;        /* stop / halt / abort */
+} run_t;
+
+static void now_text(char out[32])
+{
+	store_time_rfc3339(store_now_unix_s(), out);
+}
+
+static char *record_text(run_t *r)
+{
+	char at[32];
+	json_t *j;
+	char *text;
+
+	now_text(at);
+	record_fill_from_engine(&r->rec, r->e, at);
+	j = record_to_json(&r->rec);
+	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
+	json_decref(j);
+	return text;
+}
+
+static void publish(run_t *r)
+{
+	station_t *s = r->s;
+	const char *ph = engine_phase(r->e);
+
+	pthread_mutex_lock(&s->lock);
+	snprintf(s->snap.phase, sizeof s->snap.phase, "%s", ph ? ph : "");
+	s->snap.dispensed_ml = r->dispensed_ml;
+	pthread_mutex_unlock(&s->lock);
+	if (ph && strcmp(ph, r->last_phase)) {
+		char *text = record_text(r);
+		snprintf(r->last_phase, sizeof r->last_phase, "%s", ph);
+		store_run_update(s->store, r->job->run_id, NULL, ph, text);
+		free(text);
+	}
+}
+
+static void point_of(const engine_point_t *p, store_point_t *out)
+{
+	out->t_s = p->t_s;
+	out->volume_ml = p->volume_ml;
+	out->mv = p->mv;
+	out->has_ph = isfinite(p->ph);
+	out->ph = p->ph;
+	out->has_temperature = isfinite(p->temperature_c);
+	out->temperature_c = p->temperature_c;
+	out->settled = p->settled;
+	out->has_dpdv = isfinite(p->dpdv);
+	out->dpdv = p->dpdv;
+}
+
+/* Store points not stored yet. Returns -1 when the database failed: then the
+ * run must stop, since a point we cannot keep must not lead to an addition. */
+static int store_new_points(run_t *r)
+{
+	int n = engine_n_points(r->e);
+
+	while (r->stored_points < n) {
+		store_point_t p;
+		char *text;
+		store_status_t st;
+		point_of(engine_point(r->e, r->stored_points), &p);
+		text = r->stored_points == n - 1 ? record_text(r) : NULL;
+		st = store_point_add(r->s->store, r->job->run_id, r->stored_points, &p, text);
+		free(text);
+		if (st != STORE_OK)
+			return -1;
+		r->stored_points++;
+	}
+	return 0;
+}
+
+static engine_action_t feed_fault(run_t *r, double t_s, const char *code, const char *msg)
+{
+	engine_event_t ev = {.kind = ENGINE_EV_FAULT, .t_s = t_s, .code = code, .message = msg};
+	char at[32];
+
+	log_err("station %s run %lld: %s: %s", r->s->name, (long long)r->job->run_id, code, msg);
+	station_halt_burette(r->s, code);
+	now_text(at);
+	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg);
+	station_set_error(r->s, msg);
+	r->fault = true;
+	return engine_feed(r->e, &ev);
+}
+
+static double t_run(const run_t *r)
+{
+	return station_mono_s() - r->t0;
+}
+
+static bool burette_status(run_t *r, drv_burette_status_t *bs, drv_err_t *err)
+{
+	if (drv_burette_status(&r->s->bur, bs, err) != DRV_OK)
+		return false;
+	pthread_mutex_lock(&r->s->lock);
+	r->s->snap.has_burette = true;
+	r->s->snap.burette_total_ml = bs->dispensed_ml;
+	r->s->snap.contents_ml = bs->contents_ml;
+	pthread_mutex_unlock(&r->s->lock);
+	return true;
+}
+
+/* Wait for the plunger to stop. 0 done, 1 interrupted (halted), -1 fault. */
+static int wait_move(run_t *r, drv_burette_status_t *bs, char *msg, size_t cap)
+{
+	double deadline = station_mono_s() + MOVE_DEADLINE_S;
+	drv_err_t err = {{0}};
+
+	for (;;) {
+		if (station_wait_until(r->s, station_mono_s() + DOSE_POLL_S, r->job->run_id)) {
+			station_halt_burette(r->s, "run interrupted");
+			burette_status(r, bs, &err);
+			return 1;
+		}
+		if (!burette_status(r, bs, &err)) {
+			snprintf(msg, cap, "burette: %s", err.msg);
+			return -1;
+		}
+		if (bs->fault) {
+			snprintf(msg, cap, "burette reports a fault (motor stall?)");
+			return -1;
+		}
+		if (!bs->moving)
+			return 0;
+		if (station_mono_s() > deadline) {
+			snprintf(msg, cap, "burette still moving after %.0f s", MOVE_DEADLINE_S);
+			return -1;
+		}
+	}
+}
+
+static engine_action_t do_refill(run_t *r)
+{
+	drv_err_t err = {{0}};
+	drv_burette_status_t bs = {0};
+	char msg[300];
+	int w;
+
+	if (drv_burette_refill(&r->s->bur, &err) != DRV_OK)
+		return feed_fault(r, t_run(r), "burette_refill", err.msg);
+	w = wait_move(r, &bs, msg, sizeof msg);
+	if (w < 0)
+		return feed_fault(r, t_run(r), "burette_refill", msg);
+	if (w > 0) {
+		engine_event_t ev = {.kind = ENGINE_EV_ABORT, .t_s = t_run(r)};
+		r->interrupted = true;
+		return engine_feed(r->e, &ev);
+	}
+	return engine_feed(r->e, &(engine_event_t){.kind = ENGINE_EV_REFILLED, .t_s = t_run(r)});
+}
+
+static engine_action_t do_dose(run_t *r, double dose_ml)
+{
+	station_t *s = r->s;
+	const method_t *m = &r->job->method;
+	drv_err_t err = {{0}};
+	drv_burette_status_t bs = {0};
+	double q = engine_dose_quantum_ml(r->e);
+	double limit_ml = m->volume_max_ml;
+	double before_ml, delivered;
+	char msg[300];
+	int w;
+
+	/* Interlocks: the method's and the vessel's limits on the run total. */
+	if (s->vessel_max_ml > 0 && s->vessel_max_ml < limit_ml)
+		limit_ml = s->vessel_max_ml;
+	if (r->dispensed_ml + dose_ml > limit_ml + q / 2) {
+		double room = floor((limit_ml - r->dispensed_ml) / q + 1e-9) * q;
+		if (room < q / 2) {
+			snprintf(msg, sizeof msg,
+			         "interlock: a dose of %.4f mL would pass the limit of %.3f mL "
+			         "(%.4f mL dispensed)",
+			         dose_ml, limit_ml, r->dispensed_ml);
+			return feed_fault(r, t_run(r), "volume_interlock", msg);
+		}
+		log_warn("station %s run %lld: interlock: dose %.4f mL cut to %.4f mL", s->name,
+		         (long long)r->job->run_id, dose_ml, room);
+		dose_ml = room;
+	}
+	if (!burette_status(r, &bs, &err))
+		return feed_fault(r, t_run(r),
+		                  "burette_"
+		                  "status",
+		                  err.msg);
+	/* The stroke: never ask for more than the syringe holds. */
+	if (dose_ml > bs.contents_ml + q / 2) {
+		if (drv_burette_refill(&s->bur, &err) != DRV_OK)
+			return feed_fault(r, t_run(r), "burette_refill", err.msg);
+		w = wait_move(r, &bs, msg, sizeof msg);
+		if (w < 0)
+			return feed_fault(r, t_run(r), "burette_refill", msg);
+		if (w > 0)
+			goto interrupted;
+		if (dose_ml > bs.contents_ml + q / 2) {
+			snprintf(msg, sizeof msg,
+			         "a dose of %.4f mL is more than the syringe holds "
+			         "(%.4f mL)",
+			         dose_ml, bs.contents_ml);
+			return feed_fault(r, t_run(r), "stroke_interlock", msg);
+		}
+	}
+	before_ml = bs.dispensed_ml;
+	if (drv_burette_dose(&s->bur, dose_ml, &err) != DRV_OK)
+		return feed_fault(r, t_run(r), "burette_dose", err.msg);
+	pthread_mutex_lock(&s->lock);
+	s->snap.additions_total++;
+	pthread_mutex_unlock(&s->lock);
+	w = wait_move(r, &bs, msg, sizeof msg);
+	delivered = bs.dispensed_ml - before_ml;
+	if (delivered < 0 || !isfinite(delivered))
+		delivered = 0;
+	r->dispensed_ml += delivered;
+	if (w < 0)
+		return feed_fault(r, t_run(r), "burette_dose", msg);
+	if (w > 0)
+		goto interrupted;
+	publish(r);
+	return engine_feed(
+	    r->e,
+	    &(engine_event_t){.kind = ENGINE_EV_DOSED, .t_s = t_run(r), .dosed_ml = delivered});
+interrupted:
+	r->interrupted = true;
+	return engine_feed(r->e, &(engine_event_t){.kind = ENGINE_EV_ABORT, .t_s = t_run(r)});
+}
+
+static engine_action_t do_read(run_t *r)
+{
+	drv_reading_t rd = {0};
+	drv_err_t err = {{0}};
+	engine_event_t ev = {.kind = ENGINE_EV_READING};
+
+	for (int i = 0; i < PROBE_TRIES; i++) {
+		if (station_read_probe(r->s, &rd, &err) == DRV_OK)
+			break;
+		if (i == PROBE_TRIES - 1)
+			return feed_fault(r, t_run(r), "probe", err.msg);
+		if (station_wait_until(r->s, station_mono_s() + PROBE_RETRY_S, r->job->run_id))
+			return engine_feed(
+			    r->e, &(engine_event_t){.kind = ENGINE_EV_ABORT, .t_s = t_run(r)});
+	}
+	if (station_mono_s() - rd.t_s > STALE_READING_S)
+		return feed_fault(r, t_run(r), "probe_stale", "the probe reading is stale");
+	ev.t_s = t_run(r);
+	ev.mv = rd.mv;
+	ev.has_ph = rd.has_ph;
+	ev.ph = rd.ph;
+	ev.temperature_c = rd.has_temperature ? rd.temperature_c : NAN;
+	return engine_feed(r->e, &ev);
+}
+
+static void set_stirrer(run_t *r, bool on)
+{
+	drv_err_t err = {{0}};
+	station_t *s = r->s;
+
+	if (!s->stir_open || s->stir_on == on)
+		return;
+	if (drv_stirrer_set(&s->stir, on, 0, &err) == DRV_OK)
+		s->stir_on = on;
+	else
+		log_warn("station %s: stirrer: %s", s->name, err.msg);
+}
+
+/* Titer, blank and calibration from the store; false (with msg) when a
+ * pH run needs a calibration it does not have. */
+static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
+{
+	station_t *s = r->s;
+	const method_t *m = &r->job->method;
+	drv_burette_status_t bs = {0};
+	drv_err_t err = {{0}};
+	double titer = 1.0, blank = 0;
+	station_snapshot_t snap;
+
+	memset(p, 0, sizeof *p);
+	p->amount = r->job->amount;
+	if (store_titrant_get(s->store, m->titrant_name, &titer) != STORE_OK || !(titer > 0))
+		titer = 1.0;
+	p->titer = titer;
+	if (store_blank_get(s->store, m->id, &blank) == STORE_OK) {
+		p->has_blank = true;
+		p->blank_ml = blank;
+	}
+	p->burette_capacity_ml = s->info.capacity_ml;
+	p->burette_steps = s->info.steps;
+	p->burette_content_ml = burette_status(r, &bs, &err) ? bs.contents_ml : NAN;
+	r->burette_start_ml = bs.dispensed_ml;
+	p->vessel_max_ml = s->vessel_max_ml;
+	r->rec.titrant.titer = titer;
+
+	station_snapshot(s, &snap);
+	if (m->signal == SIGNAL_PH && !snap.has_ph) {
+		char now[32];
+		bool db_err;
+		calib_result_t cal;
+		json_t *j;
+		store_time_rfc3339(store_now_unix_s(), now);
+		j = store_calib_latest(s->store, s->name, true, now, &db_err);
+		if (!j || calib_result_from_json(j, &cal)) {
+			json_decref(j);
+			snprintf(msg, cap,
+			         "station %s has no valid electrode calibration and its probe "
+			         "gives no pH",
+			         s->name);
+			return false;
+		}
+		json_decref(j);
+		p->has_calibration = true;
+		p->cal_slope_pct = cal.slope_pct;
+		p->cal_offset_mv = cal.offset_mv;
+		r->rec.has_calibration = true;
+		r->rec.calibration.slope_pct = cal.slope_pct;
+		r->rec.calibration.offset_mv = cal.offset_mv;
+		store_time_rfc3339(cal.at_unix_s, r->rec.calibration.at);
+	}
+	return true;
+}
+
+static const char *final_state(const run_t *r)
+{
+	switch (engine_stop_reason(r->e)) {
+	case ENGINE_STOP_ABORTED:
+		return "aborted";
+	case ENGINE_STOP_FAULT:
+		return "failed";
+	default:
+		return r->interrupted ? "aborted" : "finished";
+	}
+}
+
+/* After a finished standardization or blank, keep what it measured. */
+static void keep_outcome(run_t *r)
+{
+	const method_t *m = &r->job->method;
+	char at[32];
+
+	now_text(at);
+	if (m->purpose == PURPOSE_STANDARDIZE) {
+		for (int i = 0; i < engine_n_results(r->e); i++) {
+			const engine_result_t *res = engine_result(r->e, i);
+			double titer;
+			if (!res->has_value || res->accept == ENGINE_ACCEPT_LOW ||
+			    res->accept == ENGINE_ACCEPT_HIGH)
+				continue;
+			if (stdz_titer_from_result(res->name, res->unit, res->value,
+			                           m->titrant_molarity, &titer) == 0) {
+				store_titrant_set(r->s->store, m->titrant_name, m->titrant_molarity,
+				                  titer, at, r->job->run_id);
+				break;
+			}
+		}
+	} else if (m->purpose == PURPOSE_BLANK && engine_n_endpoints(r->e) > 0) {
+		store_blank_set(r->s->store, m->id, engine_endpoint(r->e, 0)->volume_ml, at,
+		                r->job->run_id);
+	}
+}
+
+static void finish(run_t *r)
+{
+	const char *state = final_state(r);
+	char *text;
+	int64_t seq = 0;
+	int n = engine_n_points(r->e);
+
+	set_stirrer(r, false);
+	/* engine_done() smooths dpdv: store the final points in place. */
+	r->stored_points = 0;
+	for (int i = 0; i < n; i++) {
+		store_point_t p;
+		point_of(engine_point(r->e, i), &p);
+		if (store_point_add(r->s->store, r->job->run_id, i, &p, NULL) != STORE_OK)
+			break;
+	}
+	now_text(r->rec.ended_at);
+	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);
+	text = record_text(r);
+	/* record_fill_from_engine() sets the phase; a final record has none */
+	if (text) {
+		json_t *j = json_loads(text, 0, NULL);
+		free(text);
+		json_object_set_new(j, "phase", json_null());
+		json_object_set_new(j, "state", json_string(state));
+		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
+		json_decref(j);
+	}
+	if (store_run_finish(r->s->store, r->job->run_id, state, text, &seq) != STORE_OK)
+		log_err("station %s run %lld: could not store the final record", r->s->name,
+		        (long long)r->job->run_id);
+	free(text);
+	if (!strcmp(state, "finished"))
+		keep_outcome(r);
+	log_notice("station %s run %lld: %s (%s), %d points, %.4f mL, seq %lld", r->s->name,
+	           (long long)r->job->run_id, state, engine_stop_name(engine_stop_reason(r->e)), n,
+	           r->dispensed_ml, (long long)seq);
+}
+
+/* A run that cannot start (no calibration, no devices): failed at once. */
+static void fail_early(run_t *r, const char *code, const char *msg)
+{
+	char at[32];
+	json_t *j;
+	char *text;
+
+	now_text(at);
+	record_add_fault(&r->rec, at, code, msg);
+	snprintf(r->rec.state, sizeof r->rec.state, "failed");
+	snprintf(r->rec.ended_at, sizeof r->rec.ended_at, "%s", at);
+	snprintf(r->rec.stop_reason, sizeof r->rec.stop_reason, "fault");
+	j = record_to_json(&r->rec);
+	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
+	json_decref(j);
+	store_run_finish(r->s->store, r->job->run_id, "failed", text, NULL);
+	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg);
+	free(text);
+	log_err("station %s run %lld: %s", r->s->name, (long long)r->job->run_id, msg);
+}
+
+static void note_lateness(station_t *s, double late_s)
+{
+	if (late_s < 0)
+		late_s = 0;
+	pthread_mutex_lock(&s->lock);
+	s->snap.wake_count++;
+	s->snap.wake_late_sum_s += late_s;
+	if (late_s > s->snap.wake_late_max_s)
+		s->snap.wake_late_max_s = late_s;
+	pthread_mutex_unlock(&s->lock);
+}
+
+void station_run_job(station_t *s, station_job_t *job)
+{
+	run_t r = {.s = s, .job = job};
+	engine_params_t p;
+	engine_action_t act;
+	char msg[300];
+	char *text;
+
+	record_init(&r.rec);
+	r.rec.id = job->run_id;
+	snprintf(r.rec.station, sizeof r.rec.station, "%s", s->name);
+	record_set_method(&r.rec, &job->method);
+	snprintf(r.rec.sample.id, sizeof r.rec.sample.id, "%s", job->sample_id);
+	r.rec.sample.amount = job->amount;
+	snprintf(r.rec.queued_at, sizeof r.rec.queued_at, "%s", job->queued_at);
+	now_text(r.rec.started_at);
+	snprintf(r.rec.state, sizeof r.rec.state, "running");
+
+	if (!s->bur_open || !s->probe_open) {
+		fail_early(&r, "offline", "the station's devices are not answering");
+		return;
+	}
+	if (!prepare_params(&r, &p, msg, sizeof msg)) {
+		fail_early(&r, "no_calibration", msg);
+		return;
+	}
+	r.e = engine_new(&job->method, &p);
+	if (!r.e) {
+		fail_early(&r, "internal", "out of memory");
+		return;
+	}
+	text = record_text(&r);
+	store_run_update(s->store, job->run_id, "running", engine_phase(r.e), text);
+	free(text);
+	log_info("station %s run %lld: started, method %s revision %ld", s->name,
+	         (long long)job->run_id, job->method.id, job->method.revision);
+
+	r.t0 = station_mono_s();
+	act = engine_feed(r.e, &(engine_event_t){.kind = ENGINE_EV_START, .t_s = 0});
+	while (act.kind != ENGINE_ACT_STOP) {
+		publish(&r);
+		if (act.new_point >= 0 && store_new_points(&r)) {
+			act = feed_fault(
+			    &r, t_run(&r), "storage",
+			    "could not store a point; stopping before the next addition");
+			continue;
+		}
+		set_stirrer(&r, act.stir_on);
+		if (station_interrupted(s, job->run_id)) {
+			station_halt_burette(s, "run interrupted");
+			r.interrupted = true;
+			act = engine_feed(
+			    r.e, &(engine_event_t){.kind = ENGINE_EV_ABORT, .t_s = t_run(&r)});
+			continue;
+		}
+		switch (act.kind) {
+		case ENGINE_ACT_STIR:
+		case ENGINE_ACT_WAIT:
+		case ENGINE_ACT_READ:
+			if (station_wait_until(s, r.t0 + act.until_t_s, job->run_id))
+				continue; /* handled at the top of the loop */
+			note_lateness(s, station_mono_s() - (r.t0 + act.until_t_s));
+			if (act.kind == ENGINE_ACT_READ)
+				act = do_read(&r);
+			else
+				act = engine_feed(r.e, &(engine_event_t){.kind = ENGINE_EV_TICK,
+				                                         .t_s = t_run(&r)});
+			break;
+		case ENGINE_ACT_DOSE:
+			act = do_dose(&r, act.dose_ml);
+			break;
+		case ENGINE_ACT_REFILL:
+			act = do_refill(&r);
+			break;
+		case ENGINE_ACT_STOP:
+			break;
+		}
+	}
+	if (act.new_point >= 0)
+		store_new_points(&r);
+	finish(&r);
+	engine_free(r.e);
+}

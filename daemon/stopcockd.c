@@ -1,0 +1,406 @@
+/* stopcockd: the daemon. Config, stations, storage, HTTP; see docs/config.md.
+ *
+ * Start-up order matters for safety: every burette is halted before anything
+ * else, then runs a dead daemon left `running` become `interrupted` (never
+ * resumed), then station threads and the HTTP server start. SIGTERM/SIGINT
+ * halt every burette (station_stop), finish writing, and exit 0; SIGHUP
+ * reloads the method files.
+ */
+#include <dirent.h>
+#include <errno.h>
+#include <jansson.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+
+#include "calib.h"
+#include "config.h"
+#include "http.h"
+#include "log.h"
+#include "method.h"
+#include "notify.h"
+#include "station.h"
+#include "store.h"
+
+#define READY_WAIT_S 15.0 /* how long start-up waits for devices to answer */
+
+typedef struct opts {
+	const char *config;
+	const char *listen;
+	const char *state_dir;
+	bool check;
+	bool verbose;
+} opts_t;
+
+static void usage(FILE *f)
+{
+	fprintf(f, "usage: stopcockd [-c FILE] [--listen ADDR:PORT] [--state-dir DIR] [-v]\n"
+	           "       stopcockd --check-config [-c FILE]\n"
+	           "default FILE: /etc/stopcock/stopcockd.yaml\n");
+}
+
+static int parse_args(int argc, char **argv, opts_t *o)
+{
+	o->config = "/etc/stopcock/stopcockd.yaml";
+	for (int i = 1; i < argc; i++) {
+		const char *a = argv[i];
+		bool has_next = i + 1 < argc;
+		if ((!strcmp(a, "-c") || !strcmp(a, "--config")) && has_next)
+			o->config = argv[++i];
+		else if (!strcmp(a, "--listen") && has_next)
+			o->listen = argv[++i];
+		else if (!strcmp(a, "--state-dir") && has_next)
+			o->state_dir = argv[++i];
+		else if (!strcmp(a, "--check-config"))
+			o->check = true;
+		else if (!strcmp(a, "-v") || !strcmp(a, "--verbose"))
+			o->verbose = true;
+		else if (!strcmp(a, "--version")) {
+			printf("stopcockd %s\n", STOPCOCK_VERSION);
+			exit(0);
+		} else if (!strcmp(a, "-h") || !strcmp(a, "--help")) {
+			usage(stdout);
+			exit(0);
+		} else {
+			fprintf(stderr, "stopcockd: unknown or incomplete option '%s'\n", a);
+			usage(stderr);
+			return -1;
+		}
+	}
+	return 0;
+}
+
+static int name_cmp(const void *a, const void *b)
+{
+	return strcmp(*(char *const *)a, *(char *const *)b);
+}
+
+static char *read_file(const char *path, size_t *len, char *err, size_t cap)
+{
+	FILE *f = fopen(path, "rb");
+	char *buf;
+	size_t n;
+
+	if (!f) {
+		snprintf(err, cap, "%s", strerror(errno));
+		return NULL;
+	}
+	buf = malloc(YT_MAX_BYTES + 1);
+	if (!buf) {
+		fclose(f);
+		snprintf(err, cap, "out of memory");
+		return NULL;
+	}
+	n = fread(buf, 1, YT_MAX_BYTES + 1, f);
+	fclose(f);
+	if (n > YT_MAX_BYTES) {
+		free(buf);
+		snprintf(err, cap, "larger than %d bytes", YT_MAX_BYTES);
+		return NULL;
+	}
+	buf[n] = '\0';
+	*len = n;
+	return buf;
+}
+
+/* Validate every *.yaml in methods_dir; with a store, keep each good one as a
+ * revision. Errors go to d (check) or the log. Returns the number of bad files. */
+static int load_methods_dir(const char *dir, const method_limits_t *lim, store_t *store,
+                            diag_list_t *d)
+{
+	DIR *dp = opendir(dir);
+	struct dirent *de;
+	char **names = NULL;
+	size_t n = 0, cap = 0;
+	int bad = 0;
+
+	if (!dp) {
+		diag_add(d, dir, 0, 0, "cannot read methods_dir: %s", strerror(errno));
+		return 1;
+	}
+	while ((de = readdir(dp))) {
+		size_t l = strlen(de->d_name);
+		if (de->d_name[0] == '.' || l < 6 || strcmp(de->d_name + l - 5, ".yaml"))
+			continue;
+		if (n == cap) {
+			char **nn = realloc(names, (cap = cap ? cap * 2 : 16) * sizeof *nn);
+			if (!nn)
+				break;
+			names = nn;
+		}
+		names[n++] = strdup(de->d_name);
+	}
+	closedir(dp);
+	if (n)
+		qsort(names, n, sizeof *names, name_cmp);
+	for (size_t i = 0; i < n; i++) {
+		char path[CFG_PATH_MAX + 256], err[256];
+		size_t len = 0;
+		char *text;
+		method_t *m = malloc(sizeof *m);
+		snprintf(path, sizeof path, "%s/%s", dir, names[i] ? names[i] : "");
+		text = m && names[i] ? read_file(path, &len, err, sizeof err) : NULL;
+		if (!text) {
+			diag_add(d, path, 0, 0, "cannot read: %s", m ? err : "out of memory");
+			bad++;
+		} else if (method_parse(path, text, len, lim, m, d)) {
+			bad++;
+		} else if (store) {
+			long stored = 0;
+			store_status_t st = store_method_put(store, m->id, m->revision, m->sha256,
+			                                     text, len, "file", &stored);
+			if (st == STORE_OK)
+				log_info("method %s revision %ld loaded from %s", m->id,
+				         m->revision, path);
+			else if (st == STORE_CONFLICT)
+				log_warn("%s: revision %ld is not above the stored revision %ld; "
+				         "kept the stored one (raise revision: to change it)",
+				         path, m->revision, stored);
+			else if (st != STORE_UNCHANGED)
+				log_err("%s: could not store the method", path);
+		}
+		free(text);
+		free(m);
+		free(names[i]);
+	}
+	free(names);
+	return bad;
+}
+
+static void log_diags(const diag_list_t *d)
+{
+	for (size_t i = 0; i < d->n; i++)
+		log_err("%s:%d:%d: %s", d->v[i].file, d->v[i].line, d->v[i].col, d->v[i].msg);
+}
+
+/* Stations answered once (or READY_WAIT_S passed). */
+static void wait_for_stations(station_t **st, int n)
+{
+	struct timespec start, now;
+	clock_gettime(CLOCK_MONOTONIC, &start);
+	for (;;) {
+		int offline = 0;
+		const char *name = NULL;
+		for (int i = 0; i < n; i++) {
+			station_snapshot_t s;
+			station_snapshot(st[i], &s);
+			if (!strcmp(s.state, "offline")) {
+				offline++;
+				name = station_name(st[i]);
+			}
+		}
+		if (!offline)
+			return;
+		clock_gettime(CLOCK_MONOTONIC, &now);
+		if ((double)(now.tv_sec - start.tv_sec) > READY_WAIT_S) {
+			log_warn("station %s: devices not answering; starting anyway, retrying",
+			         name);
+			return;
+		}
+		notify_status("waiting for station %s", name);
+		nanosleep(&(struct timespec){0, 100 * 1000 * 1000}, NULL);
+	}
+}
+
+static void set_status(station_t **st, int n)
+{
+	int running = 0;
+	for (int i = 0; i < n; i++) {
+		station_snapshot_t s;
+		station_snapshot(st[i], &s);
+		running += s.run_id != 0;
+	}
+	notify_status("%d station%s, %d running", n, n == 1 ? "" : "s", running);
+}
+
+int main(int argc, char **argv)
+{
+	opts_t o = {0};
+	static cfg_t cfg; /* large; static keeps it off the stack */
+	diag_list_t d = DIAG_LIST_INIT;
+	calib_config_t cal;
+	station_t *stations[CFG_MAX_STATIONS] = {0};
+	store_t *store = NULL;
+	static http_ctx_t ctx;
+	http_server_t *http = NULL;
+	method_limits_t lim;
+	sigset_t set;
+	char err[512];
+	int rc = 1, n = 0;
+	uint64_t wd_us;
+
+	sigemptyset(&set);
+	sigaddset(&set, SIGTERM);
+	sigaddset(&set, SIGINT);
+	sigaddset(&set, SIGHUP);
+	/* Blocked before any thread exists, so only sigwait sees them. */
+	pthread_sigmask(SIG_BLOCK, &set, NULL);
+	signal(SIGPIPE, SIG_IGN);
+	json_object_seed(0);
+
+	if (parse_args(argc, argv, &o))
+		return 2;
+	log_init("stopcockd", o.verbose);
+	if (cfg_load(o.config, &cfg, &d)) {
+		diag_print(&d, stderr);
+		diag_free(&d);
+		cfg_free(&cfg);
+		return 2;
+	}
+	if (o.listen &&
+	    cfg_parse_listen(o.listen, cfg.listen_addr, sizeof cfg.listen_addr, &cfg.listen_port)) {
+		fprintf(stderr, "stopcockd: --listen must be ADDR:PORT (got '%s')\n", o.listen);
+		cfg_free(&cfg);
+		return 2;
+	}
+	if (o.state_dir)
+		snprintf(cfg.database, sizeof cfg.database, "%s/stopcock.db", o.state_dir);
+	calib_config_parse(&cfg.doc, cfg.calibration, &cal, &d);
+	if (cfg.standardization) {
+		stdz_config_t sz;
+		stdz_config_parse(&cfg.doc, cfg.standardization, &sz, &d);
+	}
+	for (int i = 0; i < cfg.n_stations; i++) {
+		stations[i] = station_new(&cfg, &cfg.stations[i], &cal, &d);
+		if (stations[i])
+			n++;
+	}
+	ctx.cfg = &cfg;
+	ctx.stations = stations;
+	ctx.n_stations = n;
+	if (n == cfg.n_stations) {
+		http_method_limits(&ctx, NULL, &lim);
+		if (cfg.methods_dir[0])
+			load_methods_dir(cfg.methods_dir, &lim, NULL, &d);
+	}
+	if (cfg.token_file[0]) {
+		diag_list_t td = DIAG_LIST_INIT;
+		if (cfg_load_tokens(cfg.token_file, &ctx.tokens, &td) && o.check) {
+			for (size_t i = 0; i < td.n; i++)
+				diag_add(&d, td.v[i].file, td.v[i].line, td.v[i].col, "%s",
+				         td.v[i].msg);
+		} else if (td.n) {
+			log_diags(&td);
+			log_warn("no valid write tokens: every write request will get 401");
+		}
+		diag_free(&td);
+	}
+	if (d.n) {
+		diag_print(&d, stderr);
+		rc = 2;
+		goto out;
+	}
+	if (o.check) {
+		printf("%s: ok (%d station%s)\n", o.config, n, n == 1 ? "" : "s");
+		rc = 0;
+		goto out;
+	}
+
+	/* 1. Every burette halted, before anything else. */
+	for (int i = 0; i < n; i++)
+		if (station_halt_at_start(stations[i], err, sizeof err))
+			log_warn("station %s: could not halt the burette at start: %s (the "
+			         "station thread halts it as soon as it answers)",
+			         station_name(stations[i]), err);
+	/* 2. Storage; runs a dead daemon left behind become interrupted. */
+	if (o.state_dir)
+		mkdir(o.state_dir, 0750);
+	store = store_open(cfg.database, err, sizeof err);
+	if (!store) {
+		log_err("%s", err);
+		goto out;
+	}
+	{
+		char at[32];
+		int k;
+		store_time_rfc3339(store_now_unix_s(), at);
+		k = store_interrupt_stale(store, at);
+		if (k > 0)
+			log_notice("%d run%s left by the last daemon marked interrupted", k,
+			           k == 1 ? "" : "s");
+		else if (k < 0)
+			log_err("could not mark stale runs interrupted");
+	}
+	ctx.store = store;
+	if (cfg.methods_dir[0]) {
+		diag_list_t md = DIAG_LIST_INIT;
+		load_methods_dir(cfg.methods_dir, &lim, store, &md);
+		log_diags(&md);
+		diag_free(&md);
+	}
+	/* 3. Station threads, then HTTP. */
+	for (int i = 0; i < n; i++)
+		if (station_start(stations[i], store)) {
+			log_err("station %s: cannot start its thread", station_name(stations[i]));
+			goto out;
+		}
+	{
+		struct timespec ts;
+		clock_gettime(CLOCK_MONOTONIC, &ts);
+		ctx.started_mono_s = (double)ts.tv_sec + ts.tv_nsec / 1e9;
+	}
+	http = http_start(&ctx, err, sizeof err);
+	if (!http) {
+		log_err("http: %s", err);
+		goto out;
+	}
+	log_notice("listening on %s:%d, %d station%s, database %s", cfg.listen_addr,
+	           cfg.listen_port, n, n == 1 ? "" : "s", cfg.database);
+	wait_for_stations(stations, n);
+	notify_ready();
+	set_status(stations, n);
+
+	wd_us = notify_watchdog_interval_us();
+	for (;;) {
+		struct timespec to = {1, 0};
+		int sig;
+		if (wd_us) {
+			uint64_t q = wd_us / 4;
+			to.tv_sec = (time_t)(q / 1000000u);
+			to.tv_nsec = (long)(q % 1000000u) * 1000;
+		}
+		sig = sigtimedwait(&set, NULL, &to);
+		if (sig == SIGTERM || sig == SIGINT) {
+			log_notice("signal %d: stopping", sig);
+			break;
+		}
+		if (sig == SIGHUP) {
+			diag_list_t md = DIAG_LIST_INIT;
+			notify_reloading();
+			if (cfg.methods_dir[0])
+				load_methods_dir(cfg.methods_dir, &lim, store, &md);
+			log_diags(&md);
+			diag_free(&md);
+			log_notice("methods reloaded");
+			notify_ready();
+		}
+		if (wd_us) {
+			uint64_t beats[CFG_MAX_STATIONS];
+			for (int i = 0; i < n; i++) {
+				station_snapshot_t s;
+				station_snapshot(stations[i], &s);
+				beats[i] = s.heartbeat_us;
+			}
+			if (notify_heartbeats_fresh(beats, (size_t)n, notify_now_us(), wd_us / 2))
+				notify_watchdog();
+		}
+		set_status(stations, n);
+	}
+	notify_stopping();
+	rc = 0;
+out:
+	/* Stations first: each halts its burette and writes its run's end. */
+	for (int i = 0; i < cfg.n_stations; i++)
+		if (stations[i])
+			station_stop(stations[i]); /* no-op when not started */
+	http_stop(http);
+	for (int i = 0; i < cfg.n_stations; i++)
+		station_free(stations[i]);
+	store_close(store);
+	diag_free(&d);
+	cfg_free(&cfg);
+	return rc;
+}

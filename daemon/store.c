@@ -1,0 +1,686 @@
+/* store.c: see store.h. Write paths; read paths are in store_read.c. */
+#include "store.h"
+#include "store_priv.h"
+
+#include <math.h>
+#include <pthread.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+/* Each migration takes the schema from version i to i+1; never edit one that
+ * has shipped, append a new one. */
+static const char *const migrations[] = {
+    /* 0 -> 1 */
+    "CREATE TABLE methods ("
+    "  id TEXT NOT NULL, revision INTEGER NOT NULL, sha256 TEXT NOT NULL,"
+    "  text TEXT NOT NULL, source TEXT NOT NULL, stored_at TEXT NOT NULL,"
+    "  PRIMARY KEY (id, revision));"
+    "CREATE TABLE runs ("
+    "  id INTEGER PRIMARY KEY AUTOINCREMENT, station TEXT NOT NULL,"
+    "  method_id TEXT NOT NULL, method_revision INTEGER NOT NULL, method_sha256 TEXT NOT NULL,"
+    "  sample_id TEXT NOT NULL, amount REAL NOT NULL, unit TEXT NOT NULL, signal TEXT,"
+    "  state TEXT NOT NULL, phase TEXT, queued_at TEXT NOT NULL, started_at TEXT,"
+    "  ended_at TEXT, stop_reason TEXT, seq INTEGER UNIQUE, record TEXT);"
+    "CREATE INDEX runs_state ON runs(state);"
+    "CREATE TABLE points ("
+    "  run_id INTEGER NOT NULL REFERENCES runs(id), n INTEGER NOT NULL, t_s REAL NOT NULL,"
+    "  volume_ml REAL NOT NULL, mv REAL NOT NULL, ph REAL, temperature_c REAL,"
+    "  settled INTEGER NOT NULL, dpdv REAL, PRIMARY KEY (run_id, n));"
+    "CREATE TABLE endpoints ("
+    "  run_id INTEGER NOT NULL REFERENCES runs(id), n INTEGER NOT NULL,"
+    "  volume_ml REAL, u_volume_ml REAL, ph REAL, mv REAL, half_ph REAL, how TEXT,"
+    "  PRIMARY KEY (run_id, n));"
+    "CREATE TABLE results ("
+    "  run_id INTEGER NOT NULL REFERENCES runs(id), name TEXT NOT NULL, value REAL,"
+    "  unit TEXT, accept TEXT, PRIMARY KEY (run_id, name));"
+    "CREATE TABLE events ("
+    "  id INTEGER PRIMARY KEY AUTOINCREMENT, at TEXT NOT NULL, station TEXT,"
+    "  run_id INTEGER, kind TEXT NOT NULL, code TEXT, message TEXT);"
+    "CREATE TABLE calibrations ("
+    "  id INTEGER PRIMARY KEY AUTOINCREMENT, station TEXT NOT NULL, state TEXT NOT NULL,"
+    "  at TEXT, expires_at TEXT, record TEXT NOT NULL);"
+    "CREATE TABLE titrants ("
+    "  name TEXT PRIMARY KEY, molarity REAL NOT NULL, titer REAL NOT NULL,"
+    "  at TEXT NOT NULL, run_id INTEGER);"
+    "CREATE TABLE blanks ("
+    "  method_id TEXT PRIMARY KEY, volume_ml REAL NOT NULL, at TEXT NOT NULL,"
+    "  run_id INTEGER);",
+};
+
+#define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
+
+double store_now_unix_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_REALTIME, &ts);
+	return (double)ts.tv_sec + ts.tv_nsec / 1e9;
+}
+
+void store_time_rfc3339(double unix_s, char out[32])
+{
+	time_t t = (time_t)floor(unix_s);
+	int ms = (int)((unix_s - (double)t) * 1000.0);
+	struct tm tm;
+
+	if (ms > 999)
+		ms = 999;
+	gmtime_r(&t, &tm);
+	/* strftime keeps the compiler from fearing a 6-digit year. */
+	char date[24];
+	strftime(date, sizeof date, "%Y-%m-%dT%H:%M:%S", &tm);
+	snprintf(out, 32, "%.19s.%03uZ", date, (unsigned)ms % 1000u);
+}
+
+int store_setup_conn(sqlite3 *db)
+{
+	sqlite3_busy_timeout(db, 5000);
+	return sqlite3_exec(db, "PRAGMA synchronous=FULL; PRAGMA foreign_keys=ON;", NULL, NULL,
+	                    NULL) == SQLITE_OK
+	           ? 0
+	           : -1;
+}
+
+static int user_version(sqlite3 *db)
+{
+	sqlite3_stmt *st;
+	int v = -1;
+
+	if (sqlite3_prepare_v2(db, "SELECT version FROM schema_version", -1, &st, NULL) !=
+	    SQLITE_OK)
+		return -1;
+	if (sqlite3_step(st) == SQLITE_ROW)
+		v = sqlite3_column_int(st, 0);
+	sqlite3_finalize(st);
+	return v;
+}
+
+static int migrate(sqlite3 *db, char *err, size_t cap)
+{
+	int v;
+	char *msg = NULL;
+
+	if (sqlite3_exec(db,
+	                 "BEGIN IMMEDIATE;"
+	                 "CREATE TABLE IF NOT EXISTS schema_version (version INTEGER NOT NULL);"
+	                 "INSERT INTO schema_version SELECT 0 WHERE NOT EXISTS "
+	                 "(SELECT 1 FROM schema_version);",
+	                 NULL, NULL, &msg) != SQLITE_OK)
+		goto fail;
+	v = user_version(db);
+	if (v > N_MIGRATIONS) {
+		snprintf(err, cap, "database schema version %d is newer than this daemon's %d", v,
+		         N_MIGRATIONS);
+		sqlite3_exec(db, "ROLLBACK", NULL, NULL, NULL);
+		return -1;
+	}
+	for (; v >= 0 && v < N_MIGRATIONS; v++) {
+		char sql[64];
+		if (sqlite3_exec(db, migrations[v], NULL, NULL, &msg) != SQLITE_OK)
+			goto fail;
+		snprintf(sql, sizeof sql, "UPDATE schema_version SET version=%d", v + 1);
+		if (sqlite3_exec(db, sql, NULL, NULL, &msg) != SQLITE_OK)
+			goto fail;
+	}
+	if (sqlite3_exec(db, "COMMIT", NULL, NULL, &msg) != SQLITE_OK)
+		goto fail;
+	return 0;
+fail:
+	snprintf(err, cap, "database schema: %s", msg ? msg : sqlite3_errmsg(db));
+	sqlite3_free(msg);
+	sqlite3_exec(db, "ROLLBACK", NULL, NULL, NULL);
+	return -1;
+}
+
+store_t *store_open(const char *path, char *err, size_t err_cap)
+{
+	store_t *s = calloc(1, sizeof *s);
+	char *msg = NULL;
+
+	if (!s) {
+		snprintf(err, err_cap, "out of memory");
+		return NULL;
+	}
+	snprintf(s->path, sizeof s->path, "%s", path);
+	pthread_mutex_init(&s->wlock, NULL);
+	pthread_mutex_init(&s->rlock, NULL);
+	if (sqlite3_open_v2(path, &s->w, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE, NULL) !=
+	    SQLITE_OK) {
+		snprintf(err, err_cap, "%s: cannot open the database: %s", path,
+		         s->w ? sqlite3_errmsg(s->w) : "out of memory");
+		store_close(s);
+		return NULL;
+	}
+	/* WAL persists in the file; readers then never block the writer. */
+	if (sqlite3_exec(s->w, "PRAGMA journal_mode=WAL;", NULL, NULL, &msg) != SQLITE_OK ||
+	    store_setup_conn(s->w)) {
+		snprintf(err, err_cap, "%s: %s", path, msg ? msg : sqlite3_errmsg(s->w));
+		sqlite3_free(msg);
+		store_close(s);
+		return NULL;
+	}
+	if (migrate(s->w, err, err_cap)) {
+		store_close(s);
+		return NULL;
+	}
+	return s;
+}
+
+void store_close(store_t *s)
+{
+	if (!s)
+		return;
+	for (int i = 0; i < STORE_READERS; i++)
+		if (s->r[i])
+			sqlite3_close(s->r[i]);
+	if (s->w)
+		sqlite3_close(s->w);
+	pthread_mutex_destroy(&s->wlock);
+	pthread_mutex_destroy(&s->rlock);
+	free(s);
+}
+
+int store_schema_version(store_t *s)
+{
+	int v;
+	pthread_mutex_lock(&s->wlock);
+	v = user_version(s->w);
+	pthread_mutex_unlock(&s->wlock);
+	return v;
+}
+
+/* ---- write helpers: callers hold wlock ---- */
+
+static int begin(store_t *s)
+{
+	return sqlite3_exec(s->w, "BEGIN IMMEDIATE", NULL, NULL, NULL) == SQLITE_OK ? 0 : -1;
+}
+
+static int commit(store_t *s)
+{
+	if (sqlite3_exec(s->w, "COMMIT", NULL, NULL, NULL) == SQLITE_OK)
+		return 0;
+	sqlite3_exec(s->w, "ROLLBACK", NULL, NULL, NULL);
+	return -1;
+}
+
+static void rollback(store_t *s)
+{
+	sqlite3_exec(s->w, "ROLLBACK", NULL, NULL, NULL);
+}
+
+static void bind_text(sqlite3_stmt *st, int i, const char *v)
+{
+	if (v)
+		sqlite3_bind_text(st, i, v, -1, SQLITE_TRANSIENT);
+	else
+		sqlite3_bind_null(st, i);
+}
+
+static void bind_opt_double(sqlite3_stmt *st, int i, bool have, double v)
+{
+	if (have && isfinite(v))
+		sqlite3_bind_double(st, i, v);
+	else
+		sqlite3_bind_null(st, i);
+}
+
+/* Run one statement with bound text/double args described by fmt:
+ * 't' text, 'd' double, 'i' int64, 'n' null. Returns sqlite step result. */
+static int exec_w(store_t *s, const char *sql, const char *fmt, ...)
+{
+	sqlite3_stmt *st;
+	va_list ap;
+	int rc;
+
+	if (sqlite3_prepare_v2(s->w, sql, -1, &st, NULL) != SQLITE_OK)
+		return SQLITE_ERROR;
+	va_start(ap, fmt);
+	for (int i = 0; fmt[i]; i++) {
+		switch (fmt[i]) {
+		case 't':
+			bind_text(st, i + 1, va_arg(ap, const char *));
+			break;
+		case 'd':
+			sqlite3_bind_double(st, i + 1, va_arg(ap, double));
+			break;
+		case 'i':
+			sqlite3_bind_int64(st, i + 1, va_arg(ap, int64_t));
+			break;
+		default:
+			sqlite3_bind_null(st, i + 1);
+		}
+	}
+	va_end(ap);
+	rc = sqlite3_step(st);
+	sqlite3_finalize(st);
+	return rc;
+}
+
+static int64_t next_seq(store_t *s)
+{
+	sqlite3_stmt *st;
+	int64_t seq = -1;
+
+	if (sqlite3_prepare_v2(s->w, "SELECT COALESCE(MAX(seq),0)+1 FROM runs", -1, &st, NULL) !=
+	    SQLITE_OK)
+		return -1;
+	if (sqlite3_step(st) == SQLITE_ROW)
+		seq = sqlite3_column_int64(st, 0);
+	sqlite3_finalize(st);
+	return seq;
+}
+
+/* Patch a stored record for a run that will never continue. */
+static char *patch_record(const char *text, const char *state, const char *at, const char *why)
+{
+	json_t *j = text ? json_loads(text, 0, NULL) : NULL;
+	char *out;
+
+	if (!j || !json_is_object(j)) {
+		json_decref(j);
+		return NULL;
+	}
+	json_object_set_new(j, "state", json_string(state));
+	json_object_set_new(j, "phase", json_null());
+	json_object_set_new(j, "ended_at", json_string(at));
+	json_object_set_new(j, "stop_reason", json_string(why));
+	out = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
+	json_decref(j);
+	return out;
+}
+
+int store_interrupt_stale(store_t *s, const char *at)
+{
+	sqlite3_stmt *st = NULL;
+	int n = 0;
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto fail;
+	/* Oldest first, so seq follows the order the runs were queued. */
+	if (sqlite3_prepare_v2(s->w,
+	                       "SELECT id, state, record FROM runs WHERE state IN "
+	                       "('running','queued') ORDER BY id",
+	                       -1, &st, NULL) != SQLITE_OK)
+		goto fail_tx;
+	while (sqlite3_step(st) == SQLITE_ROW) {
+		int64_t id = sqlite3_column_int64(st, 0);
+		const char *was = (const char *)sqlite3_column_text(st, 1);
+		const char *why = was && !strcmp(was, "running")
+		                      ? "interrupted: the daemon stopped while the run was "
+		                        "running"
+		                      : "interrupted: the daemon stopped before the run started";
+		char *rec =
+		    patch_record((const char *)sqlite3_column_text(st, 2), "interrupted", at, why);
+		int64_t seq = next_seq(s);
+		int rc = exec_w(s,
+		                "UPDATE runs SET state='interrupted', phase=NULL, ended_at=?, "
+		                "stop_reason=?, seq=?, record=COALESCE(?, record) WHERE id=?",
+		                "ttiti", at, why, seq, rec, id);
+		free(rec);
+		if (seq < 0 || rc != SQLITE_DONE)
+			goto fail_tx;
+		n++;
+	}
+	sqlite3_finalize(st);
+	st = NULL;
+	if (commit(s))
+		goto fail;
+	pthread_mutex_unlock(&s->wlock);
+	return n;
+fail_tx:
+	sqlite3_finalize(st);
+	rollback(s);
+fail:
+	pthread_mutex_unlock(&s->wlock);
+	return -1;
+}
+
+/* ---- methods ---- */
+
+store_status_t store_method_put(store_t *s, const char *id, long revision, const char *sha256,
+                                const char *text, size_t len, const char *source, long *stored_rev)
+{
+	sqlite3_stmt *st = NULL;
+	store_status_t ret = STORE_ERR;
+	char at[32];
+	long cur = 0;
+	bool same = false;
+
+	store_time_rfc3339(store_now_unix_s(), at);
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out_unlock;
+	if (sqlite3_prepare_v2(s->w,
+	                       "SELECT revision, sha256 FROM methods WHERE id=? "
+	                       "ORDER BY revision DESC LIMIT 1",
+	                       -1, &st, NULL) != SQLITE_OK)
+		goto out_tx;
+	bind_text(st, 1, id);
+	if (sqlite3_step(st) == SQLITE_ROW) {
+		const char *h = (const char *)sqlite3_column_text(st, 1);
+		cur = sqlite3_column_int(st, 0);
+		same = h && !strcmp(h, sha256);
+	}
+	sqlite3_finalize(st);
+	st = NULL;
+	if (stored_rev)
+		*stored_rev = cur;
+	if (cur && revision <= cur) {
+		ret = (revision == cur && same) ? STORE_UNCHANGED : STORE_CONFLICT;
+		goto out_tx;
+	}
+	if (sqlite3_prepare_v2(
+	        s->w,
+	        "INSERT INTO methods (id, revision, sha256, text, source, stored_at) "
+	        "VALUES (?,?,?,?,?,?)",
+	        -1, &st, NULL) != SQLITE_OK)
+		goto out_tx;
+	bind_text(st, 1, id);
+	sqlite3_bind_int64(st, 2, revision);
+	bind_text(st, 3, sha256);
+	sqlite3_bind_text(st, 4, text, (int)len, SQLITE_TRANSIENT);
+	bind_text(st, 5, source);
+	bind_text(st, 6, at);
+	if (sqlite3_step(st) != SQLITE_DONE)
+		goto out_tx;
+	sqlite3_finalize(st);
+	st = NULL;
+	if (commit(s) == 0) {
+		ret = STORE_OK;
+		if (stored_rev)
+			*stored_rev = revision;
+	}
+	goto out_unlock;
+out_tx:
+	sqlite3_finalize(st);
+	rollback(s);
+out_unlock:
+	pthread_mutex_unlock(&s->wlock);
+	return ret;
+}
+
+/* ---- runs ---- */
+
+int64_t store_run_create(store_t *s, const store_run_new_t *r)
+{
+	int64_t id = -1;
+
+	pthread_mutex_lock(&s->wlock);
+	if (exec_w(
+	        s,
+	        "INSERT INTO runs (station, method_id, method_revision, method_sha256, sample_id,"
+	        " amount, unit, signal, state, queued_at, record)"
+	        " VALUES (?,?,?,?,?,?,?,?,'queued',?,?)",
+	        "ttittdtttt", r->station, r->method_id, (int64_t)r->method_revision,
+	        r->method_sha256, r->sample_id, r->amount, r->unit, r->signal, r->queued_at,
+	        r->record_json) == SQLITE_DONE)
+		id = sqlite3_last_insert_rowid(s->w);
+	pthread_mutex_unlock(&s->wlock);
+	return id;
+}
+
+/* Pull started_at/ended_at/stop_reason out of a record for the columns. */
+static void record_fields(const char *record_json, json_t **j, const char **started,
+                          const char **ended, const char **reason)
+{
+	*j = record_json ? json_loads(record_json, 0, NULL) : NULL;
+	*started = json_string_value(json_object_get(*j, "started_at"));
+	*ended = json_string_value(json_object_get(*j, "ended_at"));
+	*reason = json_string_value(json_object_get(*j, "stop_reason"));
+}
+
+store_status_t store_run_update(store_t *s, int64_t id, const char *state, const char *phase,
+                                const char *record_json)
+{
+	json_t *j;
+	const char *started, *ended, *reason;
+	int rc;
+
+	record_fields(record_json, &j, &started, &ended, &reason);
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s,
+	            "UPDATE runs SET state=COALESCE(?,state), phase=?, "
+	            "started_at=COALESCE(?,started_at), record=COALESCE(?,record) "
+	            "WHERE id=? AND seq IS NULL",
+	            "tttti", state, phase, started, record_json, id);
+	pthread_mutex_unlock(&s->wlock);
+	json_decref(j);
+	if (rc != SQLITE_DONE)
+		return STORE_ERR;
+	return STORE_OK;
+}
+
+store_status_t store_point_add(store_t *s, int64_t run_id, int n, const store_point_t *p,
+                               const char *record_json)
+{
+	sqlite3_stmt *st = NULL;
+	store_status_t ret = STORE_ERR;
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (sqlite3_prepare_v2(s->w,
+	                       "INSERT OR REPLACE INTO points (run_id, n, t_s, volume_ml, mv, ph,"
+	                       " temperature_c, settled, dpdv) VALUES (?,?,?,?,?,?,?,?,?)",
+	                       -1, &st, NULL) != SQLITE_OK)
+		goto out_tx;
+	sqlite3_bind_int64(st, 1, run_id);
+	sqlite3_bind_int(st, 2, n);
+	sqlite3_bind_double(st, 3, p->t_s);
+	sqlite3_bind_double(st, 4, p->volume_ml);
+	sqlite3_bind_double(st, 5, isfinite(p->mv) ? p->mv : 0.0);
+	bind_opt_double(st, 6, p->has_ph, p->ph);
+	bind_opt_double(st, 7, p->has_temperature, p->temperature_c);
+	sqlite3_bind_int(st, 8, p->settled);
+	bind_opt_double(st, 9, p->has_dpdv, p->dpdv);
+	if (sqlite3_step(st) != SQLITE_DONE)
+		goto out_tx;
+	sqlite3_finalize(st);
+	st = NULL;
+	if (record_json && exec_w(s, "UPDATE runs SET record=? WHERE id=? AND seq IS NULL", "ti",
+	                          record_json, run_id) != SQLITE_DONE)
+		goto out_tx;
+	if (commit(s) == 0)
+		ret = STORE_OK;
+	goto out;
+out_tx:
+	sqlite3_finalize(st);
+	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	return ret;
+}
+
+static double jnum(const json_t *o, const char *k, bool *have)
+{
+	const json_t *v = json_object_get(o, k);
+	*have = json_is_number(v);
+	return *have ? json_number_value(v) : 0.0;
+}
+
+/* Endpoint and result rows, for queries outside the daemon (sqlite3 CLI). */
+static int write_outcome_rows(store_t *s, int64_t id, json_t *rec)
+{
+	json_t *v;
+	size_t i;
+
+	if (exec_w(s, "DELETE FROM endpoints WHERE run_id=?", "i", id) != SQLITE_DONE ||
+	    exec_w(s, "DELETE FROM results WHERE run_id=?", "i", id) != SQLITE_DONE)
+		return -1;
+	json_array_foreach(json_object_get(rec, "endpoints"), i, v)
+	{
+		sqlite3_stmt *st;
+		bool h;
+		double x;
+		if (sqlite3_prepare_v2(
+		        s->w,
+		        "INSERT OR REPLACE INTO endpoints (run_id, n, volume_ml, "
+		        "u_volume_ml, ph, mv, half_ph, how) VALUES (?,?,?,?,?,?,?,?)",
+		        -1, &st, NULL) != SQLITE_OK)
+			return -1;
+		sqlite3_bind_int64(st, 1, id);
+		sqlite3_bind_int64(st, 2, json_integer_value(json_object_get(v, "n")));
+		x = jnum(v, "volume_ml", &h);
+		bind_opt_double(st, 3, h, x);
+		x = jnum(v, "u_volume_ml", &h);
+		bind_opt_double(st, 4, h, x);
+		x = jnum(v, "ph", &h);
+		bind_opt_double(st, 5, h, x);
+		x = jnum(v, "mv", &h);
+		bind_opt_double(st, 6, h, x);
+		x = jnum(v, "half_ph", &h);
+		bind_opt_double(st, 7, h, x);
+		bind_text(st, 8, json_string_value(json_object_get(v, "how")));
+		if (sqlite3_step(st) != SQLITE_DONE) {
+			sqlite3_finalize(st);
+			return -1;
+		}
+		sqlite3_finalize(st);
+	}
+	json_array_foreach(json_object_get(rec, "results"), i, v)
+	{
+		sqlite3_stmt *st;
+		bool h;
+		double x;
+		const char *name = json_string_value(json_object_get(v, "name"));
+		if (!name)
+			continue;
+		if (sqlite3_prepare_v2(s->w,
+		                       "INSERT OR REPLACE INTO results (run_id, name, value, unit, "
+		                       "accept) VALUES (?,?,?,?,?)",
+		                       -1, &st, NULL) != SQLITE_OK)
+			return -1;
+		sqlite3_bind_int64(st, 1, id);
+		bind_text(st, 2, name);
+		x = jnum(v, "value", &h);
+		bind_opt_double(st, 3, h, x);
+		bind_text(st, 4, json_string_value(json_object_get(v, "unit")));
+		bind_text(st, 5, json_string_value(json_object_get(v, "accept")));
+		if (sqlite3_step(st) != SQLITE_DONE) {
+			sqlite3_finalize(st);
+			return -1;
+		}
+		sqlite3_finalize(st);
+	}
+	return 0;
+}
+
+store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const char *record_json,
+                                int64_t *seq_out)
+{
+	json_t *j;
+	const char *started, *ended, *reason;
+	store_status_t ret = STORE_ERR;
+	sqlite3_stmt *st = NULL;
+	int64_t seq;
+	bool final = false, found = false;
+
+	record_fields(record_json, &j, &started, &ended, &reason);
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (sqlite3_prepare_v2(s->w, "SELECT seq IS NOT NULL FROM runs WHERE id=?", -1, &st,
+	                       NULL) != SQLITE_OK)
+		goto out_tx;
+	sqlite3_bind_int64(st, 1, id);
+	if (sqlite3_step(st) == SQLITE_ROW) {
+		found = true;
+		final = sqlite3_column_int(st, 0) != 0;
+	}
+	sqlite3_finalize(st);
+	if (!found || final) {
+		ret = found ? STORE_CONFLICT : STORE_NOT_FOUND;
+		goto out_tx;
+	}
+	seq = next_seq(s);
+	if (seq < 0 ||
+	    exec_w(s,
+	           "UPDATE runs SET state=?, phase=NULL, started_at=COALESCE(?,"
+	           "started_at), ended_at=?, stop_reason=?, seq=?, "
+	           "record=COALESCE(?,record) WHERE id=?",
+	           "ttttiti", state, started, ended, reason, seq, record_json, id) != SQLITE_DONE)
+		goto out_tx;
+	if (j && write_outcome_rows(s, id, j))
+		goto out_tx;
+	if (commit(s) == 0) {
+		ret = STORE_OK;
+		if (seq_out)
+			*seq_out = seq;
+	}
+	goto out;
+out_tx:
+	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	json_decref(j);
+	return ret;
+}
+
+store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
+                               const char *kind, const char *code, const char *message)
+{
+	int rc;
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s,
+	            "INSERT INTO events (at, station, run_id, kind, code, message) "
+	            "VALUES (?,?,NULLIF(?,0),?,?,?)",
+	            "ttittt", at, station, run_id, kind, code, message);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+/* ---- titrants, blanks, calibrations (writes) ---- */
+
+store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
+                                 const char *at, int64_t run_id)
+{
+	int rc;
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s,
+	            "INSERT OR REPLACE INTO titrants (name, molarity, titer, at, run_id) "
+	            "VALUES (?,?,?,?,NULLIF(?,0))",
+	            "tddti", name, molarity, titer, at, run_id);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+store_status_t store_blank_set(store_t *s, const char *method_id, double blank_ml, const char *at,
+                               int64_t run_id)
+{
+	int rc;
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s,
+	            "INSERT OR REPLACE INTO blanks (method_id, volume_ml, at, run_id) "
+	            "VALUES (?,?,?,NULLIF(?,0))",
+	            "tdti", method_id, blank_ml, at, run_id);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+int64_t store_calib_create(store_t *s, const char *station, const char *record_json)
+{
+	int64_t id = -1;
+	pthread_mutex_lock(&s->wlock);
+	if (exec_w(s, "INSERT INTO calibrations (station, state, record) VALUES (?,'waiting',?)",
+	           "tt", station, record_json ? record_json : "{}") == SQLITE_DONE)
+		id = sqlite3_last_insert_rowid(s->w);
+	pthread_mutex_unlock(&s->wlock);
+	return id;
+}
+
+store_status_t store_calib_update(store_t *s, int64_t id, const char *state, const char *at,
+                                  const char *expires_at, const char *record_json)
+{
+	int rc;
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s,
+	            "UPDATE calibrations SET state=?, at=COALESCE(?,at), "
+	            "expires_at=COALESCE(?,expires_at), record=COALESCE(?,record) WHERE id=?",
+	            "tttti", state, at, expires_at, record_json, id);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}

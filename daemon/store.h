@@ -1,0 +1,159 @@
+/* store.h: durable storage in one SQLite database (WAL, synchronous=FULL).
+ *
+ * Tables (schema in store.c, version in schema_version, migrations applied in
+ * order at open): methods (every revision's text, sha256), runs (columns for
+ * queries plus the run record as JSON), points, endpoints, results, faults,
+ * calibrations, titrants (titer), blanks, events.
+ *
+ * Writers: one connection, used under a mutex by station threads and HTTP
+ * handlers, each write one BEGIN IMMEDIATE transaction committed before the
+ * call returns (a point is on disk before the next addition is sent).
+ * Readers: a small pool of read-only connections for HTTP threads, so reads
+ * never wait on the writer (WAL).
+ *
+ * Result feed: a run gets `seq` in the same transaction that puts it into a
+ * final state; seq rises by one each time and is never reused, so a poller
+ * asking `after=SEQ` sees every finished run exactly once, across restarts.
+ *
+ * Read calls return new jansson references (caller decrefs) or NULL when the
+ * thing does not exist; *db_err is set when the database failed instead.
+ */
+#ifndef STOPCOCK_STORE_H
+#define STOPCOCK_STORE_H
+
+#include <jansson.h>
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+
+#define STORE_SCHEMA_VERSION 1
+
+typedef struct store store_t;
+
+/* Open (create) the database, set WAL/FULL/busy_timeout/foreign_keys, apply
+ * migrations. Returns NULL with a message in err. */
+store_t *store_open(const char *path, char *err, size_t err_cap);
+void store_close(store_t *s);
+int store_schema_version(store_t *s);
+
+/* RFC 3339 UTC with milliseconds, e.g. "2026-12-01T21:46:40.123Z". */
+void store_time_rfc3339(double unix_s, char out[32]);
+double store_now_unix_s(void);
+
+/* ---- start-up ---- */
+
+/* Runs left `running` or `queued` by a daemon that died become `interrupted`
+ * (points kept, seq assigned, stop_reason says why). Returns how many, -1 on
+ * error. */
+int store_interrupt_stale(store_t *s, const char *at);
+
+/* ---- methods ---- */
+
+typedef enum {
+	STORE_OK = 0,
+	STORE_ERR = -1, /* database error */
+	STORE_NOT_FOUND = 1,
+	STORE_CONFLICT = 2,  /* revision not above the stored one / wrong state */
+	STORE_UNCHANGED = 3, /* the same revision with the same bytes is already stored */
+} store_status_t;
+
+/* Store a new revision. STORE_CONFLICT (with *stored_rev) when revision is
+ * not above the stored one, except STORE_UNCHANGED for identical text at the
+ * stored revision (a reload of an unchanged file). `source` is "file" or "api". */
+store_status_t store_method_put(store_t *s, const char *id, long revision, const char *sha256,
+                                const char *text, size_t len, const char *source, long *stored_rev);
+
+/* Latest revision's text (malloc'd), revision and sha256. */
+store_status_t store_method_latest(store_t *s, const char *id, char **text, size_t *len,
+                                   long *revision, char sha256[65]);
+json_t *store_method_json(store_t *s, const char *id, bool *db_err); /* latest, with text */
+json_t *store_methods_list(store_t *s, bool *db_err);
+
+/* ---- runs ---- */
+
+typedef struct store_run_new {
+	const char *station;
+	const char *method_id;
+	long method_revision;
+	const char *method_sha256;
+	const char *sample_id;
+	double amount;
+	const char *unit;   /* "mL" or "g" */
+	const char *signal; /* "ph" or "mv": the curve's unit */
+	const char *queued_at;
+	const char *record_json; /* the initial record; may be NULL */
+} store_run_new_t;
+
+int64_t store_run_create(store_t *s, const store_run_new_t *r); /* id, or -1 */
+
+/* Replace the run's record and its query columns (state, phase may be NULL). */
+store_status_t store_run_update(store_t *s, int64_t id, const char *state, const char *phase,
+                                const char *record_json);
+
+typedef struct store_point {
+	double t_s;       /* since run start */
+	double volume_ml; /* total dispensed */
+	double mv;
+	bool has_ph;
+	double ph;
+	bool has_temperature;
+	double temperature_c;
+	bool settled;
+	bool has_dpdv;
+	double dpdv; /* signal units per mL */
+} store_point_t;
+
+/* Append point number n (0-based) and, in the same transaction, the updated
+ * record. Committed (fsync'd) when it returns STORE_OK. */
+store_status_t store_point_add(store_t *s, int64_t run_id, int n, const store_point_t *p,
+                               const char *record_json);
+
+/* Final state: state, stop_reason, record, endpoints/results rows from the
+ * record, and the next seq, in one transaction. STORE_CONFLICT if the run is
+ * already final. *seq_out may be NULL. */
+store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const char *record_json,
+                                int64_t *seq_out);
+
+/* A fault or event row (run_id 0 when none). */
+store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
+                               const char *kind, const char *code, const char *message);
+
+/* The stored record with "seq" (null until final), NULL when unknown. */
+json_t *store_run_json(store_t *s, int64_t id, bool *db_err);
+/* State word of a run into out; STORE_NOT_FOUND when unknown. */
+store_status_t store_run_state(store_t *s, int64_t id, char *out, size_t cap, char *station,
+                               size_t station_cap);
+/* The method's signal word of a run ("ph"/"mv") into out. */
+store_status_t store_run_signal(store_t *s, int64_t id, char *out, size_t cap);
+/* Points as a JSON array of point objects (INTERFACE.md fields). */
+json_t *store_points_json(store_t *s, int64_t id, bool *db_err);
+/* Points as CSV text (malloc'd): header t_s,volume_ml,mv,ph,temperature_c,settled,dpdv. */
+char *store_points_csv(store_t *s, int64_t id, bool *db_err);
+/* {"results":[records with seq], "next_after":SEQ}. */
+json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err);
+/* Counts of runs by state, for /metrics: fills n[i] for states[i]. */
+int store_run_counts(store_t *s, const char *const *states, long *n, int n_states);
+
+/* ---- titrants, blanks ---- */
+
+store_status_t store_titrant_get(store_t *s, const char *name, double *titer);
+store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
+                                 const char *at, int64_t run_id);
+store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml);
+store_status_t store_blank_set(store_t *s, const char *method_id, double blank_ml, const char *at,
+                               int64_t run_id);
+
+/* ---- calibrations ---- */
+
+/* The calibration as JSON is stored whole (its fields are calib's business);
+ * the columns station, state, at, expires_at make "latest valid" a query. */
+int64_t store_calib_create(store_t *s, const char *station, const char *record_json);
+store_status_t store_calib_update(store_t *s, int64_t id, const char *state, const char *at,
+                                  const char *expires_at, const char *record_json);
+json_t *store_calib_json(store_t *s, int64_t id, bool *db_err);
+/* Latest calibration of a station (any state) or, with accepted_only, the
+ * latest accepted one not expired at `now` (RFC 3339). */
+json_t *store_calib_latest(store_t *s, const char *station, bool accepted_only, const char *now,
+                           bool *db_err);
+
+#endif

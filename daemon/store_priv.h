@@ -1,0 +1,23 @@
+/* store_priv.h: what store.c and store_read.c share; nothing else includes it. */
+#ifndef STOPCOCK_STORE_PRIV_H
+#define STOPCOCK_STORE_PRIV_H
+
+#include <pthread.h>
+#include <sqlite3.h>
+#include <stdbool.h>
+
+#define STORE_READERS 8
+
+struct store {
+	char path[1024];
+	sqlite3 *w; /* the one writer connection, under wlock */
+	pthread_mutex_t wlock;
+	pthread_mutex_t rlock;     /* guards r[] and r_busy[] */
+	sqlite3 *r[STORE_READERS]; /* read-only connections, opened lazily */
+	bool r_busy[STORE_READERS];
+};
+
+/* busy_timeout, synchronous=FULL, foreign_keys=ON. */
+int store_setup_conn(sqlite3 *db);
+
+#endif

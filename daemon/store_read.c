@@ -1,0 +1,485 @@
+/* store_read.c: the read paths of store.h, on a pool of read-only connections. */
+#include "store.h"
+#include "store_priv.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+/* A reader from the pool, or a fresh one when all are taken (slot -1). */
+static sqlite3 *reader_get(store_t *s, int *slot)
+{
+	sqlite3 *db = NULL;
+
+	*slot = -1;
+	pthread_mutex_lock(&s->rlock);
+	for (int i = 0; i < STORE_READERS; i++) {
+		if (s->r_busy[i])
+			continue;
+		if (!s->r[i]) {
+			if (sqlite3_open_v2(s->path, &s->r[i], SQLITE_OPEN_READONLY, NULL) !=
+			    SQLITE_OK) {
+				sqlite3_close(s->r[i]);
+				s->r[i] = NULL;
+				break;
+			}
+			sqlite3_busy_timeout(s->r[i], 5000);
+		}
+		s->r_busy[i] = true;
+		*slot = i;
+		db = s->r[i];
+		break;
+	}
+	pthread_mutex_unlock(&s->rlock);
+	if (db)
+		return db;
+	if (sqlite3_open_v2(s->path, &db, SQLITE_OPEN_READONLY, NULL) != SQLITE_OK) {
+		sqlite3_close(db);
+		return NULL;
+	}
+	sqlite3_busy_timeout(db, 5000);
+	return db;
+}
+
+static void reader_put(store_t *s, sqlite3 *db, int slot)
+{
+	if (slot < 0) {
+		sqlite3_close(db);
+		return;
+	}
+	pthread_mutex_lock(&s->rlock);
+	s->r_busy[slot] = false;
+	pthread_mutex_unlock(&s->rlock);
+}
+
+typedef struct rq {
+	store_t *s;
+	sqlite3 *db;
+	int slot;
+	sqlite3_stmt *st;
+} rq_t;
+
+static int rq_open(rq_t *q, store_t *s, const char *sql)
+{
+	q->s = s;
+	q->st = NULL;
+	q->db = reader_get(s, &q->slot);
+	if (!q->db)
+		return -1;
+	if (sqlite3_prepare_v2(q->db, sql, -1, &q->st, NULL) != SQLITE_OK) {
+		reader_put(s, q->db, q->slot);
+		q->db = NULL;
+		return -1;
+	}
+	return 0;
+}
+
+/* Finalize promptly: an open read transaction blocks WAL checkpoints. */
+static void rq_close(rq_t *q)
+{
+	if (q->st)
+		sqlite3_finalize(q->st);
+	if (q->db)
+		reader_put(q->s, q->db, q->slot);
+	q->st = NULL;
+	q->db = NULL;
+}
+
+static json_t *col_json_text(sqlite3_stmt *st, int i)
+{
+	const char *t = (const char *)sqlite3_column_text(st, i);
+	return t ? json_string(t) : json_null();
+}
+
+static json_t *col_json_real(sqlite3_stmt *st, int i)
+{
+	if (sqlite3_column_type(st, i) == SQLITE_NULL)
+		return json_null();
+	return json_real(sqlite3_column_double(st, i));
+}
+
+/* ---- methods ---- */
+
+store_status_t store_method_latest(store_t *s, const char *id, char **text, size_t *len,
+                                   long *revision, char sha256[65])
+{
+	rq_t q;
+	store_status_t ret = STORE_NOT_FOUND;
+
+	if (rq_open(&q, s,
+	            "SELECT text, revision, sha256 FROM methods WHERE id=? "
+	            "ORDER BY revision DESC LIMIT 1"))
+		return STORE_ERR;
+	sqlite3_bind_text(q.st, 1, id, -1, SQLITE_TRANSIENT);
+	if (sqlite3_step(q.st) == SQLITE_ROW) {
+		int n = sqlite3_column_bytes(q.st, 0);
+		const void *b = sqlite3_column_blob(q.st, 0);
+		*text = malloc((size_t)n + 1);
+		if (*text) {
+			if (n)
+				memcpy(*text, b, (size_t)n);
+			(*text)[n] = '\0';
+			*len = (size_t)n;
+			*revision = sqlite3_column_int(q.st, 1);
+			snprintf(sha256, 65, "%s", (const char *)sqlite3_column_text(q.st, 2));
+			ret = STORE_OK;
+		} else {
+			ret = STORE_ERR;
+		}
+	}
+	rq_close(&q);
+	return ret;
+}
+
+json_t *store_method_json(store_t *s, const char *id, bool *db_err)
+{
+	rq_t q;
+	json_t *j = NULL;
+
+	*db_err = false;
+	if (rq_open(&q, s,
+	            "SELECT id, revision, sha256, text, source, stored_at, "
+	            "(SELECT COUNT(*) FROM methods m2 WHERE m2.id=methods.id) "
+	            "FROM methods WHERE id=? ORDER BY revision DESC LIMIT 1")) {
+		*db_err = true;
+		return NULL;
+	}
+	sqlite3_bind_text(q.st, 1, id, -1, SQLITE_TRANSIENT);
+	if (sqlite3_step(q.st) == SQLITE_ROW)
+		j = json_pack("{s:o,s:I,s:o,s:o,s:o,s:o,s:I}", "id", col_json_text(q.st, 0),
+		              "revision", (json_int_t)sqlite3_column_int64(q.st, 1), "sha256",
+		              col_json_text(q.st, 2), "text", col_json_text(q.st, 3), "source",
+		              col_json_text(q.st, 4), "stored_at", col_json_text(q.st, 5),
+		              "revisions_stored", (json_int_t)sqlite3_column_int64(q.st, 6));
+	rq_close(&q);
+	return j;
+}
+
+json_t *store_methods_list(store_t *s, bool *db_err)
+{
+	rq_t q;
+	json_t *arr = json_array();
+
+	*db_err = false;
+	if (rq_open(&q, s,
+	            "SELECT id, MAX(revision), "
+	            "(SELECT sha256 FROM methods m2 WHERE m2.id=m.id ORDER BY revision DESC "
+	            "LIMIT 1), COUNT(*) FROM methods m GROUP BY id ORDER BY id")) {
+		*db_err = true;
+		json_decref(arr);
+		return NULL;
+	}
+	while (sqlite3_step(q.st) == SQLITE_ROW)
+		json_array_append_new(
+		    arr, json_pack("{s:o,s:I,s:o,s:I}", "id", col_json_text(q.st, 0), "revision",
+		                   (json_int_t)sqlite3_column_int64(q.st, 1), "sha256",
+		                   col_json_text(q.st, 2), "revisions_stored",
+		                   (json_int_t)sqlite3_column_int64(q.st, 3)));
+	rq_close(&q);
+	return json_pack("{s:o}", "methods", arr);
+}
+
+/* ---- runs ---- */
+
+/* Record of a row (record, seq, state, columns) as JSON. The stored record is
+ * the source of truth; seq is added here, as it is assigned by the store. */
+static json_t *row_record(sqlite3_stmt *st)
+{
+	const char *text = (const char *)sqlite3_column_text(st, 0);
+	json_t *j = text ? json_loads(text, 0, NULL) : NULL;
+
+	if (!json_is_object(j)) {
+		json_decref(j);
+		j = json_object();
+	}
+	if (sqlite3_column_type(st, 1) == SQLITE_NULL)
+		json_object_set_new(j, "seq", json_null());
+	else
+		json_object_set_new(j, "seq", json_integer(sqlite3_column_int64(st, 1)));
+	/* The columns win over a record written before the last state change. */
+	json_object_set_new(j, "id", json_integer(sqlite3_column_int64(st, 2)));
+	json_object_set_new(j, "state", col_json_text(st, 3));
+	return j;
+}
+
+json_t *store_run_json(store_t *s, int64_t id, bool *db_err)
+{
+	rq_t q;
+	json_t *j = NULL;
+
+	*db_err = false;
+	if (rq_open(&q, s, "SELECT record, seq, id, state FROM runs WHERE id=?")) {
+		*db_err = true;
+		return NULL;
+	}
+	sqlite3_bind_int64(q.st, 1, id);
+	if (sqlite3_step(q.st) == SQLITE_ROW)
+		j = row_record(q.st);
+	rq_close(&q);
+	return j;
+}
+
+store_status_t store_run_state(store_t *s, int64_t id, char *out, size_t cap, char *station,
+                               size_t station_cap)
+{
+	rq_t q;
+	store_status_t ret = STORE_NOT_FOUND;
+
+	if (rq_open(&q, s, "SELECT state, station FROM runs WHERE id=?"))
+		return STORE_ERR;
+	sqlite3_bind_int64(q.st, 1, id);
+	if (sqlite3_step(q.st) == SQLITE_ROW) {
+		snprintf(out, cap, "%s", (const char *)sqlite3_column_text(q.st, 0));
+		if (station)
+			snprintf(station, station_cap, "%s",
+			         (const char *)sqlite3_column_text(q.st, 1));
+		ret = STORE_OK;
+	}
+	rq_close(&q);
+	return ret;
+}
+
+store_status_t store_run_signal(store_t *s, int64_t id, char *out, size_t cap)
+{
+	rq_t q;
+	store_status_t ret = STORE_NOT_FOUND;
+
+	if (rq_open(&q, s, "SELECT COALESCE(signal,'ph') FROM runs WHERE id=?"))
+		return STORE_ERR;
+	sqlite3_bind_int64(q.st, 1, id);
+	if (sqlite3_step(q.st) == SQLITE_ROW) {
+		snprintf(out, cap, "%s", (const char *)sqlite3_column_text(q.st, 0));
+		ret = STORE_OK;
+	}
+	rq_close(&q);
+	return ret;
+}
+
+static bool run_exists(store_t *s, int64_t id, bool *db_err)
+{
+	char st[32];
+	store_status_t r = store_run_state(s, id, st, sizeof st, NULL, 0);
+	*db_err = r == STORE_ERR;
+	return r == STORE_OK;
+}
+
+#define POINTS_SQL                                                                                 \
+	"SELECT t_s, volume_ml, mv, ph, temperature_c, settled, dpdv FROM points WHERE run_id=? "  \
+	"ORDER BY n"
+
+json_t *store_points_json(store_t *s, int64_t id, bool *db_err)
+{
+	rq_t q;
+	json_t *arr;
+
+	if (!run_exists(s, id, db_err))
+		return NULL;
+	if (rq_open(&q, s, POINTS_SQL)) {
+		*db_err = true;
+		return NULL;
+	}
+	arr = json_array();
+	sqlite3_bind_int64(q.st, 1, id);
+	while (sqlite3_step(q.st) == SQLITE_ROW)
+		json_array_append_new(
+		    arr, json_pack("{s:f,s:f,s:f,s:o,s:o,s:b,s:o}", "t_s",
+		                   sqlite3_column_double(q.st, 0), "volume_ml",
+		                   sqlite3_column_double(q.st, 1), "mv",
+		                   sqlite3_column_double(q.st, 2), "ph", col_json_real(q.st, 3),
+		                   "temperature_c", col_json_real(q.st, 4), "settled",
+		                   sqlite3_column_int(q.st, 5), "dpdv", col_json_real(q.st, 6)));
+	rq_close(&q);
+	return json_pack("{s:I,s:o}", "run", (json_int_t)id, "points", arr);
+}
+
+static void csv_num(char **buf, size_t *len, size_t *cap, sqlite3_stmt *st, int i, int digits,
+                    char sep)
+{
+	char tmp[48];
+	int n;
+
+	if (sqlite3_column_type(st, i) == SQLITE_NULL)
+		n = snprintf(tmp, sizeof tmp, "%c", sep);
+	else
+		n = snprintf(tmp, sizeof tmp, "%.*f%c", digits, sqlite3_column_double(st, i), sep);
+	if (*len + (size_t)n + 1 > *cap) {
+		size_t nc = (*cap + (size_t)n + 1) * 2;
+		char *nb = realloc(*buf, nc);
+		if (!nb)
+			return;
+		*buf = nb;
+		*cap = nc;
+	}
+	memcpy(*buf + *len, tmp, (size_t)n + 1);
+	*len += (size_t)n;
+}
+
+char *store_points_csv(store_t *s, int64_t id, bool *db_err)
+{
+	static const char header[] = "t_s,volume_ml,mv,ph,temperature_c,settled,dpdv\n";
+	rq_t q;
+	size_t cap = 4096, len = sizeof header - 1;
+	char *buf;
+
+	if (!run_exists(s, id, db_err))
+		return NULL;
+	if (rq_open(&q, s, POINTS_SQL)) {
+		*db_err = true;
+		return NULL;
+	}
+	buf = malloc(cap);
+	if (!buf) {
+		rq_close(&q);
+		*db_err = true;
+		return NULL;
+	}
+	memcpy(buf, header, sizeof header);
+	sqlite3_bind_int64(q.st, 1, id);
+	while (sqlite3_step(q.st) == SQLITE_ROW) {
+		csv_num(&buf, &len, &cap, q.st, 0, 3, ',');
+		csv_num(&buf, &len, &cap, q.st, 1, 4, ',');
+		csv_num(&buf, &len, &cap, q.st, 2, 2, ',');
+		csv_num(&buf, &len, &cap, q.st, 3, 3, ',');
+		csv_num(&buf, &len, &cap, q.st, 4, 2, ',');
+		csv_num(&buf, &len, &cap, q.st, 5, 0, ',');
+		csv_num(&buf, &len, &cap, q.st, 6, 4, '\n');
+	}
+	rq_close(&q);
+	return buf;
+}
+
+json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err)
+{
+	rq_t q;
+	json_t *arr;
+	int64_t last = after;
+
+	*db_err = false;
+	if (rq_open(&q, s,
+	            "SELECT record, seq, id, state FROM runs WHERE seq > ? ORDER BY seq LIMIT ?")) {
+		*db_err = true;
+		return NULL;
+	}
+	arr = json_array();
+	sqlite3_bind_int64(q.st, 1, after);
+	sqlite3_bind_int(q.st, 2, limit);
+	while (sqlite3_step(q.st) == SQLITE_ROW) {
+		json_array_append_new(arr, row_record(q.st));
+		last = sqlite3_column_int64(q.st, 1);
+	}
+	rq_close(&q);
+	return json_pack("{s:o,s:I}", "results", arr, "next_after", (json_int_t)last);
+}
+
+int store_run_counts(store_t *s, const char *const *states, long *n, int n_states)
+{
+	rq_t q;
+
+	for (int i = 0; i < n_states; i++)
+		n[i] = 0;
+	if (rq_open(&q, s, "SELECT state, COUNT(*) FROM runs GROUP BY state"))
+		return -1;
+	while (sqlite3_step(q.st) == SQLITE_ROW) {
+		const char *st = (const char *)sqlite3_column_text(q.st, 0);
+		for (int i = 0; i < n_states; i++)
+			if (st && !strcmp(st, states[i]))
+				n[i] = (long)sqlite3_column_int64(q.st, 1);
+	}
+	rq_close(&q);
+	return 0;
+}
+
+/* ---- titrants, blanks ---- */
+
+store_status_t store_titrant_get(store_t *s, const char *name, double *titer)
+{
+	rq_t q;
+	store_status_t ret = STORE_NOT_FOUND;
+
+	if (rq_open(&q, s, "SELECT titer FROM titrants WHERE name=?"))
+		return STORE_ERR;
+	sqlite3_bind_text(q.st, 1, name, -1, SQLITE_TRANSIENT);
+	if (sqlite3_step(q.st) == SQLITE_ROW) {
+		*titer = sqlite3_column_double(q.st, 0);
+		ret = STORE_OK;
+	}
+	rq_close(&q);
+	return ret;
+}
+
+store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml)
+{
+	rq_t q;
+	store_status_t ret = STORE_NOT_FOUND;
+
+	if (rq_open(&q, s, "SELECT volume_ml FROM blanks WHERE method_id=?"))
+		return STORE_ERR;
+	sqlite3_bind_text(q.st, 1, method_id, -1, SQLITE_TRANSIENT);
+	if (sqlite3_step(q.st) == SQLITE_ROW) {
+		*blank_ml = sqlite3_column_double(q.st, 0);
+		ret = STORE_OK;
+	}
+	rq_close(&q);
+	return ret;
+}
+
+/* ---- calibrations ---- */
+
+static json_t *calib_row(sqlite3_stmt *st)
+{
+	const char *text = (const char *)sqlite3_column_text(st, 0);
+	json_t *j = text ? json_loads(text, 0, NULL) : NULL;
+
+	if (!json_is_object(j)) {
+		json_decref(j);
+		j = json_object();
+	}
+	json_object_set_new(j, "id", json_integer(sqlite3_column_int64(st, 1)));
+	json_object_set_new(j, "station", col_json_text(st, 2));
+	json_object_set_new(j, "state", col_json_text(st, 3));
+	return j;
+}
+
+json_t *store_calib_json(store_t *s, int64_t id, bool *db_err)
+{
+	rq_t q;
+	json_t *j = NULL;
+
+	*db_err = false;
+	if (rq_open(&q, s, "SELECT record, id, station, state FROM calibrations WHERE id=?")) {
+		*db_err = true;
+		return NULL;
+	}
+	sqlite3_bind_int64(q.st, 1, id);
+	if (sqlite3_step(q.st) == SQLITE_ROW)
+		j = calib_row(q.st);
+	rq_close(&q);
+	return j;
+}
+
+json_t *store_calib_latest(store_t *s, const char *station, bool accepted_only, const char *now,
+                           bool *db_err)
+{
+	rq_t q;
+	json_t *j = NULL;
+	const char *sql = accepted_only
+	                      ? "SELECT record, id, station, state FROM calibrations WHERE "
+	                        "station=? AND state='accepted' AND (expires_at IS NULL OR "
+	                        "expires_at > ?) ORDER BY id DESC LIMIT 1"
+	                      : "SELECT record, id, station, state FROM calibrations WHERE "
+	                        "station=? ORDER BY id DESC LIMIT 1";
+
+	*db_err = false;
+	if (rq_open(&q, s, sql)) {
+		*db_err = true;
+		return NULL;
+	}
+	sqlite3_bind_text(q.st, 1, station, -1, SQLITE_TRANSIENT);
+	if (accepted_only)
+		sqlite3_bind_text(q.st, 2, now ? now : "", -1, SQLITE_TRANSIENT);
+	if (sqlite3_step(q.st) == SQLITE_ROW)
+		j = calib_row(q.st);
+	rq_close(&q);
+	return j;
+}
