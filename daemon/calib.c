@@ -290,7 +290,8 @@ static void finish(calib_session_t *s)
 	r->slope_pct = slope_pct;
 	r->offset_mv = offset_mv;
 	r->temperature_c = sum_tc / n;
-	r->slope_mv_per_ph = slope_pct / 100.0 * chem_nernst_mv(r->temperature_c);
+	/* the line's own slope: mV fall as pH rises, so it is negative */
+	r->slope_mv_per_ph = -slope_pct / 100.0 * chem_nernst_mv(r->temperature_c);
 	double worst_mv = 0;
 	int worst = 0;
 	for (int i = 0; i < n; i++) {
@@ -578,6 +579,11 @@ int calib_result_from_json(const json_t *j, calib_result_t *c)
 			c->state = states[i];
 			known = true;
 		}
+	}
+	/* "aborted" (a session the daemon lost) is as unusable as a rejection. */
+	if (!known && strcmp(state, "aborted") == 0) {
+		c->state = CALIB_REJECTED;
+		known = true;
 	}
 	if (!known)
 		return -1;

@@ -146,7 +146,7 @@ typedef struct calib_result {
 	double slope_pct;       /* % of the Nernst slope */
 	double offset_mv;       /* mV at pH 7 */
 	double temperature_c;   /* mean measured temperature */
-	double slope_mv_per_ph; /* slope_pct/100 * Nernst at temperature_c */
+	double slope_mv_per_ph; /* the line, mV per pH: -slope_pct/100 * Nernst(temperature_c) */
 	/* wall clock, s since 1970; 0 while not final */
 	double at_unix_s;
 	double expires_at_unix_s;      /* at + expires_h; 0 when rejected */

@@ -250,7 +250,7 @@ TEST(calib_session_recovers_noisy_lagging_electrode)
 		CHECK_NEAR(r.offset_mv, cases[k].offset_mv, 0.5);
 		CHECK_NEAR(r.temperature_c, cases[k].t_c, 1e-9);
 		CHECK_NEAR(r.slope_mv_per_ph,
-		           cases[k].slope_pct / 100 * chem_nernst_mv(cases[k].t_c), 0.2);
+		           -cases[k].slope_pct / 100 * chem_nernst_mv(cases[k].t_c), 0.2);
 		for (int i = 0; i < 3; i++) {
 			CHECK(r.buffers[i].measured);
 			CHECK(r.buffers[i].wait_s >= cfg.stable_min_s);
