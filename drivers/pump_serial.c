@@ -249,6 +249,7 @@ static drv_status_t query(pump_t *p, bool *moving, drv_err_t *err)
 		p->dispensed_steps += p->pos - r.position;
 	p->pos = r.position;
 	p->known = true;
+	p->fault = false; /* a plain status reply: the device reports no error now */
 	*moving = r.kind == PUMP_REPLY_MOVING;
 	return DRV_OK;
 }
