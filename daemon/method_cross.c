@@ -333,6 +333,16 @@ static void check_limits(mp_ctx_t *c)
 		yt_error(c->doc, c->f_vol_max.node, c->d,
 		         "stop.volume_max_ml (%g mL) is above the station's vessel_max_ml (%g mL)",
 		         m->volume_max_ml, lim->vessel_max_ml);
+	/* The sample goes into the same beaker as the titrant (diluent too, but
+	 * the method does not know how much). */
+	if (!c->f_vol_max.bad && !c->f_sample_bad && !c->f_sample_max.bad &&
+	    lim->vessel_max_ml > 0 && m->sample_unit == UNIT_ML &&
+	    m->volume_max_ml <= lim->vessel_max_ml &&
+	    m->sample_max + m->volume_max_ml > lim->vessel_max_ml)
+		yt_error(c->doc, at(&c->f_sample_max, &c->f_vol_max), c->d,
+		         "sample.max (%g mL) plus stop.volume_max_ml (%g mL) is above the "
+		         "station's vessel_max_ml (%g mL)",
+		         m->sample_max, m->volume_max_ml, lim->vessel_max_ml);
 	if (lim->burette_capacity_ml > 0) {
 		int refills = lim->max_refills > 0 ? lim->max_refills : 0;
 		double most_ml = lim->burette_capacity_ml * (1 + refills);

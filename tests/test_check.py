@@ -1,0 +1,117 @@
+"""End-to-end tests of `stopcock check`: exit codes, output format, every
+error of a file reported, and the -c cross-check against a daemon config."""
+import glob
+import os
+import re
+import subprocess
+
+import pytest
+
+BUILD = os.environ.get("STOPCOCK_BUILD")
+STOPCOCK = os.path.join(BUILD, "bin", "stopcock") if BUILD else None
+DIAG = re.compile(r"^(?P<file>[^:]+):(?P<line>\d+):(?P<col>\d+): (?P<msg>.+)$")
+
+
+def run(*args):
+    assert STOPCOCK, "STOPCOCK_BUILD must name the build directory"
+    return subprocess.run([STOPCOCK, "check", *args], capture_output=True, text=True,
+                          timeout=30)
+
+
+def test_examples_are_valid():
+    files = sorted(glob.glob("config/methods/*.yaml"))
+    assert len(files) >= 5
+    r = run(*files)
+    assert r.returncode == 0, r.stderr
+    assert r.stderr == ""
+    lines = r.stdout.splitlines()
+    assert len(lines) == len(files)
+    for f, line in zip(files, lines):
+        m = re.match(r"^(.+): ok \(method ([a-z0-9-]+), revision (\d+), sha256 ([0-9a-f]{64})\)$",
+                     line)
+        assert m, line
+        assert m.group(1) == f
+        assert m.group(2) == os.path.basename(f)[:-5]
+
+
+def test_sha256_is_of_the_exact_bytes():
+    import hashlib
+    f = "config/methods/cider-acidity.yaml"
+    with open(f, "rb") as fh:
+        want = hashlib.sha256(fh.read()).hexdigest()
+    r = run(f)
+    assert r.returncode == 0
+    assert r.stdout.strip().endswith("sha256 %s)" % want)
+
+
+def expected(path):
+    with open(path[:-5] + ".expect") as fh:
+        return [line for line in fh.read().splitlines() if not line.startswith("#")]
+
+
+@pytest.mark.parametrize("name", ["many-errors", "formula-folded", "duplicate-key",
+                                  "bad-utf8", "unknown-key-typo"])
+def test_bad_file_exit_2_with_exact_errors(name):
+    path = "tests/methods/bad/%s.yaml" % name
+    r = run(path)
+    assert r.returncode == 2
+    assert r.stdout == ""
+    got = r.stderr.splitlines()
+    for line in got:
+        m = DIAG.match(line)
+        assert m, line
+        assert m.group("file") == path
+    assert [line[len(path) + 1:] for line in got] == expected(path)
+
+
+def test_every_error_of_a_file_is_reported():
+    r = run("tests/methods/bad/many-errors.yaml")
+    assert r.returncode == 2
+    # one per mistake in the file, in file order
+    assert len(r.stderr.splitlines()) == 12
+    positions = [tuple(map(int, DIAG.match(l).group("line", "col")))
+                 for l in r.stderr.splitlines()]
+    assert positions == sorted(positions)
+
+
+def test_mixed_good_and_bad():
+    good, bad = "config/methods/water-blank.yaml", "tests/methods/bad/window-reversed.yaml"
+    r = run(good, bad)
+    assert r.returncode == 2
+    assert r.stdout.startswith(good + ": ok ")
+    assert r.stderr.startswith(bad + ":9:37: detect.window low (9 pH) must be below")
+
+
+def test_missing_file_and_usage():
+    r = run("no/such/method.yaml")
+    assert r.returncode == 2
+    assert DIAG.match(r.stderr.splitlines()[0])
+    assert "cannot open" in r.stderr
+    r = run()
+    assert r.returncode == 2
+    assert "usage:" in r.stderr
+    r = run("--bogus", "config/methods/water-blank.yaml")
+    assert r.returncode == 2
+
+
+def test_cross_check_against_daemon_config(tmp_path):
+    cfg = tmp_path / "stopcockd.yaml"
+    cfg.write_text(
+        "http: {listen: 127.0.0.1:8470}\n"
+        "storage: {database: %s}\n"
+        "stations:\n"
+        "  - name: big\n    vessel_max_ml: 250\n"
+        "    burette: {driver: sim}\n    probe: {driver: sim}\n"
+        "  - name: small\n    vessel_max_ml: 30\n"
+        "    burette: {driver: sim}\n    probe: {driver: sim}\n" % (tmp_path / "db.sqlite"))
+    f = "config/methods/cider-acidity.yaml"
+    r = run("-c", str(cfg), "--station", "big", f)
+    assert r.returncode == 0, r.stderr
+    # without --station the smallest vessel counts, so a pass fits every station
+    r = run("-c", str(cfg), f)
+    assert r.returncode == 2
+    m = DIAG.match(r.stderr.splitlines()[0])
+    assert m and m.group("file") == f
+    assert "is above the station's vessel_max_ml (30 mL)" in m.group("msg")
+    r = run("-c", str(cfg), "--station", "nowhere", f)
+    assert r.returncode == 2
