@@ -51,7 +51,9 @@ static int parse_ml_list(const char *list, double **out, int *n_out, diag_list_t
 		item[len] = '\0';
 		errno = 0;
 		double ml = strtod(item, &end);
-		if (*end != '\0' || errno == ERANGE || !isfinite(ml)) {
+		/* decimal only: strtod would also take hex, "inf" and "nan" */
+		if (*end != '\0' || errno == ERANGE || !isfinite(ml) ||
+		    strspn(item, "0123456789.+-eE") != len) {
 			diag_add(d, "--ml", 1, col, "expected a volume in mL (got \"%s\")", item);
 			free(v);
 			return -1;
@@ -100,6 +102,9 @@ int cmd_curve(int argc, char **argv)
 			return 0;
 		} else if (!strcmp(argv[i], "--ml") && i + 1 < argc) {
 			ml_list = argv[++i];
+		} else if (!strcmp(argv[i], "--ml")) {
+			fprintf(stderr, "stopcock curve: --ml needs a list of volumes in mL\n");
+			return 2;
 		} else if (!strncmp(argv[i], "--ml=", 5)) {
 			ml_list = argv[i] + 5;
 		} else if (argv[i][0] == '-' && argv[i][1] != '\0') {
