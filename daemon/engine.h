@@ -137,7 +137,7 @@ typedef struct engine_endpoint {
 	const char *how;    /* "inflection", "model", "target", "gran" */
 	double deriv_ml;    /* the first-derivative (or target/gran) result, mL */
 	double model_ml;    /* the model fit's result, mL; NaN: no fit or a poor one */
-	double model_rms;   /* fit residual RMS, in volume units (mL); NaN: none */
+	double model_rms;   /* fit residual RMS in units of the assumed reading noise; NaN: none */
 } engine_endpoint_t;
 
 typedef enum {

@@ -1,0 +1,407 @@
+/* endpoint.c: endpoints from a run's points (see endpoint.h).
+ *
+ * Inflection: the first derivative between neighbouring points (a difference
+ * quotient over each irregular volume step, placed at the step's middle);
+ * peaks of dir * dS/dV whose rise between the flanking derivative minima is at
+ * least min_jump, inside `window`; the peak's volume refined by a parabola
+ * through the logarithms of the three highest derivative values (a Gaussian
+ * through three points: the derivative of a titration curve near its
+ * inflection is close to bell-shaped, and the log makes the fit exact for a
+ * Gaussian peak on irregular spacing).
+ * Target: the volume at which the curve crosses the target, by linear
+ * interpolation between the two points either side.
+ * Gran: Gran's linearisation before the endpoint (Gran, Analyst 1952, 77,
+ * 661): w(V) * 10^(-dir*pH) is linear in V and reaches zero at the
+ * equivalence volume, with w = V for a weak system and w = V0 + V for a
+ * strong one; the better straight line of the two gives the x-intercept.
+ */
+#include "endpoint.h"
+
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+int endpoint_direction(const engine_point_t *pts, int n, int hint)
+{
+	if (n >= 2) {
+		double d = pts[n - 1].signal - pts[0].signal;
+		if (d > 0)
+			return 1;
+		if (d < 0)
+			return -1;
+	}
+	return hint > 0 ? 1 : hint < 0 ? -1 : 0;
+}
+
+double endpoint_interp(const engine_point_t *pts, int n, double v_ml, int field)
+{
+	if (n < 1 || !isfinite(v_ml))
+		return NAN;
+#define FIELD(p) (field == 0 ? (p).signal : field == 1 ? (p).ph : (p).mv)
+	if (v_ml <= pts[0].volume_ml)
+		return FIELD(pts[0]);
+	for (int i = 1; i < n; i++) {
+		if (pts[i].volume_ml >= v_ml) {
+			double v0 = pts[i - 1].volume_ml, v1 = pts[i].volume_ml;
+			double f = v1 > v0 ? (v_ml - v0) / (v1 - v0) : 1.0;
+			return FIELD(pts[i - 1]) + f * (FIELD(pts[i]) - FIELD(pts[i - 1]));
+		}
+	}
+	return FIELD(pts[n - 1]);
+#undef FIELD
+}
+
+void endpoint_central_dpdv(engine_point_t *pts, int n)
+{
+	if (n < 2) {
+		if (n == 1)
+			pts[0].dpdv = 0;
+		return;
+	}
+	/* Forward differences first, kept aside so each point uses the raw ones. */
+	double prev_g = 0, prev_dv = 0;
+	for (int i = 0; i < n; i++) {
+		double g = 0, dv = 0;
+		if (i + 1 < n) {
+			dv = pts[i + 1].volume_ml - pts[i].volume_ml;
+			g = dv > 0 ? (pts[i + 1].signal - pts[i].signal) / dv : 0;
+		}
+		double d;
+		if (i == 0)
+			d = g;
+		else if (i == n - 1)
+			d = prev_g;
+		else if (prev_dv + dv > 0)
+			/* derivative at the middle point of the parabola through three
+			 * points: the one-sided slopes weighted by the other step */
+			d = (prev_g * dv + g * prev_dv) / (prev_dv + dv);
+		else
+			d = g;
+		pts[i].dpdv = isfinite(d) ? d : 0;
+		prev_g = g;
+		prev_dv = dv;
+	}
+}
+
+static void fill_point_fields(const engine_point_t *pts, int n, engine_endpoint_t *ep)
+{
+	ep->signal = endpoint_interp(pts, n, ep->volume_ml, 0);
+	ep->ph = endpoint_interp(pts, n, ep->volume_ml, 1);
+	ep->mv = endpoint_interp(pts, n, ep->volume_ml, 2);
+	ep->half_ph = endpoint_interp(pts, n, ep->volume_ml / 2, 1);
+	ep->deriv_ml = ep->volume_ml;
+	ep->u_volume_ml = NAN;
+	ep->model_ml = NAN;
+	ep->model_rms = NAN;
+}
+
+/* Derivative segments: g[j] = dir * dS/dV over [V_j, V_j+1], at vm[j]. */
+typedef struct seg {
+	double g, vm, dv;
+} seg_t;
+
+/* Peak volume: a parabola in log g by least squares over the segments of
+ * the peak's top (g >= 0.6 of the peak, at least its two neighbours), so
+ * a noisy plateau of many small steps gives a stable vertex; the vertex is
+ * kept within the top's span. */
+static double refine_peak(const seg_t *sg, int m, int k)
+{
+	double gk = sg[k].g;
+	int lo = k, hi = k;
+	while (lo > 0 && sg[lo - 1].g >= 0.6 * gk && sg[lo - 1].g > 0)
+		lo--;
+	while (hi < m - 1 && sg[hi + 1].g >= 0.6 * gk && sg[hi + 1].g > 0)
+		hi++;
+	if (lo == k && k > 0 && sg[k - 1].g > 0)
+		lo = k - 1;
+	if (hi == k && k < m - 1 && sg[k + 1].g > 0)
+		hi = k + 1;
+	if (hi - lo < 2)
+		return sg[k].vm;
+	/* Centre and scale x for a well-conditioned 3x3 normal system. */
+	double x0 = sg[k].vm, xs = (sg[hi].vm - sg[lo].vm) / 2;
+	if (!(xs > 0))
+		return x0;
+	double s[5] = {0}, t[3] = {0};
+	for (int j = lo; j <= hi; j++) {
+		double x = (sg[j].vm - x0) / xs, y = log(sg[j].g);
+		double p = 1;
+		for (int q = 0; q < 5; q++, p *= x)
+			s[q] += p;
+		t[0] += y;
+		t[1] += x * y;
+		t[2] += x * x * y;
+	}
+	/* Solve [s0 s1 s2; s1 s2 s3; s2 s3 s4] [c0 c1 c2] = t by Cramer's rule. */
+	double a11 = s[0], a12 = s[1], a13 = s[2], a22 = s[2], a23 = s[3], a33 = s[4];
+	double det = a11 * (a22 * a33 - a23 * a23) - a12 * (a12 * a33 - a23 * a13) +
+	             a13 * (a12 * a23 - a22 * a13);
+	if (!(fabs(det) > 1e-300))
+		return x0;
+	double d1 = a11 * (t[1] * a33 - a23 * t[2]) - t[0] * (a12 * a33 - a23 * a13) +
+	            a13 * (a12 * t[2] - t[1] * a13);
+	double d2 = a11 * (a22 * t[2] - t[1] * a23) - a12 * (a12 * t[2] - t[1] * a13) +
+	            t[0] * (a12 * a23 - a22 * a13);
+	double c1 = d1 / det, c2 = d2 / det;
+	if (!(c2 < 0))
+		return x0;
+	double v = x0 + xs * (-c1 / (2 * c2));
+	if (!isfinite(v))
+		return x0;
+	return fmin(fmax(v, sg[lo].vm), sg[hi].vm);
+}
+
+static int by_g_desc(const void *a, const void *b, void *ctx)
+{
+	const seg_t *sg = ctx;
+	double x = sg[*(const int *)a].g, y = sg[*(const int *)b].g;
+	return (x < y) - (x > y);
+}
+
+static int by_volume(const void *a, const void *b)
+{
+	double x = ((const engine_endpoint_t *)a)->volume_ml;
+	double y = ((const engine_endpoint_t *)b)->volume_ml;
+	return (x > y) - (x < y);
+}
+
+/* Peaks are taken highest first; each claims its flanks down to the
+ * derivative minima either side, so noise bumps on a flank or on a flat top
+ * (many small constant additions) neither split a peak nor count as one:
+ * a flank walk goes on while the derivative stays above half the
+ * peak, or keeps falling (within 10 % of the last value, for noise), and stops at
+ * a segment already claimed or more than 10 % higher than the peak (a
+ * neighbour as high as the peak is part of it). */
+static int find_inflections(const method_t *m, const engine_point_t *pts, int n, int dir,
+                            bool final, engine_endpoint_t *out, int cap)
+{
+	int ms = n - 1;
+	if (ms < 2 || dir == 0)
+		return 0;
+	seg_t *sg = malloc((size_t)ms * sizeof *sg);
+	int *order = malloc((size_t)ms * sizeof *order);
+	unsigned char *claimed = calloc((size_t)ms, 1);
+	int found = 0;
+	engine_endpoint_t tmp[METHOD_MAX_ENDPOINTS * 4];
+	int ntmp = 0;
+	if (!sg || !order || !claimed)
+		goto out;
+	/* Smoothing that adapts to the signal: a segment whose signal change is
+	 * within the reading scatter (1.5 still_within) takes its difference
+	 * quotient over a wider, symmetric span of points (up to 8 either
+	 * side), so many small additions in a flat stretch do not turn noise
+	 * into peaks, while large steps and steep jumps keep full resolution. */
+	double thr = 1.5 * m->still_within;
+	for (int j = 0; j < ms; j++) {
+		int a = j, b = j + 1;
+		while (fabs(pts[b].signal - pts[a].signal) < thr && b - a < 17 &&
+		       (a > 0 || b < n - 1)) {
+			if (a > 0)
+				a--;
+			if (b < n - 1)
+				b++;
+		}
+		double dv = pts[b].volume_ml - pts[a].volume_ml;
+		sg[j].dv = pts[j + 1].volume_ml - pts[j].volume_ml;
+		sg[j].vm = (pts[j].volume_ml + pts[j + 1].volume_ml) / 2;
+		sg[j].g = dv > 0 ? dir * (pts[b].signal - pts[a].signal) / dv : 0;
+		order[j] = j;
+	}
+	qsort_r(order, (size_t)ms, sizeof *order, by_g_desc, sg);
+	for (int oi = 0; oi < ms && ntmp < (int)(sizeof tmp / sizeof tmp[0]); oi++) {
+		int k = order[oi];
+		double gk = sg[k].g;
+		if (!(gk > 0))
+			break;
+		if (claimed[k])
+			continue;
+		int lo = k, hi = k;
+		while (lo > 0 && !claimed[lo - 1] && sg[lo - 1].g <= 1.1 * gk &&
+		       (sg[lo - 1].g >= 0.5 * gk || sg[lo - 1].g <= 1.1 * sg[lo].g))
+			lo--;
+		while (hi < ms - 1 && !claimed[hi + 1] && sg[hi + 1].g <= 1.1 * gk &&
+		       (sg[hi + 1].g >= 0.5 * gk || sg[hi + 1].g <= 1.1 * sg[hi].g))
+			hi++;
+		for (int j = lo; j <= hi; j++)
+			claimed[j] = 1;
+		if (k == ms - 1)
+			continue; /* still rising at the last point: not past it yet */
+		/* Prominence: a real peak stands at least 1.5 times above the
+		 * derivative just outside its flanks; a noise bump on another
+		 * peak's flank does not. */
+		double edge = 0;
+		if (lo > 0)
+			edge = fmax(edge, sg[lo - 1].g);
+		if (hi < ms - 1)
+			edge = fmax(edge, sg[hi + 1].g);
+		if (!(gk >= 1.5 * edge))
+			continue;
+		double jump = dir * (pts[hi + 1].signal - pts[lo].signal);
+		if (!(jump >= m->min_jump))
+			continue;
+		/* Passed: the derivative has since dropped below half its peak. */
+		bool passed = false;
+		for (int j = k + 1; j < ms; j++)
+			if (sg[j].g < 0.5 * gk) {
+				passed = true;
+				break;
+			}
+		if (!passed && !final)
+			continue;
+		engine_endpoint_t ep;
+		memset(&ep, 0, sizeof ep);
+		ep.volume_ml = refine_peak(sg, ms, k);
+		fill_point_fields(pts, n, &ep);
+		if (m->has_window && (ep.signal < m->window_lo || ep.signal > m->window_hi))
+			continue;
+		ep.how = "inflection";
+		tmp[ntmp++] = ep;
+	}
+	qsort(tmp, (size_t)ntmp, sizeof tmp[0], by_volume);
+	for (int i = 0; i < ntmp && found < cap; i++) {
+		out[found] = tmp[i];
+		out[found].n = found + 1;
+		found++;
+	}
+out:
+	free(sg);
+	free(order);
+	free(claimed);
+	return found;
+}
+
+static int find_target(const method_t *m, const engine_point_t *pts, int n, int dir,
+                       engine_endpoint_t *out, int cap)
+{
+	if (!m->has_target || n < 1 || cap < 1)
+		return 0;
+	double t = m->target;
+	if (dir == 0)
+		dir = t >= pts[0].signal ? 1 : -1;
+	double v = NAN;
+	if (dir * (pts[0].signal - t) >= 0) {
+		v = pts[0].volume_ml; /* already there at the start */
+	} else {
+		for (int i = 1; i < n; i++) {
+			if (dir * (pts[i].signal - t) >= 0) {
+				double s0 = pts[i - 1].signal, s1 = pts[i].signal;
+				double v0 = pts[i - 1].volume_ml, v1 = pts[i].volume_ml;
+				double f = s1 != s0 ? (t - s0) / (s1 - s0) : 1.0;
+				v = v0 + f * (v1 - v0);
+				break;
+			}
+		}
+	}
+	if (!isfinite(v))
+		return 0;
+	engine_endpoint_t ep;
+	memset(&ep, 0, sizeof ep);
+	ep.volume_ml = v;
+	fill_point_fields(pts, n, &ep);
+	ep.signal = t;
+	ep.n = 1;
+	ep.how = "target";
+	out[0] = ep;
+	return 1;
+}
+
+/* pH of a point for Gran: the point's own, else the ideal electrode. */
+static double gran_ph(const method_t *m, const engine_point_t *p)
+{
+	if (isfinite(p->ph))
+		return p->ph;
+	return m->signal == SIGNAL_MV ? 7.0 - p->mv / 59.16 : p->signal;
+}
+
+/* Straight line through (x, y): y = a + b x; returns r^2, or -1. */
+static double line_fit(const double *x, const double *y, int n, double *a, double *b)
+{
+	if (n < 3)
+		return -1;
+	double sx = 0, sy = 0, sxx = 0, sxy = 0, syy = 0;
+	for (int i = 0; i < n; i++) {
+		sx += x[i];
+		sy += y[i];
+	}
+	double mx = sx / n, my = sy / n;
+	for (int i = 0; i < n; i++) {
+		double dx = x[i] - mx, dy = y[i] - my;
+		sxx += dx * dx;
+		sxy += dx * dy;
+		syy += dy * dy;
+	}
+	if (!(sxx > 0) || !(syy > 0))
+		return -1;
+	*b = sxy / sxx;
+	*a = my - *b * mx;
+	return sxy * sxy / (sxx * syy);
+}
+
+/* Gran volume for the endpoint near ve0 (from the derivative), between the
+ * previous endpoint v_prev and ve0; NaN when the data do not allow it. */
+static double gran_volume(const method_t *m, const engine_point_t *pts, int n, int ph_dir,
+                          double v_prev, double ve0, double v0_ml)
+{
+	double span = ve0 - v_prev;
+	if (!(span > 0))
+		return NAN;
+	double *x = malloc((size_t)n * sizeof *x), *y1 = malloc((size_t)n * sizeof *y1),
+	       *y2 = malloc((size_t)n * sizeof *y2);
+	double best = NAN;
+	if (!x || !y1 || !y2)
+		goto out;
+	int k = 0;
+	for (int i = 0; i < n; i++) {
+		double v = pts[i].volume_ml;
+		/* 30..95 % of the way: the straight part of either Gran function */
+		if (v < v_prev + 0.3 * span || v > v_prev + 0.95 * span)
+			continue;
+		double f = pow(10.0, -ph_dir * (gran_ph(m, &pts[i]) - 7.0));
+		x[k] = v;
+		y1[k] = (v - v_prev) * f;
+		y2[k] = (v0_ml + v) * f;
+		k++;
+	}
+	double a1, b1, a2, b2;
+	double r1 = line_fit(x, y1, k, &a1, &b1);
+	double r2 = line_fit(x, y2, k, &a2, &b2);
+	double v1 = r1 > 0 && b1 < 0 ? -a1 / b1 : NAN;
+	double v2 = r2 > 0 && b2 < 0 ? -a2 / b2 : NAN;
+	if (isfinite(v1) && (!isfinite(v2) || r1 >= r2))
+		best = v1;
+	else if (isfinite(v2))
+		best = v2;
+	/* A Gran intercept far from the derivative's volume is not this endpoint. */
+	if (isfinite(best) && fabs(best - ve0) > 0.2 * span)
+		best = NAN;
+out:
+	free(x);
+	free(y1);
+	free(y2);
+	return best;
+}
+
+int endpoint_find(const method_t *m, const engine_point_t *pts, int n, int dir, bool final,
+                  double start_volume_ml, engine_endpoint_t *out, int cap)
+{
+	if (!pts || n < 1 || cap < 1)
+		return 0;
+	if (m->detect == DETECT_TARGET)
+		return find_target(m, pts, n, dir, out, cap);
+	int k = find_inflections(m, pts, n, dir, final, out, cap);
+	if (m->detect == DETECT_GRAN && final) {
+		int ph_dir = m->signal == SIGNAL_MV ? -dir : dir;
+		double v_prev = 0;
+		for (int i = 0; i < k; i++) {
+			double g = gran_volume(m, pts, n, ph_dir, v_prev, out[i].volume_ml,
+			                       start_volume_ml);
+			v_prev = out[i].volume_ml;
+			if (isfinite(g)) {
+				out[i].volume_ml = g;
+				fill_point_fields(pts, n, &out[i]);
+				out[i].how = "gran";
+			}
+		}
+	}
+	return k;
+}

@@ -1,0 +1,701 @@
+/* engine.c: the titration state machine (see engine.h).
+ *
+ * One run goes: stir (stir_s) -> first reading at 0 mL -> predose -> a loop of
+ * {dose, settle, accept a point, check endpoints and stops} -> evaluate.
+ * Time only comes from events; nothing here reads a clock or does I/O.
+ */
+#include "engine.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "chem.h"
+#include "endpoint.h"
+
+#define WIN_MAX 512 /* readings kept while settling */
+
+typedef enum {
+	ST_INIT = 0,
+	ST_STIR,   /* waiting for the TICK that ends stirring */
+	ST_SETTLE, /* reading until the signal is still */
+	ST_DOSE,   /* waiting for DOSED */
+	ST_REFILL, /* waiting for REFILLED */
+	ST_DONE,
+} state_t;
+
+struct engine {
+	method_t m;
+	engine_params_t p;
+	state_t st;
+	engine_action_t last; /* answer repeated for an unexpected event */
+	double t_s;           /* latest event time */
+	double t_start_s;
+	double quantum_ml;
+	double vmax_ml; /* effective volume limit, mL */
+
+	double dispensed_ml;
+	double content_ml; /* titrant left in the syringe */
+	int additions, refills;
+	double pending_ml; /* addition waiting for a refill or a DOSED */
+	bool predose_done;
+
+	/* settling: readings since the last addition */
+	double settle_from_s;
+	int n_win;
+	double win_t[WIN_MAX], win_s[WIN_MAX], win_mv[WIN_MAX], win_ph[WIN_MAX], win_tc[WIN_MAX];
+
+	engine_point_t *pts;
+	int n_pts, cap_pts;
+
+	int n_ep;
+	engine_endpoint_t ep[METHOD_MAX_ENDPOINTS];
+	bool all_found;
+	double stop_after_ml; /* once all endpoints are found: dose up to here */
+
+	int n_res;
+	engine_result_t res[METHOD_MAX_RESULTS];
+
+	engine_stop_t reason;
+	char fault_code[32];
+	char fault_msg[256];
+	const char *phase;
+};
+
+static const char *const stop_names[] = {
+    [ENGINE_STOP_NONE] = "",
+    [ENGINE_STOP_ENDPOINTS] = "endpoints_found",
+    [ENGINE_STOP_VOLUME_MAX] = "volume_max",
+    [ENGINE_STOP_SIGNAL_LIMIT] = "signal_limit",
+    [ENGINE_STOP_TIME_MAX] = "time_max",
+    [ENGINE_STOP_FAULT] = "fault",
+    [ENGINE_STOP_ABORTED] = "aborted",
+};
+
+const char *engine_stop_name(engine_stop_t s)
+{
+	if ((unsigned)s >= sizeof stop_names / sizeof stop_names[0])
+		return "";
+	return stop_names[s];
+}
+
+const char *engine_accept_name(engine_accept_t a)
+{
+	switch (a) {
+	case ENGINE_ACCEPT_PASS:
+		return "pass";
+	case ENGINE_ACCEPT_LOW:
+		return "low";
+	case ENGINE_ACCEPT_HIGH:
+		return "high";
+	default:
+		return "none";
+	}
+}
+
+engine_t *engine_new(const method_t *m, const engine_params_t *p)
+{
+	engine_t *e = calloc(1, sizeof *e);
+	if (!e)
+		return NULL;
+	e->m = *m;
+	e->p = *p;
+	if (!(e->p.burette_capacity_ml > 0))
+		e->p.burette_capacity_ml = 10.0;
+	if (e->p.burette_steps <= 0)
+		e->p.burette_steps = 20000;
+	if (!(e->p.read_interval_s > 0))
+		e->p.read_interval_s = 0.5;
+	if (!(e->p.start_volume_ml > 0))
+		e->p.start_volume_ml = 50.0;
+	if (!(e->p.titer > 0))
+		e->p.titer = 1.0;
+	e->quantum_ml = e->p.burette_capacity_ml / (double)e->p.burette_steps;
+	e->vmax_ml = m->volume_max_ml;
+	if (e->p.vessel_max_ml > 0 && e->p.vessel_max_ml < e->vmax_ml)
+		e->vmax_ml = e->p.vessel_max_ml;
+	if (!(e->vmax_ml >= 0))
+		e->vmax_ml = 0;
+	e->content_ml = e->p.burette_content_ml;
+	if (!(e->content_ml >= 0) || e->content_ml > e->p.burette_capacity_ml)
+		e->content_ml = e->p.burette_capacity_ml;
+	e->phase = "stirring";
+	e->stop_after_ml = INFINITY;
+	e->cap_pts = 64;
+	e->pts = malloc((size_t)e->cap_pts * sizeof *e->pts);
+	if (!e->pts) {
+		free(e);
+		return NULL;
+	}
+	return e;
+}
+
+void engine_free(engine_t *e)
+{
+	if (!e)
+		return;
+	free(e->pts);
+	free(e);
+}
+
+/* ---- small helpers ---- */
+
+static double signal_of(const engine_t *e, double mv, double ph)
+{
+	return e->m.signal == SIGNAL_MV ? mv : ph;
+}
+
+/* pH of a reading: the probe's own, else through the calibration (or the
+ * ideal electrode when signal: ph has none), else NaN. */
+static double ph_of(const engine_t *e, const engine_event_t *ev)
+{
+	double t_c = isfinite(ev->temperature_c) ? ev->temperature_c : 25.0;
+	if (ev->has_ph)
+		return ev->ph;
+	if (e->p.has_calibration)
+		return chem_ph_from_mv(e->p.cal_offset_mv, e->p.cal_slope_pct, ev->mv, t_c);
+	if (e->m.signal == SIGNAL_PH)
+		return chem_ph_from_mv(0.0, 100.0, ev->mv, t_c);
+	return NAN;
+}
+
+static engine_action_t act(engine_t *e, engine_act_kind_t k, double until_t_s)
+{
+	engine_action_t a = {.kind = k,
+	                     .until_t_s = until_t_s,
+	                     .stir_on = e->st != ST_DONE,
+	                     .phase = e->phase,
+	                     .new_point = -1};
+	return a;
+}
+
+static double quantize(const engine_t *e, double ml)
+{
+	return floor(ml / e->quantum_ml + 0.5) * e->quantum_ml;
+}
+
+/* ---- evaluation ---- */
+
+static void compute_results(engine_t *e)
+{
+	formula_vars_t fv;
+	memset(&fv, 0, sizeof fv);
+	for (int i = 0; i < e->n_ep && i < FORMULA_MAX_END; i++) {
+		formula_vars_set(&fv, (formula_var_t)(FV_END_ML + i), e->ep[i].volume_ml);
+		if (isfinite(e->ep[i].signal))
+			formula_vars_set(&fv, (formula_var_t)(FV_END_PH + i), e->ep[i].signal);
+		double half = endpoint_interp(e->pts, e->n_pts, e->ep[i].volume_ml / 2, 0);
+		if (isfinite(half))
+			formula_vars_set(&fv, (formula_var_t)(FV_HALF_PH + i), half);
+	}
+	if (e->p.has_blank)
+		formula_vars_set(&fv, FV_BLANK_ML, e->p.blank_ml);
+	formula_vars_set(&fv, FV_TITRANT_MOLARITY, e->m.titrant_molarity);
+	formula_vars_set(&fv, FV_TITER, e->p.titer);
+	formula_vars_set(&fv, FV_AMOUNT, e->p.amount);
+
+	e->n_res = 0;
+	for (int i = 0; i < e->m.n_results && i < METHOD_MAX_RESULTS; i++) {
+		const method_result_t *mr = &e->m.results[i];
+		engine_result_t *r = &e->res[e->n_res++];
+		memset(r, 0, sizeof *r);
+		memcpy(r->name, mr->name, sizeof r->name);
+		r->name[sizeof r->name - 1] = '\0';
+		_Static_assert(sizeof r->unit == sizeof mr->unit, "unit sizes");
+		memcpy(r->unit, mr->unit, sizeof r->unit);
+		r->unit[sizeof r->unit - 1] = '\0';
+		r->decimals = mr->decimals;
+		double v = 0;
+		char msg[160] = "";
+		formula_status_t st = formula_eval(&mr->formula, &fv, &v, msg, sizeof msg);
+		if (st != FORMULA_OK || !isfinite(v)) {
+			r->has_value = false;
+			snprintf(r->note, sizeof r->note, "%s", msg[0] ? msg : "no value");
+			r->accept = ENGINE_ACCEPT_NONE;
+			continue;
+		}
+		double scale = pow(10.0, mr->decimals);
+		double rv = round(v * scale) / scale;
+		if (!isfinite(rv))
+			rv = v;
+		r->has_value = true;
+		r->value = rv;
+		if (mr->has_min && rv < mr->accept_min)
+			r->accept = ENGINE_ACCEPT_LOW;
+		else if (mr->has_max && rv > mr->accept_max)
+			r->accept = ENGINE_ACCEPT_HIGH;
+		else if (mr->has_min || mr->has_max)
+			r->accept = ENGINE_ACCEPT_PASS;
+		else
+			r->accept = ENGINE_ACCEPT_NONE;
+	}
+}
+
+static int run_dir(const engine_t *e)
+{
+	int hint = 0;
+	double s0 = e->n_pts ? e->pts[0].signal : NAN;
+	if (e->m.detect == DETECT_TARGET && e->m.has_target && isfinite(s0))
+		hint = e->m.target > s0 ? 1 : -1;
+	else if (e->m.has_signal_limit && isfinite(s0))
+		hint = e->m.signal_limit > s0 ? 1 : -1;
+	return endpoint_direction(e->pts, e->n_pts, hint);
+}
+
+static void evaluate(engine_t *e)
+{
+	e->phase = "evaluating";
+	endpoint_central_dpdv(e->pts, e->n_pts);
+	int dir = run_dir(e);
+	e->n_ep = endpoint_find(&e->m, e->pts, e->n_pts, dir, true, e->p.start_volume_ml, e->ep,
+	                        METHOD_MAX_ENDPOINTS);
+	if (e->n_ep > e->m.count)
+		e->n_ep = e->m.count;
+	if (e->m.detect == DETECT_INFLECTION && e->n_ep > 0 && dir != 0) {
+		double t_c = isfinite(e->pts[0].temperature_c) ? e->pts[0].temperature_c : 25.0;
+		double k = chem_nernst_mv(t_c);
+		modelfit_ctx_t c = {
+		    .titrant_molar = e->m.titrant_molarity * e->p.titer,
+		    .dir = e->m.signal == SIGNAL_MV ? -dir : dir,
+		    .start_volume_ml = e->p.start_volume_ml,
+		    .pkw = chem_pkw(t_c),
+		    .sig7 = 7.0, /* signal ph: the nominal pH is the signal */
+		    .sig_per_ph = 1.0,
+		    .sigma_signal = 0.005,
+		    .sigma_ml = e->quantum_ml,
+		};
+		if (e->m.signal == SIGNAL_MV) {
+			double slope = e->p.has_calibration ? e->p.cal_slope_pct : 100.0;
+			c.sig7 = e->p.has_calibration ? e->p.cal_offset_mv : 0.0;
+			c.sig_per_ph = -k * slope / 100.0;
+			c.sigma_signal = 0.3;
+		}
+		modelfit_refine(&c, e->pts, e->n_pts, e->ep, e->n_ep);
+	}
+	compute_results(e);
+}
+
+static engine_action_t stop(engine_t *e, engine_stop_t why)
+{
+	if (e->st == ST_DONE)
+		return e->last;
+	e->reason = why;
+	evaluate(e);
+	e->st = ST_DONE;
+	engine_action_t a = act(e, ENGINE_ACT_STOP, e->t_s);
+	a.reason = why;
+	a.stir_on = false;
+	e->last = a;
+	return a;
+}
+
+static engine_action_t fault(engine_t *e, const char *code, const char *msg)
+{
+	snprintf(e->fault_code, sizeof e->fault_code, "%s", code ? code : "fault");
+	snprintf(e->fault_msg, sizeof e->fault_msg, "%s", msg ? msg : "");
+	return stop(e, ENGINE_STOP_FAULT);
+}
+
+/* ---- dosing ---- */
+
+/* Local slope |dS/dV| predicted for the next addition, signal/mL; 0 unknown. */
+static double predicted_slope(const engine_t *e)
+{
+	int n = e->n_pts;
+	if (n < 2)
+		return 0;
+	const engine_point_t *a = &e->pts[n - 2], *b = &e->pts[n - 1];
+	double dv = b->volume_ml - a->volume_ml;
+	if (!(dv > 0))
+		return 0;
+	double s1 = fabs(b->signal - a->signal) / dv;
+	if (n < 3)
+		return s1;
+	const engine_point_t *z = &e->pts[n - 3];
+	double dv0 = a->volume_ml - z->volume_ml;
+	if (!(dv0 > 0))
+		return s1;
+	double s0 = fabs(a->signal - z->signal) / dv0;
+	/* Rising slope: the next interval is steeper still. Extrapolate by the
+	 * last growth ratio (capped), so additions shrink before the jump, not
+	 * after it. A falling slope is taken as it is: additions grow again
+	 * past the inflection. */
+	if (s0 > 0 && s1 > s0) {
+		double g = s1 / s0;
+		if (g > 4)
+			g = 4;
+		return s1 * g;
+	}
+	return s1;
+}
+
+static double next_dose_ml(const engine_t *e)
+{
+	const method_t *m = &e->m;
+	double dose;
+	if (m->dosing == DOSING_CONSTANT) {
+		dose = m->dose_ml;
+	} else {
+		double lo = m->dose_min_ml, hi = m->dose_max_ml;
+		double slope = predicted_slope(e);
+		if (e->n_pts < 2 || !(slope > 0))
+			dose = sqrt(lo * hi);
+		else
+			dose = m->step_aim / slope;
+		/* Never more than three times the last addition: a flat stretch read
+		 * through noise must not launch a jump over the endpoint. */
+		int n = e->n_pts;
+		if (n >= 2) {
+			double last = e->pts[n - 1].volume_ml - e->pts[n - 2].volume_ml;
+			if (last > 0 && dose > 3 * last)
+				dose = 3 * last;
+		}
+		if (m->detect == DETECT_TARGET && m->has_target && n >= 1 && slope > 0) {
+			int dir = run_dir(e);
+			double left = (m->target - e->pts[n - 1].signal) * (dir ? dir : 1);
+			/* Approach the target in shrinking steps: aim at 60 % of the
+			 * remaining distance, so the last points bracket it closely. */
+			if (left > 0 && dose > 0.6 * left / slope)
+				dose = 0.6 * left / slope;
+		}
+		if (dose < lo)
+			dose = lo;
+		if (dose > hi)
+			dose = hi;
+	}
+	/* Size the last additions so the limits are met exactly, not crossed. */
+	double room = e->vmax_ml - e->dispensed_ml;
+	if (e->all_found && e->stop_after_ml - e->dispensed_ml < room)
+		room = e->stop_after_ml - e->dispensed_ml;
+	if (dose > room)
+		dose = room;
+	if (dose > e->p.burette_capacity_ml)
+		dose = e->p.burette_capacity_ml;
+	double q = quantize(e, dose);
+	if (q < e->quantum_ml)
+		q = e->quantum_ml;
+	/* Quantizing must not round past the limit either. */
+	while (q > e->vmax_ml - e->dispensed_ml + 1e-12 && q > e->quantum_ml)
+		q -= e->quantum_ml;
+	return q;
+}
+
+static engine_action_t begin_settle(engine_t *e)
+{
+	e->st = ST_SETTLE;
+	e->phase = "settling";
+	e->settle_from_s = e->t_s;
+	e->n_win = 0;
+	return act(e, ENGINE_ACT_READ, e->t_s);
+}
+
+static engine_action_t request_dose(engine_t *e, double ml)
+{
+	e->pending_ml = ml;
+	e->phase = "dosing";
+	if (ml > e->content_ml + 1e-9) {
+		e->st = ST_REFILL;
+		return act(e, ENGINE_ACT_REFILL, e->t_s);
+	}
+	e->st = ST_DOSE;
+	engine_action_t a = act(e, ENGINE_ACT_DOSE, e->t_s);
+	a.dose_ml = ml;
+	return a;
+}
+
+/* After a point is accepted: endpoints, stops, then the next addition. */
+static engine_action_t after_point(engine_t *e)
+{
+	const method_t *m = &e->m;
+	const engine_point_t *last = &e->pts[e->n_pts - 1];
+	double half_q = e->quantum_ml / 2;
+
+	int dir = run_dir(e);
+	if (!e->all_found) {
+		e->n_ep = endpoint_find(m, e->pts, e->n_pts, dir, false, e->p.start_volume_ml,
+		                        e->ep, METHOD_MAX_ENDPOINTS);
+		if (e->n_ep >= m->count) {
+			e->all_found = true;
+			e->stop_after_ml = e->ep[m->count - 1].volume_ml + m->past_endpoint_ml;
+		}
+	}
+	if (e->all_found && last->volume_ml >= e->stop_after_ml - half_q)
+		return stop(e, ENGINE_STOP_ENDPOINTS);
+	if (m->has_signal_limit && e->n_pts >= 2) {
+		double s0 = e->pts[0].signal, lim = m->signal_limit;
+		if ((s0 < lim && last->signal >= lim) || (s0 > lim && last->signal <= lim))
+			return stop(e, ENGINE_STOP_SIGNAL_LIMIT);
+	}
+	if (e->dispensed_ml >= e->vmax_ml - half_q)
+		return stop(e, ENGINE_STOP_VOLUME_MAX);
+	if (e->n_pts >= ENGINE_MAX_POINTS)
+		return fault(e, "too_many_points", "the run reached the engine's point limit");
+
+	if (!e->predose_done) {
+		e->predose_done = true;
+		if (m->predose_ml > 0) {
+			double ml = quantize(e, fmin(m->predose_ml, e->vmax_ml - e->dispensed_ml));
+			while (ml > e->vmax_ml - e->dispensed_ml + 1e-12 && ml > 0)
+				ml -= e->quantum_ml;
+			if (ml >= e->quantum_ml)
+				return request_dose(e, ml);
+		}
+	}
+	return request_dose(e, next_dose_ml(e));
+}
+
+static bool push_point(engine_t *e, const engine_point_t *pt)
+{
+	if (e->n_pts == e->cap_pts) {
+		int cap = e->cap_pts * 2;
+		engine_point_t *np = realloc(e->pts, (size_t)cap * sizeof *np);
+		if (!np)
+			return false;
+		e->pts = np;
+		e->cap_pts = cap;
+	}
+	e->pts[e->n_pts++] = *pt;
+	return true;
+}
+
+/* A reading while settling: accept a point when still, or at wait_max_s. */
+static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
+{
+	const method_t *m = &e->m;
+	double ph = ph_of(e, ev);
+	double sig = signal_of(e, ev->mv, ph);
+	if (!isfinite(ev->mv) || (m->signal == SIGNAL_PH && !isfinite(sig)))
+		return fault(e, "bad_reading", "the probe gave a reading that is not a number");
+	if (e->n_win == WIN_MAX) {
+		memmove(e->win_t, e->win_t + 1, (WIN_MAX - 1) * sizeof(double));
+		memmove(e->win_s, e->win_s + 1, (WIN_MAX - 1) * sizeof(double));
+		memmove(e->win_mv, e->win_mv + 1, (WIN_MAX - 1) * sizeof(double));
+		memmove(e->win_ph, e->win_ph + 1, (WIN_MAX - 1) * sizeof(double));
+		memmove(e->win_tc, e->win_tc + 1, (WIN_MAX - 1) * sizeof(double));
+		e->n_win--;
+	}
+	int w = e->n_win++;
+	e->win_t[w] = ev->t_s;
+	e->win_s[w] = sig;
+	e->win_mv[w] = ev->mv;
+	e->win_ph[w] = ph;
+	e->win_tc[w] = isfinite(ev->temperature_c) ? ev->temperature_c : 25.0;
+
+	double waited = ev->t_s - e->settle_from_s;
+	bool accept = false, settled = false;
+	int from = e->n_win - 1;
+	if (waited >= m->wait_min_s) {
+		/* Still: the readings of the last still_for_s, which must reach
+		 * back that far since the addition, lie within still_within. */
+		double t0 = ev->t_s - m->still_for_s;
+		while (from > 0 && e->win_t[from - 1] >= t0 - 1e-9)
+			from--;
+		bool covers = e->win_t[from] <= t0 + 1e-9 || m->still_for_s <= 0;
+		if (covers) {
+			double lo = INFINITY, hi = -INFINITY;
+			for (int i = from; i < e->n_win; i++) {
+				lo = fmin(lo, e->win_s[i]);
+				hi = fmax(hi, e->win_s[i]);
+			}
+			if (hi - lo <= m->still_within)
+				accept = settled = true;
+		}
+		if (!accept && waited >= m->wait_max_s) {
+			accept = true;
+			from = e->n_win - 1;
+		}
+	}
+	if (!accept)
+		return act(e, ENGINE_ACT_READ, ev->t_s + e->p.read_interval_s);
+
+	/* The point is the mean over the still window: it averages the noise
+	 * of the readings that showed the signal had settled. */
+	engine_point_t pt = {.t_s = ev->t_s, .volume_ml = e->dispensed_ml, .settled = settled};
+	double sm = 0, sv = 0, sp = 0, st = 0;
+	int cnt = 0;
+	for (int i = from; i < e->n_win; i++, cnt++) {
+		sm += e->win_s[i];
+		sv += e->win_mv[i];
+		sp += e->win_ph[i];
+		st += e->win_tc[i];
+	}
+	pt.signal = sm / cnt;
+	pt.mv = sv / cnt;
+	pt.ph = sp / cnt;
+	pt.temperature_c = st / cnt;
+	if (e->n_pts > 0) {
+		const engine_point_t *prev = &e->pts[e->n_pts - 1];
+		double dv = pt.volume_ml - prev->volume_ml;
+		pt.dpdv = dv > 0 ? (pt.signal - prev->signal) / dv : 0.0;
+	}
+	if (!push_point(e, &pt))
+		return fault(e, "out_of_memory", "no memory for another point");
+	int idx = e->n_pts - 1;
+	engine_action_t a = after_point(e);
+	a.new_point = idx;
+	if (e->st == ST_DONE)
+		e->last.new_point = -1;
+	return a;
+}
+
+engine_action_t engine_feed(engine_t *e, const engine_event_t *ev)
+{
+	if (e->st == ST_DONE)
+		return e->last;
+	if (!ev)
+		return e->last;
+	double t = ev->t_s;
+	if (!isfinite(t))
+		return fault(e, "bad_time", "an event came with a time that is not a number");
+	if (t > e->t_s || e->st == ST_INIT)
+		e->t_s = t;
+
+	if (ev->kind == ENGINE_EV_ABORT)
+		return stop(e, ENGINE_STOP_ABORTED);
+	if (ev->kind == ENGINE_EV_FAULT)
+		return fault(e, ev->code, ev->message);
+	if (e->st != ST_INIT && e->t_s - e->t_start_s >= e->m.time_max_s && e->st != ST_DOSE &&
+	    e->st != ST_REFILL)
+		return stop(e, ENGINE_STOP_TIME_MAX);
+
+	engine_action_t a = e->last;
+	switch (e->st) {
+	case ST_INIT:
+		if (ev->kind != ENGINE_EV_START)
+			return e->last;
+		e->t_start_s = t;
+		if (e->m.stir_s > 0) {
+			e->st = ST_STIR;
+			e->phase = "stirring";
+			a = act(e, ENGINE_ACT_STIR, t + e->m.stir_s);
+		} else {
+			a = begin_settle(e);
+		}
+		break;
+	case ST_STIR:
+		if (ev->kind != ENGINE_EV_TICK && ev->kind != ENGINE_EV_READING)
+			return e->last;
+		if (t < e->last.until_t_s)
+			return e->last;
+		a = begin_settle(e);
+		break;
+	case ST_SETTLE:
+		if (ev->kind != ENGINE_EV_READING)
+			return e->last;
+		a = on_reading(e, ev);
+		break;
+	case ST_REFILL:
+		if (ev->kind != ENGINE_EV_REFILLED)
+			return e->last;
+		e->content_ml = e->p.burette_capacity_ml;
+		e->refills++;
+		a = request_dose(e, e->pending_ml);
+		break;
+	case ST_DOSE: {
+		if (ev->kind != ENGINE_EV_DOSED)
+			return e->last;
+		double ml = ev->dosed_ml;
+		if (!isfinite(ml) || ml < 0 || ml > e->pending_ml + e->quantum_ml + 1e-9) {
+			char msg[160];
+			snprintf(msg, sizeof msg, "the burette reported %g mL for a %g mL addition",
+			         ml, e->pending_ml);
+			return fault(e, "bad_dose", msg);
+		}
+		e->dispensed_ml += ml;
+		e->content_ml -= ml;
+		if (e->content_ml < 0)
+			e->content_ml = 0;
+		e->additions++;
+		e->pending_ml = 0;
+		if (e->t_s - e->t_start_s >= e->m.time_max_s)
+			return stop(e, ENGINE_STOP_TIME_MAX);
+		a = begin_settle(e);
+		break;
+	}
+	case ST_DONE:
+		return e->last;
+	}
+	if (e->st != ST_DONE) {
+		e->last = a;
+		e->last.new_point = -1; /* a repeat must not announce the point again */
+	}
+	return a;
+}
+
+/* ---- accessors ---- */
+
+bool engine_done(const engine_t *e)
+{
+	return e->st == ST_DONE;
+}
+
+const char *engine_phase(const engine_t *e)
+{
+	return e->phase;
+}
+
+engine_stop_t engine_stop_reason(const engine_t *e)
+{
+	return e->reason;
+}
+
+const char *engine_fault_code(const engine_t *e)
+{
+	return e->reason == ENGINE_STOP_FAULT ? e->fault_code : "";
+}
+
+const char *engine_fault_message(const engine_t *e)
+{
+	return e->reason == ENGINE_STOP_FAULT ? e->fault_msg : "";
+}
+
+int engine_n_points(const engine_t *e)
+{
+	return e->n_pts;
+}
+
+const engine_point_t *engine_point(const engine_t *e, int i)
+{
+	return i >= 0 && i < e->n_pts ? &e->pts[i] : NULL;
+}
+
+int engine_additions(const engine_t *e)
+{
+	return e->additions;
+}
+
+double engine_dispensed_ml(const engine_t *e)
+{
+	return e->dispensed_ml;
+}
+
+int engine_refills(const engine_t *e)
+{
+	return e->refills;
+}
+
+int engine_n_endpoints(const engine_t *e)
+{
+	return e->n_ep;
+}
+
+const engine_endpoint_t *engine_endpoint(const engine_t *e, int i)
+{
+	return i >= 0 && i < e->n_ep ? &e->ep[i] : NULL;
+}
+
+int engine_n_results(const engine_t *e)
+{
+	return e->n_res;
+}
+
+const engine_result_t *engine_result(const engine_t *e, int i)
+{
+	return i >= 0 && i < e->n_res ? &e->res[i] : NULL;
+}
+
+double engine_dose_quantum_ml(const engine_t *e)
+{
+	return e->quantum_ml;
+}
