@@ -13,6 +13,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 #include "sha256.h"
 
@@ -290,6 +291,11 @@ static void parse_head(mp_ctx_t *c, const yt_node_t *root, const char *name)
 	w = (int)m->signal;
 	if (word(c, root, "signal", "signal", signal_words, &w, &c->f_signal))
 		m->signal = (method_signal_t)w;
+	else if (c->f_signal.node && c->f_signal.node->str &&
+	         !strcasecmp(c->f_signal.node->str, "mv"))
+		/* "mV" is already an error; read the rest as mV so its values do
+		 * not all fail the pH ranges as well. */
+		m->signal = SIGNAL_MV;
 	signal_defaults(m);
 }
 
