@@ -1,0 +1,236 @@
+/* cmd_predict.c: `stopcock predict METHOD.yaml --scenario S.yaml [--amount X]
+ * [--seed N] [--calibration SLOPE_PCT,OFFSET_MV] [--json]`.
+ *
+ * Runs the method offline with the daemon's own engine against the simulated
+ * beaker (simrun.h) on a virtual clock, and prints what the run would give:
+ * endpoints, results, additions and the simulated duration; --json prints
+ * the run record (record.h, the daemon's serializer) plus "duration_s" and,
+ * as an addition, "points".
+ *
+ * --amount X is the sample amount in the method's unit; with unit mL it is
+ * also the sample put in the beaker (the scenario's sample_ml otherwise).
+ * With signal: ph the engine reads mV through a calibration equal to the
+ * scenario's electrode unless --calibration gives another.
+ */
+#include <errno.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "chem.h"
+#include "cmd.h"
+#include "diag.h"
+#include "method.h"
+#include "record.h"
+#include "simrun.h"
+
+static void usage(FILE *f)
+{
+	fprintf(f, "usage: stopcock predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N]\n"
+	           "                        [--calibration SLOPE_PCT,OFFSET_MV] [--json]\n");
+}
+
+static bool parse_double(const char *s, double *out)
+{
+	char *end;
+	errno = 0;
+	double v = strtod(s, &end);
+	if (errno || end == s || *end || !isfinite(v))
+		return false;
+	*out = v;
+	return true;
+}
+
+static void print_human(const method_t *m, const engine_t *e, const simrun_out_t *out,
+                        const char *scenario, unsigned long long seed)
+{
+	printf("method %s (revision %ld) against %s, seed %llu\n", m->id, m->revision, scenario,
+	       seed);
+	const char *unit = m->signal == SIGNAL_MV ? "mV" : "pH";
+	int ne = engine_n_endpoints(e);
+	if (ne == 0)
+		printf("no endpoint found\n");
+	for (int i = 0; i < ne; i++) {
+		const engine_endpoint_t *ep = engine_endpoint(e, i);
+		printf("endpoint %d: %.4f mL", ep->n, ep->volume_ml);
+		if (isfinite(ep->u_volume_ml))
+			printf(" (u %.4f mL)", ep->u_volume_ml);
+		printf(" by %s", ep->how);
+		if (strcmp(ep->how, "model") == 0)
+			printf(" (derivative %.4f mL)", ep->deriv_ml);
+		else if (isfinite(ep->model_ml))
+			printf(" (model %.4f mL, not used)", ep->model_ml);
+		if (m->signal == SIGNAL_MV)
+			printf(", %.1f %s", ep->signal, unit);
+		if (isfinite(ep->ph))
+			printf(", pH %.2f", ep->ph);
+		if (isfinite(ep->half_ph))
+			printf(", pH %.2f at half volume", ep->half_ph);
+		printf("\n");
+	}
+	for (int i = 0; i < engine_n_results(e); i++) {
+		const engine_result_t *r = engine_result(e, i);
+		if (r->has_value)
+			printf("result %s: %.*f %s (%s)\n", r->name, r->decimals, r->value, r->unit,
+			       engine_accept_name(r->accept));
+		else
+			printf("result %s: none (%s)\n", r->name, r->note);
+	}
+	printf("additions: %d, dispensed %.4f mL, refills %d, points %d\n", engine_additions(e),
+	       engine_dispensed_ml(e), engine_refills(e), engine_n_points(e));
+	printf("stopped: %s", engine_stop_name(engine_stop_reason(e)));
+	if (engine_fault_code(e)[0])
+		printf(" (%s: %s)", engine_fault_code(e), engine_fault_message(e));
+	printf("\nsimulated duration: %.0f s (%.1f min)\n", out->duration_s,
+	       out->duration_s / 60.0);
+}
+
+static int print_json(const method_t *m, const engine_t *e, const simrun_out_t *out,
+                      const engine_params_t *p)
+{
+	run_record_t r;
+	record_init(&r);
+	record_set_method(&r, m);
+	record_fill_from_engine(&r, e, "");
+	engine_stop_t why = engine_stop_reason(e);
+	snprintf(r.state, sizeof r.state, "%s",
+	         why == ENGINE_STOP_FAULT     ? "failed"
+	         : why == ENGINE_STOP_ABORTED ? "aborted"
+	                                      : "finished");
+	r.sample.amount = p->amount;
+	r.titrant.titer = p->titer;
+	if (p->has_calibration) {
+		r.has_calibration = true;
+		r.calibration.slope_pct = p->cal_slope_pct;
+		r.calibration.offset_mv = p->cal_offset_mv;
+	}
+	r.has_duration = true;
+	r.duration_s = out->duration_s;
+	json_t *j = record_to_json(&r);
+	json_t *pts = json_array();
+	if (!j || !pts) {
+		json_decref(j);
+		json_decref(pts);
+		fprintf(stderr, "stopcock predict: out of memory\n");
+		return 1;
+	}
+	for (int i = 0; i < engine_n_points(e); i++)
+		json_array_append_new(pts, record_point_to_json(engine_point(e, i)));
+	json_object_set_new(j, "points", pts);
+	char *s = json_dumps(j, JSON_INDENT(2) | JSON_REAL_PRECISION(10));
+	json_decref(j);
+	if (!s) {
+		fprintf(stderr, "stopcock predict: out of memory\n");
+		return 1;
+	}
+	printf("%s\n", s);
+	free(s);
+	return 0;
+}
+
+int cmd_predict(int argc, char **argv)
+{
+	const char *method_path = NULL, *scenario_path = NULL;
+	simrun_opts_t o = {.seed = 1, .burette_start_ml = -1};
+	bool json = false;
+	for (int i = 1; i < argc; i++) {
+		const char *a = argv[i];
+		bool has_val = i + 1 < argc;
+		if (!strcmp(a, "--json")) {
+			json = true;
+		} else if (!strcmp(a, "-h") || !strcmp(a, "--help")) {
+			usage(stdout);
+			return 0;
+		} else if (!strcmp(a, "--scenario") && has_val) {
+			scenario_path = argv[++i];
+		} else if (!strcmp(a, "--amount") && has_val) {
+			if (!parse_double(argv[++i], &o.amount) || !(o.amount > 0)) {
+				fprintf(stderr,
+				        "stopcock predict: --amount must be a number > 0 "
+				        "(got '%s')\n",
+				        argv[i]);
+				return 2;
+			}
+			o.has_amount = true;
+		} else if (!strcmp(a, "--seed") && has_val) {
+			char *end;
+			errno = 0;
+			unsigned long long v = strtoull(argv[++i], &end, 10);
+			if (errno || end == argv[i] || *end || argv[i][0] == '-') {
+				fprintf(stderr,
+				        "stopcock predict: --seed must be a whole number "
+				        ">= 0 (got '%s')\n",
+				        argv[i]);
+				return 2;
+			}
+			o.seed = v;
+		} else if (!strcmp(a, "--calibration") && has_val) {
+			char buf[128];
+			snprintf(buf, sizeof buf, "%s", argv[++i]);
+			char *comma = strchr(buf, ',');
+			double slope = 0, off = 0;
+			if (comma)
+				*comma = '\0';
+			if (!comma || !parse_double(buf, &slope) ||
+			    !parse_double(comma + 1, &off) || !(slope > 0)) {
+				fprintf(stderr,
+				        "stopcock predict: --calibration wants SLOPE_PCT,"
+				        "OFFSET_MV, e.g. 98.5,-4.2 (got '%s')\n",
+				        argv[i]);
+				return 2;
+			}
+			o.has_calibration = true;
+			o.cal_slope_pct = slope;
+			o.cal_offset_mv = off;
+		} else if (a[0] == '-') {
+			fprintf(stderr, "stopcock predict: unknown or incomplete option '%s'\n", a);
+			usage(stderr);
+			return 2;
+		} else if (!method_path) {
+			method_path = a;
+		} else {
+			fprintf(stderr, "stopcock predict: one method file only (got '%s')\n", a);
+			return 2;
+		}
+	}
+	if (!method_path || !scenario_path) {
+		usage(stderr);
+		return 2;
+	}
+	method_t m;
+	chem_scenario_t s;
+	diag_list_t d = DIAG_LIST_INIT;
+	int bad = method_load(method_path, NULL, &m, &d);
+	bad |= scenario_load(scenario_path, &s, &d);
+	if (bad) {
+		diag_print(&d, stderr);
+		diag_free(&d);
+		return 2;
+	}
+	diag_free(&d);
+
+	simrun_out_t out;
+	engine_t *e = simrun_run(&m, &s, &o, &out);
+	if (!e) {
+		fprintf(stderr, "stopcock predict: out of memory\n");
+		return 1;
+	}
+	int rc = 0;
+	if (json) {
+		chem_scenario_t scn = s;
+		if (o.has_amount && m.sample_unit == UNIT_ML)
+			scn.sample_ml = o.amount;
+		engine_params_t p;
+		simrun_params(&m, &scn, &o, &p);
+		rc = print_json(&m, e, &out, &p);
+	} else {
+		print_human(&m, e, &out, scenario_path, o.seed);
+	}
+	if (out.stuck) {
+		fprintf(stderr, "stopcock predict: the simulation did not finish (engine bug)\n");
+		rc = 1;
+	}
+	engine_free(e);
+	return rc;
+}
