@@ -135,7 +135,7 @@ unit: $(SAN)/unit_tests
 	$(SAN)/unit_tests $(T)
 
 pytest: all san
-	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider tests $(T)
+	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider $(if $(T),$(T),tests)
 
 # ---- demo and benchmarks ----
 demo: deps
