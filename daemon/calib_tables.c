@@ -332,7 +332,7 @@ int calib_config_parse(const yt_doc_t *doc, const yt_node_t *n, calib_config_t *
 		                     &c->residual_max_mv, d) &&
 		     ok;
 	if ((v = yt_get(n, "expires_h")))
-		ok = yt_double_range(doc, v, "calibration.expires_h", "h", 0.01, 24.0 * 366,
+		ok = yt_double_range(doc, v, "calibration.expires_h", "h", 0.001, 24.0 * 366,
 		                     &c->expires_h, d) &&
 		     ok;
 	if ((v = yt_get(n, "stable")))
