@@ -11,11 +11,11 @@
  *
  *   1. Start-up: open the store, start every station thread, and wait until
  *      each station's devices have answered once (burette status and a probe
- *      reading). Only then call notify_ready(). If a station never answers
- *      within its deadline, log it and exit non-zero instead: systemd then
- *      reports the start as failed (TimeoutStartSec= is the outer deadline).
- *      While waiting, notify_status("waiting for station %s", name) is shown
- *      by `systemctl status`.
+ *      reading). Only then call notify_ready(). The wait is bounded (well
+ *      under TimeoutStartSec=): a station still silent at its end is logged,
+ *      stays offline (no runs) and is retried, and the daemon reports ready
+ *      for the others. While waiting, notify_status("waiting for station %s",
+ *      name) is shown by `systemctl status`.
  *
  *   2. Watchdog: notify_watchdog_interval_us() gives systemd's WatchdogSec in
  *      microseconds (0: no watchdog; then do not ping). A supervisor loop (the
