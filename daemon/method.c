@@ -108,48 +108,15 @@ static void signal_defaults(method_t *m)
 static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const char *where)
 {
 	/* Every key of the schema: a known key is never taken for a typo. */
-	static const char *const known[] = {"method",
-	                                    "title",
-	                                    "revision",
-	                                    "purpose",
-	                                    "titrant",
-	                                    "sample",
-	                                    "signal",
-	                                    "start",
-	                                    "dosing",
-	                                    "settle",
-	                                    "detect",
-	                                    "stop",
-	                                    "results",
-	                                    "name",
-	                                    "molarity",
-	                                    "unit",
-	                                    "min",
-	                                    "max",
-	                                    "stir_s",
-	                                    "predose_ml",
-	                                    "mode",
-	                                    "step_aim",
-	                                    "dose_min_ml",
-	                                    "dose_max_ml",
-	                                    "dose_ml",
-	                                    "wait_min_s",
-	                                    "wait_max_s",
-	                                    "still_within",
-	                                    "still_for_s",
-	                                    "kind",
-	                                    "count",
-	                                    "min_jump",
-	                                    "window",
-	                                    "target",
-	                                    "past_endpoint_ml",
-	                                    "volume_max_ml",
-	                                    "signal_limit",
-	                                    "time_max_s",
-	                                    "formula",
-	                                    "decimals",
-	                                    "accept",
-	                                    NULL};
+	/* clang-format off */
+	static const char *const known[] = {
+		"method", "title", "revision", "purpose", "titrant", "sample", "signal", "start",
+		"dosing", "settle", "detect", "stop", "results", "name", "molarity", "unit", "min",
+		"max", "stir_s", "predose_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
+		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
+		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
+		"signal_limit", "time_max_s", "formula", "decimals", "accept", NULL};
+	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
 		const char *k = map->keys[i]->str;
 		bool is_known = false;
