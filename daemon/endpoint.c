@@ -227,9 +227,13 @@ static int find_inflections(const method_t *m, const engine_point_t *pts, int n,
 		if (k == ms - 1)
 			continue; /* still rising at the last point: not past it yet */
 		/* Prominence: a real peak stands at least 1.5 times above the
-		 * derivative just outside its flanks; a noise bump on another
-		 * peak's flank does not. */
-		double edge = 0;
+		 * derivative at both ends of its flanks and just outside them. A
+		 * noise bump on another peak's flank does not, nor does the fast
+		 * start of a weak acid (the derivative only falls from the first
+		 * point: there is no rise before it). */
+		if (lo == k || hi == k)
+			continue;
+		double edge = fmax(sg[lo].g, sg[hi].g);
 		if (lo > 0)
 			edge = fmax(edge, sg[lo - 1].g);
 		if (hi < ms - 1)
