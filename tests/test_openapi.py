@@ -8,6 +8,7 @@ Starts `stopcock-sim` (which writes a daemon config for its bench) and
   - checks that every route the daemon's source serves is in the spec.
 """
 
+import contextlib
 import json
 import os
 import re
@@ -242,14 +243,15 @@ class Api:
             return e.code, e.headers.get("Content-Type", ""), e.read()
 
 
-@pytest.fixture(scope="module")
-def daemon(tmp_path_factory):
+@contextlib.contextmanager
+def bench(tmp, env=None):
+    """stopcock-sim and a stopcockd driving it; yields (Api, daemon process).
+    Both are stopped with SIGTERM at the end."""
     bins = build_dir() / "bin"
     for b in ("stopcockd", "stopcock-sim"):
         assert (bins / b).exists(), f"{bins / b} is not built"
     scenarios = sorted((ROOT / "config" / "scenarios").glob("*.yaml"))
     assert scenarios, "config/scenarios has no scenario to simulate"
-    tmp = tmp_path_factory.mktemp("openapi")
     http_port = free_port()
     sim = subprocess.Popen(
         [str(bins / "stopcock-sim"), "--scenario", str(scenarios[0]),
@@ -264,7 +266,7 @@ def daemon(tmp_path_factory):
             f"stopcock-sim said {line!r}:\n{(tmp / 'sim.log').read_text()}"
         d = subprocess.Popen([str(bins / "stopcockd"), "-c", str(tmp / "stopcockd.yaml")],
                              stdout=subprocess.DEVNULL, stderr=open(tmp / "d.log", "wb"),
-                             cwd=ROOT)
+                             cwd=ROOT, env=env)
         procs.append(d)
         token = ""
         for ln in (tmp / "token").read_text().splitlines():
@@ -284,7 +286,7 @@ def daemon(tmp_path_factory):
             assert time.monotonic() < end, \
                 f"stopcockd never answered:\n{(tmp / 'd.log').read_text()}"
             time.sleep(0.2)
-        yield api
+        yield api, d
     finally:
         for p in reversed(procs):
             if p.poll() is None:
@@ -294,6 +296,12 @@ def daemon(tmp_path_factory):
                 except subprocess.TimeoutExpired:
                     p.kill()
                     p.wait()
+
+
+@pytest.fixture(scope="module")
+def daemon(tmp_path_factory):
+    with bench(tmp_path_factory.mktemp("openapi")) as (api, _):
+        yield api
 
 
 # A method in mV, so a run needs no electrode calibration (Fernhill Water

@@ -277,3 +277,72 @@ def test_every_program_has_a_man_page():
     names = {p.name for p in MAN_PAGES}
     assert {"stopcockd.8", "stopcock.1", "stopcock-sim.1", "stopcockd.yaml.5",
             "stopcock-method.5"} <= names
+
+
+# ---------------------------------------------------------------- sd_notify
+
+
+def test_daemon_talks_to_systemd(tmp_path):
+    """stopcockd under a stand-in for systemd: NOTIFY_SOCKET is a datagram
+    socket of ours, WATCHDOG_USEC asks for pings. READY=1 comes once, with
+    the station's devices answering; WATCHDOG=1 keeps coming while the
+    stations run; SIGHUP gives RELOADING=1 then READY=1; SIGTERM gives
+    STOPPING=1 and exit status 0."""
+    import json
+    import select
+    from test_openapi import bench
+
+    sock_path = tmp_path / "notify.sock"
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+    sock.bind(str(sock_path))
+    got = []  # (monotonic s, message)
+
+    def drain(seconds):
+        end = time.monotonic() + seconds
+        while time.monotonic() < end:
+            r, _, _ = select.select([sock], [], [], 0.05)
+            if r:
+                got.append((time.monotonic(), sock.recv(4096).decode()))
+
+    watchdog_s = 1.0
+    env = dict(os.environ, NOTIFY_SOCKET=str(sock_path),
+               WATCHDOG_USEC=str(int(watchdog_s * 1e6)))
+    env.pop("WATCHDOG_PID", None)
+    try:
+        with bench(tmp_path, env) as (api, d):
+            drain(0.5)
+            # READY=1 must have come by the time the daemon answers, or soon after.
+            end = time.monotonic() + 20
+            while not any(m == "READY=1" for _, m in got) and time.monotonic() < end:
+                drain(0.2)
+            ready = [t for t, m in got if m == "READY=1"]
+            assert len(ready) == 1, got
+            st, _, body = api.call("get", "/v1/stations")
+            states = [s["state"] for s in json.loads(body)["stations"]]
+            assert "offline" not in states, f"READY=1 with a station offline: {states}"
+            # Pings: the daemon looks every WatchdogSec/4 and pings when every
+            # station checked in within WatchdogSec/2.
+            t0 = time.monotonic()
+            drain(3 * watchdog_s)
+            pings = [t for t, m in got if m == "WATCHDOG=1" and t >= t0]
+            assert len(pings) >= 6, f"{len(pings)} pings in {3 * watchdog_s} s: {got[-10:]}"
+            gaps = [b - a for a, b in zip(pings, pings[1:])]
+            assert max(gaps) < watchdog_s / 2, f"longest gap between pings {max(gaps):.2f} s"
+            print(f"sd_notify: {len(pings)} pings in {3 * watchdog_s:.0f} s, "
+                  f"longest gap {max(gaps):.3f} s (WatchdogSec {watchdog_s} s)")
+            assert any(m.startswith("STATUS=") for _, m in got), got
+            # SIGHUP: reload, then ready again.
+            n = len(got)
+            d.send_signal(signal.SIGHUP)
+            drain(1.5)
+            after = [m for _, m in got[n:] if m in ("RELOADING=1", "READY=1")]
+            assert after[:2] == ["RELOADING=1", "READY=1"], got[n:]
+            # SIGTERM: STOPPING=1, then a clean exit.
+            n = len(got)
+            d.send_signal(signal.SIGTERM)
+            rc = d.wait(timeout=15)
+            drain(0.3)
+            assert rc == 0, (tmp_path / "d.log").read_text()
+            assert "STOPPING=1" in [m for _, m in got[n:]], got[n:]
+    finally:
+        sock.close()
