@@ -56,14 +56,10 @@ static modbus_mapping_t *new_map(void)
 }
 
 /* What a fault does to one request: 0 reply, 1 no reply, 2 exception. */
-static int before_reply(sim_t *s, modbus_mapping_t *map)
+static int fault_action(sim_t *s)
 {
 	pthread_mutex_lock(&s->mu);
 	sim_fault_t f = s->fault;
-	memcpy(map->tab_input_registers, s->regs, sizeof(s->regs));
-	memcpy(map->tab_registers, s->regs, sizeof(s->regs));
-	map->tab_bits[SIM_COIL_STIRRER] = s->stir_on;
-	map->tab_registers[SIM_HOLD_STIR_RPM] = s->stir_rpm;
 	pthread_mutex_unlock(&s->mu);
 	if (f == SIM_FAULT_MUTE_PROBE || f == SIM_FAULT_UNPLUG)
 		return 1;
@@ -79,25 +75,26 @@ static int before_reply(sim_t *s, modbus_mapping_t *map)
 	return 0;
 }
 
-static void after_reply(sim_t *s, modbus_mapping_t *map)
-{
-	pthread_mutex_lock(&s->mu);
-	s->stir_on = map->tab_bits[SIM_COIL_STIRRER] != 0;
-	s->stir_rpm = map->tab_registers[SIM_HOLD_STIR_RPM];
-	pthread_mutex_unlock(&s->mu);
-}
-
+/* Registers in, reply, coil and speed writes out, all under the lock, so a
+ * client that saw the reply also sees the change in `state`. */
 static void serve_one(sim_t *s, modbus_t *ctx, modbus_mapping_t *map, const uint8_t *q, int len)
 {
-	int what = before_reply(s, map);
+	int what = fault_action(s);
 	if (what == 1)
 		return;
 	if (what == 2) {
 		modbus_reply_exception(ctx, q, MODBUS_EXCEPTION_SLAVE_OR_SERVER_FAILURE);
 		return;
 	}
+	pthread_mutex_lock(&s->mu);
+	memcpy(map->tab_input_registers, s->regs, sizeof(s->regs));
+	memcpy(map->tab_registers, s->regs, sizeof(s->regs));
+	map->tab_bits[SIM_COIL_STIRRER] = s->stir_on;
+	map->tab_registers[SIM_HOLD_STIR_RPM] = s->stir_rpm;
 	modbus_reply(ctx, q, len, map);
-	after_reply(s, map);
+	s->stir_on = map->tab_bits[SIM_COIL_STIRRER] != 0;
+	s->stir_rpm = map->tab_registers[SIM_HOLD_STIR_RPM];
+	pthread_mutex_unlock(&s->mu);
 }
 
 void *sim_tcp_thread(void *arg)
