@@ -552,6 +552,7 @@ static int method_from_doc(const yt_doc_t *doc, const char *name, const method_l
 	c.d = d;
 	c.m = m;
 	c.lim = lim;
+	c.titer_index = -1;
 	if (!yt_want_map(doc, doc->root, "a method file", d))
 		goto out;
 	yt_check_keys(doc, doc->root, top, "method", d);

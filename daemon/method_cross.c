@@ -7,6 +7,7 @@
 #include <math.h>
 #include <stdio.h>
 #include <string.h>
+#include <strings.h>
 
 /* ---- positions inside scalars ---- */
 
@@ -256,8 +257,6 @@ static void parse_result(mp_ctx_t *c, const yt_node_t *item, int i)
 		else
 			check_formula_vars(c, n, r->formula_text, path);
 	}
-	if (named && !strcmp(r->name, "titer"))
-		c->titer_result = item;
 
 	n = yt_get(item, "unit");
 	snprintf(path, sizeof path, "%s.unit", where);
@@ -268,6 +267,15 @@ static void parse_result(mp_ctx_t *c, const yt_node_t *item, int i)
 	snprintf(path, sizeof path, "%s.decimals", where);
 	if (n && yt_long(c->doc, n, path, 0, 10, &dec, c->d))
 		r->decimals = (int)dec;
+
+	if (named && !c->titer_is_named &&
+	    (!strcmp(r->name, "titer") ||
+	     (c->titer_index < 0 &&
+	      (!strcmp(r->name, "molarity") || !strcasecmp(r->unit, "mol/L"))))) {
+		c->titer_index = m->n_results;
+		c->titer_is_named = !strcmp(r->name, "titer");
+		c->titer_item = item;
+	}
 
 	acc = yt_get(item, "accept");
 	snprintf(path, sizeof path, "%s.accept", where);
@@ -425,28 +433,21 @@ void mp_cross_check(mp_ctx_t *c, const yt_node_t *root)
 			         "sample.unit must be g with purpose: standardize (the primary "
 			         "standard is weighed; got %s)",
 			         su);
-		if (!c->titer_result) {
+		if (c->titer_index < 0) {
 			yt_error(c->doc, rk ? rk : c->f_purpose.node, c->d,
 			         "purpose: standardize needs a result named 'titer' (the titrant's "
-			         "actual/nominal molarity)");
+			         "actual/nominal molarity) or 'molarity' (in mol/L)");
 		} else {
-			const method_result_t *r = NULL;
-			char titer_where[32] = "results";
-			for (int i = 0; i < m->n_results; i++)
-				if (!strcmp(m->results[i].name, "titer")) {
-					r = &m->results[i];
-					snprintf(titer_where, sizeof titer_where, "results[%d]",
-					         i + 1);
-				}
+			const method_result_t *r = &m->results[c->titer_index];
 			unsigned ends = (1u << FV_END_ML) | (1u << (FV_END_ML + 1)) |
 			                (1u << (FV_END_ML + 2)) | (1u << (FV_END_ML + 3));
-			if (r && r->formula.n > 0 &&
+			if (r->formula.n > 0 &&
 			    (!(r->formula.used & (1u << FV_AMOUNT)) || !(r->formula.used & ends)))
-				yt_error(c->doc, yt_get(c->titer_result, "formula"), c->d,
-				         "%s.formula: the titer formula must use amount (the "
-				         "weighed standard, g) and an endpoint volume such as "
-				         "end1_ml",
-				         titer_where);
+				yt_error(
+				    c->doc, yt_get(c->titer_item, "formula"), c->d,
+				    "results[%d].formula: the %s formula must use amount (the "
+				    "weighed standard, g) and an endpoint volume such as end1_ml",
+				    c->titer_index + 1, r->name);
 		}
 	}
 

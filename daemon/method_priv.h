@@ -29,7 +29,12 @@ typedef struct mp_ctx {
 	mp_field_t f_wait_min, f_wait_max, f_still_within, f_still_for;
 	mp_field_t f_kind, f_count, f_min_jump, f_window, f_target;
 	mp_field_t f_past, f_vol_max, f_limit, f_time_max;
-	const yt_node_t *titer_result; /* results[i] named titer, or NULL */
+	/* The result a standardize run takes its titer from (the rule of
+	 * stdz_titer_from_result in calib.h): one named titer, else the first
+	 * named molarity or in mol/L. -1 when none. */
+	int titer_index;
+	bool titer_is_named;
+	const yt_node_t *titer_item;
 } mp_ctx_t;
 
 const char *mp_signal_unit(const method_t *m);

@@ -270,6 +270,31 @@ TEST(method_mv_defaults_and_constant_mode)
 	diag_free(&d);
 }
 
+TEST(method_standardize_by_molarity)
+{
+	/* A standardize run may report the measured molarity instead of the
+	 * titer: stdz_titer_from_result (calib.h) divides it by the nominal. */
+	static const char text[] =
+	    "method: khp-molarity\n"
+	    "title: NaOH against KHP, as mol/L\n"
+	    "revision: 1\n"
+	    "purpose: standardize\n"
+	    "titrant: {name: NaOH 0.1 mol/L, molarity: 0.1}\n"
+	    "sample: {unit: g, min: 0.3, max: 0.7}\n"
+	    "detect: {kind: inflection}\n"
+	    "stop: {volume_max_ml: 40}\n"
+	    "results:\n"
+	    "  - {name: molarity, formula: 1000 * amount / (204.22 * end1_ml),"
+	    " unit: mol/L}\n";
+	method_t m;
+	diag_list_t d = DIAG_LIST_INIT;
+	CHECK(method_parse("khp-molarity.yaml", text, strlen(text), NULL, &m, &d) == 0);
+	CHECK_INT(d.n, 0);
+	CHECK(m.purpose == PURPOSE_STANDARDIZE);
+	CHECK(m.sample_unit == UNIT_G);
+	diag_free(&d);
+}
+
 TEST(method_too_large)
 {
 	/* yamltree refuses more than 256 KiB before parsing anything. */
