@@ -346,3 +346,47 @@ def test_daemon_talks_to_systemd(tmp_path):
             assert "STOPPING=1" in [m for _, m in got[n:]], got[n:]
     finally:
         sock.close()
+
+
+# ---------------------------------------------------------------- examples in man pages
+
+
+def man_example(page, first_key):
+    """The EXAMPLE section's YAML of a rendered man page, from its first key."""
+    env = dict(os.environ, MANWIDTH="200", LC_ALL="C.UTF-8")
+    out = re.sub(r".\x08", "", run(["man", "-l", str(page)], env=env).stdout)
+    m = re.search(r"^EXAMPLES?\n(.*?)^\S", out, re.M | re.S)
+    assert m, f"{page.name}: no EXAMPLE section"
+    lines = m.group(1).splitlines()
+    start = next(i for i, ln in enumerate(lines) if ln.strip().startswith(first_key))
+    indent = len(lines[start]) - len(lines[start].lstrip())
+    body = []
+    for ln in lines[start:]:
+        if ln.strip() and len(ln) - len(ln.lstrip()) < indent:
+            break  # the prose after the example
+        body.append(ln[indent:])
+    while body and not body[-1].strip():
+        body.pop()
+    return "\n".join(body) + "\n"
+
+
+def test_config_example_in_man_page_is_valid(tmp_path):
+    text = man_example(ROOT / "docs" / "stopcockd.yaml.5", "http:")
+    token = tmp_path / "token"
+    token.write_text("lims:" + "f" * 24 + "\n")
+    text = text.replace("/etc/stopcock/token", str(token)) \
+        .replace("/var/lib/stopcock/stopcock.db", str(tmp_path / "x.db")) \
+        .replace("/etc/stopcock/methods", str(ROOT / "config" / "methods"))
+    cfg = tmp_path / "stopcockd.yaml"
+    cfg.write_text(text)
+    r = run([str(build_dir() / "bin" / "stopcockd"), "--check-config", "-c", str(cfg)])
+    assert r.returncode == 0, f"{text}\n{r.stdout}{r.stderr}"
+
+
+def test_method_example_in_man_page_is_valid(tmp_path):
+    text = man_example(ROOT / "docs" / "stopcock-method.5", "method:")
+    f = tmp_path / "cider-acidity.yaml"
+    f.write_text(text)
+    r = run([str(build_dir() / "bin" / "stopcock"), "check", str(f)])
+    assert r.returncode == 0, f"{text}\n{r.stdout}{r.stderr}"
+    assert "revision 3" in r.stdout
