@@ -390,3 +390,17 @@ def test_method_example_in_man_page_is_valid(tmp_path):
     r = run([str(build_dir() / "bin" / "stopcock"), "check", str(f)])
     assert r.returncode == 0, f"{text}\n{r.stdout}{r.stderr}"
     assert "revision 3" in r.stdout
+
+
+def test_installed_example_config_is_valid(installed, tmp_path):
+    example = installed / "etc/stopcock/stopcockd.yaml.example"
+    assert example.is_file(), "no example configuration installed (config/stopcockd.yaml)"
+    token = tmp_path / "token"
+    token.write_text("lims:" + "e" * 24 + "\n")
+    text = example.read_text().replace("/etc/stopcock/token", str(token)) \
+        .replace("/var/lib/stopcock/stopcock.db", str(tmp_path / "x.db")) \
+        .replace("/etc/stopcock/methods", str(installed / "usr/share/stopcock/methods"))
+    cfg = tmp_path / "stopcockd.yaml"
+    cfg.write_text(text)
+    r = run([str(installed / "usr/sbin/stopcockd"), "--check-config", "-c", str(cfg)])
+    assert r.returncode == 0, f"{r.stdout}{r.stderr}"
