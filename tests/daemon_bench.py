@@ -103,17 +103,23 @@ class Bench:
         return rc
 
     def close(self):
+        rcs = []
         for p in (self.daemon, self.sim):
             if p is not None and p.poll() is None:
                 p.send_signal(signal.SIGTERM)
                 try:
-                    p.wait(timeout=15)
+                    rcs.append(p.wait(timeout=15))
                 except subprocess.TimeoutExpired:
                     p.kill()
                     p.wait()
+                    rcs.append("hung")
         self.sim.stdout.close()
         self.sim_log.close()
         self.daemon_log.close()
+        log = (self.tmp / "daemon.log").read_text(errors="replace")
+        # Under the sanitizer build (STOPCOCK_BUILD=.../san) reports land here.
+        assert "Sanitizer" not in log and "runtime error" not in log, log[-4000:]
+        assert rcs and rcs[0] == 0, f"stopcockd exited {rcs[0]} on SIGTERM; see {self.tmp}"
 
     # ---- the simulator ----
     def control(self, line):

@@ -1,0 +1,117 @@
+/* test_config.c: the daemon config reader: listen addresses, paths, tokens,
+ * and errors with file:line:col. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "config.h"
+#include "harness.h"
+
+static void write_file(const char *path, const char *text)
+{
+	FILE *f = fopen(path, "w");
+	if (f) {
+		fputs(text, f);
+		fclose(f);
+	}
+}
+
+TEST(config_listen_addresses)
+{
+	char a[64];
+	int port = 0;
+	CHECK(cfg_parse_listen("127.0.0.1:8470", a, sizeof a, &port) == 0);
+	CHECK_STR(a, "127.0.0.1");
+	CHECK_INT(port, 8470);
+	CHECK(cfg_parse_listen("[::1]:9000", a, sizeof a, &port) == 0);
+	CHECK_STR(a, "::1");
+	CHECK_INT(port, 9000);
+	CHECK(cfg_parse_listen("localhost:8470", a, sizeof a, &port) != 0);
+	CHECK(cfg_parse_listen("127.0.0.1", a, sizeof a, &port) != 0);
+	CHECK(cfg_parse_listen("127.0.0.1:70000", a, sizeof a, &port) != 0);
+	CHECK(cfg_parse_listen("127.0.0.1:80x", a, sizeof a, &port) != 0);
+	CHECK(cfg_parse_listen("", a, sizeof a, &port) != 0);
+}
+
+TEST(config_paths_resolve_against_the_file)
+{
+	char out[256];
+	cfg_resolve_path("/etc/stopcock/stopcockd.yaml", "token", out, sizeof out);
+	CHECK_STR(out, "/etc/stopcock/token");
+	cfg_resolve_path("/etc/stopcock/stopcockd.yaml", "/var/x.db", out, sizeof out);
+	CHECK_STR(out, "/var/x.db");
+	cfg_resolve_path("stopcockd.yaml", "token", out, sizeof out);
+	CHECK_STR(out, "token");
+}
+
+TEST(config_load_defaults_and_errors)
+{
+	char dir[] = "/tmp/stopcock-cfg-XXXXXX", path[128];
+	static cfg_t c;
+	diag_list_t d = DIAG_LIST_INIT;
+
+	REQUIRE(mkdtemp(dir));
+	snprintf(path, sizeof path, "%s/c.yaml", dir);
+	write_file(path, "storage: {database: db/s.db}\n"
+	                 "stations:\n"
+	                 "  - name: bench-1\n"
+	                 "    vessel_max_ml: 100\n"
+	                 "    burette: {driver: x}\n"
+	                 "    probe: {driver: y}\n");
+	CHECK(cfg_load(path, &c, &d) == 0);
+	CHECK_INT(d.n, 0);
+	CHECK_STR(c.listen_addr, "127.0.0.1"); /* loopback unless configured */
+	CHECK_INT(c.listen_port, 8470);
+	CHECK_INT(c.max_body_bytes, 256 * 1024);
+	CHECK(!c.read_needs_token);
+	CHECK_INT(c.n_stations, 1);
+	CHECK(c.stations[0].stirrer == NULL);
+	CHECK(strstr(c.database, "/db/s.db") != NULL);
+	cfg_free(&c);
+
+	write_file(path, "http:\n"
+	                 "  listen: nowhere\n"
+	                 "  max_conections: 3\n"
+	                 "stations:\n"
+	                 "  - name: Bench_1\n"
+	                 "    vessel_max_ml: 0\n"
+	                 "    probe: {driver: y}\n");
+	CHECK(cfg_load(path, &c, &d) != 0);
+	{
+		char *all = diag_join(&d);
+		REQUIRE(all);
+		CHECK(strstr(all, ":2:") != NULL); /* listen */
+		CHECK(strstr(all, ":3:") != NULL); /* unknown key */
+		CHECK(strstr(all, "max_connections") != NULL);
+		CHECK(strstr(all, ":5:") != NULL); /* name */
+		CHECK(strstr(all, ":6:") != NULL); /* vessel_max_ml */
+		CHECK(strstr(all, "burette") != NULL);
+		free(all);
+	}
+	diag_free(&d);
+	cfg_free(&c);
+	unlink(path);
+	rmdir(dir);
+}
+
+TEST(config_tokens)
+{
+	char dir[] = "/tmp/stopcock-tok-XXXXXX", path[128];
+	cfg_tokens_t t;
+	diag_list_t d = DIAG_LIST_INIT;
+
+	REQUIRE(mkdtemp(dir));
+	snprintf(path, sizeof path, "%s/token", dir);
+	write_file(path, "# the LIMS\nlims:0123456789abcdef0123\n\nops:short\nbadline\n");
+	CHECK(cfg_load_tokens(path, &t, &d) != 0);
+	CHECK_INT(t.n, 1);
+	CHECK_STR(t.v[0].name, "lims");
+	CHECK_STR(t.v[0].token, "0123456789abcdef0123");
+	CHECK_INT(d.n, 2); /* too short, no colon */
+	diag_free(&d);
+	unlink(path);
+	CHECK(cfg_load_tokens(path, &t, &d) != 0);
+	diag_free(&d);
+	rmdir(dir);
+}
