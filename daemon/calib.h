@@ -239,6 +239,24 @@ typedef struct stdz_result {
  * RSD <= max_rsd_pct. Returns 0, or -1 when nothing can be computed (n < 1). */
 int stdz_replicates(const double *titers, int n, double max_rsd_pct, stdz_result_t *out);
 
+/* Replicates of one titrant, collected run by run by the caller (e.g. one per
+ * station, in memory). */
+#define STDZ_MAX_REPLICATES 20
+typedef struct stdz_series {
+	char titrant[160]; /* the method's titrant name */
+	int n;
+	double titers[STDZ_MAX_REPLICATES];
+} stdz_series_t;
+
+/* Add one standardization run's titer. A titer for another titrant than the
+ * series holds starts a new series. When the series reaches cfg->replicates,
+ * fills *out (mean, SD, RSD, accepted or not, reason), empties the series and
+ * returns true: store out->mean as the titrant's titer when out->accepted.
+ * Otherwise returns false (out->n says how many are collected). A titer
+ * that is not finite and > 0 is ignored (false). */
+bool stdz_series_add(stdz_series_t *s, const stdz_config_t *cfg, const char *titrant, double titer,
+                     stdz_result_t *out);
+
 /* Molarity (mol/L) of a base titrated against potassium hydrogen phthalate
  * (1:1): c = 1000 m P / (204.22 (V - V_blank)), CHECKS.md section 8. mass_g
  * of KHP, purity as a fraction (1.0 when unknown), volumes mL. NaN when

@@ -119,3 +119,41 @@ int stdz_titer_from_result(const char *name, const char *unit, double value,
 	}
 	return -1;
 }
+
+bool stdz_series_add(stdz_series_t *s, const stdz_config_t *cfg, const char *titrant, double titer,
+                     stdz_result_t *out)
+{
+	stdz_config_t def;
+	if (!cfg) {
+		stdz_config_defaults(&def);
+		cfg = &def;
+	}
+	memset(out, 0, sizeof *out);
+	out->mean = out->sd = out->rsd_pct = NAN;
+	const char *name = titrant ? titrant : "";
+	if (strcmp(s->titrant, name) != 0) {
+		snprintf(s->titrant, sizeof s->titrant, "%s", name);
+		s->n = 0;
+	}
+	if (!isfinite(titer) || !(titer > 0)) {
+		out->n = s->n;
+		snprintf(out->reason, sizeof out->reason, "no usable titer (%g)", titer);
+		return false;
+	}
+	int want = cfg->replicates;
+	if (want < 2)
+		want = 2;
+	if (want > STDZ_MAX_REPLICATES)
+		want = STDZ_MAX_REPLICATES;
+	if (s->n >= STDZ_MAX_REPLICATES)
+		s->n = 0;
+	s->titers[s->n++] = titer;
+	if (s->n < want) {
+		out->n = s->n;
+		snprintf(out->reason, sizeof out->reason, "replicate %d of %d", s->n, want);
+		return false;
+	}
+	stdz_replicates(s->titers, s->n, cfg->rsd_max_pct, out);
+	s->n = 0;
+	return true;
+}

@@ -580,3 +580,29 @@ TEST(stdz_titer_and_blank_change_results_as_expected)
 	double both = eval(acidity, 8.40, 0.05, 1.0123);
 	CHECK_NEAR(both, (8.40 - 0.05) * 0.1 * 1.0123 * 67.04 / 10.0, 1e-12);
 }
+
+TEST(stdz_series_collects_replicates)
+{
+	stdz_config_t c;
+	stdz_config_defaults(&c);
+	stdz_series_t s;
+	memset(&s, 0, sizeof s);
+	stdz_result_t r;
+	/* The hand-computed set above, one run at a time. */
+	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0012, &r));
+	CHECK_INT(r.n, 1);
+	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", NAN, &r)); /* ignored */
+	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0020, &r));
+	CHECK(stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0004, &r));
+	CHECK(r.accepted);
+	CHECK_NEAR(r.mean, 1.0012, 1e-12);
+	CHECK_NEAR(r.rsd_pct, 0.0799041, 1e-6);
+	CHECK_INT(s.n, 0);
+	/* Another titrant starts over; a spread set is refused. */
+	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.000, &r));
+	CHECK(!stdz_series_add(&s, &c, "HCl 0.1 mol/L", 1.000, &r));
+	CHECK(!stdz_series_add(&s, &c, "HCl 0.1 mol/L", 1.010, &r));
+	CHECK(stdz_series_add(&s, &c, "HCl 0.1 mol/L", 1.005, &r));
+	CHECK(!r.accepted);
+	CHECK(strstr(r.reason, "RSD") != NULL);
+}
