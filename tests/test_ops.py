@@ -404,3 +404,13 @@ def test_installed_example_config_is_valid(installed, tmp_path):
     cfg.write_text(text)
     r = run([str(installed / "usr/sbin/stopcockd"), "--check-config", "-c", str(cfg)])
     assert r.returncode == 0, f"{r.stdout}{r.stderr}"
+
+
+def test_installed_predict_example_runs(installed):
+    # stopcock(1)'s EXAMPLES, against the installed data files.
+    share = installed / "usr/share/stopcock"
+    r = run([str(installed / "usr/bin/stopcock"), "predict",
+             str(share / "methods/cider-acidity.yaml"),
+             "--scenario", str(share / "scenarios/cider-acidity.yaml"), "--amount", "10"])
+    assert r.returncode == 0, r.stdout + r.stderr
+    assert re.search(r"^endpoint 1: ", r.stdout, re.M), r.stdout
