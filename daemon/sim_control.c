@@ -173,17 +173,6 @@ void *sim_control_thread(void *arg)
 		}
 		if (poll(pf, (nfds_t)nc + 1, 100) <= 0)
 			continue;
-		if (pf[0].revents & POLLIN) {
-			int c = accept4(ca->listen_fd, NULL, NULL, SOCK_CLOEXEC);
-			if (c >= 0 && nc < MAX_CTL) {
-				cl[nc].fd = c;
-				cl[nc].len = 0;
-				nc++;
-			} else if (c >= 0) {
-				send_line(c, "error: too many control connections");
-				close(c);
-			}
-		}
 		for (int i = nc - 1; i >= 0; i--) {
 			if (!(pf[i + 1].revents & (POLLIN | POLLHUP | POLLERR)))
 				continue;
@@ -210,6 +199,18 @@ void *sim_control_thread(void *arg)
 			if (c->len == sizeof(c->buf) - 1) {
 				send_line(c->fd, "error: line too long");
 				c->len = 0;
+			}
+		}
+		/* accept last: pf[] covers only the clients polled above */
+		if (pf[0].revents & POLLIN) {
+			int c = accept4(ca->listen_fd, NULL, NULL, SOCK_CLOEXEC);
+			if (c >= 0 && nc < MAX_CTL) {
+				cl[nc].fd = c;
+				cl[nc].len = 0;
+				nc++;
+			} else if (c >= 0) {
+				send_line(c, "error: too many control connections");
+				close(c);
 			}
 		}
 	}

@@ -131,13 +131,6 @@ void *sim_tcp_thread(void *arg)
 		int r = poll(pf, (nfds_t)nc + 1, 50);
 		if (r <= 0)
 			continue;
-		if (pf[0].revents & POLLIN) {
-			int c = accept4(s->tcp_listen_fd, NULL, NULL, SOCK_CLOEXEC);
-			if (c >= 0 && (unplugged || nc == MAX_CLIENTS))
-				close(c); /* unplugged: the far end is gone */
-			else if (c >= 0)
-				clients[nc++] = c;
-		}
 		for (int i = 0; i < nc; i++) {
 			if (!(pf[i + 1].revents & (POLLIN | POLLHUP | POLLERR)) ||
 			    pf[i + 1].fd != clients[i])
@@ -152,6 +145,14 @@ void *sim_tcp_thread(void *arg)
 				clients[i] = clients[--nc];
 				i--;
 			}
+		}
+		/* accept last: pf[] covers only the clients polled above */
+		if (pf[0].revents & POLLIN) {
+			int c = accept4(s->tcp_listen_fd, NULL, NULL, SOCK_CLOEXEC);
+			if (c >= 0 && (unplugged || nc == MAX_CLIENTS))
+				close(c); /* unplugged: the far end is gone */
+			else if (c >= 0)
+				clients[nc++] = c;
 		}
 	}
 	for (int i = 0; i < nc; i++)
