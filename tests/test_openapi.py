@@ -535,3 +535,25 @@ def test_every_route_the_daemon_serves_is_in_spec(daemon):
                         f"{fname}: the daemon serves {m.upper()} {path} ({status}), " \
                         "the spec does not describe it"
     assert served >= len(INTERFACE_ROUTES), f"only {served} routes answered"
+
+
+def test_predicted_record_fits_run_schema():
+    """A finished record with endpoints, results and points, from `stopcock
+    predict --json` (the same serializer as GET /v1/runs/{id}). Only the
+    fields a daemon fills in (id, station, sample id, queue time) are set
+    here, since predict has none."""
+    cmd = [str(build_dir() / "bin" / "stopcock"), "predict",
+           str(ROOT / "config/methods/cider-acidity.yaml"),
+           "--scenario", str(ROOT / "config/scenarios/cider-acidity.yaml"),
+           "--amount", "10", "--json"]
+    r = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr
+    rec = json.loads(r.stdout)
+    assert rec["endpoints"] and rec["results"] and rec["points"], "an empty prediction"
+    rec.update(id=1, station="sim1", queued_at="2026-12-01T21:46:40.123Z")
+    rec["sample"]["id"] = "OLC-2026-117"
+    errs = check_schema(rec, {"$ref": "#/components/schemas/Run"})
+    assert not errs, errs[:10]
+    points = {"run": 1, "points": rec["points"]}
+    errs = check_schema(points, {"$ref": "#/components/schemas/PointList"})
+    assert not errs, errs[:10]
