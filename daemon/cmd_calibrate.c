@@ -67,7 +67,7 @@ static const json_t *buffer_entry(const json_t *cal, double nominal)
 
 static void print_verdict(const json_t *cal)
 {
-	char b1[32], b2[32], b3[32];
+	char b1[32], b2[32], b3[32], b4[32], b5[32];
 	size_t i;
 	json_t *b;
 	printf("buffers:\n");
@@ -77,8 +77,8 @@ static void print_verdict(const json_t *cal)
 		       client_fmt(b1, sizeof b1, client_num(b, "nominal"), 2),
 		       client_fmt(b2, sizeof b2, client_num(b, "ph"), 3),
 		       client_fmt(b3, sizeof b3, client_num(b, "temperature_c"), 1),
-		       client_fmt(b1, sizeof b1, client_num(b, "mv"), 1),
-		       client_fmt(b2, sizeof b2, client_num(b, "residual_mv"), 1));
+		       client_fmt(b4, sizeof b4, client_num(b, "mv"), 1),
+		       client_fmt(b5, sizeof b5, client_num(b, "residual_mv"), 1));
 	}
 	printf("slope   %s %% of the Nernst slope\n",
 	       client_fmt(b1, sizeof b1, client_num(cal, "slope_pct"), 1));
@@ -170,8 +170,9 @@ int cmd_calibrate(int argc, char **argv)
 		}
 		double next = client_num(cal, "next_buffer");
 		char nb[32];
-		fprintf(stderr, "Put the electrode in buffer %s and press Enter ",
-		        client_fmt(nb, sizeof nb, next, 2));
+		/* A script answering the prompt reads it line by line: end it there. */
+		fprintf(stderr, "Put the electrode in buffer %s and press Enter%s",
+		        client_fmt(nb, sizeof nb, next, 2), isatty(STDIN_FILENO) ? " " : "\n");
 		fflush(stderr);
 		char line[256];
 		if (!fgets(line, sizeof line, stdin)) {

@@ -219,6 +219,21 @@ static json_t *station_reading(client_t *c, const char *name)
 	return found;
 }
 
+/* The pH of the run's last point, or NAN. `run_path` is /v1/runs/ID. */
+static double last_point_ph_of(client_t *c, const char *run_path)
+{
+	char path[96], err[256];
+	json_t *j = NULL;
+	snprintf(path, sizeof path, "%s/points", run_path);
+	if (client_json_quiet(c, "GET", path, &j, NULL, err, sizeof err))
+		return NAN;
+	json_t *list = json_is_array(j) ? j : json_object_get(j, "points");
+	size_t n = json_array_size(list);
+	double ph = n ? client_num(json_array_get(list, n - 1), "ph") : NAN;
+	json_decref(j);
+	return ph;
+}
+
 /* The short summary printed when the run has ended. */
 static void print_final(long long id, const json_t *rec)
 {
@@ -283,7 +298,8 @@ int cmd_wait(int argc, char **argv)
 	bool tty = isatty(STDERR_FILENO);
 	char path[64], line[256] = "", last_key[128] = "", last_err[1500] = "";
 	snprintf(path, sizeof path, "/v1/runs/%lld", id);
-	double t0 = mono_s(), gone_since = -1;
+	double t0 = mono_s(), gone_since = -1, last_point_ph = NAN;
+	long long last_additions = -1;
 	int rc = CLIENT_EXIT_FAIL;
 	for (;;) {
 		json_t *rec = NULL;
@@ -327,11 +343,20 @@ int cmd_wait(int argc, char **argv)
 			double vol_ml = client_num(rec, "dispensed_ml");
 			char b1[32], b2[32], b3[32], sig[64] = "";
 			if (!strcmp(state, "running")) {
+				/* The live reading; when the probe gives only mV, the pH
+				 * of the last point (the engine's calibrated value). */
+				if (additions != last_additions) {
+					last_point_ph = last_point_ph_of(&c, path);
+					last_additions = additions;
+				}
 				json_t *rd = station_reading(&c, client_str(rec, "station", ""));
+				double ph = client_num(rd, "ph");
+				if (!isfinite(ph))
+					ph = last_point_ph;
 				if (rd)
 					snprintf(
 					    sig, sizeof sig, "  pH %s  %s mV",
-					    client_fmt(b2, sizeof b2, client_num(rd, "ph"), 2),
+					    client_fmt(b2, sizeof b2, ph, 2),
 					    client_fmt(b3, sizeof b3, client_num(rd, "mv"), 1));
 				json_decref(rd);
 			}

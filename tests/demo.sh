@@ -75,6 +75,12 @@ for _ in $(seq 100); do
 done
 grep -qx ready "$tmp/sim.out" || { echo "demo: stopcock-sim not ready after 10 s" >&2; exit 1; }
 
+# A demo should be short: a buffer counts as stable after 4 s within 0.3 mV
+# here (the daemon's default is 10 s within 0.1 mV, for real electrodes).
+if ! grep -q '^calibration:' "$tmp/stopcockd.yaml"; then
+	printf 'calibration:\n  stable: {drift_mv: 0.3, window_s: 4, min_s: 2, max_s: 90}\n' \
+		>>"$tmp/stopcockd.yaml"
+fi
 say "daemon: stopcockd -c $tmp/stopcockd.yaml on $url"
 "$bin/stopcockd" -c "$tmp/stopcockd.yaml" 2>"$tmp/daemon.log" &
 pids+=($!)
@@ -87,6 +93,64 @@ done
 curl -fsS -m 1 "$url/v1/health" >/dev/null || { echo "demo: no /v1/health after 10 s" >&2; exit 1; }
 "$bin/stopcock" status
 
+# The cider method reads pH, and the simulated transmitter gives only mV:
+# the electrode is calibrated first, in three buffers. Each buffer is a new
+# beaker for the simulator (`load` on its control socket) with the same
+# electrode as the cider scenario, made of an acid with pKa equal to the
+# buffer's pH, half neutralized (ideal activities, 25 degC).
+electrode=$(grep -E '^electrode:' "$scenario" || echo 'electrode: {offset_mv: 0.0, slope_pct: 100.0}')
+for b in 4.01 7.00 10.01; do
+	cat >"$tmp/buffer-$b.yaml" <<-YAML
+	title: buffer pH $b for the demo calibration
+	temperature_c: 25
+	activity: ideal
+	sample_ml: 50.0
+	water_ml: 0.0
+	sample:
+	  - {name: buffer acid, molar: 0.10, pka: [$b]}
+	  - {name: sodium, molar: 0.05, strong: base}
+	titrant:
+	  - {name: sodium hydroxide, molar: 0.1000, strong: base}
+	$electrode
+	YAML
+done
+control() {
+	/usr/bin/python3 - "$tmp/ctl" "$1" <<-'PY'
+	import socket, sys
+	s = socket.socket(socket.AF_UNIX)
+	s.settimeout(10)
+	s.connect(sys.argv[1])
+	s.sendall((sys.argv[2] + "\n").encode())
+	reply = s.makefile().readline().strip()
+	sys.exit(0 if reply == "ok" else "control: " + reply)
+	PY
+}
+
+say "calibrate the electrode: buffers 4.01, 7.00, 10.01"
+coproc CAL { "$bin/stopcock" calibrate --station sim1 --buffers 4.01,7.00,10.01 2>&1; }
+cal_pid=$CAL_PID
+pids+=("$cal_pid")
+# bash drops CAL[] when the coprocess ends: keep our own copies of its pipes.
+exec {cal_out}<&"${CAL[0]}" {cal_in}>&"${CAL[1]}"
+while IFS= read -r line <&"$cal_out"; do
+	echo "  $line"
+	case $line in
+	"Put the electrode in buffer "*)
+		b=${line#Put the electrode in buffer }
+		b=${b%% *}
+		control "load $tmp/buffer-$b.yaml"
+		echo "  (the simulator now has buffer $b in the beaker)"
+		echo >&"$cal_in"
+		;;
+	esac
+done
+cal_rc=0
+wait "$cal_pid" || cal_rc=$?
+unset 'pids[${#pids[@]}-1]'
+exec {cal_out}<&- {cal_in}>&-
+[ "$cal_rc" -eq 0 ] || { echo "demo: the calibration was not accepted" >&2; exit 1; }
+
+control "load $scenario"
 sample=ORCHARD-LANE-0412
 say "queue: cider-acidity on sample $sample, 10 mL"
 run=$("$bin/stopcock" start --station sim1 --method cider-acidity --sample-id "$sample" --amount 10)
@@ -94,7 +158,7 @@ echo "run $run queued"
 
 say "titrating (progress below)"
 rc=0
-"$bin/stopcock" wait "$run" --timeout 240 || rc=$?
+"$bin/stopcock" wait "$run" --timeout 900 || rc=$?
 
 say "run $run"
 "$bin/stopcock" show "$run" --svg "$out/run-$run.svg"
