@@ -350,9 +350,9 @@ static double gran_volume(const method_t *m, const engine_point_t *pts, int n, i
 	if (!(span > 0))
 		return NAN;
 	double *x = malloc((size_t)n * sizeof *x), *y1 = malloc((size_t)n * sizeof *y1),
-	       *y2 = malloc((size_t)n * sizeof *y2);
+	       *y2 = malloc((size_t)n * sizeof *y2), *xw = malloc((size_t)n * sizeof *xw);
 	double best = NAN;
-	if (!x || !y1 || !y2)
+	if (!x || !y1 || !y2 || !xw)
 		goto out;
 	int k = 0;
 	for (int i = 0; i < n; i++) {
@@ -360,14 +360,23 @@ static double gran_volume(const method_t *m, const engine_point_t *pts, int n, i
 		/* 30..95 % of the way: the straight part of either Gran function */
 		if (v < v_prev + 0.3 * span || v > v_prev + 0.95 * span)
 			continue;
-		double f = pow(10.0, -ph_dir * (gran_ph(m, &pts[i]) - 7.0));
+		/* c: the ion the titrant removes, mol/L: H+ when the pH rises,
+		 * OH- (Kw 1e-14) when it falls. The weak form counts the conjugate
+		 * made by the titrant, corrected for the free c itself, which
+		 * matters early on (Ingman & Still, Talanta 1966; CHECKS.md 9):
+		 * x = V + (V0 + V) c / c_t, and x c is linear in x to zero at Ve. */
+		double ph = gran_ph(m, &pts[i]);
+		double c = ph_dir > 0 ? pow(10.0, -ph) : pow(10.0, ph - 14.0);
+		double ct = m->titrant_molarity > 0 ? m->titrant_molarity : 0.1;
+		double xv = (v - v_prev) + (v0_ml + v) * c / ct;
 		x[k] = v;
-		y1[k] = (v - v_prev) * f;
-		y2[k] = (v0_ml + v) * f;
+		xw[k] = xv + v_prev;
+		y1[k] = xv * c;
+		y2[k] = (v0_ml + v) * c;
 		k++;
 	}
 	double a1, b1, a2, b2;
-	double r1 = line_fit(x, y1, k, &a1, &b1);
+	double r1 = line_fit(xw, y1, k, &a1, &b1);
 	double r2 = line_fit(x, y2, k, &a2, &b2);
 	double v1 = r1 > 0 && b1 < 0 ? -a1 / b1 : NAN;
 	double v2 = r2 > 0 && b2 < 0 ? -a2 / b2 : NAN;
@@ -382,6 +391,7 @@ out:
 	free(x);
 	free(y1);
 	free(y2);
+	free(xw);
 	return best;
 }
 

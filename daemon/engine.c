@@ -40,6 +40,7 @@ struct engine {
 	int additions, refills;
 	double pending_ml; /* addition waiting for a refill or a DOSED */
 	bool predose_done;
+	double predose_left_ml; /* predose still to add (larger than the syringe) */
 
 	/* settling: readings since the last addition */
 	double settle_from_s;
@@ -330,54 +331,97 @@ static double predicted_slope(const engine_t *e)
 	return s1;
 }
 
+/* Whole burette steps that fit in `room_ml` (never rounding up past it). */
+static double steps_within(const engine_t *e, double room_ml)
+{
+	if (!(room_ml > 0))
+		return 0;
+	return floor(room_ml / e->quantum_ml + 1e-9) * e->quantum_ml;
+}
+
+/* Addition for a signal change `aim` near a jump: the slope of a titration
+ * curve before an equivalence point grows roughly as a/(Ve - V) (the
+ * buffer term log(V/(Ve - V)) dominates there). Two slopes fix a and Ve;
+ * the addition that changes the signal by aim under that law,
+ * (Ve - V)(1 - exp(-aim/a)), can never step over the predicted Ve. Returns
+ * INFINITY when the slopes do not rise (no jump ahead). */
+static double hyperbolic_dose(const engine_t *e, double aim)
+{
+	int n = e->n_pts;
+	if (n < 3)
+		return INFINITY;
+	const engine_point_t *z = &e->pts[n - 3], *a = &e->pts[n - 2], *b = &e->pts[n - 1];
+	double dv0 = a->volume_ml - z->volume_ml, dv1 = b->volume_ml - a->volume_ml;
+	if (!(dv0 > 0 && dv1 > 0))
+		return INFINITY;
+	double s0 = fabs(a->signal - z->signal) / dv0, s1 = fabs(b->signal - a->signal) / dv1;
+	if (!(s1 > 1.05 * s0) || !(s0 > 0))
+		return INFINITY;
+	double v0m = (a->volume_ml + z->volume_ml) / 2, v1m = (b->volume_ml + a->volume_ml) / 2;
+	double ve = (s1 * v1m - s0 * v0m) / (s1 - s0);
+	if (!(ve > b->volume_ml))
+		return INFINITY;
+	double amp = s1 * (ve - v1m);
+	if (!(amp > 0))
+		return INFINITY;
+	double d = (ve - b->volume_ml) * (1.0 - exp(-aim / amp));
+	return d > 0 ? d : INFINITY;
+}
+
 static double next_dose_ml(const engine_t *e)
 {
 	const method_t *m = &e->m;
 	double dose;
+	int n = e->n_pts;
 	if (m->dosing == DOSING_CONSTANT) {
 		dose = m->dose_ml;
 	} else {
 		double lo = m->dose_min_ml, hi = m->dose_max_ml;
-		double slope = predicted_slope(e);
-		if (e->n_pts < 2 || !(slope > 0))
-			dose = sqrt(lo * hi);
-		else
-			dose = m->step_aim / slope;
-		/* Never more than three times the last addition: a flat stretch read
-		 * through noise must not launch a jump over the endpoint. */
-		int n = e->n_pts;
-		if (n >= 2) {
-			double last = e->pts[n - 1].volume_ml - e->pts[n - 2].volume_ml;
-			if (last > 0 && dose > 3 * last)
-				dose = 3 * last;
-		}
-		if (m->detect == DETECT_TARGET && m->has_target && n >= 1 && slope > 0) {
+		double aim = m->step_aim;
+		if (m->detect == DETECT_TARGET && m->has_target && n >= 1) {
 			int dir = run_dir(e);
 			double left = (m->target - e->pts[n - 1].signal) * (dir ? dir : 1);
 			/* Approach the target in shrinking steps: aim at 60 % of the
 			 * remaining distance, so the last points bracket it closely. */
-			if (left > 0 && dose > 0.6 * left / slope)
-				dose = 0.6 * left / slope;
+			if (left > 0 && 0.6 * left < aim)
+				aim = 0.6 * left;
+		}
+		double slope = predicted_slope(e);
+		if (n < 2 || !(slope > 0))
+			dose = sqrt(lo * hi);
+		else
+			dose = aim / slope;
+		/* A target must not be overshot: there the addition also obeys the
+		 * hyperbolic law, which never steps past the coming jump. For an
+		 * inflection a step across the jump costs nothing (the model fit
+		 * and the points after it place it), and fewer points save time. */
+		if (m->detect == DETECT_TARGET)
+			dose = fmin(dose, hyperbolic_dose(e, aim));
+		/* Never more than three times the last addition: a flat stretch read
+		 * through noise must not launch a jump over the endpoint. */
+		if (n >= 2) {
+			double last = e->pts[n - 1].volume_ml - e->pts[n - 2].volume_ml;
+			if (last > 0 && dose > 3 * last)
+				dose = 3 * last;
 		}
 		if (dose < lo)
 			dose = lo;
 		if (dose > hi)
 			dose = hi;
 	}
-	/* Size the last additions so the limits are met exactly, not crossed. */
+	/* Size the last additions so the limits are met exactly, not crossed:
+	 * whole burette steps only, rounded down where a limit is near. */
 	double room = e->vmax_ml - e->dispensed_ml;
 	if (e->all_found && e->stop_after_ml - e->dispensed_ml < room)
 		room = e->stop_after_ml - e->dispensed_ml;
-	if (dose > room)
-		dose = room;
 	if (dose > e->p.burette_capacity_ml)
 		dose = e->p.burette_capacity_ml;
 	double q = quantize(e, dose);
 	if (q < e->quantum_ml)
 		q = e->quantum_ml;
-	/* Quantizing must not round past the limit either. */
-	while (q > e->vmax_ml - e->dispensed_ml + 1e-12 && q > e->quantum_ml)
-		q -= e->quantum_ml;
+	double fit = steps_within(e, room);
+	if (q > fit)
+		q = fit;
 	return q;
 }
 
@@ -404,12 +448,23 @@ static engine_action_t request_dose(engine_t *e, double ml)
 	return a;
 }
 
+/* The predose goes in at once, in syringe-sized pieces with refills between
+ * them when it is larger than the burette, without settling in between. */
+static engine_action_t predose_chunk(engine_t *e)
+{
+	double ml = fmin(e->predose_left_ml, e->p.burette_capacity_ml);
+	ml = steps_within(e, ml);
+	e->predose_left_ml -= ml;
+	if (e->predose_left_ml < e->quantum_ml)
+		e->predose_left_ml = 0;
+	return request_dose(e, ml);
+}
+
 /* After a point is accepted: endpoints, stops, then the next addition. */
 static engine_action_t after_point(engine_t *e)
 {
 	const method_t *m = &e->m;
 	const engine_point_t *last = &e->pts[e->n_pts - 1];
-	double half_q = e->quantum_ml / 2;
 
 	int dir = run_dir(e);
 	if (!e->all_found) {
@@ -420,27 +475,25 @@ static engine_action_t after_point(engine_t *e)
 			e->stop_after_ml = e->ep[m->count - 1].volume_ml + m->past_endpoint_ml;
 		}
 	}
-	if (e->all_found && last->volume_ml >= e->stop_after_ml - half_q)
+	if (e->all_found && steps_within(e, e->stop_after_ml - last->volume_ml) < e->quantum_ml)
 		return stop(e, ENGINE_STOP_ENDPOINTS);
 	if (m->has_signal_limit && e->n_pts >= 2) {
 		double s0 = e->pts[0].signal, lim = m->signal_limit;
 		if ((s0 < lim && last->signal >= lim) || (s0 > lim && last->signal <= lim))
 			return stop(e, ENGINE_STOP_SIGNAL_LIMIT);
 	}
-	if (e->dispensed_ml >= e->vmax_ml - half_q)
+	/* At the limit when not one more burette step fits under it. */
+	if (steps_within(e, e->vmax_ml - e->dispensed_ml) < e->quantum_ml)
 		return stop(e, ENGINE_STOP_VOLUME_MAX);
 	if (e->n_pts >= ENGINE_MAX_POINTS)
 		return fault(e, "too_many_points", "the run reached the engine's point limit");
 
 	if (!e->predose_done) {
 		e->predose_done = true;
-		if (m->predose_ml > 0) {
-			double ml = quantize(e, fmin(m->predose_ml, e->vmax_ml - e->dispensed_ml));
-			while (ml > e->vmax_ml - e->dispensed_ml + 1e-12 && ml > 0)
-				ml -= e->quantum_ml;
-			if (ml >= e->quantum_ml)
-				return request_dose(e, ml);
-		}
+		e->predose_left_ml =
+		    fmin(quantize(e, m->predose_ml), steps_within(e, e->vmax_ml - e->dispensed_ml));
+		if (e->predose_left_ml >= e->quantum_ml)
+			return predose_chunk(e);
 	}
 	return request_dose(e, next_dose_ml(e));
 }
@@ -610,7 +663,10 @@ engine_action_t engine_feed(engine_t *e, const engine_event_t *ev)
 		e->pending_ml = 0;
 		if (e->t_s - e->t_start_s >= e->m.time_max_s)
 			return stop(e, ENGINE_STOP_TIME_MAX);
-		a = begin_settle(e);
+		if (e->predose_left_ml > 0 && ml > 0)
+			a = predose_chunk(e);
+		else
+			a = begin_settle(e);
 		break;
 	}
 	case ST_DONE:

@@ -13,6 +13,8 @@ void simrun_params(const method_t *m, const chem_scenario_t *s, const simrun_opt
 	memset(p, 0, sizeof *p);
 	p->amount = o->has_amount ? o->amount : s->sample_ml;
 	p->titer = o->titer > 0 ? o->titer : 1.0;
+	p->has_blank = o->has_blank;
+	p->blank_ml = o->blank_ml;
 	if (o->has_calibration) {
 		p->has_calibration = true;
 		p->cal_slope_pct = o->cal_slope_pct;

@@ -23,6 +23,8 @@ typedef struct simrun_opts {
 	double cal_slope_pct; /* % */
 	double cal_offset_mv; /* mV at pH 7 */
 	double titer;         /* <= 0: 1.0 */
+	bool has_blank;       /* blank_ml for the formulas */
+	double blank_ml;      /* mL */
 	double burette_start_ml; /* titrant in the syringe at start; < 0: full */
 	double stroke_s;         /* time for a full syringe stroke; <= 0: 30 s */
 	double refill_s;         /* time for a refill; <= 0: 20 s */
