@@ -557,3 +557,26 @@ def test_predicted_record_fits_run_schema():
     points = {"run": 1, "points": rec["points"]}
     errs = check_schema(points, {"$ref": "#/components/schemas/PointList"})
     assert not errs, errs[:10]
+
+
+def test_spec_declares_every_path_parameter():
+    for path, item in SPEC["paths"].items():
+        names = set(re.findall(r"\{([^}]+)\}", path))
+        for m in METHODS:
+            if m not in item:
+                continue
+            params = item.get("parameters", []) + item[m].get("parameters", [])
+            params = [resolve(p["$ref"]) if "$ref" in p else p for p in params]
+            declared = {p["name"] for p in params if p["in"] == "path"}
+            assert declared == names, f"{m} {path}: path parameters {declared} vs {names}"
+            assert all(p.get("required") for p in params if p["in"] == "path")
+
+
+def test_oversized_body_is_a_json_413(daemon):
+    # Just over the default http.max_body_bytes (256 KiB), so the part the
+    # daemon discards stays small.
+    big = b"# " + b"x" * (257 * 1024) + b"\n"
+    status, ctype, body = daemon.call("put", "/v1/methods/too-big", body=big,
+                                      ctype="application/yaml")
+    assert status == 413, status
+    documented("put", "/v1/methods/{id}", status, ctype, body)
