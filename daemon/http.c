@@ -49,12 +49,22 @@ void http_reply_error(http_reply_t *r, int status, const char *code, const char 
 {
 	char msg[4096];
 	va_list ap;
+	json_t *j;
 
 	va_start(ap, fmt);
 	vsnprintf(msg, sizeof msg, fmt, ap);
 	va_end(ap);
-	http_reply_json(r, status,
-	                json_pack("{s:{s:s,s:s}}", "error", "code", code, "message", msg));
+	j = json_pack("{s:{s:s,s:s}}", "error", "code", code, "message", msg);
+	if (!j) {
+		/* The message quotes request bytes (a path) that are not UTF-8,
+		 * or was cut inside a character: keep ASCII so the status stays
+		 * this error's, not a 500 (found by tests/fuzz/fuzz_http.c). */
+		for (char *p = msg; *p; p++)
+			if ((unsigned char)*p >= 0x80 || (unsigned char)*p < 0x20)
+				*p = '?';
+		j = json_pack("{s:{s:s,s:s}}", "error", "code", code, "message", msg);
+	}
+	http_reply_json(r, status, j);
 }
 
 void http_reply_text(http_reply_t *r, int status, const char *ctype, char *text, size_t len)
