@@ -56,7 +56,7 @@ export ASAN_OPTIONS := detect_leaks=1:abort_on_error=1
 export UBSAN_OPTIONS := print_stacktrace=1:halt_on_error=1
 
 .PHONY: all check check-run unit unit-valgrind pytest demo bench bench-run deps install \
-	uninstall clean format lint san fuzz
+	uninstall clean format lint san fuzz soak
 
 all: $(REL_BINS)
 
@@ -130,6 +130,8 @@ check-run: all san $(REL)/unit_tests
 	STOPCOCK_QUICK=1 valgrind -q --leak-check=full --error-exitcode=1 $(REL)/unit_tests
 	@echo "== end-to-end tests"
 	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider tests
+	@echo "== fuzzing (libFuzzer, $(CHECK_FUZZ_SECONDS) s per target, two at a time)"
+	@$(MAKE) --no-print-directory fuzz FUZZ_SECONDS=$(CHECK_FUZZ_SECONDS)
 
 unit: $(SAN)/unit_tests
 	$(SAN)/unit_tests $(T)
@@ -148,6 +150,39 @@ bench: deps
 bench-run: all $(REL)/bench
 	$(REL)/bench
 	@if [ -f tests/bench_http.sh ]; then bash tests/bench_http.sh $(abspath $(BUILD)); fi
+
+# ---- fuzzing: libFuzzer targets tests/fuzz/fuzz_*.c (clang, ASan+UBSan) ----
+# `make fuzz FUZZ_SECONDS=N` replays tests/fuzz/regress/<target>/, then fuzzes
+# each target for N s from tests/fuzz/corpus/<target>/ (docs/reliability.md).
+FUZZ_SECONDS ?= 30
+CHECK_FUZZ_SECONDS ?= 20
+FUZZ_CC ?= clang
+FUZZ := $(BUILD)/fuzz
+FUZZ_TARGETS = $(patsubst tests/fuzz/fuzz_%.c,%,$(sort $(wildcard tests/fuzz/fuzz_*.c)))
+FUZZ_CFLAGS = $(filter-out -Werror,$(BASE_CFLAGS)) -O1 -g -fno-omit-frame-pointer \
+	-fsanitize=address,undefined -fno-sanitize-recover=undefined
+
+$(FUZZ)/obj/%.o: %.c $(HDRS)
+	@mkdir -p $(dir $@)
+	$(FUZZ_CC) $(FUZZ_CFLAGS) -fsanitize=fuzzer-no-link -c $< -o $@
+
+$(FUZZ)/libstopcock.a: $(patsubst %.c,$(FUZZ)/obj/%.o,$(LIB_SRC))
+	@rm -f $@
+	ar rcs $@ $^
+
+$(FUZZ)/bin/fuzz_%: $(FUZZ)/obj/tests/fuzz/fuzz_%.o $(FUZZ)/libstopcock.a
+	@mkdir -p $(dir $@)
+	$(FUZZ_CC) $(FUZZ_CFLAGS) -fsanitize=fuzzer $^ -o $@ $(LDLIBS)
+
+.PRECIOUS: $(FUZZ)/obj/tests/fuzz/%.o
+
+fuzz: $(addprefix $(FUZZ)/bin/fuzz_,$(FUZZ_TARGETS))
+	@bash tests/fuzz/run.sh $(abspath $(FUZZ)) $(FUZZ_SECONDS) $(FUZZ_TARGETS)
+
+# Long versions of the reliability suites: 1,000 SIGKILLs, 60 s of load.
+soak: all san
+	STOPCOCK_BUILD=$(abspath $(BUILD)) STOPCOCK_KILLS=1000 STOPCOCK_LOAD_S=60 \
+	  $(PYTHON) -m pytest -q -p no:cacheprovider -s tests/test_crash.py tests/test_load.py
 
 # ---- install ----
 install: all
