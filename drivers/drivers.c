@@ -122,9 +122,9 @@ static bool driver_word(const yt_doc_t *doc, const yt_node_t *cfg, const char *w
 int drv_probe_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_probe_t *out, diag_list_t *d)
 {
 	memset(out, 0, sizeof(*out));
-	const char *names[8];
+	const char *names[sizeof(probes) / sizeof(probes[0])];
 	size_t k = 0;
-	for (; probes[k] && k < 7; k++)
+	for (; probes[k]; k++)
 		names[k] = probes[k]->name;
 	names[k] = NULL;
 	char w[64];
@@ -144,9 +144,9 @@ int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette
                           diag_list_t *d)
 {
 	memset(out, 0, sizeof(*out));
-	const char *names[8];
+	const char *names[sizeof(burettes) / sizeof(burettes[0])];
 	size_t k = 0;
-	for (; burettes[k] && k < 7; k++)
+	for (; burettes[k]; k++)
 		names[k] = burettes[k]->name;
 	names[k] = NULL;
 	char w[64];
@@ -166,9 +166,9 @@ int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer
                           diag_list_t *d)
 {
 	memset(out, 0, sizeof(*out));
-	const char *names[8];
+	const char *names[sizeof(stirrers) / sizeof(stirrers[0])];
 	size_t k = 0;
-	for (; stirrers[k] && k < 7; k++)
+	for (; stirrers[k]; k++)
 		names[k] = stirrers[k]->name;
 	names[k] = NULL;
 	char w[64];
