@@ -263,14 +263,18 @@ static void evaluate(engine_t *e)
 		    .pkw = chem_pkw(t_c),
 		    .sig7 = 7.0, /* signal ph: the nominal pH is the signal */
 		    .sig_per_ph = 1.0,
-		    .sigma_signal = 0.005,
+		    /* A settled point is good to about half the settling band
+		     * (the electrode may still creep within it), and never better
+		     * than the meter's resolution (0.001 pH / 0.1 mV, common
+		     * practice, CHECKS.md 10). */
+		    .sigma_signal = fmax(0.002, e->m.still_within / 2),
 		    .sigma_ml = e->quantum_ml,
 		};
 		if (e->m.signal == SIGNAL_MV) {
 			double slope = e->p.has_calibration ? e->p.cal_slope_pct : 100.0;
 			c.sig7 = e->p.has_calibration ? e->p.cal_offset_mv : 0.0;
 			c.sig_per_ph = -k * slope / 100.0;
-			c.sigma_signal = 0.3;
+			c.sigma_signal = fmax(0.1, e->m.still_within / 2);
 		}
 		modelfit_refine(&c, e->pts, e->n_pts, e->ep, e->n_ep);
 	}

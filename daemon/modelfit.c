@@ -45,6 +45,7 @@ typedef struct fit {
 	int g;                   /* weak groups */
 	int seg[MF_MAX_G];       /* segment of each group: titrated before endpoint seg+1 */
 	double kw;
+	double *scratch; /* n x (MF_MAX_G + 2): basis values per point */
 	/* current nonlinear parameters: d, g, pKa... and the linear solution */
 	double lin[MF_MAX_G + 1]; /* n_1..n_G, Q0 */
 } fit_t;
@@ -88,30 +89,43 @@ static int solve(double *a, double *b, int k)
 	return 0;
 }
 
+/* 10^-x, by exp: the fit evaluates it thousands of times. */
+static double p10(double x)
+{
+	return exp(-M_LN10 * x);
+}
+
 /* Basis values at point i for the linear unknowns and the fixed part:
- * V = sum_j lin_j * phi_j + f0. Returns false where the model is singular. */
-static bool basis(const fit_t *f, const double *nl, int i, double *phi, double *f0)
+ * V = sum_j lin_j * phi_j + f0, with k[j] = 10^-pKa_j precomputed.
+ * Returns false where the model is singular. */
+static bool basis_k(const fit_t *f, const double *nl, const double *k, int i, double *phi,
+                    double *f0)
 {
 	double ph = 7.0 + nl[1] * (f->x[i] - 7.0) + nl[0];
-	double h = pow(10.0, -ph);
+	double h = p10(ph);
 	double dd = h - f->kw / h;
 	double den = dd + f->c->dir * f->c->titrant_molar;
 	if (!(fabs(den) > 1e-12) || !isfinite(den))
 		return false;
-	for (int j = 0; j < f->g; j++) {
-		double k = pow(10.0, -nl[2 + j]);
-		phi[j] = k / (h + k) / den;
-	}
+	for (int j = 0; j < f->g; j++)
+		phi[j] = k[j] / (h + k[j]) / den;
 	phi[f->g] = -1.0 / den;
 	*f0 = -f->c->start_volume_ml * dd / den;
 	return true;
 }
 
+static void pka_to_k(const fit_t *f, const double *nl, double *k)
+{
+	for (int j = 0; j < f->g; j++)
+		k[j] = p10(nl[2 + j]);
+}
+
 /* Model volume at point i for explicit parameters (NaN where singular). */
 static double model_v(const fit_t *f, const double *nl, const double *lin, int i)
 {
-	double phi[MF_MAX_G + 1], f0;
-	if (!basis(f, nl, i, phi, &f0))
+	double phi[MF_MAX_G + 1], f0, k[MF_MAX_G] = {0};
+	pka_to_k(f, nl, k);
+	if (!basis_k(f, nl, k, i, phi, &f0))
 		return NAN;
 	double v = f0;
 	for (int a = 0; a <= f->g; a++)
@@ -124,14 +138,16 @@ static double model_v(const fit_t *f, const double *nl, const double *lin, int i
  * INFINITY. */
 static double residuals(fit_t *f, const double *nl, double *r)
 {
-	int m = f->g + 1;
+	int m = f->g + 1, stride = MF_MAX_G + 2;
 	double ata[(MF_MAX_G + 1) * (MF_MAX_G + 1)] = {0}, atb[MF_MAX_G + 1] = {0};
-	double phi[MF_MAX_G + 1], f0;
+	double k[MF_MAX_G] = {0};
+	pka_to_k(f, nl, k);
 	for (int i = 0; i < f->n; i++) {
-		if (!basis(f, nl, i, phi, &f0))
+		double *phi = f->scratch + (size_t)i * stride;
+		if (!basis_k(f, nl, k, i, phi, &phi[m]))
 			return INFINITY;
 		double w2 = f->w[i] * f->w[i];
-		double y = f->v[i] - f0;
+		double y = f->v[i] - phi[m];
 		for (int a = 0; a < m; a++) {
 			atb[a] += w2 * phi[a] * y;
 			for (int b = 0; b < m; b++)
@@ -146,8 +162,8 @@ static double residuals(fit_t *f, const double *nl, double *r)
 	memcpy(f->lin, atb, (size_t)m * sizeof(double));
 	double chi = 0;
 	for (int i = 0; i < f->n; i++) {
-		basis(f, nl, i, phi, &f0);
-		double vm = f0;
+		const double *phi = f->scratch + (size_t)i * stride;
+		double vm = phi[m];
 		for (int a = 0; a < m; a++)
 			vm += f->lin[a] * phi[a];
 		r[i] = (vm - f->v[i]) * f->w[i];
@@ -294,6 +310,7 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 	if (n_eps < 1 || n_eps > MF_MAX_G || !(c->titrant_molar > 0) || c->dir == 0)
 		return 1;
 	int ne = n_eps, rc = 1;
+	double *scratch = NULL;
 	double *buf = malloc((size_t)(n * 3 + 2 * (n + 2) + (n + 2) * MF_MAX_NL) * sizeof *buf);
 	if (!buf)
 		return 1;
@@ -320,7 +337,11 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		w[i] = 1.0 / sqrt(s2);
 	}
 
-	fit_t f = {.c = c, .n = k, .v = v, .x = x, .w = w, .kw = pow(10.0, -c->pkw)};
+	scratch = malloc((size_t)k * (MF_MAX_G + 2) * sizeof *scratch);
+	if (!scratch)
+		goto out;
+	fit_t f = {
+	    .c = c, .n = k, .v = v, .x = x, .w = w, .kw = pow(10.0, -c->pkw), .scratch = scratch};
 	variant_t best = {.chi = INFINITY};
 	/* Variants: groups between consecutive endpoints always (a step between
 	 * two endpoints needs a weak group); before the first endpoint with or
@@ -427,6 +448,7 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		}
 	}
 out:
+	free(scratch);
 	free(buf);
 	return rc;
 }

@@ -35,6 +35,7 @@ typedef struct row {
 	double cpu_us_per_point;
 	const char *how;
 	const char *stop;
+	double alt_ml, alt_err_pct; /* see the titrant note in run_one */
 } row_t;
 
 /* Nearest stoichiometric volume to v. */
@@ -74,6 +75,27 @@ static row_t run_one(const method_t *m, const chem_scenario_t *s, unsigned long 
 		r.how = ep->how;
 	}
 	r.err_pct = r.found >= r.wanted ? worst : NAN;
+	/* A titrant with a weak component (carbonate taken up from air) gives
+	 * up only the protons of the steps above the endpoint's pH; the
+	 * reference above counts them all, as chem_equivalence_ml does. The
+	 * volume at the endpoint's own stoichiometry is shown beside it. */
+	r.alt_err_pct = NAN;
+	if (r.found == 1 && s->n_titrant > 1) {
+		const engine_endpoint_t *ep = engine_endpoint(e, 0);
+		double base = -chem_titrant_acidity(s);
+		for (int i = 0; i < s->n_titrant; i++) {
+			const chem_comp_t *c = &s->titrant[i];
+			if (c->kind != CHEM_WEAK)
+				continue;
+			int above = 0;
+			for (int j = 0; j < c->n_pka; j++)
+				above += c->pka[j] > ep->ph;
+			base += c->molar * above; /* protons it keeps at that pH */
+		}
+		double ve = eq[0] * -chem_titrant_acidity(s) / base;
+		r.alt_ml = ve;
+		r.alt_err_pct = fabs(ep->volume_ml - ve) / ve * 100;
+	}
 	engine_free(e);
 	return r;
 }
@@ -136,6 +158,12 @@ BENCH(engine_panel)
 			       r->additions, (double)r->additions / ne, r->dur_s, r->dur_s / ne,
 			       r->cpu_us_per_point, r->stop, r->ok ? "" : " (STUCK)");
 		}
+		if (isfinite(ad.alt_err_pct))
+			printf("%-12s   (titrant with a weak base: at the endpoint's own "
+			       "stoichiometry "
+			       "%.3f mL the errors are %.4f %% adaptive, %.4f %% constant; the row "
+			       "counts the carbonate's second proton too)\n",
+			       "", ad.alt_ml, ad.alt_err_pct, co.alt_err_pct);
 		med_err[i] = ad.err_pct;
 		med_adds[i] = (double)ad.additions / ne;
 		med_dur[i] = ad.dur_s / ne;
