@@ -244,9 +244,10 @@ class Api:
 
 
 @contextlib.contextmanager
-def bench(tmp, env=None):
+def bench(tmp, env=None, wrap=()):
     """stopcock-sim and a stopcockd driving it; yields (Api, daemon process).
-    Both are stopped with SIGTERM at the end."""
+    Both are stopped with SIGTERM at the end. `wrap` is a command the daemon
+    runs under (e.g. strace); the process yielded is then the wrapper."""
     bins = build_dir() / "bin"
     for b in ("stopcockd", "stopcock-sim"):
         assert (bins / b).exists(), f"{bins / b} is not built"
@@ -264,7 +265,7 @@ def bench(tmp, env=None):
         line = read_line(sim, 20)
         assert line.strip() == "ready", \
             f"stopcock-sim said {line!r}:\n{(tmp / 'sim.log').read_text()}"
-        d = subprocess.Popen([str(bins / "stopcockd"), "-c", str(tmp / "stopcockd.yaml")],
+        d = subprocess.Popen([*wrap, str(bins / "stopcockd"), "-c", str(tmp / "stopcockd.yaml")],
                              stdout=subprocess.DEVNULL, stderr=open(tmp / "d.log", "wb"),
                              cwd=ROOT, env=env)
         procs.append(d)

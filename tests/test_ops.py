@@ -414,3 +414,76 @@ def test_installed_predict_example_runs(installed):
              "--scenario", str(share / "scenarios/cider-acidity.yaml"), "--amount", "10"])
     assert r.returncode == 0, r.stdout + r.stderr
     assert re.search(r"^endpoint 1: ", r.stdout, re.M), r.stdout
+
+
+# ---------------------------------------------------------------- system calls
+
+
+def syscall_group(name):
+    """The system calls of a systemd group (@name), groups expanded."""
+    r = run(["systemd-analyze", "syscall-filter", name])
+    assert r.returncode == 0, r.stderr
+    out = set()
+    for line in r.stdout.splitlines()[1:]:
+        w = line.strip()
+        if not w or w.startswith("#"):
+            continue
+        out |= syscall_group(w) if w.startswith("@") else {w}
+    return out
+
+
+def test_daemon_system_calls_fit_the_unit_filter(tmp_path):
+    """Run stopcockd under strace through start-up, HTTP reads and writes, a
+    run, an abort, a calibration step, a reload and a stop, and check every
+    system call it made against the unit's SystemCallFilter= (the
+    @system-service set without @privileged and @resources). A call outside
+    would fail with EPERM under systemd (SystemCallErrorNumber=EPERM)."""
+    import json
+    from test_openapi import MV_METHOD, bench
+
+    strace = need_tool("strace", "strace")
+    need_tool("systemd-analyze", "systemd")
+    trace = tmp_path / "trace.txt"
+    with bench(tmp_path, wrap=[strace, "-f", "-qq", "-o", str(trace)]) as (api, st):
+        children = Path(f"/proc/{st.pid}/task/{st.pid}/children").read_text().split()
+        assert len(children) == 1, children
+        daemon_pid = int(children[0])
+        assert api.call("get", "/v1/stations")[0] == 200
+        assert api.call("put", "/v1/methods/openapi-mv", MV_METHOD.encode(),
+                        ctype="application/yaml")[0] == 201
+        s, _, body = api.call("post", "/v1/runs", {"station": "sim1", "method": "openapi-mv",
+                                                   "sample_id": "FWC-strace", "amount": 10})
+        assert s == 201, body
+        rid = json.loads(body)["id"]
+        time.sleep(3)  # stirring, the first reading and point
+        for path in (f"/v1/runs/{rid}", f"/v1/runs/{rid}/points",
+                     f"/v1/runs/{rid}/points?format=csv", f"/v1/runs/{rid}/curve.svg",
+                     "/v1/results?after=0", "/metrics"):
+            assert api.call("get", path)[0] == 200, path
+        assert api.call("post", f"/v1/runs/{rid}/abort")[0] in (200, 409)
+        time.sleep(0.5)
+        s, _, body = api.call("post", "/v1/calibrations",
+                              {"station": "sim1", "buffers": [4.01, 7.00]})
+        assert s == 201, body
+        cid = json.loads(body)["id"]
+        assert api.call("post", f"/v1/calibrations/{cid}/next")[0] == 200
+        os.kill(daemon_pid, signal.SIGHUP)
+        time.sleep(1)
+        assert api.call("get", "/v1/health")[0] == 200
+        os.kill(daemon_pid, signal.SIGTERM)
+        assert st.wait(timeout=20) == 0
+    used = set()
+    for line in trace.read_text().splitlines():
+        m = re.match(r"^\d+\s+(?:<\.\.\. (\w+) resumed>|(\w+)\()", line)
+        if m:
+            used.add(m.group(1) or m.group(2))
+    assert len(used) > 20, f"too few system calls traced: {sorted(used)}"
+    allowed = syscall_group("@system-service") - syscall_group("@privileged") \
+        - syscall_group("@resources")
+    # SQLite chowns its journal files to the database's owner only when it runs
+    # as root (this test may; the unit never does).
+    if os.geteuid() == 0:
+        allowed |= {"fchown", "fchownat", "chown"}
+    outside = sorted(used - allowed)
+    print(f"stopcockd used {len(used)} distinct system calls; outside the filter: {outside}")
+    assert not outside, f"system calls the unit's filter would refuse: {outside}"
