@@ -203,3 +203,38 @@ TEST(formula_eval_faults)
 	memset(&f, 0, sizeof f);
 	CHECK(formula_eval(&f, &fv, &out, msg, sizeof msg) == FORMULA_MISSING);
 }
+
+TEST(formula_random_text_property)
+{
+	/* Property over random strings of formula characters: compile either
+	 * fails with a column inside the text (or just past its end), or the
+	 * program evaluates to a finite number or a named fault; never NaN/inf. */
+	static const char pool[] = "0123456789.eE+-*/() _abcdehilmnoprstuvxy12345\t";
+	unsigned long long s = 1;
+	int rounds = harness_quick() ? 2000 : 20000, compiled = 0;
+	for (int it = 0; it < rounds; it++) {
+		char t[80], msg[200];
+		int n = 1 + it % 70, col = -1;
+		formula_t f;
+		for (int i = 0; i < n; i++) {
+			s ^= s << 13;
+			s ^= s >> 7;
+			s ^= s << 17;
+			t[i] = pool[s % (sizeof pool - 1)];
+		}
+		t[n] = '\0';
+		if (formula_compile(t, &f, msg, sizeof msg, &col) != 0) {
+			if (col < 1 || col > n + 1)
+				harness_fail(__FILE__, __LINE__, "'%s': column %d", t, col);
+			continue;
+		}
+		compiled++;
+		formula_vars_t fv = {0};
+		for (int v = 0; v < FV_COUNT; v++)
+			formula_vars_set(&fv, (formula_var_t)v, (v % 3) - 0.5);
+		double out = 0;
+		if (formula_eval(&f, &fv, &out, msg, sizeof msg) == FORMULA_OK && !isfinite(out))
+			harness_fail(__FILE__, __LINE__, "'%s' gave %g", t, out);
+	}
+	CHECK(compiled > 0); /* the pool does make valid formulas */
+}
