@@ -334,8 +334,9 @@ char *svg_curve(const svg_point_t *pts, size_t n, const svg_endpoint_t *ends, si
 		          (f.x0 + f.x1) / 2, (f.y0 + f.y1) / 2);
 	draw_endpoints(&b, &f, ends, n_ends);
 
-	/* Legend, top right inside the frame. */
-	double lx = f.x1 - 170, ly = f.y0 + 14;
+	/* Legend in the bottom margin, right-aligned, beside the volume label:
+	 * clear of the curve and of long titles. */
+	double lx = f.x1 - (deriv ? 230 : 60), ly = f.y1 + 36;
 	sb_printf(&b,
 	          "<g class=\"legend\"><line x1=\"%.1f\" y1=\"%.1f\" x2=\"%.1f\" "
 	          "y2=\"%.1f\" style=\"stroke:#1f4e79;stroke-width:2\"/>"
@@ -346,7 +347,7 @@ char *svg_curve(const svg_point_t *pts, size_t n, const svg_endpoint_t *ends, si
 		          "<line x1=\"%.1f\" y1=\"%.1f\" x2=\"%.1f\" y2=\"%.1f\" "
 		          "style=\"stroke:#b5651d;stroke-width:1.3;stroke-dasharray:5 3\"/>"
 		          "<text x=\"%.1f\" y=\"%.1f\">first derivative</text>",
-		          lx, ly + 18, lx + 24, ly + 18, lx + 30, ly + 22);
+		          lx + 70, ly, lx + 94, ly, lx + 100, ly + 4);
 	sb_printf(&b, "</g>\n</svg>\n");
 
 	if (b.failed) {

@@ -49,6 +49,17 @@ cleanup() {
 trap cleanup EXIT
 trap 'echo; echo "demo: interrupted" >&2; exit 130' INT TERM
 
+# A long command runs in the background and is waited for, so that a signal
+# to this script (not only Ctrl-C to the whole terminal) runs the traps at once.
+run_waited() {
+	"$@" &
+	local p=$! rc=0
+	pids+=("$p")
+	wait "$p" || rc=$?
+	unset 'pids[${#pids[@]}-1]'
+	return "$rc"
+}
+
 free_port() {
 	/usr/bin/python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'
 }
@@ -158,7 +169,7 @@ echo "run $run queued"
 
 say "titrating (progress below)"
 rc=0
-"$bin/stopcock" wait "$run" --timeout 900 || rc=$?
+run_waited "$bin/stopcock" wait "$run" --timeout 900 || rc=$?
 
 say "run $run"
 "$bin/stopcock" show "$run" --svg "$out/run-$run.svg"

@@ -46,6 +46,44 @@ def cider_scenario():
     return found[0] if found else ROOT / "tests" / "demo" / "cider.yaml"
 
 
+BUFFERS = ("4.01", "7.00", "10.01")
+
+
+def small_cider(tmp):
+    """The cider scenario with 2 mL of cider in the beaker instead of 10: the same
+    curve shape with a fifth of the titrant, so a whole run takes less time."""
+    text = cider_scenario().read_text()
+    small, n = re.subn(r"(?m)^sample_ml:.*$", "sample_ml: 2.0", text)
+    assert n == 1, "the cider scenario has no sample_ml line"
+    p = tmp / "cider-2ml.yaml"
+    p.write_text(small)
+    return p
+
+
+def buffer_scenarios(tmp):
+    """One beaker per calibration buffer, with the cider scenario's electrode: an
+    acid with pKa equal to the buffer's pH, half neutralized (ideal activities)."""
+    m = re.search(r"(?m)^electrode:.*$", cider_scenario().read_text())
+    electrode = m.group(0) if m else "electrode: {offset_mv: 0.0, slope_pct: 100.0}"
+    paths = {}
+    for b in BUFFERS:
+        p = tmp / f"buffer-{b}.yaml"
+        p.write_text(f"""title: buffer pH {b}
+temperature_c: 25
+activity: ideal
+sample_ml: 50.0
+water_ml: 0.0
+sample:
+  - {{name: buffer acid, molar: 0.10, pka: [{b}]}}
+  - {{name: sodium, molar: 0.05, strong: base}}
+titrant:
+  - {{name: sodium hydroxide, molar: 0.1000, strong: base}}
+{electrode}
+""")
+        paths[b] = p
+    return paths
+
+
 def cli(*args, env=None, timeout=60, stdin=None):
     return subprocess.run([binary("stopcock"), *map(str, args)], capture_output=True, text=True,
                           timeout=timeout, env=env, input=stdin)
@@ -63,14 +101,18 @@ class Bench:
         self.token = tmp / "token"
         self.sim_log = open(tmp / "sim.log", "w")
         self.daemon_log = open(tmp / "daemon.log", "w")
+        self.cider = small_cider(tmp)
         self.sim = subprocess.Popen(
-            [binary("stopcock-sim"), "--scenario", str(cider_scenario()), "--modbus-tcp",
+            [binary("stopcock-sim"), "--scenario", str(self.cider), "--modbus-tcp",
              f"127.0.0.1:{free_port()}", "--pump-link", str(tmp / "pump"), "--control",
              str(self.ctl), "--config-out", str(self.config), "--state-dir", str(tmp / "state"),
              "--listen", f"127.0.0.1:{self.http_port}"],
             stdout=subprocess.PIPE, stderr=self.sim_log, text=True)
         line = self.sim.stdout.readline().strip()
         assert line == "ready", f"stopcock-sim printed {line!r}; see {tmp}/sim.log"
+        # Buffers count as stable sooner than the default, to keep the tests short.
+        with open(self.config, "a") as f:
+            f.write("calibration:\n  stable: {drift_mv: 0.3, window_s: 4, min_s: 2, max_s: 90}\n")
         self.daemon = subprocess.Popen([binary("stopcockd"), "-c", str(self.config)],
                                        stdout=self.daemon_log, stderr=self.daemon_log)
         deadline = time.monotonic() + 15
@@ -99,7 +141,26 @@ class Bench:
 
     def fresh_beaker(self):
         """A new sample in the beaker, as an operator would put one there."""
-        self.control(f"load {cider_scenario()}")
+        self.control(f"load {self.cider}")
+
+    def calibrate(self):
+        """`stopcock calibrate`, answering each prompt after putting the
+        simulated electrode into that buffer. Returns (exit status, output)."""
+        buffers = buffer_scenarios(self.tmp)
+        p = subprocess.Popen([binary("stopcock"), "calibrate", "--station", "sim1", "--buffers",
+                              ",".join(BUFFERS)], stdin=subprocess.PIPE,
+                             stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+                             env=self.env)
+        out = []
+        for line in p.stdout:
+            out.append(line)
+            m = re.match(r"Put the electrode in buffer (\S+) and press Enter$", line.strip())
+            if m:
+                self.control(f"load {buffers[m.group(1)]}")
+                p.stdin.write("\n")
+                p.stdin.flush()
+        p.stdin.close()
+        return p.wait(timeout=120), "".join(out)
 
     def run_state(self, run):
         return self.get(f"/v1/runs/{run}")["state"]
@@ -132,6 +193,27 @@ def bench(tmp_path_factory):
     b.stop()
 
 
+@pytest.fixture(scope="module")
+def calibrated(bench):
+    """The cider method reads pH and the simulated transmitter gives mV only:
+    the electrode is calibrated once, through the client."""
+    rc, out = bench.calibrate()
+    return bench, rc, out
+
+
+def test_calibrate(calibrated):
+    bench, rc, out = calibrated
+    assert rc == 0, out
+    cal = bench.get("/v1/calibrations/latest?station=sim1")
+    assert cal["state"] == "accepted"
+    assert out.count("Put the electrode in buffer") == 3
+    for b in cal["buffers"]:
+        assert f"buffer {b['nominal']:.2f}: {b['mv']:.1f} mV" in out
+    assert f"slope   {cal['slope_pct']:.1f} % of the Nernst slope" in out
+    assert f"offset  {cal['offset_mv']:.1f} mV at pH 7" in out
+    assert "verdict accepted" in out
+
+
 def start(bench, sample="ORCHARD-LANE-0412", amount=10):
     bench.fresh_beaker()
     r = cli("start", "--station", "sim1", "--method", "cider-acidity", "--sample-id", sample,
@@ -142,7 +224,7 @@ def start(bench, sample="ORCHARD-LANE-0412", amount=10):
 
 
 @pytest.fixture(scope="module")
-def finished(bench):
+def finished(bench, calibrated):
     """One whole run: (run id, the `wait` result)."""
     run = start(bench)
     w = cli("wait", run, "--timeout", 240, env=bench.env, timeout=260)
@@ -291,7 +373,7 @@ def test_show_svg_writes_the_curve(bench, finished, tmp_path):
     assert r.returncode == 0 and r.stdout.encode() == data
 
 
-def test_abort_a_run(bench, finished):
+def test_abort_a_run(bench, calibrated):
     run = start(bench, sample="ORCHARD-LANE-0413")
     bench.wait_state(run, {"running"})
     r = cli("abort", run, env=bench.env)
@@ -306,7 +388,7 @@ def test_abort_a_run(bench, finished):
     assert r.returncode == 1 and "HTTP 409" in r.stderr, r.stderr
 
 
-def test_halt_a_station(bench, finished):
+def test_halt_a_station(bench, calibrated):
     run = start(bench, sample="ORCHARD-LANE-0414")
     bench.wait_state(run, {"running"})
     r = cli("halt", "--station", "sim1", env=bench.env)
@@ -315,7 +397,7 @@ def test_halt_a_station(bench, finished):
     assert bench.wait_state(run, {"aborted", "failed", "finished"}) == "aborted"
 
 
-def test_wait_timeout_and_unknown_run(bench, finished):
+def test_wait_timeout_and_unknown_run(bench, calibrated):
     run = start(bench, sample="ORCHARD-LANE-0415")
     t0 = time.monotonic()
     w = cli("wait", run, "--timeout", 1, env=bench.env)
