@@ -11,11 +11,15 @@
 #include <stdlib.h>
 #include <string.h>
 #include <strings.h>
+#include <sys/resource.h>
 #include <unistd.h>
 
 #include "log.h"
 
 #define MAX_SEGMENTS 8
+#define HTTP_NICE    5 /* niceness of HTTP worker threads, relative to 0 */
+
+static _Thread_local bool niced;
 
 struct http_server {
 	struct MHD_Daemon *d;
@@ -239,6 +243,12 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	enum MHD_Result ret;
 	(void)version;
 
+	if (!niced) {
+		/* HTTP workers yield to station threads: a burst of requests must
+		 * not delay an addition (raising one's own nice needs no privilege). */
+		setpriority(PRIO_PROCESS, (id_t)gettid(), HTTP_NICE);
+		niced = true;
+	}
 	if (!cs) {
 		const char *cl =
 		    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);

@@ -474,6 +474,7 @@ void station_run_job(station_t *s, station_job_t *job)
 	engine_action_t act;
 	char msg[300];
 	char *text;
+	bool scheduled;
 
 	record_init(&r.rec);
 	r.rec.id = job->run_id;
@@ -526,9 +527,13 @@ void station_run_job(station_t *s, station_job_t *job)
 		case ENGINE_ACT_STIR:
 		case ENGINE_ACT_WAIT:
 		case ENGINE_ACT_READ:
+			/* Only a wait that starts before its time measures scheduling:
+			 * a time already past is the cost of the last step (a commit). */
+			scheduled = r.t0 + act.until_t_s > station_mono_s() + 1e-4;
 			if (station_wait_until(s, r.t0 + act.until_t_s, job->run_id))
 				continue; /* handled at the top of the loop */
-			note_lateness(s, station_mono_s() - (r.t0 + act.until_t_s));
+			if (scheduled)
+				note_lateness(s, station_mono_s() - (r.t0 + act.until_t_s));
 			if (act.kind == ENGINE_ACT_READ)
 				act = do_read(&r);
 			else
