@@ -34,7 +34,7 @@
 
 #include "endpoint.h"
 
-#define MF_MAX_G  METHOD_MAX_ENDPOINTS
+#define MF_MAX_G  (METHOD_MAX_ENDPOINTS + 1) /* two groups may share the first step */
 #define MF_MAX_NL (2 + MF_MAX_G)
 #define MF_MAX_P  (MF_MAX_NL + MF_MAX_G + 1)
 
@@ -344,19 +344,28 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 	    .c = c, .n = k, .v = v, .x = x, .w = w, .kw = pow(10.0, -c->pkw), .scratch = scratch};
 	variant_t best = {.chi = INFINITY};
 	/* Variants: groups between consecutive endpoints always (a step between
-	 * two endpoints needs a weak group); before the first endpoint with or
-	 * without a weak group (weak or strong analyte). */
-	for (int first = 1; first >= 0; first--) {
+	 * two endpoints needs a weak group); before the first endpoint none (a
+	 * strong analyte), one, or two (two protons titrated together, such as
+	 * malic or citric acid, whose pKa values lie close). */
+	for (int first = 2; first >= 0; first--) {
+		if (first + ne - 1 > MF_MAX_G)
+			continue;
 		f.g = 0;
 		double nl0[MF_MAX_NL] = {0.0, 1.0};
 		for (int s = first ? 0 : 1; s < ne; s++) {
 			double va = s == 0 ? 0.0 : eps[s - 1].volume_ml;
 			double vb = eps[s].volume_ml;
-			double ph = endpoint_interp(pts, n, (va + vb) / 2, 0);
-			ph = 7.0 + (ph - c->sig7) / c->sig_per_ph;
-			f.seg[f.g] = s;
-			nl0[2 + f.g] = isfinite(ph) ? ph : 7.0;
-			f.g++;
+			int groups = s == 0 ? first : 1;
+			for (int q = 0; q < groups; q++) {
+				/* pKa guesses: the pH at the middle of the step, or at
+				 * its quarter points for two groups */
+				double at = groups == 1 ? 0.5 : (q == 0 ? 0.25 : 0.75);
+				double ph = endpoint_interp(pts, n, va + at * (vb - va), 0);
+				ph = 7.0 + (ph - c->sig7) / c->sig_per_ph;
+				f.seg[f.g] = s;
+				nl0[2 + f.g] = isfinite(ph) ? ph : 7.0;
+				f.g++;
+			}
 		}
 		try_variant(&f, &best, nl0, r, r2, jac);
 	}
