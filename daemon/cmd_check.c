@@ -4,9 +4,11 @@
  * them (same method_load). Each error goes to stderr as "file:line:col:
  * message"; each good file prints one line on stdout with its id, revision
  * and sha256, the fingerprint runs will record. With -c, volumes are also
- * checked against a station of that daemon config (the one named by
- * --station, else the one with the smallest vessel, so a method that passes
- * fits every station). Exit 0 when every file is valid, 2 otherwise.
+ * checked against the stations of that daemon config, as the daemon does:
+ * the one named by --station, else the smallest vessel and the smallest
+ * burette of all, so a method that passes fits every station. The burette's
+ * capacity comes from its driver's configuration (parsed, never opened).
+ * Exit 0 when every file is valid, 2 otherwise.
  */
 #include <stdio.h>
 #include <string.h>
@@ -14,6 +16,8 @@
 #include "cmd.h"
 #include "config.h"
 #include "diag.h"
+#include "drv.h"
+#include "http.h"
 #include "method.h"
 
 static void usage(FILE *f)
@@ -61,7 +65,6 @@ int cmd_check(int argc, char **argv)
 	if (config_path) {
 		cfg_t cfg;
 		diag_list_t cd = DIAG_LIST_INIT;
-		const cfg_station_t *st = NULL;
 		memset(&cfg, 0, sizeof cfg);
 		if (cfg_load(config_path, &cfg, &cd) != 0) {
 			diag_print(&cd, stderr);
@@ -70,23 +73,40 @@ int cmd_check(int argc, char **argv)
 			return 2;
 		}
 		diag_free(&cd);
-		if (station) {
-			st = cfg_station(&cfg, station);
-			if (!st) {
-				fprintf(stderr, "stopcock check: %s has no station '%s'\n",
-				        config_path, station);
+		if (station && !cfg_station(&cfg, station)) {
+			fprintf(stderr, "stopcock check: %s has no station '%s'\n", config_path,
+			        station);
+			cfg_free(&cfg);
+			return 2;
+		}
+		/* The same limits as the daemon's (http_method_limits). */
+		lim.max_refills = HTTP_MAX_REFILLS;
+		for (int s = 0; s < cfg.n_stations; s++) {
+			const cfg_station_t *st = &cfg.stations[s];
+			drv_burette_t b = {0};
+			drv_burette_info_t info = {0};
+			diag_list_t bd = DIAG_LIST_INIT;
+			if (station && strcmp(st->name, station) != 0)
+				continue;
+			if (st->vessel_max_ml > 0 &&
+			    (lim.vessel_max_ml == 0 || st->vessel_max_ml < lim.vessel_max_ml))
+				lim.vessel_max_ml = st->vessel_max_ml;
+			if (drv_burette_configure(&cfg.doc, st->burette, &b, &bd) == 0) {
+				drv_burette_info(&b, &info);
+				if (info.capacity_ml > 0 &&
+				    (lim.burette_capacity_ml == 0 ||
+				     info.capacity_ml < lim.burette_capacity_ml))
+					lim.burette_capacity_ml = info.capacity_ml;
+				drv_burette_close(&b);
+			} else {
+				/* cfg_load accepted the file, so this is the
+				 * driver's own check: report it, it matters. */
+				diag_print(&bd, stderr);
+				diag_free(&bd);
 				cfg_free(&cfg);
 				return 2;
 			}
-		} else {
-			for (int s = 0; s < cfg.n_stations; s++)
-				if (!st || cfg.stations[s].vessel_max_ml < st->vessel_max_ml)
-					st = &cfg.stations[s];
-		}
-		if (st) {
-			/* The burette's capacity lives in its driver's profile; the
-			 * daemon adds it when it loads methods for a station. */
-			lim.vessel_max_ml = st->vessel_max_ml;
+			diag_free(&bd);
 			have_lim = true;
 		}
 		cfg_free(&cfg);

@@ -94,24 +94,51 @@ def test_missing_file_and_usage():
     assert r.returncode == 2
 
 
-def test_cross_check_against_daemon_config(tmp_path):
+def station(name, vessel_ml, capacity_ml):
+    return ("  - name: %s\n    vessel_max_ml: %g\n"
+            "    burette: {driver: pump-serial, port: /dev/null, profile: %s,"
+            " capacity_ml: %g}\n"
+            "    probe: {driver: probe-modbus, transport: tcp, host: 127.0.0.1, port: 1502,"
+            " unit: 1, registers: {mv: {table: input, address: 0, type: float32}}}\n"
+            % (name, vessel_ml, os.path.abspath("config/pumps/sim.yaml"), capacity_ml))
+
+
+def write_config(tmp_path, stations):
     cfg = tmp_path / "stopcockd.yaml"
-    cfg.write_text(
-        "http: {listen: 127.0.0.1:8470}\n"
-        "storage: {database: %s}\n"
-        "stations:\n"
-        "  - name: big\n    vessel_max_ml: 250\n"
-        "    burette: {driver: sim}\n    probe: {driver: sim}\n"
-        "  - name: small\n    vessel_max_ml: 30\n"
-        "    burette: {driver: sim}\n    probe: {driver: sim}\n" % (tmp_path / "db.sqlite"))
+    cfg.write_text("http: {listen: 127.0.0.1:8470}\n"
+                   "storage: {database: %s}\n"
+                   "stations:\n" % (tmp_path / "db.sqlite") + "".join(stations))
+    return str(cfg)
+
+
+def test_cross_check_against_daemon_config(tmp_path):
+    cfg = write_config(tmp_path, [station("big", 250, 10), station("small", 30, 10)])
     f = "config/methods/cider-acidity.yaml"
-    r = run("-c", str(cfg), "--station", "big", f)
+    r = run("-c", cfg, "--station", "big", f)
     assert r.returncode == 0, r.stderr
     # without --station the smallest vessel counts, so a pass fits every station
-    r = run("-c", str(cfg), f)
+    r = run("-c", cfg, f)
     assert r.returncode == 2
-    m = DIAG.match(r.stderr.splitlines()[0])
+    lines = r.stderr.splitlines()
+    m = DIAG.match(lines[0])
     assert m and m.group("file") == f
-    assert "is above the station's vessel_max_ml (30 mL)" in m.group("msg")
-    r = run("-c", str(cfg), "--station", "nowhere", f)
+    # cider-acidity.yaml line 9 is `sample: {unit: mL, min: 1.0, max: 50.0}`
+    assert lines == [f + ":9:35: sample.max (50 mL) plus stop.volume_max_ml (25 mL) is above "
+                     "the station's vessel_max_ml (30 mL)"]
+    r = run("-c", cfg, "--station", "nowhere", f)
     assert r.returncode == 2
+    assert "no station 'nowhere'" in r.stderr
+
+
+def test_cross_check_against_the_burette(tmp_path):
+    # A 1 mL syringe: with the daemon's 20 refills it delivers at most 21 mL,
+    # below the cider method's 25 mL limit; 0.5 mL doses still fit one stroke.
+    cfg = write_config(tmp_path, [station("micro", 250, 1.0)])
+    f = "config/methods/cider-acidity.yaml"
+    r = run("-c", cfg, f)
+    assert r.returncode == 2
+    assert r.stderr.splitlines() == [
+        f + ":23:46: stop.volume_max_ml (25 mL) is more than the burette can deliver: "
+        "1 mL capacity x (1 + 20 refills) = 21 mL"]
+    r = run("-c", cfg, "config/methods/water-blank.yaml")
+    assert r.returncode == 0, r.stderr
