@@ -1,0 +1,99 @@
+"""`stopcock predict`: the engine against the simulated beaker, from the
+command line. Reference volumes are stoichiometric, from the bench scenario
+files (1.000 mmol of acetic acid against 0.1000 mol/L NaOH: 10.000 mL), never
+from the program itself."""
+import json
+import os
+import re
+import subprocess
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+METHOD = str(ROOT / "tests/bench/methods/weak.yaml")
+SCENARIO = str(ROOT / "tests/bench/scenarios/weak.yaml")
+
+
+def stopcock():
+    b = os.environ.get("STOPCOCK_BUILD")
+    assert b, "STOPCOCK_BUILD must name the build directory (make pytest sets it)"
+    p = Path(b) / "bin" / "stopcock"
+    assert p.exists(), f"{p} is missing: build with make all"
+    return str(p)
+
+
+def predict(*args):
+    return subprocess.run([stopcock(), "predict", *args], capture_output=True, text=True,
+                          timeout=60)
+
+
+def test_human_output_names_endpoint_results_additions_duration():
+    r = predict(METHOD, "--scenario", SCENARIO, "--seed", "3")
+    assert r.returncode == 0, r.stderr
+    m = re.search(r"endpoint 1: ([0-9.]+) mL", r.stdout)
+    assert m, r.stdout
+    # 0.05 % of 10 mL is the project's accuracy target; the bench shows ~0.01 %.
+    assert abs(float(m.group(1)) - 10.000) <= 0.005
+    assert re.search(r"result acetic_acid: [0-9.]+ g/L", r.stdout)
+    assert re.search(r"additions: \d+", r.stdout)
+    assert re.search(r"simulated duration: \d+ s", r.stdout)
+    assert "stopped: endpoints_found" in r.stdout
+
+
+def test_json_is_the_run_record_with_duration():
+    r = predict(METHOD, "--scenario", SCENARIO, "--seed", "3", "--json")
+    assert r.returncode == 0, r.stderr
+    rec = json.loads(r.stdout)
+    for key in ("id", "station", "method", "sample", "state", "phase", "queued_at",
+                "started_at", "ended_at", "titrant", "calibration", "endpoints", "results",
+                "additions", "dispensed_ml", "stop_reason", "faults", "duration_s"):
+        assert key in rec, key
+    assert rec["state"] == "finished" and rec["phase"] is None
+    assert rec["stop_reason"] == "endpoints_found"
+    ep = rec["endpoints"][0]
+    assert set(ep) >= {"n", "volume_ml", "u_volume_ml", "ph", "mv", "half_ph", "how"}
+    assert abs(ep["volume_ml"] - 10.000) <= 0.005
+    assert rec["duration_s"] > 0 and rec["additions"] == len(rec["points"]) - 1
+    # 1.000 mmol of acetic acid (60.052 g/mol, CHECKS.md 7) in 10 mL: 6.005 g/L
+    assert abs(rec["results"][0]["value"] - 6.005) <= 0.002
+    pt = rec["points"][0]
+    assert set(pt) == {"t_s", "volume_ml", "mv", "ph", "temperature_c", "settled", "dpdv"}
+
+
+def test_same_seed_same_run_other_seed_other_noise():
+    a = predict(METHOD, "--scenario", SCENARIO, "--seed", "9", "--json").stdout
+    b = predict(METHOD, "--scenario", SCENARIO, "--seed", "9", "--json").stdout
+    c = predict(METHOD, "--scenario", SCENARIO, "--seed", "10", "--json").stdout
+    assert a == b
+    assert json.loads(a)["points"][0]["mv"] != json.loads(c)["points"][0]["mv"]
+
+
+def test_calibration_option_changes_the_ph_read():
+    # The scenario's electrode is ideal (0 mV at pH 7, 100 %). Reading it
+    # through a calibration that says 0 mV is pH 7 at 50 % slope doubles
+    # every distance from pH 7: the first point (pH ~2.9) reads near -1.2.
+    base = json.loads(predict(METHOD, "--scenario", SCENARIO, "--json").stdout)
+    off = json.loads(predict(METHOD, "--scenario", SCENARIO, "--json",
+                             "--calibration", "50,0").stdout)
+    p0, p1 = base["points"][0]["ph"], off["points"][0]["ph"]
+    assert abs((7 - p1) - 2 * (7 - p0)) < 0.05
+    assert off["calibration"]["slope_pct"] == 50
+
+
+def test_amount_sets_the_sample_put_in():
+    # 5 mL instead of 10 mL of the same vinegar: half the acid, 5.000 mL.
+    r = predict(METHOD, "--scenario", SCENARIO, "--amount", "5", "--json")
+    rec = json.loads(r.stdout)
+    assert abs(rec["endpoints"][0]["volume_ml"] - 5.000) <= 0.005
+    assert rec["sample"]["amount"] == 5
+
+
+def test_bad_input_exits_2_with_file_line_col(tmp_path):
+    assert predict(METHOD).returncode == 2  # no --scenario
+    assert predict(METHOD, "--scenario", SCENARIO, "--seed", "-1").returncode == 2
+    assert predict(METHOD, "--scenario", SCENARIO, "--amount", "zero").returncode == 2
+    assert predict(METHOD, "--scenario", SCENARIO, "--calibration", "98").returncode == 2
+    bad = tmp_path / "weak.yaml"
+    bad.write_text(Path(METHOD).read_text().replace("step_aim: 0.50", "step_aim: lots"))
+    r = predict(str(bad), "--scenario", SCENARIO)
+    assert r.returncode == 2
+    assert re.search(r"weak\.yaml:\d+:\d+: .*step_aim", r.stderr), r.stderr
