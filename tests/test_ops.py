@@ -436,7 +436,9 @@ def test_daemon_system_calls_fit_the_unit_filter(tmp_path):
     """Run stopcockd under strace through start-up, HTTP reads and writes, a
     run, an abort, a calibration step, a reload and a stop, and check every
     system call it made against the unit's SystemCallFilter= lines. A call outside
-    would fail with EPERM under systemd (SystemCallErrorNumber=EPERM)."""
+    would fail with EPERM under systemd (SystemCallErrorNumber=EPERM). The same
+    trace checks RestrictAddressFamilies=, MemoryDenyWriteExecute= and that
+    the daemon writes nowhere ProtectSystem=strict would refuse."""
     import json
     from test_openapi import MV_METHOD, bench
 
@@ -503,3 +505,27 @@ def test_daemon_system_calls_fit_the_unit_filter(tmp_path):
     outside = sorted(used - allowed)
     print(f"stopcockd used {len(used)} distinct system calls; outside the filter: {outside}")
     assert not outside, f"system calls the unit's filter would refuse: {outside}"
+
+    text = trace.read_text()
+    # RestrictAddressFamilies=AF_UNIX AF_INET AF_INET6
+    families = set(re.findall(r"\bsocket\((AF_\w+)", text))
+    assert "AF_INET" in families, families  # the Modbus TCP transmitter
+    assert families <= {"AF_UNIX", "AF_INET", "AF_INET6"}, families
+    # MemoryDenyWriteExecute=yes refuses writable+executable mappings and any
+    # mprotect() that adds PROT_EXEC.
+    wx = [ln for ln in text.splitlines()
+          if re.search(r"\b(mmap|mprotect|pkey_mprotect)\(", ln) and "PROT_EXEC" in ln
+          and ("PROT_WRITE" in ln or "mprotect(" in ln)]
+    assert not wx, wx[:3]
+    # ProtectSystem=strict: the daemon writes only below its state directory
+    # (here tmp_path, which also holds the pump's pty link) and to devices.
+    written = set(re.findall(
+        r'\b(?:open|openat)\((?:AT_FDCWD, |\d+, )?"([^"]+)", [^)]*O_(?:WRONLY|RDWR|CREAT)',
+        text))
+    written |= set(re.findall(
+        r'\b(?:unlink|unlinkat|rename|renameat2?|mkdir|mkdirat|rmdir)\((?:AT_FDCWD, |\d+, )?'
+        r'"([^"]+)"', text))
+    assert any(w.endswith("stopcock.db") for w in written), sorted(written)
+    bad = sorted(w for w in written
+                 if not (w.startswith(str(tmp_path) + "/") or w.startswith("/dev/")))
+    assert not bad, f"writes outside the state directory: {bad}"
