@@ -252,6 +252,9 @@ def test_man_page_renders_without_warnings(page):
     need_tool("man", "man-db")
     need_tool("groff", "groff-base")
     env = dict(os.environ, MANWIDTH="80", LC_ALL="C.UTF-8")
+    src = page.read_text()
+    stray = sorted({hex(ord(c)) for c in src if ord(c) < 32 and c not in "\n\t"})
+    assert not stray, f"{page.name}: control characters {stray}"
     # --warnings=w: every groff warning, not only the default undefined macros.
     r = run(["man", "--warnings=w", "-l", str(page)], env=env)
     assert r.returncode == 0, r.stderr
