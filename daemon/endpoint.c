@@ -227,17 +227,23 @@ static int find_inflections(const method_t *m, const engine_point_t *pts, int n,
 		if (k == ms - 1)
 			continue; /* still rising at the last point: not past it yet */
 		/* Prominence: a real peak stands at least 1.5 times above the
-		 * derivative at both ends of its flanks and just outside them. A
-		 * noise bump on another peak's flank does not, nor does the fast
-		 * start of a weak acid (the derivative only falls from the first
-		 * point: there is no rise before it). */
+		 * derivative minimum (valley) on each side, counting the segment
+		 * just outside its flanks (a neighbouring peak may have claimed the
+		 * valley). A noise bump on another peak's flank does not, nor does
+		 * the fast start of a weak acid (the derivative only falls from the
+		 * first point: there is no rise before it). */
 		if (lo == k || hi == k)
 			continue;
-		double edge = fmax(sg[lo].g, sg[hi].g);
+		double left = INFINITY, right = INFINITY;
+		for (int j = lo; j <= k; j++)
+			left = fmin(left, sg[j].g);
+		for (int j = k; j <= hi; j++)
+			right = fmin(right, sg[j].g);
 		if (lo > 0)
-			edge = fmax(edge, sg[lo - 1].g);
+			left = fmin(left, sg[lo - 1].g);
 		if (hi < ms - 1)
-			edge = fmax(edge, sg[hi + 1].g);
+			right = fmin(right, sg[hi + 1].g);
+		double edge = fmax(fmax(left, right), 0.0);
 		if (!(gk >= 1.5 * edge))
 			continue;
 		double jump = dir * (pts[hi + 1].signal - pts[lo].signal);

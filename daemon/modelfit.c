@@ -281,6 +281,19 @@ static void try_variant(fit_t *f, variant_t *best, const double *nl0, double *r,
 	double nl[MF_MAX_NL];
 	memcpy(nl, nl0, sizeof nl);
 	double chi = lm(f, nl, r, r2, jac);
+	/* A group the data cannot see is no group: its pKa must lie within the
+	 * measured pH range (one unit beyond either end at most) and its amount
+	 * must be positive, else its amount is free to take any value and the
+	 * endpoint with it. */
+	double lo = INFINITY, hi = -INFINITY;
+	for (int i = 0; i < f->n; i++) {
+		double ph = 7.0 + nl[1] * (f->x[i] - 7.0) + nl[0];
+		lo = fmin(lo, ph);
+		hi = fmax(hi, ph);
+	}
+	for (int j = 0; j < f->g; j++)
+		if (!(nl[2 + j] > lo - 1 && nl[2 + j] < hi + 1 && f->lin[j] > 0))
+			return;
 	/* Akaike-like penalty: each group costs two parameters. */
 	double score = chi + 2.0 * 2 * f->g;
 	if (isfinite(chi) && score < best->chi) {

@@ -149,6 +149,18 @@ BENCH(engine_panel)
 		mc.dosing = DOSING_CONSTANT;
 		mc.dose_ml = 0.02;
 		row_t co = run_one(&mc, &s, 1000 + (unsigned)i);
+		/* One seed can be lucky: the worst adaptive error over 8 more. */
+		double worst8 = ad.err_pct;
+		int missed = !isfinite(ad.err_pct);
+		for (unsigned k = 1; k <= 8; k++) {
+			row_t x = run_one(&m, &s, 1000 + (unsigned)i + 100 * k);
+			if (!isfinite(x.err_pct))
+				missed++;
+			else if (!(x.err_pct <= worst8))
+				worst8 = x.err_pct;
+		}
+		if (missed)
+			worst8 = NAN; /* an endpoint not found is the worst error */
 		int ne = m.count;
 		const row_t *rows[2] = {&ad, &co};
 		for (int k = 0; k < 2; k++) {
@@ -164,6 +176,9 @@ BENCH(engine_panel)
 			       "%.3f mL the errors are %.4f %% adaptive, %.4f %% constant; the row "
 			       "counts the carbonate's second proton too)\n",
 			       "", ad.alt_ml, ad.alt_err_pct, co.alt_err_pct);
+		printf("%-12s   worst adaptive error over 9 seeds: %.4f %% (%d of 9 runs missed an "
+		       "endpoint)\n",
+		       "", worst8, missed);
 		med_err[i] = ad.err_pct;
 		med_adds[i] = (double)ad.additions / ne;
 		med_dur[i] = ad.dur_s / ne;
@@ -172,7 +187,7 @@ BENCH(engine_panel)
 		n_ok++;
 
 		bool single_low_noise = ne == 1 && s.electrode.noise_mv <= 0.15 + 1e-9;
-		if (single_low_noise && !(ad.err_pct <= 0.05))
+		if (single_low_noise && !(worst8 <= 0.05))
 			err_ok = false;
 		if (!((double)ad.additions / ne <= 25))
 			adds_ok = false;
@@ -183,7 +198,7 @@ BENCH(engine_panel)
 		if (!(ad.cpu_us_per_point <= 100))
 			cpu_ok = false;
 		printf("%-12s   error %s, additions %s, ratio %.1fx %s, time %s, cpu %s\n", "",
-		       single_low_noise ? met(ad.err_pct <= 0.05) : "(no target)",
+		       single_low_noise ? met(worst8 <= 0.05) : "(no target)",
 		       met((double)ad.additions / ne <= 25), ratio[i],
 		       met(ratio[i] >= 4 && ad.err_pct <= fmax(co.err_pct, 0.05)),
 		       fabs(s.electrode.tau_s - 1.5) < 1e-9 ? met(ad.dur_s / ne <= 120)
