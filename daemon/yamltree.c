@@ -478,7 +478,21 @@ static const char *closest(const char *word, const char *const *words)
 {
 	const char *best = NULL;
 	int best_d = 1000, ties = 0;
-	int cap = strlen(word) <= 4 ? 1 : 2;
+	size_t wl = strlen(word);
+	int cap = wl <= 4 ? 1 : 2;
+	/* A unit left off ("dose_max" for "dose_max_ml") is the commonest slip:
+	 * a single allowed word that starts with this one wins. */
+	if (wl >= 3) {
+		const char *pre = NULL;
+		int n_pre = 0;
+		for (size_t i = 0; words[i]; i++)
+			if (!strncmp(words[i], word, wl) && words[i][wl] != '\0') {
+				pre = words[i];
+				n_pre++;
+			}
+		if (n_pre == 1)
+			return pre;
+	}
 	for (size_t i = 0; words[i]; i++) {
 		int dist = yt_edit_distance(word, words[i], cap);
 		if (dist > cap)
@@ -749,8 +763,10 @@ bool yt_enum(const yt_doc_t *doc, const yt_node_t *n, const char *key, const cha
 {
 	char list[512];
 	const char *near;
+	char expect[560];
 	join_words(list, sizeof list, words);
-	if (!want_value(doc, n, key, "one of the allowed words", d))
+	snprintf(expect, sizeof expect, "one of %s", list);
+	if (!want_value(doc, n, key, expect, d))
 		return false;
 	for (int i = 0; words[i]; i++)
 		if (!strcmp(n->str, words[i])) {

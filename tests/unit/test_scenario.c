@@ -17,8 +17,7 @@ static const struct {
      "sample[1]: 'charge' applies only to a weak system (with pka); strong components are singly "
      "charged"},
     {"electrode-unknown-key.yaml", 4, 29,
-     "unknown key 'slope' in electrode (allowed: offset_mv, slope_pct, tau_s, noise_mv, "
-     "drift_mv_per_min)"},
+     "unknown key 'slope' in electrode; did you mean 'slope_pct'?"},
     {"empty-pka.yaml", 3, 43, "sample[1].pka must list at least one pKa value"},
     {"missing-molar.yaml", 3, 5, "missing key 'molar' in sample[1]"},
     {"missing-titrant.yaml", 1, 1, "missing key 'titrant' in the scenario"},

@@ -171,9 +171,10 @@ TEST(yamltree_unknown_keys_did_you_mean)
 	yt_doc_t doc;
 	diag_list_t d = DIAG_LIST_INIT;
 	static const char *const keys[] = {"past_endpoint_ml", "volume_max_ml", "time_max_s", NULL};
-	REQUIRE(load("volum_max_ml: 3\nzzz: 1\n", &doc, &d) == 0);
+	REQUIRE(load("volum_max_ml: 3\nzzz: 1\ntime_max: 9\n", &doc, &d) == 0);
 	CHECK(!yt_check_keys(&doc, doc.root, keys, "stop", &d));
-	REQUIRE(d.n == 2);
+	REQUIRE(d.n == 3);
+	CHECK_STR(d.v[2].msg, "unknown key 'time_max' in stop; did you mean 'time_max_s'?");
 	CHECK_STR(d.v[0].msg, "unknown key 'volum_max_ml' in stop; did you mean 'volume_max_ml'?");
 	CHECK_STR(d.v[1].msg,
 		  "unknown key 'zzz' in stop (allowed: past_endpoint_ml, volume_max_ml, time_max_s)");
