@@ -257,7 +257,9 @@ static void evaluate(engine_t *e)
 		double t_c = isfinite(e->pts[0].temperature_c) ? e->pts[0].temperature_c : 25.0;
 		double k = chem_nernst_mv(t_c);
 		modelfit_ctx_t c = {
-		    .titrant_molar = e->m.titrant_molarity * e->p.titer,
+		    /* nominal molarity: the titer enters the formulas only, so the
+		     * measured endpoint volume never depends on it */
+		    .titrant_molar = e->m.titrant_molarity,
 		    .dir = e->m.signal == SIGNAL_MV ? -dir : dir,
 		    .start_volume_ml = e->p.start_volume_ml,
 		    .pkw = chem_pkw(t_c),
