@@ -204,7 +204,7 @@ static double lm(fit_t *f, double *nl, double *r, double *r2, double *jac)
 				jac[i * np + p] = (r2[i] - r[i]) / h;
 		}
 		residuals(f, nl, r); /* restore f->lin for nl */
-		double jtj[MF_MAX_NL * MF_MAX_NL], jtr[MF_MAX_NL];
+		double jtj[MF_MAX_NL * MF_MAX_NL] = {0}, jtr[MF_MAX_NL] = {0};
 		for (int a = 0; a < np; a++) {
 			jtr[a] = 0;
 			for (int i = 0; i < nr; i++)
@@ -411,7 +411,7 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		ja[k * nall + p] = p == 0 ? 1.0 / 0.5 : 0.0;
 		ja[(k + 1) * nall + p] = p == 1 ? 1.0 / 0.05 : 0.0;
 	}
-	double jtj[MF_MAX_P * MF_MAX_P];
+	double jtj[MF_MAX_P * MF_MAX_P] = {0};
 	for (int a = 0; a < nall; a++)
 		for (int b = 0; b < nall; b++) {
 			double s = 0;

@@ -443,3 +443,60 @@ TEST(engine_deterministic_with_seed)
 	engine_free(b);
 	engine_free(c);
 }
+
+/* signal: mv. The electrode's mV falls as the pH rises (59.16 mV/pH at
+ * 25 degC, CHECKS.md 4), so the curve in mV is a falling one; the model fit
+ * works in pH through the calibration. Same volume, same tolerance. */
+TEST(engine_signal_mv_falling)
+{
+	method_t m;
+	chem_scenario_t s;
+	REQUIRE(
+	    load_method("method: test-method\ntitle: mV\nrevision: 1\npurpose: assay\n"
+	                "titrant: {name: NaOH, molarity: 0.1000}\n"
+	                "sample: {unit: mL, min: 1.0, max: 50.0}\nsignal: mv\n"
+	                "start: {stir_s: 5, predose_ml: 0.0}\n"
+	                "dosing: {mode: adaptive, step_aim: 30, dose_min_ml: 0.02, "
+	                "dose_max_ml: 1.0}\n"
+	                "settle: {wait_min_s: 1, wait_max_s: 20, still_within: 1.2, "
+	                "still_for_s: 2}\n"
+	                "detect: {kind: inflection, count: 1, min_jump: 60, window: [-300, 100]}\n"
+	                "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, signal_limit: -320, "
+	                "time_max_s: 3600}\n",
+	                &m));
+	REQUIRE(make_scenario(&s, "{name: acetic acid, molar: 0.1000, pka: [4.76]}", NAOH, 20));
+	simrun_out_t out;
+	engine_t *e = run(&m, &s, 31, &out);
+	REQUIRE(e && engine_n_endpoints(e) == 1);
+	CHECK_INT(engine_stop_reason(e), ENGINE_STOP_ENDPOINTS);
+	CHECK_NEAR(engine_endpoint(e, 0)->volume_ml, 10.000, 0.005);
+	CHECK(engine_endpoint(e, 0)->signal < 0); /* alkaline side of pH 7: negative mV */
+	int n = engine_n_points(e);
+	CHECK(engine_point(e, n - 1)->mv < engine_point(e, 0)->mv);
+	engine_free(e);
+}
+
+/* An electrode that drifts -30 mV/min (the way its mV goes as the pH rises,
+ * so lag and drift never cancel) never stays within 0.5 mV for 2 s:
+ * every point is taken at wait_max_s and marked unsettled. */
+TEST(engine_unsettled_at_wait_max)
+{
+	method_t m;
+	chem_scenario_t s;
+	REQUIRE(make_method(&m, "NaOH",
+	                    "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	                    "stop: {past_endpoint_ml: 0.5, volume_max_ml: 2, time_max_s: 3600}\n"));
+	m.still_within = 0.008; /* pH: 0.5 mV */
+	m.wait_max_s = 6;
+	REQUIRE(make_scenario(&s, "{name: acetic acid, molar: 0.1000, pka: [4.76]}", NAOH, 20));
+	s.electrode.drift_mv_per_min = -30;
+	simrun_out_t out;
+	engine_t *e = run(&m, &s, 32, &out);
+	REQUIRE(e && engine_n_points(e) >= 3);
+	for (int i = 0; i < engine_n_points(e); i++)
+		CHECK(!engine_point(e, i)->settled);
+	/* each point after its addition waited wait_max_s (dose time < 1 s) */
+	for (int i = 1; i < engine_n_points(e); i++)
+		CHECK(engine_point(e, i)->t_s - engine_point(e, i - 1)->t_s >= 6);
+	engine_free(e);
+}
