@@ -223,9 +223,18 @@ char *http_metrics_text(http_ctx_t *ctx, size_t *out_len)
 		station_snapshot(ctx->stations[i], &s);
 		append(&b, &len, &cap,
 		       "stopcock_wake_lateness_seconds_count{station=\"%s\"} %ld\n"
-		       "stopcock_wake_lateness_seconds_sum{station=\"%s\"} %.6f\n"
-		       "stopcock_wake_lateness_max_seconds{station=\"%s\"} %.6f\n",
-		       s.name, s.wake_count, s.name, s.wake_late_sum_s, s.name, s.wake_late_max_s);
+		       "stopcock_wake_lateness_seconds_sum{station=\"%s\"} %.6f\n",
+		       s.name, s.wake_count, s.name, s.wake_late_sum_s);
+	}
+	append(&b, &len, &cap,
+	       "# TYPE stopcock_wake_lateness_max_seconds gauge\n"
+	       "# UNIT stopcock_wake_lateness_max_seconds seconds\n"
+	       "# HELP stopcock_wake_lateness_max_seconds The largest of those since start.\n");
+	for (int i = 0; i < ctx->n_stations; i++) {
+		station_snapshot_t s;
+		station_snapshot(ctx->stations[i], &s);
+		append(&b, &len, &cap, "stopcock_wake_lateness_max_seconds{station=\"%s\"} %.6f\n",
+		       s.name, s.wake_late_max_s);
 	}
 	append(&b, &len, &cap,
 	       "# TYPE stopcock_http_requests counter\n"

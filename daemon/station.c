@@ -428,6 +428,7 @@ static void idle_tick(station_t *s, double *next_read)
 	if (s->cal_dirty)
 		calib_store(s);
 	if (measuring) {
+		set_state(s, "calibrating");
 		calib_step(s);
 		*next_read = now + 0.25;
 		return;

@@ -263,7 +263,12 @@ interrupted:
 	return engine_feed(r->e, &(engine_event_t){.kind = ENGINE_EV_ABORT, .t_s = t_run(r)});
 }
 
-static engine_action_t do_read(run_t *r)
+/* `scheduled_t_s` is the run time the engine asked for the reading. When the
+ * reading was taken on time (within READ_ON_TIME_S) the event carries that
+ * time, as on the engine's virtual clock: the engine's stillness test looks
+ * for a reading exactly still_for_s back, which a jittered clock never hits. */
+#define READ_ON_TIME_S 0.1
+static engine_action_t do_read(run_t *r, double scheduled_t_s)
 {
 	drv_reading_t rd = {0};
 	drv_err_t err = {{0}};
@@ -281,6 +286,8 @@ static engine_action_t do_read(run_t *r)
 	if (station_mono_s() - rd.t_s > STALE_READING_S)
 		return feed_fault(r, t_run(r), "probe_stale", "the probe reading is stale");
 	ev.t_s = t_run(r);
+	if (ev.t_s - scheduled_t_s >= 0 && ev.t_s - scheduled_t_s < READ_ON_TIME_S)
+		ev.t_s = scheduled_t_s;
 	ev.mv = rd.mv;
 	ev.has_ph = rd.has_ph;
 	ev.ph = rd.ph;
@@ -535,7 +542,7 @@ void station_run_job(station_t *s, station_job_t *job)
 			if (scheduled)
 				note_lateness(s, station_mono_s() - (r.t0 + act.until_t_s));
 			if (act.kind == ENGINE_ACT_READ)
-				act = do_read(&r);
+				act = do_read(&r, act.until_t_s);
 			else
 				act = engine_feed(r.e, &(engine_event_t){.kind = ENGINE_EV_TICK,
 				                                         .t_s = t_run(&r)});

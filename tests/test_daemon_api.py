@@ -2,8 +2,10 @@
 stations, authentication, errors and their statuses, body limits, method
 revisions, metrics, and --check-config. Runs are in test_daemon_runs.py."""
 import json
+import signal
 import socket
 import subprocess
+import time
 
 import pytest
 
@@ -265,3 +267,31 @@ def test_daemon_refuses_a_bad_config(tmp_path):
                        timeout=20)
     assert r.returncode == 2
     assert r.stderr.startswith(f"{p}:2:")
+
+
+def test_sighup_reloads_methods_dir(bench, tmp_path):
+    # Last in this file: it restarts the daemon with its own methods_dir.
+    mdir = tmp_path / "methods"
+    mdir.mkdir()
+    text = bench.config.read_text()
+    line = next(l for l in text.splitlines() if l.startswith("methods_dir:"))
+    bench.config.write_text(text.replace(line, f"methods_dir: {mdir}"))
+    assert bench.stop_daemon() == 0
+    bench.start_daemon()
+    assert bench.request("GET", "/v1/methods/hup-test").status == 404
+    src = db.METHOD_MV.read_text().replace("method: wash-acid-mv", "method: hup-test")
+    (mdir / "hup-test.yaml").write_text(src)
+    bench.daemon.send_signal(signal.SIGHUP)
+    deadline = time.monotonic() + 10
+    while bench.request("GET", "/v1/methods/hup-test").status != 200:
+        assert time.monotonic() < deadline, "SIGHUP did not load hup-test.yaml"
+        time.sleep(0.1)
+    m = bench.get("/v1/methods/hup-test")
+    assert m["source"] == "file" and m["text"] == src and m["revision"] == 1
+    # A bad file is reported in the log and changes nothing.
+    (mdir / "hup-test.yaml").write_text(src.replace("revision: 1", "revision: 2")
+                                        .replace("step_aim: 25", "step_aim: -1"))
+    bench.daemon.send_signal(signal.SIGHUP)
+    time.sleep(0.5)
+    assert bench.get("/v1/methods/hup-test")["revision"] == 1
+    assert bench.get("/v1/health")["status"] == "ok"
