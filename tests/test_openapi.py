@@ -382,6 +382,18 @@ def test_every_operation_answers_as_documented(daemon):
                body=method["text"].encode(), ctype="application/yaml")
     assert st in (200, 201), st
 
+    st, page = do("get", "/")
+    assert st == 200 and b"<html" in page.lower(), page[:100]
+    st, _ = do("get", "/www/{name}", "/www/api.js")
+    assert st == 200
+    st, _ = do("get", "/www/{name}", "/www/no-such-file.js")
+    assert st == 404
+    st, chk = do("post", "/v1/methods/{id}/check", "/v1/methods/openapi-mv/check",
+                 body=MV_METHOD.encode(), ctype="application/yaml")
+    assert st == 200 and chk["valid"] and chk["saves"], chk
+    st, chk = do("post", "/v1/methods/{id}/check", "/v1/methods/openapi-mv/check",
+                 body=b"method: openapi-mv\nrevision: 0\n", ctype="application/yaml")
+    assert st == 200 and not chk["valid"] and chk["diagnostics"], chk
     # A new method in mV (a pH method would need a calibration first): 201.
     st, put = do("put", "/v1/methods/{id}", "/v1/methods/openapi-mv",
                  body=MV_METHOD.encode(), ctype="application/yaml")
@@ -416,6 +428,10 @@ def test_every_operation_answers_as_documented(daemon):
     assert st == 404
     st, page = do("get", "/v1/results", "/v1/results?after=0&limit=10")
     assert st == 200
+    st, runs = do("get", "/v1/runs", f"/v1/runs?station={station}&limit=5")
+    assert st == 200 and any(x["id"] == rid for x in runs["runs"]), runs
+    st, _ = do("get", "/v1/runs", "/v1/runs?state=bogus")
+    assert st == 400
     st, _ = do("post", "/v1/stations/{name}/halt", f"/v1/stations/{station}/halt")
     assert st == 200
     st, _ = do("post", "/v1/stations/{name}/halt", "/v1/stations/no-such-station/halt")
@@ -517,7 +533,8 @@ def test_every_route_the_daemon_serves_is_in_spec(daemon):
                 for m in ("get", "post", "put"):
                     status, _, rb = daemon.call(m, path, body={} if m != "get" else None)
                     msg = json.loads(rb)["error"]["message"] if status >= 400 else ""
-                    if status == 404 and msg.startswith("no such route"):
+                    # "no such file": /www with no file name, or a file not there.
+                    if status == 404 and msg.startswith(("no such route", "no such file")):
                         continue
                     # The daemon checks a path's id segment before the rest of the
                     # path, so /v1/runs/x/anything is a 400 about the id: that

@@ -85,6 +85,13 @@ def expected_files():
     return exp
 
 
+def optional_files():
+    """Installed path -> source for files the tree may hold: the bench page
+    (daemon/www), which the daemon finds in DATADIR/www once installed."""
+    return {f"usr/share/stopcock/www/{f.name}": f
+            for f in sorted((ROOT / "daemon" / "www").glob("*")) if f.is_file()}
+
+
 def test_install_tree_is_complete(installed):
     exp = expected_files()
     # Every kind of thing the issue lists is there at all (an empty glob in
@@ -100,9 +107,14 @@ def test_install_tree_is_complete(installed):
         if src is not None:
             assert p.read_bytes() == src.read_bytes(), f"{rel} differs from {src}"
     assert (installed / "etc/stopcock/methods").is_dir()
+    opt = optional_files()
+    for rel, src in opt.items():
+        if (installed / rel).exists():
+            assert (installed / rel).read_bytes() == src.read_bytes(), rel
     # Nothing unexpected: every installed file is one we know.
     extra = [str(p.relative_to(installed)) for p in installed.rglob("*")
-             if p.is_file() and str(p.relative_to(installed)) not in exp]
+             if p.is_file() and str(p.relative_to(installed)) not in exp
+             and str(p.relative_to(installed)) not in opt]
     assert not extra, f"unexpected installed files: {extra}"
 
 
