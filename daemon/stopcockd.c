@@ -273,7 +273,9 @@ int main(int argc, char **argv)
 	ctx.n_stations = n;
 	if (n == cfg.n_stations) {
 		http_method_limits(&ctx, NULL, &lim);
-		if (cfg.methods_dir[0])
+		/* A bad method file fails --check-config; the daemon itself
+		 * starts anyway, logs it, and keeps the file out. */
+		if (cfg.methods_dir[0] && o.check)
 			load_methods_dir(cfg.methods_dir, &lim, NULL, &d);
 	}
 	if (cfg.token_file[0]) {

@@ -295,3 +295,44 @@ def test_sighup_reloads_methods_dir(bench, tmp_path):
     time.sleep(0.5)
     assert bench.get("/v1/methods/hup-test")["revision"] == 1
     assert bench.get("/v1/health")["status"] == "ok"
+    # --check-config names the bad method file; the daemon itself still starts.
+    r = check_config(bench.config)
+    assert r.returncode == 2 and f"{mdir}/hup-test.yaml:" in r.stderr, r.stderr
+    assert bench.stop_daemon() == 0
+    bench.start_daemon()
+    assert bench.get("/v1/methods/hup-test")["revision"] == 1
+
+
+def test_read_token_and_connection_limits(bench):
+    # Restarts the daemon with reads needing a token and two connections per client.
+    text = bench.config.read_text()
+    bench.config.write_text(text.replace("read_needs_token: false",
+                                         "read_needs_token: true\n  max_per_ip: 2"))
+    assert bench.stop_daemon() == 0
+    try:
+        bench.daemon = db.subprocess.Popen([db.binary("stopcockd"), "-c", str(bench.config)],
+                                           stdout=bench.daemon_log, stderr=bench.daemon_log)
+        deadline = time.monotonic() + 15
+        while True:
+            try:
+                if bench.request("GET", "/v1/health").status == 200:
+                    break
+            except OSError:
+                pass
+            assert time.monotonic() < deadline
+            time.sleep(0.05)
+        # health stays open for probes; everything else needs the token now
+        assert bench.request("GET", "/v1/stations").status == 401
+        assert bench.request("GET", "/v1/stations", token=bench.token).status == 200
+        assert bench.request("GET", "/metrics").status == 401
+        # Two idle connections are held open; a third from the same address is refused.
+        held = [socket.create_connection(("127.0.0.1", bench.port), timeout=5) for _ in range(2)]
+        time.sleep(0.2)
+        with pytest.raises(OSError):
+            bench.request("GET", "/v1/health", timeout=5)
+        for s in held:
+            s.close()
+        time.sleep(0.3)
+        assert bench.request("GET", "/v1/health").status == 200
+    finally:
+        bench.config.write_text(text)
