@@ -363,6 +363,17 @@ static double hyperbolic_dose(const engine_t *e, double aim)
 	double s0 = fabs(a->signal - z->signal) / dv0, s1 = fabs(b->signal - a->signal) / dv1;
 	if (!(s1 > 1.05 * s0) || !(s0 > 0))
 		return INFINITY;
+	double smin = INFINITY;
+	for (int i = 1; i < n; i++) {
+		double dv = e->pts[i].volume_ml - e->pts[i - 1].volume_ml;
+		if (dv > 0)
+			smin = fmin(smin, fabs(e->pts[i].signal - e->pts[i - 1].signal) / dv);
+	}
+	/* For an inflection the law applies only once the slope has doubled
+	 * from its lowest (a jump is coming); in the buffer region of a weak
+	 * acid it would be needlessly timid. A target always obeys it. */
+	if (e->m.detect != DETECT_TARGET && !(s1 >= 2.0 * smin))
+		return INFINITY;
 	double v0m = (a->volume_ml + z->volume_ml) / 2, v1m = (b->volume_ml + a->volume_ml) / 2;
 	double ve = (s1 * v1m - s0 * v0m) / (s1 - s0);
 	if (!(ve > b->volume_ml))
@@ -397,12 +408,11 @@ static double next_dose_ml(const engine_t *e)
 			dose = sqrt(lo * hi);
 		else
 			dose = aim / slope;
-		/* A target must not be overshot: there the addition also obeys the
-		 * hyperbolic law, which never steps past the coming jump. For an
-		 * inflection a step across the jump costs nothing (the model fit
-		 * and the points after it place it), and fewer points save time. */
-		if (m->detect == DETECT_TARGET)
-			dose = fmin(dose, hyperbolic_dose(e, aim));
+		/* Before a jump the addition also obeys the hyperbolic law, which
+		 * never steps past the coming equivalence point: a target must not
+		 * be overshot, and an inflection needs points on its steep part
+		 * for the derivative (the model fit gains from them too). */
+		dose = fmin(dose, hyperbolic_dose(e, aim));
 		/* Never more than three times the last addition: a flat stretch read
 		 * through noise must not launch a jump over the endpoint. */
 		if (n >= 2) {
@@ -546,9 +556,13 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 	int from = e->n_win - 1;
 	if (waited >= m->wait_min_s) {
 		/* Still: the readings of the last still_for_s, which must reach
-		 * back that far since the addition, lie within still_within. */
+		 * back that far since the addition, lie within still_within. When
+		 * still_for_s is not a whole number of reading intervals, the
+		 * reading just before the window's start stands for its start. */
 		double t0 = ev->t_s - m->still_for_s;
 		while (from > 0 && e->win_t[from - 1] >= t0 - 1e-9)
+			from--;
+		if (from > 0 && e->win_t[from] > t0 + 1e-9)
 			from--;
 		bool covers = e->win_t[from] <= t0 + 1e-9 || m->still_for_s <= 0;
 		if (covers) {

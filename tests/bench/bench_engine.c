@@ -28,7 +28,8 @@ static const char *const scenarios[N_SCN] = {"strong",    "weak",      "dilute-w
 
 typedef struct row {
 	bool ok;
-	double err_pct; /* worst |error| over the endpoints, % of the stoichiometric volume */
+	double err_pct;   /* worst |error| over the endpoints, % of the stoichiometric volume */
+	double deriv_pct; /* the same for the first-derivative (or target/Gran) result */
 	int found, wanted;
 	int additions;
 	double dur_s;
@@ -50,7 +51,7 @@ static double nearest(const double *eq, int n, double v)
 
 static row_t run_one(const method_t *m, const chem_scenario_t *s, unsigned long long seed)
 {
-	row_t r = {.err_pct = NAN, .wanted = m->count, .how = "-", .stop = "-"};
+	row_t r = {.err_pct = NAN, .deriv_pct = NAN, .wanted = m->count, .how = "-", .stop = "-"};
 	double eq[16];
 	int n_eq = chem_equivalence_ml(s, eq, 16);
 	simrun_opts_t o = {.seed = seed, .burette_start_ml = -1};
@@ -65,16 +66,20 @@ static row_t run_one(const method_t *m, const chem_scenario_t *s, unsigned long 
 	int np = engine_n_points(e);
 	r.cpu_us_per_point = np > 0 ? out.engine_cpu_s / np * 1e6 : NAN;
 	r.stop = engine_stop_name(engine_stop_reason(e));
-	double worst = 0;
+	double worst = 0, worst_d = 0;
 	for (int i = 0; i < r.found; i++) {
 		const engine_endpoint_t *ep = engine_endpoint(e, i);
 		double ve = nearest(eq, n_eq, ep->volume_ml);
 		double err = fabs(ep->volume_ml - ve) / ve * 100;
+		double err_d = fabs(ep->deriv_ml - ve) / ve * 100;
 		if (!(err <= worst))
 			worst = err;
+		if (!(err_d <= worst_d))
+			worst_d = err_d;
 		r.how = ep->how;
 	}
 	r.err_pct = r.found >= r.wanted ? worst : NAN;
+	r.deriv_pct = r.found >= r.wanted ? worst_d : NAN;
 	/* A titrant with a weak component (carbonate taken up from air) gives
 	 * up only the protons of the steps above the endpoint's pH; the
 	 * reference above counts them all, as chem_equivalence_ml does. The
@@ -125,8 +130,8 @@ static const char *met(bool ok)
 
 BENCH(engine_panel)
 {
-	printf("%-12s %-8s %9s %-10s %5s %6s %8s %8s %8s  %s\n", "scenario", "dosing", "err_%",
-	       "how", "adds", "adds/e", "sim_s", "sim_s/e", "cpu_us/p", "stop");
+	printf("%-12s %-8s %9s %-10s %8s %5s %6s %8s %8s %8s  %s\n", "scenario", "dosing", "err_%",
+	       "how", "deriv_%", "adds", "adds/e", "sim_s", "sim_s/e", "cpu_us/p", "stop");
 	double med_err[N_SCN], med_adds[N_SCN], med_dur[N_SCN], med_cpu[N_SCN], ratio[N_SCN];
 	bool err_ok = true, adds_ok = true, ratio_ok = true, dur_ok = true, cpu_ok = true;
 	int n_ok = 0;
@@ -165,10 +170,11 @@ BENCH(engine_panel)
 		const row_t *rows[2] = {&ad, &co};
 		for (int k = 0; k < 2; k++) {
 			const row_t *r = rows[k];
-			printf("%-12s %-8s %9.4f %-10s %5d %6.1f %8.0f %8.0f %8.1f  %s%s\n",
+			printf("%-12s %-8s %9.4f %-10s %8.4f %5d %6.1f %8.0f %8.0f %8.1f  %s%s\n",
 			       scenarios[i], k ? "constant" : "adaptive", r->err_pct, r->how,
-			       r->additions, (double)r->additions / ne, r->dur_s, r->dur_s / ne,
-			       r->cpu_us_per_point, r->stop, r->ok ? "" : " (STUCK)");
+			       r->deriv_pct, r->additions, (double)r->additions / ne, r->dur_s,
+			       r->dur_s / ne, r->cpu_us_per_point, r->stop,
+			       r->ok ? "" : " (STUCK)");
 		}
 		if (isfinite(ad.alt_err_pct))
 			printf("%-12s   (titrant with a weak base: at the endpoint's own "

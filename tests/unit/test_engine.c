@@ -500,3 +500,24 @@ TEST(engine_unsettled_at_wait_max)
 		CHECK(engine_point(e, i)->t_s - engine_point(e, i - 1)->t_s >= 6);
 	engine_free(e);
 }
+
+/* still_for_s need not be a whole number of reading intervals: 1.2 s with
+ * readings every 0.5 s settles like 1.5 s, not never (every point would
+ * otherwise wait for wait_max_s). */
+TEST(engine_still_window_between_readings)
+{
+	method_t m;
+	chem_scenario_t s;
+	REQUIRE(make_method(&m, "NaOH", DETECT1));
+	m.still_for_s = 1.2;
+	REQUIRE(make_scenario(&s, "{name: acetic acid, molar: 0.1000, pka: [4.76]}", NAOH, 20));
+	simrun_out_t out;
+	engine_t *e = run(&m, &s, 33, &out);
+	REQUIRE(e && engine_n_points(e) > 3);
+	int settled = 0;
+	for (int i = 0; i < engine_n_points(e); i++)
+		settled += engine_point(e, i)->settled;
+	CHECK(settled >= engine_n_points(e) - 1);
+	CHECK_NEAR(engine_endpoint(e, 0)->volume_ml, 10.000, 0.005);
+	engine_free(e);
+}
