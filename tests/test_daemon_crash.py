@@ -106,3 +106,20 @@ def test_pump_fault_fails_the_run_and_keeps_the_daemon_up(bench):
     assert rec["stop_reason"] == "fault"
     assert bench.get("/v1/health")["status"] == "ok"
     assert len(bench.get(f"/v1/runs/{rid}/points")["points"]) >= 2
+
+
+def test_mute_probe_fails_the_run_with_a_probe_fault(bench):
+    rid, _ = start_and_wait_for_points(bench, 2)
+    assert bench.control("fault mute-probe") == "ok"
+    try:
+        rec = bench.wait_state(rid, ("failed", "finished", "aborted"), timeout_s=30)
+    finally:
+        assert bench.control("clear") == "ok"
+    assert rec["state"] == "failed", rec
+    assert any(f["code"].startswith("probe") for f in rec["faults"]), rec["faults"]
+    assert burette_still(bench)
+    # The station comes back by itself once the probe answers again.
+    deadline = time.monotonic() + 20
+    while bench.station()["state"] != "idle":
+        assert time.monotonic() < deadline, bench.station()
+        time.sleep(0.2)
