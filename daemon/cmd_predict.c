@@ -72,8 +72,8 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 	for (int i = 0; i < engine_n_results(e); i++) {
 		const engine_result_t *r = engine_result(e, i);
 		if (r->has_value)
-			printf("result %s: %.*f %s (%s)\n", r->name, r->decimals, r->value, r->unit,
-			       engine_accept_name(r->accept));
+			printf("result %s: %.*f%s%s (%s)\n", r->name, r->decimals, r->value,
+			       r->unit[0] ? " " : "", r->unit, engine_accept_name(r->accept));
 		else
 			printf("result %s: none (%s)\n", r->name, r->note);
 	}
