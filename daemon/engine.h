@@ -123,7 +123,7 @@ typedef struct engine_point {
 	double signal; /* in method units (ph or mv) */
 	bool settled;  /* false: accepted at wait_max_s */
 	double dpdv;   /* backward difference to the previous point, signal/mL (0 first);
-	                * engine_finish() replaces it with the smoothed central value */
+	                * once the run is done, the smoothed central value */
 } engine_point_t;
 
 typedef struct engine_endpoint {
