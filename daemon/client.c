@@ -3,11 +3,13 @@
 
 #include <ctype.h>
 #include <errno.h>
+#include <getopt.h>
 #include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 void client_init(client_t *c, const char *cmd)
 {
@@ -18,25 +20,56 @@ void client_init(client_t *c, const char *cmd)
 	const char *tf = getenv("STOPCOCK_TOKEN_FILE");
 	snprintf(c->token_file, sizeof c->token_file, "%s", tf ? tf : "");
 	c->timeout_ms = CLIENT_TIMEOUT_MS;
+}
+
+static void print_usage(FILE *f, const char *usage)
+{
+	fprintf(f, "usage: stopcock %s [--url URL] [--token-file F]\n", usage);
+}
+
+int client_parse(client_t *c, int argc, char **argv, const char *usage, const client_arg_t *args,
+                 int *pos)
+{
+	enum { OPT_URL = 1000, OPT_TOKEN_FILE, OPT_HELP, OPT_ARG0 = 2000 };
+	struct option opts[CLIENT_MAX_ARGS + 4] = {
+	    {"url", required_argument, NULL, OPT_URL},
+	    {"token-file", required_argument, NULL, OPT_TOKEN_FILE},
+	    {"help", no_argument, NULL, OPT_HELP},
+	};
+	int n = 3;
+	for (int i = 0; args && args[i].name && i < CLIENT_MAX_ARGS; i++, n++)
+		opts[n] =
+		    (struct option){args[i].name, args[i].value ? required_argument : no_argument,
+		                    NULL, OPT_ARG0 + i};
 	/* getopt_long is reused by each command; 0 makes glibc start afresh. */
 	optind = 0;
 	opterr = 0;
-}
-
-bool client_option(client_t *c, int opt, const char *arg)
-{
-	if (opt == CLIENT_OPT_URL) {
-		snprintf(c->url, sizeof c->url, "%s", arg);
-		return true;
+	int opt;
+	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
+		if (opt == OPT_URL) {
+			snprintf(c->url, sizeof c->url, "%s", optarg);
+		} else if (opt == OPT_TOKEN_FILE) {
+			snprintf(c->token_file, sizeof c->token_file, "%s", optarg);
+			free(c->token);
+			c->token = NULL;
+			c->token_loaded = false;
+		} else if (opt == OPT_HELP) {
+			print_usage(stdout, usage);
+			return CLIENT_EXIT_OK;
+		} else if (opt >= OPT_ARG0 && opt < OPT_ARG0 + n - 3) {
+			const client_arg_t *a = &args[opt - OPT_ARG0];
+			if (a->value)
+				*a->value = optarg;
+			else
+				*a->flag = true;
+		} else if (opt == ':') {
+			return client_usage(c, usage, "%s needs a value", argv[optind - 1]);
+		} else {
+			return client_usage(c, usage, "unknown option %s", argv[optind - 1]);
+		}
 	}
-	if (opt == CLIENT_OPT_TOKEN_FILE) {
-		snprintf(c->token_file, sizeof c->token_file, "%s", arg);
-		free(c->token);
-		c->token = NULL;
-		c->token_loaded = false;
-		return true;
-	}
-	return false;
+	*pos = optind;
+	return -1;
 }
 
 void client_free(client_t *c)
@@ -71,7 +104,7 @@ int client_usage(const client_t *c, const char *usage, const char *fmt, ...)
 		fputc('\n', stderr);
 		va_end(ap);
 	}
-	fprintf(stderr, "usage: stopcock %s [--url URL] [--token-file F]\n", usage);
+	print_usage(stderr, usage);
 	return CLIENT_EXIT_USAGE;
 }
 
@@ -254,6 +287,20 @@ void client_escape_segment(const char *s, char *out, size_t out_len)
 	}
 	if (out_len)
 		out[j < out_len ? j : out_len - 1] = '\0';
+}
+
+double client_mono_s(void)
+{
+	struct timespec ts;
+	clock_gettime(CLOCK_MONOTONIC, &ts);
+	return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
+}
+
+void client_sleep_ms(int ms)
+{
+	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
+	while (nanosleep(&ts, &ts) != 0)
+		;
 }
 
 bool client_parse_id(const char *s, long long *id)

@@ -9,7 +9,6 @@
 #ifndef STOPCOCK_CLIENT_H
 #define STOPCOCK_CLIENT_H
 
-#include <getopt.h>
 #include <jansson.h>
 #include <stdbool.h>
 #include <stddef.h>
@@ -32,20 +31,24 @@ typedef struct client {
 	bool bad_args; /* a request failed because of --url or --token-file: exit 2 */
 } client_t;
 
-/* The common long options; a command's option table starts with these.
- * getopt_long returns CLIENT_OPT_URL / CLIENT_OPT_TOKEN_FILE for them. */
-enum { CLIENT_OPT_URL = 1000, CLIENT_OPT_TOKEN_FILE, CLIENT_OPT_HELP };
-#define CLIENT_LONG_OPTIONS                                                                        \
-	{"url", required_argument, NULL, CLIENT_OPT_URL},                                          \
-	    {"token-file", required_argument, NULL, CLIENT_OPT_TOKEN_FILE},                        \
-	{                                                                                          \
-		"help", no_argument, NULL, CLIENT_OPT_HELP                                         \
-	}
+/* One option of a command beyond --url, --token-file and --help: with a
+ * value (`value` set: it receives optarg) or a flag (`flag` set to true). */
+typedef struct client_arg {
+	const char *name; /* without the leading "--" */
+	const char **value;
+	bool *flag;
+} client_arg_t;
+
+#define CLIENT_MAX_ARGS 8
 
 /* Defaults from the environment. */
 void client_init(client_t *c, const char *cmd);
-/* Handle a common option; true when `opt` was one. */
-bool client_option(client_t *c, int opt, const char *arg);
+/* Parse the command's options (`args`, ended by {NULL}) and the common
+ * ones; `*pos` is then the index of the first positional argument and the
+ * result is -1. Otherwise returns the exit status at once: 0 after --help
+ * (usage on stdout), 2 after a usage error (message and usage on stderr). */
+int client_parse(client_t *c, int argc, char **argv, const char *usage, const client_arg_t *args,
+                 int *pos);
 void client_free(client_t *c);
 /* Free and give the exit status for rc (0 or -1 from the calls below):
  * 0, 2 when --url or --token-file was at fault, else 1. */
@@ -79,6 +82,10 @@ int client_json_quiet(client_t *c, const char *method, const char *path, json_t 
 
 /* Percent-encode a path segment (station names) into out. */
 void client_escape_segment(const char *s, char *out, size_t out_len);
+
+/* Monotonic time, s, and a sleep that resumes after signals. */
+double client_mono_s(void);
+void client_sleep_ms(int ms);
 
 /* Parse a run id: a positive integer. */
 bool client_parse_id(const char *s, long long *id);

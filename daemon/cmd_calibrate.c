@@ -7,7 +7,6 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <time.h>
 #include <unistd.h>
 
 #include "client.h"
@@ -35,20 +34,6 @@ static int parse_buffers(const char *s, double *ph, int max)
 	}
 	free(copy);
 	return n;
-}
-
-static void sleep_ms(int ms)
-{
-	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
-	while (nanosleep(&ts, &ts) != 0)
-		;
-}
-
-static double mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
 }
 
 /* The entry of `buffers` for the nominal pH, or NULL. */
@@ -98,34 +83,16 @@ static void print_verdict(const json_t *cal)
 
 int cmd_calibrate(int argc, char **argv)
 {
-	static const struct option opts[] = {CLIENT_LONG_OPTIONS,
-	                                     {"station", required_argument, NULL, 's'},
-	                                     {"buffers", required_argument, NULL, 'b'},
-	                                     {0, 0, 0, 0}};
+	const char *station = NULL, *buffers_s = NULL;
+	const client_arg_t args[] = {
+	    {"station", &station, NULL}, {"buffers", &buffers_s, NULL}, {NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "calibrate");
-	const char *station = NULL, *buffers_s = NULL;
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		if (opt == 's') {
-			station = optarg;
-			continue;
-		}
-		if (opt == 'b') {
-			buffers_s = optarg;
-			continue;
-		}
-		if (opt == CLIENT_OPT_HELP) {
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		}
-		return client_usage(&c, usage, "unknown option or missing value: %s",
-		                    argv[optind - 1]);
-	}
-	if (optind < argc)
-		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
 	if (!station || !buffers_s)
 		return client_usage(&c, usage, "--station and --buffers are needed");
 	double ph[CAL_MAX_BUFFERS];
@@ -188,7 +155,7 @@ int cmd_calibrate(int argc, char **argv)
 		json_decref(r);
 		/* Poll until this buffer is measured; show the live mV meanwhile. */
 		snprintf(path, sizeof path, "/v1/calibrations/%lld", id);
-		double t0 = mono_s();
+		double t0 = client_mono_s();
 		bool broken = false;
 		for (;;) {
 			json_t *now = NULL;
@@ -200,7 +167,7 @@ int cmd_calibrate(int argc, char **argv)
 			cal = now;
 			if (strcmp(client_str(cal, "state", "?"), "measuring"))
 				break;
-			if (mono_s() - t0 > CAL_MEASURE_MAX_S) {
+			if (client_mono_s() - t0 > CAL_MEASURE_MAX_S) {
 				client_say(&c, "buffer %s not stable after %.0f s; giving up", nb,
 				           CAL_MEASURE_MAX_S);
 				broken = true;
@@ -208,10 +175,10 @@ int cmd_calibrate(int argc, char **argv)
 			}
 			if (tty) {
 				fprintf(stderr, "\r\033[Kmeasuring buffer %s ... %.0f s", nb,
-				        mono_s() - t0);
+				        client_mono_s() - t0);
 				fflush(stderr);
 			}
-			sleep_ms(CAL_POLL_MS);
+			client_sleep_ms(CAL_POLL_MS);
 		}
 		if (tty)
 			fprintf(stderr, "\r\033[K");

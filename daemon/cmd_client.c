@@ -5,7 +5,6 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <time.h>
 #include <unistd.h>
 
 #include "client.h"
@@ -14,62 +13,24 @@
 #define WAIT_POLL_MS       500  /* how often `wait` asks, ms */
 #define WAIT_UNREACHABLE_S 10.0 /* `wait` gives up after the daemon is gone this long, s */
 
-static double mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
-}
-
-static void sleep_ms(int ms)
-{
-	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
-	while (nanosleep(&ts, &ts) != 0)
-		;
-}
-
 /* ---- start ---- */
 
 int cmd_start(int argc, char **argv)
 {
 	static const char usage[] = "start --station N --method M --sample-id ID --amount X";
-	static const struct option opts[] = {CLIENT_LONG_OPTIONS,
-	                                     {"station", required_argument, NULL, 's'},
-	                                     {"method", required_argument, NULL, 'm'},
-	                                     {"sample-id", required_argument, NULL, 'i'},
-	                                     {"amount", required_argument, NULL, 'a'},
-	                                     {0, 0, 0, 0}};
+	const char *station = NULL, *method = NULL, *sample = NULL, *amount_s = NULL;
+	const client_arg_t args[] = {{"station", &station, NULL},
+	                             {"method", &method, NULL},
+	                             {"sample-id", &sample, NULL},
+	                             {"amount", &amount_s, NULL},
+	                             {NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "start");
-	const char *station = NULL, *method = NULL, *sample = NULL, *amount_s = NULL;
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		switch (opt) {
-		case 's':
-			station = optarg;
-			break;
-		case 'm':
-			method = optarg;
-			break;
-		case 'i':
-			sample = optarg;
-			break;
-		case 'a':
-			amount_s = optarg;
-			break;
-		case CLIENT_OPT_HELP:
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		case ':':
-			return client_usage(&c, usage, "%s needs a value", argv[optind - 1]);
-		default:
-			return client_usage(&c, usage, "unknown option %s", argv[optind - 1]);
-		}
-	}
-	if (optind < argc)
-		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
 	if (!station || !method || !sample || !amount_s)
 		return client_usage(&c, usage,
 		                    "--station, --method, --sample-id and --amount are "
@@ -139,7 +100,7 @@ static void print_station(client_t *c, const json_t *st)
 	         client_fmt(b4, sizeof b4, client_num(bu, "dispensed_ml"), 3),
 	         client_fmt(b5, sizeof b5, client_num(bu, "capacity_ml"), 3));
 	/* "°C" is two bytes but one column: pad by hand. */
-	printf("%-10s %-9s %-11s %6s %8s %-9s %6s  %-20s %s\n", client_str(st, "name", "?"),
+	printf("%-10s %-11s %-10s %6s %8s %-9s %6s  %-20s %s\n", client_str(st, "name", "?"),
 	       client_str(st, "state", "?"), phase ? phase : "-",
 	       client_fmt(b1, sizeof b1, client_num(rd, "ph"), 2),
 	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp,
@@ -151,22 +112,13 @@ static void print_station(client_t *c, const json_t *st)
 int cmd_status(int argc, char **argv)
 {
 	static const char usage[] = "status";
-	static const struct option opts[] = {CLIENT_LONG_OPTIONS, {0, 0, 0, 0}};
 	client_t c;
 	client_init(&c, "status");
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		if (opt == CLIENT_OPT_HELP) {
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		}
-		return client_usage(&c, usage, "unknown option or missing value: %s",
-		                    argv[optind - 1]);
-	}
-	if (optind < argc)
-		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	int pos, early = client_parse(&c, argc, argv, usage, NULL, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
 	json_t *j = NULL;
 	int rc = client_json(&c, "GET", "/v1/stations", NULL, false, &j, NULL);
 	if (rc == 0) {
@@ -178,7 +130,7 @@ int cmd_status(int argc, char **argv)
 		} else if (json_array_size(list) == 0) {
 			printf("no stations configured\n");
 		} else {
-			printf("%-10s %-9s %-11s %6s %8s %-8s %6s  %-20s %s\n", "STATION", "STATE",
+			printf("%-10s %-11s %-10s %6s %8s %-8s %6s  %-20s %s\n", "STATION", "STATE",
 			       "PHASE", "PH", "MV", "TEMP", "AGE", "BURETTE", "RUN");
 			size_t i;
 			json_t *st;
@@ -267,39 +219,28 @@ static void print_final(long long id, const json_t *rec)
 int cmd_wait(int argc, char **argv)
 {
 	static const char usage[] = "wait RUN [--timeout S]";
-	static const struct option opts[] = {
-	    CLIENT_LONG_OPTIONS, {"timeout", required_argument, NULL, 't'}, {0, 0, 0, 0}};
+	const char *timeout_arg = NULL;
+	const client_arg_t args[] = {{"timeout", &timeout_arg, NULL}, {NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "wait");
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
 	double timeout_s = 0; /* 0: as long as it takes */
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		if (opt == 't') {
-			if (!client_parse_number(optarg, &timeout_s) || timeout_s <= 0)
-				return client_usage(&c, usage,
-				                    "--timeout must be a positive number of "
-				                    "seconds, not '%s'",
-				                    optarg);
-			continue;
-		}
-		if (opt == CLIENT_OPT_HELP) {
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		}
-		return client_usage(&c, usage, "unknown option or missing value: %s",
-		                    argv[optind - 1]);
-	}
+	if (timeout_arg && (!client_parse_number(timeout_arg, &timeout_s) || timeout_s <= 0))
+		return client_usage(&c, usage,
+		                    "--timeout must be a positive number of seconds, not '%s'",
+		                    timeout_arg);
 	long long id;
-	if (optind != argc - 1 || !client_parse_id(argv[optind], &id))
+	if (pos != argc - 1 || !client_parse_id(argv[pos], &id))
 		return client_usage(&c, usage, "give one run id (a positive integer)");
 
 	bool tty = isatty(STDERR_FILENO);
 	char path[64], line[256] = "", last_key[128] = "", last_err[1500] = "";
 	snprintf(path, sizeof path, "/v1/runs/%lld", id);
-	double t0 = mono_s(), gone_since = -1, last_point_ph = NAN;
+	double t0 = client_mono_s(), gone_since = -1, last_point_ph = NAN;
 	long long last_additions = -1;
+	bool seen = false;
 	int rc = CLIENT_EXIT_FAIL;
 	for (;;) {
 		json_t *rec = NULL;
@@ -316,10 +257,12 @@ int cmd_wait(int argc, char **argv)
 				break;
 			}
 			snprintf(last_err, sizeof last_err, "%s", err);
-			if (status == 0) { /* not reachable: the daemon may be restarting */
+			if (status == 0) {
+				/* Not reachable. Once the run was seen the daemon may
+				 * be restarting: give it a while; before, fail at once. */
 				if (gone_since < 0)
-					gone_since = mono_s();
-				if (mono_s() - gone_since > WAIT_UNREACHABLE_S) {
+					gone_since = client_mono_s();
+				if (!seen || client_mono_s() - gone_since > WAIT_UNREACHABLE_S) {
 					if (tty && line[0])
 						fputc('\n', stderr);
 					client_say(&c, "%s", err);
@@ -328,6 +271,7 @@ int cmd_wait(int argc, char **argv)
 			}
 		} else {
 			gone_since = -1;
+			seen = true;
 			const char *state = client_str(rec, "state", "?");
 			if (state_is_final(state)) {
 				if (tty && line[0])
@@ -375,7 +319,7 @@ int cmd_wait(int argc, char **argv)
 			}
 		}
 		json_decref(rec);
-		if (timeout_s > 0 && mono_s() - t0 >= timeout_s) {
+		if (timeout_s > 0 && client_mono_s() - t0 >= timeout_s) {
 			if (tty && line[0])
 				fputc('\n', stderr);
 			if (gone_since >= 0)
@@ -384,7 +328,7 @@ int cmd_wait(int argc, char **argv)
 				client_say(&c, "run %lld has not ended after %g s", id, timeout_s);
 			break;
 		}
-		sleep_ms(WAIT_POLL_MS);
+		client_sleep_ms(WAIT_POLL_MS);
 	}
 	client_free(&c);
 	return rc;
@@ -395,22 +339,13 @@ int cmd_wait(int argc, char **argv)
 int cmd_abort(int argc, char **argv)
 {
 	static const char usage[] = "abort RUN";
-	static const struct option opts[] = {CLIENT_LONG_OPTIONS, {0, 0, 0, 0}};
 	client_t c;
 	client_init(&c, "abort");
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		if (opt == CLIENT_OPT_HELP) {
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		}
-		return client_usage(&c, usage, "unknown option or missing value: %s",
-		                    argv[optind - 1]);
-	}
+	int pos, early = client_parse(&c, argc, argv, usage, NULL, &pos);
+	if (early >= 0)
+		return early;
 	long long id;
-	if (optind != argc - 1 || !client_parse_id(argv[optind], &id))
+	if (pos != argc - 1 || !client_parse_id(argv[pos], &id))
 		return client_usage(&c, usage, "give one run id (a positive integer)");
 	char path[64];
 	snprintf(path, sizeof path, "/v1/runs/%lld/abort", id);
@@ -425,28 +360,15 @@ int cmd_abort(int argc, char **argv)
 int cmd_halt(int argc, char **argv)
 {
 	static const char usage[] = "halt --station N";
-	static const struct option opts[] = {
-	    CLIENT_LONG_OPTIONS, {"station", required_argument, NULL, 's'}, {0, 0, 0, 0}};
+	const char *station = NULL;
+	const client_arg_t args[] = {{"station", &station, NULL}, {NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "halt");
-	const char *station = NULL;
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		if (opt == 's') {
-			station = optarg;
-			continue;
-		}
-		if (opt == CLIENT_OPT_HELP) {
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		}
-		return client_usage(&c, usage, "unknown option or missing value: %s",
-		                    argv[optind - 1]);
-	}
-	if (optind < argc)
-		return client_usage(&c, usage, "unexpected argument '%s'", argv[optind]);
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
 	if (!station || !*station)
 		return client_usage(&c, usage, "--station is needed");
 	char seg[200], path[256];

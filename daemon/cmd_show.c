@@ -121,35 +121,17 @@ static int write_file(const client_t *c, const char *file, const char *buf, size
 
 int cmd_show(int argc, char **argv)
 {
-	static const struct option opts[] = {CLIENT_LONG_OPTIONS,
-	                                     {"csv", no_argument, NULL, 'c'},
-	                                     {"svg", required_argument, NULL, 's'},
-	                                     {0, 0, 0, 0}};
-	client_t c;
-	client_init(&c, "show");
 	bool csv = false;
 	const char *svg_file = NULL;
-	int opt;
-	while ((opt = getopt_long(argc, argv, ":", opts, NULL)) != -1) {
-		if (client_option(&c, opt, optarg))
-			continue;
-		if (opt == 'c') {
-			csv = true;
-			continue;
-		}
-		if (opt == 's') {
-			svg_file = optarg;
-			continue;
-		}
-		if (opt == CLIENT_OPT_HELP) {
-			client_usage(&c, usage, NULL);
-			return CLIENT_EXIT_OK;
-		}
-		return client_usage(&c, usage, "unknown option or missing value: %s",
-		                    argv[optind - 1]);
-	}
+	const client_arg_t args[] = {
+	    {"csv", NULL, &csv}, {"svg", &svg_file, NULL}, {NULL, NULL, NULL}};
+	client_t c;
+	client_init(&c, "show");
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
 	long long id;
-	if (optind != argc - 1 || !client_parse_id(argv[optind], &id))
+	if (pos != argc - 1 || !client_parse_id(argv[pos], &id))
 		return client_usage(&c, usage, "give one run id (a positive integer)");
 	if (csv && svg_file && !strcmp(svg_file, "-"))
 		return client_usage(&c, usage, "--csv and --svg - both want stdout");
