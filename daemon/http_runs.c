@@ -34,7 +34,7 @@ static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, ch
 	if (m->signal != SIGNAL_PH)
 		return true;
 	station_snapshot(st, &s);
-	if (s.has_reading && s.has_ph)
+	if (s.has_reading && s.ph_from_probe)
 		return true;
 	store_time_rfc3339(store_now_unix_s(), now);
 	j = store_calib_latest(ctx->store, station_name(st), false, now, &db_err);

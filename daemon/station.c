@@ -195,8 +195,16 @@ drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err)
 	if (st == DRV_OK && isfinite(r->mv)) {
 		s->snap.has_reading = true;
 		s->snap.mv = r->mv;
-		s->snap.has_ph = r->has_ph && isfinite(r->ph);
+		s->snap.ph_from_probe = r->has_ph && isfinite(r->ph);
+		s->snap.has_ph = s->snap.ph_from_probe;
 		s->snap.ph = r->ph;
+		if (!s->snap.has_ph && s->has_valid_cal &&
+		    calib_is_valid(&s->valid_cal, store_now_unix_s())) {
+			/* live display only; runs take the calibration from the store */
+			s->snap.ph = calib_ph_from_mv(&s->valid_cal, r->mv,
+			                              r->has_temperature ? r->temperature_c : NAN);
+			s->snap.has_ph = isfinite(s->snap.ph);
+		}
 		s->snap.has_temperature = r->has_temperature && isfinite(r->temperature_c);
 		s->snap.temperature_c = r->temperature_c;
 		/* reading_age_s is derived from this on every snapshot */
@@ -286,6 +294,8 @@ void station_abort_queued(station_t *s, station_job_t *job, const char *why)
 
 /* ---- calibration, in the thread ---- */
 
+static void load_valid_cal(station_t *s);
+
 static void calib_store(station_t *s)
 {
 	calib_result_t res;
@@ -313,6 +323,8 @@ static void calib_store(station_t *s)
 	store_calib_update(s->store, s->cal_id, calib_state_name(state), at[0] ? at : NULL,
 	                   exp[0] ? exp : NULL, text);
 	free(text);
+	if (state == CALIB_ACCEPTED)
+		load_valid_cal(s);
 }
 
 static void calib_step(station_t *s)
@@ -521,9 +533,27 @@ static void *station_main(void *arg)
 	return NULL;
 }
 
+static void load_valid_cal(station_t *s)
+{
+	char now[32];
+	bool db_err;
+	json_t *j;
+	calib_result_t c;
+
+	store_time_rfc3339(store_now_unix_s(), now);
+	j = store_calib_latest(s->store, s->name, true, now, &db_err);
+	pthread_mutex_lock(&s->lock);
+	s->has_valid_cal = j && calib_result_from_json(j, &c) == 0;
+	if (s->has_valid_cal)
+		s->valid_cal = c;
+	pthread_mutex_unlock(&s->lock);
+	json_decref(j);
+}
+
 int station_start(station_t *s, store_t *store)
 {
 	s->store = store;
+	load_valid_cal(s);
 	if (pthread_create(&s->thread, NULL, station_main, s))
 		return -1;
 	s->started = true;

@@ -40,6 +40,8 @@ typedef struct station_snapshot {
 	double mv;
 	bool has_ph;
 	double ph;
+	bool ph_from_probe; /* the transmitter gives pH; else ph (if any) comes from
+	                     * the station's valid calibration */
 	bool has_temperature;
 	double temperature_c;
 	double reading_age_s;    /* since the last good probe reading, s */

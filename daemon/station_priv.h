@@ -45,7 +45,9 @@ struct station {
 	calib_config_t cal_cfg;
 	calib_session_t *cal; /* the station's calibration, NULL when none */
 	int64_t cal_id;
-	bool cal_dirty; /* state changed by an HTTP call: the thread stores it */
+	bool cal_dirty;     /* state changed by an HTTP call: the thread stores it */
+	bool has_valid_cal; /* valid_cal: latest accepted calibration, for live pH */
+	calib_result_t valid_cal;
 };
 
 /* Monotonic clock, s. */

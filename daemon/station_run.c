@@ -336,7 +336,7 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 	r->rec.titrant.titer = titer;
 
 	station_snapshot(s, &snap);
-	if (m->signal == SIGNAL_PH && !snap.has_ph) {
+	if (m->signal == SIGNAL_PH && !snap.ph_from_probe) {
 		char now[32];
 		bool db_err;
 		calib_result_t cal;
