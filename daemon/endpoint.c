@@ -390,8 +390,12 @@ static double gran_volume(const method_t *m, const engine_point_t *pts, int n, i
 		best = v1;
 	else if (isfinite(v2))
 		best = v2;
-	/* A Gran intercept far from the derivative's volume is not this endpoint. */
+	/* A Gran intercept far from the derivative's volume is not this endpoint,
+	 * nor is one beyond the last point when the curve has already shown
+	 * its jump (the line was fitted to the wrong stretch). */
 	if (isfinite(best) && fabs(best - ve0) > 0.2 * span)
+		best = NAN;
+	if (isfinite(best) && (best <= v_prev || best > pts[n - 1].volume_ml))
 		best = NAN;
 out:
 	free(x);

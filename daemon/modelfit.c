@@ -454,7 +454,10 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		 * that found another step is no refinement). */
 		double dv = fabs(veq - eps[i].deriv_ml);
 		double span = bracket_ml(pts, n, eps[i].deriv_ml);
-		bool good = isfinite(veq) && isfinite(u) && rms <= 4.0 &&
+		/* ... and inside the measured curve: a fit is no measurement of an
+		 * endpoint the additions never reached. */
+		bool inside = veq > pts[0].volume_ml && veq <= pts[n - 1].volume_ml;
+		bool good = inside && isfinite(veq) && isfinite(u) && rms <= 4.0 &&
 		            u <= 0.01 * fabs(eps[i].deriv_ml) + 0.002 &&
 		            dv <= 0.03 * fabs(eps[i].deriv_ml) + 0.01 + span;
 		if (good) {
