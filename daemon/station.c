@@ -425,7 +425,7 @@ static void idle_tick(station_t *s, double *next_read)
 	drv_reading_t r = {0};
 	drv_burette_status_t bs = {0};
 	drv_err_t err = {{0}};
-	bool measuring;
+	bool measuring, dirty;
 
 	open_devices(s, false);
 	pthread_mutex_lock(&s->lock);
@@ -437,7 +437,10 @@ static void idle_tick(station_t *s, double *next_read)
 		pthread_mutex_lock(&s->lock);
 	}
 	pthread_mutex_unlock(&s->lock);
-	if (s->cal_dirty)
+	pthread_mutex_lock(&s->lock);
+	dirty = s->cal_dirty;
+	pthread_mutex_unlock(&s->lock);
+	if (dirty)
 		calib_store(s);
 	if (measuring) {
 		set_state(s, "calibrating");
