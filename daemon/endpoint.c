@@ -288,19 +288,22 @@ static int find_target(const method_t *m, const engine_point_t *pts, int n, int 
 	double t = m->target;
 	if (dir == 0)
 		dir = t >= pts[0].signal ? 1 : -1;
-	double v = NAN;
-	if (dir * (pts[0].signal - t) >= 0) {
+	/* Reached and holding: the crossing after which every point stays at
+	 * or past the target (a signal that fell back, as when dissolved CO2
+	 * re-equilibrates, has not reached it yet). */
+	if (dir * (pts[n - 1].signal - t) < 0)
+		return 0;
+	int i = n - 1;
+	while (i > 0 && dir * (pts[i - 1].signal - t) >= 0)
+		i--;
+	double v;
+	if (i == 0) {
 		v = pts[0].volume_ml; /* already there at the start */
 	} else {
-		for (int i = 1; i < n; i++) {
-			if (dir * (pts[i].signal - t) >= 0) {
-				double s0 = pts[i - 1].signal, s1 = pts[i].signal;
-				double v0 = pts[i - 1].volume_ml, v1 = pts[i].volume_ml;
-				double f = s1 != s0 ? (t - s0) / (s1 - s0) : 1.0;
-				v = v0 + f * (v1 - v0);
-				break;
-			}
-		}
+		double s0 = pts[i - 1].signal, s1 = pts[i].signal;
+		double v0 = pts[i - 1].volume_ml, v1 = pts[i].volume_ml;
+		double f = s1 != s0 ? (t - s0) / (s1 - s0) : 1.0;
+		v = v0 + f * (v1 - v0);
 	}
 	if (!isfinite(v))
 		return 0;

@@ -53,6 +53,7 @@ struct engine {
 	int n_ep;
 	engine_endpoint_t ep[METHOD_MAX_ENDPOINTS];
 	bool all_found;
+	bool target_recheck;  /* a target point was read again once */
 	double stop_after_ml; /* once all endpoints are found: dose up to here */
 
 	int n_res;
@@ -486,6 +487,14 @@ static engine_action_t after_point(engine_t *e)
 	if (!e->all_found) {
 		e->n_ep = endpoint_find(m, e->pts, e->n_pts, dir, false, e->p.start_volume_ml,
 		                        e->ep, METHOD_MAX_ENDPOINTS);
+		/* A target must hold: a point that reached it without settling
+		 * is read again at the same volume before it counts. */
+		if (m->detect == DETECT_TARGET && e->n_ep > 0 && !last->settled &&
+		    !e->target_recheck) {
+			e->target_recheck = true;
+			e->n_ep = 0;
+			return begin_settle(e);
+		}
 		if (e->n_ep >= m->count) {
 			e->all_found = true;
 			e->stop_after_ml = e->ep[m->count - 1].volume_ml + m->past_endpoint_ml;

@@ -521,3 +521,78 @@ TEST(engine_still_window_between_readings)
 	CHECK_NEAR(engine_endpoint(e, 0)->volume_ml, 10.000, 0.005);
 	engine_free(e);
 }
+
+/* A target must be reached and hold. Hand-fed readings: pH 5 + 1 per mL
+ * until the first point past pH 8.3, which never settles (it flickers
+ * between 8.3 and 8.5); read again at the same volume it has fallen back to
+ * 8.1 (settled), so the run must dose on; the next points are past and
+ * settled, and only then is the target found. */
+TEST(engine_target_must_hold)
+{
+	method_t m;
+	REQUIRE(load_method("method: test-method\ntitle: hold\nrevision: 1\npurpose: assay\n"
+	                    "titrant: {name: NaOH, molarity: 0.1000}\n"
+	                    "sample: {unit: mL, min: 1.0, max: 50.0}\nsignal: ph\n"
+	                    "start: {stir_s: 0, predose_ml: 0.0}\n"
+	                    "dosing: {mode: constant, dose_ml: 0.4}\n"
+	                    "settle: {wait_min_s: 1, wait_max_s: 5, still_within: 0.02, "
+	                    "still_for_s: 1}\n"
+	                    "detect: {kind: target, target: 8.3}\n"
+	                    "stop: {past_endpoint_ml: 0.0, volume_max_ml: 10, time_max_s: 3600}\n",
+	                    &m));
+	engine_params_t p = {.amount = 10,
+	                     .burette_capacity_ml = 20,
+	                     .burette_steps = 40000,
+	                     .burette_content_ml = -1};
+	engine_t *e = engine_new(&m, &p);
+	REQUIRE(e);
+	engine_action_t a = engine_feed(e, &(engine_event_t){.kind = ENGINE_EV_START});
+	double t = 0;
+	int stage = 0; /* 0 before the crossing, 1 flickering, 2 fallen back, 3 past */
+	int reads_in_stage = 0, guard = 0;
+	bool dosed_after_fallback = false;
+	while (a.kind != ENGINE_ACT_STOP && guard++ < 10000) {
+		engine_event_t ev = {.t_s = t};
+		if (a.kind == ENGINE_ACT_READ) {
+			t = fmax(t, a.until_t_s);
+			double v = engine_dispensed_ml(e), ph = 5 + v;
+			if (stage == 0 && ph > 8.3)
+				stage = 1;
+			if (stage == 1)
+				ph = reads_in_stage++ % 2 ? 8.5 : 8.3;
+			else if (stage == 2)
+				ph = 8.1;
+			ev = (engine_event_t){.kind = ENGINE_EV_READING,
+			                      .t_s = t,
+			                      .mv = 0,
+			                      .has_ph = true,
+			                      .ph = ph,
+			                      .temperature_c = 25};
+		} else if (a.kind == ENGINE_ACT_DOSE) {
+			if (stage == 2) {
+				dosed_after_fallback = true;
+				stage = 3;
+			}
+			t += 1;
+			ev = (engine_event_t){
+			    .kind = ENGINE_EV_DOSED, .t_s = t, .dosed_ml = a.dose_ml};
+		} else {
+			t = fmax(t, a.until_t_s);
+			ev.kind = a.kind == ENGINE_ACT_REFILL ? ENGINE_EV_REFILLED : ENGINE_EV_TICK;
+		}
+		a = engine_feed(e, &ev);
+		if (a.new_point >= 0 && stage == 1) {
+			/* the flickering point was accepted unsettled: next the re-read */
+			CHECK(!engine_point(e, a.new_point)->settled);
+			stage = 2;
+		}
+	}
+	REQUIRE(a.kind == ENGINE_ACT_STOP);
+	CHECK(dosed_after_fallback);
+	CHECK_INT(engine_stop_reason(e), ENGINE_STOP_ENDPOINTS);
+	REQUIRE(engine_n_endpoints(e) == 1);
+	/* Crossing between the fallen-back point (8.1 at 3.6 mL) and the next
+	 * (5 + 4.0 = 9.0 at 4.0 mL): 3.6 + 0.4 * 0.2 / 0.9 mL. */
+	CHECK_NEAR(engine_endpoint(e, 0)->volume_ml, 3.6 + 0.4 * 0.2 / 0.9, 1e-6);
+	engine_free(e);
+}
