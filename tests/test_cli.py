@@ -455,3 +455,34 @@ def test_curl_and_client_agree(bench, finished):
     seqs = [r["seq"] for r in feed["results"]]
     assert seqs == sorted(seqs) and len(set(seqs)) == len(seqs)
     assert feed["next_after"] == seqs[-1]
+
+
+def lims_poller(tmp_path):
+    """The poller script of docs/lims.md, exactly as printed there."""
+    text = (ROOT / "docs" / "lims.md").read_text()
+    m = re.search(r"```sh\n(#!/bin/sh\n# lims-poll:.*?)```", text, re.S)
+    assert m, "docs/lims.md has no lims-poll script"
+    p = tmp_path / "lims-poll"
+    p.write_text(m.group(1))
+    return p
+
+
+def test_lims_poller_from_the_docs(bench, finished, tmp_path):
+    """docs/lims.md's poller files each ended run once, in feed order, and moves
+    its cursor; a second call finds nothing new."""
+    poller = lims_poller(tmp_path)
+    env = dict(os.environ, STOPCOCK_URL=bench.url, LIMS_CURSOR=str(tmp_path / "cursor"))
+    first = subprocess.run(["sh", str(poller)], capture_output=True, text=True, env=env,
+                           timeout=60)
+    assert first.returncode == 0, first.stderr
+    rows = [l.split("\t") for l in first.stdout.splitlines()]
+    feed = bench.get("/v1/results?after=0&limit=1000")["results"]
+    assert [int(r[0]) for r in rows] == [r["seq"] for r in feed]
+    assert [int(r[1]) for r in rows] == [r["id"] for r in feed]
+    assert [r[3] for r in rows] == [r["state"] for r in feed]
+    run, _ = finished
+    assert rows[[int(r[1]) for r in rows].index(run)][2] == "ORCHARD-LANE-0412"
+    assert (tmp_path / "cursor").read_text().strip() == str(feed[-1]["seq"])
+    again = subprocess.run(["sh", str(poller)], capture_output=True, text=True, env=env,
+                           timeout=60)
+    assert again.returncode == 0 and again.stdout == "", again
