@@ -22,7 +22,7 @@ DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-d
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev \
 	python3 python3-pytest python3-pymodbus python3-serial python3-scipy \
 	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
-	python3-yaml systemd
+	python3-yaml systemd chromium nodejs
 
 VERSION := 0.1.0
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS))
@@ -116,6 +116,12 @@ deps:
 	  apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends $$missing; \
 	else echo "deps: missing Debian packages; run as root:"; \
 	  echo "  apt-get update && apt-get install -y$$missing"; exit 1; fi
+	@# The browser tests drive Debian's chromium with playwright-core (version
+	@# pinned in tests/web/package.json). Node's own npm, else Debian's.
+	@command -v npm >/dev/null 2>&1 || [ "$$(id -u)" != 0 ] || \
+	  DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends npm
+	@[ -d tests/web/node_modules/playwright-core ] || \
+	  npm install --prefix tests/web --no-package-lock --no-audit --no-fund
 
 # ---- tests ----
 check: deps
@@ -194,6 +200,7 @@ install: all
 	install -m 0644 config/methods/*.yaml $(DESTDIR)$(DATADIR)/methods/
 	install -m 0644 config/pumps/*.yaml $(DESTDIR)$(DATADIR)/pumps/
 	install -m 0644 config/scenarios/*.yaml $(DESTDIR)$(DATADIR)/scenarios/
+	install -d $(DESTDIR)$(DATADIR)/www && install -m 0644 daemon/www/* $(DESTDIR)$(DATADIR)/www/
 	@if [ -f config/stopcockd.yaml ]; then install -m 0644 config/stopcockd.yaml \
 	  $(DESTDIR)$(SYSCONFDIR)/stopcock/stopcockd.yaml.example; fi
 	@if [ -d systemd ] && ls systemd/*.service >/dev/null 2>&1; then \

@@ -182,6 +182,8 @@ static void dispatch(const http_req_t *q, http_reply_t *r)
 	}
 	snprintf(path, sizeof path, "%s", q->path);
 	n = split_path(path, seg, MAX_SEGMENTS);
+	if (n >= 0 && http_route_www(q, seg, n, r))
+		return;
 	if (n > 0 && (http_route_misc(q, seg, n, r) || http_route_runs(q, seg, n, r) ||
 	              http_route_calib(q, seg, n, r)))
 		return;
@@ -206,6 +208,11 @@ static enum MHD_Result send_reply(struct MHD_Connection *c, http_ctx_t *ctx, htt
 	MHD_add_response_header(resp, MHD_HTTP_HEADER_CONTENT_TYPE,
 	                        r->content_type ? r->content_type : "application/json");
 	MHD_add_response_header(resp, MHD_HTTP_HEADER_CACHE_CONTROL, "no-store");
+	MHD_add_response_header(resp, "X-Content-Type-Options", "nosniff");
+	MHD_add_response_header(
+	    resp, "Content-Security-Policy",
+	    r->content_type && !strcmp(r->content_type, "image/svg+xml") ? HTTP_CSP_SVG : HTTP_CSP);
+	MHD_add_response_header(resp, "Referrer-Policy", "no-referrer");
 	if (r->status == 401)
 		MHD_add_response_header(resp, MHD_HTTP_HEADER_WWW_AUTHENTICATE,
 		                        "Bearer realm=\"stopcock\"");
@@ -301,7 +308,7 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	q.body_len = cs->len;
 	q.conn = c;
 	if (write || ctx->cfg->read_needs_token) {
-		bool open_route = !write && !strcmp(url, "/v1/health");
+		bool open_route = !write && (!strcmp(url, "/v1/health") || http_www_is_static(url));
 		q.token_name = check_token(ctx, c);
 		if (!q.token_name && !open_route) {
 			const char *h = MHD_lookup_connection_value(c, MHD_HEADER_KIND,

@@ -86,6 +86,25 @@ bool http_route_runs(const http_req_t *q, const char *const *seg, int nseg, http
 bool http_route_misc(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
 bool http_route_calib(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
 
+/* The bench page and its extra routes (http_www.c): GET /, GET /www/NAME,
+ * GET /v1/runs, POST /v1/methods/{id}/check. */
+bool http_route_www(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
+/* True for the page's own files, which need no token even when reads do
+ * (the token is entered on the page itself). */
+bool http_www_is_static(const char *url);
+/* [a-z0-9][a-z0-9._-]*, no "..", at most 63 bytes, a known extension. */
+bool http_www_name_ok(const char *name);
+const char *http_www_content_type(const char *name); /* NULL: not served */
+const char *http_www_dir(void);                      /* the folder served, resolved once */
+
+/* Sent with every reply: the page runs no inline script or style, loads
+ * nothing from elsewhere and may not be framed. */
+#define HTTP_CSP                                                                                   \
+	"default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "          \
+	"connect-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'self'"
+/* The run's curve.svg styles itself inline (svg.c) and runs nothing. */
+#define HTTP_CSP_SVG "default-src 'none'; style-src 'unsafe-inline'; frame-ancestors 'none'"
+
 /* /metrics text (http_misc.c). */
 char *http_metrics_text(http_ctx_t *ctx, size_t *len);
 

@@ -131,6 +131,17 @@ json_t *store_points_json(store_t *s, int64_t id, bool *db_err);
 char *store_points_csv(store_t *s, int64_t id, bool *db_err);
 /* {"results":[records with seq], "next_after":SEQ}. */
 json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err);
+/* Runs newest first for GET /v1/runs (store_list.c): each row is the record's
+ * id, station, method, sample, state, phase, times, endpoints, results,
+ * additions, dispensed_ml, stop_reason and seq. NULL or "" filters match
+ * every run; since/until compare queued_at (RFC 3339 UTC prefixes work:
+ * "2026-12-01"); before_id > 0 pages back; limit 1..1000 (else 100). */
+typedef struct store_runs_filter {
+	const char *station, *state, *since, *until;
+	int64_t before_id;
+	int limit;
+} store_runs_filter_t;
+json_t *store_runs_list(store_t *s, const store_runs_filter_t *f, bool *db_err);
 /* Counts of runs by state, for /metrics: fills n[i] for states[i]. */
 int store_run_counts(store_t *s, const char *const *states, long *n, int n_states);
 

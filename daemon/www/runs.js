@@ -1,0 +1,202 @@
+// runs.js: one run drawn live (curve, derivative, endpoints, results) and the
+// filtered list of runs.
+import {api, get, h, fmt, when, errorText, confirmAction, ApiError} from './api.js';
+import {newChart, drawChart} from './chart.js';
+
+const FINAL = new Set(['finished', 'aborted', 'failed', 'interrupted']);
+const STATES = ['queued', 'running', 'finished', 'aborted', 'failed', 'interrupted'];
+
+function acceptBadge(a) {
+	const words = {pass: 'pass', low: 'low', high: 'high', none: 'no limits'};
+	return h('span', {class: `badge accept-${a || 'none'}`}, words[a] || a || '—');
+}
+
+function resultText(res) {
+	return res.value === null || res.value === undefined ? '—' : String(res.value);
+}
+
+function kv(label, value) {
+	return [h('dt', {}, label), h('dd', {}, value)];
+}
+
+export function runView(root, id) {
+	const title = h('h1', {}, `Run ${id}`);
+	const state = h('span', {class: 'badge'}, '…');
+	const msg = h('p', {class: 'view-error', role: 'alert'});
+	const facts = h('dl', {class: 'facts'});
+	const chart = newChart(`titration curve of run ${id}`);
+	const legend = h('p', {class: 'legend'},
+		h('span', {class: 'key curve'}), 'signal ',
+		h('span', {class: 'key deriv'}), 'first derivative ',
+		h('span', {class: 'key endpoint'}), 'endpoint');
+	const endpoints = h('div', {class: 'endpoints'});
+	const results = h('div', {class: 'results'});
+	const faults = h('div', {class: 'faults'});
+	const abort = h('button', {type: 'button', class: 'danger', hidden: true}, 'Abort run');
+	const links = h('p', {class: 'links'},
+		h('a', {href: `/v1/runs/${id}/points?format=csv`, download: `run-${id}.csv`}, 'points as CSV'),
+		' · ',
+		h('a', {href: `/v1/runs/${id}/curve.svg`, target: '_blank', rel: 'noopener'}, 'curve as SVG'),
+		' · ',
+		h('a', {href: `/v1/runs/${id}`, target: '_blank', rel: 'noopener'}, 'record as JSON'));
+	root.append(h('div', {class: 'run-head'}, title, state, abort), msg,
+		h('div', {class: 'run-grid'},
+			h('div', {class: 'card chart-card'}, chart, legend),
+			h('div', {class: 'card'}, facts)),
+		h('div', {class: 'run-grid lower'},
+			h('div', {class: 'card'}, h('h2', {}, 'Results'), results),
+			h('div', {class: 'card'}, h('h2', {}, 'Endpoints'), endpoints, faults)),
+		links);
+	abort.addEventListener('click', async () => {
+		if (!(await confirmAction(`Abort run ${id}?`,
+			'The burette stops at once and the run ends as aborted.', 'Abort run')))
+			return;
+		try {
+			await api('POST', `/v1/runs/${id}/abort`);
+		} catch (e) {
+			msg.textContent = `abort failed: ${errorText(e)}`;
+		}
+	});
+	let final = false;
+	let signal = 'ph';
+	const view = {
+		every_ms: 1000,
+		async refresh() {
+			let rec, pts;
+			try {
+				rec = await get(`/v1/runs/${id}`);
+				pts = await get(`/v1/runs/${id}/points`);
+				msg.textContent = '';
+			} catch (e) {
+				msg.textContent = e instanceof ApiError && e.status === 404
+					? `There is no run ${id}.` : `run not read: ${errorText(e)}`;
+				return;
+			}
+			// The signal of the curve: mV when no point has a pH.
+			const points = pts.points || [];
+			signal = points.length && points.every((p) => p.ph === null) ? 'mv' : 'ph';
+			state.textContent = rec.state + (rec.phase ? ` · ${rec.phase}` : '');
+			state.className = `badge state-${rec.state}`;
+			abort.hidden = FINAL.has(rec.state);
+			const m = rec.method || {};
+			const smp = rec.sample || {};
+			title.textContent = `Run ${id}: ${m.id || '?'} on ${rec.station || '?'}`;
+			facts.replaceChildren(
+				...kv('sample', `${smp.id || '?'}, ${fmt(smp.amount, 3)} ${smp.unit || ''}`),
+				...kv('method', `${m.id || '?'} revision ${m.revision ?? '?'}`),
+				...kv('phase', rec.phase || (FINAL.has(rec.state) ? 'ended' : '—')),
+				...kv('additions', String(rec.additions ?? 0)),
+				...kv('dispensed', `${fmt(rec.dispensed_ml, 3)} mL`),
+				...kv('points', String(points.length)),
+				...kv('queued', when(rec.queued_at)),
+				...kv('started', when(rec.started_at)),
+				...kv('ended', when(rec.ended_at)),
+				...kv('stop reason', rec.stop_reason || '—'),
+				...kv('titrant', rec.titrant ? `${rec.titrant.name}, ${rec.titrant.molarity} mol/L,`
+					+ ` titer ${fmt(rec.titrant.titer, 4)}` : '—'),
+				...kv('calibration', rec.calibration ? `slope ${fmt(rec.calibration.slope_pct, 1)} %,`
+					+ ` offset ${fmt(rec.calibration.offset_mv, 1)} mV` : 'none (mV signal)'));
+			drawChart(chart, points, rec.endpoints || [], signal);
+			const eps = rec.endpoints || [];
+			endpoints.replaceChildren(eps.length
+				? h('table', {class: 'endpoint-table'},
+					h('thead', {}, h('tr', {}, h('th', {}, '#'), h('th', {}, 'volume, mL'),
+						h('th', {}, 'pH'), h('th', {}, 'mV'), h('th', {}, 'how'))),
+					h('tbody', {}, eps.map((e) => h('tr', {},
+						h('td', {}, `E${e.n}`),
+						h('td', {}, fmt(e.volume_ml, 3) +
+							(Number.isFinite(e.u_volume_ml) ? ` ± ${fmt(e.u_volume_ml, 3)}` : '')),
+						h('td', {}, fmt(e.ph, 2)), h('td', {}, fmt(e.mv, 1)),
+						h('td', {}, e.how || '')))))
+				: h('p', {class: 'muted'}, FINAL.has(rec.state) ? 'No endpoint found.'
+					: 'No endpoint yet.'));
+			const res = rec.results || [];
+			results.replaceChildren(res.length
+				? h('table', {class: 'result-table'},
+					h('thead', {}, h('tr', {}, h('th', {}, 'result'), h('th', {}, 'value'),
+						h('th', {}, 'accept'))),
+					h('tbody', {}, res.map((x) => h('tr', {'data-result': x.name},
+						h('td', {}, x.name),
+						h('td', {class: 'num'}, `${resultText(x)} ${x.unit || ''}`),
+						h('td', {}, acceptBadge(x.accept))))))
+				: h('p', {class: 'muted'}, FINAL.has(rec.state) ? 'No results.'
+					: 'Results appear when the run ends.'));
+			const fl = rec.faults || [];
+			faults.replaceChildren(...(fl.length ? [h('h3', {}, 'Faults'),
+				h('ul', {}, fl.map((f) => h('li', {}, `${when(f.at)}: ${f.code}: ${f.message}`)))]
+				: []));
+			// A final run changes no more: poll slowly, in case of a restart.
+			final = FINAL.has(rec.state);
+			view.every_ms = final ? 10000 : 1000;
+		},
+	};
+	return view;
+}
+
+function glance(results) {
+	return (results || []).map((x) => x.value === null || x.value === undefined
+		? h('span', {class: 'glance muted'}, `${x.name}: no value `)
+		: h('span', {class: 'glance'}, `${x.name} ${resultText(x)} ${x.unit || ''} `,
+			acceptBadge(x.accept)));
+}
+
+export function runsView(root) {
+	const station = h('select', {id: 'f-station', name: 'station'}, h('option', {value: ''}, 'all'));
+	const state = h('select', {id: 'f-state', name: 'state'}, h('option', {value: ''}, 'all'),
+		STATES.map((s) => h('option', {value: s}, s)));
+	const since = h('input', {id: 'f-since', name: 'since', type: 'date'});
+	const msg = h('p', {class: 'view-error', role: 'alert'});
+	const body = h('tbody');
+	const count = h('p', {class: 'muted', role: 'status'});
+	const form = h('form', {class: 'filters', 'aria-label': 'filter runs'},
+		h('label', {for: 'f-station'}, 'Station'), station,
+		h('label', {for: 'f-state'}, 'State'), state,
+		h('label', {for: 'f-since'}, 'Since'), since,
+		h('button', {type: 'submit'}, 'Filter'));
+	root.append(h('h1', {}, 'Runs'), form, msg,
+		h('div', {class: 'card'}, h('table', {class: 'runs-table'},
+			h('thead', {}, h('tr', {}, ['run', 'station', 'method', 'sample', 'state', 'started',
+				'results'].map((c) => h('th', {scope: 'col'}, c)))), body), count));
+	let stationsKnown = false;
+	const view = {
+		every_ms: 3000,
+		async refresh() {
+			if (!stationsKnown) {
+				const st = await get('/v1/stations');
+				station.append(...st.stations.map((s) => h('option', {value: s.name}, s.name)));
+				stationsKnown = true;
+			}
+			const q = new URLSearchParams();
+			if (station.value) q.set('station', station.value);
+			if (state.value) q.set('state', state.value);
+			// The date picker gives a local date; the daemon compares UTC times.
+			if (since.value) q.set('since', new Date(`${since.value}T00:00`).toISOString());
+			q.set('limit', '200');
+			let data;
+			try {
+				data = await get(`/v1/runs?${q}`);
+				msg.textContent = '';
+			} catch (e) {
+				msg.textContent = `runs not read: ${errorText(e)}`;
+				return;
+			}
+			body.replaceChildren(...data.runs.map((r) => h('tr', {'data-run': r.id},
+				h('td', {}, h('a', {href: `#/run/${r.id}`}, `run ${r.id}`)),
+				h('td', {}, r.station || ''),
+				h('td', {}, r.method ? `${r.method.id} r${r.method.revision}` : ''),
+				h('td', {}, r.sample ? `${r.sample.id} (${r.sample.amount} ${r.sample.unit})` : ''),
+				h('td', {}, h('span', {class: `badge state-${r.state}`},
+					r.state + (r.phase ? ` · ${r.phase}` : ''))),
+				h('td', {}, when(r.started_at)),
+				h('td', {}, glance(r.results)))));
+			count.textContent = `${data.runs.length} run${data.runs.length === 1 ? '' : 's'}` +
+				(data.runs.length >= 200 ? ' (the newest 200)' : '');
+		},
+	};
+	form.addEventListener('submit', (ev) => {
+		ev.preventDefault();
+		view.refresh();
+	});
+	for (const el of [station, state, since]) el.addEventListener('change', () => view.refresh());
+	return view;
+}

@@ -1,0 +1,371 @@
+// The bench page in headless Chromium (Debian's /usr/bin/chromium, driven by
+// playwright-core), against a real stopcockd on the simulated bench.
+// Run by tests/test_web.py, which passes in the environment:
+//   STOPCOCK_URL, STOPCOCK_TOKEN, STOPCOCK_CONTROL (simulator control socket),
+//   STOPCOCK_SCENARIO (a fresh sample), STOPCOCK_BUFFERS ([[pH, scenario], ...]),
+//   STOPCOCK_SHOTS (screenshot folder).
+// It asks the wrapper to stop/start the daemon with "REQUEST stop-daemon" and
+// "REQUEST start-daemon" lines on stdout and waits for "done" on stdin.
+// Exit 0 and "ALL PASSED" when every check passed; any failure exits 1.
+import {chromium} from 'playwright-core';
+import net from 'node:net';
+import fs from 'node:fs';
+import path from 'node:path';
+import readline from 'node:readline';
+
+const URL = process.env.STOPCOCK_URL;
+const TOKEN = process.env.STOPCOCK_TOKEN;
+const CONTROL = process.env.STOPCOCK_CONTROL;
+const SCENARIO = process.env.STOPCOCK_SCENARIO;
+const BUFFERS = JSON.parse(process.env.STOPCOCK_BUFFERS || '[]');
+const SHOTS = process.env.STOPCOCK_SHOTS;
+const METHOD = 'wash-acid-mv';
+
+for (const [k, v] of Object.entries({URL, TOKEN, CONTROL, SCENARIO, SHOTS}))
+	if (!v) throw new Error(`${k} is not set (tests/test_web.py sets it)`);
+
+let checks = 0;
+function check(cond, what) {
+	if (!cond) throw new Error(`check failed: ${what}`);
+	checks++;
+	console.log(`ok ${checks} - ${what}`);
+}
+
+const t0 = Date.now();
+function step(name) {
+	console.log(`# ${((Date.now() - t0) / 1000).toFixed(1)} s: ${name}`);
+}
+
+// One line to the simulator's control socket ("load FILE", "state", ...).
+function control(line) {
+	return new Promise((resolve, reject) => {
+		const s = net.createConnection(CONTROL);
+		let buf = '';
+		s.setTimeout(10000, () => {
+			s.destroy();
+			reject(new Error(`control socket: no answer to ${line}`));
+		});
+		s.on('connect', () => s.write(`${line}\n`));
+		s.on('data', (d) => {
+			buf += d;
+			if (buf.includes('\n')) {
+				s.end();
+				resolve(buf.trim());
+			}
+		});
+		s.on('error', reject);
+	});
+}
+
+const stdin = readline.createInterface({input: process.stdin});
+const stdinLines = stdin[Symbol.asyncIterator]();
+async function request(what) {
+	console.log(`REQUEST ${what}`);
+	const {value, done} = await stdinLines.next();
+	if (done || value.trim() !== 'done') throw new Error(`wrapper did not do ${what}`);
+}
+
+async function apiGet(p) {
+	const r = await fetch(URL + p);
+	if (!r.ok) throw new Error(`GET ${p}: ${r.status}`);
+	return r.json();
+}
+
+async function shot(page, name) {
+	const file = path.join(SHOTS, `${name}.png`);
+	await page.screenshot({path: file, fullPage: true});
+	console.log(`# screenshot ${file}`);
+}
+
+async function main() {
+	const browser = await chromium.launch({
+		executablePath: '/usr/bin/chromium',
+		headless: true,
+		args: ['--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run',
+			'--disable-background-networking', '--disable-component-update', '--disable-sync'],
+		// playwright starts Chromium with a new empty profile of its own.
+	});
+	const problems = [];
+	try {
+		const context = await browser.newContext({viewport: {width: 1280, height: 800}});
+		const page = await context.newPage();
+		page.setDefaultTimeout(20000);
+		// A CSP violation, a script error or a failed load of our own files
+		// shows up here; the page must have none (a stopped daemon is expected
+		// to give network errors in the restart step only).
+		let expectNetErrors = false;
+		page.on('console', (m) => {
+			// HTTP error statuses are judged by the response check below.
+			if (m.type() === 'error' && !/the server responded with a status of/.test(m.text()) &&
+				!(expectNetErrors && /Failed to load|ERR_/.test(m.text())))
+				problems.push(`console: ${m.text()}`);
+		});
+		// The only error status the page meets here: no calibration yet (404).
+		page.on('response', (r) => {
+			if (r.status() >= 400 && !(r.status() === 404 && /\/v1\/calibrations\/latest/.test(r.url())))
+				problems.push(`HTTP ${r.status()} for ${r.url()}`);
+		});
+		page.on('pageerror', (e) => problems.push(`page error: ${e.message}`));
+		const requests = [];
+		page.on('request', (r) => requests.push({t: Date.now(), url: r.url()}));
+
+		// ---- the stations view ----
+		step('stations view');
+		const resp = await page.goto(URL + '/');
+		check(resp.status() === 200, 'GET / is 200');
+		const hdr = resp.headers();
+		check(/script-src 'self'/.test(hdr['content-security-policy'] || ''), 'CSP header on /');
+		check(hdr['x-content-type-options'] === 'nosniff', 'nosniff on /');
+		const card = page.locator('section.station[data-station="sim1"]');
+		await card.waitFor();
+		await page.waitForFunction(() => {
+			const b = document.querySelector('section.station .badge');
+			return b && b.textContent === 'idle';
+		});
+		await page.waitForFunction(() => /s$/.test(
+			document.querySelector('section.station .field:nth-child(4) .value').textContent));
+		const mv = await card.locator('.field:nth-child(2) .value').textContent();
+		check(Number.isFinite(Number(mv)), `live mV shown (${mv})`);
+		// Keyboard: the first Tab lands on the skip link, the next on the nav.
+		await page.keyboard.press('Tab');
+		check(await page.evaluate(() => document.activeElement.className === 'skip'),
+			'Tab reaches the skip link first');
+		await page.keyboard.press('Tab');
+		await page.keyboard.press('Tab');
+		check(await page.evaluate(() => document.activeElement.closest('nav') !== null),
+			'Tab reaches the view links');
+		await shot(page, '01-stations');
+
+		// ---- the token: asked once, kept for the tab, never in a URL ----
+		step('token');
+		await page.click('#token-button');
+		await page.fill('#token-input', TOKEN);
+		await page.click('#token-dialog button[value="ok"]');
+		check(await page.evaluate(() => sessionStorage.getItem('stopcock.token')) === TOKEN,
+			'token kept in sessionStorage');
+		check(await page.evaluate(() => localStorage.length === 0), 'nothing in localStorage');
+		check((await page.textContent('#token-button')).includes('unlocked'), 'writes unlocked');
+
+		// ---- start a run; the curve grows; the result appears ----
+		step('start a run from the page');
+		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
+		await card.locator('select[name="method"]').selectOption(METHOD);
+		await card.locator('input[name="sample"]').fill('MBD-wash-7');
+		await card.locator('input[name="amount"]').fill('10');
+		await card.locator('form.start button[type="submit"]').click();
+		await page.waitForURL(/#\/run\/\d+$/);
+		const runId = Number(page.url().match(/#\/run\/(\d+)$/)[1]);
+		check(runId > 0, `run ${runId} started from the page`);
+		const npoints = () => page.evaluate(
+			() => Number(document.querySelector('svg.chart')?.dataset.points || 0));
+		await page.waitForFunction(
+			() => Number(document.querySelector('svg.chart')?.dataset.points || 0) >= 3,
+			null, {timeout: 30000});
+		const n1 = await npoints();
+		await shot(page, '02-run-live');
+		await page.waitForFunction((n) =>
+			Number(document.querySelector('svg.chart')?.dataset.points || 0) > n, n1,
+		{timeout: 30000});
+		check((await npoints()) > n1, `the curve grows while the run goes (${n1} -> ${await npoints()} points)`);
+		check(await page.locator('svg.chart polyline.deriv-line').count() === 1,
+			'the first derivative is drawn');
+		await page.locator('tr[data-result="acid"]').waitFor({timeout: 90000});
+		const rec = await apiGet(`/v1/runs/${runId}`);
+		check(rec.state === 'finished', `the run finished (${rec.state})`);
+		await page.waitForFunction(() => /finished/.test(document.querySelector('.run-head .badge').textContent));
+		const value = await page.textContent('tr[data-result="acid"] td.num');
+		check(value.includes(String(rec.results[0].value)) && value.includes('mmol/L'),
+			`the result is shown (${value.trim()})`);
+		check((await page.textContent('tr[data-result="acid"] .badge')) === 'pass',
+			'its accept state is shown');
+		const ep = await page.textContent('svg.chart g.endpoint text');
+		check(ep.includes(rec.endpoints[0].volume_ml.toFixed(3)),
+			`the endpoint is marked with its volume (${ep})`);
+		check(Math.abs(rec.endpoints[0].volume_ml - 2.0) < 0.05, 'the endpoint is near 2.000 mL');
+		const csv = await page.getAttribute('a[download]', 'href');
+		const csvResp = await fetch(new globalThis.URL(csv, URL));
+		check(csvResp.ok && (await csvResp.text()).startsWith('t_s,'), 'the CSV link works');
+		await shot(page, '03-run-finished');
+		// The SVG link opens as an image that styles itself, under its own CSP.
+		const svgPage = await context.newPage();
+		svgPage.on('console', (m) => m.type() === 'error' && problems.push(`svg: ${m.text()}`));
+		const svgResp = await svgPage.goto(`${URL}/v1/runs/${runId}/curve.svg`);
+		check(svgResp.headers()['content-type'] === 'image/svg+xml', 'curve.svg is an SVG');
+		check(!/script-src 'self'|unsafe-inline.*script/.test(svgResp.headers()['content-security-policy']),
+			'curve.svg may run no script');
+		await svgPage.screenshot({path: path.join(SHOTS, '03b-curve-svg.png')});
+		await svgPage.close();
+
+		// The polling stays gentle: at most a few requests a second.
+		const since = Date.now() - 5000;
+		const recent = requests.filter((r) => r.t >= since && r.url.includes('/v1/')).length;
+		check(recent <= 15, `polling is gentle (${recent} API requests in the last 5 s)`);
+
+		// ---- halt a run from the page ----
+		step('halt a run from the stations view');
+		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
+		await page.goto(URL + '/#/stations');
+		await card.waitFor();
+		await card.locator('select[name="method"]').selectOption(METHOD);
+		await card.locator('input[name="sample"]').fill('MBD-wash-8');
+		await card.locator('form.start button[type="submit"]').click();
+		await page.waitForURL(/#\/run\/\d+$/);
+		const haltId = Number(page.url().match(/#\/run\/(\d+)$/)[1]);
+		await page.waitForFunction(
+			() => Number(document.querySelector('svg.chart')?.dataset.points || 0) >= 2,
+			null, {timeout: 30000});
+		await page.click('nav a[data-nav="stations"]');
+		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'running');
+		await card.locator('button.halt').click();
+		await page.locator('#confirm-dialog[open]').waitFor();
+		await shot(page, '04-halt-confirm');
+		await page.click('#confirm-yes');
+		await page.waitForFunction(() => /halted/.test(document.querySelector('.station-error')?.textContent || ''));
+		let halted;
+		for (let i = 0; i < 50; i++) {
+			halted = await apiGet(`/v1/runs/${haltId}`);
+			if (halted.state !== 'running') break;
+			await new Promise((r) => setTimeout(r, 200));
+		}
+		check(halted.state === 'aborted', `the halted run is aborted (${halted.state})`);
+		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'idle');
+		await shot(page, '05-halted');
+
+		// ---- the runs list with a filter ----
+		step('runs list');
+		await page.click('nav a[data-nav="runs"]');
+		await page.locator(`tr[data-run="${runId}"]`).waitFor();
+		await page.selectOption('#f-state', 'aborted');
+		await page.waitForFunction((id) => !document.querySelector(`tr[data-run="${id}"]`) &&
+			document.querySelectorAll('tbody tr').length > 0, runId);
+		const states = await page.$$eval('.runs-table tbody tr td:nth-child(5) .badge', (b) => b.map((x) => x.textContent));
+		check(states.length >= 1 && states.every((s) => s.startsWith('aborted')),
+			`the state filter shows only aborted runs (${states.length})`);
+		check(await page.locator(`tr[data-run="${haltId}"]`).count() === 1, 'the halted run is listed');
+		await page.selectOption('#f-state', '');
+		await page.locator(`tr[data-run="${runId}"] .glance`).waitFor();
+		check((await page.textContent(`tr[data-run="${runId}"] .glance`)).includes('mmol/L'),
+			'results at a glance');
+		await shot(page, '06-runs');
+
+		// ---- methods: list, one method, the editor ----
+		step('methods');
+		await page.click('nav a[data-nav="methods"]');
+		await page.locator(`tr[data-method="${METHOD}"]`).waitFor();
+		await shot(page, '07-methods');
+		await page.click(`tr[data-method="${METHOD}"] a`);
+		await page.locator('ol.yaml li').first().waitFor();
+		const before = await apiGet(`/v1/methods/${METHOD}`);
+		check((await page.locator('ol.yaml li').count()) === before.text.replace(/\n$/, '').split('\n').length,
+			'the YAML is shown line by line');
+		await shot(page, '08-method');
+		await page.click('a.button:has-text("Edit")');
+		const area = page.locator('#method-text');
+		await page.waitForFunction(() => document.getElementById('method-text')?.value.length > 0);
+		const good = await area.inputValue();
+		const lines = good.split('\n');
+		const bad = lines.findIndex((l) => /^\s*dose_min_ml:/.test(l)) + 1;
+		check(bad > 0, `the method has a dose_min_ml line (${bad})`);
+		// Type the error as an author would: select the value and type over it.
+		await area.fill(good.replace(/(dose_min_ml:\s*)[0-9.]+/, '$1-0.02'));
+		await page.locator(`.gutter div.bad[data-line="${bad}"]`).waitFor({timeout: 10000});
+		const note = await page.textContent(`.notes div.bad[data-line="${bad}"]`);
+		check(note.includes(`${METHOD}.yaml:${bad}:`) && note.includes('dose_min_ml'),
+			`the error is shown at line ${bad} (${note})`);
+		check(await page.locator('.gutter div.bad').count() === 1, 'only that line is marked');
+		check((await page.textContent('#diag-list')).includes(`:${bad}:`), 'and listed with file:line:col');
+		await shot(page, '09-editor-error');
+		await page.click('#diag-list button');
+		check(await page.evaluate((l) => {
+			const a = document.getElementById('method-text');
+			return a.value.slice(0, a.selectionStart).split('\n').length === l;
+		}, bad), 'clicking the error puts the caret on its line');
+		// The fix, and a new revision.
+		await area.fill(good.replace(/(dose_min_ml:\s*)[0-9.]+/, '$10.03'));
+		await page.waitForFunction(() => document.querySelectorAll('.gutter div.bad').length === 0 &&
+			/raise it/.test(document.querySelector('.check-status').textContent));
+		await page.click('button:has-text("Raise revision")');
+		await page.waitForFunction((r) => document.querySelector('.check-status').textContent
+			.includes(`saves as revision ${r}`), before.revision + 1);
+		await page.click('button:has-text("Save as new revision")');
+		await page.waitForFunction(() => /saved as revision/.test(document.querySelector('.check-status').textContent));
+		const after = await apiGet(`/v1/methods/${METHOD}`);
+		check(after.revision === before.revision + 1, `saved as revision ${after.revision}`);
+		check(/dose_min_ml:\s*0\.03/.test(after.text), 'with the fixed text');
+		await shot(page, '10-editor-saved');
+
+		// ---- calibration, buffer by buffer ----
+		step('calibration');
+		await page.click('nav a[data-nav="calibration"]');
+		await page.locator('#cal-buffers').waitFor();
+		await page.waitForFunction(() => document.querySelector('#cal-station')?.value === 'sim1');
+		await shot(page, '11-calibration-start');
+		await page.fill('#cal-buffers', BUFFERS.map((b) => b[0].toFixed(2)).join(', '));
+		await page.click('form.cal-start button[type="submit"]');
+		await page.waitForURL(/#\/calibration\/\d+$/);
+		for (let i = 0; i < BUFFERS.length; i++) {
+			const [ph, file] = BUFFERS[i];
+			await page.waitForFunction((p) => document.querySelector('.prompt-big')?.textContent
+				.includes(`buffer pH ${p}`), ph.toFixed(2), {timeout: 60000});
+			check(await page.locator('ol.steps li.current').count() === 1,
+				`buffer ${ph.toFixed(2)} is the current step`);
+			check((await control(`load ${file}`)) === 'ok', `electrode in buffer ${ph.toFixed(2)}`);
+			await page.click('.big-button');
+			if (i === 1) {
+				await page.waitForFunction(() => /Measuring/.test(document.querySelector('.prompt-big')?.textContent));
+				await shot(page, '12-calibration-measuring');
+			}
+			await page.waitForFunction((n) => document.querySelectorAll('ol.steps li.done').length >= n,
+				i + 1, {timeout: 60000});
+		}
+		await page.locator('.verdict[data-state]').waitFor({timeout: 30000});
+		const verdict = await page.getAttribute('.verdict', 'data-state');
+		check(verdict === 'accepted', `the calibration is accepted (${verdict}: ${await page.textContent('.verdict')})`);
+		// The simulated electrode of the buffer beakers (tests/test_web.py):
+		// slope_pct 99.0, offset_mv 2.0. The buffers are model beakers of pH
+		// = pKa at 25 degC, so the fit should give them back closely.
+		const [slope, offset] = (await page.$$eval('.verdict dd', (d) => d.map((x) => x.textContent)));
+		check(Math.abs(parseFloat(slope) - 99.0) < 0.5, `the slope is shown and right (${slope})`);
+		check(Math.abs(parseFloat(offset) - 2.0) < 1.0, `the offset is shown and right (${offset})`);
+		await shot(page, '13-calibration-done');
+
+		// ---- the daemon restarts; the page notices and recovers ----
+		step('daemon restart');
+		await page.click('nav a[data-nav="stations"]');
+		await card.waitFor();
+		expectNetErrors = true;
+		await request('stop-daemon');
+		await page.waitForSelector('#link.down', {timeout: 15000});
+		check((await page.textContent('#link')).includes('not answering'), 'the page says the daemon is not answering');
+		await shot(page, '14-daemon-down');
+		await request('start-daemon');
+		await page.waitForSelector('#link.up', {timeout: 20000});
+		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'idle',
+			null, {timeout: 20000});
+		expectNetErrors = false;
+		check(true, 'the page recovers after the restart');
+
+		// ---- a 10-inch tablet ----
+		step('tablet');
+		await page.setViewportSize({width: 800, height: 1280});
+		await page.goto(`${URL}/#/run/${runId}`);
+		await page.locator('tr[data-result="acid"]').waitFor();
+		const overflow = await page.evaluate(() => document.documentElement.scrollWidth > window.innerWidth + 1);
+		check(!overflow, 'no sideways scrolling at 800 px');
+		await shot(page, '15-tablet-run');
+
+		check(!(await page.content()).includes(TOKEN), 'the token is not in the page');
+		check(!requests.some((r) => r.url.includes(TOKEN)), 'the token is in no URL');
+		check(problems.length === 0, `no console errors or CSP violations (${problems.join(' | ')})`);
+		await context.close();
+	} finally {
+		await browser.close();
+	}
+	console.log(`# ${checks} checks in ${((Date.now() - t0) / 1000).toFixed(1)} s`);
+	console.log('ALL PASSED');
+}
+
+main().then(() => process.exit(0), (e) => {
+	console.log(`not ok - ${e.stack || e}`);
+	process.exit(1);
+});
