@@ -49,10 +49,16 @@ def cider_scenario():
 BUFFERS = ("4.01", "7.00", "10.01")
 
 
+def quick_electrode(text):
+    """The scenario's electrode with a 0.5 s lag (tau_s), so readings settle
+    sooner: these tests check the client, not the electrode model."""
+    return re.sub(r"tau_s: *[0-9.]+", "tau_s: 0.5", text)
+
+
 def small_cider(tmp):
     """The cider scenario with 2 mL of cider in the beaker instead of 10: the same
     curve shape with a fifth of the titrant, so a whole run takes less time."""
-    text = cider_scenario().read_text()
+    text = quick_electrode(cider_scenario().read_text())
     small, n = re.subn(r"(?m)^sample_ml:.*$", "sample_ml: 2.0", text)
     assert n == 1, "the cider scenario has no sample_ml line"
     p = tmp / "cider-2ml.yaml"
@@ -64,7 +70,7 @@ def buffer_scenarios(tmp):
     """One beaker per calibration buffer, with the cider scenario's electrode: an
     acid with pKa equal to the buffer's pH, half neutralized (ideal activities)."""
     m = re.search(r"(?m)^electrode:.*$", cider_scenario().read_text())
-    electrode = m.group(0) if m else "electrode: {offset_mv: 0.0, slope_pct: 100.0}"
+    electrode = quick_electrode(m.group(0) if m else "electrode: {offset_mv: 0.0, slope_pct: 100.0}")
     paths = {}
     for b in BUFFERS:
         p = tmp / f"buffer-{b}.yaml"
@@ -112,7 +118,7 @@ class Bench:
         assert line == "ready", f"stopcock-sim printed {line!r}; see {tmp}/sim.log"
         # Buffers count as stable sooner than the default, to keep the tests short.
         with open(self.config, "a") as f:
-            f.write("calibration:\n  stable: {drift_mv: 0.3, window_s: 4, min_s: 2, max_s: 90}\n")
+            f.write("calibration:\n  stable: {drift_mv: 0.3, window_s: 3, min_s: 2, max_s: 90}\n")
         self.daemon = subprocess.Popen([binary("stopcockd"), "-c", str(self.config)],
                                        stdout=self.daemon_log, stderr=self.daemon_log)
         deadline = time.monotonic() + 15
