@@ -38,6 +38,8 @@ typedef struct pump {
 	pump_mode_t mode;
 	bool moving;
 	bool fault;
+	bool valve_known; /* false until this process has set the valve: a daemon
+	                   * restarted mid-refill finds it at the reservoir */
 } pump_t;
 
 static const char *const own_keys[] = {"profile",          "capacity_ml",      "steps",
@@ -300,6 +302,8 @@ static drv_status_t pump_dose(void *priv, double volume_ml, drv_err_t *err)
 	drv_status_t st = query(p, &mv, err);
 	if (st != DRV_OK)
 		return st;
+	if (!mv && p->mode == MODE_DOSE)
+		p->mode = MODE_IDLE; /* the last dose ended since the last status */
 	if (mv || p->mode != MODE_IDLE)
 		return drv_fail(err, DRV_DEVICE_ERROR, "pump: still moving; dose refused");
 	if (steps > p->pos)
@@ -413,8 +417,12 @@ static drv_status_t pump_halt(void *priv, drv_err_t *err)
 	drv_err_t e2;
 	(void)query(p, &mv, &e2);
 	p->mode = MODE_IDLE;
-	if (refilling && p->prof.valve_out[0])
-		return simple_cmd(p, p->prof.valve_out, &a, err);
+	if ((refilling || !p->valve_known) && p->prof.valve_out[0]) {
+		st = simple_cmd(p, p->prof.valve_out, &a, err);
+		if (st == DRV_OK)
+			p->valve_known = true;
+		return st;
+	}
 	return DRV_OK;
 }
 
@@ -425,6 +433,8 @@ static drv_status_t pump_refill(void *priv, drv_err_t *err)
 	drv_status_t st = query(p, &mv, err);
 	if (st != DRV_OK)
 		return st;
+	if (!mv && p->mode == MODE_DOSE)
+		p->mode = MODE_IDLE;
 	if (mv || p->mode != MODE_IDLE)
 		return drv_fail(err, DRV_DEVICE_ERROR, "pump: still moving; refill refused");
 	pump_args_t a = {0};

@@ -116,6 +116,14 @@ TEST(drv_pump_sim_dose_refill)
 	CHECK_NEAR(beaker_titrant_ml(f.sim.beaker), 0.25, 1e-9); /* the beaker got it */
 	pthread_mutex_unlock(&f.sim.mu);
 
+	/* back-to-back doses without a status poll between them */
+	REQUIRE(drv_burette_dose(&f.b, 0.05, &e) == DRV_OK);
+	CHECK(drv_burette_dose(&f.b, 0.05, &e) == DRV_DEVICE_ERROR); /* still moving */
+	usleep(200000);
+	CHECK(drv_burette_dose(&f.b, 0.05, &e) == DRV_OK);
+	CHECK(wait_idle(&f, &st, 3) == DRV_OK);
+	CHECK_NEAR(st.dispensed_ml, 0.35, 1e-9);
+
 	/* more than the syringe holds: refused before anything moves */
 	CHECK(drv_burette_dose(&f.b, 9.9, &e) == DRV_CONFIG);
 	CHECK(strstr(e.msg, "refill") != NULL);
@@ -127,10 +135,10 @@ TEST(drv_pump_sim_dose_refill)
 	CHECK(wait_idle(&f, &st, 5) == DRV_OK);
 	CHECK(!st.refilling);
 	CHECK_NEAR(st.contents_ml, 10.0, 1e-9);
-	CHECK_NEAR(st.dispensed_ml, 0.25, 1e-9);
+	CHECK_NEAR(st.dispensed_ml, 0.35, 1e-9);
 	pthread_mutex_lock(&f.sim.mu);
 	CHECK(!f.sim.pump.valve_in);
-	CHECK_NEAR(beaker_titrant_ml(f.sim.beaker), 0.25, 1e-9);
+	CHECK_NEAR(beaker_titrant_ml(f.sim.beaker), 0.35, 1e-9);
 	pthread_mutex_unlock(&f.sim.mu);
 
 	/* halt mid-dose: stops short, counts what left */
@@ -139,7 +147,7 @@ TEST(drv_pump_sim_dose_refill)
 	CHECK(drv_burette_halt(&f.b, &e) == DRV_OK);
 	CHECK(drv_burette_status(&f.b, &st, &e) == DRV_OK);
 	CHECK(!st.moving);
-	CHECK(st.dispensed_ml > 0.25 + 0.1 && st.dispensed_ml < 0.25 + 1.5);
+	CHECK(st.dispensed_ml > 0.35 + 0.1 && st.dispensed_ml < 0.35 + 1.5);
 	pthread_mutex_lock(&f.sim.mu);
 	CHECK_NEAR(beaker_titrant_ml(f.sim.beaker), st.dispensed_ml, 1e-9);
 	pthread_mutex_unlock(&f.sim.mu);
