@@ -20,6 +20,7 @@ import select
 import socket
 import threading
 import time
+import tty
 
 import yaml
 
@@ -120,12 +121,70 @@ class ModbusProxy:
         self.lsock.close()
 
 
+class PumpRelay:
+    """A pseudo-terminal between the daemon and the simulated pump that logs
+    every command line the daemon sends: the crash suite checks that the
+    first command after a restart is a halt. `commands` is a list of
+    (time.monotonic(), line)."""
+
+    def __init__(self, sim_link, link_path):
+        self.commands = []
+        self.lock = threading.Lock()
+        self.master, self.slave = os.openpty()   # keep the slave open: no EIO on master
+        tty.setraw(self.slave)
+        self.link = pathlib.Path(link_path)
+        if self.link.exists() or self.link.is_symlink():
+            self.link.unlink()
+        self.link.symlink_to(os.ttyname(self.slave))
+        self.sim_fd = os.open(str(sim_link), os.O_RDWR | os.O_NOCTTY)
+        tty.setraw(self.sim_fd)
+        self.stop = False
+        self.buf = b""
+        self.thread = threading.Thread(target=self._serve, daemon=True)
+        self.thread.start()
+
+    def _serve(self):
+        while not self.stop:
+            try:
+                r, _, _ = select.select([self.master, self.sim_fd], [], [], 0.1)
+            except (OSError, ValueError):
+                return
+            for fd in r:
+                try:
+                    data = os.read(fd, 4096)
+                except OSError:
+                    continue
+                if fd == self.master:
+                    self.buf += data
+                    while b"\n" in self.buf:
+                        line, self.buf = self.buf.split(b"\n", 1)
+                        with self.lock:
+                            self.commands.append((time.monotonic(),
+                                                  line.decode(errors="replace").strip()))
+                    os.write(self.sim_fd, data)
+                else:
+                    os.write(self.master, data)
+
+    def since(self, t):
+        with self.lock:
+            return [c for (tc, c) in self.commands if tc >= t]
+
+    def close(self):
+        self.stop = True
+        self.thread.join(timeout=5)
+        for fd in (self.master, self.slave, self.sim_fd):
+            os.close(fd)
+
+
 class Bench(db.Bench):
     """stopcock-sim + stopcockd with a fast pump, a fast method and the
     Modbus proxy. `daemon_cmd(argv)` may wrap the daemon (valgrind)."""
 
-    def __init__(self, tmp, extra_config="", daemon_wrap=None, state_dir=None):
+    def __init__(self, tmp, extra_config="", daemon_wrap=None, state_dir=None,
+                 pump_relay=False):
         self.proxy = None
+        self.relay = None
+        self.want_relay = pump_relay
         self.daemon_wrap = daemon_wrap or []
         self.state_dir_override = state_dir
         self._rewired = False
@@ -136,6 +195,9 @@ class Bench(db.Bench):
         cfg = yaml.safe_load(self.config.read_text())
         st = cfg["stations"][0]
         st["burette"]["profile"] = str(FAST_PUMP)
+        if self.want_relay:
+            self.relay = PumpRelay(st["burette"]["port"], self.tmp / "pump-relay")
+            st["burette"]["port"] = str(self.relay.link)
         probe = st["probe"]
         self.proxy = ModbusProxy(probe["host"], probe["port"])
         probe["port"] = self.proxy.port
@@ -178,6 +240,8 @@ class Bench(db.Bench):
         finally:
             if self.proxy:
                 self.proxy.close()
+            if self.relay:
+                self.relay.close()
 
     # ---- helpers for the suites ----
     def start_fast(self, sample="RELY-1", amount=10.0):
