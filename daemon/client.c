@@ -343,7 +343,9 @@ double client_num(const json_t *o, const char *key)
 
 const char *client_fmt(char *buf, size_t len, double v, int decimals)
 {
-	if (isfinite(v))
+	if (isfinite(v) && decimals < 0)
+		snprintf(buf, len, "%.10g", v);
+	else if (isfinite(v))
 		snprintf(buf, len, "%.*f", decimals, v);
 	else
 		snprintf(buf, len, "-");

@@ -96,7 +96,8 @@ bool client_parse_number(const char *s, double *v);
 const char *client_str(const json_t *o, const char *key, const char *dflt);
 /* NAN when missing, null or not a number. */
 double client_num(const json_t *o, const char *key);
-/* A number as "%.*f", or "-" when NAN. */
+/* A number as "%.*f" (decimals < 0: as short as it is exact, "%.10g"), or
+ * "-" when NAN. */
 const char *client_fmt(char *buf, size_t len, double v, int decimals);
 
 #endif

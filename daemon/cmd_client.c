@@ -200,14 +200,14 @@ static void print_final(long long id, const json_t *rec)
 	{
 		printf("%s EP%lld %s mL", i ? "," : ":",
 		       (long long)json_integer_value(json_object_get(e, "n")),
-		       client_fmt(b, sizeof b, client_num(e, "volume_ml"), 3));
+		       client_fmt(b, sizeof b, client_num(e, "volume_ml"), 4));
 	}
 	json_array_foreach(json_object_get(rec, "results"), i, e)
 	{
 		json_t *dec = json_object_get(e, "decimals");
 		printf("%s %s %s %s (%s)", i ? "," : ";", client_str(e, "name", "?"),
 		       client_fmt(b, sizeof b, client_num(e, "value"),
-		                  json_is_integer(dec) ? (int)json_integer_value(dec) : 3),
+		                  json_is_integer(dec) ? (int)json_integer_value(dec) : -1),
 		       client_str(e, "unit", ""), client_str(e, "accept", "none"));
 	}
 	printf("\n");

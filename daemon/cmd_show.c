@@ -60,11 +60,11 @@ static void print_record(const json_t *r)
 		double u = client_num(e, "u_volume_ml");
 		char ubuf[48] = "";
 		if (isfinite(u))
-			snprintf(ubuf, sizeof ubuf, " (u %s mL)", client_fmt(b2, sizeof b2, u, 3));
+			snprintf(ubuf, sizeof ubuf, " (u %s mL)", client_fmt(b2, sizeof b2, u, 4));
 		json_t *n = json_object_get(e, "n");
 		printf("  EP%lld  %s mL%s  pH %s  %s mV  half pH %s  by %s\n",
 		       json_is_integer(n) ? (long long)json_integer_value(n) : (long long)i + 1,
-		       client_fmt(b1, sizeof b1, client_num(e, "volume_ml"), 3), ubuf,
+		       client_fmt(b1, sizeof b1, client_num(e, "volume_ml"), 4), ubuf,
 		       client_fmt(b3, sizeof b3, client_num(e, "ph"), 2),
 		       client_fmt(b4, sizeof b4, client_num(e, "mv"), 1),
 		       client_fmt(b2, sizeof b2, client_num(e, "half_ph"), 2),
@@ -78,7 +78,7 @@ static void print_record(const json_t *r)
 		json_t *dec = json_object_get(e, "decimals");
 		printf("  %-16s %s %s  %s", client_str(e, "name", "?"),
 		       client_fmt(b1, sizeof b1, client_num(e, "value"),
-		                  json_is_integer(dec) ? (int)json_integer_value(dec) : 3),
+		                  json_is_integer(dec) ? (int)json_integer_value(dec) : -1),
 		       client_str(e, "unit", ""), client_str(e, "accept", "none"));
 		const char *note = client_str(e, "note", NULL);
 		if (note)

@@ -167,7 +167,8 @@ say "queue: cider-acidity on sample $sample, 10 mL"
 run=$("$bin/stopcock" start --station sim1 --method cider-acidity --sample-id "$sample" --amount 10)
 echo "run $run queued"
 
-say "titrating (progress below)"
+say "titrating (progress below; each addition waits for the electrode to settle, so the"
+say "  cider method takes several minutes on this real-time bench)"
 rc=0
 run_waited "$bin/stopcock" wait "$run" --timeout 900 || rc=$?
 
