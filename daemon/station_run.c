@@ -411,12 +411,14 @@ static void finish(run_t *r)
 
 	set_stirrer(r, false);
 	/* engine_done() smooths dpdv: store the final points in place. */
-	r->stored_points = 0;
-	for (int i = 0; i < n; i++) {
-		store_point_t p;
-		point_of(engine_point(r->e, i), &p);
-		if (store_point_add(r->s->store, r->job->run_id, i, &p, NULL) != STORE_OK)
-			break;
+	if (n > 0) {
+		store_point_t *pts = calloc((size_t)n, sizeof *pts);
+		for (int i = 0; pts && i < n; i++)
+			point_of(engine_point(r->e, i), &pts[i]);
+		if (!pts || store_points_rewrite(r->s->store, r->job->run_id, pts, n) != STORE_OK)
+			log_warn("station %s run %lld: could not store the smoothed derivatives",
+			         r->s->name, (long long)r->job->run_id);
+		free(pts);
 	}
 	now_text(r->rec.ended_at);
 	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);

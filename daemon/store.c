@@ -454,20 +454,16 @@ store_status_t store_run_update(store_t *s, int64_t id, const char *state, const
 	return STORE_OK;
 }
 
-store_status_t store_point_add(store_t *s, int64_t run_id, int n, const store_point_t *p,
-                               const char *record_json)
+static int insert_point(store_t *s, int64_t run_id, int n, const store_point_t *p)
 {
-	sqlite3_stmt *st = NULL;
-	store_status_t ret = STORE_ERR;
+	sqlite3_stmt *st;
+	int rc;
 
-	pthread_mutex_lock(&s->wlock);
-	if (begin(s))
-		goto out;
 	if (sqlite3_prepare_v2(s->w,
 	                       "INSERT OR REPLACE INTO points (run_id, n, t_s, volume_ml, mv, ph,"
 	                       " temperature_c, settled, dpdv) VALUES (?,?,?,?,?,?,?,?,?)",
 	                       -1, &st, NULL) != SQLITE_OK)
-		goto out_tx;
+		return -1;
 	sqlite3_bind_int64(st, 1, run_id);
 	sqlite3_bind_int(st, 2, n);
 	sqlite3_bind_double(st, 3, p->t_s);
@@ -477,19 +473,46 @@ store_status_t store_point_add(store_t *s, int64_t run_id, int n, const store_po
 	bind_opt_double(st, 7, p->has_temperature, p->temperature_c);
 	sqlite3_bind_int(st, 8, p->settled);
 	bind_opt_double(st, 9, p->has_dpdv, p->dpdv);
-	if (sqlite3_step(st) != SQLITE_DONE)
-		goto out_tx;
+	rc = sqlite3_step(st);
 	sqlite3_finalize(st);
-	st = NULL;
-	if (record_json && exec_w(s, "UPDATE runs SET record=? WHERE id=? AND seq IS NULL", "ti",
-	                          record_json, run_id) != SQLITE_DONE)
-		goto out_tx;
+	return rc == SQLITE_DONE ? 0 : -1;
+}
+
+store_status_t store_points_rewrite(store_t *s, int64_t run_id, const store_point_t *p, int n)
+{
+	store_status_t ret = STORE_ERR;
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	for (int i = 0; i < n; i++)
+		if (insert_point(s, run_id, i, &p[i])) {
+			rollback(s);
+			goto out;
+		}
 	if (commit(s) == 0)
 		ret = STORE_OK;
-	goto out;
-out_tx:
-	sqlite3_finalize(st);
-	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	return ret;
+}
+
+store_status_t store_point_add(store_t *s, int64_t run_id, int n, const store_point_t *p,
+                               const char *record_json)
+{
+	store_status_t ret = STORE_ERR;
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (insert_point(s, run_id, n, p) ||
+	    (record_json && exec_w(s, "UPDATE runs SET record=? WHERE id=? AND seq IS NULL", "ti",
+	                           record_json, run_id) != SQLITE_DONE)) {
+		rollback(s);
+		goto out;
+	}
+	if (commit(s) == 0)
+		ret = STORE_OK;
 out:
 	pthread_mutex_unlock(&s->wlock);
 	return ret;

@@ -108,6 +108,10 @@ typedef struct store_point {
 store_status_t store_point_add(store_t *s, int64_t run_id, int n, const store_point_t *p,
                                const char *record_json);
 
+/* Replace points 0..n-1 of a run in one transaction (the final, smoothed
+ * derivatives when a run ends). */
+store_status_t store_points_rewrite(store_t *s, int64_t run_id, const store_point_t *p, int n);
+
 /* Final state: state, stop_reason, record, endpoints/results rows from the
  * record, and the next seq, in one transaction. STORE_CONFLICT if the run is
  * already final. *seq_out may be NULL. */

@@ -164,3 +164,34 @@ TEST(store_time_rfc3339_format)
 	store_time_rfc3339(1796160400.0, t);
 	CHECK_STR(t, "2026-12-01T21:26:40.000Z");
 }
+
+TEST(store_points_rewrite_replaces_in_place)
+{
+	char dir[64], path[128];
+	store_t *s = open_tmp(dir, path);
+	store_point_t p[3] = {{.t_s = 0, .volume_ml = 0, .mv = 100},
+	                      {.t_s = 1, .volume_ml = 0.5, .mv = 90},
+	                      {.t_s = 2, .volume_ml = 1.0, .mv = 60}};
+	bool db_err;
+	json_t *j, *pts;
+	int64_t a;
+
+	REQUIRE(s);
+	a = new_run(s, "A");
+	for (int i = 0; i < 3; i++)
+		CHECK_INT(store_point_add(s, a, i, &p[i], NULL), STORE_OK);
+	for (int i = 0; i < 3; i++) {
+		p[i].has_dpdv = true;
+		p[i].dpdv = -10.0 * (i + 1);
+	}
+	CHECK_INT(store_points_rewrite(s, a, p, 3), STORE_OK);
+	j = store_points_json(s, a, &db_err);
+	REQUIRE(j);
+	pts = json_object_get(j, "points");
+	CHECK_INT(json_array_size(pts), 3);
+	CHECK_NEAR(json_real_value(json_object_get(json_array_get(pts, 2), "dpdv")), -30.0, 1e-12);
+	CHECK_NEAR(json_real_value(json_object_get(json_array_get(pts, 1), "mv")), 90.0, 1e-12);
+	json_decref(j);
+	store_close(s);
+	rm_tmp(dir);
+}
