@@ -368,8 +368,10 @@ static drv_status_t refill_step(pump_t *p, drv_err_t *err)
 			return DRV_OK;
 		}
 		st = simple_cmd(p, p->prof.valve_out, &a, err);
-		if (st == DRV_OK)
+		if (st == DRV_OK) {
 			p->mode = MODE_VALVE_OUT;
+			p->valve_known = true; /* this process set it: at the outlet */
+		}
 		return st;
 	case MODE_VALVE_OUT:
 	case MODE_DOSE:

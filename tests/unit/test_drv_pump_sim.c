@@ -211,3 +211,28 @@ TEST(drv_pump_sim_faults)
 	CHECK_NEAR(st.dispensed_ml - before, 0.1, 1e-9);
 	teardown(&f);
 }
+
+TEST(drv_pump_sim_restart_mid_refill)
+{
+	/* A daemon that died mid-refill left the valve at the reservoir: the
+	 * first halt of a fresh driver turns it back to the outlet, so the next
+	 * dose goes into the beaker, not back into the bottle. */
+	fixture_t f;
+	REQUIRE(setup(&f, 300) == 0);
+	pthread_mutex_lock(&f.sim.mu);
+	f.sim.pump.valve_in = true;
+	pthread_mutex_unlock(&f.sim.mu);
+	drv_err_t e;
+	drv_burette_status_t st;
+	REQUIRE(drv_burette_open(&f.b, &e) == DRV_OK);
+	CHECK(drv_burette_dose(&f.b, 0.1, &e) == DRV_DEVICE_ERROR); /* the pump refuses */
+	CHECK(strstr(e.msg, "valve") != NULL);
+	CHECK(drv_burette_halt(&f.b, &e) == DRV_OK);
+	pthread_mutex_lock(&f.sim.mu);
+	CHECK(!f.sim.pump.valve_in);
+	pthread_mutex_unlock(&f.sim.mu);
+	CHECK(drv_burette_dose(&f.b, 0.1, &e) == DRV_OK);
+	CHECK(wait_idle(&f, &st, 3) == DRV_OK);
+	CHECK_NEAR(st.dispensed_ml, 0.1, 1e-9);
+	teardown(&f);
+}

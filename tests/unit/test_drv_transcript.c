@@ -1,0 +1,162 @@
+/* Replay an annotated device transcript (tests/drivers/NAME.transcript) through
+ * a pty: a fake pump thread checks each command the driver sends and answers
+ * from the transcript, so the second profile (CR terminators, an init
+ * command, volumes in uL) is tested byte for byte. */
+#include <poll.h>
+#include <pthread.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "drv.h"
+#include "harness.h"
+#include "sim.h"
+
+#define MAX_STEPS 64
+
+typedef struct replay {
+	int master;
+	char kind[MAX_STEPS]; /* '>', '<' or '~' */
+	char text[MAX_STEPS][160];
+	int n;
+	int done;           /* steps replayed */
+	char mismatch[400]; /* first difference, "" when none */
+} replay_t;
+
+static int load(replay_t *r, const char *path)
+{
+	FILE *f = fopen(path, "r");
+	if (!f)
+		return -1;
+	char line[160];
+	while (fgets(line, sizeof(line), f) && r->n < MAX_STEPS) {
+		line[strcspn(line, "\n")] = '\0';
+		if ((line[0] != '>' && line[0] != '<' && line[0] != '~') || line[1] != ' ')
+			continue;
+		r->kind[r->n] = line[0];
+		snprintf(r->text[r->n], sizeof(r->text[0]), "%s", line + 2);
+		r->n++;
+	}
+	fclose(f);
+	return 0;
+}
+
+/* Read one CR-terminated command from the master, 2 s at most. */
+static int read_cmd(int fd, char *out, size_t cap)
+{
+	size_t n = 0;
+	double until = drv_now_s() + 2.0;
+	while (drv_now_s() < until) {
+		struct pollfd pf = {.fd = fd, .events = POLLIN};
+		if (poll(&pf, 1, 50) <= 0)
+			continue;
+		char c;
+		if (read(fd, &c, 1) != 1)
+			continue;
+		if (c == '\r') {
+			out[n] = '\0';
+			return 0;
+		}
+		if (n < cap - 1)
+			out[n++] = c;
+	}
+	return -1;
+}
+
+static void *pump(void *arg)
+{
+	replay_t *r = arg;
+	for (int i = 0; i < r->n; i++) {
+		if (r->kind[i] == '>') {
+			char got[160];
+			if (read_cmd(r->master, got, sizeof(got)) != 0) {
+				snprintf(r->mismatch, sizeof(r->mismatch),
+				         "step %d: nothing sent, "
+				         "wanted '%s'",
+				         i, r->text[i]);
+				return NULL;
+			}
+			if (strcmp(got, r->text[i]) != 0) {
+				snprintf(r->mismatch, sizeof(r->mismatch),
+				         "step %d: sent '%s', wanted '%s'", i, got, r->text[i]);
+				return NULL;
+			}
+		} else {
+			char out[200];
+			int n = snprintf(out, sizeof(out), "%s%s", r->text[i],
+			                 r->kind[i] == '<' ? "\r" : "");
+			if (write(r->master, out, (size_t)n) != n)
+				return NULL;
+		}
+		r->done = i + 1;
+	}
+	return NULL;
+}
+
+TEST(drv_transcript_generic_ascii)
+{
+	static replay_t r;
+	memset(&r, 0, sizeof(r));
+	REQUIRE(load(&r, "tests/drivers/generic-ascii.transcript") == 0);
+	REQUIRE(r.n > 10);
+	char link[128];
+	int slave;
+	snprintf(link, sizeof(link), "/tmp/stopcock-unit-transcript-%d", (int)getpid());
+	REQUIRE(sim_pty_open(link, &r.master, &slave) == 0);
+	pthread_t th;
+	pthread_create(&th, NULL, pump, &r);
+
+	char cfg[300];
+	snprintf(cfg, sizeof(cfg),
+	         "{driver: pump-serial, port: %s, timeout_ms: 500, retries: 0, "
+	         "profile: config/pumps/generic-ascii.yaml}",
+	         link);
+	yt_doc_t doc;
+	memset(&doc, 0, sizeof(doc));
+	diag_list_t d = DIAG_LIST_INIT;
+	drv_burette_t b;
+	memset(&b, 0, sizeof(b));
+	drv_err_t e;
+	drv_burette_status_t st;
+	if (yt_load_buffer("t.yaml", cfg, strlen(cfg), &doc, &d) != 0 ||
+	    drv_burette_configure(&doc, doc.root, &b, &d) != 0) {
+		diag_print(&d, stderr);
+		CHECK(0);
+		goto out;
+	}
+	CHECK(drv_burette_open(&b, &e) == DRV_OK);
+	CHECK(drv_burette_dose(&b, 0.05, &e) == DRV_OK);
+	CHECK(drv_burette_status(&b, &st, &e) == DRV_OK);
+	CHECK(st.moving);
+	CHECK_NEAR(st.dispensed_ml, 0.025, 1e-12);
+	CHECK(drv_burette_status(&b, &st, &e) == DRV_OK);
+	CHECK(!st.moving);
+	CHECK_NEAR(st.dispensed_ml, 0.05, 1e-12);
+	CHECK_NEAR(st.contents_ml, 4.95, 1e-12);
+	CHECK(drv_burette_refill(&b, &e) == DRV_OK);
+	CHECK(drv_burette_status(&b, &st, &e) == DRV_OK); /* valve done: fill starts */
+	CHECK(st.moving && st.refilling);
+	CHECK(drv_burette_status(&b, &st, &e) == DRV_OK); /* full: valve out */
+	CHECK(st.moving && st.refilling);
+	CHECK(drv_burette_status(&b, &st, &e) == DRV_OK); /* done */
+	CHECK(!st.moving && !st.refilling);
+	CHECK_NEAR(st.contents_ml, 5.0, 1e-12);
+	CHECK_NEAR(st.dispensed_ml, 0.05, 1e-12); /* a refill is not a dose */
+	CHECK(drv_burette_status(&b, &st, &e) == DRV_DEVICE_ERROR);
+	CHECK(strstr(e.msg, "error 7") && strstr(e.msg, "motor stalled"));
+	drv_status_t hs = drv_burette_halt(&b, &e);
+	if (hs != DRV_OK)
+		fprintf(stderr, "halt: %s: %s\n", drv_status_name(hs), e.msg);
+	CHECK(hs == DRV_OK);
+out:
+	pthread_join(th, NULL);
+	CHECK_STR(r.mismatch, "");
+	CHECK_INT(r.done, r.n);
+	drv_burette_close(&b);
+	yt_free(&doc);
+	diag_free(&d);
+	close(r.master);
+	close(slave);
+	unlink(link);
+}
