@@ -134,9 +134,11 @@ bool http_route_calib(const http_req_t *q, const char *const *seg, int n, http_r
 			                 station ? "no station '%s'" : "%s",
 			                 station ? station : "give ?station=NAME");
 		} else {
-			reply_calib(
-			    r, store_calib_latest(q->ctx->store, station, false, NULL, &db_err),
-			    db_err, "for this station");
+			/* Read first: an argument list does not order the call before
+			 * the read of db_err (UBSan saw an uninitialised bool). */
+			json_t *j =
+			    store_calib_latest(q->ctx->store, station, false, NULL, &db_err);
+			reply_calib(r, j, db_err, "for this station");
 		}
 		return true;
 	}
@@ -145,10 +147,10 @@ bool http_route_calib(const http_req_t *q, const char *const *seg, int n, http_r
 		                 "a calibration id is a positive integer (got '%s')", seg[2]);
 		return true;
 	}
-	if (n == 3 && get)
-		reply_calib(r, store_calib_json(q->ctx->store, id, &db_err), db_err,
-		            "with this id");
-	else if (n == 4 && post && !strcmp(seg[3], "next"))
+	if (n == 3 && get) {
+		json_t *j = store_calib_json(q->ctx->store, id, &db_err);
+		reply_calib(r, j, db_err, "with this id");
+	} else if (n == 4 && post && !strcmp(seg[3], "next"))
 		post_next(q, id, r);
 	else if (n == 3 || !strcmp(seg[3], "next"))
 		http_reply_error(r, 405, "method_not_allowed", "%s is not allowed on %s", q->method,
