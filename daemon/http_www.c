@@ -70,7 +70,7 @@ bool http_www_name_ok(const char *name)
 		if (!ok || n >= WWW_NAME_MAX || (p[0] == '.' && p[1] == '.'))
 			return false;
 	}
-	return http_www_content_type(name) != NULL;
+	return n < WWW_NAME_MAX && http_www_content_type(name) != NULL;
 }
 
 bool http_www_is_static(const char *url)
