@@ -48,7 +48,8 @@ def test_run_finishes_at_the_stoichiometric_volume(finished):
 
 def test_dispensed_volume_matches_the_simulated_burette(bench, finished):
     rid, rec = finished
-    # The simulator's own count of what left the syringe.
+    # The simulator's own count of what left the syringe (the first run of
+    # this bench, so its whole count).
     assert bench.sim_state()["dispensed_ml"] == pytest.approx(rec["dispensed_ml"], abs=1e-3)
     # Interlock: never beyond the method's volume_max_ml (5 mL).
     assert rec["dispensed_ml"] <= 5.0
