@@ -181,7 +181,8 @@ class Bench(db.Bench):
     Modbus proxy. `daemon_cmd(argv)` may wrap the daemon (valgrind)."""
 
     def __init__(self, tmp, extra_config="", daemon_wrap=None, state_dir=None,
-                 pump_relay=False):
+                 pump_relay=False, http=None):
+        self.http_overrides = dict(http or {})
         self.proxy = None
         self.relay = None
         self.want_relay = pump_relay
@@ -204,6 +205,7 @@ class Bench(db.Bench):
         probe["frozen_after_s"] = FROZEN_AFTER_S
         if "stirrer" in st:
             st["stirrer"]["port"] = self.proxy.port
+        cfg["http"].update(self.http_overrides)
         if self.state_dir_override:
             cfg["storage"]["database"] = str(pathlib.Path(self.state_dir_override) /
                                              "stopcock.db")
