@@ -64,7 +64,7 @@ int cmd_start(int argc, char **argv)
 
 static void print_station(client_t *c, const json_t *st)
 {
-	char b1[32], b2[32], b3[32], b4[32], b5[32], b6[32];
+	char b1[32], b2[32], b4[32], b5[32];
 	const json_t *rd = json_object_get(st, "reading");
 	const json_t *bu = json_object_get(st, "burette");
 	double age_s = client_num(rd, "age_s");
@@ -95,6 +95,9 @@ static void print_station(client_t *c, const json_t *st)
 		snprintf(temp, sizeof temp, "%.1f °C", t_c);
 	else
 		snprintf(temp, sizeof temp, "-");
+	char age[32] = "-";
+	if (isfinite(age_s))
+		snprintf(age, sizeof age, "%.1f s", age_s);
 	char burette[48];
 	snprintf(burette, sizeof burette, "%s / %s mL",
 	         client_fmt(b4, sizeof b4, client_num(bu, "dispensed_ml"), 3),
@@ -103,10 +106,7 @@ static void print_station(client_t *c, const json_t *st)
 	printf("%-10s %-11s %-10s %6s %8s %-9s %6s  %-20s %s\n", client_str(st, "name", "?"),
 	       client_str(st, "state", "?"), phase ? phase : "-",
 	       client_fmt(b1, sizeof b1, client_num(rd, "ph"), 2),
-	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp,
-	       isfinite(age_s) ? (snprintf(b6, sizeof b6, "%.1f s", age_s), b6)
-	                       : client_fmt(b3, sizeof b3, NAN, 0),
-	       burette, runs);
+	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp, age, burette, runs);
 }
 
 int cmd_status(int argc, char **argv)
@@ -216,6 +216,57 @@ static void print_final(long long id, const json_t *rec)
 	    printf("  fault %s: %s\n", client_str(e, "code", "?"), client_str(e, "message", ""));
 }
 
+/* What `wait` shows while it waits. */
+typedef struct watch {
+	bool tty;           /* stderr is a terminal: rewrite one line in place */
+	char line[256];     /* the last progress line */
+	char last_key[128]; /* state, phase and additions of the last line written */
+	long long last_additions;
+	double last_point_ph;
+} watch_t;
+
+/* One progress line: state/phase, additions, volume, signal. On a terminal
+ * it is rewritten at each poll; otherwise written when the state, the phase
+ * or the number of additions changed. */
+static void show_progress(client_t *c, watch_t *w, long long id, const json_t *rec,
+                          const char *run_path)
+{
+	const char *state = client_str(rec, "state", "?");
+	const char *phase = client_str(rec, "phase", NULL);
+	json_t *add = json_object_get(rec, "additions");
+	long long additions = json_is_integer(add) ? json_integer_value(add) : 0;
+	char b1[32], b2[32], b3[32], sig[64] = "";
+	if (!strcmp(state, "running")) {
+		/* The live reading; when the probe gives only mV, the pH of the
+		 * last point (the engine's calibrated value). */
+		if (additions != w->last_additions) {
+			w->last_point_ph = last_point_ph_of(c, run_path);
+			w->last_additions = additions;
+		}
+		json_t *rd = station_reading(c, client_str(rec, "station", ""));
+		double ph = client_num(rd, "ph");
+		if (!isfinite(ph))
+			ph = w->last_point_ph;
+		if (rd)
+			snprintf(sig, sizeof sig, "  pH %s  %s mV",
+			         client_fmt(b2, sizeof b2, ph, 2),
+			         client_fmt(b3, sizeof b3, client_num(rd, "mv"), 1));
+		json_decref(rd);
+	}
+	snprintf(w->line, sizeof w->line, "run %lld %s%s%s  additions %lld  %s mL%s", id, state,
+	         phase ? "/" : "", phase ? phase : "", additions,
+	         client_fmt(b1, sizeof b1, client_num(rec, "dispensed_ml"), 3), sig);
+	char key[128];
+	snprintf(key, sizeof key, "%s %s %lld", state, phase ? phase : "", additions);
+	if (w->tty) {
+		fprintf(stderr, "\r\033[K%s", w->line);
+		fflush(stderr);
+	} else if (strcmp(key, w->last_key)) {
+		fprintf(stderr, "%s\n", w->line);
+		snprintf(w->last_key, sizeof w->last_key, "%s", key);
+	}
+}
+
 int cmd_wait(int argc, char **argv)
 {
 	static const char usage[] = "wait RUN [--timeout S]";
@@ -235,11 +286,10 @@ int cmd_wait(int argc, char **argv)
 	if (pos != argc - 1 || !client_parse_id(argv[pos], &id))
 		return client_usage(&c, usage, "give one run id (a positive integer)");
 
-	bool tty = isatty(STDERR_FILENO);
-	char path[64], line[256] = "", last_key[128] = "", last_err[1500] = "";
+	watch_t w = {.tty = isatty(STDERR_FILENO), .last_additions = -1, .last_point_ph = NAN};
+	char path[64], last_err[1500] = "";
 	snprintf(path, sizeof path, "/v1/runs/%lld", id);
-	double t0 = client_mono_s(), gone_since = -1, last_point_ph = NAN;
-	long long last_additions = -1;
+	double t0 = client_mono_s(), gone_since = -1;
 	bool seen = false;
 	int rc = CLIENT_EXIT_FAIL;
 	for (;;) {
@@ -263,7 +313,7 @@ int cmd_wait(int argc, char **argv)
 				if (gone_since < 0)
 					gone_since = client_mono_s();
 				if (!seen || client_mono_s() - gone_since > WAIT_UNREACHABLE_S) {
-					if (tty && line[0])
+					if (w.tty && w.line[0])
 						fputc('\n', stderr);
 					client_say(&c, "%s", err);
 					break;
@@ -274,53 +324,18 @@ int cmd_wait(int argc, char **argv)
 			seen = true;
 			const char *state = client_str(rec, "state", "?");
 			if (state_is_final(state)) {
-				if (tty && line[0])
+				if (w.tty && w.line[0])
 					fprintf(stderr, "\r\033[K");
 				print_final(id, rec);
 				rc = strcmp(state, "finished") ? CLIENT_EXIT_FAIL : CLIENT_EXIT_OK;
 				json_decref(rec);
 				break;
 			}
-			const char *phase = client_str(rec, "phase", NULL);
-			json_t *add = json_object_get(rec, "additions");
-			long long additions = json_is_integer(add) ? json_integer_value(add) : 0;
-			double vol_ml = client_num(rec, "dispensed_ml");
-			char b1[32], b2[32], b3[32], sig[64] = "";
-			if (!strcmp(state, "running")) {
-				/* The live reading; when the probe gives only mV, the pH
-				 * of the last point (the engine's calibrated value). */
-				if (additions != last_additions) {
-					last_point_ph = last_point_ph_of(&c, path);
-					last_additions = additions;
-				}
-				json_t *rd = station_reading(&c, client_str(rec, "station", ""));
-				double ph = client_num(rd, "ph");
-				if (!isfinite(ph))
-					ph = last_point_ph;
-				if (rd)
-					snprintf(
-					    sig, sizeof sig, "  pH %s  %s mV",
-					    client_fmt(b2, sizeof b2, ph, 2),
-					    client_fmt(b3, sizeof b3, client_num(rd, "mv"), 1));
-				json_decref(rd);
-			}
-			snprintf(line, sizeof line, "run %lld %s%s%s  additions %lld  %s mL%s", id,
-			         state, phase ? "/" : "", phase ? phase : "", additions,
-			         client_fmt(b1, sizeof b1, vol_ml, 3), sig);
-			char key[128];
-			snprintf(key, sizeof key, "%s %s %lld", state, phase ? phase : "",
-			         additions);
-			if (tty) {
-				fprintf(stderr, "\r\033[K%s", line);
-				fflush(stderr);
-			} else if (strcmp(key, last_key)) {
-				fprintf(stderr, "%s\n", line);
-				snprintf(last_key, sizeof last_key, "%s", key);
-			}
+			show_progress(&c, &w, id, rec, path);
 		}
 		json_decref(rec);
 		if (timeout_s > 0 && client_mono_s() - t0 >= timeout_s) {
-			if (tty && line[0])
+			if (w.tty && w.line[0])
 				fputc('\n', stderr);
 			if (gone_since >= 0)
 				client_say(&c, "%s", last_err);
