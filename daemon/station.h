@@ -87,6 +87,14 @@ double station_capacity_ml(const station_t *s);
 
 void station_snapshot(station_t *s, station_snapshot_t *out);
 
+/* The volume interlock before every dose: the run's total may not pass the
+ * method's volume_max_ml nor the vessel's vessel_max_ml (<= 0: none). A dose
+ * that would is cut to the whole burette steps (quantum_ml) that still fit.
+ * Returns 0 with *allowed_ml (<= dose_ml), or -1 when nothing may be dosed
+ * (also for NaN or non-positive input). Pure; station_run.c uses it. */
+int station_dose_interlock(double dispensed_ml, double dose_ml, double method_max_ml,
+                           double vessel_max_ml, double quantum_ml, double *allowed_ml);
+
 /* A queued run: the method is copied. */
 typedef struct station_job {
 	int64_t run_id;

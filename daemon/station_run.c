@@ -189,6 +189,29 @@ static engine_action_t do_refill(run_t *r)
 	return engine_feed(r->e, &(engine_event_t){.kind = ENGINE_EV_REFILLED, .t_s = t_run(r)});
 }
 
+int station_dose_interlock(double dispensed_ml, double dose_ml, double method_max_ml,
+                           double vessel_max_ml, double quantum_ml, double *allowed_ml)
+{
+	double limit_ml = method_max_ml, room_ml;
+
+	*allowed_ml = 0;
+	if (vessel_max_ml > 0 && vessel_max_ml < limit_ml)
+		limit_ml = vessel_max_ml;
+	if (!isfinite(dispensed_ml) || !isfinite(dose_ml) || !isfinite(limit_ml) ||
+	    !(quantum_ml > 0) || dose_ml <= 0)
+		return -1;
+	if (dispensed_ml + dose_ml <= limit_ml + 1e-9) {
+		*allowed_ml = dose_ml;
+		return 0;
+	}
+	/* Whole steps that still fit; 1e-9 absorbs the rounding of the division. */
+	room_ml = floor((limit_ml - dispensed_ml) / quantum_ml + 1e-9) * quantum_ml;
+	if (room_ml < quantum_ml / 2)
+		return -1;
+	*allowed_ml = room_ml;
+	return 0;
+}
+
 static engine_action_t do_dose(run_t *r, double dose_ml)
 {
 	station_t *s = r->s;
@@ -197,25 +220,25 @@ static engine_action_t do_dose(run_t *r, double dose_ml)
 	drv_burette_status_t bs = {0};
 	double q = engine_dose_quantum_ml(r->e);
 	double limit_ml = m->volume_max_ml;
-	double before_ml, delivered;
+	double before_ml, delivered, allowed_ml;
 	char msg[300];
 	int w;
 
 	/* Interlocks: the method's and the vessel's limits on the run total. */
 	if (s->vessel_max_ml > 0 && s->vessel_max_ml < limit_ml)
 		limit_ml = s->vessel_max_ml;
-	if (r->dispensed_ml + dose_ml > limit_ml + q / 2) {
-		double room = floor((limit_ml - r->dispensed_ml) / q + 1e-9) * q;
-		if (room < q / 2) {
-			snprintf(msg, sizeof msg,
-			         "interlock: a dose of %.4f mL would pass the limit of %.3f mL "
-			         "(%.4f mL dispensed)",
-			         dose_ml, limit_ml, r->dispensed_ml);
-			return feed_fault(r, t_run(r), "volume_interlock", msg);
-		}
+	if (station_dose_interlock(r->dispensed_ml, dose_ml, m->volume_max_ml, s->vessel_max_ml, q,
+	                           &allowed_ml)) {
+		snprintf(msg, sizeof msg,
+		         "interlock: a dose of %.4f mL would pass the limit of %.3f mL "
+		         "(%.4f mL dispensed)",
+		         dose_ml, limit_ml, r->dispensed_ml);
+		return feed_fault(r, t_run(r), "volume_interlock", msg);
+	}
+	if (allowed_ml < dose_ml) {
 		log_warn("station %s run %lld: interlock: dose %.4f mL cut to %.4f mL", s->name,
-		         (long long)r->job->run_id, dose_ml, room);
-		dose_ml = room;
+		         (long long)r->job->run_id, dose_ml, allowed_ml);
+		dose_ml = allowed_ml;
 	}
 	if (!burette_status(r, &bs, &err))
 		return feed_fault(r, t_run(r),
