@@ -136,7 +136,15 @@ static bool ct_equal(const char *a, size_t alen, const char *b, size_t blen)
 	return diff == 0;
 }
 
-static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c)
+void http_set_tokens(http_ctx_t *ctx, const cfg_tokens_t *t)
+{
+	pthread_rwlock_wrlock(&ctx->tokens_lock);
+	ctx->tokens = *t;
+	pthread_rwlock_unlock(&ctx->tokens_lock);
+}
+
+/* The name of the matching token, copied into buf, or NULL. */
+static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *buf, size_t cap)
 {
 	const char *h =
 	    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_AUTHORIZATION);
@@ -149,11 +157,15 @@ static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c)
 	while (*h == ' ')
 		h++;
 	len = strlen(h);
+	pthread_rwlock_rdlock(&ctx->tokens_lock);
 	for (int i = 0; i < ctx->tokens.n; i++) {
 		const cfg_token_t *t = &ctx->tokens.v[i];
-		if (ct_equal(h, len, t->token, strlen(t->token)) && !found)
-			found = t->name;
+		if (ct_equal(h, len, t->token, strlen(t->token)) && !found) {
+			snprintf(buf, cap, "%s", t->name);
+			found = buf;
+		}
 	}
+	pthread_rwlock_unlock(&ctx->tokens_lock);
 	return found;
 }
 
@@ -309,7 +321,7 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	q.conn = c;
 	if (write || ctx->cfg->read_needs_token) {
 		bool open_route = !write && (!strcmp(url, "/v1/health") || http_www_is_static(url));
-		q.token_name = check_token(ctx, c);
+		q.token_name = check_token(ctx, c, q.token_buf, sizeof q.token_buf);
 		if (!q.token_name && !open_route) {
 			const char *h = MHD_lookup_connection_value(c, MHD_HEADER_KIND,
 			                                            MHD_HTTP_HEADER_AUTHORIZATION);

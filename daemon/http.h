@@ -10,6 +10,7 @@
 #define STOPCOCK_HTTP_H
 
 #include <jansson.h>
+#include <pthread.h>
 #include <stdatomic.h>
 #include <stdbool.h>
 #include <stddef.h>
@@ -28,7 +29,8 @@ typedef struct http_ctx {
 	store_t *store;
 	station_t **stations;
 	int n_stations;
-	cfg_tokens_t tokens; /* n == 0: every write gets 401 */
+	cfg_tokens_t tokens;          /* n == 0: every write gets 401; under tokens_lock */
+	pthread_rwlock_t tokens_lock; /* SIGHUP replaces the tokens while requests run */
 	double started_mono_s;
 	/* counters for /metrics */
 	atomic_long requests_2xx, requests_4xx, requests_5xx;
@@ -39,6 +41,10 @@ typedef struct http_server http_server_t;
 
 /* Listen on cfg's address; NULL with a message on failure. */
 http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap);
+/* Replace the write tokens (start-up, SIGHUP); ctx->tokens_lock must be
+ * initialised. */
+void http_set_tokens(http_ctx_t *ctx, const cfg_tokens_t *t);
+
 /* Stop accepting, finish the requests in flight, free. */
 void http_stop(http_server_t *h);
 
@@ -51,7 +57,8 @@ typedef struct http_req {
 	const char *body;   /* NUL-terminated copy, may be NULL */
 	size_t body_len;
 	void *conn;             /* struct MHD_Connection * */
-	const char *token_name; /* who wrote, for the events table */
+	const char *token_name; /* who wrote, for the events table (in token_buf) */
+	char token_buf[64];
 } http_req_t;
 
 typedef struct http_reply {

@@ -176,6 +176,23 @@ static void log_diags(const diag_list_t *d)
 		log_err("%s:%d:%d: %s", d->v[i].file, d->v[i].line, d->v[i].col, d->v[i].msg);
 }
 
+/* (Re)load the write tokens; problems are logged, good lines kept. */
+static void load_tokens(const cfg_t *cfg, http_ctx_t *ctx)
+{
+	static cfg_tokens_t t; /* 8 KiB; only the main thread calls this */
+	diag_list_t td = DIAG_LIST_INIT;
+
+	memset(&t, 0, sizeof t);
+	if (cfg->token_file[0]) {
+		cfg_load_tokens(cfg->token_file, &t, &td);
+		log_diags(&td);
+		diag_free(&td);
+	}
+	if (t.n == 0)
+		log_warn("no valid write tokens: every write request will get 401");
+	http_set_tokens(ctx, &t);
+}
+
 /* Stations answered once (or READY_WAIT_S passed). */
 static void wait_for_stations(station_t **st, int n)
 {
@@ -278,16 +295,13 @@ int main(int argc, char **argv)
 		if (cfg.methods_dir[0] && o.check)
 			load_methods_dir(cfg.methods_dir, &lim, NULL, &d);
 	}
-	if (cfg.token_file[0]) {
+	pthread_rwlock_init(&ctx.tokens_lock, NULL);
+	if (cfg.token_file[0] && o.check) {
 		diag_list_t td = DIAG_LIST_INIT;
-		if (cfg_load_tokens(cfg.token_file, &ctx.tokens, &td) && o.check) {
-			for (size_t i = 0; i < td.n; i++)
-				diag_add(&d, td.v[i].file, td.v[i].line, td.v[i].col, "%s",
-				         td.v[i].msg);
-		} else if (td.n) {
-			log_diags(&td);
-			log_warn("no valid write tokens: every write request will get 401");
-		}
+		cfg_tokens_t t;
+		cfg_load_tokens(cfg.token_file, &t, &td);
+		for (size_t i = 0; i < td.n; i++)
+			diag_add(&d, td.v[i].file, td.v[i].line, td.v[i].col, "%s", td.v[i].msg);
 		diag_free(&td);
 	}
 	if (d.n) {
@@ -301,7 +315,8 @@ int main(int argc, char **argv)
 		goto out;
 	}
 
-	/* 1. Every burette halted, before anything else. */
+	/* 1. Every burette halted, before anything else (tokens are only read). */
+	load_tokens(&cfg, &ctx);
 	for (int i = 0; i < n; i++)
 		if (station_halt_at_start(stations[i], err, sizeof err))
 			log_warn("station %s: could not halt the burette at start: %s (the "
@@ -376,7 +391,8 @@ int main(int argc, char **argv)
 				load_methods_dir(cfg.methods_dir, &lim, store, &md);
 			log_diags(&md);
 			diag_free(&md);
-			log_notice("methods reloaded");
+			load_tokens(&cfg, &ctx);
+			log_notice("methods and tokens reloaded");
 			notify_ready();
 		}
 		if (wd_us) {
@@ -402,6 +418,7 @@ out:
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
 	store_close(store);
+	pthread_rwlock_destroy(&ctx.tokens_lock);
 	diag_free(&d);
 	cfg_free(&cfg);
 	return rc;

@@ -303,6 +303,20 @@ def test_sighup_reloads_methods_dir(bench, tmp_path):
     assert bench.get("/v1/methods/hup-test")["revision"] == 1
 
 
+def test_sighup_reloads_tokens(bench):
+    path = bench.tmp / "token"
+    old = bench.token
+    new = "rotated-" + old[::-1]
+    path.write_text(f"lims:{new}\n")
+    bench.daemon.send_signal(signal.SIGHUP)
+    deadline = time.monotonic() + 10
+    while bench.request("POST", "/v1/stations/sim1/halt", token=new).status != 200:
+        assert time.monotonic() < deadline, "SIGHUP did not load the new token"
+        time.sleep(0.1)
+    assert bench.request("POST", "/v1/stations/sim1/halt", token=old).status == 401
+    bench.token = new
+
+
 def test_read_token_and_connection_limits(bench):
     # Restarts the daemon with reads needing a token and two connections per client.
     text = bench.config.read_text()
