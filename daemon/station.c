@@ -108,6 +108,8 @@ void station_set_error(station_t *s, const char *msg)
 	pthread_mutex_unlock(&s->lock);
 }
 
+static void note_health(station_t *s, const char *what, bool *bad, bool ok, const char *msg);
+
 /* Open what is closed; on every (re)open of the burette halt it first, so a
  * replugged pump never continues a move it was given before. */
 static void open_devices(station_t *s, bool force)
@@ -126,8 +128,7 @@ static void open_devices(station_t *s, bool force)
 				log_warn("station %s: halt after open: %s", s->name, e2.msg);
 			log_info("station %s: burette open", s->name);
 		} else {
-			log_warn("station %s: burette: %s", s->name, err.msg);
-			station_set_error(s, err.msg);
+			note_health(s, "burette", &s->bur_bad, false, err.msg);
 		}
 	}
 	if (!s->probe_open) {
@@ -135,8 +136,7 @@ static void open_devices(station_t *s, bool force)
 			s->probe_open = true;
 			log_info("station %s: probe open", s->name);
 		} else {
-			log_warn("station %s: probe: %s", s->name, err.msg);
-			station_set_error(s, err.msg);
+			note_health(s, "probe", &s->probe_bad, false, err.msg);
 		}
 	}
 	if (s->has_stirrer && !s->stir_open) {
@@ -419,6 +419,20 @@ int station_calib_next(station_t *s, int64_t id, char *err, size_t cap)
 
 /* ---- the thread ---- */
 
+/* Log a device's health only when it changes (a dead probe must not log a
+ * line a second), and keep the last error for GET /v1/stations. */
+static void note_health(station_t *s, const char *what, bool *bad, bool ok, const char *msg)
+{
+	if (!ok) {
+		if (!*bad)
+			log_warn("station %s: %s: %s", s->name, what, msg);
+		station_set_error(s, msg);
+	} else if (*bad) {
+		log_notice("station %s: %s answers again", s->name, what);
+	}
+	*bad = !ok;
+}
+
 static void idle_tick(station_t *s, double *next_read)
 {
 	double now = station_mono_s();
@@ -451,23 +465,24 @@ static void idle_tick(station_t *s, double *next_read)
 	if (now < *next_read)
 		return;
 	*next_read = now + IDLE_READ_S;
-	if (s->probe_open && station_read_probe(s, &r, &err) != DRV_OK) {
-		log_warn("station %s: probe: %s", s->name, err.msg);
-		station_set_error(s, err.msg);
-	}
+	if (s->probe_open)
+		note_health(s, "probe", &s->probe_bad, station_read_probe(s, &r, &err) == DRV_OK,
+		            err.msg);
 	if (s->bur_open) {
-		if (drv_burette_status(&s->bur, &bs, &err) == DRV_OK) {
+		bool ok = drv_burette_status(&s->bur, &bs, &err) == DRV_OK;
+		if (ok) {
 			pthread_mutex_lock(&s->lock);
 			s->snap.has_burette = true;
 			s->snap.burette_total_ml = bs.dispensed_ml;
 			s->snap.contents_ml = bs.contents_ml;
 			pthread_mutex_unlock(&s->lock);
-		} else {
-			log_warn("station %s: burette: %s", s->name, err.msg);
-			station_set_error(s, err.msg);
 		}
+		note_health(s, "burette", &s->bur_bad, ok, err.msg);
 	}
-	set_state(s, s->bur_open && s->probe_open ? "idle" : "offline");
+	if (s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad)
+		station_set_error(s, "");
+	set_state(s, s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad ? "idle"
+	                                                                          : "offline");
 }
 
 static void *station_main(void *arg)

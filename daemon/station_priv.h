@@ -26,6 +26,7 @@ struct station {
 	bool has_stirrer;
 	drv_burette_info_t info;
 	bool bur_open, probe_open, stir_open;
+	bool bur_bad, probe_bad; /* the last idle check failed (logged once) */
 	bool stir_on;
 	double next_open_try_s; /* monotonic, s */
 
