@@ -102,9 +102,10 @@ static int abs_path(const char *p, char *out, size_t cap)
 	return n > 0 && (size_t)n < cap ? 0 : -1;
 }
 
-/* The repository (or installed data) root: the first directory above the
- * executable, or the working directory, that holds config/pumps/sim.yaml. */
-static void find_root(char *out, size_t cap)
+/* Where pumps/sim.yaml and methods/ are: the config/ directory of the
+ * repository holding this executable (in its build directory), or of
+ * the working directory, else the installed data directory. */
+static void find_data(char *out, size_t cap)
 {
 	char exe[PATH_MAX];
 	ssize_t n = readlink("/proc/self/exe", exe, sizeof(exe) - 1);
@@ -117,18 +118,18 @@ static void find_root(char *out, size_t cap)
 			*s = '\0';
 			char probe[PATH_MAX + 32];
 			snprintf(probe, sizeof(probe), "%s/config/pumps/sim.yaml", exe);
-			if (access(probe, R_OK) == 0) {
-				snprintf(out, cap, "%s", exe);
+			int w = snprintf(out, cap, "%s/config", exe);
+			if (access(probe, R_OK) == 0 && w > 0 && (size_t)w < cap)
 				return;
-			}
 		}
 	}
 	char cwd[PATH_MAX];
 	if (getcwd(cwd, sizeof(cwd)) && access("config/pumps/sim.yaml", R_OK) == 0) {
-		snprintf(out, cap, "%s", cwd);
-		return;
+		int w = snprintf(out, cap, "%s/config", cwd);
+		if (w > 0 && (size_t)w < cap)
+			return;
 	}
-	snprintf(out, cap, "%s", STOPCOCK_DATADIR "/..");
+	snprintf(out, cap, "%s", STOPCOCK_DATADIR);
 }
 
 static int write_token(const char *path)
@@ -156,8 +157,8 @@ static int write_token(const char *path)
 
 static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 {
-	char root[PATH_MAX], cfg_abs[PATH_MAX], dir_abs[PATH_MAX], token[PATH_MAX + 16];
-	find_root(root, sizeof(root));
+	char data[PATH_MAX], cfg_abs[PATH_MAX], dir_abs[PATH_MAX], token[PATH_MAX + 16];
+	find_data(data, sizeof(data));
 	if (abs_path(o->config_out, cfg_abs, sizeof(cfg_abs)) != 0)
 		return -1;
 	mkdir(o->state_dir, 0755);
@@ -179,7 +180,7 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	    "  read_needs_token: false\n"
 	    "storage:\n"
 	    "  database: %s/stopcock.db\n"
-	    "methods_dir: %s/config/methods\n"
+	    "methods_dir: %s/methods\n"
 	    "stations:\n"
 	    "  - name: sim1\n"
 	    "    vessel_max_ml: 150\n"
@@ -190,7 +191,7 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	    "      parity: none\n"
 	    "      stop_bits: 1\n"
 	    "      timeout_ms: 500\n"
-	    "      profile: %s/config/pumps/sim.yaml\n"
+	    "      profile: %s/pumps/sim.yaml\n"
 	    "      capacity_ml: %.6g\n"
 	    "      steps: %ld\n"
 	    "    probe:\n"
@@ -214,7 +215,7 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	    "      coil: %d\n"
 	    "      speed_register: %d\n"
 	    "      rpm: 300\n",
-	    cfg_abs, o->listen ? o->listen : "127.0.0.1:8470", token, dir_abs, root, pump_abs, root,
+	    cfg_abs, o->listen ? o->listen : "127.0.0.1:8470", token, dir_abs, data, pump_abs, data,
 	    s->scen.burette.capacity_ml, s->scen.burette.steps, s->tcp_host, s->tcp_port,
 	    SIM_REG_MV, SIM_REG_TEMP, SIM_REG_STATUS, SIM_REG_COUNTER, s->tcp_host, s->tcp_port,
 	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM);
