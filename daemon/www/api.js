@@ -131,7 +131,19 @@ export const get = (path, opts) => api('GET', path, undefined, opts);
 
 // ---- dialogs ----
 
+// One question at a time: polls and a click that need the token while the
+// dialog is open share its answer.
+let asking = null;
+
 export function askToken(note) {
+	if (!asking)
+		asking = ask(note).finally(() => {
+			asking = null;
+		});
+	return asking;
+}
+
+function ask(note) {
 	const dlg = document.getElementById('token-dialog');
 	const input = document.getElementById('token-input');
 	document.getElementById('token-note').textContent = note || '';

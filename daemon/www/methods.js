@@ -131,8 +131,9 @@ export function editorView(root, id) {
 		const m = REVISION_RE.exec(area.value);
 		return m ? Number(m[2]) : null;
 	};
-	const runCheck = async () => {
-		if (!getToken()) {
+	// Typing checks only once the token is there; Check and Save ask for it.
+	const runCheck = async (asked) => {
+		if (!getToken() && asked !== true) {
 			status.textContent = 'Unlock writes (top right) to check the text as you type.';
 			return null;
 		}
@@ -177,18 +178,18 @@ export function editorView(root, id) {
 		if (ev.key === 'Escape') area.dataset.escaped = '1';
 		else if (ev.key !== 'Tab') delete area.dataset.escaped;
 	});
-	check.addEventListener('click', runCheck);
+	check.addEventListener('click', () => runCheck(true));
 	raise.addEventListener('click', () => {
 		const next = Math.max(stored, textRevision() || 0) + 1;
 		area.value = REVISION_RE.test(area.value)
 			? area.value.replace(REVISION_RE, `$1${next}`) : area.value;
 		area.dispatchEvent(new Event('input'));
 		clearTimeout(timer);
-		runCheck();
+		runCheck(true);
 	});
 	save.addEventListener('click', async () => {
 		clearTimeout(timer);
-		const r = await runCheck();
+		const r = await runCheck(true);
 		if (!r) return;
 		if (!r.valid) {
 			status.textContent = 'fix the errors marked at their lines first';

@@ -162,9 +162,13 @@ export function runsView(root) {
 		every_ms: 3000,
 		async refresh() {
 			if (!stationsKnown) {
-				const st = await get('/v1/stations');
-				station.append(...st.stations.map((s) => h('option', {value: s.name}, s.name)));
-				stationsKnown = true;
+				try {
+					const st = await get('/v1/stations');
+					station.append(...st.stations.map((s) => h('option', {value: s.name}, s.name)));
+					stationsKnown = true;
+				} catch (e) {
+					msg.textContent = `stations not read: ${errorText(e)}`;
+				}
 			}
 			const q = new URLSearchParams();
 			if (station.value) q.set('station', station.value);

@@ -134,6 +134,16 @@ async function main() {
 		await page.keyboard.press('Tab');
 		check(await page.evaluate(() => document.activeElement.closest('nav') !== null),
 			'Tab reaches the view links');
+		// The halt button by keyboard: Enter opens the question with the focus
+		// on Cancel; Escape closes it and nothing is halted.
+		await card.locator('button.halt').focus();
+		await page.keyboard.press('Enter');
+		await page.locator('#confirm-dialog[open]').waitFor();
+		check(await page.evaluate(() => document.activeElement.id === 'confirm-no'),
+			'the halt question starts on Cancel');
+		await page.keyboard.press('Escape');
+		await page.locator('#confirm-dialog:not([open])').waitFor({state: 'attached'});
+		check(!requests.some((r) => r.url.includes('/halt')), 'Escape halts nothing');
 		await shot(page, '01-stations');
 
 		// ---- the token: asked once, kept for the tab, never in a URL ----
