@@ -19,10 +19,17 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
 static char path[64];
 
+static void remove_scratch(void)
+{
+	unlink(path);
+}
+
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 {
-	if (!path[0])
+	if (!path[0]) {
 		snprintf(path, sizeof path, "/tmp/stopcock-fuzz-config-%ld.yaml", (long)getpid());
+		atexit(remove_scratch);
+	}
 	FILE *f = fopen(path, "wb");
 	if (!f)
 		abort();

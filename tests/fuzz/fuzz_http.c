@@ -34,6 +34,18 @@ static http_ctx_t ctx;
 static int port;
 static http_server_t *server; /* kept so the server is reachable at exit */
 
+static char db[64];
+
+static void remove_scratch(void)
+{
+	char p[80];
+	unlink(db);
+	snprintf(p, sizeof p, "%s-wal", db);
+	unlink(p);
+	snprintf(p, sizeof p, "%s-shm", db);
+	unlink(p);
+}
+
 static int free_port(void)
 {
 	struct sockaddr_in a = {.sin_family = AF_INET};
@@ -50,11 +62,12 @@ static int free_port(void)
 
 static void start(void)
 {
-	char err[256], db[64];
+	char err[256];
 
 	signal(SIGPIPE, SIG_IGN);
 	snprintf(db, sizeof db, "/tmp/stopcock-fuzz-http-%ld.db", (long)getpid());
 	unlink(db);
+	atexit(remove_scratch);
 	snprintf(cfg.listen_addr, sizeof cfg.listen_addr, "127.0.0.1");
 	/* the daemon's defaults (docs/config.md) */
 	cfg.max_connections = 256;
