@@ -28,14 +28,16 @@ export function calibrationView(root, id) {
 function start(root, msg) {
 	const station = h('select', {id: 'cal-station', name: 'station'});
 	const buffers = h('input', {id: 'cal-buffers', name: 'buffers', value: '4.01, 7.00, 10.01',
-		inputmode: 'decimal', autocomplete: 'off'});
+		inputmode: 'decimal', autocomplete: 'off', 'aria-describedby': 'cal-buffers-hint'});
 	const note = h('p', {class: 'form-note', role: 'status'});
 	const latest = h('div', {class: 'latest'});
 	const form = h('form', {class: 'card start cal-start', 'aria-label': 'start a calibration'},
 		h('h2', {}, 'New calibration'),
 		h('label', {for: 'cal-station'}, 'Station'), station,
-		h('label', {for: 'cal-buffers'}, 'Buffers (pH at 25 °C, in the order you will use them)'),
+		h('label', {for: 'cal-buffers'}, 'Buffers (pH at 25 °C)'),
 		buffers,
+		h('p', {class: 'hint muted', id: 'cal-buffers-hint'},
+			'In the order you will use them; 2 to 5 buffers at least 1 pH apart.'),
 		h('button', {type: 'submit', class: 'primary'}, 'Begin'), note);
 	root.append(h('div', {class: 'run-grid'}, form,
 		h('div', {class: 'card'}, h('h2', {}, 'Latest calibration of the station'), latest)));
