@@ -343,11 +343,14 @@ double client_num(const json_t *o, const char *key)
 
 const char *client_fmt(char *buf, size_t len, double v, int decimals)
 {
-	if (isfinite(v) && decimals < 0)
+	if (isfinite(v) && decimals < 0) {
 		snprintf(buf, len, "%.10g", v);
-	else if (isfinite(v))
+	} else if (isfinite(v)) {
+		/* No "-0.0" for a value that rounds to zero. */
+		if (fabs(v) < 0.5 * pow(10.0, -decimals))
+			v = 0.0;
 		snprintf(buf, len, "%.*f", decimals, v);
-	else
+	} else
 		snprintf(buf, len, "-");
 	return buf;
 }

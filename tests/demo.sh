@@ -61,11 +61,14 @@ run_waited() {
 }
 
 free_port() {
-	/usr/bin/python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'
+	/usr/bin/python3 -c 'import socket
+s = socket.socket()
+s.bind(("127.0.0.1", 0))
+print(s.getsockname()[1])'
 }
 
-scenario=$(ls config/scenarios/*cider*.yaml 2>/dev/null | head -n 1 || true)
-[ -n "$scenario" ] || scenario=tests/demo/cider.yaml
+scenario=config/scenarios/cider-acidity.yaml
+[ -f "$scenario" ] || { echo "demo: $scenario is missing" >&2; exit 1; }
 modbus_port=$(free_port)
 http_port=$(free_port)
 url=http://127.0.0.1:$http_port
@@ -109,7 +112,8 @@ curl -fsS -m 1 "$url/v1/health" >/dev/null || { echo "demo: no /v1/health after 
 # beaker for the simulator (`load` on its control socket) with the same
 # electrode as the cider scenario, made of an acid with pKa equal to the
 # buffer's pH, half neutralized (ideal activities, 25 degC).
-electrode=$(grep -E '^electrode:' "$scenario" || echo 'electrode: {offset_mv: 0.0, slope_pct: 100.0}')
+electrode=$(grep -E '^electrode:' "$scenario" ||
+	echo 'electrode: {offset_mv: 0.0, slope_pct: 100.0}')
 for b in 4.01 7.00 10.01; do
 	cat >"$tmp/buffer-$b.yaml" <<-YAML
 	title: buffer pH $b for the demo calibration

@@ -42,8 +42,10 @@ def free_port():
 
 
 def cider_scenario():
-    found = sorted((ROOT / "config" / "scenarios").glob("*cider*.yaml"))
-    return found[0] if found else ROOT / "tests" / "demo" / "cider.yaml"
+    """The example method's own scenario (config/methods/cider-acidity.yaml)."""
+    p = ROOT / "config" / "scenarios" / "cider-acidity.yaml"
+    assert p.exists(), f"{p} is missing"
+    return p
 
 
 BUFFERS = ("4.01", "7.00", "10.01")
@@ -70,7 +72,8 @@ def buffer_scenarios(tmp):
     """One beaker per calibration buffer, with the cider scenario's electrode: an
     acid with pKa equal to the buffer's pH, half neutralized (ideal activities)."""
     m = re.search(r"(?m)^electrode:.*$", cider_scenario().read_text())
-    electrode = quick_electrode(m.group(0) if m else "electrode: {offset_mv: 0.0, slope_pct: 100.0}")
+    ideal = "electrode: {offset_mv: 0.0, slope_pct: 100.0}"
+    electrode = quick_electrode(m.group(0) if m else ideal)
     paths = {}
     for b in BUFFERS:
         p = tmp / f"buffer-{b}.yaml"
@@ -320,9 +323,10 @@ def test_status_shows_the_station(bench):
     lines = r.stdout.splitlines()
     assert lines[0].split()[:3] == ["STATION", "STATE", "PHASE"]
     row = next(l for l in lines[1:] if l.split()[0] == "sim1")
-    st = next(s for s in bench.get("/v1/stations")
-              if s["name"] == "sim1") if isinstance(bench.get("/v1/stations"), list) else \
-        next(s for s in bench.get("/v1/stations")["stations"] if s["name"] == "sim1")
+    stations = bench.get("/v1/stations")
+    if isinstance(stations, dict):
+        stations = stations["stations"]
+    st = next(s for s in stations if s["name"] == "sim1")
     assert row.split()[1] == st["state"]
     cap = st["burette"]["capacity_ml"]
     assert f"/ {cap:.3f} mL" in row

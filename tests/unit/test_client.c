@@ -132,4 +132,6 @@ TEST(client_escape_and_numbers)
 	CHECK_STR(client_fmt(b, sizeof b, 5.36, -1), "5.36");
 	CHECK_STR(client_fmt(b, sizeof b, 8.0, 4), "8.0000");
 	CHECK_STR(client_fmt(b, sizeof b, NAN, 2), "-");
+	CHECK_STR(client_fmt(b, sizeof b, -0.00004, 1), "0.0");
+	CHECK_STR(client_fmt(b, sizeof b, -0.06, 1), "-0.1");
 }
