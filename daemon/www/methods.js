@@ -8,10 +8,21 @@ const CHECK_DELAY_MS = 700; // after the last keystroke
 export function methodsView(root) {
 	const body = h('tbody');
 	const msg = h('p', {class: 'view-error', role: 'alert'});
+	const newId = h('input', {id: 'new-method', name: 'id', pattern: '[a-z0-9-]+', required: true,
+		autocomplete: 'off', placeholder: 'e.g. orchard-malic'});
+	const create = h('form', {class: 'filters', 'aria-label': 'new method'},
+		h('label', {for: 'new-method'}, 'New method id'), newId,
+		h('button', {type: 'submit'}, 'Write it'));
+	create.addEventListener('submit', (ev) => {
+		ev.preventDefault();
+		location.hash = `#/method/${newId.value}/edit`;
+	});
 	root.append(h('h1', {}, 'Methods'), msg,
 		h('div', {class: 'card'}, h('table', {class: 'methods-table'},
-			h('thead', {}, h('tr', {}, ['method', 'revision', 'revisions kept', 'sha256']
-				.map((c) => h('th', {scope: 'col'}, c)))), body)));
+			h('thead', {}, h('tr', {}, h('th', {scope: 'col'}, 'method'),
+				h('th', {scope: 'col', class: 'num'}, 'revision'),
+				h('th', {scope: 'col', class: 'num'}, 'revisions kept'),
+				h('th', {scope: 'col'}, 'sha256'))), body)), create);
 	return {
 		every_ms: 15000,
 		async refresh() {
