@@ -3,6 +3,8 @@
  * `stopcock ports --test CONFIG [--station NAME]`: talk to the devices a
  * config names, one command a line on stdin, one JSON line each on stdout,
  * to check wiring before the daemon runs (docs/drivers.md). */
+#include <dirent.h>
+#include <limits.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -14,6 +16,34 @@
 #include "cmd.h"
 #include "drv.h"
 #include "yamltree.h"
+
+/* The stable name of a port under /dev/serial/by-id (it survives reboots
+ * and replugging, unlike ttyUSB numbers), or "" when there is none. */
+static void by_id(const char *port, char *out, size_t cap)
+{
+	out[0] = '\0';
+	DIR *d = opendir("/dev/serial/by-id");
+	if (!d)
+		return;
+	char want[PATH_MAX];
+	if (!realpath(port, want)) {
+		closedir(d);
+		return;
+	}
+	struct dirent *e;
+	while ((e = readdir(d))) {
+		if (e->d_name[0] == '.')
+			continue;
+		char link[PATH_MAX], real[PATH_MAX];
+		int n = snprintf(link, sizeof(link), "/dev/serial/by-id/%s", e->d_name);
+		if (n > 0 && (size_t)n < sizeof(link) && realpath(link, real) &&
+		    !strcmp(real, want)) {
+			snprintf(out, cap, "%s", link);
+			break;
+		}
+	}
+	closedir(d);
+}
 
 static int list_ports(void)
 {
@@ -45,6 +75,10 @@ static int list_ports(void)
 		} else if (desc) {
 			printf("  %s", desc);
 		}
+		char stable[PATH_MAX];
+		by_id(sp_get_port_name(p), stable, sizeof(stable));
+		if (stable[0])
+			printf("\n    stable name: %s", stable);
 		printf("\n");
 	}
 	sp_free_port_list(ports);
