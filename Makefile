@@ -14,13 +14,14 @@ DESTDIR ?=
 CC ?= cc
 PYTHON ?= /usr/bin/python3
 BUILD ?= build
+PYTEST_WORKERS ?= 3
 
 PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystemd
 
 # Debian packages the build, the tests, the demo and the benchmarks need.
 DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-dev \
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev \
-	python3 python3-pytest python3-pymodbus python3-serial python3-scipy \
+	python3 python3-pytest python3-pytest-xdist python3-pymodbus python3-serial python3-scipy \
 	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
 	python3-yaml systemd chromium fonts-dejavu-core nodejs
 
@@ -134,10 +135,11 @@ check-run: all san $(REL)/unit_tests
 	$(SAN)/unit_tests
 	@echo "== unit tests (valgrind)"
 	STOPCOCK_QUICK=1 valgrind -q --leak-check=full --error-exitcode=1 $(REL)/unit_tests
-	@echo "== end-to-end tests"
-	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider tests
 	@echo "== fuzzing (libFuzzer, $(CHECK_FUZZ_SECONDS) s per target, two at a time)"
 	@$(MAKE) --no-print-directory fuzz FUZZ_SECONDS=$(CHECK_FUZZ_SECONDS)
+	@echo "== end-to-end tests ($(PYTEST_WORKERS) at a time: they mostly wait on the bench's real time)"
+	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider \
+	  -n $(PYTEST_WORKERS) tests
 
 unit: $(SAN)/unit_tests
 	$(SAN)/unit_tests $(T)
