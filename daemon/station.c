@@ -83,6 +83,8 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 	snprintf(s->snap.state, sizeof s->snap.state, "offline");
 	s->snap.capacity_ml = s->info.capacity_ml;
 	s->snap.vessel_max_ml = s->vessel_max_ml;
+	pthread_mutex_lock(&s->lock);
+	station_unlock(s); /* the first published snapshot */
 	return s;
 }
 
@@ -105,7 +107,7 @@ void station_set_error(station_t *s, const char *msg)
 {
 	pthread_mutex_lock(&s->lock);
 	snprintf(s->snap.last_error, sizeof s->snap.last_error, "%s", msg ? msg : "");
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 }
 
 static void note_health(station_t *s, const char *what, bool *bad, bool ok, const char *msg);
@@ -212,7 +214,7 @@ drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err)
 	} else if (st == DRV_OK) {
 		st = drv_fail(err, DRV_BAD_REPLY, "probe reading is not a number");
 	}
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	return st;
 }
 
@@ -221,7 +223,7 @@ bool station_interrupted(station_t *s, int64_t run_id)
 	bool r;
 	pthread_mutex_lock(&s->lock);
 	r = s->stop_req || s->halt_req || (run_id && s->abort_run == run_id);
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	return r;
 }
 
@@ -234,7 +236,7 @@ bool station_wait_until(station_t *s, double t_mono_s, int64_t run_id)
 		double now = station_mono_s(), until;
 		struct timespec ts;
 		r = s->stop_req || s->halt_req || (run_id && s->abort_run == run_id);
-		s->snap.heartbeat_us = notify_now_us();
+		atomic_store_explicit(&s->heartbeat_us, notify_now_us(), memory_order_relaxed);
 		if (r || now >= t_mono_s)
 			break;
 		/* Wake at least every 250 ms, for the watchdog heartbeat. */
@@ -245,16 +247,41 @@ bool station_wait_until(station_t *s, double t_mono_s, int64_t run_id)
 			ts.tv_nsec = 999999999L;
 		pthread_cond_timedwait(&s->cond, &s->lock, &ts);
 	}
-	pthread_mutex_unlock(&s->lock);
+	pthread_mutex_unlock(&s->lock); /* nothing of snap changed */
 	return r;
+}
+
+void station_unlock(station_t *s)
+{
+	uint_fast64_t n = atomic_load_explicit(&s->ring_seq, memory_order_relaxed) + 1;
+	uint64_t tmp[STATION_SNAP_WORDS] = {0};
+	station_snap_slot_t *slot = &s->ring[n % STATION_RING];
+
+	memcpy(tmp, &s->snap, sizeof s->snap);
+	for (size_t i = 0; i < STATION_SNAP_WORDS; i++)
+		atomic_store_explicit(&slot->w[i], tmp[i], memory_order_relaxed);
+	atomic_store_explicit(&s->ring_seq, n, memory_order_release);
+	pthread_mutex_unlock(&s->lock);
 }
 
 void station_snapshot(station_t *s, station_snapshot_t *out)
 {
 	double now = station_mono_s();
-	pthread_mutex_lock(&s->lock);
-	*out = s->snap;
-	pthread_mutex_unlock(&s->lock);
+	uint64_t tmp[STATION_SNAP_WORDS];
+
+	/* Slot a is rewritten only when the writer publishes a + STATION_RING,
+	 * so a copy is whole if fewer than STATION_RING - 1 came after it. */
+	for (;;) {
+		uint_fast64_t a = atomic_load_explicit(&s->ring_seq, memory_order_acquire);
+		const station_snap_slot_t *slot = &s->ring[a % STATION_RING];
+		for (size_t i = 0; i < STATION_SNAP_WORDS; i++)
+			tmp[i] = atomic_load_explicit(&slot->w[i], memory_order_relaxed);
+		atomic_thread_fence(memory_order_acquire);
+		if (atomic_load_explicit(&s->ring_seq, memory_order_relaxed) - a < STATION_RING - 1)
+			break;
+	}
+	memcpy(out, tmp, sizeof *out);
+	out->heartbeat_us = atomic_load_explicit(&s->heartbeat_us, memory_order_relaxed);
 	/* snap.reading_age_s holds the reading's monotonic time */
 	out->reading_age_s = out->has_reading ? now - out->reading_age_s : 0.0;
 	if (out->reading_age_s < 0)
@@ -265,7 +292,7 @@ static void set_state(station_t *s, const char *state)
 {
 	pthread_mutex_lock(&s->lock);
 	snprintf(s->snap.state, sizeof s->snap.state, "%s", state);
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 }
 
 void station_abort_queued(station_t *s, station_job_t *job, const char *why)
@@ -306,13 +333,13 @@ static void calib_store(station_t *s)
 
 	pthread_mutex_lock(&s->lock);
 	if (!s->cal) {
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		return;
 	}
 	state = calib_session_state(s->cal);
 	calib_session_result(s->cal, store_now_unix_s(), &res);
 	s->cal_dirty = false;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	j = calib_result_json(&res);
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(j);
@@ -336,7 +363,7 @@ static void calib_step(station_t *s)
 
 	pthread_mutex_lock(&s->lock);
 	before = s->cal ? calib_session_state(s->cal) : CALIB_ACCEPTED;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	if (before != CALIB_MEASURING)
 		return;
 	cr.t_s = station_mono_s();
@@ -348,7 +375,7 @@ static void calib_step(station_t *s)
 	}
 	pthread_mutex_lock(&s->lock);
 	after = s->cal ? calib_session_feed(s->cal, &cr) : before;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	if (after != before)
 		calib_store(s);
 }
@@ -362,17 +389,17 @@ int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_
 	*bad_input = false;
 	pthread_mutex_lock(&s->lock);
 	if (s->snap.run_id || s->qn) {
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		snprintf(err, cap, "station %s has a run; calibrate between runs", s->name);
 		return -1;
 	}
 	if (s->cal && calib_session_state(s->cal) == CALIB_MEASURING) {
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		snprintf(err, cap, "station %s is measuring calibration %lld", s->name,
 		         (long long)s->cal_id);
 		return -1;
 	}
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	cs = calib_session_new(&s->cal_cfg, buffers, n, err, cap);
 	if (!cs) {
 		*bad_input = true;
@@ -388,7 +415,7 @@ int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_
 	calib_session_free(s->cal);
 	s->cal = cs;
 	s->cal_id = id;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	calib_store(s);
 	*id_out = id;
 	return 0;
@@ -400,20 +427,20 @@ int station_calib_next(station_t *s, int64_t id, char *err, size_t cap)
 
 	pthread_mutex_lock(&s->lock);
 	if (!s->cal || s->cal_id != id) {
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		snprintf(err, cap, "calibration %lld is not the current one of station %s",
 		         (long long)id, s->name);
 		return -1;
 	}
 	if (s->snap.run_id) {
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		snprintf(err, cap, "station %s has a run", s->name);
 		return -1;
 	}
 	rc = calib_session_next(s->cal, station_mono_s(), err, cap);
 	s->cal_dirty = true;
 	pthread_cond_broadcast(&s->cond);
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	return rc;
 }
 
@@ -446,14 +473,14 @@ static void idle_tick(station_t *s, double *next_read)
 	measuring = s->cal && calib_session_state(s->cal) == CALIB_MEASURING;
 	if (s->halt_req) {
 		s->halt_req = false;
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		station_halt_burette(s, "halt requested");
 		pthread_mutex_lock(&s->lock);
 	}
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	pthread_mutex_lock(&s->lock);
 	dirty = s->cal_dirty;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	if (dirty)
 		calib_store(s);
 	if (measuring) {
@@ -475,7 +502,7 @@ static void idle_tick(station_t *s, double *next_read)
 			s->snap.has_burette = true;
 			s->snap.burette_total_ml = bs.dispensed_ml;
 			s->snap.contents_ml = bs.contents_ml;
-			pthread_mutex_unlock(&s->lock);
+			station_unlock(s);
 		}
 		note_health(s, "burette", &s->bur_bad, ok, err.msg);
 	}
@@ -494,9 +521,9 @@ static void *station_main(void *arg)
 	for (;;) {
 		station_job_t *job = NULL;
 		pthread_mutex_lock(&s->lock);
-		s->snap.heartbeat_us = notify_now_us();
+		atomic_store_explicit(&s->heartbeat_us, notify_now_us(), memory_order_relaxed);
 		if (s->stop_req) {
-			pthread_mutex_unlock(&s->lock);
+			station_unlock(s);
 			break;
 		}
 		if (s->qn && !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
@@ -508,7 +535,7 @@ static void *station_main(void *arg)
 			if (s->abort_run == job->run_id)
 				s->abort_run = 0;
 		}
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		if (job) {
 			set_state(s, "running");
 			station_run_job(s, job);
@@ -518,7 +545,7 @@ static void *station_main(void *arg)
 			s->snap.phase[0] = '\0';
 			s->snap.runs_done++;
 			s->halt_req = false;
-			pthread_mutex_unlock(&s->lock);
+			station_unlock(s);
 			set_state(s, s->bur_open && s->probe_open ? "idle" : "offline");
 			continue;
 		}
@@ -527,10 +554,10 @@ static void *station_main(void *arg)
 		/* a halt while idle is handled by idle_tick; stop ends the loop */
 		pthread_mutex_lock(&s->lock);
 		if (s->halt_req && !s->stop_req) {
-			pthread_mutex_unlock(&s->lock);
+			station_unlock(s);
 			idle_tick(s, &next_read);
 		} else {
-			pthread_mutex_unlock(&s->lock);
+			station_unlock(s);
 		}
 	}
 	/* Shutting down: halt the burette, end queued runs. */
@@ -542,12 +569,12 @@ static void *station_main(void *arg)
 	pthread_mutex_lock(&s->lock);
 	while (s->qn) {
 		station_job_t *job = s->queue[--s->qn];
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		station_abort_queued(s, job, "the daemon stopped before the run started");
 		free(job);
 		pthread_mutex_lock(&s->lock);
 	}
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	return NULL;
 }
 
@@ -564,7 +591,7 @@ static void load_valid_cal(station_t *s)
 	s->has_valid_cal = j && calib_result_from_json(j, &c) == 0;
 	if (s->has_valid_cal)
 		s->valid_cal = c;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	json_decref(j);
 }
 
@@ -585,7 +612,7 @@ void station_stop(station_t *s)
 	pthread_mutex_lock(&s->lock);
 	s->stop_req = true;
 	pthread_cond_broadcast(&s->cond);
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	pthread_join(s->thread, NULL);
 	s->started = false;
 }
@@ -616,14 +643,14 @@ int station_enqueue(station_t *s, const station_job_t *job)
 	*copy = *job;
 	pthread_mutex_lock(&s->lock);
 	if (s->qn >= STATION_QUEUE_MAX || s->stop_req) {
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		free(copy);
 		return -1;
 	}
 	s->queue[s->qn++] = copy;
 	s->snap.queued = s->qn;
 	pthread_cond_broadcast(&s->cond);
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	return 0;
 }
 
@@ -635,7 +662,7 @@ station_cmd_t station_abort(station_t *s, int64_t run_id)
 	if (s->snap.run_id == run_id) {
 		s->abort_run = run_id;
 		pthread_cond_broadcast(&s->cond);
-		pthread_mutex_unlock(&s->lock);
+		station_unlock(s);
 		return STATION_CMD_OK;
 	}
 	for (int i = 0; i < s->qn; i++) {
@@ -647,7 +674,7 @@ station_cmd_t station_abort(station_t *s, int64_t run_id)
 		s->snap.queued = s->qn;
 		break;
 	}
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	if (!job)
 		return STATION_CMD_NOT_HERE;
 	station_abort_queued(s, job, "aborted before it started");
@@ -660,6 +687,6 @@ station_cmd_t station_halt(station_t *s)
 	pthread_mutex_lock(&s->lock);
 	s->halt_req = true;
 	pthread_cond_broadcast(&s->cond);
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	return STATION_CMD_OK;
 }

@@ -3,6 +3,7 @@
 #define STOPCOCK_STATION_PRIV_H
 
 #include <pthread.h>
+#include <stdatomic.h>
 #include <stdbool.h>
 #include <stdint.h>
 
@@ -12,6 +13,14 @@
 #include "store.h"
 
 #define STATION_QUEUE_MAX 32
+#define STATION_RING      8 /* published snapshots; a reader retries if lapped */
+
+/* One published snapshot as relaxed atomic words: a seqlock whose data are
+ * atomics is race-free in C11 terms (and to ThreadSanitizer). */
+#define STATION_SNAP_WORDS ((sizeof(station_snapshot_t) + 7) / 8)
+typedef struct station_snap_slot {
+	_Atomic uint64_t w[STATION_SNAP_WORDS];
+} station_snap_slot_t;
 
 struct station {
 	char name[CFG_NAME_MAX];
@@ -42,6 +51,13 @@ struct station {
 	station_job_t *queue[STATION_QUEUE_MAX];
 	int qn;
 	station_snapshot_t snap;
+	/* Published copies of snap for readers (HTTP threads), so a burst of
+	 * GET /v1/stations never takes `lock`, which the station thread needs on
+	 * every wake-up (a niced reader preempted while holding it would delay
+	 * an addition). Written under `lock`; read lock-free (station.c). */
+	station_snap_slot_t ring[STATION_RING];
+	atomic_uint_fast64_t ring_seq;
+	atomic_uint_fast64_t heartbeat_us; /* notify_now_us() of the last loop */
 
 	calib_config_t cal_cfg;
 	calib_session_t *cal; /* the station's calibration, NULL when none */
@@ -50,6 +66,9 @@ struct station {
 	bool has_valid_cal; /* valid_cal: latest accepted calibration, for live pH */
 	calib_result_t valid_cal;
 };
+
+/* Publish snap for readers and release `lock` (use after any change of snap). */
+void station_unlock(station_t *s);
 
 /* Monotonic clock, s. */
 double station_mono_s(void);

@@ -65,7 +65,7 @@ static void publish(run_t *r)
 	pthread_mutex_lock(&s->lock);
 	snprintf(s->snap.phase, sizeof s->snap.phase, "%s", ph ? ph : "");
 	s->snap.dispensed_ml = r->dispensed_ml;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	if (ph && strcmp(ph, r->last_phase)) {
 		char *text = record_text(r);
 		snprintf(r->last_phase, sizeof r->last_phase, "%s", ph);
@@ -136,7 +136,7 @@ static bool burette_status(run_t *r, drv_burette_status_t *bs, drv_err_t *err)
 	r->s->snap.has_burette = true;
 	r->s->snap.burette_total_ml = bs->dispensed_ml;
 	r->s->snap.contents_ml = bs->contents_ml;
-	pthread_mutex_unlock(&r->s->lock);
+	station_unlock(r->s);
 	return true;
 }
 
@@ -267,7 +267,7 @@ static engine_action_t do_dose(run_t *r, double dose_ml)
 		return feed_fault(r, t_run(r), "burette_dose", err.msg);
 	pthread_mutex_lock(&s->lock);
 	s->snap.additions_total++;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 	w = wait_move(r, &bs, msg, sizeof msg);
 	delivered = bs.dispensed_ml - before_ml;
 	if (delivered < 0 || !isfinite(delivered))
@@ -496,7 +496,7 @@ static void note_lateness(station_t *s, double late_s)
 	s->snap.wake_late_sum_s += late_s;
 	if (late_s > s->snap.wake_late_max_s)
 		s->snap.wake_late_max_s = late_s;
-	pthread_mutex_unlock(&s->lock);
+	station_unlock(s);
 }
 
 void station_run_job(station_t *s, station_job_t *job)

@@ -103,7 +103,7 @@ sleep 1
 for c in $WRK_CONNS; do
 	# wrk runs at the HTTP workers' niceness (+5): on one machine a load generator
 	# that outranks the server measures the scheduler, not the server.
-	nice -n 5 wrk -t2 -c"$c" -d"${WRK_S}s" --latency "$URL/v1/stations" >"$TMP/wrk-$c.txt" 2>&1 || true
+	nice -n 5 wrk -t2 -c"$c" -d"${WRK_S}s" --latency "$URL${WRK_PATH:-/v1/stations}" >"$TMP/wrk-$c.txt" 2>&1 || true
 done
 STATE2=$(wait_run "$RUN")
 read -r C1 S1 M1 < <(lateness)
@@ -122,5 +122,9 @@ for c in $WRK_CONNS; do
 done
 echo "  load average: $(cut -d' ' -f1-3 /proc/loadavg) (other work on the machine skews these figures)"
 echo "  run without load: $STATE; run under load: $STATE2"
+if [ "$STATE" != finished ] || [ "$STATE2" != finished ]; then
+	echo "  daemon log (faults):"
+	grep -E "error|warning" "$TMP/daemon.log" | tail -5 | sed 's/^/    /'
+fi
 jitter_line "jitter without load" "$C0" "$S0" "$M0"
 jitter_line "jitter under load" "$C1" "$S1" "$M1"
