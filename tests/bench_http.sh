@@ -19,7 +19,7 @@ D_PID=""
 cleanup() {
 	[ -n "$D_PID" ] && kill "$D_PID" 2>/dev/null && wait "$D_PID" 2>/dev/null || true
 	[ -n "$SIM_PID" ] && kill "$SIM_PID" 2>/dev/null && wait "$SIM_PID" 2>/dev/null || true
-	rm -rf "$TMP"
+	if [ -n "${KEEP_TMP:-}" ]; then echo "bench_http: kept $TMP"; else rm -rf "$TMP"; fi
 }
 trap cleanup EXIT
 
