@@ -138,8 +138,11 @@ check-run: all san $(REL)/unit_tests
 	@echo "== fuzzing (libFuzzer, $(CHECK_FUZZ_SECONDS) s per target, two at a time)"
 	@$(MAKE) --no-print-directory fuzz FUZZ_SECONDS=$(CHECK_FUZZ_SECONDS)
 	@echo "== end-to-end tests ($(PYTEST_WORKERS) at a time: they mostly wait on the bench's real time)"
-	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider \
-	  -n $(PYTEST_WORKERS) tests
+	@rm -f $(BUILD)/figures.txt
+	STOPCOCK_BUILD=$(abspath $(BUILD)) STOPCOCK_FIGURES=$(abspath $(BUILD))/figures.txt \
+	  $(PYTHON) -m pytest -q -p no:cacheprovider -n $(PYTEST_WORKERS) --dist loadfile tests
+	@echo "== reliability figures (docs/reliability.md)"
+	@cat $(BUILD)/figures.txt 2>/dev/null || true
 
 unit: $(SAN)/unit_tests
 	$(SAN)/unit_tests $(T)
