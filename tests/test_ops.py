@@ -311,8 +311,10 @@ def test_daemon_talks_to_systemd(tmp_path):
             if r:
                 got.append((time.monotonic(), sock.recv(4096).decode()))
 
-    # 2 s: room for a loaded test machine; production uses WatchdogSec=30s.
-    watchdog_s = 2.0
+    # 6 s (station heartbeats may be 3 s old): room for a loaded test machine,
+    # where an fsync can stall a station thread for a second; production uses
+    # WatchdogSec=30s.
+    watchdog_s = 6.0
     env = dict(os.environ, NOTIFY_SOCKET=str(sock_path),
                WATCHDOG_USEC=str(int(watchdog_s * 1e6)))
     env.pop("WATCHDOG_PID", None)
@@ -333,12 +335,12 @@ def test_daemon_talks_to_systemd(tmp_path):
             # systemd kills the service when a whole WatchdogSec passes without
             # one; the daemon aims at one every WatchdogSec/4.
             t0 = time.monotonic()
-            drain(2 * watchdog_s)
+            drain(1.5 * watchdog_s)
             pings = [t for t, m in got if m == "WATCHDOG=1" and t >= t0]
-            assert len(pings) >= 4, f"{len(pings)} pings in {2 * watchdog_s} s: {got[-10:]}"
+            assert len(pings) >= 3, f"{len(pings)} pings in {1.5 * watchdog_s} s: {got[-10:]}"
             gaps = [b - a for a, b in zip(pings, pings[1:])] + [pings[0] - t0]
             assert max(gaps) < watchdog_s, f"longest gap between pings {max(gaps):.2f} s"
-            print(f"sd_notify: {len(pings)} pings in {2 * watchdog_s:.0f} s, "
+            print(f"sd_notify: {len(pings)} pings in {1.5 * watchdog_s:.0f} s, "
                   f"longest gap {max(gaps):.3f} s (WatchdogSec {watchdog_s} s)")
             assert any(m.startswith("STATUS=") for _, m in got), got
             # SIGHUP: reload, then ready again.
