@@ -23,7 +23,7 @@ done
 run_one() {
 	local t=$1
 	mkdir -p "$dir/work/$t" "$dir/crashes/$t"
-	"$dir/bin/fuzz_$t" -max_total_time="$secs" -timeout=20 -rss_limit_mb=2048 \
+	"$dir/bin/fuzz_$t" -max_total_time="$secs" -timeout=60 -rss_limit_mb=2048 \
 		-max_len=8192 -print_final_stats=1 -artifact_prefix="$dir/crashes/$t/" \
 		"$dir/work/$t" "tests/fuzz/corpus/$t" >"$dir/$t.log" 2>&1
 	echo $? >"$dir/$t.rc"
