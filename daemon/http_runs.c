@@ -37,7 +37,12 @@ static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, ch
 	if (s.has_reading && s.ph_from_probe)
 		return true;
 	store_time_rfc3339(store_now_unix_s(), now);
-	j = store_calib_latest(ctx->store, station_name(st), false, now, &db_err);
+	/* A valid accepted calibration counts even when a newer one was started
+	 * and left unfinished; only without one does the latest of any state
+	 * explain the refusal (rejected, expired, still in progress). */
+	j = store_calib_latest(ctx->store, station_name(st), true, now, &db_err);
+	if (!j)
+		j = store_calib_latest(ctx->store, station_name(st), false, now, &db_err);
 	if (j && calib_result_from_json(j, &cal) == 0)
 		ok = calib_check_for_run(&cal, station_name(st), store_now_unix_s(), msg, cap);
 	else

@@ -347,7 +347,9 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 	if (store_titrant_get(s->store, m->titrant_name, &titer) != STORE_OK || !(titer > 0))
 		titer = 1.0;
 	p->titer = titer;
-	if (store_blank_get(s->store, m->id, &blank) == STORE_OK) {
+	/* Blanks belong to the titrant (docs/calibration.md): a blank run of
+	 * one method serves every assay that uses the same titrant. */
+	if (store_blank_get(s->store, m->titrant_name, &blank) == STORE_OK) {
 		p->has_blank = true;
 		p->blank_ml = blank;
 	}
@@ -420,7 +422,7 @@ static void keep_outcome(run_t *r)
 			}
 		}
 	} else if (m->purpose == PURPOSE_BLANK && engine_n_endpoints(r->e) > 0) {
-		store_blank_set(r->s->store, m->id, engine_endpoint(r->e, 0)->volume_ml, at,
+		store_blank_set(r->s->store, m->titrant_name, engine_endpoint(r->e, 0)->volume_ml, at,
 		                r->job->run_id);
 	}
 }
