@@ -23,7 +23,7 @@ DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-d
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev \
 	python3 python3-pytest python3-pytest-xdist python3-pymodbus python3-serial python3-scipy \
 	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
-	python3-yaml systemd chromium fonts-dejavu-core nodejs
+	python3-yaml systemd strace chromium fonts-dejavu-core nodejs
 
 VERSION := 0.1.0
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS))
