@@ -92,50 +92,58 @@ const drv_stirrer_ops_t *drv_find_stirrer(const char *name)
 	return NULL;
 }
 
-/* Read `driver:`; on an unknown name list the known ones. */
-static bool driver_word(const yt_doc_t *doc, const yt_node_t *cfg, const char *what,
-                        const char *const *names, char *out, size_t cap, const yt_node_t **at,
-                        diag_list_t *d)
+static const char *burette_name(size_t i)
 {
+	return burettes[i] ? burettes[i]->name : NULL;
+}
+
+static const char *probe_name(size_t i)
+{
+	return probes[i] ? probes[i]->name : NULL;
+}
+
+static const char *stirrer_name(size_t i)
+{
+	return stirrers[i] ? stirrers[i]->name : NULL;
+}
+
+/* Read `driver:` and return the index of that driver in its kind's table
+ * (`name_at(i)` is entry i's name, NULL past the end); on an unknown name
+ * list the known ones. -1 with the error added. */
+static int driver_index(const yt_doc_t *doc, const yt_node_t *cfg, const char *what,
+                        const char *(*name_at)(size_t), diag_list_t *d)
+{
+	char out[64];
 	if (!yt_want_map(doc, cfg, what, d))
-		return false;
+		return -1;
 	const yt_node_t *n = yt_get(cfg, "driver");
 	if (!n) {
 		yt_missing(doc, cfg, "driver", what, d);
-		return false;
+		return -1;
 	}
-	*at = n;
-	if (!yt_string(doc, n, "driver", out, cap, d))
-		return false;
-	for (size_t i = 0; names[i]; i++)
-		if (!strcmp(names[i], out))
-			return true;
+	if (!yt_string(doc, n, "driver", out, sizeof(out), d))
+		return -1;
+	for (size_t i = 0; name_at(i); i++)
+		if (!strcmp(name_at(i), out))
+			return (int)i;
 	char known[256] = "";
-	for (size_t i = 0; names[i]; i++) {
+	for (size_t i = 0; name_at(i); i++) {
 		size_t l = strlen(known);
-		snprintf(known + l, sizeof(known) - l, "%s%s", i ? ", " : "", names[i]);
+		snprintf(known + l, sizeof(known) - l, "%s%s", i ? ", " : "", name_at(i));
 	}
 	yt_error(doc, n, d, "unknown %s driver '%s' (known: %s)", what, out, known);
-	return false;
+	return -1;
 }
 
 int drv_probe_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_probe_t *out, diag_list_t *d)
 {
-	memset(out, 0, sizeof(*out));
-	const char *names[sizeof(probes) / sizeof(probes[0])];
-	size_t k = 0;
-	for (; probes[k]; k++)
-		names[k] = probes[k]->name;
-	names[k] = NULL;
-	char w[64];
-	const yt_node_t *at;
-	if (!driver_word(doc, cfg, "probe", names, w, sizeof(w), &at, d))
-		return -1;
-	const drv_probe_ops_t *ops = drv_find_probe(w);
 	void *priv = NULL;
-	if (ops->configure(doc, cfg, &priv, d) != 0)
+	int i;
+	memset(out, 0, sizeof(*out));
+	i = driver_index(doc, cfg, "probe", probe_name, d);
+	if (i < 0 || probes[i]->configure(doc, cfg, &priv, d) != 0)
 		return -1;
-	out->ops = ops;
+	out->ops = probes[i];
 	out->priv = priv;
 	return 0;
 }
@@ -143,21 +151,13 @@ int drv_probe_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_probe_t *
 int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette_t *out,
                           diag_list_t *d)
 {
-	memset(out, 0, sizeof(*out));
-	const char *names[sizeof(burettes) / sizeof(burettes[0])];
-	size_t k = 0;
-	for (; burettes[k]; k++)
-		names[k] = burettes[k]->name;
-	names[k] = NULL;
-	char w[64];
-	const yt_node_t *at;
-	if (!driver_word(doc, cfg, "burette", names, w, sizeof(w), &at, d))
-		return -1;
-	const drv_burette_ops_t *ops = drv_find_burette(w);
 	void *priv = NULL;
-	if (ops->configure(doc, cfg, &priv, d) != 0)
+	int i;
+	memset(out, 0, sizeof(*out));
+	i = driver_index(doc, cfg, "burette", burette_name, d);
+	if (i < 0 || burettes[i]->configure(doc, cfg, &priv, d) != 0)
 		return -1;
-	out->ops = ops;
+	out->ops = burettes[i];
 	out->priv = priv;
 	return 0;
 }
@@ -165,21 +165,13 @@ int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette
 int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer_t *out,
                           diag_list_t *d)
 {
-	memset(out, 0, sizeof(*out));
-	const char *names[sizeof(stirrers) / sizeof(stirrers[0])];
-	size_t k = 0;
-	for (; stirrers[k]; k++)
-		names[k] = stirrers[k]->name;
-	names[k] = NULL;
-	char w[64];
-	const yt_node_t *at;
-	if (!driver_word(doc, cfg, "stirrer", names, w, sizeof(w), &at, d))
-		return -1;
-	const drv_stirrer_ops_t *ops = drv_find_stirrer(w);
 	void *priv = NULL;
-	if (ops->configure(doc, cfg, &priv, d) != 0)
+	int i;
+	memset(out, 0, sizeof(*out));
+	i = driver_index(doc, cfg, "stirrer", stirrer_name, d);
+	if (i < 0 || stirrers[i]->configure(doc, cfg, &priv, d) != 0)
 		return -1;
-	out->ops = ops;
+	out->ops = stirrers[i];
 	out->priv = priv;
 	return 0;
 }
