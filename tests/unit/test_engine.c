@@ -13,31 +13,12 @@
 #include "chem.h"
 #include "endpoint.h"
 #include "engine.h"
+#include "fixtures.h"
 #include "harness.h"
 #include "method.h"
 #include "simrun.h"
 
 /* ---- helpers shared by the engine tests ---- */
-
-static bool load_method(const char *yaml, method_t *m)
-{
-	diag_list_t d = DIAG_LIST_INIT;
-	int rc = method_parse("test-method", yaml, strlen(yaml), NULL, m, &d);
-	if (rc != 0)
-		diag_print(&d, stderr);
-	diag_free(&d);
-	return rc == 0;
-}
-
-static bool load_scenario(const char *yaml, chem_scenario_t *s)
-{
-	diag_list_t d = DIAG_LIST_INIT;
-	int rc = scenario_parse("test-scenario", yaml, strlen(yaml), s, &d);
-	if (rc != 0)
-		diag_print(&d, stderr);
-	diag_free(&d);
-	return rc == 0;
-}
 
 /* A method like the benchmark's: adaptive, 0.5 pH per addition. `extra`
  * replaces the detect/stop part. */
@@ -62,7 +43,7 @@ static bool make_method(method_t *m, const char *titrant, const char *detect_sto
 	         "    unit: mol/L\n"
 	         "    decimals: 5\n",
 	         titrant, detect_stop);
-	return load_method(buf, m);
+	return fixture_method(buf, m);
 }
 
 #define ELECTRODE                                                                                  \
@@ -79,7 +60,7 @@ static bool make_scenario(chem_scenario_t *s, const char *sample, const char *ti
 	         "sample:\n  - %s\ntitrant:\n  - %s\n" ELECTRODE
 	         "burette: {capacity_ml: %g, steps: %ld}\n",
 	         sample, titrant, cap_ml, (long)(cap_ml * 2000));
-	return load_scenario(buf, s);
+	return fixture_scenario(buf, s);
 }
 
 #define NAOH  "{name: sodium hydroxide, molar: 0.1000, strong: base}"
@@ -452,7 +433,7 @@ TEST(engine_signal_mv_falling)
 	method_t m;
 	chem_scenario_t s;
 	REQUIRE(
-	    load_method("method: test-method\ntitle: mV\nrevision: 1\npurpose: assay\n"
+	    fixture_method("method: test-method\ntitle: mV\nrevision: 1\npurpose: assay\n"
 	                "titrant: {name: NaOH, molarity: 0.1000}\n"
 	                "sample: {unit: mL, min: 1.0, max: 50.0}\nsignal: mv\n"
 	                "start: {stir_s: 5, predose_ml: 0.0}\n"
@@ -530,7 +511,7 @@ TEST(engine_still_window_between_readings)
 TEST(engine_target_must_hold)
 {
 	method_t m;
-	REQUIRE(load_method("method: test-method\ntitle: hold\nrevision: 1\npurpose: assay\n"
+	REQUIRE(fixture_method("method: test-method\ntitle: hold\nrevision: 1\npurpose: assay\n"
 	                    "titrant: {name: NaOH, molarity: 0.1000}\n"
 	                    "sample: {unit: mL, min: 1.0, max: 50.0}\nsignal: ph\n"
 	                    "start: {stir_s: 0, predose_ml: 0.0}\n"

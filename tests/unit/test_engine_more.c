@@ -8,30 +8,11 @@
 
 #include "chem.h"
 #include "engine.h"
+#include "fixtures.h"
 #include "harness.h"
 #include "method.h"
 #include "record.h"
 #include "simrun.h"
-
-static bool parse_m(const char *yaml, method_t *m)
-{
-	diag_list_t d = DIAG_LIST_INIT;
-	int rc = method_parse("test-method", yaml, strlen(yaml), NULL, m, &d);
-	if (rc != 0)
-		diag_print(&d, stderr);
-	diag_free(&d);
-	return rc == 0;
-}
-
-static bool parse_s(const char *yaml, chem_scenario_t *s)
-{
-	diag_list_t d = DIAG_LIST_INIT;
-	int rc = scenario_parse("test-scenario", yaml, strlen(yaml), s, &d);
-	if (rc != 0)
-		diag_print(&d, stderr);
-	diag_free(&d);
-	return rc == 0;
-}
 
 #define HEAD                                                                                       \
 	"method: test-method\ntitle: t\nrevision: 1\npurpose: assay\n"                             \
@@ -56,12 +37,12 @@ TEST(engine_target_endpoint)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(parse_m(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.005, "
+	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.005, "
 	                     "dose_max_ml: 1.0}\n"
 	                     "detect: {kind: target, target: 8.20}\n"
 	                     "stop: {past_endpoint_ml: 0.0, volume_max_ml: 20, time_max_s: 3600}\n",
 	                &m));
-	REQUIRE(parse_s(VINEGAR, &s));
+	REQUIRE(fixture_scenario(VINEGAR, &s));
 	double lo = 5, hi = 10.5;
 	for (int i = 0; i < 60; i++) {
 		double mid = (lo + hi) / 2;
@@ -97,12 +78,12 @@ TEST(engine_gran_endpoint)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(parse_m(HEAD "dosing: {mode: adaptive, step_aim: 0.3, dose_min_ml: 0.02, "
+	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.3, dose_min_ml: 0.02, "
 	                     "dose_max_ml: 0.5}\n"
 	                     "detect: {kind: gran, count: 1}\n"
 	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n",
 	                &m));
-	REQUIRE(parse_s("activity: ideal\n" VINEGAR, &s));
+	REQUIRE(fixture_scenario("activity: ideal\n" VINEGAR, &s));
 	simrun_opts_t o = {.seed = 22, .burette_start_ml = -1};
 	simrun_out_t out;
 	engine_t *e = simrun_run(&m, &s, &o, &out);
@@ -123,14 +104,14 @@ TEST(engine_textbook_weak_acid)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(parse_m(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.05, "
+	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.05, "
 	                     "dose_max_ml: 4.0}\n"
 	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
 	                     "stop: {past_endpoint_ml: 2.0, volume_max_ml: 60, time_max_s: 3600}\n"
 	                     "results:\n  - name: half\n    formula: half1_ph\n    unit: pH\n"
 	                     "    decimals: 2\n",
 	                &m));
-	REQUIRE(parse_s("temperature_c: 25\nactivity: ideal\npkw: 14.0\nsample_ml: 50.0\n"
+	REQUIRE(fixture_scenario("temperature_c: 25\nactivity: ideal\npkw: 14.0\nsample_ml: 50.0\n"
 	                "water_ml: 0.0\n"
 	                "sample:\n  - {name: acetic acid, molar: 0.1000, pka: [4.7570]}\n"
 	                "titrant:\n  - {name: sodium hydroxide, molar: 0.1000, strong: base}\n"
@@ -154,7 +135,7 @@ TEST(engine_results_accept_and_null)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(parse_m(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
 	                     "dose_max_ml: 1.0}\n"
 	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
 	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
@@ -169,7 +150,7 @@ TEST(engine_results_accept_and_null)
 	                     "  - name: divzero\n    formula: end1_ml / (amount - amount)\n"
 	                     "    unit: mL\n    decimals: 2\n",
 	                &m));
-	REQUIRE(parse_s(VINEGAR, &s));
+	REQUIRE(fixture_scenario(VINEGAR, &s));
 	simrun_opts_t o = {.seed = 24, .burette_start_ml = -1};
 	simrun_out_t out;
 	engine_t *e = simrun_run(&m, &s, &o, &out);
@@ -207,7 +188,7 @@ TEST(engine_record_json)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(parse_m(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
 	                     "dose_max_ml: 1.0}\n"
 	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
 	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
@@ -215,7 +196,7 @@ TEST(engine_record_json)
 	                     "    formula: end1_ml * titrant_molarity * 60.052 / amount\n"
 	                     "    unit: g/L\n    decimals: 2\n",
 	                &m));
-	REQUIRE(parse_s(VINEGAR, &s));
+	REQUIRE(fixture_scenario(VINEGAR, &s));
 	simrun_opts_t o = {.seed = 25, .burette_start_ml = -1};
 	simrun_out_t out;
 	engine_t *e = simrun_run(&m, &s, &o, &out);
@@ -388,7 +369,7 @@ static void random_method(method_t *m, const chem_scenario_t *s)
 TEST(engine_property_random_runs)
 {
 	method_t base;
-	REQUIRE(parse_m(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
 	                     "dose_max_ml: 1.0}\n"
 	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
 	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"

@@ -15,6 +15,7 @@
 #include "calib.h"
 #include "chem.h"
 #include "engine.h"
+#include "fixtures.h"
 #include "harness.h"
 #include "method.h"
 #include "simrun.h"
@@ -154,16 +155,6 @@ static calib_result_t bench_calibration(beaker_t *b)
 	return res;
 }
 
-static bool load_method(const char *text, method_t *m)
-{
-	diag_list_t d = DIAG_LIST_INIT;
-	int rc = method_parse("bench-method", text, strlen(text), NULL, m, &d);
-	if (rc != 0)
-		diag_print(&d, stderr);
-	diag_free(&d);
-	return rc == 0;
-}
-
 static double result_value(const engine_t *e, const char *name)
 {
 	for (int i = 0; i < engine_n_results(e); i++) {
@@ -189,7 +180,7 @@ TEST(stdz_khp_on_the_bench_recovers_true_molarity)
 
 	/* 2. Standardize, reading pH through that calibration; replicates. */
 	method_t m;
-	REQUIRE(load_method(khp_method, &m));
+	REQUIRE(fixture_method(khp_method, &m));
 	int n_rep = harness_quick() ? 2 : 3;
 	double titers[3];
 	for (int k = 0; k < n_rep; k++) {
@@ -245,7 +236,7 @@ TEST(stdz_titer_changes_a_bench_result_exactly)
 	REQUIRE(scenario_parse("cider", cider, strlen(cider), &sc, &d) == 0);
 	diag_free(&d);
 	method_t m;
-	REQUIRE(load_method(acidity_method, &m));
+	REQUIRE(fixture_method(acidity_method, &m));
 	double v[2], end_ml[2];
 	const double titer[2] = {1.0000, 1.0230};
 	for (int k = 0; k < 2; k++) {
