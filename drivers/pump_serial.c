@@ -256,11 +256,32 @@ static drv_status_t query(pump_t *p, bool *moving, drv_err_t *err)
 	return DRV_OK;
 }
 
-static drv_status_t open_link(pump_t *p, drv_err_t *err)
+/* halt_first: the first line a freshly opened pump hears is the halt, before
+ * the profile's init (which may move the plunger, e.g. a homing command) and
+ * before any status query: whatever the pump was doing when the last owner
+ * of the line died stops first. Any reply counts (a pump in an error state
+ * may refuse the halt with an error and is still stopped); only silence or a
+ * lost line fails the open. */
+static drv_status_t open_link(pump_t *p, bool halt_first, drv_err_t *err)
 {
 	drv_status_t st = serial_open(&p->ser, &p->link, err);
 	if (st != DRV_OK)
 		return st;
+	if (halt_first) {
+		char cmd[PUMP_STR * 2];
+		pump_args_t a = {0};
+		if (pump_expand(p->prof.halt, &a, cmd, sizeof(cmd)) < 0)
+			return drv_fail(err, DRV_CONFIG, "pump: cannot expand '%s'", p->prof.halt);
+		for (long i = 0; i <= p->link.retries; i++) {
+			pump_reply_t r;
+			st = transact_once(p, cmd, &r, err);
+			if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
+				break;
+		}
+		if (st != DRV_OK)
+			return st;
+		p->mode = MODE_IDLE;
+	}
 	if (p->prof.init[0]) {
 		pump_reply_t r;
 		st = transact_once(p, p->prof.init, &r, err);
@@ -276,13 +297,13 @@ static drv_status_t ensure_open(pump_t *p, drv_err_t *err)
 {
 	if (serial_is_open(&p->ser))
 		return DRV_OK;
-	return open_link(p, err);
+	return open_link(p, false, err);
 }
 
 static drv_status_t pump_open(void *priv, drv_err_t *err)
 {
 	pump_t *p = priv;
-	drv_status_t st = open_link(p, err);
+	drv_status_t st = open_link(p, true, err);
 	if (st != DRV_OK)
 		return st;
 	bool mv;
