@@ -143,6 +143,26 @@ void http_set_tokens(http_ctx_t *ctx, const cfg_tokens_t *t)
 	pthread_rwlock_unlock(&ctx->tokens_lock);
 }
 
+const char *http_actor(const http_req_t *q)
+{
+	return q->token_name && *q->token_name ? q->token_name : "anonymous";
+}
+
+void http_audit(const http_req_t *q, const char *station, int64_t run_id, const char *kind,
+                const char *code, const char *fmt, ...)
+{
+	char at[32], msg[512];
+	va_list ap;
+
+	va_start(ap, fmt);
+	vsnprintf(msg, sizeof msg, fmt, ap);
+	va_end(ap);
+	store_time_rfc3339(store_now_unix_s(), at);
+	if (store_event_add(q->ctx->store, at, station, run_id, kind, code, msg, http_actor(q)) !=
+	    STORE_OK)
+		log_warn("could not store the audit event %s/%s: %s", kind, code, msg);
+}
+
 /* The name of the matching token, copied into buf, or NULL. */
 static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *buf, size_t cap)
 {

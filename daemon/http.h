@@ -76,6 +76,13 @@ void http_reply_error(http_reply_t *r, int status, const char *code, const char 
 void http_reply_text(http_reply_t *r, int status, const char *ctype, char *text_malloced,
                      size_t len);
 
+/* Who made a write request, for the audit trail: the token's name. */
+const char *http_actor(const http_req_t *q);
+/* Add an audit-trail event now, made by the request's token (store_event_add;
+ * station and message may be NULL). */
+void http_audit(const http_req_t *q, const char *station, int64_t run_id, const char *kind,
+                const char *code, const char *fmt, ...) __attribute__((format(printf, 6, 7)));
+
 /* Query argument, or NULL. */
 const char *http_query(const http_req_t *q, const char *key);
 

@@ -53,6 +53,8 @@ static void post_calibration(const http_req_t *q, http_reply_t *r)
 		http_reply_error(r, bad ? 400 : 409, bad ? "bad_request" : "conflict", "%s", err);
 		goto out;
 	}
+	http_audit(q, station, 0, "calibration", "started", "calibration %lld with %d buffers",
+	           (long long)id, n);
 	http_reply_json(r, 201,
 	                json_pack("{s:I,s:s,s:f}", "id", (json_int_t)id, "state", "waiting",
 	                          "next_buffer", buffers[0]));

@@ -65,7 +65,6 @@ static void post_halt(const http_req_t *q, const char *name, http_reply_t *r)
 {
 	station_t *st = http_find_station(q->ctx, name);
 	station_snapshot_t s;
-	char at[32];
 
 	if (!st) {
 		http_reply_error(r, 404, "not_found", "no station '%s'", name);
@@ -73,9 +72,7 @@ static void post_halt(const http_req_t *q, const char *name, http_reply_t *r)
 	}
 	station_snapshot(st, &s);
 	station_halt(st);
-	store_time_rfc3339(store_now_unix_s(), at);
-	store_event_add(q->ctx->store, at, name, s.run_id, "halt", "halt",
-	                q->token_name ? q->token_name : "");
+	http_audit(q, name, s.run_id, "halt", "requested", "burette halted through the API");
 	http_reply_json(r, 200,
 	                json_pack("{s:s,s:b,s:o}", "station", name, "halted", 1, "run",
 	                          s.run_id ? json_integer(s.run_id) : json_null()));
@@ -132,6 +129,9 @@ static void put_method(const http_req_t *q, const char *id, http_reply_t *r)
 	switch (st) {
 	case STORE_OK:
 	case STORE_UNCHANGED:
+		if (st == STORE_OK)
+			http_audit(q, NULL, 0, "method", "stored",
+			           "method %s revision %ld sha256 %s", id, m->revision, m->sha256);
 		http_reply_json(r, st == STORE_OK ? 201 : 200,
 		                json_pack("{s:s,s:I,s:s}", "id", id, "revision",
 		                          (json_int_t)m->revision, "sha256", m->sha256));

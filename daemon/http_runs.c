@@ -186,6 +186,10 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 		                 station);
 		goto out;
 	}
+	http_audit(q, station, id, "run", "queued",
+	           "method %s revision %ld, sample %s, amount %g %s", method_id,
+	           job->method.revision, sample_id, amount,
+	           method_unit_name(job->method.sample_unit));
 	http_reply_json(r, 201, json_pack("{s:I,s:s}", "id", (json_int_t)id, "state", "queued"));
 	snprintf(r->location, sizeof r->location, "/v1/runs/%lld", (long long)id);
 out:
@@ -322,6 +326,7 @@ static void post_abort(const http_req_t *q, long long id, http_reply_t *r)
 		                 id);
 		return;
 	}
+	http_audit(q, station, id, "abort", "requested", "run %lld aborted through the API", id);
 	/* The thread halts the burette within one device deadline and writes
 	 * the final record; wait for it (bounded) so the reply is the truth. */
 	for (int i = 0; i < 250; i++) {
@@ -344,7 +349,8 @@ static bool parse_nonneg(const char *s, long long *out)
 	return http_parse_id(s, out);
 }
 
-static void get_results(const http_req_t *q, http_reply_t *r)
+/* GET /v1/results and /v1/events: one polling contract (after, limit). */
+static void get_feed(const http_req_t *q, http_reply_t *r, bool events)
 {
 	const char *a = http_query(q, "after"), *l = http_query(q, "limit");
 	long long after = 0, limit = 100;
@@ -359,7 +365,8 @@ static void get_results(const http_req_t *q, http_reply_t *r)
 		http_reply_error(r, 400, "bad_request", "limit must be an integer 1 to 1000");
 		return;
 	}
-	j = store_results_after(q->ctx->store, after, (int)limit, &db_err);
+	j = events ? store_events_after(q->ctx->store, after, (int)limit, &db_err)
+	           : store_results_after(q->ctx->store, after, (int)limit, &db_err);
 	if (j)
 		http_reply_json(r, 200, j);
 	else
@@ -373,11 +380,22 @@ bool http_route_runs(const http_req_t *q, const char *const *seg, int n, http_re
 
 	if (n < 2 || strcmp(seg[0], "v1"))
 		return false;
-	if (n == 2 && !strcmp(seg[1], "results")) {
+	if (n == 2 && (!strcmp(seg[1], "results") || !strcmp(seg[1], "events"))) {
 		if (get)
-			get_results(q, r);
+			get_feed(q, r, !strcmp(seg[1], "events"));
 		else
 			http_reply_error(r, 405, "method_not_allowed", "use GET");
+		return true;
+	}
+	if (n == 2 && !strcmp(seg[1], "titrants")) {
+		bool db_err;
+		json_t *j = get ? store_titrants_json(q->ctx->store, &db_err) : NULL;
+		if (!get)
+			http_reply_error(r, 405, "method_not_allowed", "use GET");
+		else if (j)
+			http_reply_json(r, 200, j);
+		else
+			db_error(r);
 		return true;
 	}
 	if (strcmp(seg[1], "runs") || n > 4)

@@ -70,6 +70,12 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 		return NULL;
 	}
 	drv_burette_info(&s->bur, &s->info);
+	{
+		/* stopcockd reports errors in `standardization:`; here only the values */
+		diag_list_t ignored = DIAG_LIST_INIT;
+		stdz_config_parse(&c->doc, c->standardization, &s->stdz_cfg, &ignored);
+		diag_free(&ignored);
+	}
 	if (cal)
 		s->cal_cfg = *cal;
 	else
@@ -315,7 +321,7 @@ void station_abort_queued(station_t *s, station_job_t *job, const char *why)
 		json_decref(j);
 	}
 	store_run_finish(s->store, job->run_id, "aborted", text, NULL);
-	store_event_add(s->store, at, s->name, job->run_id, "abort", "queued", why);
+	store_event_add(s->store, at, s->name, job->run_id, "abort", "queued", why, "daemon");
 	free(text);
 }
 
@@ -330,6 +336,8 @@ static void calib_store(station_t *s)
 	char *text;
 	char at[32] = "", exp[32] = "";
 	calib_state_t state;
+	int64_t cal_id;
+	bool log_end;
 
 	pthread_mutex_lock(&s->lock);
 	if (!s->cal) {
@@ -339,6 +347,12 @@ static void calib_store(station_t *s)
 	state = calib_session_state(s->cal);
 	calib_session_result(s->cal, store_now_unix_s(), &res);
 	s->cal_dirty = false;
+	cal_id = s->cal_id;
+	/* the end of each calibration goes into the audit trail once */
+	log_end =
+	    (state == CALIB_ACCEPTED || state == CALIB_REJECTED) && s->cal_logged_id != cal_id;
+	if (log_end)
+		s->cal_logged_id = cal_id;
 	station_unlock(s);
 	j = calib_result_json(&res);
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
@@ -347,9 +361,23 @@ static void calib_store(station_t *s)
 		store_time_rfc3339(res.at_unix_s, at);
 	if (res.expires_at_unix_s > 0)
 		store_time_rfc3339(res.expires_at_unix_s, exp);
-	store_calib_update(s->store, s->cal_id, calib_state_name(state), at[0] ? at : NULL,
+	store_calib_update(s->store, cal_id, calib_state_name(state), at[0] ? at : NULL,
 	                   exp[0] ? exp : NULL, text);
 	free(text);
+	if (log_end) {
+		char msg[320];
+		if (state == CALIB_ACCEPTED)
+			snprintf(
+			    msg, sizeof msg,
+			    "calibration %lld: slope %.2f %% of Nernst, offset %.2f mV at pH 7",
+			    (long long)cal_id, res.slope_pct, res.offset_mv);
+		else
+			snprintf(msg, sizeof msg, "calibration %lld: %s", (long long)cal_id,
+			         res.reason[0] ? res.reason : "rejected");
+		store_time_rfc3339(store_now_unix_s(), at);
+		store_event_add(s->store, at, s->name, 0, "calibration", calib_state_name(state),
+		                msg, "daemon");
+	}
 	if (state == CALIB_ACCEPTED)
 		load_valid_cal(s);
 }

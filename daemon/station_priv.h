@@ -60,10 +60,12 @@ struct station {
 	atomic_uint_fast64_t heartbeat_us; /* notify_now_us() of the last loop */
 
 	calib_config_t cal_cfg;
-	calib_session_t *cal; /* the station's calibration, NULL when none */
+	stdz_config_t stdz_cfg; /* replicates that make one titer (config) */
+	calib_session_t *cal;   /* the station's calibration, NULL when none */
 	int64_t cal_id;
-	bool cal_dirty;     /* state changed by an HTTP call: the thread stores it */
-	bool has_valid_cal; /* valid_cal: latest accepted calibration, for live pH */
+	int64_t cal_logged_id; /* calibration whose end is in the audit trail */
+	bool cal_dirty;        /* state changed by an HTTP call: the thread stores it */
+	bool has_valid_cal;    /* valid_cal: latest accepted calibration, for live pH */
 	calib_result_t valid_cal;
 };
 

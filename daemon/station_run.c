@@ -9,6 +9,7 @@
 #include "station_priv.h"
 
 #include <math.h>
+#include <pthread.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -117,7 +118,7 @@ static engine_action_t feed_fault(run_t *r, double t_s, const char *code, const 
 	log_err("station %s run %lld: %s: %s", r->s->name, (long long)r->job->run_id, code, msg);
 	station_halt_burette(r->s, code);
 	now_text(at);
-	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg);
+	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg, "daemon");
 	station_set_error(r->s, msg);
 	r->fault = true;
 	return engine_feed(r->e, &ev);
@@ -400,30 +401,129 @@ static const char *final_state(const run_t *r)
 	}
 }
 
-/* After a finished standardization or blank, keep what it measured. */
-static void keep_outcome(run_t *r)
+/* Replicates of each titrant, daemon-wide: the titer is stored per titrant
+ * name (not per station), so replicates of one titrant may run on any
+ * station. In memory only: a restart starts each series afresh (said in
+ * docs/calibration.md), which is what a lab wants after an interruption. */
+#define STDZ_BOOK 8
+static pthread_mutex_t stdz_lock = PTHREAD_MUTEX_INITIALIZER;
+static stdz_series_t stdz_book[STDZ_BOOK];
+
+typedef struct stdz_note {
+	bool have;     /* a standardization run gave a titer */
+	bool complete; /* the series is complete: res holds its statistics */
+	int replicate, of;
+	double titer;
+	stdz_result_t res;
+} stdz_note_t;
+
+/* The titer a finished standardization run yields, or NaN. */
+static double run_titer(const run_t *r)
 {
 	const method_t *m = &r->job->method;
-	char at[32];
+	for (int i = 0; i < engine_n_results(r->e); i++) {
+		const engine_result_t *res = engine_result(r->e, i);
+		double titer;
+		if (!res->has_value || res->accept == ENGINE_ACCEPT_LOW ||
+		    res->accept == ENGINE_ACCEPT_HIGH)
+			continue;
+		if (stdz_titer_from_result(res->name, res->unit, res->value, m->titrant_molarity,
+		                           &titer) == 0)
+			return titer;
+	}
+	return NAN;
+}
+
+/* Add a finished standardization run to its titrant's series. */
+static void stdz_add(run_t *r, stdz_note_t *n)
+{
+	const char *name = r->job->method.titrant_name;
+	stdz_series_t *s = NULL;
+
+	memset(n, 0, sizeof *n);
+	n->titer = run_titer(r);
+	if (!isfinite(n->titer))
+		return;
+	n->have = true;
+	n->of = r->s->stdz_cfg.replicates;
+	pthread_mutex_lock(&stdz_lock);
+	for (int i = 0; i < STDZ_BOOK && !s; i++)
+		if (!strcmp(stdz_book[i].titrant, name))
+			s = &stdz_book[i];
+	for (int i = 0; i < STDZ_BOOK && !s; i++)
+		if (!stdz_book[i].titrant[0])
+			s = &stdz_book[i];
+	if (!s) { /* more titrants than slots: reuse the first */
+		s = &stdz_book[0];
+		s->titrant[0] = '\0';
+	}
+	n->replicate = s->n + 1;
+	n->complete = stdz_series_add(s, &r->s->stdz_cfg, name, n->titer, &n->res);
+	pthread_mutex_unlock(&stdz_lock);
+}
+
+static json_t *num_or_null(double v)
+{
+	return isfinite(v) ? json_real(v) : json_null();
+}
+
+/* The run record's "standardization" object (docs/api.md). */
+static json_t *stdz_json(const stdz_note_t *n)
+{
+	json_t *j = json_pack("{s:o,s:i,s:i,s:b}", "titer", num_or_null(n->titer), "replicate",
+	                      n->replicate, "of", n->of, "complete", n->complete);
+	if (n->complete) {
+		json_object_set_new(j, "n", json_integer(n->res.n));
+		json_object_set_new(j, "mean", num_or_null(n->res.mean));
+		json_object_set_new(j, "sd", num_or_null(n->res.sd));
+		json_object_set_new(j, "rsd_pct", num_or_null(n->res.rsd_pct));
+		json_object_set_new(j, "accepted", json_boolean(n->res.accepted));
+		json_object_set_new(j, "reason",
+		                    n->res.reason[0] ? json_string(n->res.reason) : json_null());
+	}
+	return j;
+}
+
+/* After the final record of a finished standardization or blank is stored:
+ * keep what it measured, and say so in the audit trail. */
+static void keep_outcome(run_t *r, const stdz_note_t *n)
+{
+	const method_t *m = &r->job->method;
+	const char *st = r->s->name;
+	int64_t id = r->job->run_id;
+	char at[32], msg[400];
 
 	now_text(at);
-	if (m->purpose == PURPOSE_STANDARDIZE) {
-		for (int i = 0; i < engine_n_results(r->e); i++) {
-			const engine_result_t *res = engine_result(r->e, i);
-			double titer;
-			if (!res->has_value || res->accept == ENGINE_ACCEPT_LOW ||
-			    res->accept == ENGINE_ACCEPT_HIGH)
-				continue;
-			if (stdz_titer_from_result(res->name, res->unit, res->value,
-			                           m->titrant_molarity, &titer) == 0) {
-				store_titrant_set(r->s->store, m->titrant_name, m->titrant_molarity,
-				                  titer, at, r->job->run_id);
-				break;
-			}
+	if (m->purpose == PURPOSE_STANDARDIZE && n->have && !n->complete) {
+		snprintf(msg, sizeof msg, "%s: titer %.6f, replicate %d of %d", m->titrant_name,
+		         n->titer, n->replicate, n->of);
+		store_event_add(r->s->store, at, st, id, "standardization", "replicate", msg,
+		                "daemon");
+	} else if (m->purpose == PURPOSE_STANDARDIZE && n->have) {
+		if (n->res.accepted) {
+			json_t *j = stdz_json(n);
+			char *text =
+			    j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
+			json_decref(j);
+			if (store_titrant_set(r->s->store, m->titrant_name, m->titrant_molarity,
+			                      n->res.mean, at, id, text) != STORE_OK)
+				log_err("station %s run %lld: could not store the titer of %s", st,
+				        (long long)id, m->titrant_name);
+			free(text);
+			snprintf(msg, sizeof msg, "%s: titer %.6f stored, mean of %d (RSD %.3f %%)",
+			         m->titrant_name, n->res.mean, n->res.n, n->res.rsd_pct);
+		} else {
+			snprintf(msg, sizeof msg, "%s: titer %.6f not stored: %s", m->titrant_name,
+			         n->res.mean, n->res.reason);
 		}
+		store_event_add(r->s->store, at, st, id, "standardization",
+		                n->res.accepted ? "accepted" : "rejected", msg, "daemon");
+		log_notice("station %s run %lld: %s", st, (long long)id, msg);
 	} else if (m->purpose == PURPOSE_BLANK && engine_n_endpoints(r->e) > 0) {
-		store_blank_set(r->s->store, m->titrant_name, engine_endpoint(r->e, 0)->volume_ml, at,
-		                r->job->run_id);
+		double v = engine_endpoint(r->e, 0)->volume_ml;
+		store_blank_set(r->s->store, m->titrant_name, v, at, id);
+		snprintf(msg, sizeof msg, "%s: blank %.4f mL stored", m->titrant_name, v);
+		store_event_add(r->s->store, at, st, id, "blank", "stored", msg, "daemon");
 	}
 }
 
@@ -433,6 +533,7 @@ static void finish(run_t *r)
 	char *text;
 	int64_t seq = 0;
 	int n = engine_n_points(r->e);
+	stdz_note_t note;
 
 	set_stirrer(r, false);
 	/* engine_done() smooths dpdv: store the final points in place. */
@@ -447,6 +548,9 @@ static void finish(run_t *r)
 	}
 	now_text(r->rec.ended_at);
 	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);
+	memset(&note, 0, sizeof note);
+	if (!strcmp(state, "finished") && r->job->method.purpose == PURPOSE_STANDARDIZE)
+		stdz_add(r, &note);
 	text = record_text(r);
 	/* record_fill_from_engine() sets the phase; a final record has none */
 	if (text) {
@@ -454,6 +558,8 @@ static void finish(run_t *r)
 		free(text);
 		json_object_set_new(j, "phase", json_null());
 		json_object_set_new(j, "state", json_string(state));
+		if (note.have)
+			json_object_set_new(j, "standardization", stdz_json(&note));
 		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		json_decref(j);
 	}
@@ -462,7 +568,7 @@ static void finish(run_t *r)
 		        (long long)r->job->run_id);
 	free(text);
 	if (!strcmp(state, "finished"))
-		keep_outcome(r);
+		keep_outcome(r, &note);
 	log_notice("station %s run %lld: %s (%s), %d points, %.4f mL, seq %lld", r->s->name,
 	           (long long)r->job->run_id, state, engine_stop_name(engine_stop_reason(r->e)), n,
 	           r->dispensed_ml, (long long)seq);
@@ -484,7 +590,7 @@ static void fail_early(run_t *r, const char *code, const char *msg)
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(j);
 	store_run_finish(r->s->store, r->job->run_id, "failed", text, NULL);
-	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg);
+	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg, "daemon");
 	free(text);
 	log_err("station %s run %lld: %s", r->s->name, (long long)r->job->run_id, msg);
 }

@@ -152,10 +152,17 @@ static int load_methods_dir(const char *dir, const method_limits_t *lim, store_t
 			long stored = 0;
 			store_status_t st = store_method_put(store, m->id, m->revision, m->sha256,
 			                                     text, len, "file", &stored);
-			if (st == STORE_OK)
+			if (st == STORE_OK) {
+				char at[32], msg[sizeof path + 160];
 				log_info("method %s revision %ld loaded from %s", m->id,
 				         m->revision, path);
-			else if (st == STORE_CONFLICT)
+				store_time_rfc3339(store_now_unix_s(), at);
+				snprintf(msg, sizeof msg,
+				         "method %s revision %ld sha256 %s from %s", m->id,
+				         m->revision, m->sha256, path);
+				store_event_add(store, at, NULL, 0, "method", "stored", msg,
+				                "methods_dir");
+			} else if (st == STORE_CONFLICT)
 				log_warn("%s: revision %ld is not above the stored revision %ld; "
 				         "kept the stored one (raise revision: to change it)",
 				         path, m->revision, stored);
@@ -174,6 +181,15 @@ static void log_diags(const diag_list_t *d)
 {
 	for (size_t i = 0; i < d->n; i++)
 		log_err("%s:%d:%d: %s", d->v[i].file, d->v[i].line, d->v[i].col, d->v[i].msg);
+}
+
+/* A daemon-wide audit-trail event (no station, no run). */
+static void daemon_event(store_t *store, const char *code, const char *msg, const char *actor)
+{
+	char at[32];
+	store_time_rfc3339(store_now_unix_s(), at);
+	if (store_event_add(store, at, NULL, 0, "daemon", code, msg, actor) != STORE_OK)
+		log_warn("could not store the audit event daemon/%s", code);
 }
 
 /* (Re)load the write tokens; problems are logged, good lines kept. */
@@ -366,6 +382,7 @@ int main(int argc, char **argv)
 	}
 	log_notice("listening on %s:%d, %d station%s, database %s", cfg.listen_addr,
 	           cfg.listen_port, n, n == 1 ? "" : "s", cfg.database);
+	daemon_event(store, "start", "stopcockd " STOPCOCK_VERSION " started", "daemon");
 	wait_for_stations(stations, n);
 	notify_ready();
 	set_status(stations, n);
@@ -382,6 +399,9 @@ int main(int argc, char **argv)
 		sig = sigtimedwait(&set, NULL, &to);
 		if (sig == SIGTERM || sig == SIGINT) {
 			log_notice("signal %d: stopping", sig);
+			daemon_event(store, "stop",
+			             sig == SIGTERM ? "stopping on SIGTERM" : "stopping on SIGINT",
+			             "signal");
 			break;
 		}
 		if (sig == SIGHUP) {
@@ -393,6 +413,8 @@ int main(int argc, char **argv)
 			diag_free(&md);
 			load_tokens(&cfg, &ctx);
 			log_notice("methods and tokens reloaded");
+			daemon_event(store, "reload", "methods and tokens reloaded (SIGHUP)",
+			             "signal");
 			notify_ready();
 		}
 		if (wd_us) {

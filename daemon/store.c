@@ -48,6 +48,10 @@ static const char *const migrations[] = {
     "CREATE TABLE blanks ("
     "  method_id TEXT PRIMARY KEY, volume_ml REAL NOT NULL, at TEXT NOT NULL,"
     "  run_id INTEGER);",
+    /* 1 -> 2: the audit trail names who did it (a token's name, "daemon",
+     * "signal"); titrants keep the replicate statistics of their titer. */
+    "ALTER TABLE events ADD COLUMN actor TEXT;"
+    "ALTER TABLE titrants ADD COLUMN replicates TEXT;",
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -644,14 +648,15 @@ out:
 }
 
 store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
-                               const char *kind, const char *code, const char *message)
+                               const char *kind, const char *code, const char *message,
+                               const char *actor)
 {
 	int rc;
 	pthread_mutex_lock(&s->wlock);
 	rc = exec_w(s,
-	            "INSERT INTO events (at, station, run_id, kind, code, message) "
-	            "VALUES (?,?,NULLIF(?,0),?,?,?)",
-	            "ttittt", at, station, run_id, kind, code, message);
+	            "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
+	            "VALUES (?,?,NULLIF(?,0),?,?,?,?)",
+	            "ttitttt", at, station, run_id, kind, code, message, actor);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
 }
@@ -659,14 +664,15 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
 /* ---- titrants, blanks, calibrations (writes) ---- */
 
 store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
-                                 const char *at, int64_t run_id)
+                                 const char *at, int64_t run_id, const char *replicates_json)
 {
 	int rc;
 	pthread_mutex_lock(&s->wlock);
-	rc = exec_w(s,
-	            "INSERT OR REPLACE INTO titrants (name, molarity, titer, at, run_id) "
-	            "VALUES (?,?,?,?,NULLIF(?,0))",
-	            "tddti", name, molarity, titer, at, run_id);
+	rc = exec_w(
+	    s,
+	    "INSERT OR REPLACE INTO titrants (name, molarity, titer, at, run_id, replicates) "
+	    "VALUES (?,?,?,?,NULLIF(?,0),?)",
+	    "tddtit", name, molarity, titer, at, run_id, replicates_json);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
 }

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 1
+#define STORE_SCHEMA_VERSION 2
 
 typedef struct store store_t;
 
@@ -118,9 +118,16 @@ store_status_t store_points_rewrite(store_t *s, int64_t run_id, const store_poin
 store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const char *record_json,
                                 int64_t *seq_out);
 
-/* A fault or event row (run_id 0 when none). */
+/* An audit-trail or fault row (run_id 0 when none; station, code, message
+ * may be NULL). actor: who did it: the write token's name, "daemon" for what
+ * the daemon did by itself, "signal" for a reload by SIGHUP. */
 store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
-                               const char *kind, const char *code, const char *message);
+                               const char *kind, const char *code, const char *message,
+                               const char *actor);
+/* Events with id > after, oldest first, at most limit:
+ * {"events":[{id, at, kind, code, station, run_id, actor, message}],
+ *  "next_after": last id (after when none)}. NULL on a database error. */
+json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err);
 
 /* The stored record with "seq" (null until final), NULL when unknown. */
 json_t *store_run_json(store_t *s, int64_t id, bool *db_err);
@@ -152,8 +159,12 @@ int store_run_counts(store_t *s, const char *const *states, long *n, int n_state
 /* ---- titrants, blanks ---- */
 
 store_status_t store_titrant_get(store_t *s, const char *name, double *titer);
+/* replicates_json: the standardization statistics that gave the titer (JSON
+ * text, stored as given), or NULL. */
 store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
-                                 const char *at, int64_t run_id);
+                                 const char *at, int64_t run_id, const char *replicates_json);
+/* {"titrants":[{name, molarity, titer, at, run_id, standardization}]} by name. */
+json_t *store_titrants_json(store_t *s, bool *db_err);
 store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml);
 store_status_t store_blank_set(store_t *s, const char *method_id, double blank_ml, const char *at,
                                int64_t run_id);

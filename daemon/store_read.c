@@ -372,6 +372,74 @@ json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err)
 	return json_pack("{s:o,s:I}", "results", arr, "next_after", (json_int_t)last);
 }
 
+static json_t *text_or_null(sqlite3_stmt *st, int col)
+{
+	const char *t = (const char *)sqlite3_column_text(st, col);
+	return t ? json_string(t) : json_null();
+}
+
+json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err)
+{
+	rq_t q;
+	json_t *arr;
+	int64_t last = after;
+
+	*db_err = false;
+	if (rq_open(&q, s,
+	            "SELECT id, at, kind, code, station, run_id, actor, message FROM events "
+	            "WHERE id > ? ORDER BY id LIMIT ?")) {
+		*db_err = true;
+		return NULL;
+	}
+	arr = json_array();
+	sqlite3_bind_int64(q.st, 1, after);
+	sqlite3_bind_int(q.st, 2, limit);
+	while (sqlite3_step(q.st) == SQLITE_ROW) {
+		last = sqlite3_column_int64(q.st, 0);
+		json_array_append_new(
+		    arr,
+		    json_pack("{s:I,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "id", (json_int_t)last, "at",
+		              text_or_null(q.st, 1), "kind", text_or_null(q.st, 2), "code",
+		              text_or_null(q.st, 3), "station", text_or_null(q.st, 4), "run_id",
+		              sqlite3_column_type(q.st, 5) == SQLITE_NULL
+		                  ? json_null()
+		                  : json_integer(sqlite3_column_int64(q.st, 5)),
+		              "actor", text_or_null(q.st, 6), "message", text_or_null(q.st, 7)));
+	}
+	rq_close(&q);
+	return json_pack("{s:o,s:I}", "events", arr, "next_after", (json_int_t)last);
+}
+
+json_t *store_titrants_json(store_t *s, bool *db_err)
+{
+	rq_t q;
+	json_t *arr;
+
+	*db_err = false;
+	if (rq_open(&q, s,
+	            "SELECT name, molarity, titer, at, run_id, replicates FROM titrants ORDER BY "
+	            "name")) {
+		*db_err = true;
+		return NULL;
+	}
+	arr = json_array();
+	while (sqlite3_step(q.st) == SQLITE_ROW) {
+		const char *rep = (const char *)sqlite3_column_text(q.st, 5);
+		json_t *stats = rep ? json_loads(rep, 0, NULL) : NULL;
+		json_array_append_new(
+		    arr,
+		    json_pack("{s:o,s:f,s:f,s:o,s:o,s:o}", "name", text_or_null(q.st, 0),
+		              "molarity", sqlite3_column_double(q.st, 1), "titer",
+		              sqlite3_column_double(q.st, 2), "at", text_or_null(q.st, 3), "run_id",
+		              sqlite3_column_type(q.st, 4) == SQLITE_NULL
+		                  ? json_null()
+		                  : json_integer(sqlite3_column_int64(q.st, 4)),
+		              "standardization", stats ? stats : json_null()));
+	}
+	rq_close(&q);
+	return json_pack("{s:o}", "titrants", arr);
+}
+
 int store_run_counts(store_t *s, const char *const *states, long *n, int n_states)
 {
 	rq_t q;

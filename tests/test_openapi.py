@@ -428,6 +428,13 @@ def test_every_operation_answers_as_documented(daemon):
     assert st == 404
     st, page = do("get", "/v1/results", "/v1/results?after=0&limit=10")
     assert st == 200
+    st, ev = do("get", "/v1/events", "/v1/events?after=0&limit=50")
+    assert st == 200 and ev["events"], ev
+    assert any(e["kind"] == "run" and e["run_id"] == rid for e in ev["events"]), ev
+    st, _ = do("get", "/v1/events", "/v1/events?after=-1")
+    assert st == 400
+    st, tl = do("get", "/v1/titrants", "/v1/titrants")
+    assert st == 200 and isinstance(tl["titrants"], list), tl
     st, runs = do("get", "/v1/runs", f"/v1/runs?station={station}&limit=5")
     assert st == 200 and any(x["id"] == rid for x in runs["runs"]), runs
     st, _ = do("get", "/v1/runs", "/v1/runs?state=bogus")
