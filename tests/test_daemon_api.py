@@ -340,12 +340,23 @@ def test_read_token_and_connection_limits(bench):
         assert bench.request("GET", "/v1/stations", token=bench.token).status == 200
         assert bench.request("GET", "/metrics").status == 401
         # Two idle connections are held open; a third from the same address is refused.
-        held = [socket.create_connection(("127.0.0.1", bench.port), timeout=5) for _ in range(2)]
-        time.sleep(0.2)
-        with pytest.raises(OSError):
-            bench.request("GET", "/v1/health", timeout=5)
-        for s in held:
-            s.close()
+        # On a loaded machine the daemon may not have accepted the held pair
+        # yet when the third arrives; give it up to three tries.
+        refused = False
+        for _ in range(3):
+            held = [socket.create_connection(("127.0.0.1", bench.port), timeout=5)
+                    for _ in range(2)]
+            time.sleep(0.5)
+            try:
+                bench.request("GET", "/v1/health", timeout=5)
+            except OSError:
+                refused = True
+            for s in held:
+                s.close()
+            if refused:
+                break
+            time.sleep(0.3)
+        assert refused, "a third connection from one address was not refused"
         time.sleep(0.3)
         assert bench.request("GET", "/v1/health").status == 200
     finally:

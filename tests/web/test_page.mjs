@@ -151,6 +151,9 @@ async function main() {
 		await page.click('#token-button');
 		await page.fill('#token-input', TOKEN);
 		await page.click('#token-dialog button[value="ok"]');
+		// the dialog's close event stores the token: wait for it (bounded)
+		await page.waitForFunction((t) => sessionStorage.getItem('stopcock.token') === t, TOKEN,
+			{timeout: 5000}).catch(() => {});
 		check(await page.evaluate(() => sessionStorage.getItem('stopcock.token')) === TOKEN,
 			'token kept in sessionStorage');
 		check(await page.evaluate(() => localStorage.length === 0), 'nothing in localStorage');
