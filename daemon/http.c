@@ -151,14 +151,13 @@ const char *http_actor(const http_req_t *q)
 void http_audit(const http_req_t *q, const char *station, int64_t run_id, const char *kind,
                 const char *code, const char *fmt, ...)
 {
-	char at[32], msg[512];
+	char msg[512];
 	va_list ap;
 
 	va_start(ap, fmt);
 	vsnprintf(msg, sizeof msg, fmt, ap);
 	va_end(ap);
-	store_time_rfc3339(store_now_unix_s(), at);
-	if (store_event_add(q->ctx->store, at, station, run_id, kind, code, msg, http_actor(q)) !=
+	if (store_event_add(q->ctx->store, NULL, station, run_id, kind, code, msg, http_actor(q)) !=
 	    STORE_OK)
 		log_warn("could not store the audit event %s/%s: %s", kind, code, msg);
 }

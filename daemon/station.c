@@ -374,8 +374,7 @@ static void calib_store(station_t *s)
 		else
 			snprintf(msg, sizeof msg, "calibration %lld: %s", (long long)cal_id,
 			         res.reason[0] ? res.reason : "rejected");
-		store_time_rfc3339(store_now_unix_s(), at);
-		store_event_add(s->store, at, s->name, 0, "calibration", calib_state_name(state),
+		store_event_add(s->store, NULL, s->name, 0, "calibration", calib_state_name(state),
 		                msg, "daemon");
 	}
 	if (state == CALIB_ACCEPTED)

@@ -153,14 +153,13 @@ static int load_methods_dir(const char *dir, const method_limits_t *lim, store_t
 			store_status_t st = store_method_put(store, m->id, m->revision, m->sha256,
 			                                     text, len, "file", &stored);
 			if (st == STORE_OK) {
-				char at[32], msg[sizeof path + 160];
+				char msg[sizeof path + 160];
 				log_info("method %s revision %ld loaded from %s", m->id,
 				         m->revision, path);
-				store_time_rfc3339(store_now_unix_s(), at);
 				snprintf(msg, sizeof msg,
 				         "method %s revision %ld sha256 %s from %s", m->id,
 				         m->revision, m->sha256, path);
-				store_event_add(store, at, NULL, 0, "method", "stored", msg,
+				store_event_add(store, NULL, NULL, 0, "method", "stored", msg,
 				                "methods_dir");
 			} else if (st == STORE_CONFLICT)
 				log_warn("%s: revision %ld is not above the stored revision %ld; "
@@ -186,9 +185,7 @@ static void log_diags(const diag_list_t *d)
 /* A daemon-wide audit-trail event (no station, no run). */
 static void daemon_event(store_t *store, const char *code, const char *msg, const char *actor)
 {
-	char at[32];
-	store_time_rfc3339(store_now_unix_s(), at);
-	if (store_event_add(store, at, NULL, 0, "daemon", code, msg, actor) != STORE_OK)
+	if (store_event_add(store, NULL, NULL, 0, "daemon", code, msg, actor) != STORE_OK)
 		log_warn("could not store the audit event daemon/%s", code);
 }
 

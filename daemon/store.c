@@ -652,6 +652,11 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
                                const char *actor)
 {
 	int rc;
+	char now[32];
+	if (!at) {
+		store_time_rfc3339(store_now_unix_s(), now);
+		at = now;
+	}
 	pthread_mutex_lock(&s->wlock);
 	rc = exec_w(s,
 	            "INSERT INTO events (at, station, run_id, kind, code, message, actor) "

@@ -118,8 +118,8 @@ store_status_t store_points_rewrite(store_t *s, int64_t run_id, const store_poin
 store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const char *record_json,
                                 int64_t *seq_out);
 
-/* An audit-trail or fault row (run_id 0 when none; station, code, message
- * may be NULL). actor: who did it: the write token's name, "daemon" for what
+/* An audit-trail or fault row (at NULL: now; run_id 0 when none; station,
+ * code, message may be NULL). actor: who did it: the write token's name, "daemon" for what
  * the daemon did by itself, "signal" for a reload by SIGHUP. */
 store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
                                const char *kind, const char *code, const char *message,
