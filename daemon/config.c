@@ -14,8 +14,9 @@ static const char *const http_keys[] = {
     "max_per_ip", "max_body_bytes", "connection_timeout_s", "threads",
     NULL};
 static const char *const storage_keys[] = {"database", NULL};
-static const char *const station_keys[] = {"name",  "vessel_max_ml", "burette",
-                                           "probe", "stirrer",       NULL};
+static const char *const station_keys[] = {"name",    "vessel_max_ml", "read_interval_s",
+                                           "burette", "probe",         "stirrer",
+                                           NULL};
 
 int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port)
 {
@@ -159,6 +160,13 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 		yt_missing(&c->doc, s, "vessel_max_ml", "station", d);
 	else
 		yt_double_range(&c->doc, n, "vessel_max_ml", "mL", 1.0, 10000.0, &st->vessel_max_ml,
+		                d);
+	/* How often the probe is read while a reading settles: 0.5 s suits
+	 * most transmitters (common practice); a faster one may be read more
+	 * often. */
+	st->read_interval_s = 0.5;
+	if ((n = yt_get(s, "read_interval_s")))
+		yt_double_range(&c->doc, n, "read_interval_s", "s", 0.05, 10.0, &st->read_interval_s,
 		                d);
 	st->burette = yt_get(s, "burette");
 	st->probe = yt_get(s, "probe");

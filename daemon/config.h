@@ -28,6 +28,7 @@
 typedef struct cfg_station {
 	char name[CFG_NAME_MAX];  /* [a-z0-9-]+ */
 	double vessel_max_ml;     /* most liquid the beaker may hold, mL */
+	double read_interval_s;   /* probe readings while settling, s (default 0.5) */
 	const yt_node_t *burette; /* driver subtrees, in cfg_t.doc */
 	const yt_node_t *probe;
 	const yt_node_t *stirrer; /* NULL when absent */

@@ -67,6 +67,7 @@ TEST(config_load_defaults_and_errors)
 	CHECK(!c.read_needs_token);
 	CHECK_INT(c.n_stations, 1);
 	CHECK(c.stations[0].stirrer == NULL);
+	CHECK(c.stations[0].read_interval_s == 0.5);
 	CHECK(strstr(c.database, "/db/s.db") != NULL);
 	cfg_free(&c);
 
@@ -76,7 +77,8 @@ TEST(config_load_defaults_and_errors)
 	                 "stations:\n"
 	                 "  - name: Bench_1\n"
 	                 "    vessel_max_ml: 0\n"
-	                 "    probe: {driver: y}\n");
+	                 "    probe: {driver: y}\n"
+	                 "    read_interval_s: 0.01\n");
 	CHECK(cfg_load(path, &c, &d) != 0);
 	{
 		char *all = diag_join(&d);
@@ -87,6 +89,8 @@ TEST(config_load_defaults_and_errors)
 		CHECK(strstr(all, ":5:") != NULL); /* name */
 		CHECK(strstr(all, ":6:") != NULL); /* vessel_max_ml */
 		CHECK(strstr(all, "burette") != NULL);
+		/* 0.01 s is below the 0.05 s the daemon allows */
+		CHECK(strstr(all, ":8:") != NULL && strstr(all, "read_interval_s") != NULL);
 		free(all);
 	}
 	diag_free(&d);
