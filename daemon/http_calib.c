@@ -49,7 +49,7 @@ static void post_calibration(const http_req_t *q, http_reply_t *r)
 		http_reply_error(r, 404, "not_found", "no station '%s'", station);
 		goto out;
 	}
-	if (station_calib_start(st, buffers, n, &id, err, sizeof err, &bad)) {
+	if (station_calib_start(st, buffers, n, http_actor(q), &id, err, sizeof err, &bad)) {
 		http_reply_error(r, bad ? 400 : 409, bad ? "bad_request" : "conflict", "%s", err);
 		goto out;
 	}

@@ -140,6 +140,7 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 	job->amount = amount;
 	snprintf(job->sample_id, sizeof job->sample_id, "%s", sample_id);
 	store_time_rfc3339(store_now_unix_s(), job->queued_at);
+	snprintf(job->requested_by, sizeof job->requested_by, "%s", http_actor(q));
 
 	record_init(rec);
 	snprintf(rec->station, sizeof rec->station, "%s", station);
@@ -147,10 +148,12 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 	snprintf(rec->sample.id, sizeof rec->sample.id, "%s", sample_id);
 	rec->sample.amount = amount;
 	snprintf(rec->queued_at, sizeof rec->queued_at, "%s", job->queued_at);
+	snprintf(rec->requested_by, sizeof rec->requested_by, "%s", job->requested_by);
 	rec->titrant.titer = 1.0;
 	{
 		double titer;
-		if (store_titrant_get(ctx->store, job->method.titrant_name, &titer) == STORE_OK &&
+		if (store_titrant_get(ctx->store, job->method.titrant_name, &titer, NULL) ==
+		        STORE_OK &&
 		    titer > 0)
 			rec->titrant.titer = titer;
 	}

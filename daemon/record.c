@@ -12,6 +12,7 @@ void record_init(run_record_t *r)
 	r->sample.amount = NAN;
 	r->titrant.molarity = NAN;
 	r->titrant.titer = 1.0;
+	r->titrant.blank_ml = NAN;
 	r->dispensed_ml = 0;
 	r->duration_s = NAN;
 }
@@ -96,6 +97,11 @@ static json_t *str_or_null(const char *s)
 }
 
 /* Set a key from a new reference; a NULL (out of memory) marks failure. */
+static json_t *id_or_null(long long id)
+{
+	return id > 0 ? json_integer(id) : json_null();
+}
+
 static void put(json_t *o, const char *k, json_t *v, bool *ok)
 {
 	if (!v || json_object_set_new(o, k, v) < 0)
@@ -143,18 +149,25 @@ json_t *record_to_json(const run_record_t *r)
 	put(o, "queued_at", str_or_null(r->queued_at), &ok);
 	put(o, "started_at", str_or_null(r->started_at), &ok);
 	put(o, "ended_at", str_or_null(r->ended_at), &ok);
+	put(o, "requested_by", str_or_null(r->requested_by), &ok);
 
 	json_t *t = json_object();
 	if (t) {
 		put(t, "name", json_string(r->titrant.name), &ok);
 		put(t, "molarity", record_real_or_null(r->titrant.molarity), &ok);
 		put(t, "titer", record_real_or_null(r->titrant.titer), &ok);
+		put(t, "titer_at", str_or_null(r->titrant.titer_at), &ok);
+		put(t, "titer_run_id", id_or_null(r->titrant.titer_run_id), &ok);
+		put(t, "blank_ml", record_real_or_null(r->titrant.blank_ml), &ok);
+		put(t, "blank_at", str_or_null(r->titrant.blank_at), &ok);
+		put(t, "blank_run_id", id_or_null(r->titrant.blank_run_id), &ok);
 	}
 	put(o, "titrant", t, &ok);
 
 	if (r->has_calibration) {
 		json_t *c = json_object();
 		if (c) {
+			put(c, "id", id_or_null(r->calibration.id), &ok);
 			put(c, "slope_pct", record_real_or_null(r->calibration.slope_pct), &ok);
 			put(c, "offset_mv", record_real_or_null(r->calibration.offset_mv), &ok);
 			put(c, "at", str_or_null(r->calibration.at), &ok);

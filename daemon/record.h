@@ -67,13 +67,22 @@ typedef struct run_record {
 	char state[16]; /* queued running finished aborted failed interrupted */
 	char phase[16]; /* stirring dosing settling evaluating; "" -> null */
 	char queued_at[RECORD_TIME_MAX], started_at[RECORD_TIME_MAX], ended_at[RECORD_TIME_MAX];
+	char requested_by[64]; /* the write token's name that queued the run; "" -> null */
 	struct {
 		char name[METHOD_TEXT_MAX];
 		double molarity; /* mol/L, nominal */
 		double titer;
+		/* where the titer and the blank came from (docs/calibration.md):
+		 * "" / 0 -> null; blank_ml NaN -> null (no blank stored) */
+		char titer_at[RECORD_TIME_MAX];
+		long long titer_run_id;
+		double blank_ml;
+		char blank_at[RECORD_TIME_MAX];
+		long long blank_run_id;
 	} titrant;
 	bool has_calibration;
 	struct {
+		long long id; /* <= 0 -> null */
 		double slope_pct;
 		double offset_mv;
 		char at[RECORD_TIME_MAX];

@@ -60,6 +60,7 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 		return NULL;
 	snprintf(s->name, sizeof s->name, "%s", sc->name);
 	s->vessel_max_ml = sc->vessel_max_ml;
+	s->read_interval_s = sc->read_interval_s;
 	configure_devices(c, sc, &s->bur, &s->probe, &s->stir, d);
 	s->has_stirrer = sc->stirrer != NULL;
 	if (d->n > before) {
@@ -374,8 +375,9 @@ static void calib_store(station_t *s)
 		else
 			snprintf(msg, sizeof msg, "calibration %lld: %s", (long long)cal_id,
 			         res.reason[0] ? res.reason : "rejected");
+		/* the outcome is the starter's calibration: their name on it */
 		store_event_add(s->store, NULL, s->name, 0, "calibration", calib_state_name(state),
-		                msg, "daemon");
+		                msg, s->cal_actor[0] ? s->cal_actor : "daemon");
 	}
 	if (state == CALIB_ACCEPTED)
 		load_valid_cal(s);
@@ -407,8 +409,8 @@ static void calib_step(station_t *s)
 		calib_store(s);
 }
 
-int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_out, char *err,
-                        size_t cap, bool *bad_input)
+int station_calib_start(station_t *s, const double *buffers, int n, const char *actor,
+                        int64_t *id_out, char *err, size_t cap, bool *bad_input)
 {
 	calib_session_t *cs;
 	int64_t id;
@@ -442,6 +444,7 @@ int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_
 	calib_session_free(s->cal);
 	s->cal = cs;
 	s->cal_id = id;
+	snprintf(s->cal_actor, sizeof s->cal_actor, "%s", actor && *actor ? actor : "daemon");
 	station_unlock(s);
 	calib_store(s);
 	*id_out = id;

@@ -102,6 +102,7 @@ typedef struct station_job {
 	double amount;
 	char sample_id[128];
 	char queued_at[32];
+	char requested_by[64]; /* the write token's name that queued it */
 } station_job_t;
 
 /* Post a run; 0, or -1 when the queue is full. */
@@ -127,8 +128,8 @@ station_cmd_t station_halt(station_t *s);
  * readings and stores the session's JSON on every state change. Both return
  * 0, or -1 with a message for a 409 (run active, another calibration going,
  * wrong state) or 400 (bad buffers: *bad_input set). */
-int station_calib_start(station_t *s, const double *buffers, int n, int64_t *id_out, char *err,
-                        size_t cap, bool *bad_input);
+int station_calib_start(station_t *s, const double *buffers, int n, const char *actor,
+                        int64_t *id_out, char *err, size_t cap, bool *bad_input);
 int station_calib_next(station_t *s, int64_t id, char *err, size_t cap);
 
 #endif

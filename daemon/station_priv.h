@@ -25,6 +25,7 @@ typedef struct station_snap_slot {
 struct station {
 	char name[CFG_NAME_MAX];
 	double vessel_max_ml;
+	double read_interval_s;
 	store_t *store;
 
 	/* devices: touched only by the station thread (and by
@@ -64,6 +65,7 @@ struct station {
 	calib_session_t *cal;   /* the station's calibration, NULL when none */
 	int64_t cal_id;
 	int64_t cal_logged_id; /* calibration whose end is in the audit trail */
+	char cal_actor[64];    /* the token's name that started cal_id */
 	bool cal_dirty;        /* state changed by an HTTP call: the thread stores it */
 	bool has_valid_cal;    /* valid_cal: latest accepted calibration, for live pH */
 	calib_result_t valid_cal;

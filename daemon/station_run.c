@@ -341,24 +341,35 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 	drv_burette_status_t bs = {0};
 	drv_err_t err = {{0}};
 	double titer = 1.0, blank = 0;
+	store_source_t src;
 	station_snapshot_t snap;
 
 	memset(p, 0, sizeof *p);
 	p->amount = r->job->amount;
-	if (store_titrant_get(s->store, m->titrant_name, &titer) != STORE_OK || !(titer > 0))
+	if (store_titrant_get(s->store, m->titrant_name, &titer, &src) == STORE_OK && titer > 0) {
+		snprintf(r->rec.titrant.titer_at, sizeof r->rec.titrant.titer_at, "%s", src.at);
+		r->rec.titrant.titer_run_id = src.run_id;
+	} else {
 		titer = 1.0;
+	}
 	p->titer = titer;
 	/* Blanks belong to the titrant (docs/calibration.md): a blank run of
-	 * one method serves every assay that uses the same titrant. */
-	if (store_blank_get(s->store, m->titrant_name, &blank) == STORE_OK) {
+	 * one method serves every assay that uses the same titrant. A blank
+	 * run itself uses none. */
+	if (m->purpose != PURPOSE_BLANK &&
+	    store_blank_get(s->store, m->titrant_name, &blank, &src) == STORE_OK) {
 		p->has_blank = true;
 		p->blank_ml = blank;
+		r->rec.titrant.blank_ml = blank;
+		snprintf(r->rec.titrant.blank_at, sizeof r->rec.titrant.blank_at, "%s", src.at);
+		r->rec.titrant.blank_run_id = src.run_id;
 	}
 	p->burette_capacity_ml = s->info.capacity_ml;
 	p->burette_steps = s->info.steps;
 	p->burette_content_ml = burette_status(r, &bs, &err) ? bs.contents_ml : NAN;
 	r->burette_start_ml = bs.dispensed_ml;
 	p->vessel_max_ml = s->vessel_max_ml;
+	p->read_interval_s = s->read_interval_s;
 	r->rec.titrant.titer = titer;
 
 	station_snapshot(s, &snap);
@@ -377,6 +388,8 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 			         s->name);
 			return false;
 		}
+		json_t *cid = json_object_get(j, "id");
+		r->rec.calibration.id = json_is_integer(cid) ? json_integer_value(cid) : 0;
 		json_decref(j);
 		p->has_calibration = true;
 		p->cal_slope_pct = cal.slope_pct;
@@ -491,14 +504,15 @@ static void keep_outcome(run_t *r, const stdz_note_t *n)
 	const method_t *m = &r->job->method;
 	const char *st = r->s->name;
 	int64_t id = r->job->run_id;
+	/* what the run measured is on the name of whoever queued it */
+	const char *who = r->job->requested_by[0] ? r->job->requested_by : "daemon";
 	char at[32], msg[400];
 
 	now_text(at);
 	if (m->purpose == PURPOSE_STANDARDIZE && n->have && !n->complete) {
 		snprintf(msg, sizeof msg, "%s: titer %.6f, replicate %d of %d", m->titrant_name,
 		         n->titer, n->replicate, n->of);
-		store_event_add(r->s->store, at, st, id, "standardization", "replicate", msg,
-		                "daemon");
+		store_event_add(r->s->store, at, st, id, "standardization", "replicate", msg, who);
 	} else if (m->purpose == PURPOSE_STANDARDIZE && n->have) {
 		if (n->res.accepted) {
 			json_t *j = stdz_json(n);
@@ -517,13 +531,13 @@ static void keep_outcome(run_t *r, const stdz_note_t *n)
 			         n->res.mean, n->res.reason);
 		}
 		store_event_add(r->s->store, at, st, id, "standardization",
-		                n->res.accepted ? "accepted" : "rejected", msg, "daemon");
+		                n->res.accepted ? "accepted" : "rejected", msg, who);
 		log_notice("station %s run %lld: %s", st, (long long)id, msg);
 	} else if (m->purpose == PURPOSE_BLANK && engine_n_endpoints(r->e) > 0) {
 		double v = engine_endpoint(r->e, 0)->volume_ml;
 		store_blank_set(r->s->store, m->titrant_name, v, at, id);
 		snprintf(msg, sizeof msg, "%s: blank %.4f mL stored", m->titrant_name, v);
-		store_event_add(r->s->store, at, st, id, "blank", "stored", msg, "daemon");
+		store_event_add(r->s->store, at, st, id, "blank", "stored", msg, who);
 	}
 }
 
@@ -623,6 +637,7 @@ void station_run_job(station_t *s, station_job_t *job)
 	snprintf(r.rec.sample.id, sizeof r.rec.sample.id, "%s", job->sample_id);
 	r.rec.sample.amount = job->amount;
 	snprintf(r.rec.queued_at, sizeof r.rec.queued_at, "%s", job->queued_at);
+	snprintf(r.rec.requested_by, sizeof r.rec.requested_by, "%s", job->requested_by);
 	now_text(r.rec.started_at);
 	snprintf(r.rec.state, sizeof r.rec.state, "running");
 

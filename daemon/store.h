@@ -158,14 +158,23 @@ int store_run_counts(store_t *s, const char *const *states, long *n, int n_state
 
 /* ---- titrants, blanks ---- */
 
-store_status_t store_titrant_get(store_t *s, const char *name, double *titer);
+/* Where a stored titer or blank came from: when, and the run that measured
+ * it (0 when none). */
+typedef struct store_source {
+	char at[32];
+	int64_t run_id;
+} store_source_t;
+
+/* src may be NULL. */
+store_status_t store_titrant_get(store_t *s, const char *name, double *titer, store_source_t *src);
 /* replicates_json: the standardization statistics that gave the titer (JSON
  * text, stored as given), or NULL. */
 store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
                                  const char *at, int64_t run_id, const char *replicates_json);
 /* {"titrants":[{name, molarity, titer, at, run_id, standardization}]} by name. */
 json_t *store_titrants_json(store_t *s, bool *db_err);
-store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml);
+store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml,
+                               store_source_t *src);
 store_status_t store_blank_set(store_t *s, const char *method_id, double blank_ml, const char *at,
                                int64_t run_id);
 

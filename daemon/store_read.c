@@ -460,36 +460,42 @@ int store_run_counts(store_t *s, const char *const *states, long *n, int n_state
 
 /* ---- titrants, blanks ---- */
 
-store_status_t store_titrant_get(store_t *s, const char *name, double *titer)
+/* One stored value of a titrant (titer or blank) with where it came from. */
+static store_status_t value_get(store_t *s, const char *sql, const char *key, double *value,
+                                store_source_t *src)
 {
 	rq_t q;
 	store_status_t ret = STORE_NOT_FOUND;
 
-	if (rq_open(&q, s, "SELECT titer FROM titrants WHERE name=?"))
+	if (src)
+		memset(src, 0, sizeof *src);
+	if (rq_open(&q, s, sql))
 		return STORE_ERR;
-	sqlite3_bind_text(q.st, 1, name, -1, SQLITE_TRANSIENT);
+	sqlite3_bind_text(q.st, 1, key, -1, SQLITE_TRANSIENT);
 	if (sqlite3_step(q.st) == SQLITE_ROW) {
-		*titer = sqlite3_column_double(q.st, 0);
+		*value = sqlite3_column_double(q.st, 0);
+		if (src) {
+			const char *at = (const char *)sqlite3_column_text(q.st, 1);
+			snprintf(src->at, sizeof src->at, "%s", at ? at : "");
+			src->run_id = sqlite3_column_int64(q.st, 2);
+		}
 		ret = STORE_OK;
 	}
 	rq_close(&q);
 	return ret;
 }
 
-store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml)
+store_status_t store_titrant_get(store_t *s, const char *name, double *titer, store_source_t *src)
 {
-	rq_t q;
-	store_status_t ret = STORE_NOT_FOUND;
+	return value_get(s, "SELECT titer, at, run_id FROM titrants WHERE name=?", name, titer,
+	                 src);
+}
 
-	if (rq_open(&q, s, "SELECT volume_ml FROM blanks WHERE method_id=?"))
-		return STORE_ERR;
-	sqlite3_bind_text(q.st, 1, method_id, -1, SQLITE_TRANSIENT);
-	if (sqlite3_step(q.st) == SQLITE_ROW) {
-		*blank_ml = sqlite3_column_double(q.st, 0);
-		ret = STORE_OK;
-	}
-	rq_close(&q);
-	return ret;
+store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml,
+                               store_source_t *src)
+{
+	return value_get(s, "SELECT volume_ml, at, run_id FROM blanks WHERE method_id=?", method_id,
+	                 blank_ml, src);
 }
 
 /* ---- calibrations ---- */
