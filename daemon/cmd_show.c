@@ -29,16 +29,38 @@ static void print_record(const json_t *r)
 	       json_is_integer(rev) ? (long long)json_integer_value(rev) : 0LL);
 	printf("  sample       %s, %s %s\n", client_str(s, "id", "-"),
 	       client_fmt(b1, sizeof b1, client_num(s, "amount"), 4), client_str(s, "unit", ""));
-	printf("  titrant      %s, %s mol/L, titer %s\n", client_str(t, "name", "-"),
+	printf("  titrant      %s, %s mol/L, titer %s", client_str(t, "name", "-"),
 	       client_fmt(b1, sizeof b1, client_num(t, "molarity"), 4),
 	       client_fmt(b2, sizeof b2, client_num(t, "titer"), 4));
-	if (json_is_object(cal))
-		printf("  calibration  slope %s %%, offset %s mV, at %s\n",
+	json_t *tr = json_object_get(t, "titer_run_id");
+	if (json_is_integer(tr))
+		printf(" (run %lld, %s)", (long long)json_integer_value(tr),
+		       client_str(t, "titer_at", "-"));
+	else
+		printf(" (none stored)");
+	printf("\n");
+	if (isfinite(client_num(t, "blank_ml"))) {
+		json_t *br = json_object_get(t, "blank_run_id");
+		printf("  blank        %s mL",
+		       client_fmt(b1, sizeof b1, client_num(t, "blank_ml"), 4));
+		if (json_is_integer(br))
+			printf(" (run %lld, %s)", (long long)json_integer_value(br),
+			       client_str(t, "blank_at", "-"));
+		printf("\n");
+	}
+	if (json_is_object(cal)) {
+		json_t *cid = json_object_get(cal, "id");
+		printf("  calibration  ");
+		if (json_is_integer(cid))
+			printf("%lld: ", (long long)json_integer_value(cid));
+		printf("slope %s %%, offset %s mV, at %s\n",
 		       client_fmt(b1, sizeof b1, client_num(cal, "slope_pct"), 1),
 		       client_fmt(b2, sizeof b2, client_num(cal, "offset_mv"), 1),
 		       client_str(cal, "at", "-"));
-	else
+	} else {
 		printf("  calibration  none\n");
+	}
+	printf("  requested by %s\n", client_str(r, "requested_by", "-"));
 	printf("  queued       %s\n", client_str(r, "queued_at", "-"));
 	printf("  started      %s\n", client_str(r, "started_at", "-"));
 	printf("  ended        %s\n", client_str(r, "ended_at", "-"));

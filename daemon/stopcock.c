@@ -19,6 +19,8 @@ static const struct {
 	{"abort", cmd_abort, "abort RUN"},
 	{"halt", cmd_halt, "halt --station N"},
 	{"calibrate", cmd_calibrate, "calibrate --station N --buffers 4.01,7.00,10.01"},
+	{"titrants", cmd_titrants, "titrants                      stored titers and how they were found"},
+	{"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
 	{"ports", cmd_ports, "ports                         list serial ports"},
 };
 

@@ -270,6 +270,8 @@ def finished(bench, calibrated):
     ["calibrate", "--station", "sim1", "--buffers", "4.01,15"],
     ["status", "--url", "https://127.0.0.1:1"], ["status", "--url", "127.0.0.1:8470"],
     ["status", "--url"],
+    ["titrants", "extra"], ["events", "--after", "x"], ["events", "--after", "-1"],
+    ["events", "--limit", "0"], ["events", "--limit", "1001"], ["events", "extra"],
 ])
 def test_bad_arguments_exit_2(args):
     r = cli(*args, env=dict(os.environ, STOPCOCK_URL="http://127.0.0.1:9"))

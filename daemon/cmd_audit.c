@@ -1,0 +1,125 @@
+/* cmd_audit.c: `stopcock titrants` and `stopcock events`, the two read-only
+ * views a lab needs to show where a result's titer came from and who did
+ * what (GET /v1/titrants and GET /v1/events, docs/api.md). */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "client.h"
+#include "cmd.h"
+
+/* ---- titrants ---- */
+
+int cmd_titrants(int argc, char **argv)
+{
+	static const char usage[] = "titrants";
+	client_t c;
+	client_init(&c, "titrants");
+	int pos, early = client_parse(&c, argc, argv, usage, NULL, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
+	json_t *j = NULL;
+	int rc = client_json(&c, "GET", "/v1/titrants", NULL, false, &j, NULL);
+	if (rc == 0) {
+		json_t *list = json_object_get(j, "titrants");
+		if (!json_is_array(list)) {
+			client_say(&c, "stopcockd's titrant list is not a list");
+			rc = -1;
+		} else if (json_array_size(list) == 0) {
+			printf("no titer stored yet: run a standardization method\n");
+		} else {
+			printf("%-24s %10s %8s %4s %8s  %-20s %s\n", "TITRANT", "MOL/L", "TITER",
+			       "N", "RSD_%", "STANDARDIZED", "RUN");
+			size_t i;
+			json_t *t;
+			json_array_foreach(list, i, t)
+			{
+				char b1[32], b2[32], b3[32];
+				const json_t *st = json_object_get(t, "standardization");
+				const json_t *n = json_object_get(st, "n");
+				const json_t *run = json_object_get(t, "run_id");
+				char ns[16] = "-", runs[24] = "-";
+				if (json_is_integer(n))
+					snprintf(ns, sizeof ns, "%lld",
+					         (long long)json_integer_value(n));
+				if (json_is_integer(run))
+					snprintf(runs, sizeof runs, "%lld",
+					         (long long)json_integer_value(run));
+				printf("%-24s %10s %8s %4s %8s  %-20s %s\n",
+				       client_str(t, "name", "?"),
+				       client_fmt(b1, sizeof b1, client_num(t, "molarity"), 4),
+				       client_fmt(b2, sizeof b2, client_num(t, "titer"), 4), ns,
+				       client_fmt(b3, sizeof b3, client_num(st, "rsd_pct"), 3),
+				       client_str(t, "at", "-"), runs);
+			}
+		}
+	}
+	json_decref(j);
+	return client_exit(&c, rc);
+}
+
+/* ---- events ---- */
+
+int cmd_events(int argc, char **argv)
+{
+	static const char usage[] = "events [--after SEQ] [--limit N]";
+	const char *after_s = NULL, *limit_s = NULL;
+	const client_arg_t args[] = {
+	    {"after", &after_s, NULL}, {"limit", &limit_s, NULL}, {NULL, NULL, NULL}};
+	client_t c;
+	client_init(&c, "events");
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
+	long long after = 0, limit = 100;
+	if (after_s && !(client_parse_id(after_s, &after) || !strcmp(after_s, "0")))
+		return client_usage(&c, usage, "--after must be an event number >= 0 (got '%s')",
+		                    after_s);
+	if (limit_s && (!client_parse_id(limit_s, &limit) || limit > 1000))
+		return client_usage(&c, usage, "--limit must be 1 to 1000 (got '%s')", limit_s);
+	char path[96];
+	snprintf(path, sizeof path, "/v1/events?after=%lld&limit=%lld", after, limit);
+	json_t *j = NULL;
+	int rc = client_json(&c, "GET", path, NULL, false, &j, NULL);
+	if (rc == 0) {
+		json_t *list = json_object_get(j, "events");
+		if (!json_is_array(list)) {
+			client_say(&c, "stopcockd's event list is not a list");
+			rc = -1;
+		} else {
+			printf("%6s  %-20s %-12s %-16s %-10s %-8s %s\n", "SEQ", "AT", "ACTOR",
+			       "EVENT", "STATION", "RUN", "MESSAGE");
+			size_t i;
+			json_t *e;
+			json_array_foreach(list, i, e)
+			{
+				const json_t *id = json_object_get(e, "id"),
+				             *run = json_object_get(e, "run_id");
+				char what[64], runs[24] = "-";
+				snprintf(what, sizeof what, "%s %s", client_str(e, "kind", "?"),
+				         client_str(e, "code", ""));
+				if (json_is_integer(run))
+					snprintf(runs, sizeof runs, "%lld",
+					         (long long)json_integer_value(run));
+				printf("%6lld  %-20s %-12s %-16s %-10s %-8s %s\n",
+				       json_is_integer(id) ? (long long)json_integer_value(id)
+				                           : 0LL,
+				       client_str(e, "at", "-"), client_str(e, "actor", "-"), what,
+				       client_str(e, "station", "-"), runs,
+				       client_str(e, "message", ""));
+			}
+			const json_t *next = json_object_get(j, "next_after");
+			if (json_is_integer(next))
+				/* on stderr, so the table on stdout stays a table */
+				fprintf(stderr, "next: stopcock events --after %lld\n",
+				        (long long)json_integer_value(next));
+		}
+	}
+	json_decref(j);
+	return client_exit(&c, rc);
+}
