@@ -272,6 +272,8 @@ static void evaluate(engine_t *e)
 		     * practice, CHECKS.md 10). */
 		    .sigma_signal = fmax(0.002, e->m.still_within / 2),
 		    .sigma_ml = e->quantum_ml,
+		    .activity = true,
+		    .temperature_c = t_c,
 		};
 		if (e->m.signal == SIGNAL_MV) {
 			double slope = e->p.has_calibration ? e->p.cal_slope_pct : 100.0;
