@@ -46,6 +46,10 @@ typedef struct modelfit_ctx {
 	double sig_per_ph;   /* 1 for signal ph; -k(T)*slope for mV */
 	double sigma_signal; /* reading noise estimate, signal units */
 	double sigma_ml;     /* volume resolution, mL */
+	/* Activity coefficients (Davies, chem.h) in the fit: true for real
+	 * solutions; false fits concentrations as activities (apparent pKa). */
+	bool activity;
+	double temperature_c; /* for Davies A */
 } modelfit_ctx_t;
 
 /* Least-squares fit of the acid-base model (group amounts, pKa values,

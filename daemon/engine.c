@@ -272,6 +272,10 @@ static void evaluate(engine_t *e)
 		     * practice, CHECKS.md 10). */
 		    .sigma_signal = fmax(0.002, e->m.still_within / 2),
 		    .sigma_ml = e->quantum_ml,
+		    /* a real beaker's electrode reads a(H+), and its activity
+		     * coefficients move with the ionic strength (modelfit.c) */
+		    .activity = true,
+		    .temperature_c = t_c,
 		};
 		if (e->m.signal == SIGNAL_MV) {
 			double slope = e->p.has_calibration ? e->p.cal_slope_pct : 100.0;
