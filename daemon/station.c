@@ -536,7 +536,7 @@ static void idle_tick(station_t *s, double *next_read)
 		}
 		note_health(s, "burette", &s->bur_bad, ok, err.msg);
 	}
-	if (s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad)
+	if (s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad && !s->n_pending)
 		station_set_error(s, "");
 	set_state(s, s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad ? "idle"
 	                                                                          : "offline");
@@ -550,13 +550,15 @@ static void *station_main(void *arg)
 	open_devices(s, true);
 	for (;;) {
 		station_job_t *job = NULL;
+		int unstored = station_store_pending(s, false);
 		pthread_mutex_lock(&s->lock);
 		atomic_store_explicit(&s->heartbeat_us, notify_now_us(), memory_order_relaxed);
 		if (s->stop_req) {
 			station_unlock(s);
 			break;
 		}
-		if (s->qn && !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
+		if (s->qn && !unstored &&
+		    !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
 			job = s->queue[0];
 			memmove(s->queue, s->queue + 1, (size_t)(s->qn - 1) * sizeof s->queue[0]);
 			s->qn--;
@@ -592,6 +594,14 @@ static void *station_main(void *arg)
 	}
 	/* Shutting down: halt the burette, end queued runs. */
 	station_halt_burette(s, "daemon stopping");
+	/* A last try for unstored final records; those still refused end as
+	 * `interrupted` at the next start, their points kept. */
+	if (station_store_pending(s, true))
+		log_err("station %s: %d final record(s) could not be stored before stopping",
+		        s->name, s->n_pending);
+	for (int i = 0; i < s->n_pending; i++)
+		free(s->pending[i].record_json);
+	s->n_pending = 0;
 	if (s->stir_open) {
 		drv_err_t err = {{0}};
 		drv_stirrer_set(&s->stir, false, 0, &err);

@@ -17,7 +17,10 @@
 
 /* One published snapshot as relaxed atomic words: a seqlock whose data are
  * atomics is race-free in C11 terms (and to ThreadSanitizer). */
-#define STATION_SNAP_WORDS ((sizeof(station_snapshot_t) + 7) / 8)
+#define STATION_SNAP_WORDS      ((sizeof(station_snapshot_t) + 7) / 8)
+#define STATION_MAX_PENDING     8   /* final records kept for another try */
+#define STATION_PENDING_RETRY_S 1.0 /* between tries, s */
+
 typedef struct station_snap_slot {
 	_Atomic uint64_t w[STATION_SNAP_WORDS];
 } station_snap_slot_t;
@@ -69,6 +72,19 @@ struct station {
 	bool cal_dirty;        /* state changed by an HTTP call: the thread stores it */
 	bool has_valid_cal;    /* valid_cal: latest accepted calibration, for live pH */
 	calib_result_t valid_cal;
+
+	/* Final records the store refused (disk full, I/O error), kept to be
+	 * stored again (station_store_pending); station thread only. While any
+	 * is pending the station starts no run: it doses nothing it cannot
+	 * record. */
+	struct station_pending {
+		int64_t run_id;
+		char state[16];
+		char *record_json; /* malloc'd */
+		int tries;
+	} pending[STATION_MAX_PENDING];
+	int n_pending;
+	double pending_next_s; /* monotonic time of the next try */
 };
 
 /* Publish snap for readers and release `lock` (use after any change of snap). */
@@ -91,5 +107,10 @@ void station_set_error(station_t *s, const char *msg);
 
 /* Execute one run to its end (station_run.c). */
 void station_run_job(station_t *s, station_job_t *job);
+
+/* Try again to store the final records the store refused, at most every
+ * STATION_PENDING_RETRY_S unless `now` is set. Returns how many are still
+ * pending. */
+int station_store_pending(station_t *s, bool now);
 
 #endif

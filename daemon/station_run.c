@@ -541,6 +541,58 @@ static void keep_outcome(run_t *r, const stdz_note_t *n)
 	}
 }
 
+/* Keep a final record the store refused (takes `text`). With the list full
+ * the oldest goes: a restart still ends that run as `interrupted`. */
+static void keep_pending(station_t *s, int64_t run_id, const char *state, char *text)
+{
+	if (!text)
+		return;
+	if (s->n_pending == STATION_MAX_PENDING) {
+		log_err("station %s: dropping the unstored final record of run %lld", s->name,
+		        (long long)s->pending[0].run_id);
+		free(s->pending[0].record_json);
+		memmove(s->pending, s->pending + 1,
+		        (STATION_MAX_PENDING - 1) * sizeof s->pending[0]);
+		s->n_pending--;
+	}
+	struct station_pending *p = &s->pending[s->n_pending++];
+	p->run_id = run_id;
+	snprintf(p->state, sizeof p->state, "%s", state);
+	p->record_json = text;
+	p->tries = 1;
+	s->pending_next_s = station_mono_s() + STATION_PENDING_RETRY_S;
+	station_set_error(s, "the database refuses writes (disk full?): a run's final record "
+	                     "waits to be stored and no run starts until it is");
+}
+
+int station_store_pending(station_t *s, bool now)
+{
+	if (s->n_pending == 0 || (!now && station_mono_s() < s->pending_next_s))
+		return s->n_pending;
+	s->pending_next_s = station_mono_s() + STATION_PENDING_RETRY_S;
+	while (s->n_pending > 0) {
+		struct station_pending *p = &s->pending[0];
+		int64_t seq = 0;
+		store_status_t st =
+		    store_run_finish(s->store, p->run_id, p->state, p->record_json, &seq);
+		if (st == STORE_ERR) {
+			p->tries++;
+			return s->n_pending;
+		}
+		/* Stored, or already final / gone (nothing left to do for it). */
+		if (st == STORE_OK)
+			log_notice(
+			    "station %s run %lld: final record stored after %d tries, seq %lld",
+			    s->name, (long long)p->run_id, p->tries + 1, (long long)seq);
+		free(p->record_json);
+		memmove(s->pending, s->pending + 1,
+		        (size_t)(s->n_pending - 1) * sizeof s->pending[0]);
+		s->n_pending--;
+	}
+	station_set_error(s, "");
+	return 0;
+}
+
 static void finish(run_t *r)
 {
 	const char *state = final_state(r);
@@ -577,9 +629,13 @@ static void finish(run_t *r)
 		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		json_decref(j);
 	}
-	if (store_run_finish(r->s->store, r->job->run_id, state, text, &seq) != STORE_OK)
-		log_err("station %s run %lld: could not store the final record", r->s->name,
-		        (long long)r->job->run_id);
+	if (store_run_finish(r->s->store, r->job->run_id, state, text, &seq) != STORE_OK) {
+		log_err("station %s run %lld: could not store the final record; keeping it to "
+		        "store again",
+		        r->s->name, (long long)r->job->run_id);
+		keep_pending(r->s, r->job->run_id, state, text);
+		text = NULL;
+	}
 	free(text);
 	if (!strcmp(state, "finished"))
 		keep_outcome(r, &note);
