@@ -149,9 +149,12 @@ static void open_devices(station_t *s, bool force)
 		}
 	}
 	if (s->has_stirrer && !s->stir_open) {
-		if (drv_stirrer_open(&s->stir, &err) == DRV_OK)
+		if (drv_stirrer_open(&s->stir, &err) == DRV_OK) {
 			s->stir_open = true;
-		else
+			/* Its state is unknown (a crash may have left it on):
+			 * count it on, so idle_tick turns it off. */
+			s->stir_on = true;
+		} else
 			log_warn("station %s: stirrer: %s", s->name, err.msg);
 	}
 }
@@ -499,6 +502,18 @@ static void idle_tick(station_t *s, double *next_read)
 	bool measuring, dirty;
 
 	open_devices(s, false);
+	/* No run: the stirrer should be off. An off that failed (its link was
+	 * the thing that failed, e.g. a Modbus line shared with the probe) is
+	 * tried again until it is answered. */
+	if (s->stir_open && s->stir_on && now >= s->stir_retry_s) {
+		drv_err_t serr = {{0}};
+		if (drv_stirrer_set(&s->stir, false, 0, &serr) == DRV_OK) {
+			s->stir_on = false;
+			log_info("station %s: stirrer off", s->name);
+		} else {
+			s->stir_retry_s = now + REOPEN_S;
+		}
+	}
 	pthread_mutex_lock(&s->lock);
 	measuring = s->cal && calib_session_state(s->cal) == CALIB_MEASURING;
 	if (s->halt_req) {

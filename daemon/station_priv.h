@@ -84,6 +84,7 @@ struct station {
 		int tries;
 	} pending[STATION_MAX_PENDING];
 	int n_pending;
+	double stir_retry_s; /* monotonic time of the next stirrer-off try while idle */
 	double pending_next_s; /* monotonic time of the next try */
 };
 

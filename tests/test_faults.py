@@ -126,6 +126,12 @@ def scenario(bench, kind, seconds):
     # ... and not moving again once it is gone: nothing resumes by itself.
     still, a, b = bench.burette_still(for_s=0.5)
     assert still, (kind, "burette moving after clear", a, b)
+    # The run is over, so the stirrer goes off, even when its line (shared
+    # with the probe) was the one that failed: the station tries again.
+    t_clear = time.monotonic()
+    while bench.sim_state()["stirrer"]:
+        assert time.monotonic() - t_clear < 8, (kind, "stirrer still on after clear")
+        time.sleep(0.1)
     after = bench.measured(rid)
     assert after[:len(shown)] == shown, "a point the API had shown changed or vanished"
     assert bench.get("/v1/health")["status"] == "ok"
