@@ -206,10 +206,16 @@ static void load_tokens(const cfg_t *cfg, http_ctx_t *ctx)
 	http_set_tokens(ctx, &t);
 }
 
-/* Stations answered once (or READY_WAIT_S passed). */
-static void wait_for_stations(station_t **st, int n)
+/* Stations answered once (or READY_WAIT_S passed). SIGTERM or SIGINT ends
+ * the wait at once (systemd stopping a daemon whose devices are absent must
+ * not wait for them): returns that signal, else 0. */
+static int wait_for_stations(station_t **st, int n)
 {
 	struct timespec start, now;
+	sigset_t stop;
+	sigemptyset(&stop);
+	sigaddset(&stop, SIGTERM);
+	sigaddset(&stop, SIGINT);
 	clock_gettime(CLOCK_MONOTONIC, &start);
 	for (;;) {
 		int offline = 0;
@@ -223,15 +229,17 @@ static void wait_for_stations(station_t **st, int n)
 			}
 		}
 		if (!offline)
-			return;
+			return 0;
 		clock_gettime(CLOCK_MONOTONIC, &now);
 		if ((double)(now.tv_sec - start.tv_sec) > READY_WAIT_S) {
 			log_warn("station %s: devices not answering; starting anyway, retrying",
 			         name);
-			return;
+			return 0;
 		}
 		notify_status("waiting for station %s", name);
-		nanosleep(&(struct timespec){0, 100 * 1000 * 1000}, NULL);
+		int sig = sigtimedwait(&stop, NULL, &(struct timespec){0, 100 * 1000 * 1000});
+		if (sig == SIGTERM || sig == SIGINT)
+			return sig;
 	}
 }
 
@@ -380,7 +388,18 @@ int main(int argc, char **argv)
 	log_notice("listening on %s:%d, %d station%s, database %s", cfg.listen_addr,
 	           cfg.listen_port, n, n == 1 ? "" : "s", cfg.database);
 	daemon_event(store, "start", "stopcockd " STOPCOCK_VERSION " started", "daemon");
-	wait_for_stations(stations, n);
+	{
+		int sig = wait_for_stations(stations, n);
+		if (sig) {
+			log_notice("signal %d while waiting for the devices: stopping", sig);
+			daemon_event(store, "stop",
+			             sig == SIGTERM ? "stopping on SIGTERM" : "stopping on SIGINT",
+			             "signal");
+			notify_stopping();
+			rc = 0;
+			goto out;
+		}
+	}
 	notify_ready();
 	set_status(stations, n);
 

@@ -6,6 +6,7 @@ listen address is loopback; path and id parameters are validated (no
 traversal, no SQL from strings); limits on connections, idle connections and
 body sizes hold, and the daemon keeps answering after each."""
 import pathlib
+import signal
 import re
 import socket
 import subprocess
@@ -147,7 +148,6 @@ stations:
                          stderr=subprocess.STDOUT, text=True)
     seen = ""
     deadline = time.monotonic() + 20
-    # (stopcockd waits up to 15 s for absent devices before it takes SIGTERM)
     try:
         while time.monotonic() < deadline:
             line = p.stdout.readline()
@@ -160,6 +160,49 @@ stations:
         p.terminate()
         p.wait(timeout=30)
     assert re.search(r"(listening on|cannot listen on) 127\.0\.0\.1:8470", seen), seen
+
+
+def test_sigterm_while_devices_are_absent_stops_at_once(tmp_path):
+    # Start-up waits up to 15 s for a station's devices before READY=1; a
+    # SIGTERM in that wait (systemd stopping a bench whose pump is unplugged)
+    # must end it at once, with a clean exit.
+    port = db.free_port()
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text(f"""http: {{listen: 127.0.0.1:{port}}}
+storage: {{database: {tmp_path}/x.db}}
+stations:
+  - name: s1
+    vessel_max_ml: 100
+    burette: {{driver: pump-serial, port: {tmp_path}/none, profile: {rb.FAST_PUMP}}}
+    probe: {{driver: probe-modbus, transport: tcp, host: 127.0.0.1, port: 1, unit: 1,
+            registers: {{mv: {{table: input, address: 0, type: float32, word_order: big}}}}}}
+""")
+    p = subprocess.Popen([db.binary("stopcockd"), "-c", str(cfg)], stdout=subprocess.PIPE,
+                         stderr=subprocess.STDOUT, text=True)
+    seen = ""
+    try:
+        deadline = time.monotonic() + 20
+        while time.monotonic() < deadline:
+            line = p.stdout.readline()
+            seen += line
+            if not line or "listening on" in line:
+                break
+        assert "listening on" in seen, seen
+        time.sleep(0.5)  # in the wait for the devices now
+        t0 = time.monotonic()
+        p.send_signal(signal.SIGTERM)
+        rc = p.wait(timeout=30)
+        took = time.monotonic() - t0
+    finally:
+        if p.poll() is None:
+            p.kill()
+            p.wait()
+    seen += p.stdout.read()
+    assert rc == 0, seen
+    # Bounded by one device deadline (the stations halt their burettes on
+    # the way out), not by the 15 s wait.
+    assert took < 3.0, (took, seen)
+    assert "while waiting for the devices: stopping" in seen, seen
 
 
 def daemon_sockets(bench):
