@@ -262,8 +262,19 @@ static int find_inflections(const method_t *m, const engine_point_t *pts, int n,
 		memset(&ep, 0, sizeof ep);
 		ep.volume_ml = refine_peak(sg, ms, k);
 		fill_point_fields(pts, n, &ep);
-		if (m->has_window && (ep.signal < m->window_lo || ep.signal > m->window_hi))
-			continue;
+		/* In the window when the refined endpoint's signal is, or when
+		 * the steepest step itself crosses into it: a jump taken in one
+		 * addition leaves the refined volume anywhere on that step (its
+		 * interpolated signal may fall short of the window while the
+		 * step spans it). */
+		if (m->has_window) {
+			double s_lo = fmin(pts[k].signal, pts[k + 1].signal);
+			double s_hi = fmax(pts[k].signal, pts[k + 1].signal);
+			bool in = ep.signal >= m->window_lo && ep.signal <= m->window_hi;
+			bool spans = s_hi >= m->window_lo && s_lo <= m->window_hi;
+			if (!in && !spans)
+				continue;
+		}
 		ep.how = "inflection";
 		tmp[ntmp++] = ep;
 	}

@@ -381,8 +381,20 @@ static double hyperbolic_dose(const engine_t *e, double aim)
 		return INFINITY;
 	double v0m = (a->volume_ml + z->volume_ml) / 2, v1m = (b->volume_ml + a->volume_ml) / 2;
 	double ve = (s1 * v1m - s0 * v0m) / (s1 - s0);
-	if (!(ve > b->volume_ml))
-		return INFINITY;
+	if (!(ve > b->volume_ml)) {
+		/* The slope rose faster than the law allows: the last point is
+		 * already on the jump. Near any acid-base equivalence point the
+		 * signal moves at least one decade per decade of the remaining
+		 * volume (amplitude 1/ln 10 pH, or a Nernst slope over ln 10 in
+		 * mV), so the remaining volume is at most amp / slope, with the
+		 * slope at the last point taken as the last secant grown once
+		 * more by its growth ratio. Without this a jump can be crossed in
+		 * one addition, leaving no point on it. */
+		double amp =
+		    (e->m.signal == SIGNAL_MV ? chem_nernst_mv(25.0) : 1.0) / 2.302585092994046;
+		double sb = s1 * fmin(s1 / s0, 10.0);
+		return amp / sb * (1.0 - exp(-aim / amp));
+	}
 	double amp = s1 * (ve - v1m);
 	if (!(amp > 0))
 		return INFINITY;
