@@ -33,17 +33,17 @@ PKG_LIBS = $(shell pkg-config --libs $(PKGS))
 
 WARN := -Wall -Wextra -Werror -Wshadow -Wformat=2 -Wstrict-prototypes -Wmissing-prototypes
 BASE_CFLAGS = -std=c17 -D_GNU_SOURCE -DSTOPCOCK_VERSION='"$(VERSION)"' \
-	-DSTOPCOCK_DATADIR='"$(DATADIR)"' $(WARN) -Idaemon -Idrivers $(PKG_CFLAGS)
+	-DSTOPCOCK_DATADIR='"$(DATADIR)"' $(WARN) -Idaemon/lib -Idaemon -Idrivers $(PKG_CFLAGS)
 REL_CFLAGS = $(BASE_CFLAGS) -O2 -g
 SAN_FLAGS := -fsanitize=address,undefined -fno-sanitize-recover=undefined -fno-omit-frame-pointer
 SAN_CFLAGS = $(BASE_CFLAGS) -O1 -g $(SAN_FLAGS)
 LDLIBS = $(PKG_LIBS) -lpthread -lm
 
 MAIN_SRC := daemon/stopcockd.c daemon/stopcock.c daemon/stopcock_sim.c
-LIB_SRC = $(filter-out $(MAIN_SRC),$(sort $(wildcard daemon/*.c) $(wildcard drivers/*.c)))
+LIB_SRC = $(filter-out $(MAIN_SRC),$(sort $(wildcard daemon/*.c daemon/lib/*.c) $(wildcard drivers/*.c)))
 UNIT_SRC = $(sort $(wildcard tests/unit/*.c))
 BENCH_SRC = $(sort $(wildcard tests/bench/*.c))
-HDRS = $(wildcard daemon/*.h drivers/*.h tests/unit/*.h)
+HDRS = $(wildcard daemon/*.h daemon/lib/*.h drivers/*.h tests/unit/*.h)
 
 REL := $(BUILD)/rel
 SAN := $(BUILD)/san
