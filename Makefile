@@ -25,7 +25,7 @@ DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-d
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev \
 	python3 python3-pytest python3-pytest-xdist python3-pymodbus python3-serial-asyncio python3-serial python3-scipy \
 	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
-	python3-yaml systemd strace chromium fonts-dejavu-core nodejs
+	python3-yaml systemd strace chromium fonts-dejavu-core nodejs cppcheck clang-format
 
 VERSION := 0.1.0
 PKG_CFLAGS = $(shell pkg-config --cflags $(PKGS))
@@ -33,17 +33,40 @@ PKG_LIBS = $(shell pkg-config --libs $(PKGS))
 
 WARN := -Wall -Wextra -Werror -Wshadow -Wformat=2 -Wstrict-prototypes -Wmissing-prototypes
 BASE_CFLAGS = -std=c17 -D_GNU_SOURCE -DSTOPCOCK_VERSION='"$(VERSION)"' \
-	-DSTOPCOCK_DATADIR='"$(DATADIR)"' $(WARN) -Idaemon/lib -Idaemon -Idrivers $(PKG_CFLAGS)
+	-DSTOPCOCK_DATADIR='"$(DATADIR)"' $(WARN) $(PKG_CFLAGS)
 REL_CFLAGS = $(BASE_CFLAGS) -O2 -g
 SAN_FLAGS := -fsanitize=address,undefined -fno-sanitize-recover=undefined -fno-omit-frame-pointer
 SAN_CFLAGS = $(BASE_CFLAGS) -O1 -g $(SAN_FLAGS)
 LDLIBS = $(PKG_LIBS) -lpthread -lm
 
-MAIN_SRC := daemon/stopcockd.c daemon/stopcock.c daemon/stopcock_sim.c
-LIB_SRC = $(filter-out $(MAIN_SRC),$(sort $(wildcard daemon/*.c daemon/lib/*.c) $(wildcard drivers/*.c)))
+# ---- layers (docs/architecture.md) ----
+# Each folder sees only the headers of the layers it may use, so a forbidden
+# #include fails to compile; tests/layers.py says which rule it broke.
+#   lib                       nothing of ours
+#   drivers, chem, store      lib
+#   core                      lib chem
+#   cli                       lib chem core drivers
+#   sim                       lib chem drivers
+#   server                    everything but cli and sim
+LAYERS := lib chem core store server cli sim
+INC_lib := -Idaemon/lib
+INC_drivers := $(INC_lib) -Idrivers
+INC_chem := $(INC_lib) -Idaemon/chem
+INC_store := $(INC_lib) -Idaemon/store
+INC_core := $(INC_chem) -Idaemon/core
+INC_cli := $(INC_core) -Idrivers -Idaemon/cli
+INC_sim := $(INC_chem) -Idrivers -Idaemon/sim
+INC_server := $(INC_core) -Idrivers -Idaemon/store -Idaemon/server
+# Tests, benchmarks and fuzz targets reach every layer.
+INC_tests := $(INC_server) -Idaemon/cli -Idaemon/sim -Itests/unit -Itests/bench
+layer_of = $(if $(filter drivers/%,$(1)),drivers,$(if $(filter tests/%,$(1)),tests,$(word 2,$(subst /, ,$(1)))))
+inc_for = $(INC_$(call layer_of,$(1)))
+
+MAIN_SRC := daemon/server/stopcockd.c daemon/cli/stopcock.c daemon/sim/stopcock_sim.c
+LIB_SRC = $(filter-out $(MAIN_SRC),$(sort $(foreach l,$(LAYERS),$(wildcard daemon/$(l)/*.c)) \
+	$(wildcard drivers/*.c)))
 UNIT_SRC = $(sort $(wildcard tests/unit/*.c))
 BENCH_SRC = $(sort $(wildcard tests/bench/*.c))
-HDRS = $(wildcard daemon/*.h daemon/lib/*.h drivers/*.h tests/unit/*.h)
 
 REL := $(BUILD)/rel
 SAN := $(BUILD)/san
@@ -59,20 +82,22 @@ export ASAN_OPTIONS := detect_leaks=1:abort_on_error=1
 export UBSAN_OPTIONS := print_stacktrace=1:halt_on_error=1
 
 .PHONY: all check check-run unit unit-valgrind pytest demo bench bench-run deps install \
-	uninstall clean format lint san fuzz soak
+	uninstall clean format format-check lint layers san fuzz soak
 
 all: $(REL_BINS)
 
 san: $(SAN_BINS) $(SAN)/unit_tests
 
-# ---- objects ----
-$(REL)/%.o: %.c $(HDRS)
+# ---- objects (-MMD: each object also depends on the headers it includes) ----
+$(REL)/%.o: %.c
 	@mkdir -p $(dir $@)
-	$(CC) $(REL_CFLAGS) -c $< -o $@
+	$(CC) $(REL_CFLAGS) $(call inc_for,$<) -MMD -MP -c $< -o $@
 
-$(SAN)/%.o: %.c $(HDRS)
+$(SAN)/%.o: %.c
 	@mkdir -p $(dir $@)
-	$(CC) $(SAN_CFLAGS) -c $< -o $@
+	$(CC) $(SAN_CFLAGS) $(call inc_for,$<) -MMD -MP -c $< -o $@
+
+-include $(shell find $(BUILD) -name '*.d' 2>/dev/null)
 
 $(REL)/libstopcock.a: $(call rel_obj,$(LIB_SRC))
 	@rm -f $@
@@ -83,19 +108,17 @@ $(SAN)/libstopcock.a: $(call san_obj,$(LIB_SRC))
 	ar rcs $@ $^
 
 # ---- programs ----
-$(BUILD)/bin/stopcock-sim: $(REL)/daemon/stopcock_sim.o $(REL)/libstopcock.a
+$(BUILD)/bin/stopcockd: $(REL)/daemon/server/stopcockd.o $(REL)/libstopcock.a
+$(BUILD)/bin/stopcock: $(REL)/daemon/cli/stopcock.o $(REL)/libstopcock.a
+$(BUILD)/bin/stopcock-sim: $(REL)/daemon/sim/stopcock_sim.o $(REL)/libstopcock.a
+$(REL_BINS):
 	@mkdir -p $(dir $@)
 	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
 
-$(BUILD)/bin/%: $(REL)/daemon/%.o $(REL)/libstopcock.a
-	@mkdir -p $(dir $@)
-	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
-
-$(SAN)/bin/stopcock-sim: $(SAN)/daemon/stopcock_sim.o $(SAN)/libstopcock.a
-	@mkdir -p $(dir $@)
-	$(CC) $(SAN_CFLAGS) $^ -o $@ $(LDLIBS)
-
-$(SAN)/bin/%: $(SAN)/daemon/%.o $(SAN)/libstopcock.a
+$(SAN)/bin/stopcockd: $(SAN)/daemon/server/stopcockd.o $(SAN)/libstopcock.a
+$(SAN)/bin/stopcock: $(SAN)/daemon/cli/stopcock.o $(SAN)/libstopcock.a
+$(SAN)/bin/stopcock-sim: $(SAN)/daemon/sim/stopcock_sim.o $(SAN)/libstopcock.a
+$(SAN_BINS):
 	@mkdir -p $(dir $@)
 	$(CC) $(SAN_CFLAGS) $^ -o $@ $(LDLIBS)
 
@@ -133,6 +156,8 @@ check: deps
 # Unit tests under ASan+UBSan, the same under valgrind (release build), then
 # the end-to-end tests against real processes. Nothing skips silently.
 check-run: all san $(REL)/unit_tests
+	@echo "== layers, lint (cppcheck) and format (clang-format)"
+	@$(MAKE) --no-print-directory layers lint format-check
 	@echo "== unit tests (AddressSanitizer + UBSan)"
 	$(SAN)/unit_tests
 	@echo "== unit tests (valgrind)"
@@ -175,9 +200,9 @@ FUZZ_TARGETS = $(patsubst tests/fuzz/fuzz_%.c,%,$(sort $(wildcard tests/fuzz/fuz
 FUZZ_CFLAGS = $(filter-out -Werror,$(BASE_CFLAGS)) -O1 -g -fno-omit-frame-pointer \
 	-fsanitize=address,undefined -fno-sanitize-recover=undefined
 
-$(FUZZ)/obj/%.o: %.c $(HDRS)
+$(FUZZ)/obj/%.o: %.c
 	@mkdir -p $(dir $@)
-	$(FUZZ_CC) $(FUZZ_CFLAGS) -fsanitize=fuzzer-no-link -c $< -o $@
+	$(FUZZ_CC) $(FUZZ_CFLAGS) $(call inc_for,$<) -MMD -MP -fsanitize=fuzzer-no-link -c $< -o $@
 
 $(FUZZ)/libstopcock.a: $(patsubst %.c,$(FUZZ)/obj/%.o,$(LIB_SRC))
 	@rm -f $@
@@ -207,7 +232,7 @@ install: all
 	install -m 0644 config/methods/*.yaml $(DESTDIR)$(DATADIR)/methods/
 	install -m 0644 config/pumps/*.yaml $(DESTDIR)$(DATADIR)/pumps/
 	install -m 0644 config/scenarios/*.yaml $(DESTDIR)$(DATADIR)/scenarios/
-	install -d $(DESTDIR)$(DATADIR)/www && install -m 0644 daemon/www/* $(DESTDIR)$(DATADIR)/www/
+	install -d $(DESTDIR)$(DATADIR)/www && install -m 0644 daemon/server/www/* $(DESTDIR)$(DATADIR)/www/
 	@if [ -f config/stopcockd.yaml ]; then install -m 0644 config/stopcockd.yaml \
 	  $(DESTDIR)$(SYSCONFDIR)/stopcock/stopcockd.yaml.example; fi
 	@if [ -d systemd ] && ls systemd/*.service >/dev/null 2>&1; then \
@@ -226,13 +251,29 @@ uninstall:
 	@for f in docs/*.[1-8]; do [ -f "$$f" ] || continue; s=$${f##*.}; \
 	  rm -f $(DESTDIR)$(MANDIR)/man$$s/$$(basename $$f); done
 
-# ---- code hygiene ----
-format:
-	clang-format -i daemon/*.[ch] drivers/*.[ch] tests/unit/*.[ch] $(wildcard tests/bench/*.[ch])
+# ---- code hygiene: all three run inside `make check` ----
+C_FILES = $(sort $(foreach l,$(LAYERS),$(wildcard daemon/$(l)/*.[ch])) $(wildcard drivers/*.[ch]) \
+	$(wildcard tests/unit/*.[ch] tests/bench/*.[ch] tests/fuzz/*.c))
 
+format:
+	clang-format -i $(C_FILES)
+
+# Fails on any file clang-format would change (.clang-format is the style).
+format-check:
+	@bad=0; for f in $(C_FILES); do clang-format "$$f" | cmp -s - "$$f" || \
+	  { echo "format: $$f differs from .clang-format (run make format)"; bad=1; }; done; \
+	[ $$bad = 0 ] && echo "format: $(words $(C_FILES)) files match .clang-format"
+
+# tests/lint/jansson.cfg tells cppcheck jansson's foreach macros, so no file is
+# skipped at an unknown macro.
 lint:
 	cppcheck --quiet --error-exitcode=1 --enable=warning,performance,portability \
-	  --inline-suppr --std=c11 -Idaemon -Idrivers daemon drivers
+	  --inline-suppr --std=c11 --library=tests/lint/jansson.cfg $(INC_tests) \
+	  $(foreach l,$(LAYERS),daemon/$(l)) drivers tests/unit tests/bench tests/fuzz
+	@echo "lint: cppcheck clean on $(words $(C_FILES)) files"
+
+layers:
+	@$(PYTHON) tests/lint/layers.py
 
 clean:
 	rm -rf $(BUILD)

@@ -1,6 +1,6 @@
 """chem_reference.py: an independent reference for Stopcock's chemistry model.
 
-Solves the same charge balance as daemon/chem.c, written separately in Python
+Solves the same charge balance as daemon/chem/chem.c, written separately in Python
 with scipy's brentq (Debian python3-scipy), so that the two can be held
 against each other (tests/test_chem_reference.py). The laws are the same
 published ones; the numerics are different: here the ionic strength is found

@@ -1,4 +1,4 @@
-"""Hold `stopcock curve` (daemon/chem.c) against an independent solver.
+"""Hold `stopcock curve` (daemon/chem/chem.c) against an independent solver.
 
 tests/chem_reference.py solves the same charge balance with scipy's brentq
 (nested bracketed root finds on I and pH) from the same published laws

@@ -80,9 +80,9 @@ def test_token_compare_is_constant_time_by_inspection():
     """A timing test over HTTP cannot see a nanosecond early exit, so this
     checks the code instead: the compare runs over every byte of every
     configured token, with no early return and no str/memcmp."""
-    src = (ROOT / "daemon" / "http.c").read_text()
+    src = (ROOT / "daemon" / "server" / "http.c").read_text()
     m = re.search(r"static bool ct_equal\([^)]*\)\s*\{(.*?)\n\}", src, re.S)
-    assert m, "ct_equal() is gone from daemon/http.c: check the new compare by hand"
+    assert m, "ct_equal() is gone from daemon/server/http.c: check the new compare by hand"
     body = m.group(1)
     assert "for (" in body and body.count("return") == 1, body
     assert not re.search(r"\b(str|mem|strn)cmp\b", body)

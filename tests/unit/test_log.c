@@ -64,7 +64,7 @@ static const char *capture_end(struct captured *c)
 
 TEST(log_journal_lines_carry_priority_prefix)
 {
-	struct captured c;
+	struct captured c = {0};
 	REQUIRE(capture_start(&c, true));
 	log_init("stopcockd", false);
 	log_warn("station sim1 run %d: probe silent", 12);
@@ -80,7 +80,7 @@ TEST(log_journal_lines_carry_priority_prefix)
 
 TEST(log_folds_newlines_into_one_line)
 {
-	struct captured c;
+	struct captured c = {0};
 	REQUIRE(capture_start(&c, true));
 	log_init("stopcockd", false);
 	log_info("bad reply \"a\r\nb\"");
@@ -89,7 +89,7 @@ TEST(log_folds_newlines_into_one_line)
 
 TEST(log_without_journal_has_timestamp_and_level)
 {
-	struct captured c;
+	struct captured c = {0};
 	REQUIRE(capture_start(&c, false));
 	log_init("stopcockd", false);
 	log_notice("station sim1: ready");
@@ -104,7 +104,7 @@ TEST(log_journal_stream_of_another_file_is_ignored)
 {
 	/* JOURNAL_STREAM inherited from a parent but stderr redirected elsewhere
 	 * (e.g. `stopcockd 2>file` in a unit's shell): no prefixes. */
-	struct captured c;
+	struct captured c = {0};
 	REQUIRE(capture_start(&c, false));
 	setenv("JOURNAL_STREAM", "1:1", 1);
 	log_init("stopcockd", false);

@@ -56,8 +56,13 @@ static int list_yaml(const char *dir, char ***out)
 		size_t len = strlen(e->d_name);
 		if (len < 6 || strcmp(e->d_name + len - 5, ".yaml"))
 			continue;
-		v = realloc(v, (size_t)(n + 1) * sizeof *v);
+		char **grown = realloc(v, (size_t)(n + 1) * sizeof *v);
+		if (!grown)
+			abort(); /* a test machine out of memory: stop loudly */
+		v = grown;
 		v[n] = malloc(strlen(dir) + len + 2);
+		if (!v[n])
+			abort();
 		sprintf(v[n], "%s/%s", dir, e->d_name);
 		n++;
 	}

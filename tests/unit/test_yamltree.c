@@ -1,4 +1,4 @@
-/* Tests of the strict YAML reader (daemon/yamltree.c). */
+/* Tests of the strict YAML reader (daemon/lib/yamltree.c). */
 #include <stdlib.h>
 #include <string.h>
 

@@ -17,7 +17,6 @@
 #include "config.h"
 #include "diag.h"
 #include "drv.h"
-#include "http.h"
 #include "method.h"
 
 static void usage(FILE *f)
@@ -79,8 +78,8 @@ int cmd_check(int argc, char **argv)
 			cfg_free(&cfg);
 			return 2;
 		}
-		/* The same limits as the daemon's (http_method_limits). */
-		lim.max_refills = HTTP_MAX_REFILLS;
+		/* The same rule as the daemon's (method_limits_add_station). */
+		method_limits_init(&lim);
 		for (int s = 0; s < cfg.n_stations; s++) {
 			const cfg_station_t *st = &cfg.stations[s];
 			drv_burette_t b = {0};
@@ -88,15 +87,10 @@ int cmd_check(int argc, char **argv)
 			diag_list_t bd = DIAG_LIST_INIT;
 			if (station && strcmp(st->name, station) != 0)
 				continue;
-			if (st->vessel_max_ml > 0 &&
-			    (lim.vessel_max_ml == 0 || st->vessel_max_ml < lim.vessel_max_ml))
-				lim.vessel_max_ml = st->vessel_max_ml;
 			if (drv_burette_configure(&cfg.doc, st->burette, &b, &bd) == 0) {
 				drv_burette_info(&b, &info);
-				if (info.capacity_ml > 0 &&
-				    (lim.burette_capacity_ml == 0 ||
-				     info.capacity_ml < lim.burette_capacity_ml))
-					lim.burette_capacity_ml = info.capacity_ml;
+				method_limits_add_station(&lim, st->vessel_max_ml,
+				                          info.capacity_ml);
 				drv_burette_close(&b);
 			} else {
 				/* cfg_load accepted the file, so this is the

@@ -20,10 +20,6 @@
 #include "station.h"
 #include "store.h"
 
-/* Refills a method may count on when its volume_max_ml is checked against a
- * station's burette capacity (the engine refills the syringe as needed). */
-#define HTTP_MAX_REFILLS 20
-
 typedef struct http_ctx {
 	const cfg_t *cfg;
 	store_t *store;

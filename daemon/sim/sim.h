@@ -1,4 +1,4 @@
-/* sim.h: the simulated bench of `stopcock-sim` (daemon/stopcock_sim.c).
+/* sim.h: the simulated bench of `stopcock-sim` (daemon/sim/stopcock_sim.c).
  *
  * One sim_t holds the beaker, the pump's mechanics, the transmitter's
  * register image and the injected fault, all under one mutex. Threads:

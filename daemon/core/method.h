@@ -91,6 +91,16 @@ typedef struct method_limits {
 	int max_refills;	     /* allowed refills per run (0: none) */
 } method_limits_t;
 
+/* Refills a method may count on when its volume_max_ml is checked against a
+ * station's burette capacity (the engine refills the syringe as needed). */
+#define METHOD_MAX_REFILLS 20
+
+/* The one rule for the limits a method is checked against, used by the
+ * daemon and by `stopcock check -c`: start empty, then fold in each station
+ * the method may run on; the smallest vessel and burette win. 0 = unknown. */
+void method_limits_init(method_limits_t *lim);
+void method_limits_add_station(method_limits_t *lim, double vessel_max_ml, double capacity_ml);
+
 /* Parse and validate a method. `name` is the path or name used in messages;
  * the file's base name (without .yaml) must equal `method:` when name ends in
  * ".yaml". Returns 0, or -1 with all errors added (sorted by position). */

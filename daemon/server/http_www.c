@@ -5,7 +5,7 @@
  * The page is plain files: GET / is index.html, GET /www/NAME any other file
  * of the folder. Names are checked against a strict pattern rather than
  * resolved, so no path can leave the folder. The folder is, in this order:
- * $STOPCOCK_WWW_DIR; the repository's daemon/www when the daemon runs from
+ * $STOPCOCK_WWW_DIR; the repository's daemon/server/www when the daemon runs from
  * the tree (found next to the executable, so tests need no install); the
  * installed STOPCOCK_DATADIR/www.
  */
@@ -114,8 +114,8 @@ static void find_dir(void)
 		slash = strrchr(exe, '/');
 		if (slash) {
 			*slash = '\0';
-			static const char *const up[] = {"/../../daemon/www",
-			                                 "/../../../daemon/www"};
+			static const char *const up[] = {"/../../daemon/server/www",
+			                                 "/../../../daemon/server/www"};
 			for (size_t i = 0; i < sizeof up / sizeof up[0]; i++) {
 				char cand[PATH_MAX];
 				if (snprintf(cand, sizeof cand, "%s%s", exe, up[i]) <

@@ -453,3 +453,18 @@ void mp_cross_check(mp_ctx_t *c, const yt_node_t *root)
 
 	check_limits(c);
 }
+
+void method_limits_init(method_limits_t *lim)
+{
+	memset(lim, 0, sizeof *lim);
+	lim->max_refills = METHOD_MAX_REFILLS;
+}
+
+void method_limits_add_station(method_limits_t *lim, double vessel_max_ml, double capacity_ml)
+{
+	if (vessel_max_ml > 0 && (lim->vessel_max_ml == 0 || vessel_max_ml < lim->vessel_max_ml))
+		lim->vessel_max_ml = vessel_max_ml;
+	if (capacity_ml > 0 &&
+	    (lim->burette_capacity_ml == 0 || capacity_ml < lim->burette_capacity_ml))
+		lim->burette_capacity_ml = capacity_ml;
+}

@@ -112,17 +112,12 @@ station_t *http_find_station(http_ctx_t *ctx, const char *name)
 
 void http_method_limits(http_ctx_t *ctx, station_t *st, method_limits_t *lim)
 {
-	memset(lim, 0, sizeof *lim);
-	lim->max_refills = HTTP_MAX_REFILLS;
+	method_limits_init(lim);
 	for (int i = 0; i < ctx->n_stations; i++) {
 		station_t *s = ctx->stations[i];
-		double v = station_vessel_max_ml(s), c = station_capacity_ml(s);
 		if (st && s != st)
 			continue;
-		if (v > 0 && (lim->vessel_max_ml == 0 || v < lim->vessel_max_ml))
-			lim->vessel_max_ml = v;
-		if (c > 0 && (lim->burette_capacity_ml == 0 || c < lim->burette_capacity_ml))
-			lim->burette_capacity_ml = c;
+		method_limits_add_station(lim, station_vessel_max_ml(s), station_capacity_ml(s));
 	}
 }
 
