@@ -133,14 +133,4 @@ double chem_nernst_mv(double t_c);
 double chem_mv_from_ph(double offset_mv, double slope_pct, double ph, double t_c);
 double chem_ph_from_mv(double offset_mv, double slope_pct, double mv, double t_c);
 
-/* ---- scenario files (YAML keys of INTERFACE.md) ---- */
-
-/* Parse and validate. Returns 0, or -1 with every error added to d as
- * "file:line:col: message". Defaults: temperature_c 25, activity davies,
- * water_ml 0, electrode {0, 100, 1.0, 0.1, 0}, burette {10, 20000}. */
-int scenario_load(const char *path, chem_scenario_t *s, diag_list_t *d);
-int scenario_parse(const char *name, const char *buf, size_t len, chem_scenario_t *s,
-		   diag_list_t *d);
-void scenario_defaults(chem_scenario_t *s);
-
 #endif

@@ -5,6 +5,7 @@
  * messages as `sample[N]` / `titrant[N]`, N counted from 1 as in the file.
  */
 #include "chem.h"
+#include "scenario.h"
 #include "yamltree.h"
 
 #include <math.h>

@@ -13,6 +13,7 @@
 #include <string.h>
 
 #include "chem.h"
+#include "scenario.h"
 #include "cmd.h"
 #include "diag.h"
 

@@ -19,6 +19,7 @@
 #include <string.h>
 
 #include "chem.h"
+#include "scenario.h"
 #include "cmd.h"
 #include "diag.h"
 #include "method.h"

@@ -13,6 +13,7 @@
 
 #include "chem.h"
 #include "endpoint.h"
+#include "modelfit.h"
 
 #define WIN_MAX 512 /* readings kept while settling */
 

@@ -72,6 +72,7 @@
 
 #include "chem.h"
 #include "endpoint.h"
+#include "modelfit.h"
 
 #define MF_MAX_G  (METHOD_MAX_ENDPOINTS + 1) /* two groups may share the first step */
 #define MF_MAX_NL (2 + MF_MAX_G)

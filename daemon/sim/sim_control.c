@@ -11,6 +11,7 @@
 #include <time.h>
 #include <unistd.h>
 
+#include "scenario.h"
 #include "sim.h"
 
 static double mono_s(void)

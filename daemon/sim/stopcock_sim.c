@@ -20,6 +20,7 @@
 #include <modbus.h>
 
 #include "serial.h"
+#include "scenario.h"
 #include "sim.h"
 
 typedef struct opts {

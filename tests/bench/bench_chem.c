@@ -8,6 +8,7 @@
 #include <string.h>
 
 #include "chem.h"
+#include "scenario.h"
 
 #define BATCH     200 /* solves per timed batch */
 #define BATCHES   101

@@ -12,6 +12,7 @@
 #include "drv.h"
 #include "mbus.h"
 #include "pump_profile.h"
+#include "scenario.h"
 #include "sim.h"
 
 BENCH(drv_pump_reply_parser)

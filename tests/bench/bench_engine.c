@@ -19,6 +19,7 @@
 
 #include "bench.h"
 #include "chem.h"
+#include "scenario.h"
 #include "diag.h"
 #include "method.h"
 #include "simrun.h"

@@ -5,6 +5,7 @@
 #include <stdint.h>
 
 #include "chem.h"
+#include "scenario.h"
 #include "diag.h"
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);

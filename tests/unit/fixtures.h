@@ -7,6 +7,7 @@
 #include <stdbool.h>
 
 #include "chem.h"
+#include "scenario.h"
 #include "method.h"
 
 bool fixture_method(const char *yaml, method_t *m);

@@ -11,6 +11,7 @@
 
 #include "beaker.h"
 #include "chem.h"
+#include "scenario.h"
 
 static chem_comp_t weak(const char *name, double molar, int charge, int n, const double *pka)
 {

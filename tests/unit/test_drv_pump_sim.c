@@ -9,6 +9,7 @@
 
 #include "drv.h"
 #include "harness.h"
+#include "scenario.h"
 #include "sim.h"
 
 static const char scen_text[] =

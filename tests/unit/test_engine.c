@@ -12,6 +12,7 @@
 
 #include "chem.h"
 #include "endpoint.h"
+#include "modelfit.h"
 #include "engine.h"
 #include "fixtures.h"
 #include "harness.h"

@@ -7,6 +7,7 @@
 #include <string.h>
 
 #include "chem.h"
+#include "scenario.h"
 #include "engine.h"
 #include "fixtures.h"
 #include "harness.h"

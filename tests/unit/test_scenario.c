@@ -6,6 +6,7 @@
 #include <stdio.h>
 
 #include "chem.h"
+#include "scenario.h"
 
 static const struct {
 	const char *file;

@@ -14,6 +14,7 @@
 #include "beaker.h"
 #include "calib.h"
 #include "chem.h"
+#include "scenario.h"
 #include "engine.h"
 #include "fixtures.h"
 #include "harness.h"
