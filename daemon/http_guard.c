@@ -52,12 +52,14 @@ static bool same_host(const struct sockaddr_storage *a, const struct sockaddr_st
 	return false;
 }
 
+/* When the connection must have its request in; 0: never (a hand-made
+ * config without request_deadline_s, as cfg_load never gives). */
 static double deadline_s(const http_guard_t *g, bool over_limit)
 {
 	double d = g->ctx->cfg->request_deadline_s;
-	if (over_limit && d > HTTP_OVER_LIMIT_GRACE_S)
+	if (over_limit && (d == 0 || d > HTTP_OVER_LIMIT_GRACE_S))
 		d = HTTP_OVER_LIMIT_GRACE_S;
-	return drv_now_s() + d;
+	return d > 0 ? drv_now_s() + d : 0;
 }
 
 static void started(http_guard_t *g, struct MHD_Connection *c, void **socket_context)

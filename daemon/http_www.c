@@ -247,12 +247,13 @@ static bool time_text_ok(const char *s)
 		return true;
 	if (*p++ != 'T' || !digits_in(&p, 2, 0, 23, &v))
 		return false;
-	for (int field = 0; field < 2 && *p == ':'; field++) { /* minutes, seconds */
+	int field = 0;
+	for (; field < 2 && *p == ':'; field++) { /* minutes, seconds */
 		p++;
 		if (!digits_in(&p, 2, 0, 59, &v))
 			return false;
 	}
-	if (*p == '.') {
+	if (*p == '.' && field == 2) { /* a fraction of a second */
 		if (p[1] < '0' || p[1] > '9')
 			return false;
 		for (p++; *p >= '0' && *p <= '9'; p++)
