@@ -14,6 +14,7 @@
 #include <sys/resource.h>
 #include <unistd.h>
 
+#include "drv.h"
 #include "http_guard.h"
 #include "log.h"
 
@@ -22,10 +23,18 @@
 
 static _Thread_local bool niced;
 
+#define MHD_LOG_BURST    20   /* libmicrohttpd messages logged per window */
+#define MHD_LOG_WINDOW_S 60.0 /* s */
+
 struct http_server {
 	struct MHD_Daemon *d;
 	http_ctx_t *ctx;
 	http_guard_t *guard;
+	/* libmicrohttpd logs a line per refused or cut connection: under a
+	 * flood of them only MHD_LOG_BURST a window reach the log. */
+	pthread_mutex_t log_lock;
+	double log_window_s; /* CLOCK_MONOTONIC s when the window began */
+	unsigned logged, dropped;
 };
 
 /* Per-request state: made when the request line is in (on_uri), then the
@@ -336,8 +345,8 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 			/* r filled */
 		} else if (allow && !word_in_list(method, allow)) {
 			r.allow = allow;
-			http_reply_error(&r, 405, "method_not_allowed", "%s is not allowed on %s (use %s)",
-			                 method, url, allow);
+			http_reply_error(&r, 405, "method_not_allowed",
+			                 "%s is not allowed on %s (use %s)", method, url, allow);
 		} else if (cl && strtoull(cl, NULL, 10) > ctx->cfg->max_body_bytes) {
 			cs->answered = true;
 			return too_large(c, ctx);
@@ -436,8 +445,28 @@ static void *on_uri(void *cls, const char *uri, struct MHD_Connection *c)
 
 static void on_mhd_log(void *cls, const char *fmt, va_list ap)
 {
+	http_server_t *h = cls;
 	char buf[512];
-	(void)cls;
+	double now = drv_now_s();
+	unsigned dropped = 0;
+	bool keep;
+
+	pthread_mutex_lock(&h->log_lock);
+	if (now - h->log_window_s >= MHD_LOG_WINDOW_S) {
+		dropped = h->dropped;
+		h->log_window_s = now;
+		h->logged = h->dropped = 0;
+	}
+	keep = h->logged < MHD_LOG_BURST;
+	if (keep)
+		h->logged++;
+	else
+		h->dropped++;
+	pthread_mutex_unlock(&h->log_lock);
+	if (dropped)
+		log_warn("http: %u more libmicrohttpd messages were not logged", dropped);
+	if (!keep)
+		return;
 	vsnprintf(buf, sizeof buf, fmt, ap);
 	buf[strcspn(buf, "\n")] = '\0';
 	log_warn("http: %s", buf);
@@ -450,6 +479,8 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 	struct sockaddr_in6 a6;
 	struct sockaddr *sa;
 	unsigned flags = MHD_USE_AUTO_INTERNAL_THREAD | MHD_USE_ITC | MHD_USE_ERROR_LOG;
+	unsigned per_ip =
+	    ctx->cfg->max_per_ip ? ctx->cfg->max_per_ip + HTTP_OVER_LIMIT_EXTRA : 0;
 
 	if (!h) {
 		snprintf(err, cap, "out of memory");
@@ -461,6 +492,8 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 		free(h);
 		return NULL;
 	}
+	pthread_mutex_init(&h->log_lock, NULL);
+	h->log_window_s = drv_now_s();
 	memset(&a4, 0, sizeof a4);
 	memset(&a6, 0, sizeof a6);
 	if (inet_pton(AF_INET, ctx->cfg->listen_addr, &a4.sin_addr) == 1) {
@@ -475,17 +508,17 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 	} else {
 		snprintf(err, cap, "bad listen address '%s'", ctx->cfg->listen_addr);
 		http_guard_free(h->guard);
+		pthread_mutex_destroy(&h->log_lock);
 		free(h);
 		return NULL;
 	}
 	h->d = MHD_start_daemon(flags, (uint16_t)ctx->cfg->listen_port, NULL, NULL, on_request, ctx,
-	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, NULL, MHD_OPTION_SOCK_ADDR,
+	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, h, MHD_OPTION_SOCK_ADDR,
 	                        sa, MHD_OPTION_THREAD_POOL_SIZE, ctx->cfg->threads,
 	                        MHD_OPTION_CONNECTION_LIMIT, ctx->cfg->max_connections,
 	                        /* MHD drops connections past this without a word; the
 	                         * extra few are ours to answer 503 (http_guard.h). */
-	                        MHD_OPTION_PER_IP_CONNECTION_LIMIT,
-	                        ctx->cfg->max_per_ip ? ctx->cfg->max_per_ip + HTTP_OVER_LIMIT_EXTRA : 0,
+	                        MHD_OPTION_PER_IP_CONNECTION_LIMIT, per_ip,
 	                        MHD_OPTION_CONNECTION_TIMEOUT, ctx->cfg->connection_timeout_s,
 	                        MHD_OPTION_NOTIFY_CONNECTION, http_guard_notify, h->guard,
 	                        MHD_OPTION_URI_LOG_CALLBACK, on_uri, NULL,
@@ -494,6 +527,7 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 		snprintf(err, cap, "cannot listen on %s:%d: %s", ctx->cfg->listen_addr,
 		         ctx->cfg->listen_port, errno ? strerror(errno) : "libmicrohttpd failed");
 		http_guard_free(h->guard);
+		pthread_mutex_destroy(&h->log_lock);
 		free(h);
 		return NULL;
 	}
@@ -511,5 +545,8 @@ void http_stop(http_server_t *h)
 	if (fd != MHD_INVALID_SOCKET)
 		close(fd);
 	http_guard_free(h->guard);
+	if (h->dropped)
+		log_warn("http: %u more libmicrohttpd messages were not logged", h->dropped);
+	pthread_mutex_destroy(&h->log_lock);
 	free(h);
 }

@@ -48,7 +48,8 @@ static bool same_host(const struct sockaddr_storage *a, const struct sockaddr_st
 		       ((const struct sockaddr_in *)b)->sin_addr.s_addr;
 	if (a->ss_family == AF_INET6)
 		return !memcmp(&((const struct sockaddr_in6 *)a)->sin6_addr,
-		               &((const struct sockaddr_in6 *)b)->sin6_addr, sizeof(struct in6_addr));
+		               &((const struct sockaddr_in6 *)b)->sin6_addr,
+		               sizeof(struct in6_addr));
 	return false;
 }
 
@@ -64,8 +65,10 @@ static double deadline_s(const http_guard_t *g, bool over_limit)
 
 static void started(http_guard_t *g, struct MHD_Connection *c, void **socket_context)
 {
-	const union MHD_ConnectionInfo *fd = MHD_get_connection_info(c, MHD_CONNECTION_INFO_CONNECTION_FD);
-	const union MHD_ConnectionInfo *ad = MHD_get_connection_info(c, MHD_CONNECTION_INFO_CLIENT_ADDRESS);
+	const union MHD_ConnectionInfo *fd =
+	    MHD_get_connection_info(c, MHD_CONNECTION_INFO_CONNECTION_FD);
+	const union MHD_ConnectionInfo *ad =
+	    MHD_get_connection_info(c, MHD_CONNECTION_INFO_CLIENT_ADDRESS);
 	http_conn_t *k = calloc(1, sizeof *k);
 	unsigned same = 0, limit = g->ctx->cfg->max_per_ip;
 
@@ -122,7 +125,8 @@ void http_guard_notify(void *cls, struct MHD_Connection *c, void **socket_contex
 
 static http_conn_t *conn_of(struct MHD_Connection *c)
 {
-	const union MHD_ConnectionInfo *i = MHD_get_connection_info(c, MHD_CONNECTION_INFO_SOCKET_CONTEXT);
+	const union MHD_ConnectionInfo *i =
+	    MHD_get_connection_info(c, MHD_CONNECTION_INFO_SOCKET_CONTEXT);
 	return i ? i->socket_context : NULL;
 }
 
@@ -423,21 +427,24 @@ bool http_guard_refuse(http_ctx_t *ctx, struct MHD_Connection *c, const char *me
 		return true;
 	}
 	if (s.coding && s.length) {
-		http_reply_error(r, 400, "bad_request",
-		                 "a request may not carry both Transfer-Encoding and Content-Length");
+		http_reply_error(
+		    r, 400, "bad_request",
+		    "a request may not carry both Transfer-Encoding and Content-Length");
 		return true;
 	}
 	if (s.coding) {
 		bool chunked = s.coding == 1 && s.coding_v && !strcasecmp(s.coding_v, "chunked");
 		if (chunked)
-			http_reply_error(r, 411, "length_required",
-			                 "send the body with a Content-Length (chunked request bodies "
-			                 "are not accepted)");
+			http_reply_error(
+			    r, 411, "length_required",
+			    "send the body with a Content-Length (chunked request bodies "
+			    "are not accepted)");
 		else
-			http_reply_error(r, 501, "not_implemented",
-			                 "Transfer-Encoding '%s' is not supported; send the body with "
-			                 "a Content-Length",
-			                 s.coding_v ? s.coding_v : "");
+			http_reply_error(
+			    r, 501, "not_implemented",
+			    "Transfer-Encoding '%s' is not supported; send the body with "
+			    "a Content-Length",
+			    s.coding_v ? s.coding_v : "");
 		return true;
 	}
 	if (s.nul) {
@@ -447,7 +454,8 @@ bool http_guard_refuse(http_ctx_t *ctx, struct MHD_Connection *c, const char *me
 	}
 	r->close = false;
 	if (s.host > 1 || (s.host == 0 && version && !strcmp(version, MHD_HTTP_VERSION_1_1))) {
-		http_reply_error(r, 400, "bad_request", "an HTTP/1.1 request needs one Host header");
+		http_reply_error(r, 400, "bad_request",
+		                 "an HTTP/1.1 request needs one Host header");
 		return true;
 	}
 	if (s.host && !host_allowed(ctx->cfg, s.host_v)) {
