@@ -87,6 +87,50 @@ def test_a_trickling_request_is_cut_at_its_deadline(bench):
     assert bench.get("/v1/health")["status"] == "ok"
 
 
+def test_a_trickling_body_is_cut_at_its_deadline(bench):
+    s = connect_from("127.0.0.7", bench.port)
+    s.sendall(b"PUT /v1/methods/fast-acid-mv HTTP/1.1\r\nHost: 127.0.0.1\r\n"
+              b"Authorization: Bearer " + bench.token.encode() +
+              b"\r\nContent-Length: 1000\r\n\r\n")
+    t0 = time.monotonic()
+    closed_after = None
+    try:
+        while time.monotonic() - t0 < DEADLINE_S + 5:
+            try:
+                s.sendall(b"x")
+                s.settimeout(0.3)
+                if s.recv(1) == b"":
+                    closed_after = time.monotonic() - t0
+                    break
+            except socket.timeout:
+                pass
+            except OSError:
+                closed_after = time.monotonic() - t0
+                break
+    finally:
+        s.close()
+    assert closed_after is not None and closed_after <= DEADLINE_S + 1.5, closed_after
+
+
+def test_a_keep_alive_connection_gets_a_new_deadline_per_request(bench):
+    # Five requests 0.6 s apart on one connection: 3 s in all, past the 2 s
+    # deadline, yet each request came whole at once.
+    s = connect_from("127.0.0.7", bench.port)
+    try:
+        for i in range(5):
+            s.sendall(b"GET /v1/health HTTP/1.1\r\nHost: 127.0.0.1\r\n\r\n")
+            s.settimeout(3.0)
+            reply = b""
+            while b"}" not in reply:
+                b = s.recv(4096)
+                assert b, f"closed before reply {i}"
+                reply += b
+            assert reply.startswith(b"HTTP/1.1 200"), reply[:100]
+            time.sleep(0.6)
+    finally:
+        s.close()
+
+
 def test_past_the_per_address_limit_the_answer_is_503(bench):
     limit = 32  # http.max_per_ip's default
     held = [connect_from("127.0.0.8", bench.port) for _ in range(limit)]
