@@ -9,10 +9,12 @@
 
 static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
                                        "calibration", "standardization", NULL};
+/* clang-format off */
 static const char *const http_keys[] = {
     "listen",     "token_file",     "read_needs_token",     "max_connections",
     "max_per_ip", "max_body_bytes", "connection_timeout_s", "request_deadline_s",
     "threads",    "allowed_hosts",  NULL};
+/* clang-format on */
 static const char *const storage_keys[] = {"database", NULL};
 static const char *const station_keys[] = {"name",    "vessel_max_ml", "read_interval_s",
                                            "burette", "probe",         "stirrer",
@@ -134,18 +136,19 @@ static void parse_allowed_hosts(cfg_t *c, const yt_node_t *n, diag_list_t *d)
 	for (size_t i = 0; i < n->n; i++) {
 		char tmp[CFG_HOST_MAX + 2];
 		if (c->n_allowed_hosts >= CFG_MAX_HOSTS) {
-			yt_error(&c->doc, n->items[i], d, "http.allowed_hosts holds at most %d names",
-			         CFG_MAX_HOSTS);
+			yt_error(&c->doc, n->items[i], d,
+			         "http.allowed_hosts holds at most %d names", CFG_MAX_HOSTS);
 			return;
 		}
 		if (!yt_string(&c->doc, n->items[i], "http.allowed_hosts", tmp, sizeof tmp, d))
 			continue;
 		if (!parse_host_name(tmp, c->allowed_hosts[c->n_allowed_hosts],
 		                     sizeof c->allowed_hosts[0]))
-			yt_error(&c->doc, n->items[i], d,
-			         "http.allowed_hosts: '%s' is not a host name (letters, digits, '-' "
-			         "and '.'; no port; IP addresses are always allowed)",
-			         tmp);
+			yt_error(
+			    &c->doc, n->items[i], d,
+			    "http.allowed_hosts: '%s' is not a host name (letters, digits, '-' "
+			    "and '.'; no port; IP addresses are always allowed)",
+			    tmp);
 		else
 			c->n_allowed_hosts++;
 	}
@@ -253,7 +256,7 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	snprintf(c->listen_addr, sizeof c->listen_addr, "127.0.0.1");
 	c->listen_port = 8470;
 	c->max_connections = 256;
-	c->max_per_ip = 32; /* 7 addresses at their limit (and 503 extras) leave room */
+	c->max_per_ip = 32;             /* 7 addresses at their limit (and 503 extras) leave room */
 	c->max_body_bytes = 256 * 1024; /* a method file is at most 256 KiB (YT_MAX_BYTES) */
 	c->connection_timeout_s = 30;
 	c->request_deadline_s = 10;

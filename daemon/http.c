@@ -42,9 +42,9 @@ struct http_server {
 typedef struct conn_state {
 	char *buf;
 	size_t len, cap;
-	bool started;   /* the first call (headers in) is done */
+	bool started; /* the first call (headers in) is done */
 	bool too_big;
-	bool answered;  /* refused at the first call */
+	bool answered;   /* refused at the first call */
 	unsigned n_args; /* query arguments in the request target */
 } conn_state_t;
 
@@ -479,8 +479,7 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 	struct sockaddr_in6 a6;
 	struct sockaddr *sa;
 	unsigned flags = MHD_USE_AUTO_INTERNAL_THREAD | MHD_USE_ITC | MHD_USE_ERROR_LOG;
-	unsigned per_ip =
-	    ctx->cfg->max_per_ip ? ctx->cfg->max_per_ip + HTTP_OVER_LIMIT_EXTRA : 0;
+	unsigned per_ip = ctx->cfg->max_per_ip ? ctx->cfg->max_per_ip + HTTP_OVER_LIMIT_EXTRA : 0;
 
 	if (!h) {
 		snprintf(err, cap, "out of memory");
@@ -513,8 +512,8 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 		return NULL;
 	}
 	h->d = MHD_start_daemon(flags, (uint16_t)ctx->cfg->listen_port, NULL, NULL, on_request, ctx,
-	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, h, MHD_OPTION_SOCK_ADDR,
-	                        sa, MHD_OPTION_THREAD_POOL_SIZE, ctx->cfg->threads,
+	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, h, MHD_OPTION_SOCK_ADDR, sa,
+	                        MHD_OPTION_THREAD_POOL_SIZE, ctx->cfg->threads,
 	                        MHD_OPTION_CONNECTION_LIMIT, ctx->cfg->max_connections,
 	                        /* MHD drops connections past this without a word; the
 	                         * extra few are ours to answer 503 (http_guard.h). */

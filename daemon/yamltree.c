@@ -211,8 +211,8 @@ static void attach(loader_t *L, yt_node_t *n)
 		}
 		const yt_node_t *first = find_key(L, f, n->str);
 		if (first) {
-			lerr(L, n->line, n->col, "duplicate key '%s' (first given at line %d)", n->str,
-			     first->line);
+			lerr(L, n->line, n->col, "duplicate key '%s' (first given at line %d)",
+			     n->str, first->line);
 			node_free(n);
 			f->skip_value = true;
 			return;
