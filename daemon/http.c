@@ -314,6 +314,7 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	http_req_t q = {0};
 	bool write = strcmp(method, "GET") && strcmp(method, "HEAD");
 	enum MHD_Result ret;
+
 	if (!niced) {
 		/* HTTP workers yield to station threads: a burst of requests must
 		 * not delay an addition (raising one's own nice needs no privilege). */
