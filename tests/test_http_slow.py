@@ -242,9 +242,9 @@ def test_health_and_halt_stay_available_under_slowloris(bench, request):
         f"halt {len(halts)} requests, max {max(t for _, t in halts) * 1e3:.1f} ms"])
     assert len(health) >= 10
     assert all(s == 200 for s, _ in health), health
-    # Each answered without waiting for the attack (which it did, whole
-    # seconds, before the deadline and the per-address limit).
-    assert max(lat) < 1.0, lat
+    # Each answered without waiting for the attack (before the deadline and
+    # the per-address limit the first one waited until the attack ended).
+    assert max(lat) < 2.0, lat
     assert halts and all(s == 200 for s, _ in halts), halts
     # The server shut the slow connections it had let in at their deadline.
     assert attack.cut > 0
