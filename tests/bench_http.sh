@@ -38,6 +38,9 @@ SIM_PID=$!
 for _ in $(seq 100); do grep -q ready "$TMP/sim.out" 2>/dev/null && break; sleep 0.1; done
 grep -q ready "$TMP/sim.out" || { echo "bench_http: the simulator did not start"; cat "$TMP/sim.log"; exit 1; }
 TOKEN=$(cut -d: -f2 "$TMP/token")
+# wrk opens all its connections from one address: lift http.max_per_ip (32).
+sed -i 's/^  read_needs_token: false$/&\n  max_per_ip: 0/' "$TMP/stopcockd.yaml"
+grep -q "^  max_per_ip: 0" "$TMP/stopcockd.yaml" || { echo "bench_http: cannot set max_per_ip"; exit 1; }
 
 start_daemon() {
 	"$BIN/stopcockd" -c "$TMP/stopcockd.yaml" >>"$TMP/daemon.log" 2>&1 &

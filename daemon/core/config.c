@@ -9,10 +9,12 @@
 
 static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
                                        "calibration", "standardization", NULL};
+/* clang-format off */
 static const char *const http_keys[] = {
     "listen",     "token_file",     "read_needs_token",     "max_connections",
-    "max_per_ip", "max_body_bytes", "connection_timeout_s", "threads",
-    NULL};
+    "max_per_ip", "max_body_bytes", "connection_timeout_s", "request_deadline_s",
+    "threads",    "allowed_hosts",  NULL};
+/* clang-format on */
 static const char *const storage_keys[] = {"database", NULL};
 static const char *const station_keys[] = {"name",    "vessel_max_ml", "read_interval_s",
                                            "burette", "probe",         "stirrer",
@@ -97,6 +99,61 @@ static void get_path(const cfg_t *c, const yt_node_t *n, const char *name, char 
 	cfg_resolve_path(c->path, tmp, out, cap);
 }
 
+/* A host name as a Host header gives it: letters, digits, '-' and '.',
+ * no empty label; kept in lower case without a trailing dot. */
+static bool parse_host_name(const char *s, char *out, size_t cap)
+{
+	size_t n = strlen(s), label = 0;
+
+	if (n > 0 && s[n - 1] == '.')
+		n--;
+	if (n == 0 || n >= cap)
+		return false;
+	for (size_t i = 0; i < n; i++) {
+		char ch = s[i];
+		if (ch >= 'A' && ch <= 'Z')
+			ch = (char)(ch - 'A' + 'a');
+		if (ch == '.') {
+			if (label == 0)
+				return false;
+			label = 0;
+		} else if ((ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '-') {
+			label++;
+		} else {
+			return false;
+		}
+		out[i] = ch;
+	}
+	out[n] = '\0';
+	return label > 0;
+}
+
+static void parse_allowed_hosts(cfg_t *c, const yt_node_t *n, diag_list_t *d)
+{
+	if (!yt_want_seq(&c->doc, n, "http.allowed_hosts", d))
+		return;
+	c->n_allowed_hosts = 0;
+	for (size_t i = 0; i < n->n; i++) {
+		char tmp[CFG_HOST_MAX + 2];
+		if (c->n_allowed_hosts >= CFG_MAX_HOSTS) {
+			yt_error(&c->doc, n->items[i], d,
+			         "http.allowed_hosts holds at most %d names", CFG_MAX_HOSTS);
+			return;
+		}
+		if (!yt_string(&c->doc, n->items[i], "http.allowed_hosts", tmp, sizeof tmp, d))
+			continue;
+		if (!parse_host_name(tmp, c->allowed_hosts[c->n_allowed_hosts],
+		                     sizeof c->allowed_hosts[0]))
+			yt_error(
+			    &c->doc, n->items[i], d,
+			    "http.allowed_hosts: '%s' is not a host name (letters, digits, '-' "
+			    "and '.'; no port; IP addresses are always allowed)",
+			    tmp);
+		else
+			c->n_allowed_hosts++;
+	}
+}
+
 static void parse_http(cfg_t *c, const yt_node_t *h, diag_list_t *d)
 {
 	const yt_node_t *n;
@@ -124,7 +181,11 @@ static void parse_http(cfg_t *c, const yt_node_t *h, diag_list_t *d)
 	         &c->max_body_bytes, d);
 	get_uint(&c->doc, h, "connection_timeout_s", "http.connection_timeout_s", 1, 3600,
 	         &c->connection_timeout_s, d);
+	get_uint(&c->doc, h, "request_deadline_s", "http.request_deadline_s", 1, 3600,
+	         &c->request_deadline_s, d);
 	get_uint(&c->doc, h, "threads", "http.threads", 2, 64, &c->threads, d);
+	if ((n = yt_get(h, "allowed_hosts")))
+		parse_allowed_hosts(c, n, d);
 }
 
 static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
@@ -195,9 +256,12 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	snprintf(c->listen_addr, sizeof c->listen_addr, "127.0.0.1");
 	c->listen_port = 8470;
 	c->max_connections = 256;
-	c->max_per_ip = 64;
+	c->max_per_ip = 32;             /* 7 addresses at their limit (and 503 extras) leave room */
 	c->max_body_bytes = 256 * 1024; /* a method file is at most 256 KiB (YT_MAX_BYTES) */
 	c->connection_timeout_s = 30;
+	c->request_deadline_s = 10;
+	c->n_allowed_hosts = 1;
+	snprintf(c->allowed_hosts[0], sizeof c->allowed_hosts[0], "localhost");
 	c->threads = 4;
 	snprintf(c->database, sizeof c->database, "/var/lib/stopcock/stopcock.db");
 

@@ -23,6 +23,8 @@
 #define CFG_MAX_STATIONS 16
 #define CFG_NAME_MAX     32
 #define CFG_PATH_MAX     1024
+#define CFG_MAX_HOSTS    16  /* http.allowed_hosts entries */
+#define CFG_HOST_MAX     254 /* a DNS name, without a trailing dot */
 #define CFG_MAX_TOKENS   32
 
 typedef struct cfg_station {
@@ -46,7 +48,12 @@ typedef struct cfg {
 	unsigned max_per_ip;           /* per client address; 0 = no limit */
 	unsigned max_body_bytes;       /* request bodies above this get 413 */
 	unsigned connection_timeout_s; /* idle connections are closed after this */
+	unsigned request_deadline_s;   /* a request's headers and body must be in by then, s */
 	unsigned threads;              /* HTTP worker threads */
+	/* Names a request's Host may give besides an IP address (lower case);
+	 * anything else gets 421, so a DNS-rebinding page cannot read the API. */
+	int n_allowed_hosts;
+	char allowed_hosts[CFG_MAX_HOSTS][CFG_HOST_MAX + 1];
 	/* storage */
 	char database[CFG_PATH_MAX];
 	char methods_dir[CFG_PATH_MAX]; /* "" when none */

@@ -9,6 +9,7 @@
 #include <errno.h>
 #include <math.h>
 #include <stdarg.h>
+#include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -18,6 +19,13 @@ typedef struct frame {
 	yt_node_t *node;
 	yt_node_t *pending_key; /* map: key waiting for its value */
 	bool skip_value;	/* map: the key was bad; drop its value */
+	/* map: an open-addressing index of node->keys by their text, so the
+	 * duplicate check stays linear in the number of keys (a scan per key
+	 * was quadratic: 20,000 keys took a second). Slots hold key index + 1,
+	 * 0 is empty; keys[0..indexed) are in it. NULL for small maps. */
+	size_t *slots;
+	size_t nslots; /* a power of two, at least twice `indexed` */
+	size_t indexed;
 } frame_t;
 
 typedef struct loader {
@@ -30,6 +38,7 @@ typedef struct loader {
 	yt_node_t *root;
 	int errors;
 	int documents;
+	size_t key_compares; /* see yt_doc_t */
 } loader_t;
 
 static void node_free(yt_node_t *n)
@@ -91,12 +100,16 @@ static void offset_to_pos(const char *text, size_t len, size_t off, int *line, i
 
 static bool push_item(yt_node_t *parent, yt_node_t *key, yt_node_t *val)
 {
-	yt_node_t **items = realloc(parent->items, (parent->n + 1) * sizeof *items);
+	/* The capacity is 4, then doubles each time n reaches a power of two
+	 * (so it needs no field): growing by one item copied the array each
+	 * time. cap == 0: there is room. */
+	size_t n = parent->n, cap = n == 0 ? 4 : (n >= 4 && (n & (n - 1)) == 0 ? 2 * n : 0);
+	yt_node_t **items = cap ? realloc(parent->items, cap * sizeof *items) : parent->items;
 	if (!items)
 		return false;
 	parent->items = items;
 	if (parent->kind == YT_MAP) {
-		yt_node_t **keys = realloc(parent->keys, (parent->n + 1) * sizeof *keys);
+		yt_node_t **keys = cap ? realloc(parent->keys, cap * sizeof *keys) : parent->keys;
 		if (!keys)
 			return false;
 		parent->keys = keys;
@@ -105,6 +118,70 @@ static bool push_item(yt_node_t *parent, yt_node_t *key, yt_node_t *val)
 	items[parent->n] = val;
 	parent->n++;
 	return true;
+}
+
+#define KEY_INDEX_MIN 8 /* keys a map has before it gets an index */
+
+static size_t key_hash(const char *s)
+{
+	uint64_t h = 14695981039346656037u; /* FNV-1a, 64 bit */
+	for (; *s; s++)
+		h = (h ^ (unsigned char)*s) * 1099511628211u;
+	return (size_t)h;
+}
+
+static void key_index_put(frame_t *f, size_t i)
+{
+	size_t mask = f->nslots - 1, s = key_hash(f->node->keys[i]->str) & mask;
+	while (f->slots[s])
+		s = (s + 1) & mask;
+	f->slots[s] = i + 1;
+}
+
+/* The earlier key of f's map with this text, or NULL. Small maps (and any
+ * map when memory runs out) are scanned; larger ones use the index. */
+static const yt_node_t *find_key(loader_t *L, frame_t *f, const char *str)
+{
+	yt_node_t *m = f->node;
+	size_t mask, s;
+
+	if (m->n >= KEY_INDEX_MIN && m->n * 2 >= f->nslots) {
+		size_t cap = 4 * KEY_INDEX_MIN;
+		size_t *slots;
+		while (cap < m->n * 4)
+			cap *= 2;
+		slots = calloc(cap, sizeof *slots);
+		if (slots) {
+			free(f->slots);
+			f->slots = slots;
+			f->nslots = cap;
+			f->indexed = 0;
+		}
+	}
+	if (!f->slots || m->n * 2 >= f->nslots) {
+		for (size_t i = 0; i < m->n; i++) {
+			L->key_compares++;
+			if (!strcmp(m->keys[i]->str, str))
+				return m->keys[i];
+		}
+		return NULL;
+	}
+	for (; f->indexed < m->n; f->indexed++)
+		key_index_put(f, f->indexed);
+	mask = f->nslots - 1;
+	for (s = key_hash(str) & mask; f->slots[s]; s = (s + 1) & mask) {
+		L->key_compares++;
+		if (!strcmp(m->keys[f->slots[s] - 1]->str, str))
+			return m->keys[f->slots[s] - 1];
+	}
+	return NULL;
+}
+
+static void frame_drop_index(frame_t *f)
+{
+	free(f->slots);
+	f->slots = NULL;
+	f->nslots = f->indexed = 0;
 }
 
 /* Attach a finished node to its parent (or make it the root). */
@@ -132,14 +209,13 @@ static void attach(loader_t *L, yt_node_t *n)
 			f->skip_value = true;
 			return;
 		}
-		for (size_t i = 0; i < f->node->n; i++) {
-			if (!strcmp(f->node->keys[i]->str, n->str)) {
-				lerr(L, n->line, n->col, "duplicate key '%s' (first given at line %d)",
-				     n->str, f->node->keys[i]->line);
-				node_free(n);
-				f->skip_value = true;
-				return;
-			}
+		const yt_node_t *first = find_key(L, f, n->str);
+		if (first) {
+			lerr(L, n->line, n->col, "duplicate key '%s' (first given at line %d)",
+			     n->str, first->line);
+			node_free(n);
+			f->skip_value = true;
+			return;
 		}
 		f->pending_key = n;
 		return;
@@ -232,9 +308,7 @@ static int handle_event(loader_t *L, yaml_event_t *ev)
 		n = node_new(is_map ? YT_MAP : YT_SEQ, &ev->start_mark);
 		if (!n)
 			return -1;
-		L->stack[L->depth].node = n;
-		L->stack[L->depth].pending_key = NULL;
-		L->stack[L->depth].skip_value = false;
+		L->stack[L->depth] = (frame_t){.node = n};
 		L->depth++;
 		return 0;
 	}
@@ -244,6 +318,7 @@ static int handle_event(loader_t *L, yaml_event_t *ev)
 		n = f->node;
 		node_free(f->pending_key); /* cannot happen in valid YAML; be safe */
 		f->pending_key = NULL;
+		frame_drop_index(f);
 		L->depth--;
 		attach(L, n);
 		return 0;
@@ -257,6 +332,7 @@ static void loader_unwind(loader_t *L)
 {
 	while (L->depth > 0) {
 		frame_t *f = &L->stack[--L->depth];
+		frame_drop_index(f);
 		node_free(f->pending_key);
 		node_free(f->node);
 	}
@@ -348,6 +424,7 @@ int yt_load_buffer(const char *name, const char *buf, size_t len, yt_doc_t *doc,
 		L.root = NULL;
 	}
 	doc->root = L.root;
+	doc->key_compares = L.key_compares;
 	return rc;
 }
 
@@ -451,7 +528,8 @@ int yt_edit_distance(const char *a, const char *b, int cap)
 {
 	size_t la = strlen(a), lb = strlen(b);
 	int prev[65], cur[65];
-	if (la > 64 || lb > 64)
+	/* The distance is at least the difference in length. */
+	if (la > 64 || lb > 64 || (la > lb ? la - lb : lb - la) > (size_t)cap)
 		return cap + 1;
 	for (size_t j = 0; j <= lb; j++)
 		prev[j] = (int)j;
@@ -524,6 +602,7 @@ bool yt_check_keys(const yt_doc_t *doc, const yt_node_t *m, const char *const *a
 		   const char *where, diag_list_t *d)
 {
 	bool ok = true;
+	char list[512] = ""; /* the allowed words, joined once */
 	if (!m || m->kind != YT_MAP)
 		return true;
 	for (size_t i = 0; i < m->n; i++) {
@@ -540,8 +619,8 @@ bool yt_check_keys(const yt_doc_t *doc, const yt_node_t *m, const char *const *a
 			yt_error(doc, m->keys[i], d, "unknown key '%s' in %s; did you mean '%s'?", k,
 				 where, near);
 		} else {
-			char list[512];
-			join_words(list, sizeof list, allowed);
+			if (!list[0])
+				join_words(list, sizeof list, allowed);
 			yt_error(doc, m->keys[i], d, "unknown key '%s' in %s (allowed: %s)", k,
 				 where, list);
 		}

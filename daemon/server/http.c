@@ -14,6 +14,8 @@
 #include <sys/resource.h>
 #include <unistd.h>
 
+#include "drv.h"
+#include "http_guard.h"
 #include "log.h"
 
 #define MAX_SEGMENTS 8
@@ -21,17 +23,29 @@
 
 static _Thread_local bool niced;
 
+#define MHD_LOG_BURST    20   /* libmicrohttpd messages logged per window */
+#define MHD_LOG_WINDOW_S 60.0 /* s */
+
 struct http_server {
 	struct MHD_Daemon *d;
 	http_ctx_t *ctx;
+	http_guard_t *guard;
+	/* libmicrohttpd logs a line per refused or cut connection: under a
+	 * flood of them only MHD_LOG_BURST a window reach the log. */
+	pthread_mutex_t log_lock;
+	double log_window_s; /* CLOCK_MONOTONIC s when the window began */
+	unsigned logged, dropped;
 };
 
-/* Per-request state: the body as it arrives. */
+/* Per-request state: made when the request line is in (on_uri), then the
+ * body as it arrives. */
 typedef struct conn_state {
 	char *buf;
 	size_t len, cap;
+	bool started; /* the first call (headers in) is done */
 	bool too_big;
-	bool answered; /* 413 queued at the first call */
+	bool answered;   /* refused at the first call */
+	unsigned n_args; /* query arguments in the request target */
 } conn_state_t;
 
 void http_reply_json(http_reply_t *r, int status, json_t *j)
@@ -171,6 +185,8 @@ static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *
 	while (*h == ' ')
 		h++;
 	len = strlen(h);
+	while (len > 0 && (h[len - 1] == ' ' || h[len - 1] == '\t'))
+		len--; /* MHD 0.9.75 keeps a value's trailing white space */
 	pthread_rwlock_rdlock(&ctx->tokens_lock);
 	for (int i = 0; i < ctx->tokens.n; i++) {
 		const cfg_token_t *t = &ctx->tokens.v[i];
@@ -244,6 +260,12 @@ static enum MHD_Result send_reply(struct MHD_Connection *c, http_ctx_t *ctx, htt
 		                        "Bearer realm=\"stopcock\"");
 	if (r->location[0])
 		MHD_add_response_header(resp, MHD_HTTP_HEADER_LOCATION, r->location);
+	if (r->allow)
+		MHD_add_response_header(resp, MHD_HTTP_HEADER_ALLOW, r->allow);
+	if (r->status == 503)
+		MHD_add_response_header(resp, MHD_HTTP_HEADER_RETRY_AFTER, "1");
+	if (r->close)
+		MHD_add_response_header(resp, MHD_HTTP_HEADER_CONNECTION, "close");
 	ret = MHD_queue_response(c, (unsigned)r->status, resp);
 	MHD_destroy_response(resp);
 	if (r->status >= 500)
@@ -253,6 +275,19 @@ static enum MHD_Result send_reply(struct MHD_Connection *c, http_ctx_t *ctx, htt
 	else
 		atomic_fetch_add(&ctx->requests_2xx, 1);
 	return ret;
+}
+
+/* Is w one of the words of "A, B, C"? */
+static bool word_in_list(const char *w, const char *list)
+{
+	size_t n = strlen(w);
+	for (const char *p = list; *p; p += strspn(p, ", ")) {
+		size_t k = strcspn(p, ", ");
+		if (k == n && !strncmp(p, w, n))
+			return true;
+		p += k;
+	}
+	return false;
 }
 
 static enum MHD_Result too_large(struct MHD_Connection *c, http_ctx_t *ctx)
@@ -274,7 +309,6 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	http_req_t q = {0};
 	bool write = strcmp(method, "GET") && strcmp(method, "HEAD");
 	enum MHD_Result ret;
-	(void)version;
 
 	if (!niced) {
 		/* HTTP workers yield to station threads: a burst of requests must
@@ -283,19 +317,42 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 		niced = true;
 	}
 	if (!cs) {
-		const char *cl =
-		    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);
-		cs = calloc(1, sizeof *cs);
+		cs = calloc(1, sizeof *cs); /* on_uri ran out of memory */
 		if (!cs)
 			return MHD_NO;
 		*con_cls = cs;
-		/* Refuse a declared oversize body before reading it; MHD then
-		 * discards the rest and closes the connection. */
-		if (cl && strtoull(cl, NULL, 10) > ctx->cfg->max_body_bytes) {
+	}
+	if (!cs->started) {
+		const char *cl =
+		    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);
+		const char *allow = http_route_allow(url);
+		cs->started = true;
+		/* Everything that can be refused from the headers is refused
+		 * here, before the body is read and before authentication; MHD
+		 * then discards any body and closes the connection. */
+		if (http_guard_over_limit(c)) {
+			atomic_fetch_add(&ctx->over_limit, 1);
+			r.close = true;
+			http_reply_error(&r, 503, "busy",
+			                 "too many connections from this address (http.max_per_ip "
+			                 "is %u); retry when one has closed",
+			                 ctx->cfg->max_per_ip);
+		} else if (http_guard_refuse(ctx, c, method, version, cs->n_args, &r)) {
+			/* r filled */
+		} else if (allow && !word_in_list(method, allow)) {
+			r.allow = allow;
+			http_reply_error(&r, 405, "method_not_allowed",
+			                 "%s is not allowed on %s (use %s)", method, url, allow);
+		} else if (cl && strtoull(cl, NULL, 10) > ctx->cfg->max_body_bytes) {
 			cs->answered = true;
 			return too_large(c, ctx);
+		} else {
+			return MHD_YES;
 		}
-		return MHD_YES;
+		cs->answered = true;
+		ret = send_reply(c, ctx, &r);
+		free(r.body);
+		return ret;
 	}
 	if (*upload_size) {
 		size_t n = *upload_size;
@@ -324,11 +381,13 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	}
 	if (cs->answered)
 		return MHD_YES;
+	http_guard_request_received(c);
 	if (cs->too_big)
 		return too_large(c, ctx);
 
 	q.ctx = ctx;
-	q.method = method;
+	/* HEAD is GET without the body, which MHD leaves out itself. */
+	q.method = strcmp(method, "HEAD") ? method : "GET";
 	q.path = url;
 	q.body = cs->buf;
 	q.body_len = cs->len;
@@ -357,8 +416,8 @@ static void on_completed(void *cls, struct MHD_Connection *c, void **con_cls,
 {
 	conn_state_t *cs = *con_cls;
 	(void)cls;
-	(void)c;
 	(void)toe;
+	http_guard_request_done(c); /* the next request's deadline starts now */
 	if (cs) {
 		free(cs->buf);
 		free(cs);
@@ -366,10 +425,44 @@ static void on_completed(void *cls, struct MHD_Connection *c, void **con_cls,
 	*con_cls = NULL;
 }
 
+/* The request line is in: count its query arguments (and keep MHD from
+ * parsing too many); the state made here is the request's *con_cls. */
+static void *on_uri(void *cls, const char *uri, struct MHD_Connection *c)
+{
+	conn_state_t *cs = calloc(1, sizeof *cs);
+	(void)cls;
+	(void)c;
+	if (cs)
+		/* MHD hands its own writable copy of the line (const only in
+		 * the prototype) and parses the query from it after this call. */
+		cs->n_args = http_guard_count_args((char *)uri);
+	return cs;
+}
+
 static void on_mhd_log(void *cls, const char *fmt, va_list ap)
 {
+	http_server_t *h = cls;
 	char buf[512];
-	(void)cls;
+	double now = drv_now_s();
+	unsigned dropped = 0;
+	bool keep;
+
+	pthread_mutex_lock(&h->log_lock);
+	if (now - h->log_window_s >= MHD_LOG_WINDOW_S) {
+		dropped = h->dropped;
+		h->log_window_s = now;
+		h->logged = h->dropped = 0;
+	}
+	keep = h->logged < MHD_LOG_BURST;
+	if (keep)
+		h->logged++;
+	else
+		h->dropped++;
+	pthread_mutex_unlock(&h->log_lock);
+	if (dropped)
+		log_warn("http: %u more libmicrohttpd messages were not logged", dropped);
+	if (!keep)
+		return;
 	vsnprintf(buf, sizeof buf, fmt, ap);
 	buf[strcspn(buf, "\n")] = '\0';
 	log_warn("http: %s", buf);
@@ -382,12 +475,20 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 	struct sockaddr_in6 a6;
 	struct sockaddr *sa;
 	unsigned flags = MHD_USE_AUTO_INTERNAL_THREAD | MHD_USE_ITC | MHD_USE_ERROR_LOG;
+	unsigned per_ip = ctx->cfg->max_per_ip ? ctx->cfg->max_per_ip + HTTP_OVER_LIMIT_EXTRA : 0;
 
 	if (!h) {
 		snprintf(err, cap, "out of memory");
 		return NULL;
 	}
 	h->ctx = ctx;
+	h->guard = http_guard_new(ctx, err, cap);
+	if (!h->guard) {
+		free(h);
+		return NULL;
+	}
+	pthread_mutex_init(&h->log_lock, NULL);
+	h->log_window_s = drv_now_s();
 	memset(&a4, 0, sizeof a4);
 	memset(&a6, 0, sizeof a6);
 	if (inet_pton(AF_INET, ctx->cfg->listen_addr, &a4.sin_addr) == 1) {
@@ -401,19 +502,27 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 		flags |= MHD_USE_IPv6;
 	} else {
 		snprintf(err, cap, "bad listen address '%s'", ctx->cfg->listen_addr);
+		http_guard_free(h->guard);
+		pthread_mutex_destroy(&h->log_lock);
 		free(h);
 		return NULL;
 	}
 	h->d = MHD_start_daemon(flags, (uint16_t)ctx->cfg->listen_port, NULL, NULL, on_request, ctx,
-	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, NULL, MHD_OPTION_SOCK_ADDR,
-	                        sa, MHD_OPTION_THREAD_POOL_SIZE, ctx->cfg->threads,
+	                        MHD_OPTION_EXTERNAL_LOGGER, on_mhd_log, h, MHD_OPTION_SOCK_ADDR, sa,
+	                        MHD_OPTION_THREAD_POOL_SIZE, ctx->cfg->threads,
 	                        MHD_OPTION_CONNECTION_LIMIT, ctx->cfg->max_connections,
-	                        MHD_OPTION_PER_IP_CONNECTION_LIMIT, ctx->cfg->max_per_ip,
+	                        /* MHD drops connections past this without a word; the
+	                         * extra few are ours to answer 503 (http_guard.h). */
+	                        MHD_OPTION_PER_IP_CONNECTION_LIMIT, per_ip,
 	                        MHD_OPTION_CONNECTION_TIMEOUT, ctx->cfg->connection_timeout_s,
+	                        MHD_OPTION_NOTIFY_CONNECTION, http_guard_notify, h->guard,
+	                        MHD_OPTION_URI_LOG_CALLBACK, on_uri, NULL,
 	                        MHD_OPTION_NOTIFY_COMPLETED, on_completed, NULL, MHD_OPTION_END);
 	if (!h->d) {
 		snprintf(err, cap, "cannot listen on %s:%d: %s", ctx->cfg->listen_addr,
 		         ctx->cfg->listen_port, errno ? strerror(errno) : "libmicrohttpd failed");
+		http_guard_free(h->guard);
+		pthread_mutex_destroy(&h->log_lock);
 		free(h);
 		return NULL;
 	}
@@ -430,5 +539,9 @@ void http_stop(http_server_t *h)
 	MHD_stop_daemon(h->d);
 	if (fd != MHD_INVALID_SOCKET)
 		close(fd);
+	http_guard_free(h->guard);
+	if (h->dropped)
+		log_warn("http: %u more libmicrohttpd messages were not logged", h->dropped);
+	pthread_mutex_destroy(&h->log_lock);
 	free(h);
 }

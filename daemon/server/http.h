@@ -31,6 +31,7 @@ typedef struct http_ctx {
 	/* counters for /metrics */
 	atomic_long requests_2xx, requests_4xx, requests_5xx;
 	atomic_long body_too_large, auth_failures;
+	atomic_long deadline_cuts, over_limit; /* http_guard.h */
 } http_ctx_t;
 
 typedef struct http_server http_server_t;
@@ -63,6 +64,8 @@ typedef struct http_reply {
 	size_t len;
 	const char *content_type;
 	char location[96];
+	const char *allow; /* 405: the Allow header */
+	bool close;        /* answer with "Connection: close" */
 } http_reply_t;
 
 /* Fill a reply: JSON (steals j), an error, or text (copied). */

@@ -246,12 +246,21 @@ char *http_metrics_text(http_ctx_t *ctx, size_t *out_len)
 	       "stopcock_http_auth_failures_total %ld\n"
 	       "# TYPE stopcock_http_body_too_large counter\n"
 	       "stopcock_http_body_too_large_total %ld\n"
+	       "# TYPE stopcock_http_deadline_cuts counter\n"
+	       "# HELP stopcock_http_deadline_cuts Connections closed for not delivering a "
+	       "request within http.request_deadline_s.\n"
+	       "stopcock_http_deadline_cuts_total %ld\n"
+	       "# TYPE stopcock_http_busy counter\n"
+	       "# HELP stopcock_http_busy Requests answered 503 for their address's "
+	       "connection limit.\n"
+	       "stopcock_http_busy_total %ld\n"
 	       "# TYPE stopcock_uptime_seconds gauge\n"
 	       "# UNIT stopcock_uptime_seconds seconds\n"
 	       "stopcock_uptime_seconds %.1f\n# EOF\n",
 	       atomic_load(&ctx->requests_2xx), atomic_load(&ctx->requests_4xx),
 	       atomic_load(&ctx->requests_5xx), atomic_load(&ctx->auth_failures),
-	       atomic_load(&ctx->body_too_large), mono_s() - ctx->started_mono_s);
+	       atomic_load(&ctx->body_too_large), atomic_load(&ctx->deadline_cuts),
+	       atomic_load(&ctx->over_limit), mono_s() - ctx->started_mono_s);
 	*out_len = len;
 	return b;
 }

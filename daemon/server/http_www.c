@@ -208,17 +208,60 @@ static bool word_in(const char *w, const char *list)
 	return false;
 }
 
-/* A date or RFC 3339 time prefix: digits, '-', ':', 'T', '.', 'Z'. */
+/* n digits at *p as a number in [lo, hi]; advances *p. */
+static bool digits_in(const char **p, int n, int lo, int hi, int *out)
+{
+	int v = 0;
+	for (int i = 0; i < n; i++) {
+		if ((*p)[i] < '0' || (*p)[i] > '9')
+			return false;
+		v = v * 10 + ((*p)[i] - '0');
+	}
+	*p += n;
+	*out = v;
+	return v >= lo && v <= hi;
+}
+
+/* A real date or UTC time, whole or cut after a field: YYYY[-MM[-DD
+ * [THH[:MM[:SS[.fff]]][Z]]]] ("2026-02-30", "2026-13" or "1%00abc" are
+ * refused; the store compares it with RFC 3339 text, so a prefix works). */
 static bool time_text_ok(const char *s)
 {
-	size_t n = strlen(s);
-	if (n < 4 || n >= TIME_TEXT_MAX)
+	static const int mdays[] = {31, 29, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+	const char *p = s;
+	int y, mo, d, v;
+
+	if (strlen(s) >= TIME_TEXT_MAX || !digits_in(&p, 4, 1970, 9999, &y))
 		return false;
-	for (; *s; s++)
-		if (!((*s >= '0' && *s <= '9') || *s == '-' || *s == ':' || *s == 'T' ||
-		      *s == '.' || *s == 'Z'))
+	if (!*p)
+		return true;
+	if (*p++ != '-' || !digits_in(&p, 2, 1, 12, &mo))
+		return false;
+	if (!*p)
+		return true;
+	if (*p++ != '-' || !digits_in(&p, 2, 1, mdays[mo - 1], &d))
+		return false;
+	if (mo == 2 && d == 29 && !(y % 4 == 0 && (y % 100 != 0 || y % 400 == 0)))
+		return false;
+	if (!*p)
+		return true;
+	if (*p++ != 'T' || !digits_in(&p, 2, 0, 23, &v))
+		return false;
+	int field = 0;
+	for (; field < 2 && *p == ':'; field++) { /* minutes, seconds */
+		p++;
+		if (!digits_in(&p, 2, 0, 59, &v))
 			return false;
-	return true;
+	}
+	if (*p == '.' && field == 2) { /* a fraction of a second */
+		if (p[1] < '0' || p[1] > '9')
+			return false;
+		for (p++; *p >= '0' && *p <= '9'; p++)
+			;
+	}
+	if (*p == 'Z')
+		p++;
+	return *p == '\0';
 }
 
 static const char *arg(const http_req_t *q, const char *key)

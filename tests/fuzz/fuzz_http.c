@@ -76,6 +76,10 @@ static void start(void)
 	cfg.max_connections = 256;
 	cfg.max_body_bytes = 256 * 1024;
 	cfg.connection_timeout_s = 10;
+	cfg.request_deadline_s = 10;
+	cfg.max_per_ip = 32;
+	cfg.n_allowed_hosts = 1;
+	snprintf(cfg.allowed_hosts[0], sizeof cfg.allowed_hosts[0], "localhost");
 	cfg.threads = 2;
 	snprintf(cfg.database, sizeof cfg.database, "%s", db);
 	ctx.cfg = &cfg;

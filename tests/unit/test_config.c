@@ -99,6 +99,63 @@ TEST(config_load_defaults_and_errors)
 	rmdir(dir);
 }
 
+TEST(config_http_guard_keys)
+{
+	char dir[] = "/tmp/stopcock-cfg-XXXXXX", path[128];
+	static cfg_t c;
+	diag_list_t d = DIAG_LIST_INIT;
+	static const char stations[] = "stations:\n"
+	                               "  - name: b1\n"
+	                               "    vessel_max_ml: 100\n"
+	                               "    burette: {driver: x}\n"
+	                               "    probe: {driver: y}\n";
+	char text[1024];
+
+	REQUIRE(mkdtemp(dir));
+	snprintf(path, sizeof path, "%s/c.yaml", dir);
+	/* defaults: a 10 s deadline, 32 per address, localhost as the name */
+	write_file(path, stations);
+	CHECK(cfg_load(path, &c, &d) == 0);
+	CHECK_INT(c.request_deadline_s, 10);
+	CHECK_INT(c.max_per_ip, 32);
+	REQUIRE(c.n_allowed_hosts == 1);
+	CHECK_STR(c.allowed_hosts[0], "localhost");
+	cfg_free(&c);
+
+	snprintf(text, sizeof text,
+	         "http:\n  request_deadline_s: 3\n"
+	         "  allowed_hosts: [Bench7.Lab.Example., localhost]\n%s",
+	         stations);
+	write_file(path, text);
+	CHECK(cfg_load(path, &c, &d) == 0);
+	CHECK_INT(d.n, 0);
+	CHECK_INT(c.request_deadline_s, 3);
+	REQUIRE(c.n_allowed_hosts == 2);
+	CHECK_STR(c.allowed_hosts[0], "bench7.lab.example"); /* lower case, no dot */
+	CHECK_STR(c.allowed_hosts[1], "localhost");
+	cfg_free(&c);
+
+	snprintf(text, sizeof text,
+	         "http:\n  request_deadline_s: 0\n"
+	         "  allowed_hosts: [\"evil.example:80\", \"a..b\", ok-name]\n%s",
+	         stations);
+	write_file(path, text);
+	CHECK(cfg_load(path, &c, &d) != 0);
+	{
+		char *all = diag_join(&d);
+		REQUIRE(all);
+		CHECK(strstr(all, ":2:") && strstr(all, "request_deadline_s"));
+		CHECK(strstr(all, "'evil.example:80' is not a host name") != NULL);
+		CHECK(strstr(all, "'a..b' is not a host name") != NULL);
+		CHECK(strstr(all, "ok-name") == NULL);
+		free(all);
+	}
+	diag_free(&d);
+	cfg_free(&c);
+	unlink(path);
+	rmdir(dir);
+}
+
 TEST(config_tokens)
 {
 	char dir[] = "/tmp/stopcock-tok-XXXXXX", path[128];
