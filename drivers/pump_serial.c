@@ -256,32 +256,39 @@ static drv_status_t query(pump_t *p, bool *moving, drv_err_t *err)
 	return DRV_OK;
 }
 
-/* halt_first: the first line a freshly opened pump hears is the halt, before
- * the profile's init (which may move the plunger, e.g. a homing command) and
- * before any status query: whatever the pump was doing when the last owner
- * of the line died stops first. Any reply counts (a pump in an error state
- * may refuse the halt with an error and is still stopped); only silence or a
- * lost line fails the open. */
-static drv_status_t open_link(pump_t *p, bool halt_first, drv_err_t *err)
+/* The first line a pump hears on every open of its line, the first and each
+ * reopen after the line was lost, is the halt: before the profile's init
+ * (which may move the plunger, e.g. a homing command) and before any status
+ * query. Whatever the pump was doing while nobody could reach it (a dose or
+ * a fill it was given before the line went) stops first. Any reply counts (a
+ * pump in an error state may refuse the halt with an error and is still
+ * stopped); only silence or a lost line fails the open, and closes the
+ * line again so the next try also starts with the halt. A refill cut off
+ * this way ends with the valve turned back to the outlet, its safe
+ * position. */
+static drv_status_t open_link(pump_t *p, drv_err_t *err)
 {
 	drv_status_t st = serial_open(&p->ser, &p->link, err);
 	if (st != DRV_OK)
 		return st;
-	if (halt_first) {
-		char cmd[PUMP_STR * 2];
-		pump_args_t a = {0};
-		if (pump_expand(p->prof.halt, &a, cmd, sizeof(cmd)) < 0)
-			return drv_fail(err, DRV_CONFIG, "pump: cannot expand '%s'", p->prof.halt);
-		for (long i = 0; i <= p->link.retries; i++) {
-			pump_reply_t r;
-			st = transact_once(p, cmd, &r, err);
-			if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
-				break;
-		}
-		if (st != DRV_OK)
-			return st;
-		p->mode = MODE_IDLE;
+	char cmd[PUMP_STR * 2];
+	pump_args_t a = {0};
+	if (pump_expand(p->prof.halt, &a, cmd, sizeof(cmd)) < 0)
+		return drv_fail(err, DRV_CONFIG, "pump: cannot expand '%s'", p->prof.halt);
+	for (long i = 0; i <= p->link.retries; i++) {
+		pump_reply_t r;
+		st = transact_once(p, cmd, &r, err);
+		if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
+			break;
 	}
+	if (st != DRV_OK) {
+		serial_close(&p->ser); /* the next try opens again, and halts first */
+		return st;
+	}
+	bool refilling = p->mode == MODE_VALVE_IN || p->mode == MODE_FILL;
+	/* Moves since the last status count in IDLE as in DOSE (query). */
+	p->mode = MODE_IDLE;
+	p->moving = false;
 	if (p->prof.init[0]) {
 		pump_reply_t r;
 		st = transact_once(p, p->prof.init, &r, err);
@@ -290,6 +297,12 @@ static drv_status_t open_link(pump_t *p, bool halt_first, drv_err_t *err)
 		if (st != DRV_OK)
 			return st;
 	}
+	if (refilling && p->prof.valve_out[0]) {
+		st = simple_cmd(p, p->prof.valve_out, &a, err);
+		if (st != DRV_OK)
+			return st;
+		p->valve_known = true;
+	}
 	return DRV_OK;
 }
 
@@ -297,13 +310,13 @@ static drv_status_t ensure_open(pump_t *p, drv_err_t *err)
 {
 	if (serial_is_open(&p->ser))
 		return DRV_OK;
-	return open_link(p, false, err);
+	return open_link(p, err);
 }
 
 static drv_status_t pump_open(void *priv, drv_err_t *err)
 {
 	pump_t *p = priv;
-	drv_status_t st = open_link(p, true, err);
+	drv_status_t st = open_link(p, err);
 	if (st != DRV_OK)
 		return st;
 	bool mv;

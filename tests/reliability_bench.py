@@ -181,8 +181,10 @@ class Bench(db.Bench):
     Modbus proxy. `daemon_cmd(argv)` may wrap the daemon (valgrind)."""
 
     def __init__(self, tmp, extra_config="", daemon_wrap=None, state_dir=None,
-                 pump_relay=False, http=None):
+                 pump_relay=False, http=None, burette=None):
         self.http_overrides = dict(http or {})
+        # keys of the station's burette: (a profile other than the fast one, rates)
+        self.burette_overrides = dict(burette or {})
         self.proxy = None
         self.relay = None
         self.want_relay = pump_relay
@@ -196,6 +198,7 @@ class Bench(db.Bench):
         cfg = yaml.safe_load(self.config.read_text())
         st = cfg["stations"][0]
         st["burette"]["profile"] = str(FAST_PUMP)
+        st["burette"].update(self.burette_overrides)
         if self.want_relay:
             self.relay = PumpRelay(st["burette"]["port"], self.tmp / "pump-relay")
             st["burette"]["port"] = str(self.relay.link)

@@ -113,14 +113,37 @@ double station_capacity_ml(const station_t *s)
 void station_set_error(station_t *s, const char *msg)
 {
 	pthread_mutex_lock(&s->lock);
+	if (s->snap.halt_pending) { /* that says most: it stays until the halt is answered */
+		pthread_mutex_unlock(&s->lock);
+		return;
+	}
 	snprintf(s->snap.last_error, sizeof s->snap.last_error, "%s", msg ? msg : "");
 	station_unlock(s);
 }
 
 static void note_health(station_t *s, const char *what, bool *bad, bool ok, const char *msg);
 
-/* Open what is closed; on every (re)open of the burette halt it first, so a
- * replugged pump never continues a move it was given before. */
+/* Open the burette when it is closed; true when open. Its driver halts it
+ * first on every open and reopen of its line (drv.h), so a replugged pump
+ * never continues a move it was given before; the halt here is a second. */
+static bool open_burette(station_t *s)
+{
+	drv_err_t err = {{0}};
+
+	if (s->bur_open)
+		return true;
+	if (drv_burette_open(&s->bur, &err) != DRV_OK) {
+		note_health(s, "burette", &s->bur_bad, false, err.msg);
+		return false;
+	}
+	s->bur_open = true;
+	if (drv_burette_halt(&s->bur, &err) != DRV_OK)
+		log_warn("station %s: halt after open: %s", s->name, err.msg);
+	log_info("station %s: burette open", s->name);
+	return true;
+}
+
+/* Open what is closed. */
 static void open_devices(station_t *s, bool force)
 {
 	drv_err_t err = {{0}};
@@ -129,17 +152,7 @@ static void open_devices(station_t *s, bool force)
 	if (!force && now < s->next_open_try_s)
 		return;
 	s->next_open_try_s = now + REOPEN_S;
-	if (!s->bur_open) {
-		if (drv_burette_open(&s->bur, &err) == DRV_OK) {
-			drv_err_t e2 = {{0}};
-			s->bur_open = true;
-			if (drv_burette_halt(&s->bur, &e2) != DRV_OK)
-				log_warn("station %s: halt after open: %s", s->name, e2.msg);
-			log_info("station %s: burette open", s->name);
-		} else {
-			note_health(s, "burette", &s->bur_bad, false, err.msg);
-		}
-	}
+	open_burette(s);
 	if (!s->probe_open) {
 		if (drv_probe_open(&s->probe, &err) == DRV_OK) {
 			s->probe_open = true;
@@ -175,23 +188,72 @@ int station_halt_at_start(station_t *s, char *err, size_t cap)
 	return 0;
 }
 
-void station_halt_burette(station_t *s, const char *why)
+double station_halt_retry_s(int failed_tries)
+{
+	double t = STATION_HALT_RETRY_MIN_S;
+
+	/* doubling from the shortest: a line back in a moment is caught at
+	 * once, a long outage is not hammered */
+	for (int i = 1; i < failed_tries && t < STATION_HALT_RETRY_MAX_S; i++)
+		t *= 2;
+	return t < STATION_HALT_RETRY_MAX_S ? t : STATION_HALT_RETRY_MAX_S;
+}
+
+/* Publish whether the burette is confirmed halted. */
+static void note_halt(station_t *s, const char *why, bool ok, const char *msg)
+{
+	if (ok) {
+		if (s->halt_pending)
+			log_notice("station %s: burette halted (%s) after %d unanswered tries",
+			           s->name, s->halt_why, s->halt_tries);
+		else
+			log_info("station %s: burette halted (%s)", s->name, why);
+		s->halt_pending = false;
+		s->halt_tries = 0;
+		pthread_mutex_lock(&s->lock);
+		if (s->snap.halt_pending)
+			s->snap.last_error[0] = '\0';
+		s->snap.halt_pending = false;
+		station_unlock(s);
+		return;
+	}
+	if (!s->halt_pending) {
+		log_err("station %s: burette not confirmed halted (%s): %s; trying again until it "
+		        "answers",
+		        s->name, why, msg);
+		snprintf(s->halt_why, sizeof s->halt_why, "%s", why);
+	}
+	s->halt_pending = true;
+	s->halt_tries++;
+	s->halt_next_s = station_mono_s() + station_halt_retry_s(s->halt_tries);
+	pthread_mutex_lock(&s->lock);
+	s->snap.halt_pending = true;
+	snprintf(s->snap.last_error, sizeof s->snap.last_error,
+	         "burette not confirmed halted (%s): %s", s->halt_why, msg);
+	station_unlock(s);
+}
+
+bool station_halt_burette(station_t *s, const char *why)
 {
 	drv_err_t err = {{0}};
+	bool ok = false;
 
-	if (!s->bur_open) {
-		open_devices(s, true);
-		if (!s->bur_open)
-			return;
+	if (open_burette(s)) {
+		/* A halt is the one command worth a second try. */
+		for (int i = 0; i < 2 && !ok; i++)
+			ok = drv_burette_halt(&s->bur, &err) == DRV_OK;
+	} else {
+		snprintf(err.msg, sizeof err.msg, "the burette is not connected");
 	}
-	/* A halt is the one command worth a second try. */
-	for (int i = 0; i < 2; i++) {
-		if (drv_burette_halt(&s->bur, &err) == DRV_OK) {
-			log_info("station %s: burette halted (%s)", s->name, why);
-			return;
-		}
-	}
-	log_err("station %s: halt failed (%s): %s", s->name, why, err.msg);
+	note_halt(s, why, ok, err.msg);
+	return ok;
+}
+
+bool station_halt_retry(station_t *s)
+{
+	if (s->halt_pending && station_mono_s() >= s->halt_next_s)
+		station_halt_burette(s, s->halt_why);
+	return !s->halt_pending;
 }
 
 drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err)
@@ -501,6 +563,7 @@ static void idle_tick(station_t *s, double *next_read)
 	drv_err_t err = {{0}};
 	bool measuring, dirty;
 
+	station_halt_retry(s);
 	open_devices(s, false);
 	/* No run: the stirrer should be off. An off that failed (its link was
 	 * the thing that failed, e.g. a Modbus line shared with the probe) is
@@ -551,7 +614,8 @@ static void idle_tick(station_t *s, double *next_read)
 		}
 		note_health(s, "burette", &s->bur_bad, ok, err.msg);
 	}
-	if (s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad && !s->n_pending)
+	if (s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad && !s->n_pending &&
+	    !s->halt_pending)
 		station_set_error(s, "");
 	set_state(s, s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad ? "idle"
 	                                                                          : "offline");
@@ -572,7 +636,8 @@ static void *station_main(void *arg)
 			station_unlock(s);
 			break;
 		}
-		if (s->qn && !unstored &&
+		/* nothing starts on a burette that may still be moving */
+		if (s->qn && !unstored && !s->halt_pending &&
 		    !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
 			job = s->queue[0];
 			memmove(s->queue, s->queue + 1, (size_t)(s->qn - 1) * sizeof s->queue[0]);

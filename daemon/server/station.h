@@ -59,6 +59,8 @@ typedef struct station_snapshot {
 	double wake_late_sum_s;
 	double wake_late_max_s;
 	char last_error[256];  /* last device error, "" when none */
+	bool halt_pending;     /* a halt the burette did not acknowledge; tried
+	                        * again until it does */
 	uint64_t heartbeat_us; /* notify_now_us() of the thread's last loop */
 } station_snapshot_t;
 
@@ -94,6 +96,14 @@ void station_snapshot(station_t *s, station_snapshot_t *out);
  * (also for NaN or non-positive input). Pure; station_run.c uses it. */
 int station_dose_interlock(double dispensed_ml, double dose_ml, double method_max_ml,
                            double vessel_max_ml, double quantum_ml, double *allowed_ml);
+
+/* A halt the burette did not acknowledge is tried again, after failed_tries
+ * failures, this many seconds later: short at first, then never more than
+ * STATION_HALT_RETRY_MAX_S apart, for as long as the daemon runs. Pure;
+ * station.c uses it. */
+#define STATION_HALT_RETRY_MIN_S 0.1
+#define STATION_HALT_RETRY_MAX_S 0.5
+double station_halt_retry_s(int failed_tries);
 
 /* A queued run: the method is copied. */
 typedef struct station_job {

@@ -85,6 +85,13 @@ struct station {
 	} pending[STATION_MAX_PENDING];
 	int n_pending;
 	double stir_retry_s; /* monotonic time of the next stirrer-off try while idle */
+	/* A halt the burette did not acknowledge (station thread only): tried
+	 * again at halt_next_s, in a run and while idle; no run starts until
+	 * it is acknowledged. */
+	bool halt_pending;
+	int halt_tries;      /* failed tries since the first */
+	double halt_next_s;  /* monotonic s */
+	char halt_why[64];   /* why the first halt was sent */
 	double pending_next_s; /* monotonic time of the next try */
 };
 
@@ -103,7 +110,12 @@ bool station_interrupted(station_t *s, int64_t run_id);
 
 /* Devices, station thread only. */
 drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err);
-void station_halt_burette(station_t *s, const char *why);
+/* Halt the burette; true when it acknowledged. When it did not, the station
+ * says "burette not confirmed halted" and station_halt_retry tries again. */
+bool station_halt_burette(station_t *s, const char *why);
+/* Try a pending halt again when its time has come; true when none is
+ * pending (any more). */
+bool station_halt_retry(station_t *s);
 void station_set_error(station_t *s, const char *msg);
 
 /* Execute one run to its end (station_run.c). */

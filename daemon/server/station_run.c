@@ -24,6 +24,7 @@
 #define STALE_READING_S 10.0  /* a reading older than this is a fault */
 #define DOSE_POLL_S     0.02  /* status polls while the plunger moves */
 #define MOVE_DEADLINE_S 300.0 /* a dose or refill not done by then is a fault */
+#define HALT_WAIT_S     5.0   /* a run's halt not answered by then is left to the idle station */
 
 typedef struct run {
 	station_t *s;
@@ -110,18 +111,98 @@ static int store_new_points(run_t *r)
 	return 0;
 }
 
-static engine_action_t feed_fault(run_t *r, double t_s, const char *code, const char *msg)
+static bool burette_status(run_t *r, drv_burette_status_t *bs, drv_err_t *err);
+static double t_run(const run_t *r);
+
+/* Halt the burette for the run and read where it stopped (bs). A halt the
+ * burette does not acknowledge is tried again (station_halt_retry) and so is
+ * the status, for up to HALT_WAIT_S: a line back within that time still gives
+ * the record the pump's own count. Returns true with bs from the pump after
+ * the halt; false when it did not answer in time (the station goes on trying
+ * the halt after the run) or the daemon is stopping. */
+static bool halt_for_run(run_t *r, const char *why, drv_burette_status_t *bs)
+{
+	station_t *s = r->s;
+	double until = station_mono_s() + HALT_WAIT_S;
+	drv_err_t err = {{0}};
+	bool halted = station_halt_burette(s, why);
+
+	for (;;) {
+		if (halted && burette_status(r, bs, &err) && !bs->moving)
+			return true;
+		if (station_mono_s() >= until)
+			return false;
+		pthread_mutex_lock(&s->lock);
+		bool stopping = s->stop_req;
+		s->halt_req = false; /* an operator's halt is what is being done */
+		pthread_mutex_unlock(&s->lock);
+		if (stopping)
+			return false;
+		station_wait_until(s, station_mono_s() + STATION_HALT_RETRY_MIN_S, 0);
+		if (!halted)
+			halted = station_halt_retry(s);
+		else if (bs->moving) /* answered, yet moving: halt it again */
+			halted = station_halt_burette(s, why);
+	}
+}
+
+/* Record a fault on a burette already halted (or given up on) and end the run. */
+static engine_action_t fault_halted(run_t *r, double t_s, const char *code, const char *msg)
 {
 	engine_event_t ev = {.kind = ENGINE_EV_FAULT, .t_s = t_s, .code = code, .message = msg};
 	char at[32];
 
 	log_err("station %s run %lld: %s: %s", r->s->name, (long long)r->job->run_id, code, msg);
-	station_halt_burette(r->s, code);
 	now_text(at);
 	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg, "daemon");
 	station_set_error(r->s, msg);
 	r->fault = true;
 	return engine_feed(r->e, &ev);
+}
+
+static engine_action_t feed_fault(run_t *r, double t_s, const char *code, const char *msg)
+{
+	drv_burette_status_t bs = {0};
+
+	halt_for_run(r, code, &bs);
+	return fault_halted(r, t_s, code, msg);
+}
+
+/* What a dose put in, from the burette's count (bs, read after it stopped)
+ * since before_ml: into the run's total and the engine's, so the record says
+ * what went into the beaker, also when the dose was cut off. */
+static double count_dose(run_t *r, const drv_burette_status_t *bs, double before_ml)
+{
+	double delivered = bs->dispensed_ml - before_ml;
+
+	if (delivered < 0 || !isfinite(delivered))
+		delivered = 0;
+	r->dispensed_ml += delivered;
+	if (delivered > 0)
+		engine_feed(r->e, &(engine_event_t){.kind = ENGINE_EV_DOSED,
+		                                    .t_s = t_run(r),
+		                                    .dosed_ml = delivered});
+	return delivered;
+}
+
+/* A dose that failed or was cut off by a fault: halt, count what the pump
+ * says went in, then fail the run. */
+static engine_action_t dose_fault(run_t *r, double before_ml, const drv_burette_status_t *last,
+                                  const char *msg)
+{
+	drv_burette_status_t bs = *last;
+	char text[400];
+
+	if (halt_for_run(r, "burette_dose", &bs)) {
+		count_dose(r, &bs, before_ml);
+		return fault_halted(r, t_run(r), "burette_dose", msg);
+	}
+	count_dose(r, &bs, before_ml); /* the last count the pump gave */
+	snprintf(text, sizeof text,
+	         "%s; the burette did not confirm the halt, so dispensed_ml counts only what it "
+	         "reported before",
+	         msg);
+	return fault_halted(r, t_run(r), "burette_dose", text);
 }
 
 static double t_run(const run_t *r)
@@ -149,8 +230,7 @@ static int wait_move(run_t *r, drv_burette_status_t *bs, char *msg, size_t cap)
 
 	for (;;) {
 		if (station_wait_until(r->s, station_mono_s() + DOSE_POLL_S, r->job->run_id)) {
-			station_halt_burette(r->s, "run interrupted");
-			burette_status(r, bs, &err);
+			halt_for_run(r, "run interrupted", bs);
 			return 1;
 		}
 		if (!burette_status(r, bs, &err)) {
@@ -264,20 +344,24 @@ static engine_action_t do_dose(run_t *r, double dose_ml)
 		}
 	}
 	before_ml = bs.dispensed_ml;
+	/* A dose refused or cut off may still have started (a reply lost on
+	 * the way back): halt and count from the pump. */
 	if (drv_burette_dose(&s->bur, dose_ml, &err) != DRV_OK)
-		return feed_fault(r, t_run(r), "burette_dose", err.msg);
+		return dose_fault(r, before_ml, &bs, err.msg);
 	pthread_mutex_lock(&s->lock);
 	s->snap.additions_total++;
 	station_unlock(s);
 	w = wait_move(r, &bs, msg, sizeof msg);
+	if (w < 0)
+		return dose_fault(r, before_ml, &bs, msg);
+	if (w > 0) {
+		count_dose(r, &bs, before_ml); /* halted by wait_move */
+		goto interrupted;
+	}
 	delivered = bs.dispensed_ml - before_ml;
 	if (delivered < 0 || !isfinite(delivered))
 		delivered = 0;
 	r->dispensed_ml += delivered;
-	if (w < 0)
-		return feed_fault(r, t_run(r), "burette_dose", msg);
-	if (w > 0)
-		goto interrupted;
 	publish(r);
 	return engine_feed(
 	    r->e,

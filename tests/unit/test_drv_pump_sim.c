@@ -237,3 +237,85 @@ TEST(drv_pump_sim_restart_mid_refill)
 	CHECK_NEAR(st.dispensed_ml, 0.1, 1e-9);
 	teardown(&f);
 }
+
+/* Wait until the driver's line answers again after an unplug. */
+static drv_status_t status_until_back(fixture_t *f, drv_burette_status_t *st)
+{
+	drv_err_t e;
+	drv_status_t r = DRV_UNPLUGGED;
+	for (int i = 0; i < 100 && r != DRV_OK; i++) {
+		usleep(20000);
+		r = drv_burette_status(&f->b, st, &e);
+	}
+	return r;
+}
+
+TEST(drv_pump_sim_reopen_halts_a_dose_first)
+{
+	/* The line goes while the plunger doses: the pump goes on. The first
+	 * command on the reopened line is the halt, so the plunger stops as
+	 * soon as the line is back, and the count is the pump's position. */
+	fixture_t f;
+	REQUIRE(setup(&f, 200) == 0);
+	drv_err_t e;
+	drv_burette_status_t st;
+	REQUIRE(drv_burette_open(&f.b, &e) == DRV_OK);
+	REQUIRE(drv_burette_dose(&f.b, 2.0, &e) == DRV_OK); /* 2 s at 60 mL/min */
+	usleep(200000);
+	set_fault(&f, SIM_FAULT_UNPLUG);
+	usleep(300000);
+	CHECK(drv_burette_status(&f.b, &st, &e) == DRV_UNPLUGGED);
+	set_fault(&f, SIM_FAULT_NONE);
+	CHECK(status_until_back(&f, &st) == DRV_OK);
+	pthread_mutex_lock(&f.sim.mu);
+	bool moving = f.sim.pump.moving;
+	double in_beaker_ml = beaker_titrant_ml(f.sim.beaker);
+	pthread_mutex_unlock(&f.sim.mu);
+	CHECK(!moving);
+	CHECK(!st.moving);
+	CHECK(in_beaker_ml > 0.3 && in_beaker_ml < 1.9);
+	CHECK_NEAR(st.dispensed_ml, in_beaker_ml, 0.0005 + 1e-9);
+	usleep(200000);
+	pthread_mutex_lock(&f.sim.mu);
+	CHECK_NEAR(beaker_titrant_ml(f.sim.beaker), in_beaker_ml, 1e-12);
+	pthread_mutex_unlock(&f.sim.mu);
+	teardown(&f);
+}
+
+TEST(drv_pump_sim_reopen_mid_refill_turns_the_valve_out)
+{
+	fixture_t f;
+	REQUIRE(setup(&f, 200) == 0);
+	drv_err_t e;
+	drv_burette_status_t st;
+	REQUIRE(drv_burette_open(&f.b, &e) == DRV_OK);
+	REQUIRE(drv_burette_dose(&f.b, 8.0, &e) == DRV_OK);
+	pthread_mutex_lock(&f.sim.mu);
+	f.sim.pump.speed = 8000; /* empty the syringe quickly */
+	pthread_mutex_unlock(&f.sim.mu);
+	REQUIRE(wait_idle(&f, &st, 5) == DRV_OK);
+	REQUIRE(drv_burette_refill(&f.b, &e) == DRV_OK);
+	/* valve in, then filling 8 mL at 240 mL/min: 2 s */
+	for (int i = 0; i < 50; i++) {
+		REQUIRE(drv_burette_status(&f.b, &st, &e) == DRV_OK);
+		pthread_mutex_lock(&f.sim.mu);
+		bool filling = f.sim.pump.moving && f.sim.pump.valve_in;
+		pthread_mutex_unlock(&f.sim.mu);
+		if (filling)
+			break;
+		usleep(20000);
+	}
+	set_fault(&f, SIM_FAULT_UNPLUG);
+	usleep(300000);
+	set_fault(&f, SIM_FAULT_NONE);
+	CHECK(status_until_back(&f, &st) == DRV_OK);
+	pthread_mutex_lock(&f.sim.mu);
+	CHECK(!f.sim.pump.moving);
+	CHECK(!f.sim.pump.valve_in);
+	pthread_mutex_unlock(&f.sim.mu);
+	CHECK(!st.refilling);
+	/* the driver is ready to dose again */
+	CHECK(drv_burette_dose(&f.b, 0.1, &e) == DRV_OK);
+	CHECK(wait_idle(&f, &st, 3) == DRV_OK);
+	teardown(&f);
+}

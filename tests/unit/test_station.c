@@ -1,4 +1,4 @@
-/* test_station.c: the station's volume interlock (a pure function). */
+/* test_station.c: the station's volume interlock and halt retry (pure functions). */
 #include <math.h>
 
 #include "harness.h"
@@ -36,4 +36,18 @@ TEST(station_interlock_refuses_when_nothing_fits)
 	CHECK_INT(station_dose_interlock(0.0, NAN, 25.0, 150.0, 0.0005, &ok), -1);
 	CHECK_INT(station_dose_interlock(0.0, -0.1, 25.0, 150.0, 0.0005, &ok), -1);
 	CHECK_INT(station_dose_interlock(0.0, 0.1, 25.0, 150.0, 0.0, &ok), -1);
+}
+
+TEST(station_halt_retry_is_short_and_bounded)
+{
+	/* the first retry comes at once (a line back in a moment is caught) */
+	CHECK_NEAR(station_halt_retry_s(1), STATION_HALT_RETRY_MIN_S, 1e-12);
+	CHECK(station_halt_retry_s(2) > station_halt_retry_s(1));
+	/* never longer than the bound, however long the outage */
+	for (int n = 0; n < 100000; n += 997) {
+		CHECK(station_halt_retry_s(n) > 0);
+		CHECK(station_halt_retry_s(n) <= STATION_HALT_RETRY_MAX_S);
+	}
+	CHECK_NEAR(station_halt_retry_s(1000000), STATION_HALT_RETRY_MAX_S, 1e-12);
+	CHECK_NEAR(station_halt_retry_s(-5), STATION_HALT_RETRY_MIN_S, 1e-12);
 }
