@@ -19,6 +19,7 @@
 
 #include <modbus.h>
 
+#include "datadir.h"
 #include "serial.h"
 #include "sim.h"
 
@@ -102,34 +103,12 @@ static int abs_path(const char *p, char *out, size_t cap)
 	return n > 0 && (size_t)n < cap ? 0 : -1;
 }
 
-/* Where pumps/sim.yaml and methods/ are: the config/ directory of the
- * repository holding this executable (in its build directory), or of
- * the working directory, else the installed data directory. */
+/* Where pumps/sim.yaml and methods/ are: the data folder (datadir.h), the
+ * repository's config/ when run from a build folder. */
 static void find_data(char *out, size_t cap)
 {
-	char exe[PATH_MAX];
-	ssize_t n = readlink("/proc/self/exe", exe, sizeof(exe) - 1);
-	if (n > 0) {
-		exe[n] = '\0';
-		for (int up = 0; up < 5; up++) {
-			char *s = strrchr(exe, '/');
-			if (!s)
-				break;
-			*s = '\0';
-			char probe[PATH_MAX + 32];
-			snprintf(probe, sizeof(probe), "%s/config/pumps/sim.yaml", exe);
-			int w = snprintf(out, cap, "%s/config", exe);
-			if (access(probe, R_OK) == 0 && w > 0 && (size_t)w < cap)
-				return;
-		}
-	}
-	char cwd[PATH_MAX];
-	if (getcwd(cwd, sizeof(cwd)) && access("config/pumps/sim.yaml", R_OK) == 0) {
-		int w = snprintf(out, cap, "%s/config", cwd);
-		if (w > 0 && (size_t)w < cap)
-			return;
-	}
-	snprintf(out, cap, "%s", STOPCOCK_DATADIR);
+	if (datadir_find(out, cap, NULL) != 0)
+		snprintf(out, cap, "%s", ".");
 }
 
 static int write_token(const char *path)
