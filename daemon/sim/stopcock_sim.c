@@ -31,10 +31,10 @@ typedef struct opts {
 
 static void usage(FILE *f)
 {
-	fprintf(f,
-	        "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
-	        "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
-	        "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n");
+	fprintf(f, "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
+	           "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
+	           "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n"
+	           "       stopcock-sim control SOCKET COMMAND [ARG...]\n");
 }
 
 static int parse_args(int argc, char **argv, opts_t *o)
@@ -261,6 +261,8 @@ static int self_check(const sim_t *s, const char *pump_abs)
 int main(int argc, char **argv)
 {
 	opts_t o;
+	if (argc >= 2 && !strcmp(argv[1], "control"))
+		return sim_control_client(argc - 2, argv + 2);
 	if (parse_args(argc, argv, &o) != 0) {
 		usage(stderr);
 		return 2;
