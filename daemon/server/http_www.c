@@ -106,10 +106,10 @@ static void find_dir(void)
 	if (datadir_find(data, sizeof data, &in_tree) != 0)
 		data[0] = '\0';
 	/* In a checkout the data folder is REPO/config and the page REPO/daemon/server/www. */
-	if (in_tree)
-		snprintf(www_dir, sizeof www_dir, "%s/../daemon/server/www", data);
-	else
-		snprintf(www_dir, sizeof www_dir, "%s/www", data);
+	int w = in_tree ? snprintf(www_dir, sizeof www_dir, "%s/../daemon/server/www", data)
+	                : snprintf(www_dir, sizeof www_dir, "%s/www", data);
+	if (w < 0 || (size_t)w >= sizeof www_dir)
+		www_dir[0] = '\0'; /* too long a path: no page, said below */
 out:
 	if (!has_index(www_dir))
 		log_warn("http: the bench page's folder %s has no index.html; GET / will be 404",
