@@ -197,3 +197,39 @@ def test_readme_by_hand_gives_a_finished_run(tmp_path):
                     os.killpg(p.pid, signal.SIGKILL)
                     p.wait()
             out.close()
+
+
+def test_sim_control_command(tmp_path):
+    """`stopcock-sim control SOCKET COMMAND`: the reply on stdout and exit 0, an
+    error on stderr and exit 1; a relative `load` path is the caller's."""
+    sim = build_bin() / "stopcock-sim"
+    ctl = tmp_path / "ctl"
+    p = subprocess.Popen([str(sim), "--scenario", str(CIDER), "--modbus-tcp",
+                          f"127.0.0.1:{free_port()}", "--pump-link", str(tmp_path / "pump"),
+                          "--control", str(ctl)],
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert p.stdout.readline().strip() == "ready", p.stderr.read()
+
+        def control(*args, cwd=tmp_path):
+            return subprocess.run([str(sim), "control", str(ctl), *args], cwd=cwd,
+                                  capture_output=True, text=True, timeout=20)
+
+        r = control("state")
+        assert r.returncode == 0 and r.stdout.startswith("{"), r
+        ph_cider = float(re.search(r'"ph":([0-9.]+)', r.stdout).group(1))
+        r = control("load", "config/scenarios/ph-buffer-7.00.yaml", cwd=ROOT)
+        assert (r.returncode, r.stdout.strip()) == (0, "ok"), r
+        r = control("state")
+        ph = float(re.search(r'"ph":([0-9.]+)', r.stdout).group(1))
+        assert abs(ph - 7.00) < 0.01 and abs(ph_cider - 7.00) > 1, (ph_cider, ph)
+        r = control("stir")
+        assert r.returncode == 1 and "unknown command 'stir'" in r.stderr, r
+        r = control("load", "no-such.yaml")
+        assert r.returncode == 2 and "no-such.yaml" in r.stderr, r
+        r = subprocess.run([str(sim), "control", str(tmp_path / "nobody"), "state"],
+                           capture_output=True, text=True, timeout=20)
+        assert r.returncode == 1 and "cannot connect" in r.stderr, r
+    finally:
+        p.terminate()
+        p.wait(timeout=10)
