@@ -13,6 +13,8 @@ import re
 import socket
 import stat
 import subprocess
+import time
+import urllib.request
 from pathlib import Path
 
 import pytest
@@ -107,13 +109,34 @@ def test_installed_sim_writes_the_installed_methods_dir(dest, tmp_path):
     sim = dest / "usr/bin/stopcock-sim"
     scenario = dest / "usr/share/stopcock/scenarios/cider-acidity.yaml"
     out = tmp_path / "stopcockd.yaml"
+    http = free_port()
     p = subprocess.Popen([str(sim), "--scenario", str(scenario), "--modbus-tcp", f"127.0.0.1:{free_port()}",
+                          "--listen", f"127.0.0.1:{http}",
                           "--pump-link", str(tmp_path / "pump"), "--config-out", str(out),
                           "--state-dir", str(tmp_path / "state")],
                          stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         assert p.stdout.readline().strip() == "ready", p.stderr.read()
         text = out.read_text()
+        # The installed daemon serves the installed bench page.
+        d = subprocess.Popen([str(dest / "usr/sbin/stopcockd"), "-c", str(out)], cwd="/",
+                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+        try:
+            page = None
+            for _ in range(100):
+                try:
+                    page = urllib.request.urlopen(f"http://127.0.0.1:{http}/",
+                                                  timeout=2).read()
+                    break
+                except OSError:
+                    assert d.poll() is None, d.stderr.read()
+                    time.sleep(0.1)
+            assert page and page == (dest / "usr/share/stopcock/www/index.html").read_bytes()
+        finally:
+            d.terminate()
+            d.wait(timeout=20)
+            log = d.stderr.read()
+        assert f"serving the bench page from {dest}/usr/share/stopcock/www" in log, log
     finally:
         p.terminate()
         p.wait(timeout=10)
