@@ -1,4 +1,8 @@
-# Stopcock build. `make check` and `make demo` each install missing Debian
+# Stopcock build. The programs find DATADIR at run time beside themselves
+# (PREFIX/bin/../share/stopcock, daemon/lib/datadir.h), so `make install` with
+# any PREFIX or DESTDIR installs the binaries `make all` built, unchanged; the
+# DATADIR compiled in is only the last resort.
+# `make check` and `make demo` each install missing Debian
 # packages first (when run as root), so either is one command on a fresh
 # Debian 12 machine.
 
@@ -7,6 +11,7 @@ BINDIR ?= $(PREFIX)/bin
 SBINDIR ?= $(PREFIX)/sbin
 DATADIR ?= $(PREFIX)/share/stopcock
 MANDIR ?= $(PREFIX)/share/man
+DOCDIR ?= $(PREFIX)/share/doc/stopcock
 SYSCONFDIR ?= /etc
 UNITDIR ?= /lib/systemd/system
 DESTDIR ?=
@@ -242,10 +247,12 @@ install: all
 	  for f in systemd/*tmpfiles*.conf; do [ -f $$f ] && install -m 0644 $$f $(DESTDIR)$(PREFIX)/lib/tmpfiles.d/stopcock.conf; done; true; fi
 	@for f in docs/*.[1-8]; do [ -f "$$f" ] || continue; s=$${f##*.}; \
 	  install -d $(DESTDIR)$(MANDIR)/man$$s; install -m 0644 $$f $(DESTDIR)$(MANDIR)/man$$s/; done
+	install -d $(DESTDIR)$(DOCDIR)
+	install -m 0644 README.md SAFETY.md docs/*.md docs/openapi.yaml $(DESTDIR)$(DOCDIR)/
 
 uninstall:
 	rm -f $(DESTDIR)$(SBINDIR)/stopcockd $(DESTDIR)$(BINDIR)/stopcock $(DESTDIR)$(BINDIR)/stopcock-sim
-	rm -rf $(DESTDIR)$(DATADIR)
+	rm -rf $(DESTDIR)$(DATADIR) $(DESTDIR)$(DOCDIR)
 	rm -f $(DESTDIR)$(UNITDIR)/stopcockd.service $(DESTDIR)$(PREFIX)/lib/sysusers.d/stopcock.conf \
 	  $(DESTDIR)$(PREFIX)/lib/tmpfiles.d/stopcock.conf
 	@for f in docs/*.[1-8]; do [ -f "$$f" ] || continue; s=$${f##*.}; \

@@ -13,6 +13,7 @@
 #include <string.h>
 #include <unistd.h>
 
+#include "datadir.h"
 #include "drv.h"
 #include "link.h"
 #include "pump_profile.h"
@@ -50,9 +51,12 @@ static bool file_exists(const char *p)
 	return access(p, R_OK) == 0;
 }
 
-/* A relative profile path: beside the config file, then ./config/pumps, then
- * the installed pumps directory; a bare name may leave out ".yaml". */
-static bool resolve_profile(const char *cfg_file, const char *name, char *out, size_t cap)
+/* A relative profile path: beside the config file, then in a pumps/ folder
+ * beside it (the repository's config/), then in the data folder's pumps/
+ * (datadir.h); never the current folder, so a check gives the same answer
+ * wherever it is run. A bare name may leave out ".yaml". */
+static bool resolve_profile(const char *cfg_file, const char *name, char *out, size_t cap,
+                            char *data, size_t data_cap)
 {
 	if (name[0] == '/') {
 		snprintf(out, cap, "%s", name);
@@ -63,7 +67,12 @@ static bool resolve_profile(const char *cfg_file, const char *name, char *out, s
 	if (slash)
 		snprintf(dir, sizeof(dir), "%.*s", (int)(slash - cfg_file), cfg_file);
 	const char *ext = strstr(name, ".yaml") ? "" : ".yaml";
-	const char *dirs[] = {dir, "config/pumps", STOPCOCK_DATADIR "/pumps"};
+	char beside[PATH_MAX + 8], installed[PATH_MAX + 8];
+	snprintf(beside, sizeof(beside), "%s/pumps", dir);
+	if (datadir_find(data, data_cap, NULL) != 0)
+		snprintf(data, data_cap, "%s", "(none)");
+	snprintf(installed, sizeof(installed), "%s/pumps", data);
+	const char *dirs[] = {dir, beside, installed};
 	for (size_t i = 0; i < sizeof(dirs) / sizeof(dirs[0]); i++) {
 		snprintf(out, cap, "%s/%s", dirs[i], name);
 		if (file_exists(out))
@@ -88,16 +97,16 @@ static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv
 	serial_init(&p->ser);
 	ok &= link_serial_parse(doc, cfg, &p->link, d) == 0;
 	const yt_node_t *n = yt_get(cfg, "profile");
-	char name[LINK_PATH_MAX], path[PATH_MAX];
+	char name[LINK_PATH_MAX], path[PATH_MAX], data[PATH_MAX];
 	if (!n) {
 		yt_missing(doc, cfg, "profile", "burette", d);
 		ok = false;
 	} else if (yt_string(doc, n, "profile", name, sizeof(name), d)) {
-		if (!resolve_profile(doc->file, name, path, sizeof(path))) {
+		if (!resolve_profile(doc->file, name, path, sizeof(path), data, sizeof(data))) {
 			yt_error(doc, n, d,
 			         "pump profile '%s' not found (looked beside this file, "
-			         "in config/pumps and in %s/pumps)",
-			         name, STOPCOCK_DATADIR);
+			         "in pumps/ beside it and in %s/pumps)",
+			         name, data);
 			ok = false;
 		} else if (pump_profile_load(path, &p->prof, d) != 0) {
 			yt_error(doc, n, d, "pump profile '%s' is invalid (errors above)", path);

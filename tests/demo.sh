@@ -109,37 +109,10 @@ curl -fsS -m 1 "$url/v1/health" >/dev/null || { echo "demo: no /v1/health after 
 
 # The cider method reads pH, and the simulated transmitter gives only mV:
 # the electrode is calibrated first, in three buffers. Each buffer is a new
-# beaker for the simulator (`load` on its control socket) with the same
-# electrode as the cider scenario, made of an acid with pKa equal to the
-# buffer's pH, half neutralized (ideal activities, 25 degC).
-electrode=$(grep -E '^electrode:' "$scenario" ||
-	echo 'electrode: {offset_mv: 0.0, slope_pct: 100.0}')
-for b in 4.01 7.00 10.01; do
-	cat >"$tmp/buffer-$b.yaml" <<-YAML
-	title: buffer pH $b for the demo calibration
-	temperature_c: 25
-	activity: ideal
-	sample_ml: 50.0
-	water_ml: 0.0
-	sample:
-	  - {name: buffer acid, molar: 0.10, pka: [$b]}
-	  - {name: sodium, molar: 0.05, strong: base}
-	titrant:
-	  - {name: sodium hydroxide, molar: 0.1000, strong: base}
-	$electrode
-	YAML
-done
-control() {
-	/usr/bin/python3 - "$tmp/ctl" "$1" <<-'PY'
-	import socket, sys
-	s = socket.socket(socket.AF_UNIX)
-	s.settimeout(10)
-	s.connect(sys.argv[1])
-	s.sendall((sys.argv[2] + "\n").encode())
-	reply = s.makefile().readline().strip()
-	sys.exit(0 if reply == "ok" else "control: " + reply)
-	PY
-}
+# beaker for the simulator (`stopcock-sim control SOCKET load FILE`), from the
+# shipped config/scenarios/ph-buffer-*.yaml, which carry the cider scenario's
+# electrode.
+control() { "$bin/stopcock-sim" control "$tmp/ctl" "$@" >/dev/null; }
 
 say "calibrate the electrode: buffers 4.01, 7.00, 10.01"
 coproc CAL { "$bin/stopcock" calibrate --station sim1 --buffers 4.01,7.00,10.01 2>&1; }
@@ -153,7 +126,7 @@ while IFS= read -r line <&"$cal_out"; do
 	"Put the electrode in buffer "*)
 		b=${line#Put the electrode in buffer }
 		b=${b%% *}
-		control "load $tmp/buffer-$b.yaml"
+		control load "config/scenarios/ph-buffer-$b.yaml"
 		echo "  (the simulator now has buffer $b in the beaker)"
 		echo >&"$cal_in"
 		;;
@@ -165,7 +138,7 @@ unset 'pids[${#pids[@]}-1]'
 exec {cal_out}<&- {cal_in}>&-
 [ "$cal_rc" -eq 0 ] || { echo "demo: the calibration was not accepted" >&2; exit 1; }
 
-control "load $scenario"
+control load "$scenario"
 sample=ORCHARD-LANE-0412
 say "queue: cider-acidity on sample $sample, 10 mL"
 run=$("$bin/stopcock" start --station sim1 --method cider-acidity --sample-id "$sample" --amount 10)

@@ -83,9 +83,13 @@ def expected_files():
         section = page.suffix[1:]
         exp[f"usr/share/man/man{section}/{page.name}"] = (page, 0o644)
     # The bench page: the installed daemon finds it in DATADIR/www.
-    for f in sorted((ROOT / "daemon" / "www").glob("*")):
+    for f in sorted((ROOT / "daemon" / "server" / "www").glob("*")):
         if f.is_file():
             exp[f"usr/share/stopcock/www/{f.name}"] = (f, 0o644)
+    # The user docs the man pages point at (issue 20).
+    for f in [ROOT / "README.md", ROOT / "SAFETY.md", OPENAPI,
+              *sorted((ROOT / "docs").glob("*.md"))]:
+        exp[f"usr/share/doc/stopcock/{f.name}"] = (f, 0o644)
     return exp
 
 

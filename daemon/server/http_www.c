@@ -6,8 +6,8 @@
  * of the folder. Names are checked against a strict pattern rather than
  * resolved, so no path can leave the folder. The folder is, in this order:
  * $STOPCOCK_WWW_DIR; the repository's daemon/server/www when the daemon runs from
- * the tree (found next to the executable, so tests need no install); the
- * installed STOPCOCK_DATADIR/www.
+ * the tree (found next to the executable, so tests need no install); else the
+ * data folder's www/ (datadir.h: PREFIX/share/stopcock beside the program).
  */
 #include "http.h"
 
@@ -21,11 +21,8 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include "datadir.h"
 #include "log.h"
-
-#ifndef STOPCOCK_DATADIR
-#define STOPCOCK_DATADIR "/usr/local/share/stopcock"
-#endif
 
 #define WWW_NAME_MAX  64
 #define WWW_FILE_MAX  (2u << 20) /* bytes; the page's files are a few tens of KiB */
@@ -99,35 +96,20 @@ static char www_dir[PATH_MAX];
 static void find_dir(void)
 {
 	const char *env = getenv("STOPCOCK_WWW_DIR");
-	char exe[PATH_MAX];
-	ssize_t n;
+	char data[PATH_MAX];
+	bool in_tree = false;
 
 	if (env && *env) {
 		snprintf(www_dir, sizeof www_dir, "%s", env);
 		goto out;
 	}
-	/* BUILD/bin/stopcockd or BUILD/san/bin/stopcockd in a checkout. */
-	n = readlink("/proc/self/exe", exe, sizeof exe - 1);
-	if (n > 0) {
-		char *slash;
-		exe[n] = '\0';
-		slash = strrchr(exe, '/');
-		if (slash) {
-			*slash = '\0';
-			static const char *const up[] = {"/../../daemon/server/www",
-			                                 "/../../../daemon/server/www"};
-			for (size_t i = 0; i < sizeof up / sizeof up[0]; i++) {
-				char cand[PATH_MAX];
-				if (snprintf(cand, sizeof cand, "%s%s", exe, up[i]) <
-				        (int)sizeof cand &&
-				    has_index(cand)) {
-					snprintf(www_dir, sizeof www_dir, "%s", cand);
-					goto out;
-				}
-			}
-		}
-	}
-	snprintf(www_dir, sizeof www_dir, "%s/www", STOPCOCK_DATADIR);
+	if (datadir_find(data, sizeof data, &in_tree) != 0)
+		data[0] = '\0';
+	/* In a checkout the data folder is REPO/config and the page REPO/daemon/server/www. */
+	int w = in_tree ? snprintf(www_dir, sizeof www_dir, "%s/../daemon/server/www", data)
+	                : snprintf(www_dir, sizeof www_dir, "%s/www", data);
+	if (w < 0 || (size_t)w >= sizeof www_dir)
+		www_dir[0] = '\0'; /* too long a path: no page, said below */
 out:
 	if (!has_index(www_dir))
 		log_warn("http: the bench page's folder %s has no index.html; GET / will be 404",

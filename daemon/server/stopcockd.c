@@ -189,6 +189,24 @@ static void daemon_event(store_t *store, const char *code, const char *msg, cons
 		log_warn("could not store the audit event daemon/%s", code);
 }
 
+/* A problem with a whole file the config names (it is missing, unreadable)
+ * has no line of its own: report it at the config line naming the file, so
+ * the message points at something to edit. Problems inside the file keep
+ * their own line. `key` is "token_file" (under http:) or "methods_dir". */
+static void at_config_line(const cfg_t *cfg, const char *key, const diag_t *in, diag_list_t *out,
+                           const char *hint)
+{
+	const yt_node_t *root = cfg->doc.root;
+	const yt_node_t *n =
+	    !strcmp(key, "token_file") ? yt_get(yt_get(root, "http"), key) : yt_get(root, key);
+
+	if (in->line > 0 || !n) {
+		diag_add(out, in->file, in->line, in->col, "%s", in->msg);
+		return;
+	}
+	diag_add(out, cfg->path, n->line, n->col, "%s: %s%s", in->file, in->msg, hint);
+}
+
 /* (Re)load the write tokens; problems are logged, good lines kept. */
 static void load_tokens(const cfg_t *cfg, http_ctx_t *ctx)
 {
@@ -313,8 +331,13 @@ int main(int argc, char **argv)
 		http_method_limits(&ctx, NULL, &lim);
 		/* A bad method file fails --check-config; the daemon itself
 		 * starts anyway, logs it, and keeps the file out. */
-		if (cfg.methods_dir[0] && o.check)
-			load_methods_dir(cfg.methods_dir, &lim, NULL, &d);
+		if (cfg.methods_dir[0] && o.check) {
+			diag_list_t md = DIAG_LIST_INIT;
+			load_methods_dir(cfg.methods_dir, &lim, NULL, &md);
+			for (size_t i = 0; i < md.n; i++)
+				at_config_line(&cfg, "methods_dir", &md.v[i], &d, "");
+			diag_free(&md);
+		}
 	}
 	pthread_rwlock_init(&ctx.tokens_lock, NULL);
 	if (cfg.token_file[0] && o.check) {
@@ -322,7 +345,9 @@ int main(int argc, char **argv)
 		cfg_tokens_t t;
 		cfg_load_tokens(cfg.token_file, &t, &td);
 		for (size_t i = 0; i < td.n; i++)
-			diag_add(&d, td.v[i].file, td.v[i].line, td.v[i].col, "%s", td.v[i].msg);
+			at_config_line(&cfg, "token_file", &td.v[i], &d,
+			               " (lines 'name:TOKEN'; how to make one: stopcockd.yaml(5), "
+			               "TOKEN FILE)");
 		diag_free(&td);
 	}
 	if (d.n) {

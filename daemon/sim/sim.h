@@ -107,6 +107,9 @@ void *sim_rtu_thread(void *arg);
 
 /* Control socket: bind now (so `ready` means it answers), serve in a thread. */
 int sim_control_bind(const char *path);
+/* `stopcock-sim control SOCKET COMMAND...` (argv from SOCKET on): sends one
+ * command, prints the reply; 0 on a reply other than "error: ...". */
+int sim_control_client(int argc, char **argv);
 void *sim_control_thread(void *arg); /* arg: sim_control_arg_t * */
 typedef struct sim_control_arg {
 	sim_t *sim;

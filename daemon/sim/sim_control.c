@@ -2,6 +2,7 @@
  * command a line, one reply line each: `ok`, `error: ...` or, for `state`,
  * one line of JSON). */
 #include <errno.h>
+#include <limits.h>
 #include <poll.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -218,4 +219,85 @@ void *sim_control_thread(void *arg)
 	for (int i = 0; i < nc; i++)
 		close(cl[i].fd);
 	return NULL;
+}
+
+/* `stopcock-sim control SOCKET COMMAND...`: the words joined by spaces are
+ * one command line; the reply line goes to standard output. A relative
+ * scenario path of `load` is made absolute first: the simulator resolves it
+ * against its own folder, which need not be the caller's. */
+int sim_control_client(int argc, char **argv)
+{
+	char line[1024 + 8] = "", reply[2048];
+	size_t len = 0, got = 0;
+	struct sockaddr_un a;
+	int fd;
+
+	if (argc < 2) {
+		fprintf(stderr, "usage: stopcock-sim control SOCKET COMMAND [ARG...]\n"
+		                "  commands: load S.yaml | fault KIND [SECONDS] | clear | state\n");
+		return 2;
+	}
+	for (int i = 1; i < argc; i++) {
+		char abs[PATH_MAX];
+		const char *w = argv[i];
+		if (i == 2 && !strcmp(argv[1], "load") && w[0] != '/') {
+			if (!realpath(w, abs)) {
+				fprintf(stderr, "stopcock-sim control: %s: %s\n", w,
+				        strerror(errno));
+				return 2;
+			}
+			w = abs;
+		}
+		int n = snprintf(line + len, sizeof line - len, "%s%s", i > 1 ? " " : "", w);
+		if (n < 0 || (size_t)n >= sizeof line - len - 1) {
+			fprintf(stderr, "stopcock-sim control: the command is too long\n");
+			return 2;
+		}
+		len += (size_t)n;
+	}
+	line[len++] = '\n';
+	memset(&a, 0, sizeof a);
+	a.sun_family = AF_UNIX;
+	if (strlen(argv[0]) >= sizeof a.sun_path) {
+		fprintf(stderr, "stopcock-sim control: socket path too long: %s\n", argv[0]);
+		return 2;
+	}
+	strcpy(a.sun_path, argv[0]);
+	fd = socket(AF_UNIX, SOCK_STREAM | SOCK_CLOEXEC, 0);
+	if (fd < 0 || connect(fd, (struct sockaddr *)&a, sizeof a) != 0) {
+		fprintf(stderr, "stopcock-sim control: cannot connect to %s: %s\n", argv[0],
+		        strerror(errno));
+		if (fd >= 0)
+			close(fd);
+		return 1;
+	}
+	if (send(fd, line, len, MSG_NOSIGNAL) != (ssize_t)len) {
+		fprintf(stderr, "stopcock-sim control: %s: %s\n", argv[0], strerror(errno));
+		close(fd);
+		return 1;
+	}
+	/* One reply line; the simulator answers at once (10 s is far beyond it). */
+	struct pollfd pf = {.fd = fd, .events = POLLIN};
+	while (got < sizeof reply - 1 && !memchr(reply, '\n', got)) {
+		ssize_t r;
+		if (poll(&pf, 1, 10000) <= 0)
+			break;
+		r = recv(fd, reply + got, sizeof reply - 1 - got, 0);
+		if (r <= 0)
+			break;
+		got += (size_t)r;
+	}
+	close(fd);
+	reply[got] = '\0';
+	reply[strcspn(reply, "\n")] = '\0';
+	if (!got) {
+		fprintf(stderr, "stopcock-sim control: no reply from %s\n", argv[0]);
+		return 1;
+	}
+	if (!strncmp(reply, "error:", 6)) {
+		fprintf(stderr, "stopcock-sim control: %s\n", reply + 7);
+		return 1;
+	}
+	printf("%s\n", reply);
+	return 0;
 }

@@ -19,6 +19,7 @@
 
 #include <modbus.h>
 
+#include "datadir.h"
 #include "serial.h"
 #include "scenario.h"
 #include "sim.h"
@@ -31,10 +32,10 @@ typedef struct opts {
 
 static void usage(FILE *f)
 {
-	fprintf(f,
-	        "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
-	        "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
-	        "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n");
+	fprintf(f, "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
+	           "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
+	           "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n"
+	           "       stopcock-sim control SOCKET COMMAND [ARG...]\n");
 }
 
 static int parse_args(int argc, char **argv, opts_t *o)
@@ -103,34 +104,12 @@ static int abs_path(const char *p, char *out, size_t cap)
 	return n > 0 && (size_t)n < cap ? 0 : -1;
 }
 
-/* Where pumps/sim.yaml and methods/ are: the config/ directory of the
- * repository holding this executable (in its build directory), or of
- * the working directory, else the installed data directory. */
+/* Where pumps/sim.yaml and methods/ are: the data folder (datadir.h), the
+ * repository's config/ when run from a build folder. */
 static void find_data(char *out, size_t cap)
 {
-	char exe[PATH_MAX];
-	ssize_t n = readlink("/proc/self/exe", exe, sizeof(exe) - 1);
-	if (n > 0) {
-		exe[n] = '\0';
-		for (int up = 0; up < 5; up++) {
-			char *s = strrchr(exe, '/');
-			if (!s)
-				break;
-			*s = '\0';
-			char probe[PATH_MAX + 32];
-			snprintf(probe, sizeof(probe), "%s/config/pumps/sim.yaml", exe);
-			int w = snprintf(out, cap, "%s/config", exe);
-			if (access(probe, R_OK) == 0 && w > 0 && (size_t)w < cap)
-				return;
-		}
-	}
-	char cwd[PATH_MAX];
-	if (getcwd(cwd, sizeof(cwd)) && access("config/pumps/sim.yaml", R_OK) == 0) {
-		int w = snprintf(out, cap, "%s/config", cwd);
-		if (w > 0 && (size_t)w < cap)
-			return;
-	}
-	snprintf(out, cap, "%s", STOPCOCK_DATADIR);
+	if (datadir_find(out, cap, NULL) != 0)
+		snprintf(out, cap, "%s", ".");
 }
 
 static int write_token(const char *path)
@@ -283,6 +262,8 @@ static int self_check(const sim_t *s, const char *pump_abs)
 int main(int argc, char **argv)
 {
 	opts_t o;
+	if (argc >= 2 && !strcmp(argv[1], "control"))
+		return sim_control_client(argc - 2, argv + 2);
 	if (parse_args(argc, argv, &o) != 0) {
 		usage(stderr);
 		return 2;
