@@ -349,14 +349,14 @@ def test_whole_run_wait_and_show(bench, finished):
     # the summary on stdout names the endpoint the record holds
     ep = rec["endpoints"][0]
     assert w.stdout.startswith(f"run {run} finished")
-    assert f"EP1 {ep['volume_ml']:.4f} mL" in w.stdout
+    assert f"E1 {ep['volume_ml']:.4f} mL" in w.stdout
 
     s = cli("show", run, env=bench.env)
     assert s.returncode == 0, s.stderr
     out = s.stdout
     assert out.startswith(f"run {run}  finished\n")
     assert "ORCHARD-LANE-0412" in out and "cli-quick, revision 1" in out
-    line = next(l for l in out.splitlines() if l.strip().startswith("EP1 "))
+    line = next(l for l in out.splitlines() if l.strip().startswith("E1 "))
     assert f"{ep['volume_ml']:.4f} mL" in line
     if ep.get("u_volume_ml") is not None:
         assert f"(u {ep['u_volume_ml']:.4f} mL)" in line

@@ -315,7 +315,7 @@ purpose: assay
 titrant: {name: NaOH 0.1 mol/L, molarity: 0.1000}
 sample: {unit: mL, min: 1.0, max: 20.0}
 signal: mv
-start: {stir_s: 1, predose_ml: 0.0}
+start: {stir_s: 1, initial_ml: 0.0}
 dosing:
   mode: constant
   dose_ml: 0.05

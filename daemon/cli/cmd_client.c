@@ -198,7 +198,7 @@ static void print_final(long long id, const json_t *rec)
 	json_t *e;
 	json_array_foreach(json_object_get(rec, "endpoints"), i, e)
 	{
-		printf("%s EP%lld %s mL", i ? "," : ":",
+		printf("%s E%lld %s mL", i ? "," : ":",
 		       (long long)json_integer_value(json_object_get(e, "n")),
 		       client_fmt(b, sizeof b, client_num(e, "volume_ml"), 4));
 	}

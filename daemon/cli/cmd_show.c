@@ -84,7 +84,7 @@ static void print_record(const json_t *r)
 		if (isfinite(u))
 			snprintf(ubuf, sizeof ubuf, " (u %s mL)", client_fmt(b2, sizeof b2, u, 4));
 		json_t *n = json_object_get(e, "n");
-		printf("  EP%lld  %s mL%s  pH %s  %s mV  half pH %s  by %s\n",
+		printf("  E%lld  %s mL%s  pH %s  %s mV  half pH %s  by %s\n",
 		       json_is_integer(n) ? (long long)json_integer_value(n) : (long long)i + 1,
 		       client_fmt(b1, sizeof b1, client_num(e, "volume_ml"), 4), ubuf,
 		       client_fmt(b3, sizeof b3, client_num(e, "ph"), 2),

@@ -533,7 +533,7 @@ static engine_action_t after_point(engine_t *e)
 	if (!e->predose_done) {
 		e->predose_done = true;
 		e->predose_left_ml =
-		    fmin(quantize(e, m->predose_ml), steps_within(e, e->vmax_ml - e->dispensed_ml));
+		    fmin(quantize(e, m->initial_ml), steps_within(e, e->vmax_ml - e->dispensed_ml));
 		if (e->predose_left_ml >= e->quantum_ml)
 			return predose_chunk(e);
 	}

@@ -72,7 +72,7 @@ void method_defaults(method_t *m)
 	m->sample_max = 1000.0;
 	m->signal = SIGNAL_PH;
 	m->stir_s = 10.0;
-	m->predose_ml = 0.0;
+	m->initial_ml = 0.0;
 	m->dosing = DOSING_ADAPTIVE;
 	m->step_aim = 0.10;
 	m->dose_min_ml = 0.005;
@@ -112,7 +112,7 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 	static const char *const known[] = {
 		"method", "title", "revision", "purpose", "titrant", "sample", "signal", "start",
 		"dosing", "settle", "detect", "stop", "results", "name", "molarity", "unit", "min",
-		"max", "stir_s", "predose_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
+		"max", "stir_s", "initial_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
 		"signal_limit", "time_max_s", "formula", "decimals", "accept", NULL};
@@ -312,15 +312,23 @@ static void parse_sample(mp_ctx_t *c, const yt_node_t *root)
 
 static void parse_start(mp_ctx_t *c, const yt_node_t *root)
 {
-	static const char *const keys[] = {"stir_s", "predose_ml", NULL};
+	/* "predose_ml" stays in the list only so that its error names the new key
+	 * instead of guessing at a typo. */
+	static const char *const keys[] = {"stir_s", "initial_ml", "predose_ml", NULL};
 	method_t *m = c->m;
 	bool bad;
 	const yt_node_t *s = section(c, root, "start", false, keys, &bad);
 	c->f_stir.bad = c->f_predose.bad = bad;
 	if (!s)
 		return;
+	for (size_t i = 0; i < s->n; i++)
+		if (!strcmp(s->keys[i]->str, "predose_ml")) {
+			yt_error(c->doc, s->keys[i], c->d,
+			         "start.predose_ml was renamed to start.initial_ml");
+			c->f_predose.bad = true;
+		}
 	num(c, s, "stir_s", "start.stir_s", "s", 0.0, false, 3600.0, &m->stir_s, &c->f_stir);
-	num(c, s, "predose_ml", "start.predose_ml", "mL", 0.0, false, 1000.0, &m->predose_ml,
+	num(c, s, "initial_ml", "start.initial_ml", "mL", 0.0, false, 1000.0, &m->initial_ml,
 	    &c->f_predose);
 }
 

@@ -51,7 +51,7 @@ typedef struct method {
 	method_signal_t signal;
 
 	double stir_s;	   /* stirring before the first addition, s */
-	double predose_ml; /* added at once after stirring, mL */
+	double initial_ml; /* added at once after stirring, mL */
 
 	method_dosing_t dosing;
 	double step_aim;    /* signal change aimed at per addition (pH or mV) */

@@ -393,11 +393,11 @@ void mp_cross_check(mp_ctx_t *c, const yt_node_t *root)
 			         m->dosing == DOSING_CONSTANT ? "dosing.dose_ml"
 			                                      : "dosing.dose_max_ml",
 			         m->dose_max_ml, m->volume_max_ml);
-		if (!c->f_predose.bad && m->predose_ml >= m->volume_max_ml)
+		if (!c->f_predose.bad && m->initial_ml >= m->volume_max_ml)
 			yt_error(
 			    c->doc, at(&c->f_predose, &c->f_vol_max), c->d,
-			    "start.predose_ml (%g mL) must be below stop.volume_max_ml (%g mL)",
-			    m->predose_ml, m->volume_max_ml);
+			    "start.initial_ml (%g mL) must be below stop.volume_max_ml (%g mL)",
+			    m->initial_ml, m->volume_max_ml);
 		if (!c->f_past.bad && m->past_endpoint_ml > m->volume_max_ml)
 			yt_error(c->doc, at(&c->f_past, &c->f_vol_max), c->d,
 			         "stop.past_endpoint_ml (%g mL) must not exceed stop.volume_max_ml "

@@ -237,7 +237,7 @@ static void draw_endpoints(sbuf_t *b, const frame_t *f, const svg_endpoint_t *en
 		if (ends[i].label && ends[i].label[0])
 			sb_escaped(b, ends[i].label);
 		else
-			sb_printf(b, "EP%zu", i + 1);
+			sb_printf(b, "E%zu", i + 1);
 		sb_printf(b, " %.3f mL</text></g>\n", v);
 	}
 }

@@ -24,7 +24,7 @@ typedef struct svg_point {
 typedef struct svg_endpoint {
 	double volume_ml;  /* mL */
 	double signal;     /* signal at the endpoint, pH or mV; NaN when unknown */
-	const char *label; /* e.g. "EP1"; NULL for "EP<n>" */
+	const char *label; /* e.g. "E1"; NULL for "E<n>" */
 } svg_endpoint_t;
 
 typedef struct svg_opts {

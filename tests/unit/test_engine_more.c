@@ -19,7 +19,7 @@
 	"method: test-method\ntitle: t\nrevision: 1\npurpose: assay\n"                             \
 	"titrant: {name: NaOH, molarity: 0.1000}\n"                                                \
 	"sample: {unit: mL, min: 1.0, max: 60.0}\nsignal: ph\n"                                    \
-	"start: {stir_s: 5, predose_ml: 0.0}\n"                                                    \
+	"start: {stir_s: 5, initial_ml: 0.0}\n"                                                    \
 	"settle: {wait_min_s: 1, wait_max_s: 20, still_within: 0.02, still_for_s: 2}\n"
 
 #define VINEGAR                                                                                    \
@@ -338,7 +338,7 @@ static void random_method(method_t *m, const chem_scenario_t *s)
 	double q = s->burette.capacity_ml / (double)s->burette.steps;
 	m->signal = mv ? SIGNAL_MV : SIGNAL_PH;
 	m->stir_s = uni(0, 20);
-	m->predose_ml = urand() < 0.3 ? uni(0, 2) : 0;
+	m->initial_ml = urand() < 0.3 ? uni(0, 2) : 0;
 	m->dosing = urand() < 0.7 ? DOSING_ADAPTIVE : DOSING_CONSTANT;
 	m->step_aim = uni(0.05, 1.0) * u;
 	m->dose_min_ml = fmax(q, uni(0.001, 0.1));

@@ -217,7 +217,7 @@ TEST(method_documented_defaults)
 	CHECK_NEAR(m.sample_min, 0.001, 0);
 	CHECK_NEAR(m.sample_max, 1000, 0);
 	CHECK_NEAR(m.stir_s, 10, 0);
-	CHECK_NEAR(m.predose_ml, 0, 0);
+	CHECK_NEAR(m.initial_ml, 0, 0);
 	CHECK(m.dosing == DOSING_ADAPTIVE);
 	CHECK_NEAR(m.step_aim, 0.10, 0);
 	CHECK_NEAR(m.dose_min_ml, 0.005, 0);

@@ -142,7 +142,7 @@ TEST(svg_curve_typical)
 	CHECK(strstr(s, "<svg xmlns=\"http://www.w3.org/2000/svg\"") != NULL);
 	CHECK(strstr(s, "class=\"curve\"") != NULL);
 	CHECK(strstr(s, "class=\"dpdv\"") != NULL);
-	CHECK(strstr(s, "EP1 6.200 mL") != NULL);
+	CHECK(strstr(s, "E1 6.200 mL") != NULL);
 	CHECK(strstr(s, "titrant volume (mL)") != NULL);
 	CHECK(strstr(s, "dpH/dV (pH/mL)") != NULL);
 	CHECK(strstr(s, "Orchard Lane Cider, batch 0412") != NULL);
@@ -210,7 +210,7 @@ TEST(svg_curve_nan_everywhere)
 	/* The endpoint with no volume is left out; the one without a signal still
 	 * gets its line and label, named by its place in the list. */
 	CHECK_INT(count(s, "<g class=\"endpoint\">"), 1);
-	CHECK(strstr(s, "EP2 0.350 mL") != NULL);
+	CHECK(strstr(s, "E2 0.350 mL") != NULL);
 	/* A non-finite signal breaks the curve into separate pieces (M = move). */
 	const char *c = strstr(s, "class=\"curve\" d=\"");
 	REQUIRE(c);
