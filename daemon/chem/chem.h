@@ -17,38 +17,38 @@
 #include "diag.h"
 
 #define CHEM_MAX_COMP 12 /* components per list (sample, titrant) */
-#define CHEM_MAX_PKA 6   /* protonation steps per weak system */
+#define CHEM_MAX_PKA  6  /* protonation steps per weak system */
 #define CHEM_NAME_MAX 64
 
 typedef enum {
-	CHEM_WEAK = 0,	   /* weak system with pKa list */
-	CHEM_STRONG_ACID,  /* fully dissociated monoprotic acid, e.g. HCl */
-	CHEM_STRONG_BASE,  /* fully dissociated monoacidic base, e.g. NaOH */
-	CHEM_SALT,	   /* 1:1 fully dissociated salt, e.g. NaCl: ionic strength only */
+	CHEM_WEAK = 0,    /* weak system with pKa list */
+	CHEM_STRONG_ACID, /* fully dissociated monoprotic acid, e.g. HCl */
+	CHEM_STRONG_BASE, /* fully dissociated monoacidic base, e.g. NaOH */
+	CHEM_SALT,        /* 1:1 fully dissociated salt, e.g. NaCl: ionic strength only */
 } chem_kind_t;
 
 typedef struct chem_comp {
 	char name[CHEM_NAME_MAX];
-	double molar;	    /* analytical concentration, mol/L */
+	double molar; /* analytical concentration, mol/L */
 	chem_kind_t kind;
-	int n_pka;	    /* weak only: number of dissociation steps */
+	int n_pka;                /* weak only: number of dissociation steps */
 	double pka[CHEM_MAX_PKA]; /* ascending, at the scenario temperature */
-	int charge;	    /* weak only: charge of the most protonated form */
+	int charge;               /* weak only: charge of the most protonated form */
 } chem_comp_t;
 
 typedef enum { CHEM_ACT_DAVIES = 0, CHEM_ACT_IDEAL } chem_activity_t;
 
 typedef struct chem_electrode {
-	double offset_mv;	 /* mV at pH 7 */
-	double slope_pct;	 /* % of the Nernst slope */
-	double tau_s;		 /* first-order response time constant, s */
-	double noise_mv;	 /* RMS noise, mV */
+	double offset_mv;        /* mV at pH 7 */
+	double slope_pct;        /* % of the Nernst slope */
+	double tau_s;            /* first-order response time constant, s */
+	double noise_mv;         /* RMS noise, mV */
 	double drift_mv_per_min; /* linear drift, mV/min */
 } chem_electrode_t;
 
 typedef struct chem_burette {
 	double capacity_ml; /* syringe volume, mL */
-	long steps;	    /* motor steps per full stroke */
+	long steps;         /* motor steps per full stroke */
 } chem_burette_t;
 
 typedef struct chem_scenario {
@@ -73,18 +73,18 @@ typedef struct chem_scenario {
  * alpha[i][j] is the fraction carrying j protons fewer than the most
  * protonated form (j = 0 .. n_pka). Strong components have alpha[i][0] = 1. */
 typedef struct chem_state {
-	double titrant_ml;	 /* titrant added */
-	double volume_ml;	 /* total volume in the beaker */
-	double ph;		 /* -log10 a(H+) */
-	double h_molar;		 /* [H+], mol/L */
-	double oh_molar;	 /* [OH-], mol/L */
-	double ionic_strength;	 /* mol/L */
-	double gamma1;		 /* activity coefficient of a singly charged ion */
-	double pkw;		 /* used at this temperature */
-	int n_comp;		 /* n_sample + n_titrant */
-	double total_molar[2 * CHEM_MAX_COMP];	       /* diluted analytical conc., mol/L */
+	double titrant_ml;                     /* titrant added */
+	double volume_ml;                      /* total volume in the beaker */
+	double ph;                             /* -log10 a(H+) */
+	double h_molar;                        /* [H+], mol/L */
+	double oh_molar;                       /* [OH-], mol/L */
+	double ionic_strength;                 /* mol/L */
+	double gamma1;                         /* activity coefficient of a singly charged ion */
+	double pkw;                            /* used at this temperature */
+	int n_comp;                            /* n_sample + n_titrant */
+	double total_molar[2 * CHEM_MAX_COMP]; /* diluted analytical conc., mol/L */
 	double alpha[2 * CHEM_MAX_COMP][CHEM_MAX_PKA + 1];
-	int iterations;		 /* solver work, for benchmarks */
+	int iterations; /* solver work, for benchmarks */
 } chem_state_t;
 
 /* Solve the charge balance after `titrant_ml` mL of titrant.

@@ -14,7 +14,7 @@
  * water_ml 0, electrode {0, 100, 1.0, 0.1, 0}, burette {10, 20000}. */
 int scenario_load(const char *path, chem_scenario_t *s, diag_list_t *d);
 int scenario_parse(const char *name, const char *buf, size_t len, chem_scenario_t *s,
-		   diag_list_t *d);
+                   diag_list_t *d);
 void scenario_defaults(chem_scenario_t *s);
 
 #endif

@@ -5,18 +5,18 @@
 #ifndef STOPCOCK_CMD_H
 #define STOPCOCK_CMD_H
 
-int cmd_check(int argc, char **argv);     /* cmd_check.c */
-int cmd_curve(int argc, char **argv);     /* cmd_curve.c */
-int cmd_predict(int argc, char **argv);   /* cmd_predict.c */
-int cmd_ports(int argc, char **argv);     /* cmd_ports.c */
-int cmd_start(int argc, char **argv);     /* cmd_client.c: client commands over HTTP */
+int cmd_check(int argc, char **argv);   /* cmd_check.c */
+int cmd_curve(int argc, char **argv);   /* cmd_curve.c */
+int cmd_predict(int argc, char **argv); /* cmd_predict.c */
+int cmd_ports(int argc, char **argv);   /* cmd_ports.c */
+int cmd_start(int argc, char **argv);   /* cmd_client.c: client commands over HTTP */
 int cmd_status(int argc, char **argv);
 int cmd_show(int argc, char **argv);
 int cmd_wait(int argc, char **argv);
 int cmd_abort(int argc, char **argv);
 int cmd_halt(int argc, char **argv);
 int cmd_calibrate(int argc, char **argv);
-int cmd_titrants(int argc, char **argv);  /* cmd_audit.c */
+int cmd_titrants(int argc, char **argv); /* cmd_audit.c */
 int cmd_events(int argc, char **argv);
 
 #endif

@@ -9,19 +9,21 @@ static const struct {
 	int (*fn)(int, char **);
 	const char *usage;
 } commands[] = {
-	{"check", cmd_check, "check METHOD.yaml...          validate method files offline"},
-	{"predict", cmd_predict, "predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N] [--json]"},
-	{"curve", cmd_curve, "curve S.yaml --ml 0,1,2.5,...  model pH and mV after each volume"},
-	{"start", cmd_start, "start --station N --method M --sample-id ID --amount X"},
-	{"status", cmd_status, "status                        stations and their current runs"},
-	{"show", cmd_show, "show RUN [--csv] [--svg FILE]"},
-	{"wait", cmd_wait, "wait RUN [--timeout S]"},
-	{"abort", cmd_abort, "abort RUN"},
-	{"halt", cmd_halt, "halt --station N"},
-	{"calibrate", cmd_calibrate, "calibrate --station N --buffers 4.01,7.00,10.01"},
-	{"titrants", cmd_titrants, "titrants                      stored titers and how they were found"},
-	{"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
-	{"ports", cmd_ports, "ports                         list serial ports"},
+    {"check", cmd_check, "check METHOD.yaml...          validate method files offline"},
+    {"predict", cmd_predict,
+     "predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N] [--json]"},
+    {"curve", cmd_curve, "curve S.yaml --ml 0,1,2.5,...  model pH and mV after each volume"},
+    {"start", cmd_start, "start --station N --method M --sample-id ID --amount X"},
+    {"status", cmd_status, "status                        stations and their current runs"},
+    {"show", cmd_show, "show RUN [--csv] [--svg FILE]"},
+    {"wait", cmd_wait, "wait RUN [--timeout S]"},
+    {"abort", cmd_abort, "abort RUN"},
+    {"halt", cmd_halt, "halt --station N"},
+    {"calibrate", cmd_calibrate, "calibrate --station N --buffers 4.01,7.00,10.01"},
+    {"titrants", cmd_titrants,
+     "titrants                      stored titers and how they were found"},
+    {"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
+    {"ports", cmd_ports, "ports                         list serial ports"},
 };
 
 static void usage(FILE *f)
@@ -30,7 +32,7 @@ static void usage(FILE *f)
 	for (size_t i = 0; i < sizeof commands / sizeof commands[0]; i++)
 		fprintf(f, "  stopcock %s\n", commands[i].usage);
 	fprintf(f, "\nclient commands take --url URL (default $STOPCOCK_URL or "
-		   "http://127.0.0.1:8470)\nand --token-file F (default $STOPCOCK_TOKEN_FILE).\n");
+	           "http://127.0.0.1:8470)\nand --token-file F (default $STOPCOCK_TOKEN_FILE).\n");
 }
 
 int main(int argc, char **argv)

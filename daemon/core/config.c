@@ -16,9 +16,8 @@ static const char *const http_keys[] = {
     "threads",    "allowed_hosts",  NULL};
 /* clang-format on */
 static const char *const storage_keys[] = {"database", NULL};
-static const char *const station_keys[] = {"name",    "vessel_max_ml", "read_interval_s",
-                                           "burette", "probe",         "stirrer",
-                                           NULL};
+static const char *const station_keys[] = {
+    "name", "vessel_max_ml", "read_interval_s", "burette", "probe", "stirrer", NULL};
 
 int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port)
 {
@@ -227,8 +226,8 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 	 * often. */
 	st->read_interval_s = 0.5;
 	if ((n = yt_get(s, "read_interval_s")))
-		yt_double_range(&c->doc, n, "read_interval_s", "s", 0.05, 10.0, &st->read_interval_s,
-		                d);
+		yt_double_range(&c->doc, n, "read_interval_s", "s", 0.05, 10.0,
+		                &st->read_interval_s, d);
 	st->burette = yt_get(s, "burette");
 	st->probe = yt_get(s, "probe");
 	st->stirrer = yt_get(s, "stirrer");

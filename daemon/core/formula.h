@@ -58,8 +58,8 @@ typedef enum {
 } formula_status_t;
 
 /* Evaluate; on anything but FORMULA_OK *out is left untouched and msg says why. */
-formula_status_t formula_eval(const formula_t *f, const formula_vars_t *fv, double *out,
-			      char *msg, size_t msg_cap);
+formula_status_t formula_eval(const formula_t *f, const formula_vars_t *fv, double *out, char *msg,
+                              size_t msg_cap);
 
 const char *formula_var_name(formula_var_t v);
 

@@ -15,9 +15,9 @@
 #include "diag.h"
 #include "formula.h"
 
-#define METHOD_ID_MAX 64
-#define METHOD_TEXT_MAX 160
-#define METHOD_MAX_RESULTS 8
+#define METHOD_ID_MAX        64
+#define METHOD_TEXT_MAX      160
+#define METHOD_MAX_RESULTS   8
 #define METHOD_MAX_ENDPOINTS 4
 
 typedef enum { PURPOSE_ASSAY = 0, PURPOSE_STANDARDIZE, PURPOSE_BLANK } method_purpose_t;
@@ -50,31 +50,31 @@ typedef struct method {
 
 	method_signal_t signal;
 
-	double stir_s;	   /* stirring before the first addition, s */
+	double stir_s;     /* stirring before the first addition, s */
 	double initial_ml; /* added at once after stirring, mL */
 
 	method_dosing_t dosing;
-	double step_aim;    /* signal change aimed at per addition (pH or mV) */
+	double step_aim; /* signal change aimed at per addition (pH or mV) */
 	double dose_min_ml;
 	double dose_max_ml;
-	double dose_ml;	    /* constant mode */
+	double dose_ml; /* constant mode */
 
 	double wait_min_s, wait_max_s; /* settling bounds, s */
-	double still_within;	       /* signal units */
-	double still_for_s;	       /* s */
+	double still_within;           /* signal units */
+	double still_for_s;            /* s */
 
 	method_detect_t detect;
-	int count;	    /* endpoints to find before stopping, 1..METHOD_MAX_ENDPOINTS */
-	double min_jump;    /* smallest rise across an inflection, signal units */
+	int count;       /* endpoints to find before stopping, 1..METHOD_MAX_ENDPOINTS */
+	double min_jump; /* smallest rise across an inflection, signal units */
 	bool has_window;
 	double window_lo, window_hi; /* signal units */
 	bool has_target;
-	double target;	    /* signal units, detect: target */
+	double target; /* signal units, detect: target */
 
 	double past_endpoint_ml; /* keep dosing this much past the last endpoint */
-	double volume_max_ml;	 /* never dose beyond this total */
+	double volume_max_ml;    /* never dose beyond this total */
 	bool has_signal_limit;
-	double signal_limit;	 /* stop once the signal passes it */
+	double signal_limit; /* stop once the signal passes it */
 	double time_max_s;
 
 	int n_results;
@@ -86,9 +86,9 @@ typedef struct method {
 /* Limits from the daemon config for cross-checks; pass NULL offline
  * (`stopcock check` without -c checks everything else). */
 typedef struct method_limits {
-	double vessel_max_ml;	     /* station */
-	double burette_capacity_ml;  /* station's burette */
-	int max_refills;	     /* allowed refills per run (0: none) */
+	double vessel_max_ml;       /* station */
+	double burette_capacity_ml; /* station's burette */
+	int max_refills;            /* allowed refills per run (0: none) */
 } method_limits_t;
 
 /* Refills a method may count on when its volume_max_ml is checked against a
@@ -105,7 +105,7 @@ void method_limits_add_station(method_limits_t *lim, double vessel_max_ml, doubl
  * the file's base name (without .yaml) must equal `method:` when name ends in
  * ".yaml". Returns 0, or -1 with all errors added (sorted by position). */
 int method_parse(const char *name, const char *buf, size_t len, const method_limits_t *lim,
-		 method_t *m, diag_list_t *d);
+                 method_t *m, diag_list_t *d);
 int method_load(const char *path, const method_limits_t *lim, method_t *m, diag_list_t *d);
 
 /* Fill m with every documented default (docs/methods.md); method_parse

@@ -35,7 +35,7 @@ void diag_print(const diag_list_t *d, FILE *f)
 {
 	for (size_t i = 0; d && i < d->n; i++)
 		fprintf(f, "%s:%d:%d: %s\n", d->v[i].file ? d->v[i].file : "", d->v[i].line,
-			d->v[i].col, d->v[i].msg ? d->v[i].msg : "(out of memory)");
+		        d->v[i].col, d->v[i].msg ? d->v[i].msg : "(out of memory)");
 }
 
 char *diag_join(const diag_list_t *d)
@@ -52,8 +52,8 @@ char *diag_join(const diag_list_t *d)
 	*p = '\0';
 	for (size_t i = 0; d && i < d->n; i++) {
 		int w = snprintf(p, len - (size_t)(p - out), "%s%s:%d:%d: %s", i ? "\n" : "",
-				 d->v[i].file ? d->v[i].file : "", d->v[i].line, d->v[i].col,
-				 d->v[i].msg ? d->v[i].msg : "");
+		                 d->v[i].file ? d->v[i].file : "", d->v[i].line, d->v[i].col,
+		                 d->v[i].msg ? d->v[i].msg : "");
 		if (w < 0)
 			break;
 		p += w;

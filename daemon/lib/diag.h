@@ -24,12 +24,15 @@ typedef struct diag_list {
 	size_t cap;
 } diag_list_t;
 
-#define DIAG_LIST_INIT {NULL, 0, 0}
+#define DIAG_LIST_INIT                                                                             \
+	{                                                                                          \
+		NULL, 0, 0                                                                         \
+	}
 
 /* Append one error. Never fails visibly: on out-of-memory the message is
  * dropped but the count still rises, so callers still see "invalid". */
 void diag_add(diag_list_t *d, const char *file, int line, int col, const char *fmt, ...)
-	__attribute__((format(printf, 5, 6)));
+    __attribute__((format(printf, 5, 6)));
 
 /* Print each as "file:line:col: message\n". */
 void diag_print(const diag_list_t *d, FILE *f);

@@ -46,8 +46,8 @@ bool log_verbose(void)
 
 void log_msg(int level, const char *fmt, ...)
 {
-	static const char *const words[8] = {"emerg", "alert", "crit", "error",
-					     "warning", "notice", "info", "debug"};
+	static const char *const words[8] = {"emerg",   "alert",  "crit", "error",
+	                                     "warning", "notice", "info", "debug"};
 	char line[2048];
 	va_list ap;
 	if (level >= LOG_LVL_DEBUG && !log_cfg.verbose)
@@ -71,8 +71,8 @@ void log_msg(int level, const char *fmt, ...)
 		clock_gettime(CLOCK_REALTIME, &ts);
 		gmtime_r(&ts.tv_sec, &tm);
 		strftime(when, sizeof when, "%Y-%m-%dT%H:%M:%S", &tm);
-		fprintf(stderr, "%s.%03ldZ %s %s: %s\n", when, ts.tv_nsec / 1000000L, log_cfg.program,
-			words[level], line);
+		fprintf(stderr, "%s.%03ldZ %s %s: %s\n", when, ts.tv_nsec / 1000000L,
+		        log_cfg.program, words[level], line);
 	}
 	fflush(stderr);
 	pthread_mutex_unlock(&log_lock);

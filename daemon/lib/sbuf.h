@@ -18,7 +18,10 @@ typedef struct sbuf {
 	bool oom; /* an append could not allocate: the text is incomplete */
 } sbuf_t;
 
-#define SBUF_INIT {NULL, 0, 0, false}
+#define SBUF_INIT                                                                                  \
+	{                                                                                          \
+		NULL, 0, 0, false                                                                  \
+	}
 
 void sbuf_addn(sbuf_t *b, const char *s, size_t n);
 void sbuf_add(sbuf_t *b, const char *s);

@@ -18,7 +18,7 @@
 typedef struct frame {
 	yt_node_t *node;
 	yt_node_t *pending_key; /* map: key waiting for its value */
-	bool skip_value;	/* map: the key was bad; drop its value */
+	bool skip_value;        /* map: the key was bad; drop its value */
 	/* map: an open-addressing index of node->keys by their text, so the
 	 * duplicate check stays linear in the number of keys (a scan per key
 	 * was quadratic: 20,000 keys took a second). Slots hold key index + 1,
@@ -69,7 +69,7 @@ static yt_node_t *node_new(yt_kind_t kind, const yaml_mark_t *m)
 }
 
 static void lerr(loader_t *L, int line, int col, const char *fmt, ...)
-	__attribute__((format(printf, 4, 5)));
+    __attribute__((format(printf, 4, 5)));
 static void lerr(loader_t *L, int line, int col, const char *fmt, ...)
 {
 	char buf[512];
@@ -233,7 +233,7 @@ static void attach(loader_t *L, yt_node_t *n)
 }
 
 static bool check_props(loader_t *L, const yaml_event_t *ev, const yaml_char_t *anchor,
-			const yaml_char_t *tag, bool implicit_tag)
+                        const yaml_char_t *tag, bool implicit_tag)
 {
 	int line = (int)ev->start_mark.line + 1, col = (int)ev->start_mark.column + 1;
 	bool ok = true;
@@ -272,7 +272,7 @@ static int handle_event(loader_t *L, yaml_event_t *ev)
 		return 0;
 	case YAML_SCALAR_EVENT:
 		check_props(L, ev, ev->data.scalar.anchor, ev->data.scalar.tag,
-			    ev->data.scalar.plain_implicit || ev->data.scalar.quoted_implicit);
+		            ev->data.scalar.plain_implicit || ev->data.scalar.quoted_implicit);
 		n = node_new(YT_SCALAR, &ev->start_mark);
 		if (!n)
 			return -1;
@@ -296,11 +296,11 @@ static int handle_event(loader_t *L, yaml_event_t *ev)
 	case YAML_MAPPING_START_EVENT: {
 		bool is_map = ev->type == YAML_MAPPING_START_EVENT;
 		if (is_map)
-			check_props(L, ev, ev->data.mapping_start.anchor, ev->data.mapping_start.tag,
-				    ev->data.mapping_start.implicit);
+			check_props(L, ev, ev->data.mapping_start.anchor,
+			            ev->data.mapping_start.tag, ev->data.mapping_start.implicit);
 		else
 			check_props(L, ev, ev->data.sequence_start.anchor,
-				    ev->data.sequence_start.tag, ev->data.sequence_start.implicit);
+			            ev->data.sequence_start.tag, ev->data.sequence_start.implicit);
 		if (L->depth >= YT_MAX_DEPTH) {
 			lerr(L, line, col, "nesting is deeper than %d levels", YT_MAX_DEPTH);
 			return -1;
@@ -351,7 +351,7 @@ int yt_load_buffer(const char *name, const char *buf, size_t len, yt_doc_t *doc,
 	doc->file = strdup(name ? name : "");
 	if (len > YT_MAX_BYTES) {
 		diag_add(d, name, 1, 1, "file is too large: %zu bytes (at most %d KiB)", len,
-			 YT_MAX_BYTES / 1024);
+		         YT_MAX_BYTES / 1024);
 		return -1;
 	}
 	doc->text = malloc(len + 1);
@@ -459,7 +459,7 @@ int yt_load_file(const char *path, yt_doc_t *doc, diag_list_t *d)
 		fseek(f, 0, SEEK_END);
 		total = ftell(f);
 		diag_add(d, path, 1, 1, "file is too large: %ld bytes (at most %d KiB)", total,
-			 YT_MAX_BYTES / 1024);
+		         YT_MAX_BYTES / 1024);
 		fclose(f);
 		free(buf);
 		return -1;
@@ -599,7 +599,7 @@ static void join_words(char *out, size_t cap, const char *const *words)
 }
 
 bool yt_check_keys(const yt_doc_t *doc, const yt_node_t *m, const char *const *allowed,
-		   const char *where, diag_list_t *d)
+                   const char *where, diag_list_t *d)
 {
 	bool ok = true;
 	char list[512] = ""; /* the allowed words, joined once */
@@ -616,13 +616,13 @@ bool yt_check_keys(const yt_doc_t *doc, const yt_node_t *m, const char *const *a
 		ok = false;
 		const char *near = closest(k, allowed);
 		if (near) {
-			yt_error(doc, m->keys[i], d, "unknown key '%s' in %s; did you mean '%s'?", k,
-				 where, near);
+			yt_error(doc, m->keys[i], d, "unknown key '%s' in %s; did you mean '%s'?",
+			         k, where, near);
 		} else {
 			if (!list[0])
 				join_words(list, sizeof list, allowed);
 			yt_error(doc, m->keys[i], d, "unknown key '%s' in %s (allowed: %s)", k,
-				 where, list);
+			         where, list);
 		}
 	}
 	return ok;
@@ -660,15 +660,15 @@ bool yt_want_seq(const yt_doc_t *doc, const yt_node_t *n, const char *what, diag
 }
 
 void yt_missing(const yt_doc_t *doc, const yt_node_t *m, const char *key, const char *where,
-		diag_list_t *d)
+                diag_list_t *d)
 {
 	yt_error(doc, m, d, "missing key '%s' in %s", key, where);
 }
 
 /* A plain scalar that is a value: not a collection, not null. Adds the
  * error and returns false otherwise. */
-static bool want_value(const yt_doc_t *doc, const yt_node_t *n, const char *key,
-		       const char *expect, diag_list_t *d)
+static bool want_value(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *expect,
+                       diag_list_t *d)
 {
 	if (!n) {
 		yt_error(doc, n, d, "%s: missing value (expected %s)", key, expect);
@@ -725,18 +725,18 @@ static bool parse_decimal(const char *s, double *out)
 }
 
 bool yt_double(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *unit,
-	       double *out, diag_list_t *d)
+               double *out, diag_list_t *d)
 {
 	char expect[96];
 	bool has_unit = unit && *unit;
 	double v;
 	snprintf(expect, sizeof expect, "a number%s%s", has_unit ? " in " : "",
-		 has_unit ? unit : "");
+	         has_unit ? unit : "");
 	if (!want_value(doc, n, key, expect, d))
 		return false;
 	if (!n->plain) {
 		yt_error(doc, n, d, "%s must be %s, not a quoted string (got \"%s\")", key, expect,
-			 n->str);
+		         n->str);
 		return false;
 	}
 	if (!parse_decimal(n->str, &v)) {
@@ -746,8 +746,8 @@ bool yt_double(const yt_doc_t *doc, const yt_node_t *n, const char *key, const c
 		(void)lead;
 		if (end != n->str && *end && has_unit)
 			yt_error(doc, n, d,
-				 "%s must be a number in %s, written without a unit (got \"%s\")",
-				 key, unit, n->str);
+			         "%s must be a number in %s, written without a unit (got \"%s\")",
+			         key, unit, n->str);
 		else
 			yt_error(doc, n, d, "%s must be %s (got \"%s\")", key, expect, n->str);
 		return false;
@@ -757,7 +757,7 @@ bool yt_double(const yt_doc_t *doc, const yt_node_t *n, const char *key, const c
 }
 
 bool yt_double_range(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *unit,
-		     double lo, double hi, double *out, diag_list_t *d)
+                     double lo, double hi, double *out, diag_list_t *d)
 {
 	double v;
 	const char *u = unit && *unit ? unit : "";
@@ -766,20 +766,22 @@ bool yt_double_range(const yt_doc_t *doc, const yt_node_t *n, const char *key, c
 		return false;
 	if (v < lo || v > hi) {
 		if (isinf(lo))
-			yt_error(doc, n, d, "%s must be at most %g%s%s (got %g)", key, hi, sp, u, v);
+			yt_error(doc, n, d, "%s must be at most %g%s%s (got %g)", key, hi, sp, u,
+			         v);
 		else if (isinf(hi))
-			yt_error(doc, n, d, "%s must be at least %g%s%s (got %g)", key, lo, sp, u, v);
+			yt_error(doc, n, d, "%s must be at least %g%s%s (got %g)", key, lo, sp, u,
+			         v);
 		else
-			yt_error(doc, n, d, "%s must be between %g and %g%s%s (got %g)", key, lo, hi,
-				 sp, u, v);
+			yt_error(doc, n, d, "%s must be between %g and %g%s%s (got %g)", key, lo,
+			         hi, sp, u, v);
 		return false;
 	}
 	*out = v;
 	return true;
 }
 
-bool yt_long(const yt_doc_t *doc, const yt_node_t *n, const char *key, long lo, long hi,
-	     long *out, diag_list_t *d)
+bool yt_long(const yt_doc_t *doc, const yt_node_t *n, const char *key, long lo, long hi, long *out,
+             diag_list_t *d)
 {
 	const char *p;
 	char *end;
@@ -824,13 +826,13 @@ bool yt_bool(const yt_doc_t *doc, const yt_node_t *n, const char *key, bool *out
 }
 
 bool yt_string(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *out, size_t cap,
-	       diag_list_t *d)
+               diag_list_t *d)
 {
 	if (!want_value(doc, n, key, "text", d))
 		return false;
 	if (n->len >= cap) {
 		yt_error(doc, n, d, "%s is too long: %zu characters (at most %zu)", key, n->len,
-			 cap - 1);
+		         cap - 1);
 		return false;
 	}
 	memcpy(out, n->str, n->len + 1);
@@ -838,7 +840,7 @@ bool yt_string(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *o
 }
 
 bool yt_enum(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *const *words,
-	     int *out, diag_list_t *d)
+             int *out, diag_list_t *d)
 {
 	char list[512];
 	const char *near;
@@ -855,7 +857,7 @@ bool yt_enum(const yt_doc_t *doc, const yt_node_t *n, const char *key, const cha
 	near = closest(n->str, words);
 	if (near)
 		yt_error(doc, n, d, "%s must be one of %s (got \"%s\"; did you mean '%s'?)", key,
-			 list, n->str, near);
+		         list, n->str, near);
 	else
 		yt_error(doc, n, d, "%s must be one of %s (got \"%s\")", key, list, n->str);
 	return false;

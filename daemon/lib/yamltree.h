@@ -33,7 +33,7 @@ typedef struct yt_node {
 	int line; /* 1-based */
 	int col;  /* 1-based */
 	/* scalar */
-	char *str;  /* NUL-terminated; YAML allows embedded NUL only via escapes, rejected */
+	char *str; /* NUL-terminated; YAML allows embedded NUL only via escapes, rejected */
 	size_t len;
 	bool plain; /* unquoted plain scalar: may be resolved as number/bool/null */
 	/* map: keys[i] -> items[i]; seq: items[i] */
@@ -78,7 +78,7 @@ bool yt_is_null(const yt_node_t *n);
  * with "did you mean 'x'?" when one allowed key is within a small edit
  * distance. `where` names the map in the message ("method", "dosing", ...). */
 bool yt_check_keys(const yt_doc_t *doc, const yt_node_t *m, const char *const *allowed,
-		   const char *where, diag_list_t *d);
+                   const char *where, diag_list_t *d);
 
 /* The node must be a map / sequence; `what` names it ("dosing"). */
 bool yt_want_map(const yt_doc_t *doc, const yt_node_t *n, const char *what, diag_list_t *d);
@@ -86,30 +86,30 @@ bool yt_want_seq(const yt_doc_t *doc, const yt_node_t *n, const char *what, diag
 
 /* Required key missing: error at the map's mark, "missing key 'x' in <where>". */
 void yt_missing(const yt_doc_t *doc, const yt_node_t *m, const char *key, const char *where,
-		diag_list_t *d);
+                diag_list_t *d);
 
 /* Scalar getters. `key` names the value in the message (e.g. "dosing.dose_min_ml").
  * Numbers: plain scalars in decimal or exponent form (no hex, no inf/nan);
  * a value like "25 mL" fails with a message saying the unit is implied by the
  * key. `unit` (may be NULL or "") is shown in messages: "... (in mL)". */
 bool yt_double(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *unit,
-	       double *out, diag_list_t *d);
+               double *out, diag_list_t *d);
 /* As yt_double, then lo <= value <= hi (use -INFINITY/INFINITY for open ends). */
 bool yt_double_range(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *unit,
-		     double lo, double hi, double *out, diag_list_t *d);
-bool yt_long(const yt_doc_t *doc, const yt_node_t *n, const char *key, long lo, long hi,
-	     long *out, diag_list_t *d);
+                     double lo, double hi, double *out, diag_list_t *d);
+bool yt_long(const yt_doc_t *doc, const yt_node_t *n, const char *key, long lo, long hi, long *out,
+             diag_list_t *d);
 bool yt_bool(const yt_doc_t *doc, const yt_node_t *n, const char *key, bool *out, diag_list_t *d);
 /* Any non-null scalar; copies at most cap-1 bytes, longer is an error. */
 bool yt_string(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *out, size_t cap,
-	       diag_list_t *d);
+               diag_list_t *d);
 /* One of a NULL-terminated list of words; *out is its index. */
 bool yt_enum(const yt_doc_t *doc, const yt_node_t *n, const char *key, const char *const *words,
-	     int *out, diag_list_t *d);
+             int *out, diag_list_t *d);
 
 /* Convenience: error at node n ("file:line:col: <message>"). */
 void yt_error(const yt_doc_t *doc, const yt_node_t *n, diag_list_t *d, const char *fmt, ...)
-	__attribute__((format(printf, 4, 5)));
+    __attribute__((format(printf, 4, 5)));
 
 /* Edit distance, capped (returns cap+1 when larger); used for did-you-mean. */
 int yt_edit_distance(const char *a, const char *b, int cap);

@@ -42,10 +42,10 @@ static json_t *station_json(station_t *st)
 	                                    real_or_null(s.has_temperature, s.temperature_c),
 	                                    "age_s", json_real(s.reading_age_s))
 	                        : json_null();
-	burette = json_pack("{s:o,s:o,s:o,s:b}", "dispensed_ml", json_real(s.dispensed_ml),
-	                    "capacity_ml", real_or_null(s.capacity_ml > 0, s.capacity_ml),
-	                    "contents_ml", real_or_null(s.has_burette, s.contents_ml),
-	                    "halt_pending", s.halt_pending);
+	burette =
+	    json_pack("{s:o,s:o,s:o,s:b}", "dispensed_ml", json_real(s.dispensed_ml), "capacity_ml",
+	              real_or_null(s.capacity_ml > 0, s.capacity_ml), "contents_ml",
+	              real_or_null(s.has_burette, s.contents_ml), "halt_pending", s.halt_pending);
 	return json_pack("{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o}", "name", s.name, "state", s.state,
 	                 "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading",
 	                 reading, "burette", burette, "run",

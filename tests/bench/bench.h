@@ -11,12 +11,12 @@ double bench_cpu_s(void);
 /* Monotonic wall time, seconds. */
 double bench_wall_s(void);
 
-#define BENCH(name)                                                              \
-	static void bench_##name(void);                                          \
-	__attribute__((constructor)) static void bench_reg_##name(void)          \
-	{                                                                        \
-		bench_register(#name, __FILE__, bench_##name);                   \
-	}                                                                        \
+#define BENCH(name)                                                                                \
+	static void bench_##name(void);                                                            \
+	__attribute__((constructor)) static void bench_reg_##name(void)                            \
+	{                                                                                          \
+		bench_register(#name, __FILE__, bench_##name);                                     \
+	}                                                                                          \
 	static void bench_##name(void)
 
 #endif

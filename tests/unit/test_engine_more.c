@@ -38,11 +38,12 @@ TEST(engine_target_endpoint)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.005, "
-	                     "dose_max_ml: 1.0}\n"
-	                     "detect: {kind: target, target: 8.20}\n"
-	                     "stop: {past_endpoint_ml: 0.0, volume_max_ml: 20, time_max_s: 3600}\n",
-	                &m));
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.005, "
+	         "dose_max_ml: 1.0}\n"
+	         "detect: {kind: target, target: 8.20}\n"
+	         "stop: {past_endpoint_ml: 0.0, volume_max_ml: 20, time_max_s: 3600}\n",
+	    &m));
 	REQUIRE(fixture_scenario(VINEGAR, &s));
 	double lo = 5, hi = 10.5;
 	for (int i = 0; i < 60; i++) {
@@ -79,11 +80,12 @@ TEST(engine_gran_endpoint)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.3, dose_min_ml: 0.02, "
-	                     "dose_max_ml: 0.5}\n"
-	                     "detect: {kind: gran, count: 1}\n"
-	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n",
-	                &m));
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.3, dose_min_ml: 0.02, "
+	         "dose_max_ml: 0.5}\n"
+	         "detect: {kind: gran, count: 1}\n"
+	         "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n",
+	    &m));
 	REQUIRE(fixture_scenario("activity: ideal\n" VINEGAR, &s));
 	simrun_opts_t o = {.seed = 22, .burette_start_ml = -1};
 	simrun_out_t out;
@@ -105,20 +107,22 @@ TEST(engine_textbook_weak_acid)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.05, "
-	                     "dose_max_ml: 4.0}\n"
-	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
-	                     "stop: {past_endpoint_ml: 2.0, volume_max_ml: 60, time_max_s: 3600}\n"
-	                     "results:\n  - name: half\n    formula: half1_ph\n    unit: pH\n"
-	                     "    decimals: 2\n",
-	                &m));
-	REQUIRE(fixture_scenario("temperature_c: 25\nactivity: ideal\npkw: 14.0\nsample_ml: 50.0\n"
-	                "water_ml: 0.0\n"
-	                "sample:\n  - {name: acetic acid, molar: 0.1000, pka: [4.7570]}\n"
-	                "titrant:\n  - {name: sodium hydroxide, molar: 0.1000, strong: base}\n"
-	                "electrode: {offset_mv: 0.0, slope_pct: 100.0, tau_s: 1.5, noise_mv: 0.15, "
-	                "drift_mv_per_min: 0.0}\nburette: {capacity_ml: 20.0, steps: 40000}\n",
-	                &s));
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.05, "
+	         "dose_max_ml: 4.0}\n"
+	         "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	         "stop: {past_endpoint_ml: 2.0, volume_max_ml: 60, time_max_s: 3600}\n"
+	         "results:\n  - name: half\n    formula: half1_ph\n    unit: pH\n"
+	         "    decimals: 2\n",
+	    &m));
+	REQUIRE(fixture_scenario(
+	    "temperature_c: 25\nactivity: ideal\npkw: 14.0\nsample_ml: 50.0\n"
+	    "water_ml: 0.0\n"
+	    "sample:\n  - {name: acetic acid, molar: 0.1000, pka: [4.7570]}\n"
+	    "titrant:\n  - {name: sodium hydroxide, molar: 0.1000, strong: base}\n"
+	    "electrode: {offset_mv: 0.0, slope_pct: 100.0, tau_s: 1.5, noise_mv: 0.15, "
+	    "drift_mv_per_min: 0.0}\nburette: {capacity_ml: 20.0, steps: 40000}\n",
+	    &s));
 	simrun_opts_t o = {.seed = 23, .burette_start_ml = -1};
 	simrun_out_t out;
 	engine_t *e = simrun_run(&m, &s, &o, &out);
@@ -136,21 +140,22 @@ TEST(engine_results_accept_and_null)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
-	                     "dose_max_ml: 1.0}\n"
-	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
-	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
-	                     "results:\n"
-	                     "  - name: acetic\n"
-	                     "    formula: end1_ml * titrant_molarity * titer * 60.052 / amount\n"
-	                     "    unit: g/L\n    decimals: 2\n    accept: {min: 5.0, max: 7.0}\n"
-	                     "  - name: low\n    formula: end1_ml\n    unit: mL\n    decimals: 1\n"
-	                     "    accept: {min: 11.0}\n"
-	                     "  - name: high\n    formula: end1_ml - blank_ml\n    unit: mL\n"
-	                     "    decimals: 3\n    accept: {max: 9.0}\n"
-	                     "  - name: divzero\n    formula: end1_ml / (amount - amount)\n"
-	                     "    unit: mL\n    decimals: 2\n",
-	                &m));
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	         "dose_max_ml: 1.0}\n"
+	         "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	         "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
+	         "results:\n"
+	         "  - name: acetic\n"
+	         "    formula: end1_ml * titrant_molarity * titer * 60.052 / amount\n"
+	         "    unit: g/L\n    decimals: 2\n    accept: {min: 5.0, max: 7.0}\n"
+	         "  - name: low\n    formula: end1_ml\n    unit: mL\n    decimals: 1\n"
+	         "    accept: {min: 11.0}\n"
+	         "  - name: high\n    formula: end1_ml - blank_ml\n    unit: mL\n"
+	         "    decimals: 3\n    accept: {max: 9.0}\n"
+	         "  - name: divzero\n    formula: end1_ml / (amount - amount)\n"
+	         "    unit: mL\n    decimals: 2\n",
+	    &m));
 	REQUIRE(fixture_scenario(VINEGAR, &s));
 	simrun_opts_t o = {.seed = 24, .burette_start_ml = -1};
 	simrun_out_t out;
@@ -189,14 +194,15 @@ TEST(engine_record_json)
 {
 	method_t m;
 	chem_scenario_t s;
-	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
-	                     "dose_max_ml: 1.0}\n"
-	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
-	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
-	                     "results:\n  - name: acetic\n"
-	                     "    formula: end1_ml * titrant_molarity * 60.052 / amount\n"
-	                     "    unit: g/L\n    decimals: 2\n",
-	                &m));
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	         "dose_max_ml: 1.0}\n"
+	         "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	         "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
+	         "results:\n  - name: acetic\n"
+	         "    formula: end1_ml * titrant_molarity * 60.052 / amount\n"
+	         "    unit: g/L\n    decimals: 2\n",
+	    &m));
 	REQUIRE(fixture_scenario(VINEGAR, &s));
 	simrun_opts_t o = {.seed = 25, .burette_start_ml = -1};
 	simrun_out_t out;
@@ -370,13 +376,14 @@ static void random_method(method_t *m, const chem_scenario_t *s)
 TEST(engine_property_random_runs)
 {
 	method_t base;
-	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
-	                     "dose_max_ml: 1.0}\n"
-	                     "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
-	                     "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
-	                     "results:\n  - name: r\n    formula: end1_ml * titer / amount\n"
-	                     "    unit: mL/mL\n    decimals: 3\n",
-	                &base));
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	         "dose_max_ml: 1.0}\n"
+	         "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	         "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
+	         "results:\n  - name: r\n    formula: end1_ml * titer / amount\n"
+	         "    unit: mL/mL\n    decimals: 3\n",
+	    &base));
 	rng_state = 20261201;
 	int runs = harness_quick() ? 40 : 300;
 	int bad = 0;

@@ -136,13 +136,13 @@ TEST(yamltree_typed_getters)
 	int e = -1;
 	char s[8];
 	REQUIRE(load("n: 2.5e-1\nu: 25 mL\nq: \"3\"\nh: 0x1F\ni: 12\nt: true\nw: constnt\n"
-		     "s: toolongtext\nr: 99\n",
-		     &doc, &d) == 0);
+	             "s: toolongtext\nr: 99\n",
+	             &doc, &d) == 0);
 	CHECK(yt_double(&doc, yt_get(doc.root, "n"), "n", "mL", &v, &d));
 	CHECK_NEAR(v, 0.25, 1e-15);
 	CHECK(!yt_double(&doc, yt_get(doc.root, "u"), "stop.volume_max_ml", "mL", &v, &d));
 	CHECK_STR(first(&d), "2:4: stop.volume_max_ml must be a number in mL, written without a "
-			     "unit (got \"25 mL\")");
+	                     "unit (got \"25 mL\")");
 	diag_free(&d);
 	CHECK(!yt_double(&doc, yt_get(doc.root, "q"), "q", NULL, &v, &d));
 	CHECK_STR(first(&d), "3:4: q must be a number, not a quoted string (got \"3\")");
@@ -155,7 +155,7 @@ TEST(yamltree_typed_getters)
 	static const char *const modes[] = {"adaptive", "constant", NULL};
 	CHECK(!yt_enum(&doc, yt_get(doc.root, "w"), "dosing.mode", modes, &e, &d));
 	CHECK_STR(first(&d), "7:4: dosing.mode must be one of adaptive, constant (got "
-			     "\"constnt\"; did you mean 'constant'?)");
+	                     "\"constnt\"; did you mean 'constant'?)");
 	diag_free(&d);
 	CHECK(!yt_string(&doc, yt_get(doc.root, "s"), "s", s, sizeof s, &d));
 	CHECK_STR(first(&d), "8:4: s is too long: 11 characters (at most 7)");
@@ -176,8 +176,9 @@ TEST(yamltree_unknown_keys_did_you_mean)
 	REQUIRE(d.n == 3);
 	CHECK_STR(d.v[2].msg, "unknown key 'time_max' in stop; did you mean 'time_max_s'?");
 	CHECK_STR(d.v[0].msg, "unknown key 'volum_max_ml' in stop; did you mean 'volume_max_ml'?");
-	CHECK_STR(d.v[1].msg,
-		  "unknown key 'zzz' in stop (allowed: past_endpoint_ml, volume_max_ml, time_max_s)");
+	CHECK_STR(
+	    d.v[1].msg,
+	    "unknown key 'zzz' in stop (allowed: past_endpoint_ml, volume_max_ml, time_max_s)");
 	yt_free(&doc);
 	diag_free(&d);
 }
