@@ -180,13 +180,13 @@ def spec_path_regex(path):
 
 def test_daemon_source_routes_are_in_spec():
     """Every route literal in the daemon's HTTP sources names a spec path."""
-    sources = sorted((ROOT / "daemon").glob("http*.c"))
+    sources = sorted((ROOT / "daemon" / "server").glob("http*.c"))
     sources = [s for s in sources if not s.name.startswith("httpc")]  # the client
-    assert sources, "no daemon/http*.c found"
+    assert sources, "no daemon/server/http*.c found"
     literals = set()
     for src in sources:
         literals |= set(re.findall(r'"(/(?:v1|metrics)[^"]*)"', src.read_text()))
-    assert literals, "no route literals found in daemon/http*.c; adjust this test"
+    assert literals, "no route literals found in daemon/server/http*.c; adjust this test"
     spec_paths = list(SPEC["paths"])
     for lit in sorted(literals):
         # Prefix literals ("/v1/runs/") are matched as the start of a spec path,
@@ -485,9 +485,9 @@ def test_unknown_route_is_a_json_404(daemon):
 
 
 def route_vocabulary():
-    """Per daemon/http*.c file: {segment position: words it compares}."""
+    """Per daemon/server/http*.c file: {segment position: words it compares}."""
     vocab = {}
-    for src in sorted((ROOT / "daemon").glob("http*.c")):
+    for src in sorted((ROOT / "daemon" / "server").glob("http*.c")):
         if src.name.startswith("httpc"):
             continue
         words = {}
@@ -518,7 +518,7 @@ def test_every_route_the_daemon_serves_is_in_spec(daemon):
     mid = json.loads(body)["methods"][0]["id"]
     fillers = ["1", "999999", station, mid]
     vocab = route_vocabulary()
-    assert vocab, "no segment words found in daemon/http*.c; adjust this test"
+    assert vocab, "no segment words found in daemon/server/http*.c; adjust this test"
     served = 0
     for fname, words in vocab.items():
         top = max(words)

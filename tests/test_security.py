@@ -125,7 +125,9 @@ def test_bad_path_and_query_parameters(bench, path):
 def test_sql_is_never_built_from_request_strings():
     # Every SQL statement of the store binds its values (sqlite3_bind_*); the
     # one snprintf'd statement takes an int of the schema version.
-    for f in sorted((ROOT / "daemon").glob("store*.c")):
+    sources = sorted((ROOT / "daemon" / "store").glob("store*.c"))
+    assert sources, "no daemon/store/store*.c found"
+    for f in sources:
         src = f.read_text()
         assert "sqlite3_mprintf" not in src and "%q" not in src, f
         for m in re.finditer(r"snprintf\(\s*sql\b[^;]*;", src):

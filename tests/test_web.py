@@ -94,7 +94,7 @@ def test_page_files_types_and_no_token(bench):
         assert r.status == 200, name
         assert r.headers["Content-Type"] == ctype, name
         assert bench.token.encode() not in r.body
-        assert (ROOT / "daemon" / "www" / name).read_bytes() == r.body
+        assert (ROOT / "daemon" / "server" / "www" / name).read_bytes() == r.body
     # A cross-origin page gets no CORS grant from the API either.
     r = raw(bench, "/v1/stations", headers={"Origin": "http://elsewhere.example"})
     assert r.status == 200 and "Access-Control-Allow-Origin" not in r.headers
