@@ -229,7 +229,7 @@ static void note_halt(station_t *s, const char *why, bool ok, const char *msg)
 	pthread_mutex_lock(&s->lock);
 	s->snap.halt_pending = true;
 	snprintf(s->snap.last_error, sizeof s->snap.last_error,
-	         "burette not confirmed halted (%s): %s", s->halt_why, msg);
+	         "burette not confirmed halted (%s): %.150s", s->halt_why, msg);
 	station_unlock(s);
 }
 
