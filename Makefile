@@ -93,12 +93,13 @@ all: $(REL_BINS)
 
 san: $(SAN_BINS) $(SAN)/unit_tests
 
-# ---- objects (-MMD: each object also depends on the headers it includes) ----
-$(REL)/%.o: %.c
+# ---- objects (-MMD: each object also depends on the headers it includes; and on this
+# Makefile, whose flags and include paths shape every object) ----
+$(REL)/%.o: %.c Makefile
 	@mkdir -p $(dir $@)
 	$(CC) $(REL_CFLAGS) $(call inc_for,$<) -MMD -MP -c $< -o $@
 
-$(SAN)/%.o: %.c
+$(SAN)/%.o: %.c Makefile
 	@mkdir -p $(dir $@)
 	$(CC) $(SAN_CFLAGS) $(call inc_for,$<) -MMD -MP -c $< -o $@
 
@@ -205,7 +206,7 @@ FUZZ_TARGETS = $(patsubst tests/fuzz/fuzz_%.c,%,$(sort $(wildcard tests/fuzz/fuz
 FUZZ_CFLAGS = $(filter-out -Werror,$(BASE_CFLAGS)) -O1 -g -fno-omit-frame-pointer \
 	-fsanitize=address,undefined -fno-sanitize-recover=undefined
 
-$(FUZZ)/obj/%.o: %.c
+$(FUZZ)/obj/%.o: %.c Makefile
 	@mkdir -p $(dir $@)
 	$(FUZZ_CC) $(FUZZ_CFLAGS) $(call inc_for,$<) -MMD -MP -fsanitize=fuzzer-no-link -c $< -o $@
 

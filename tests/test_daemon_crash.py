@@ -55,7 +55,7 @@ def test_sigkill_mid_run_leaves_an_interrupted_run_with_its_points(bench):
     assert burette_still(bench)
     # A crash loses at most the reading in flight: beyond the last stored
     # point the pump delivered at most one addition (dose_max_ml 0.25 mL
-    # after the predose, which the third point is already past).
+    # after the initial volume, which the third point is already past).
     beyond = (bench.sim_state()["dispensed_ml"] - bench.dispensed_before
               - after[-1]["volume_ml"])
     assert -1e-3 <= beyond <= 0.25 + 1e-3, (beyond, after[-1])

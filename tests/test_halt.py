@@ -32,7 +32,7 @@ FAULTS = {
 }
 
 # Empties the syringe down to 1.4 mL at the refill bench's fast dose rate, so
-# the next fast-acid-mv run (predose 1.6 mL) starts with a refill.
+# the next fast-acid-mv run (initial volume 1.6 mL) starts with a refill.
 PRIME = """method: prime-syringe-mv
 title: Empty most of the syringe before a refill test
 revision: 1
@@ -40,7 +40,7 @@ purpose: assay
 titrant: {name: NaOH 0.1 mol/L, molarity: 0.1000}
 sample: {unit: mL, min: 1.0, max: 50.0}
 signal: mv
-start: {stir_s: 0.2, predose_ml: 8.6}
+start: {stir_s: 0.2, initial_ml: 8.6}
 dosing: {mode: adaptive, step_aim: 40, dose_min_ml: 0.02, dose_max_ml: 0.2}
 settle: {wait_min_s: 0.2, wait_max_s: 0.5, still_within: 2.0, still_for_s: 0.2}
 detect: {kind: inflection, count: 1, min_jump: 100}
@@ -83,7 +83,7 @@ def wait_sim(bench, pred, timeout_s, what):
 
 
 def prime(bench):
-    """Leave 1.4 mL in the syringe: a priming run, aborted once its predose
+    """Leave 1.4 mL in the syringe: a priming run, aborted once its initial volume
     is in."""
     bench.wait_idle()
     bench.fresh_beaker()
