@@ -331,7 +331,10 @@ def test_status_shows_the_station(bench):
     st = next(s for s in stations if s["name"] == "sim1")
     assert row.split()[1] == st["state"]
     cap = st["burette"]["capacity_ml"]
-    assert f"/ {cap:.3f} mL" in row
+    held = st["burette"]["contents_ml"]
+    # The syringe's content and the run's volume apart (a full syringe is not 0 mL).
+    assert lines[0].split()[-3:] == ["DISPENSED", "SYRINGE", "RUN"], lines[0]
+    assert f"{held:.3f} / {cap:.3f} mL" in row, (row, st["burette"])
 
 
 def test_whole_run_wait_and_show(bench, finished):
@@ -395,7 +398,7 @@ def test_show_svg_writes_the_curve(bench, finished, tmp_path):
     assert root.tag == "{http://www.w3.org/2000/svg}svg"
     ep = bench.get(f"/v1/runs/{run}")["endpoints"][0]
     assert f"{ep['volume_ml']:.3f} mL".encode() in data
-    assert b"titrant volume (mL)" in data
+    assert b"titrant added (mL)" in data
     assert not list(tmp_path.glob("curve.svg.tmp*")), "temporary file left behind"
     # --svg - : the SVG alone on stdout
     r = cli("show", run, "--svg", "-", env=bench.env)

@@ -98,15 +98,20 @@ static void print_station(client_t *c, const json_t *st)
 	char age[32] = "-";
 	if (isfinite(age_s))
 		snprintf(age, sizeof age, "%.1f s", age_s);
-	char burette[48];
-	snprintf(burette, sizeof burette, "%s / %s mL",
-	         client_fmt(b4, sizeof b4, client_num(bu, "dispensed_ml"), 3),
+	/* This run's volume and what the syringe holds, apart: a refilled
+	 * syringe at the start of a run is not "0 mL". */
+	char dispensed[24], syringe[48], b6[32];
+	snprintf(dispensed, sizeof dispensed, "%s mL",
+	         client_fmt(b4, sizeof b4, client_num(bu, "dispensed_ml"), 3));
+	snprintf(syringe, sizeof syringe, "%s / %s mL",
+	         client_fmt(b6, sizeof b6, client_num(bu, "contents_ml"), 3),
 	         client_fmt(b5, sizeof b5, client_num(bu, "capacity_ml"), 3));
 	/* "°C" is two bytes but one column: pad by hand. */
-	printf("%-10s %-11s %-10s %6s %8s %-9s %6s  %-20s %s\n", client_str(st, "name", "?"),
+	printf("%-10s %-11s %-10s %6s %8s %-9s %6s  %10s  %-19s %s\n", client_str(st, "name", "?"),
 	       client_str(st, "state", "?"), phase ? phase : "-",
 	       client_fmt(b1, sizeof b1, client_num(rd, "ph"), 2),
-	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp, age, burette, runs);
+	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp, age, dispensed, syringe,
+	       runs);
 }
 
 int cmd_status(int argc, char **argv)
@@ -130,8 +135,9 @@ int cmd_status(int argc, char **argv)
 		} else if (json_array_size(list) == 0) {
 			printf("no stations configured\n");
 		} else {
-			printf("%-10s %-11s %-10s %6s %8s %-8s %6s  %-20s %s\n", "STATION", "STATE",
-			       "PHASE", "PH", "MV", "TEMP", "AGE", "BURETTE", "RUN");
+			printf("%-10s %-11s %-10s %6s %8s %-8s %6s  %10s  %-19s %s\n", "STATION",
+			       "STATE", "PHASE", "PH", "MV", "TEMP", "AGE", "DISPENSED", "SYRINGE",
+			       "RUN");
 			size_t i;
 			json_t *st;
 			json_array_foreach(list, i, st) print_station(&c, st);

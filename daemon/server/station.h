@@ -33,7 +33,8 @@ typedef struct station station_t;
 typedef struct station_snapshot {
 	char name[CFG_NAME_MAX];
 	char state[16]; /* idle, running, offline (devices not answering) */
-	char phase[16]; /* while running: stirring dosing settling evaluating; else "" */
+	char phase[16]; /* while running: stirring dosing settling evaluating, or refilling
+	                 * while the syringe refills; else "" */
 	int64_t run_id; /* current run, 0 when none */
 	int queued;     /* runs waiting behind it */
 	bool has_reading;

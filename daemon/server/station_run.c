@@ -25,6 +25,11 @@
 #define DOSE_POLL_S     0.02  /* status polls while the plunger moves */
 #define MOVE_DEADLINE_S 300.0 /* a dose or refill not done by then is a fault */
 #define HALT_WAIT_S     5.0   /* a run's halt not answered by then is left to the idle station */
+/* While a run stirs, waits, doses or refills, the station still reads the
+ * probe this often (for the status and the page only; the engine gets its own
+ * readings on its own schedule), so the live reading is never the previous
+ * beaker's. */
+#define LIVE_READ_S 1.0
 
 typedef struct run {
 	station_t *s;
@@ -38,6 +43,7 @@ typedef struct run {
 	double dispensed_ml;     /* by this run, as the device reports */
 	bool fault;              /* a device fault ended the run */
 	bool interrupted;        /* stop / halt / abort */
+	double live_read_mono_s; /* when the live reading was last taken */
 } run_t;
 
 static void now_text(char out[32])
@@ -210,6 +216,49 @@ static double t_run(const run_t *r)
 	return station_mono_s() - r->t0;
 }
 
+/* A reading for the status only: a failure here is not the run's fault (the
+ * engine's own reading will find it). */
+static void live_read(run_t *r)
+{
+	drv_reading_t rd = {0};
+	drv_err_t err = {{0}};
+	double now = station_mono_s();
+
+	if (now - r->live_read_mono_s < LIVE_READ_S)
+		return;
+	r->live_read_mono_s = now;
+	(void)station_read_probe(r->s, &rd, &err);
+}
+
+/* Wait until a monotonic time, keeping the live reading fresh; true when the
+ * run was interrupted meanwhile. */
+static bool wait_reading(run_t *r, double until_mono_s)
+{
+	for (;;) {
+		double now = station_mono_s(), slice = until_mono_s;
+
+		/* A live read only where it cannot delay the step the engine asked
+		 * for: a Modbus reading takes milliseconds, the margin is 0.3 s. */
+		if (until_mono_s - now > LIVE_READ_S + 0.3) {
+			live_read(r);
+			slice = station_mono_s() + LIVE_READ_S;
+		}
+		if (station_wait_until(r->s, slice, r->job->run_id))
+			return true;
+		if (slice >= until_mono_s)
+			return false;
+	}
+}
+
+/* The phase the station shows while the syringe refills: not an engine phase,
+ * so it is shown but not stored; the next publish() puts the engine's back. */
+static void show_phase(run_t *r, const char *phase)
+{
+	pthread_mutex_lock(&r->s->lock);
+	snprintf(r->s->snap.phase, sizeof r->s->snap.phase, "%s", phase);
+	station_unlock(r->s);
+}
+
 static bool burette_status(run_t *r, drv_burette_status_t *bs, drv_err_t *err)
 {
 	if (drv_burette_status(&r->s->bur, bs, err) != DRV_OK)
@@ -237,6 +286,7 @@ static int wait_move(run_t *r, drv_burette_status_t *bs, char *msg, size_t cap)
 			snprintf(msg, cap, "burette: %s", err.msg);
 			return -1;
 		}
+		live_read(r);
 		if (bs->fault) {
 			snprintf(msg, cap, "burette reports a fault (motor stall?)");
 			return -1;
@@ -257,6 +307,7 @@ static engine_action_t do_refill(run_t *r)
 	char msg[300];
 	int w;
 
+	show_phase(r, "refilling");
 	if (drv_burette_refill(&r->s->bur, &err) != DRV_OK)
 		return feed_fault(r, t_run(r), "burette_refill", err.msg);
 	w = wait_move(r, &bs, msg, sizeof msg);
@@ -328,6 +379,7 @@ static engine_action_t do_dose(run_t *r, double dose_ml)
 		                  err.msg);
 	/* The stroke: never ask for more than the syringe holds. */
 	if (dose_ml > bs.contents_ml + q / 2) {
+		show_phase(r, "refilling");
 		if (drv_burette_refill(&s->bur, &err) != DRV_OK)
 			return feed_fault(r, t_run(r), "burette_refill", err.msg);
 		w = wait_move(r, &bs, msg, sizeof msg);
@@ -335,6 +387,7 @@ static engine_action_t do_dose(run_t *r, double dose_ml)
 			return feed_fault(r, t_run(r), "burette_refill", msg);
 		if (w > 0)
 			goto interrupted;
+		show_phase(r, engine_phase(r->e) ? engine_phase(r->e) : "");
 		if (dose_ml > bs.contents_ml + q / 2) {
 			snprintf(msg, sizeof msg,
 			         "a dose of %.4f mL is more than the syringe holds "
@@ -825,7 +878,7 @@ void station_run_job(station_t *s, station_job_t *job)
 			/* Only a wait that starts before its time measures scheduling:
 			 * a time already past is the cost of the last step (a commit). */
 			scheduled = r.t0 + act.until_t_s > station_mono_s() + 1e-4;
-			if (station_wait_until(s, r.t0 + act.until_t_s, job->run_id))
+			if (wait_reading(&r, r.t0 + act.until_t_s))
 				continue; /* handled at the top of the loop */
 			if (scheduled)
 				note_lateness(s, station_mono_s() - (r.t0 + act.until_t_s));
