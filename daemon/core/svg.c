@@ -203,7 +203,7 @@ static void draw_axes(sbuf_t *b, const frame_t *f, double sx, double sy, double 
 	double mid_y = (f->y0 + f->y1) / 2;
 	sb_printf(b,
 	          "<text class=\"label\" x=\"%.1f\" y=\"%.1f\" text-anchor=\"middle\">"
-	          "titrant volume (mL)</text>\n",
+	          "titrant added (mL)</text>\n",
 	          (f->x0 + f->x1) / 2, f->y1 + 40);
 	sb_printf(b,
 	          "<text class=\"label\" transform=\"translate(%.1f %.1f) rotate(-90)\" "
@@ -215,7 +215,7 @@ static void draw_axes(sbuf_t *b, const frame_t *f, double sx, double sy, double 
 		    "<text class=\"label deriv\" transform=\"translate(%.1f %.1f) rotate(90)\" "
 		    "text-anchor=\"middle\">%s</text>\n",
 		    f->x1 + 52, mid_y,
-		    ph ? "first derivative dpH/dV (pH/mL)" : "first derivative dE/dV (mV/mL)");
+		    ph ? "first derivative (pH/mL)" : "first derivative (mV/mL)");
 }
 
 static void draw_endpoints(sbuf_t *b, const frame_t *f, const svg_endpoint_t *ends, size_t n_ends)
@@ -231,9 +231,12 @@ static void draw_endpoints(sbuf_t *b, const frame_t *f, const svg_endpoint_t *en
 		if (isfinite(ends[i].signal))
 			sb_printf(b, "<circle cx=\"%.1f\" cy=\"%.1f\" r=\"5\"/>", x,
 			          px_y(f, &f->vy, ends[i].signal));
-		/* Labels stagger downwards so that close endpoints stay readable. */
-		sb_printf(b, "<text x=\"%.1f\" y=\"%.1f\">", x + 5,
-		          f->y0 + 16 + 16.0 * (double)(i % 4));
+		/* Labels stagger downwards so that close endpoints stay readable,
+		 * and sit left of the line in the right third so that they never
+		 * run over the derivative's axis (the page does the same). */
+		bool left = x > f->x0 + (f->x1 - f->x0) * 2 / 3;
+		sb_printf(b, "<text x=\"%.1f\" y=\"%.1f\"%s>", left ? x - 5 : x + 5,
+		          f->y0 + 16 + 16.0 * (double)(i % 4), left ? " text-anchor=\"end\"" : "");
 		if (ends[i].label && ends[i].label[0])
 			sb_escaped(b, ends[i].label);
 		else
@@ -300,13 +303,13 @@ char *svg_curve(const svg_point_t *pts, size_t n, const svg_endpoint_t *ends, si
 	              ".grid{stroke:#e2e2dc;stroke-width:1}\n"
 	              ".ticks text{fill:#333}\n"
 	              ".label{fill:#222;font-size:13px}\n"
-	              ".deriv{fill:#b5651d}\n"
+	              ".deriv{fill:#b5601e}\n"
 	              ".curve{fill:none;stroke:#1f4e79;stroke-width:2}\n"
-	              ".dpdv{fill:none;stroke:#b5651d;stroke-width:1.3;stroke-dasharray:5 3}\n"
+	              ".dpdv{fill:none;stroke:#b5601e;stroke-width:1.3;stroke-dasharray:5 3}\n"
 	              ".pts circle{fill:#1f4e79}\n"
-	              ".endpoint line{stroke:#2e7d32;stroke-width:1.2;stroke-dasharray:2 3}\n"
-	              ".endpoint circle{fill:none;stroke:#2e7d32;stroke-width:2}\n"
-	              ".endpoint text{fill:#2e7d32;font-weight:bold}\n"
+	              ".endpoint line{stroke:#2d6a3e;stroke-width:1.2;stroke-dasharray:2 3}\n"
+	              ".endpoint circle{fill:none;stroke:#2d6a3e;stroke-width:2}\n"
+	              ".endpoint text{fill:#2d6a3e;font-weight:bold}\n"
 	              ".title{font-size:15px;font-weight:bold;fill:#222}\n"
 	              ".note{fill:#777;font-size:14px}\n"
 	              "</style>\n");
@@ -335,19 +338,30 @@ char *svg_curve(const svg_point_t *pts, size_t n, const svg_endpoint_t *ends, si
 	draw_endpoints(&b, &f, ends, n_ends);
 
 	/* Legend in the bottom margin, right-aligned, beside the volume label:
-	 * clear of the curve and of long titles. */
-	double lx = f.x1 - (deriv ? 230 : 60), ly = f.y1 + 36;
-	sb_printf(&b,
-	          "<g class=\"legend\"><line x1=\"%.1f\" y1=\"%.1f\" x2=\"%.1f\" "
-	          "y2=\"%.1f\" style=\"stroke:#1f4e79;stroke-width:2\"/>"
-	          "<text x=\"%.1f\" y=\"%.1f\">%s</text>",
-	          lx, ly, lx + 24, ly, lx + 30, ly + 4, unit);
-	if (deriv)
+	 * clear of the curve and of long titles. The same three keys and words as
+	 * the page's legend (daemon/server/www/runs.js). */
+	struct {
+		const char *word, *style;
+	} keys[] = {
+	    {strcmp(unit, "mV") ? "pH" : "potential", "stroke:#1f4e79;stroke-width:2"},
+	    {"first derivative", "stroke:#b5601e;stroke-width:1.3;stroke-dasharray:5 3"},
+	    {"endpoint", "stroke:#2d6a3e;stroke-width:1.2;stroke-dasharray:2 3"},
+	};
+	double width = 0, ly = f.y1 + 36;
+	for (size_t i = 0; i < 3; i++)
+		if (i != 1 || deriv)
+			width += 30 + 7.0 * (double)strlen(keys[i].word) + 14; /* ~7 px a letter */
+	double lx = f.x1 - width;
+	sb_printf(&b, "<g class=\"legend\">");
+	for (size_t i = 0; i < 3; i++) {
+		if (i == 1 && !deriv)
+			continue;
 		sb_printf(&b,
-		          "<line x1=\"%.1f\" y1=\"%.1f\" x2=\"%.1f\" y2=\"%.1f\" "
-		          "style=\"stroke:#b5651d;stroke-width:1.3;stroke-dasharray:5 3\"/>"
-		          "<text x=\"%.1f\" y=\"%.1f\">first derivative</text>",
-		          lx + 70, ly, lx + 94, ly, lx + 100, ly + 4);
+		          "<line x1=\"%.1f\" y1=\"%.1f\" x2=\"%.1f\" y2=\"%.1f\" style=\"%s\"/>"
+		          "<text x=\"%.1f\" y=\"%.1f\">%s</text>",
+		          lx, ly, lx + 24, ly, keys[i].style, lx + 30, ly + 4, keys[i].word);
+		lx += 30 + 7.0 * (double)strlen(keys[i].word) + 14;
+	}
 	sb_printf(&b, "</g>\n</svg>\n");
 
 	if (b.failed) {

@@ -143,8 +143,9 @@ TEST(svg_curve_typical)
 	CHECK(strstr(s, "class=\"curve\"") != NULL);
 	CHECK(strstr(s, "class=\"dpdv\"") != NULL);
 	CHECK(strstr(s, "E1 6.200 mL") != NULL);
-	CHECK(strstr(s, "titrant volume (mL)") != NULL);
-	CHECK(strstr(s, "dpH/dV (pH/mL)") != NULL);
+	CHECK(strstr(s, "titrant added (mL)") != NULL);
+	CHECK(strstr(s, "first derivative (pH/mL)") != NULL);
+	CHECK(strstr(s, ">endpoint</text>") != NULL);
 	CHECK(strstr(s, "Orchard Lane Cider, batch 0412") != NULL);
 	CHECK_INT(count(s, "<g class=\"endpoint\">"), 1);
 	/* 40 measured points each get one marker. */
@@ -171,7 +172,8 @@ TEST(svg_curve_escapes_text)
 	CHECK(strstr(s, "&lt;EP&amp;1&gt; 0.500 mL") != NULL);
 	CHECK(strstr(s, "<water>") == NULL);
 	CHECK(strstr(s, "potential (mV)") != NULL);
-	CHECK(strstr(s, "dE/dV (mV/mL)") != NULL);
+	CHECK(strstr(s, "first derivative (mV/mL)") != NULL);
+	CHECK(strstr(s, ">potential</text>") != NULL); /* the legend names the signal */
 	free(s);
 }
 

@@ -149,7 +149,8 @@ async function main() {
 		// ---- the token: asked once, kept for the tab, never in a URL ----
 		step('token');
 		await page.click('#token-button');
-		await page.fill('#token-input', TOKEN);
+		// The whole line of the token file, as the dialog invites.
+		await page.fill('#token-input', `lab-bench:${TOKEN}`);
 		await page.click('#token-dialog button[value="ok"]');
 		// the dialog's close event stores the token: wait for it (bounded)
 		await page.waitForFunction((t) => sessionStorage.getItem('stopcock.token') === t, TOKEN,
@@ -208,6 +209,62 @@ async function main() {
 			'curve.svg may run no script');
 		await svgPage.screenshot({path: path.join(SHOTS, '03b-curve-svg.png')});
 		await svgPage.close();
+
+		// ---- the page and the SVG say the same thing in the same colours ----
+		step('the page and the SVG agree');
+		const svgText = await (await fetch(`${URL}/v1/runs/${runId}/curve.svg`)).text();
+		const svgHex = (cls, prop) => {
+			const m = svgText.match(new RegExp(`\\.${cls}\\{[^}]*${prop}:(#[0-9a-f]{6})`));
+			return m ? m[1] : null;
+		};
+		const rgb = (x) => x && `rgb(${parseInt(x.slice(1, 3), 16)}, ${parseInt(x.slice(3, 5), 16)}, ` +
+			`${parseInt(x.slice(5, 7), 16)})`;
+		const drawn = await page.evaluate(() => {
+			const st = (sel) => getComputedStyle(document.querySelector(sel)).stroke;
+			return {curve: st('svg.chart polyline.curve-line'), deriv: st('svg.chart polyline.deriv-line'),
+				endpoint: st('svg.chart g.endpoint line')};
+		});
+		for (const [k, cls] of [['curve', 'curve'], ['deriv', 'dpdv'], ['endpoint', 'endpoint line']]) {
+			const want = rgb(svgHex(cls, 'stroke'));
+			check(want && drawn[k] === want, `${k} has one colour on the page and in the SVG (${drawn[k]} / ${want})`);
+		}
+		const axes = await page.$$eval('svg.chart text.axis', (t) => t.map((x) => x.textContent));
+		for (const words of ['titrant added (mL)', 'first derivative (mV/mL)'])
+			check(axes.includes(words) && svgText.includes(`${words}</text>`),
+				`both label an axis "${words}" (page: ${axes.join(' | ')})`);
+		const legend = await page.textContent('.legend');
+		for (const words of ['first derivative', 'endpoint'])
+			check(legend.includes(words) && svgText.includes(`>${words}</text>`), `both legends say "${words}"`);
+		check(!/signal/.test(legend), `the legend names the signal, not "signal" (${legend.trim()})`);
+		// The endpoint's label stays inside the plot, clear of the derivative's axis.
+		const fit = await page.evaluate(() => {
+			const f = document.querySelector('svg.chart rect.frame').getBBox();
+			return [...document.querySelectorAll('svg.chart g.endpoint text')].every((t) => {
+				const b = t.getBBox();
+				return b.x >= f.x && b.x + b.width <= f.x + f.width;
+			});
+		});
+		check(fit, 'endpoint labels stay inside the plot frame');
+		// Facts in words a person reads: no raw codes, times with their zone,
+		// the titrant's name once, a volume with the digits its uncertainty needs.
+		const fact = (label) => page.evaluate((l) => {
+			const dt = [...document.querySelectorAll('dl.facts dt')].find((x) => x.textContent === l);
+			return dt ? dt.nextElementSibling.textContent : null;
+		}, label);
+		const why = await fact('stop reason');
+		check(why && !why.includes('_') && why !== rec.stop_reason, `stop reason in words (${why})`);
+		const ended = await fact('ended');
+		check(/ UTC[+−]\d\d:\d\d$/.test(ended), `times carry their zone (${ended})`);
+		const titrant = await fact('titrant');
+		check(titrant === rec.titrant.name, `the titrant's name once (${titrant})`);
+		check((await fact('concentration')).includes('mol/L × titer'), 'concentration and titer');
+		const u = rec.endpoints[0].u_volume_ml;
+		if (Number.isFinite(u) && u > 0) {
+			const d = Math.min(6, Math.max(3, 1 - Math.floor(Math.log10(u))));
+			const cell = await page.textContent('.endpoint-table tbody tr td:nth-child(2)');
+			check(cell === `${rec.endpoints[0].volume_ml.toFixed(d)} ± ${u.toFixed(d)}`,
+				`the endpoint shows u to two significant digits (${cell}, u ${u})`);
+		}
 
 		// The polling stays gentle: at most a few requests a second.
 		const since = Date.now() - 5000;

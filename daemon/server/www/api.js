@@ -143,6 +143,14 @@ export function askToken(note) {
 	return asking;
 }
 
+// The dialog takes the token alone or its whole `name:token` line from the
+// token file, as the CLI reads it: the part after the first colon.
+export function tokenOf(text) {
+	const t = text.trim();
+	const colon = t.indexOf(':');
+	return (colon >= 0 ? t.slice(colon + 1) : t).trim();
+}
+
 function ask(note) {
 	const dlg = document.getElementById('token-dialog');
 	const input = document.getElementById('token-input');
@@ -154,7 +162,7 @@ function ask(note) {
 			resolve(value);
 		};
 		const onClose = () => {
-			const v = dlg.returnValue === 'ok' ? input.value.trim() : '';
+			const v = dlg.returnValue === 'ok' ? tokenOf(input.value) : '';
 			input.value = '';
 			if (v) setToken(v);
 			done(v);
@@ -227,15 +235,18 @@ export function fmt(v, digits) {
 	return typeof v === 'number' && Number.isFinite(v) ? v.toFixed(digits) : '—';
 }
 
-// Local time as 2026-12-01 14:05:09: one order of fields whatever the
-// browser's locale, sortable, and the date first as in the lab's records.
+// Local time as 2026-12-01 14:05:09 UTC+01:00: one order of fields whatever
+// the browser's locale, sortable, the date first as in the lab's records, and
+// the offset from UTC so that a time read elsewhere is not an hour off.
 export function when(rfc3339) {
 	if (!rfc3339) return '—';
 	const d = new Date(rfc3339);
 	if (Number.isNaN(d.getTime())) return rfc3339;
 	const p = (n) => String(n).padStart(2, '0');
+	const off = -d.getTimezoneOffset();
+	const zone = `UTC${off < 0 ? '−' : '+'}${p(Math.floor(Math.abs(off) / 60))}:${p(Math.abs(off) % 60)}`;
 	return `${d.getFullYear()}-${p(d.getMonth() + 1)}-${p(d.getDate())} ` +
-		`${p(d.getHours())}:${p(d.getMinutes())}:${p(d.getSeconds())}`;
+		`${p(d.getHours())}:${p(d.getMinutes())}:${p(d.getSeconds())} ${zone}`;
 }
 
 export function errorText(e) {

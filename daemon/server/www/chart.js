@@ -77,11 +77,13 @@ export function drawChart(svg, points, endpoints, signal) {
 	svg.prepend(grid);
 	svg.append(s('rect', {x: M.l, y: M.t, width: W - M.l - M.r, height: H - M.t - M.b,
 		class: 'frame'}));
+	// The same words as the SVG of GET /v1/runs/{id}/curve.svg (daemon/core/svg.c).
 	svg.append(s('text', {x: (M.l + W - M.r) / 2, y: H - 8, class: 'axis mid'},
-		'titrant added, mL'));
-	svg.append(s('text', {x: 14, y: M.t - 10, class: 'axis'}, unit));
+		'titrant added (mL)'));
+	svg.append(s('text', {x: 14, y: M.t - 10, class: 'axis'},
+		signal === 'mv' ? 'potential (mV)' : 'pH'));
 	svg.append(s('text', {x: W - 8, y: M.t - 10, class: 'axis end deriv'},
-		`|d${unit}/dmL|`));
+		`first derivative (${unit}/mL)`));
 
 	const dpts = pts.filter((p) => Number.isFinite(p.dpdv));
 	if (dpts.length > 1)
@@ -103,8 +105,11 @@ export function drawChart(svg, points, endpoints, signal) {
 		const ex = x(e.volume_ml);
 		const g = s('g', {class: 'endpoint', 'data-endpoint': e.n});
 		g.append(s('line', {x1: ex, x2: ex, y1: M.t, y2: H - M.b}));
-		g.append(s('text', {x: ex + 5, y: M.t + 14 + 14 * ((e.n || 1) - 1)},
-			`E${e.n} ${e.volume_ml.toFixed(3)} mL`));
+		// Left of the line in the right third, so the label never runs over
+		// the derivative's axis.
+		const left = ex > M.l + (W - M.l - M.r) * 2 / 3;
+		g.append(s('text', {x: left ? ex - 5 : ex + 5, y: M.t + 14 + 14 * ((e.n || 1) - 1),
+			class: left ? 'end' : ''}, `E${e.n} ${e.volume_ml.toFixed(3)} mL`));
 		svg.append(g);
 	}
 	svg.setAttribute('data-points', String(pts.length));

@@ -11,6 +11,31 @@ function acceptBadge(a) {
 	return h('span', {class: `badge accept-${a || 'none'}`}, words[a] || a || '—');
 }
 
+// Plain words for the engine's stop codes (docs/lims.md lists them); a code
+// this page does not know is shown with spaces for underscores.
+const STOP_WORDS = {
+	endpoints_found: 'all endpoints found',
+	volume_max: 'maximum volume reached',
+	signal_limit: 'signal limit reached',
+	time_max: 'time limit reached',
+	fault: 'a device or data fault',
+	aborted: 'aborted by an operator',
+	interrupted: 'the daemon stopped during the run',
+};
+
+export function stopWords(code) {
+	if (!code) return '—';
+	return STOP_WORDS[code] || code.replaceAll('_', ' ');
+}
+
+// A volume with its standard uncertainty: u to two significant digits and
+// the volume to the same decimal place (at least the burette's 0.001 mL).
+export function withUncertainty(v, u) {
+	if (!Number.isFinite(u) || u <= 0) return fmt(v, 3);
+	const d = Math.min(6, Math.max(3, 1 - Math.floor(Math.log10(u))));
+	return `${fmt(v, d)} ± ${fmt(u, d)}`;
+}
+
 function resultText(res) {
 	return res.value === null || res.value === undefined ? '—' : String(res.value);
 }
@@ -25,8 +50,9 @@ export function runView(root, id) {
 	const msg = h('p', {class: 'view-error', role: 'alert'});
 	const facts = h('dl', {class: 'facts'});
 	const chart = newChart(`titration curve of run ${id}`);
+	const signalWord = h('span', {}, 'pH');
 	const legend = h('p', {class: 'legend'},
-		h('span', {class: 'key curve'}), 'signal ',
+		h('span', {class: 'key curve'}), signalWord, ' ',
 		h('span', {class: 'key deriv'}), 'first derivative ',
 		h('span', {class: 'key endpoint'}), 'endpoint');
 	const endpoints = h('div', {class: 'endpoints'});
@@ -75,6 +101,7 @@ export function runView(root, id) {
 			// The signal of the curve: mV when no point has a pH.
 			const points = pts.points || [];
 			signal = points.length && points.every((p) => p.ph === null) ? 'mv' : 'ph';
+			signalWord.textContent = signal === 'mv' ? 'potential' : 'pH';
 			state.textContent = rec.state + (rec.phase ? ` · ${rec.phase}` : '');
 			state.className = `badge state-${rec.state}`;
 			abort.hidden = FINAL.has(rec.state);
@@ -91,9 +118,10 @@ export function runView(root, id) {
 				...kv('queued', when(rec.queued_at)),
 				...kv('started', when(rec.started_at)),
 				...kv('ended', when(rec.ended_at)),
-				...kv('stop reason', rec.stop_reason || '—'),
-				...kv('titrant', rec.titrant ? `${rec.titrant.name}, ${rec.titrant.molarity} mol/L,`
-					+ ` titer ${fmt(rec.titrant.titer, 4)}` : '—'),
+				...kv('stop reason', stopWords(rec.stop_reason)),
+				...kv('titrant', rec.titrant ? rec.titrant.name : '—'),
+				...kv('concentration', rec.titrant ? `${fmt(rec.titrant.molarity, 4)} mol/L`
+					+ ` × titer ${fmt(rec.titrant.titer, 4)}` : '—'),
 				...kv('calibration', rec.calibration ? `slope ${fmt(rec.calibration.slope_pct, 1)} %,`
 					+ ` offset ${fmt(rec.calibration.offset_mv, 1)} mV` : 'none (mV signal)'));
 			drawChart(chart, points, rec.endpoints || [], signal);
@@ -104,8 +132,7 @@ export function runView(root, id) {
 						h('th', {}, 'pH'), h('th', {}, 'mV'), h('th', {}, 'how'))),
 					h('tbody', {}, eps.map((e) => h('tr', {},
 						h('td', {}, `E${e.n}`),
-						h('td', {}, fmt(e.volume_ml, 3) +
-							(Number.isFinite(e.u_volume_ml) ? ` ± ${fmt(e.u_volume_ml, 3)}` : '')),
+						h('td', {}, withUncertainty(e.volume_ml, e.u_volume_ml)),
 						h('td', {}, fmt(e.ph, 2)), h('td', {}, fmt(e.mv, 1)),
 						h('td', {}, e.how || '')))))
 				: h('p', {class: 'muted'}, FINAL.has(rec.state) ? 'No endpoint found.'
