@@ -98,10 +98,12 @@ static void print_record(const json_t *r)
 	json_array_foreach(res, i, e)
 	{
 		json_t *dec = json_object_get(e, "decimals");
+		const char *accept = client_str(e, "accept", "none");
+		/* The words of the page and the SVG: "none" means the method sets no limits. */
 		printf("  %-16s %s %s  %s", client_str(e, "name", "?"),
 		       client_fmt(b1, sizeof b1, client_num(e, "value"),
 		                  json_is_integer(dec) ? (int)json_integer_value(dec) : -1),
-		       client_str(e, "unit", ""), client_str(e, "accept", "none"));
+		       client_str(e, "unit", ""), strcmp(accept, "none") ? accept : "no limits");
 		const char *note = client_str(e, "note", NULL);
 		if (note)
 			printf("  (%s)", note);
