@@ -238,8 +238,11 @@ def test_calibrate(calibrated):
     assert "verdict accepted" in out
 
 
-def start(bench, sample="ORCHARD-LANE-0412", amount=2):
-    bench.fresh_beaker()
+def start(bench, sample="ORCHARD-LANE-0412", amount=2, beaker=None):
+    if beaker:
+        bench.control(f"load {beaker}")
+    else:
+        bench.fresh_beaker()
     r = cli("start", "--station", "sim1", "--method", bench.method, "--sample-id", sample,
             "--amount", amount, env=bench.env)
     assert r.returncode == 0, r.stderr
@@ -501,3 +504,41 @@ def test_lims_poller_from_the_docs(bench, finished, tmp_path):
     again = subprocess.run(["sh", str(poller)], capture_output=True, text=True, env=env,
                            timeout=60)
     assert again.returncode == 0 and again.stdout == "", again
+
+
+# ------------------------------------------------ what "finished" means (docs/lims.md)
+
+
+def test_no_endpoint_is_failed_and_wait_exits_1(bench, calibrated):
+    # A beaker with no acid (tests/scenarios/alkaline-rinse.yaml): the run stops
+    # on its own rules with no endpoint. Before, it ended `finished`, the result
+    # null with accept "none", and `wait` exited 0.
+    run = start(bench, sample="ORCHARD-RINSE-1",
+                beaker=ROOT / "tests" / "scenarios" / "alkaline-rinse.yaml")
+    w = cli("wait", run, "--timeout", 180, env=bench.env, timeout=200)
+    rec = bench.get(f"/v1/runs/{run}")
+    assert rec["state"] == "failed", rec
+    assert w.returncode == 1, (w.stdout, w.stderr)
+    assert rec["stop_reason"] in ("volume_max", "signal_limit"), rec["stop_reason"]
+    codes = [f["code"] for f in rec["faults"]]
+    assert codes == ["endpoint_missing"], rec["faults"]
+    assert "found 0 of the 1 endpoint" in rec["faults"][0]["message"]
+    assert [r["accept"] for r in rec["results"]] == ["missing"]
+    assert rec["results"][0]["value"] is None
+    pts = bench.get(f"/v1/runs/{run}/points")["points"]
+    assert len(pts) >= 3 and pts[-1]["volume_ml"] == pytest.approx(rec["dispensed_ml"], abs=0.002)
+    s = cli("show", run, env=bench.env)
+    assert "missing" in s.stdout and "endpoint_missing" in s.stdout, s.stdout
+    bench.fresh_beaker()
+
+
+def test_out_of_limits_finishes_and_wait_exits_3(bench, calibrated):
+    # The same beaker reported as 50 mL of sample instead of 2 mL: the result
+    # is 25 times smaller and below the method's 2.0 g/L. Finished (nothing
+    # went wrong) but not a pass, so `wait` exits 3 (docs/cli.md, "Exit status").
+    run = start(bench, sample="ORCHARD-LANE-0499", amount=50)
+    w = cli("wait", run, "--timeout", 180, env=bench.env, timeout=200)
+    rec = bench.get(f"/v1/runs/{run}")
+    assert rec["state"] == "finished", rec
+    assert rec["results"][0]["accept"] == "low", rec["results"]
+    assert w.returncode == 3, (w.stdout, w.stderr)

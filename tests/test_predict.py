@@ -97,3 +97,31 @@ def test_bad_input_exits_2_with_file_line_col(tmp_path):
     r = predict(str(bad), "--scenario", SCENARIO)
     assert r.returncode == 2
     assert re.search(r"weak\.yaml:\d+:\d+: .*step_aim", r.stderr), r.stderr
+
+
+def test_no_endpoint_is_failed_with_exit_1():
+    # A beaker with no acid (tests/scenarios/alkaline-rinse.yaml) against the
+    # cider method: before, predict said "finished" and exited 0.
+    args = [str(ROOT / "config/methods/cider-acidity.yaml"), "--scenario",
+            str(ROOT / "tests/scenarios/alkaline-rinse.yaml"), "--amount", "10"]
+    r = predict(*args)
+    assert r.returncode == 1, (r.stdout, r.stderr)
+    assert "outcome: failed" in r.stdout and "endpoint_missing" in r.stdout, r.stdout
+    j = json.loads(predict(*args, "--json").stdout)
+    assert j["state"] == "failed"
+    assert [f["code"] for f in j["faults"]] == ["endpoint_missing"]
+    assert [x["accept"] for x in j["results"]] == ["missing"]
+
+
+def test_out_of_limits_exits_3(tmp_path):
+    # The cider scenario (10 mL of cider, 5.36 g/L as malic acid) against the
+    # cider method with its upper limit lowered to 5.0 g/L: finished, high.
+    text = (ROOT / "config/methods/cider-acidity.yaml").read_text()
+    assert "accept: {min: 2.0, max: 10.0}" in text
+    method = tmp_path / "cider-acidity.yaml"
+    method.write_text(text.replace("accept: {min: 2.0, max: 10.0}", "accept: {min: 2.0, max: 5.0}"))
+    r = predict(str(method), "--scenario", str(ROOT / "config/scenarios/cider-acidity.yaml"),
+                "--amount", "10")
+    assert r.returncode == 3, (r.stdout, r.stderr)
+    assert re.search(r"result acidity: 5\.3\d g/L \(high\)", r.stdout), r.stdout
+    assert "outcome: finished" in r.stdout

@@ -19,7 +19,15 @@
 #define CLIENT_TIMEOUT_MS  10000 /* one request, connect to last byte */
 
 /* Exit statuses of every client command. */
-enum { CLIENT_EXIT_OK = 0, CLIENT_EXIT_FAIL = 1, CLIENT_EXIT_USAGE = 2 };
+/* Exit statuses (docs/cli.md, "Exit status"): OK only for a finished run whose
+ * results all pass or carry no limits; OUT_OF_LIMITS for a finished run with a
+ * result outside its limits; FAIL for everything else that went wrong. */
+enum {
+	CLIENT_EXIT_OK = 0,
+	CLIENT_EXIT_FAIL = 1,
+	CLIENT_EXIT_USAGE = 2,
+	CLIENT_EXIT_OUT_OF_LIMITS = 3
+};
 
 typedef struct client {
 	const char *cmd; /* "start", "show", ... for messages */

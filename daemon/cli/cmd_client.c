@@ -193,6 +193,26 @@ static double last_point_ph_of(client_t *c, const char *run_path)
 }
 
 /* The short summary printed when the run has ended. */
+/* 0 for a finished run whose results all pass or carry no limits, 3 for a
+ * finished run with a result outside its limits, 1 otherwise (docs/cli.md). */
+static int final_status(const json_t *rec)
+{
+	if (strcmp(client_str(rec, "state", "?"), "finished"))
+		return CLIENT_EXIT_FAIL;
+	size_t i;
+	const json_t *res;
+	int rc = CLIENT_EXIT_OK;
+	json_array_foreach(json_object_get(rec, "results"), i, res)
+	{
+		const char *a = client_str(res, "accept", "none");
+		if (!strcmp(a, "low") || !strcmp(a, "high"))
+			rc = CLIENT_EXIT_OUT_OF_LIMITS;
+		else if (strcmp(a, "pass") && strcmp(a, "none"))
+			return CLIENT_EXIT_FAIL; /* "missing" or a word this client does not know */
+	}
+	return rc;
+}
+
 static void print_final(long long id, const json_t *rec)
 {
 	char b[32];
@@ -333,7 +353,7 @@ int cmd_wait(int argc, char **argv)
 				if (w.tty && w.line[0])
 					fprintf(stderr, "\r\033[K");
 				print_final(id, rec);
-				rc = strcmp(state, "finished") ? CLIENT_EXIT_FAIL : CLIENT_EXIT_OK;
+				rc = final_status(rec);
 				json_decref(rec);
 				break;
 			}

@@ -80,7 +80,8 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 	}
 	printf("additions: %d, dispensed %.4f mL, refills %d, points %d\n", engine_additions(e),
 	       engine_dispensed_ml(e), engine_refills(e), engine_n_points(e));
-	printf("stopped: %s", engine_stop_name(engine_stop_reason(e)));
+	printf("outcome: %s, stopped: %s", engine_outcome_name(engine_outcome(e)),
+	       engine_stop_name(engine_stop_reason(e)));
 	if (engine_fault_code(e)[0])
 		printf(" (%s: %s)", engine_fault_code(e), engine_fault_message(e));
 	printf("\nsimulated duration: %.0f s (%.1f min)\n", out->duration_s,
@@ -94,11 +95,7 @@ static int print_json(const method_t *m, const engine_t *e, const simrun_out_t *
 	record_init(&r);
 	record_set_method(&r, m);
 	record_fill_from_engine(&r, e, "");
-	engine_stop_t why = engine_stop_reason(e);
-	snprintf(r.state, sizeof r.state, "%s",
-	         why == ENGINE_STOP_FAULT     ? "failed"
-	         : why == ENGINE_STOP_ABORTED ? "aborted"
-	                                      : "finished");
+	snprintf(r.state, sizeof r.state, "%s", engine_outcome_name(engine_outcome(e)));
 	r.sample.amount = p->amount;
 	r.titrant.titer = p->titer;
 	if (p->has_calibration) {
@@ -231,6 +228,9 @@ int cmd_predict(int argc, char **argv)
 	if (out.stuck) {
 		fprintf(stderr, "stopcock predict: the simulation did not finish (engine bug)\n");
 		rc = 1;
+	} else if (rc == 0 && !engine_outcome_clean(e)) {
+		/* The same statuses as `stopcock wait` (docs/cli.md). */
+		rc = engine_outcome(e) == ENGINE_OUTCOME_FINISHED ? 3 : 1;
 	}
 	engine_free(e);
 	return rc;

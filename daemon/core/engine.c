@@ -63,6 +63,8 @@ struct engine {
 	engine_stop_t reason;
 	char fault_code[32];
 	char fault_msg[256];
+	char eval_code[32]; /* endpoint_missing, result_missing: set by evaluate() */
+	char eval_msg[256];
 	const char *phase;
 };
 
@@ -92,6 +94,8 @@ const char *engine_accept_name(engine_accept_t a)
 		return "low";
 	case ENGINE_ACCEPT_HIGH:
 		return "high";
+	case ENGINE_ACCEPT_MISSING:
+		return "missing";
 	default:
 		return "none";
 	}
@@ -215,7 +219,7 @@ static void compute_results(engine_t *e)
 		if (st != FORMULA_OK || !isfinite(v)) {
 			r->has_value = false;
 			snprintf(r->note, sizeof r->note, "%s", msg[0] ? msg : "no value");
-			r->accept = ENGINE_ACCEPT_NONE;
+			r->accept = ENGINE_ACCEPT_MISSING;
 			continue;
 		}
 		double scale = pow(10.0, mr->decimals);
@@ -244,6 +248,32 @@ static int run_dir(const engine_t *e)
 	else if (e->m.has_signal_limit && isfinite(s0))
 		hint = e->m.signal_limit > s0 ? 1 : -1;
 	return endpoint_direction(e->pts, e->n_pts, hint);
+}
+
+/* A run that stopped by its own rules has still failed when an endpoint the
+ * method asks for is missing or a result has no value: nobody reads a null
+ * result as a pass at night (docs/lims.md, "What finished means"). */
+static void judge(engine_t *e)
+{
+	e->eval_code[0] = e->eval_msg[0] = '\0';
+	if (e->reason == ENGINE_STOP_FAULT || e->reason == ENGINE_STOP_ABORTED)
+		return;
+	if (e->n_ep < e->m.count) {
+		snprintf(e->eval_code, sizeof e->eval_code, "endpoint_missing");
+		snprintf(e->eval_msg, sizeof e->eval_msg,
+		         "found %d of the %d endpoint%s the method asks for; the run stopped on %s "
+		         "after %.4f mL",
+		         e->n_ep, e->m.count, e->m.count == 1 ? "" : "s",
+		         engine_stop_name(e->reason), e->dispensed_ml);
+		return;
+	}
+	for (int i = 0; i < e->n_res; i++)
+		if (!e->res[i].has_value) {
+			snprintf(e->eval_code, sizeof e->eval_code, "result_missing");
+			snprintf(e->eval_msg, sizeof e->eval_msg, "result '%s' has no value: %s",
+			         e->res[i].name, e->res[i].note);
+			return;
+		}
 }
 
 static void evaluate(engine_t *e)
@@ -287,6 +317,7 @@ static void evaluate(engine_t *e)
 		modelfit_refine(&c, e->pts, e->n_pts, e->ep, e->n_ep);
 	}
 	compute_results(e);
+	judge(e);
 }
 
 static engine_action_t stop(engine_t *e, engine_stop_t why)
@@ -744,12 +775,52 @@ engine_stop_t engine_stop_reason(const engine_t *e)
 
 const char *engine_fault_code(const engine_t *e)
 {
-	return e->reason == ENGINE_STOP_FAULT ? e->fault_code : "";
+	if (e->reason == ENGINE_STOP_FAULT)
+		return e->fault_code;
+	return e->st == ST_DONE ? e->eval_code : "";
 }
 
 const char *engine_fault_message(const engine_t *e)
 {
-	return e->reason == ENGINE_STOP_FAULT ? e->fault_msg : "";
+	if (e->reason == ENGINE_STOP_FAULT)
+		return e->fault_msg;
+	return e->st == ST_DONE ? e->eval_msg : "";
+}
+
+engine_outcome_t engine_outcome(const engine_t *e)
+{
+	if (e->st != ST_DONE)
+		return ENGINE_OUTCOME_NONE;
+	if (e->reason == ENGINE_STOP_ABORTED)
+		return ENGINE_OUTCOME_ABORTED;
+	if (e->reason == ENGINE_STOP_FAULT || e->eval_code[0])
+		return ENGINE_OUTCOME_FAILED;
+	return ENGINE_OUTCOME_FINISHED;
+}
+
+const char *engine_outcome_name(engine_outcome_t o)
+{
+	switch (o) {
+	case ENGINE_OUTCOME_FINISHED:
+		return "finished";
+	case ENGINE_OUTCOME_FAILED:
+		return "failed";
+	case ENGINE_OUTCOME_ABORTED:
+		return "aborted";
+	default:
+		return "";
+	}
+}
+
+bool engine_outcome_clean(const engine_t *e)
+{
+	if (engine_outcome(e) != ENGINE_OUTCOME_FINISHED)
+		return false;
+	for (int i = 0; i < e->n_res; i++)
+		if (e->res[i].accept != ENGINE_ACCEPT_PASS &&
+		    e->res[i].accept != ENGINE_ACCEPT_NONE)
+			return false;
+	return true;
 }
 
 int engine_n_points(const engine_t *e)

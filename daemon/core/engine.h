@@ -144,8 +144,20 @@ typedef enum {
 	ENGINE_ACCEPT_NONE = 0,
 	ENGINE_ACCEPT_PASS,
 	ENGINE_ACCEPT_LOW,
-	ENGINE_ACCEPT_HIGH
+	ENGINE_ACCEPT_HIGH,
+	ENGINE_ACCEPT_MISSING /* "missing": the result has no value (docs/lims.md) */
 } engine_accept_t;
+
+/* How a run ended, from the engine's point of view (docs/lims.md): FINISHED
+ * only when every endpoint the method asks for was found and every result has
+ * a value; FAILED on a fault, a missing endpoint or a result without a value;
+ * ABORTED on an ABORT event. */
+typedef enum {
+	ENGINE_OUTCOME_NONE = 0, /* not done yet */
+	ENGINE_OUTCOME_FINISHED,
+	ENGINE_OUTCOME_FAILED,
+	ENGINE_OUTCOME_ABORTED,
+} engine_outcome_t;
 
 typedef struct engine_result {
 	char name[METHOD_ID_MAX];
@@ -170,9 +182,16 @@ bool engine_done(const engine_t *e);
 const char *engine_phase(const engine_t *e);
 engine_stop_t engine_stop_reason(const engine_t *e);
 const char *engine_stop_name(engine_stop_t s); /* JSON word, "" for NONE */
-/* The fault that stopped the run (code, message), or NULL/"" when none. */
+/* The fault that failed the run (code, message), or "" when none: the one
+ * that stopped it, or else "endpoint_missing" / "result_missing" from the
+ * evaluation of a run that stopped by its own rules. */
 const char *engine_fault_code(const engine_t *e);
 const char *engine_fault_message(const engine_t *e);
+engine_outcome_t engine_outcome(const engine_t *e);
+const char *engine_outcome_name(engine_outcome_t o); /* "finished", "failed", "aborted", "" */
+/* True for a finished run whose results all pass or carry no limits: the
+ * outcome nobody has to look at again (the CLI's exit status 0). */
+bool engine_outcome_clean(const engine_t *e);
 
 int engine_n_points(const engine_t *e);
 const engine_point_t *engine_point(const engine_t *e, int i);

@@ -541,11 +541,11 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 
 static const char *final_state(const run_t *r)
 {
-	switch (engine_stop_reason(r->e)) {
-	case ENGINE_STOP_ABORTED:
+	switch (engine_outcome(r->e)) {
+	case ENGINE_OUTCOME_ABORTED:
 		return "aborted";
-	case ENGINE_STOP_FAULT:
-		return "failed";
+	case ENGINE_OUTCOME_FAILED:
+		return "failed"; /* a fault, or a missing endpoint or result */
 	default:
 		return r->interrupted ? "aborted" : "finished";
 	}

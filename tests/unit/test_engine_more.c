@@ -175,7 +175,16 @@ TEST(engine_results_accept_and_null)
 	CHECK(engine_result(e, 2)->note[0] != '\0');
 	CHECK(!engine_result(e, 3)->has_value); /* division by zero */
 	CHECK(engine_result(e, 3)->note[0] != '\0');
-	CHECK_STR(engine_accept_name(engine_result(e, 3)->accept), "none");
+	/* A result without a value is "missing", never "none" (which says the
+	 * method sets no limits), and the run is failed, not finished
+	 * (docs/lims.md, "What finished means"). */
+	CHECK_STR(engine_accept_name(engine_result(e, 3)->accept), "missing");
+	CHECK_STR(engine_accept_name(engine_result(e, 2)->accept), "missing");
+	CHECK_STR(engine_outcome_name(engine_outcome(e)), "failed");
+	CHECK_STR(engine_fault_code(e), "result_missing");
+	CHECK(strstr(engine_fault_message(e), "'high'") != NULL);
+	CHECK_STR(engine_stop_name(engine_stop_reason(e)), "endpoints_found");
+	CHECK(!engine_outcome_clean(e));
 	engine_free(e);
 
 	/* The same with a blank: 10.000 - 0.5 = 9.500 -> "high" against 9.0. */

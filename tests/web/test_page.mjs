@@ -196,6 +196,9 @@ async function main() {
 		check(ep.includes(rec.endpoints[0].volume_ml.toFixed(3)),
 			`the endpoint is marked with its volume (${ep})`);
 		check(Math.abs(rec.endpoints[0].volume_ml - 2.0) < 0.05, 'the endpoint is near 2.000 mL');
+		check((await page.getAttribute('p.outcome', 'class')).includes('good') &&
+			(await page.textContent('p.outcome')) === 'Finished: every result within its limits',
+			`the outcome in words (${await page.textContent('p.outcome')})`);
 		const csv = await page.getAttribute('a[download]', 'href');
 		const csvResp = await fetch(new globalThis.URL(csv, URL));
 		check(csvResp.ok && (await csvResp.text()).startsWith('t_s,'), 'the CSV link works');
@@ -300,6 +303,12 @@ async function main() {
 		check(halted.state === 'aborted', `the halted run is aborted (${halted.state})`);
 		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'idle');
 		await shot(page, '05-halted');
+		// The halted run's own view says so in the failure style, in words.
+		await page.goto(`${URL}/#/run/${haltId}`);
+		await page.waitForFunction(() => /^Aborted: /.test(document.querySelector('p.outcome')?.textContent || ''));
+		check((await page.getAttribute('p.outcome', 'class')).includes('bad'),
+			`an aborted run is shown in the failure style (${await page.textContent('p.outcome')})`);
+		check(!/_/.test(await page.textContent('p.outcome')), 'the reason in words, not a code');
 
 		// ---- the runs list with a filter ----
 		step('runs list');

@@ -7,7 +7,7 @@ const FINAL = new Set(['finished', 'aborted', 'failed', 'interrupted']);
 const STATES = ['queued', 'running', 'finished', 'aborted', 'failed', 'interrupted'];
 
 function acceptBadge(a) {
-	const words = {pass: 'pass', low: 'low', high: 'high', none: 'no limits'};
+	const words = {pass: 'pass', low: 'low', high: 'high', none: 'no limits', missing: 'no value'};
 	return h('span', {class: `badge accept-${a || 'none'}`}, words[a] || a || '—');
 }
 
@@ -36,6 +36,34 @@ export function withUncertainty(v, u) {
 	return `${fmt(v, d)} ± ${fmt(u, d)}`;
 }
 
+// The outcome in a sentence, and whether it needs a person (docs/lims.md,
+// "What finished means"): a failed run, or a finished one with a result
+// outside its limits, is shown in the failure style with the reason.
+export function outcomeOf(rec) {
+	const res = rec.results || [];
+	const fault = (rec.faults || [])[0];
+	const why = fault ? fault.message : stopWords(rec.stop_reason);
+	switch (rec.state) {
+	case 'finished': {
+		const off = res.filter((r) => r.accept === 'low' || r.accept === 'high');
+		if (off.length)
+			return {bad: true, text: 'Out of limits: ' + off.map((r) =>
+				`${r.name} ${resultText(r)} ${r.unit || ''} is ${r.accept === 'low' ? 'below' : 'above'} the method's limit`)
+				.join('; ')};
+		return {bad: false, text: res.some((r) => r.accept === 'pass')
+			? 'Finished: every result within its limits' : 'Finished'};
+	}
+	case 'failed':
+		return {bad: true, text: `Failed: ${why}`};
+	case 'aborted':
+		return {bad: true, text: `Aborted: ${why}`};
+	case 'interrupted':
+		return {bad: true, text: `Interrupted: ${why}`};
+	default:
+		return null;
+	}
+}
+
 function resultText(res) {
 	return res.value === null || res.value === undefined ? '—' : String(res.value);
 }
@@ -48,6 +76,7 @@ export function runView(root, id) {
 	const title = h('h1', {}, `Run ${id}`);
 	const state = h('span', {class: 'badge'}, '…');
 	const msg = h('p', {class: 'view-error', role: 'alert'});
+	const outcome = h('p', {class: 'outcome', hidden: true});
 	const facts = h('dl', {class: 'facts'});
 	const chart = newChart(`titration curve of run ${id}`);
 	const signalWord = h('span', {}, 'pH');
@@ -65,7 +94,7 @@ export function runView(root, id) {
 		h('a', {href: `/v1/runs/${id}/curve.svg`, target: '_blank', rel: 'noopener'}, 'curve as SVG'),
 		' · ',
 		h('a', {href: `/v1/runs/${id}`, target: '_blank', rel: 'noopener'}, 'record as JSON'));
-	root.append(h('div', {class: 'run-head'}, title, state, abort), msg,
+	root.append(h('div', {class: 'run-head'}, title, state, abort), msg, outcome,
 		h('div', {class: 'run-grid'},
 			h('div', {class: 'card chart-card'}, chart, legend),
 			h('div', {class: 'card'}, facts)),
@@ -103,7 +132,12 @@ export function runView(root, id) {
 			signal = points.length && points.every((p) => p.ph === null) ? 'mv' : 'ph';
 			signalWord.textContent = signal === 'mv' ? 'potential' : 'pH';
 			state.textContent = rec.state + (rec.phase ? ` · ${rec.phase}` : '');
-			state.className = `badge state-${rec.state}`;
+			const o = outcomeOf(rec);
+			// A finished run with a result out of its limits is not green.
+			state.className = `badge state-${o && o.bad && rec.state === 'finished' ? 'failed' : rec.state}`;
+			outcome.hidden = !o;
+			outcome.textContent = o ? o.text : '';
+			outcome.className = `outcome ${o && o.bad ? 'bad' : 'good'}`;
 			abort.hidden = FINAL.has(rec.state);
 			const m = rec.method || {};
 			const smp = rec.sample || {};
