@@ -97,6 +97,13 @@ class Bench:
             assert time.monotonic() < deadline, "station still offline after 15 s"
             time.sleep(0.05)
 
+    def resume(self, name="sim1"):
+        """An operator lets a station held after a restart start again
+        (POST /v1/stations/{name}/resume, docs/operations.md)."""
+        r = self.write("POST", f"/v1/stations/{name}/resume")
+        assert r.status == 200, r.body
+        return r.json()["resumed"]
+
     def stop_daemon(self, sig=signal.SIGTERM, timeout=15):
         self.daemon.send_signal(sig)
         rc = self.daemon.wait(timeout=timeout)

@@ -88,10 +88,13 @@ def kill_loop(bench, n, seed, stats):
         assert lost == 0, ("acknowledged points lost", rid, acked, after)
         assert rec["state"] in ("interrupted", "finished"), (rec["state"], rec["faults"], rec["stop_reason"], acked)
         if rec["state"] == "interrupted":
-            assert "interrupted" in rec["stop_reason"]
+            assert rec["stop_reason"] == "interrupted", rec["stop_reason"]
             assert rec["ended_at"]
         assert bench.station()["run"] is None
+        # Held until an operator resumes, when a run was on the station.
+        assert bench.station()["held"] is (rec["state"] == "interrupted")
         sim_after_restart = bench.sim_state()["dispensed_ml"]
+        bench.resume()
 
 
 @pytest.fixture(scope="module")

@@ -48,7 +48,7 @@ def test_sigkill_mid_run_leaves_an_interrupted_run_with_its_points(bench):
     rec = bench.run(rid)
     assert rec["state"] == "interrupted"
     assert rec["seq"] >= 1 and rec["ended_at"]
-    assert "interrupted" in rec["stop_reason"]
+    assert rec["stop_reason"] == "interrupted" and "daemon stopped" in rec["stop_detail"]
     after = bench.get(f"/v1/runs/{rid}/points")["points"]
     # Every point the API had shown is still there, unchanged.
     assert measured(after[:len(shown)]) == measured(shown)
@@ -64,17 +64,24 @@ def test_sigkill_mid_run_leaves_an_interrupted_run_with_its_points(bench):
     assert bench.run(rid)["state"] == "interrupted"
     assert bench.station()["run"] is None
     assert bench.get("/v1/results?after=0")["results"][-1]["id"] == rid
+    # ... and the station stays held until an operator resumes it.
+    assert bench.station()["held"] is True
+    assert bench.resume() is True
 
 
-def test_sigterm_mid_run_halts_and_aborts(bench):
+def test_sigterm_mid_run_halts_and_interrupts(bench):
+    # Stopping the daemon is not an operator's abort (docs/lims.md): the run
+    # ends `interrupted`, and the station is held after the restart.
     rid, _ = start_and_wait_for_points(bench, 2)
     shown = bench.get(f"/v1/runs/{rid}/points")["points"]
     assert bench.stop_daemon(signal.SIGTERM) == 0
     assert burette_still(bench)
     bench.start_daemon()
     rec = bench.run(rid)
-    assert rec["state"] == "aborted"
-    assert rec["stop_reason"] == "aborted"
+    assert rec["state"] == "interrupted"
+    assert rec["stop_reason"] == "interrupted"
+    assert bench.station()["held"] is True
+    assert bench.resume() is True
     after = bench.get(f"/v1/runs/{rid}/points")["points"]
     assert measured(after[:len(shown)]) == measured(shown)
 

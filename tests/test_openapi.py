@@ -443,6 +443,10 @@ def test_every_operation_answers_as_documented(daemon):
     assert st == 200
     st, _ = do("post", "/v1/stations/{name}/halt", "/v1/stations/no-such-station/halt")
     assert st == 404
+    st, body = do("post", "/v1/stations/{name}/resume", f"/v1/stations/{station}/resume")
+    assert st == 200 and body["resumed"] is False, body
+    st, _ = do("post", "/v1/stations/{name}/resume", "/v1/stations/no-such-station/resume")
+    assert st == 404
 
     # A calibration; the station may still be winding down the aborted run.
     end = time.monotonic() + 10

@@ -15,6 +15,7 @@ int cmd_show(int argc, char **argv);
 int cmd_wait(int argc, char **argv);
 int cmd_abort(int argc, char **argv);
 int cmd_halt(int argc, char **argv);
+int cmd_resume(int argc, char **argv);
 int cmd_calibrate(int argc, char **argv);
 int cmd_titrants(int argc, char **argv); /* cmd_audit.c */
 int cmd_events(int argc, char **argv);

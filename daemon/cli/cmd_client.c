@@ -112,6 +112,14 @@ static void print_station(client_t *c, const json_t *st)
 	       client_fmt(b1, sizeof b1, client_num(rd, "ph"), 2),
 	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp, age, dispensed, syringe,
 	       runs);
+	/* What needs a person, under the station's line. */
+	if (json_is_true(json_object_get(bu, "halt_pending")))
+		printf("  burette not confirmed halted: %s\n",
+		       client_str(st, "error", "no answer"));
+	const char *held = client_str(st, "held_reason", NULL);
+	if (held)
+		printf("  held: %s (stopcock resume --station %s)\n", held,
+		       client_str(st, "name", "?"));
 }
 
 int cmd_status(int argc, char **argv)
@@ -398,13 +406,15 @@ int cmd_abort(int argc, char **argv)
 	return client_exit(&c, rc);
 }
 
-int cmd_halt(int argc, char **argv)
+/* halt and resume: one POST to the station, one line on success. */
+static int station_post(int argc, char **argv, const char *cmd, const char *done)
 {
-	static const char usage[] = "halt --station N";
+	char usage[64];
 	const char *station = NULL;
 	const client_arg_t args[] = {{"station", &station, NULL}, {NULL, NULL, NULL}};
 	client_t c;
-	client_init(&c, "halt");
+	snprintf(usage, sizeof usage, "%s --station N", cmd);
+	client_init(&c, cmd);
 	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
 	if (early >= 0)
 		return early;
@@ -414,11 +424,25 @@ int cmd_halt(int argc, char **argv)
 		return client_usage(&c, usage, "--station is needed");
 	char seg[200], path[256];
 	client_escape_segment(station, seg, sizeof seg);
-	snprintf(path, sizeof path, "/v1/stations/%s/halt", seg);
+	snprintf(path, sizeof path, "/v1/stations/%s/%s", seg, cmd);
 	json_t *reply = NULL;
 	int rc = client_json(&c, "POST", path, NULL, true, &reply, NULL);
-	if (rc == 0)
-		printf("station %s halted\n", station);
+	if (rc == 0) {
+		if (!strcmp(cmd, "resume") && json_is_false(json_object_get(reply, "resumed")))
+			printf("station %s was not held\n", station);
+		else
+			printf("station %s %s\n", station, done);
+	}
 	json_decref(reply);
 	return client_exit(&c, rc);
+}
+
+int cmd_halt(int argc, char **argv)
+{
+	return station_post(argc, argv, "halt", "halted");
+}
+
+int cmd_resume(int argc, char **argv)
+{
+	return station_post(argc, argv, "resume", "resumed: its queued runs may start");
 }

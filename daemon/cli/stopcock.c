@@ -19,6 +19,7 @@ static const struct {
     {"wait", cmd_wait, "wait RUN [--timeout S]"},
     {"abort", cmd_abort, "abort RUN"},
     {"halt", cmd_halt, "halt --station N"},
+    {"resume", cmd_resume, "resume --station N            let a held station start again"},
     {"calibrate", cmd_calibrate, "calibrate --station N --buffers 4.01,7.00,10.01"},
     {"titrants", cmd_titrants,
      "titrants                      stored titers and how they were found"},

@@ -5,6 +5,29 @@
 #include <stdio.h>
 #include <string.h>
 
+const char *const record_stop_codes[] = {
+    "endpoints_found", "volume_max", "signal_limit", "time_max",
+    "fault",           "aborted",    "interrupted",  NULL,
+};
+
+const char *record_stop_words(const char *code)
+{
+	static const char *const words[][2] = {
+	    {"endpoints_found", "every endpoint the method asks for was found, and the volume past "
+	                        "the last one was added"},
+	    {"volume_max", "the method's or the vessel's maximum volume was reached"},
+	    {"signal_limit", "the signal passed the method's signal_limit"},
+	    {"time_max", "the method's time_max_s passed"},
+	    {"fault", "a fault stopped the run"},
+	    {"aborted", "an operator aborted the run or halted the station"},
+	    {"interrupted", "the daemon stopped during the run"},
+	};
+	for (size_t i = 0; code && i < sizeof words / sizeof words[0]; i++)
+		if (!strcmp(code, words[i][0]))
+			return words[i][1];
+	return code ? code : "";
+}
+
 void record_init(run_record_t *r)
 {
 	memset(r, 0, sizeof *r);
@@ -72,6 +95,12 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		snprintf(r->stop_reason, sizeof r->stop_reason, "%s",
 		         engine_stop_name(engine_stop_reason(e)));
 		const char *code = engine_fault_code(e);
+		if (code && code[0] && engine_stop_reason(e) == ENGINE_STOP_FAULT)
+			snprintf(r->stop_detail, sizeof r->stop_detail, "%s",
+			         engine_fault_message(e));
+		else
+			snprintf(r->stop_detail, sizeof r->stop_detail, "%s",
+			         record_stop_words(r->stop_reason));
 		if (code && code[0]) {
 			bool listed = false;
 			for (int i = 0; i < r->n_faults; i++)
@@ -83,6 +112,7 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 	} else {
 		snprintf(r->phase, sizeof r->phase, "%s", engine_phase(e));
 		r->stop_reason[0] = '\0';
+		r->stop_detail[0] = '\0';
 	}
 }
 
@@ -221,6 +251,7 @@ json_t *record_to_json(const run_record_t *r)
 	put(o, "additions", json_integer(r->additions), &ok);
 	put(o, "dispensed_ml", record_real_or_null(r->dispensed_ml), &ok);
 	put(o, "stop_reason", str_or_null(r->stop_reason), &ok);
+	put(o, "stop_detail", str_or_null(r->stop_detail), &ok);
 
 	json_t *fl = json_array();
 	for (int i = 0; fl && i < r->n_faults; i++) {

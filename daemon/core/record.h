@@ -94,7 +94,8 @@ typedef struct run_record {
 	record_result_t results[METHOD_MAX_RESULTS];
 	int additions;
 	double dispensed_ml;
-	char stop_reason[24]; /* engine_stop_name(); "" -> null */
+	char stop_reason[24];  /* a code of record_stop_codes (docs/lims.md); "" -> null */
+	char stop_detail[256]; /* the same in words, for a person; "" -> null */
 	int n_faults;
 	record_fault_t faults[RECORD_MAX_FAULTS];
 
@@ -126,5 +127,12 @@ json_t *record_point_to_json(const engine_point_t *p);
 
 /* A real, or null for NaN/inf (new reference). */
 json_t *record_real_or_null(double v);
+
+/* The one list of stop_reason codes (docs/lims.md, "Why a run stopped"):
+ * the engine's (engine_stop_name) and "interrupted" (the daemon stopped
+ * during the run). NULL-terminated. */
+extern const char *const record_stop_codes[];
+/* Words a person reads for a stop_reason code; the code itself when unknown. */
+const char *record_stop_words(const char *code);
 
 #endif

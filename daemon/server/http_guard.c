@@ -504,6 +504,7 @@ static const struct {
     {"/v1/health", "GET, HEAD"},
     {"/v1/stations", "GET, HEAD"},
     {"/v1/stations/*/halt", "POST"},
+    {"/v1/stations/*/resume", "POST"},
     {"/v1/methods", "GET, HEAD"},
     {"/v1/methods/*", "GET, HEAD, PUT"},
     {"/v1/methods/*/check", "POST"},

@@ -46,12 +46,15 @@ static json_t *station_json(station_t *st)
 	    json_pack("{s:o,s:o,s:o,s:b}", "dispensed_ml", json_real(s.dispensed_ml), "capacity_ml",
 	              real_or_null(s.capacity_ml > 0, s.capacity_ml), "contents_ml",
 	              real_or_null(s.has_burette, s.contents_ml), "halt_pending", s.halt_pending);
-	return json_pack("{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o}", "name", s.name, "state", s.state,
-	                 "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading",
+	/* A held station that runs nothing says so in its state (docs/api.md). */
+	const char *state = s.held && !s.run_id && !strcmp(s.state, "idle") ? "held" : s.state;
+	return json_pack("{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o}", "name", s.name, "state",
+	                 state, "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading",
 	                 reading, "burette", burette, "run",
 	                 s.run_id ? json_integer(s.run_id) : json_null(), "vessel_max_ml",
 	                 s.vessel_max_ml, "queued", s.queued, "error",
-	                 s.last_error[0] ? json_string(s.last_error) : json_null());
+	                 s.last_error[0] ? json_string(s.last_error) : json_null(), "held", s.held,
+	                 "held_reason", s.held ? json_string(s.held_reason) : json_null());
 }
 
 static void get_stations(const http_req_t *q, http_reply_t *r)
@@ -77,6 +80,35 @@ static void post_halt(const http_req_t *q, const char *name, http_reply_t *r)
 	http_reply_json(r, 200,
 	                json_pack("{s:s,s:b,s:o}", "station", name, "halted", 1, "run",
 	                          s.run_id ? json_integer(s.run_id) : json_null()));
+}
+
+static void post_resume(const http_req_t *q, const char *name, http_reply_t *r)
+{
+	station_t *st = http_find_station(q->ctx, name);
+	char why[200];
+	station_snapshot_t s;
+
+	if (!st) {
+		http_reply_error(r, 404, "not_found", "no station '%s'", name);
+		return;
+	}
+	station_snapshot(st, &s);
+	switch (station_resume(st, why, sizeof why)) {
+	case STATION_RESUME_BLOCKED:
+		http_reply_error(r, 409, "conflict", "station %s cannot resume yet: %s", name, why);
+		return;
+	case STATION_RESUME_NOT_HELD:
+		http_reply_json(
+		    r, 200,
+		    json_pack("{s:s,s:b,s:i}", "station", name, "resumed", 0, "queued", s.queued));
+		return;
+	case STATION_RESUMED:
+		break;
+	}
+	http_audit(q, name, 0, "resume", "resumed",
+	           "station resumed through the API (was held: %s)", s.held_reason);
+	http_reply_json(
+	    r, 200, json_pack("{s:s,s:b,s:i}", "station", name, "resumed", 1, "queued", s.queued));
 }
 
 static void get_method(const http_req_t *q, const char *id, http_reply_t *r)
@@ -310,7 +342,10 @@ bool http_route_misc(const http_req_t *q, const char *const *seg, int n, http_re
 			get_stations(q, r);
 		else if (n == 4 && !strcmp(seg[3], "halt") && !strcmp(q->method, "POST"))
 			post_halt(q, seg[2], r);
-		else if (n == 2 || (n == 4 && !strcmp(seg[3], "halt")))
+		else if (n == 4 && !strcmp(seg[3], "resume") && !strcmp(q->method, "POST"))
+			post_resume(q, seg[2], r);
+		else if (n == 2 ||
+		         (n == 4 && (!strcmp(seg[3], "halt") || !strcmp(seg[3], "resume"))))
 			method_not_allowed(q, r);
 		else
 			return false;

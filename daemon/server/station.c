@@ -637,7 +637,7 @@ static void *station_main(void *arg)
 			break;
 		}
 		/* nothing starts on a burette that may still be moving */
-		if (s->qn && !unstored && !s->halt_pending &&
+		if (s->qn && !unstored && !s->halt_pending && !s->snap.held &&
 		    !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
 			job = s->queue[0];
 			memmove(s->queue, s->queue + 1, (size_t)(s->qn - 1) * sizeof s->queue[0]);
@@ -686,14 +686,11 @@ static void *station_main(void *arg)
 		drv_err_t err = {{0}};
 		drv_stirrer_set(&s->stir, false, 0, &err);
 	}
+	/* Queued runs stay `queued` in the store: the next start queues them
+	 * again and holds the station until an operator resumes it. */
 	pthread_mutex_lock(&s->lock);
-	while (s->qn) {
-		station_job_t *job = s->queue[--s->qn];
-		station_unlock(s);
-		station_abort_queued(s, job, "the daemon stopped before the run started");
-		free(job);
-		pthread_mutex_lock(&s->lock);
-	}
+	while (s->qn)
+		free(s->queue[--s->qn]);
 	station_unlock(s);
 	return NULL;
 }
@@ -772,6 +769,43 @@ int station_enqueue(station_t *s, const station_job_t *job)
 	pthread_cond_broadcast(&s->cond);
 	station_unlock(s);
 	return 0;
+}
+
+void station_hold(station_t *s, const char *reason)
+{
+	pthread_mutex_lock(&s->lock);
+	s->snap.held = true;
+	snprintf(s->snap.held_reason, sizeof s->snap.held_reason, "%s", reason);
+	station_unlock(s);
+	log_notice("station %s: held: %s", s->name, reason);
+}
+
+void station_block_resume(station_t *s, const char *why)
+{
+	pthread_mutex_lock(&s->lock);
+	snprintf(s->resume_blocked, sizeof s->resume_blocked, "%s", why ? why : "");
+	station_unlock(s);
+}
+
+station_resume_t station_resume(station_t *s, char *why, size_t cap)
+{
+	station_resume_t rc = STATION_RESUMED;
+
+	pthread_mutex_lock(&s->lock);
+	if (s->resume_blocked[0]) {
+		snprintf(why, cap, "%s", s->resume_blocked);
+		rc = STATION_RESUME_BLOCKED;
+	} else if (!s->snap.held) {
+		rc = STATION_RESUME_NOT_HELD;
+	} else {
+		s->snap.held = false;
+		s->snap.held_reason[0] = '\0';
+		pthread_cond_broadcast(&s->cond);
+	}
+	station_unlock(s);
+	if (rc == STATION_RESUMED)
+		log_notice("station %s: resumed by an operator", s->name);
+	return rc;
 }
 
 station_cmd_t station_abort(station_t *s, int64_t run_id)

@@ -63,6 +63,8 @@ typedef struct station_snapshot {
 	bool halt_pending;     /* a halt the burette did not acknowledge; tried
 	                        * again until it does */
 	uint64_t heartbeat_us; /* notify_now_us() of the thread's last loop */
+	bool held;             /* nothing starts until an operator resumes the station */
+	char held_reason[200]; /* why, for the status; "" when not held */
 } station_snapshot_t;
 
 /* Configure the drivers from the config (no I/O). NULL with errors in d. */
@@ -132,6 +134,20 @@ typedef enum {
 station_cmd_t station_abort(station_t *s, int64_t run_id);
 /* Halt the burette at once; the current run becomes aborted. */
 station_cmd_t station_halt(station_t *s);
+
+/* Hold the station: no run starts (queued runs wait) until station_resume().
+ * The daemon holds a station at start-up when it had a running or queued run,
+ * because nobody knows what is in the beaker (docs/operations.md). */
+void station_hold(station_t *s, const char *reason);
+/* While the start-up could not yet mark the last daemon's running runs
+ * interrupted, a hold cannot be lifted (why says so). */
+void station_block_resume(station_t *s, const char *why);
+typedef enum {
+	STATION_RESUMED = 0,
+	STATION_RESUME_NOT_HELD = 1,
+	STATION_RESUME_BLOCKED = -1, /* why filled */
+} station_resume_t;
+station_resume_t station_resume(station_t *s, char *why, size_t cap);
 
 /* Electrode calibration (calib.h), run by the station thread between runs.
  * station_calib_start() makes a session for the buffers and stores it;

@@ -89,10 +89,11 @@ struct station {
 	 * again at halt_next_s, in a run and while idle; no run starts until
 	 * it is acknowledged. */
 	bool halt_pending;
-	int halt_tries;        /* failed tries since the first */
-	double halt_next_s;    /* monotonic s */
-	char halt_why[64];     /* why the first halt was sent */
-	double pending_next_s; /* monotonic time of the next try */
+	int halt_tries;           /* failed tries since the first */
+	double halt_next_s;       /* monotonic s */
+	char halt_why[64];        /* why the first halt was sent */
+	double pending_next_s;    /* monotonic time of the next try */
+	char resume_blocked[160]; /* why a hold cannot be lifted yet; "" when it can */
 };
 
 /* Publish snap for readers and release `lock` (use after any change of snap). */

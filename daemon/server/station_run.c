@@ -730,9 +730,29 @@ int station_store_pending(station_t *s, bool now)
 	return 0;
 }
 
+/* Why a run ended early by a command, not by itself: "interrupted" (the
+ * daemon is stopping), "halted" (the station's halt), "aborted" (the run's
+ * abort); "" otherwise. Read at the end of the run, before the station
+ * clears its requests. */
+static const char *cut_by(run_t *r)
+{
+	station_t *s = r->s;
+	const char *why = "";
+
+	if (!r->interrupted && engine_outcome(r->e) != ENGINE_OUTCOME_ABORTED)
+		return why;
+	pthread_mutex_lock(&s->lock);
+	why = s->stop_req ? "interrupted" : s->halt_req ? "halted" : "aborted";
+	pthread_mutex_unlock(&s->lock);
+	return why;
+}
+
 static void finish(run_t *r)
 {
-	const char *state = final_state(r);
+	const char *cut = cut_by(r);
+	/* Stopping the daemon is not an operator's abort: the run is
+	 * interrupted (docs/lims.md). */
+	const char *state = !strcmp(cut, "interrupted") ? "interrupted" : final_state(r);
 	char *text;
 	int64_t seq = 0;
 	int n = engine_n_points(r->e);
@@ -761,6 +781,26 @@ static void finish(run_t *r)
 		free(text);
 		json_object_set_new(j, "phase", json_null());
 		json_object_set_new(j, "state", json_string(state));
+		if (cut[0]) {
+			/* Halts, aborts and a stop of the daemon are in the faults, as
+			 * docs/lims.md says, with the reason in words. */
+			const char *words =
+			    !strcmp(cut, "interrupted")
+			        ? "the daemon was stopped (SIGTERM or SIGINT) during the run; the "
+			          "burette was halted"
+			    : !strcmp(cut, "halted")
+			        ? "an operator halted the station during the run"
+			        : "an operator aborted the run";
+			json_t *fl = json_object_get(j, "faults");
+			json_object_set_new(
+			    j, "stop_reason",
+			    json_string(!strcmp(cut, "interrupted") ? "interrupted" : "aborted"));
+			json_object_set_new(j, "stop_detail", json_string(words));
+			if (json_is_array(fl))
+				json_array_append_new(fl, json_pack("{s:s,s:s,s:s}", "at",
+				                                    r->rec.ended_at, "code", cut,
+				                                    "message", words));
+		}
 		if (note.have)
 			json_object_set_new(j, "standardization", stdz_json(&note));
 		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));

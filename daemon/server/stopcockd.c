@@ -22,10 +22,14 @@
 #include "log.h"
 #include "method.h"
 #include "notify.h"
+#include "recover.h"
 #include "station.h"
 #include "store.h"
 
 #define READY_WAIT_S 15.0 /* how long start-up waits for devices to answer */
+/* How often the daemon notes in the database that it is alive: the end time
+ * of a run a crash cut is at most this much before the crash (docs/lims.md). */
+#define HEARTBEAT_S 5.0
 
 typedef struct opts {
 	const char *config;
@@ -287,6 +291,8 @@ int main(int argc, char **argv)
 	char err[512];
 	int rc = 1, n = 0;
 	uint64_t wd_us;
+	bool stale_pending = false;
+	double beat_s = 0, stale_try_s = 0;
 
 	sigemptyset(&set);
 	sigaddset(&set, SIGTERM);
@@ -376,18 +382,10 @@ int main(int argc, char **argv)
 		log_err("%s", err);
 		goto out;
 	}
-	{
-		char at[32];
-		int k;
-		store_time_rfc3339(store_now_unix_s(), at);
-		k = store_interrupt_stale(store, at);
-		if (k > 0)
-			log_notice("%d run%s left by the last daemon marked interrupted", k,
-			           k == 1 ? "" : "s");
-		else if (k < 0)
-			log_err("could not mark stale runs interrupted");
-	}
 	ctx.store = store;
+	/* Running runs become interrupted, queued ones are queued again, and
+	 * their stations are held until an operator resumes them (recover.h). */
+	stale_pending = !recover_start(&ctx);
 	if (cfg.methods_dir[0]) {
 		diag_list_t md = DIAG_LIST_INIT;
 		load_methods_dir(cfg.methods_dir, &lim, store, &md);
@@ -469,14 +467,39 @@ int main(int argc, char **argv)
 				notify_watchdog();
 		}
 		set_status(stations, n);
+		{
+			double now = store_now_unix_s();
+			if (now - beat_s >= HEARTBEAT_S) {
+				char at[32];
+				beat_s = now;
+				store_time_rfc3339(now, at);
+				store_heartbeat(store,
+				                at); /* a refused beat costs only precision */
+			}
+			if (stale_pending && now - stale_try_s >= RECOVER_RETRY_S) {
+				stale_try_s = now;
+				stale_pending = !recover_retry(&ctx);
+			}
+		}
 	}
 	notify_stopping();
 	rc = 0;
 out:
-	/* Stations first: each halts its burette and writes its run's end. */
-	for (int i = 0; i < cfg.n_stations; i++)
-		if (stations[i])
-			station_stop(stations[i]); /* no-op when not started */
+	/* Stations first: each halts its burette and writes its run's end. The
+	 * ones that had a run are held at the next start (recover.h). */
+	{
+		bool had_run[CFG_MAX_STATIONS] = {false};
+		for (int i = 0; i < n && ctx.store; i++) {
+			station_snapshot_t s;
+			station_snapshot(stations[i], &s);
+			had_run[i] = s.run_id != 0;
+		}
+		for (int i = 0; i < cfg.n_stations; i++)
+			if (stations[i])
+				station_stop(stations[i]); /* no-op when not started */
+		if (ctx.store)
+			recover_note_holds(&ctx, had_run);
+	}
 	http_stop(http);
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);

@@ -1,6 +1,7 @@
 /* store.c: see store.h. Write paths; read paths are in store_read.c. */
 #include "store.h"
 #include "store_priv.h"
+#include "timefmt.h"
 
 #include <math.h>
 #include <pthread.h>
@@ -52,6 +53,8 @@ static const char *const migrations[] = {
      * "signal"); titrants keep the replicate statistics of their titer. */
     "ALTER TABLE events ADD COLUMN actor TEXT;"
     "ALTER TABLE titrants ADD COLUMN replicates TEXT;",
+    /* 2 -> 3: the daemon's heartbeat, for the end time of a run a crash cut. */
+    "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -277,7 +280,8 @@ static int64_t next_seq(store_t *s)
 	return seq;
 }
 
-/* Patch a stored record for a run that will never continue. */
+/* Patch a stored record for a run that will never continue: the state, its
+ * end, stop_reason `interrupted` with the words in stop_detail, and a fault. */
 static char *patch_record(const char *text, const char *state, const char *at, const char *why)
 {
 	json_t *j = text ? json_loads(text, 0, NULL) : NULL;
@@ -290,43 +294,86 @@ static char *patch_record(const char *text, const char *state, const char *at, c
 	json_object_set_new(j, "state", json_string(state));
 	json_object_set_new(j, "phase", json_null());
 	json_object_set_new(j, "ended_at", json_string(at));
-	json_object_set_new(j, "stop_reason", json_string(why));
+	json_object_set_new(j, "stop_reason", json_string("interrupted"));
+	json_object_set_new(j, "stop_detail", json_string(why));
+	json_t *faults = json_object_get(j, "faults");
+	if (!json_is_array(faults)) {
+		faults = json_array();
+		json_object_set_new(j, "faults", faults);
+	}
+	json_array_append_new(
+	    faults, json_pack("{s:s,s:s,s:s}", "at", at, "code", "interrupted", "message", why));
 	out = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
 	json_decref(j);
 	return out;
 }
 
-int store_interrupt_stale(store_t *s, const char *at)
+/* The last moment the daemon held run `id`: the later of the heartbeat and
+ * the run's last point (started_at + t_s), never after `now`; `now` when
+ * neither is known. */
+static void last_held(store_t *s, int64_t id, const char *started_at, const char *now, char out[32])
+{
+	double now_s = 0, best = -1, t;
+	sqlite3_stmt *st;
+
+	snprintf(out, 32, "%s", now);
+	if (!time_parse_rfc3339(now, &now_s))
+		return;
+	if (sqlite3_prepare_v2(s->w, "SELECT value FROM meta WHERE key='heartbeat_at'", -1, &st,
+	                       NULL) == SQLITE_OK) {
+		if (sqlite3_step(st) == SQLITE_ROW &&
+		    time_parse_rfc3339((const char *)sqlite3_column_text(st, 0), &t))
+			best = t;
+		sqlite3_finalize(st);
+	}
+	if (started_at && time_parse_rfc3339(started_at, &t) &&
+	    sqlite3_prepare_v2(s->w, "SELECT MAX(t_s) FROM points WHERE run_id=?", -1, &st, NULL) ==
+	        SQLITE_OK) {
+		sqlite3_bind_int64(st, 1, id);
+		if (sqlite3_step(st) == SQLITE_ROW && sqlite3_column_type(st, 0) != SQLITE_NULL)
+			t += sqlite3_column_double(st, 0);
+		if (t > best)
+			best = t;
+		sqlite3_finalize(st);
+	}
+	if (best > 0 && best < now_s)
+		time_format_rfc3339(best, out);
+}
+
+int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *station, void *arg),
+                          void *arg)
 {
 	sqlite3_stmt *st = NULL;
 	int n = 0;
+	const char *why = "the daemon stopped while the run was running (a crash, a power cut or "
+	                  "a kill); nothing is known of the beaker after ended_at";
 
 	pthread_mutex_lock(&s->wlock);
 	if (begin(s))
 		goto fail;
 	/* Oldest first, so seq follows the order the runs were queued. */
 	if (sqlite3_prepare_v2(s->w,
-	                       "SELECT id, state, record FROM runs WHERE state IN "
-	                       "('running','queued') ORDER BY id",
+	                       "SELECT id, station, started_at, record FROM runs WHERE "
+	                       "state='running' ORDER BY id",
 	                       -1, &st, NULL) != SQLITE_OK)
 		goto fail_tx;
 	while (sqlite3_step(st) == SQLITE_ROW) {
 		int64_t id = sqlite3_column_int64(st, 0);
-		const char *was = (const char *)sqlite3_column_text(st, 1);
-		const char *why = was && !strcmp(was, "running")
-		                      ? "interrupted: the daemon stopped while the run was "
-		                        "running"
-		                      : "interrupted: the daemon stopped before the run started";
-		char *rec =
-		    patch_record((const char *)sqlite3_column_text(st, 2), "interrupted", at, why);
+		char ended[32];
+		last_held(s, id, (const char *)sqlite3_column_text(st, 2), at, ended);
+		char *rec = patch_record((const char *)sqlite3_column_text(st, 3), "interrupted",
+		                         ended, why);
 		int64_t seq = next_seq(s);
 		int rc = exec_w(s,
 		                "UPDATE runs SET state='interrupted', phase=NULL, ended_at=?, "
-		                "stop_reason=?, seq=?, record=COALESCE(?, record) WHERE id=?",
-		                "ttiti", at, why, seq, rec, id);
+		                "stop_reason='interrupted', seq=?, record=COALESCE(?, record) "
+		                "WHERE id=?",
+		                "titi", ended, seq, rec, id);
 		free(rec);
 		if (seq < 0 || rc != SQLITE_DONE)
 			goto fail_tx;
+		if (held)
+			held((const char *)sqlite3_column_text(st, 1), arg);
 		n++;
 	}
 	sqlite3_finalize(st);
@@ -341,6 +388,89 @@ fail_tx:
 fail:
 	pthread_mutex_unlock(&s->wlock);
 	return -1;
+}
+
+store_status_t store_heartbeat(store_t *s, const char *at)
+{
+	int rc;
+
+	pthread_mutex_lock(&s->wlock);
+	rc =
+	    exec_w(s, "INSERT OR REPLACE INTO meta(key, value) VALUES('heartbeat_at', ?)", "t", at);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+store_status_t store_hold_note(store_t *s, const char *station, const char *reason)
+{
+	char key[96];
+	int rc;
+
+	snprintf(key, sizeof key, "hold:%s", station);
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s, "INSERT OR REPLACE INTO meta(key, value) VALUES(?, ?)", "tt", key, reason);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+int store_hold_notes_take(store_t *s,
+                          void (*cb)(const char *station, const char *reason, void *arg), void *arg)
+{
+	sqlite3_stmt *st = NULL;
+	int n = 0;
+
+	pthread_mutex_lock(&s->wlock);
+	if (sqlite3_prepare_v2(s->w,
+	                       "SELECT substr(key, 6), value FROM meta WHERE key LIKE 'hold:%'", -1,
+	                       &st, NULL) != SQLITE_OK) {
+		pthread_mutex_unlock(&s->wlock);
+		return -1;
+	}
+	while (sqlite3_step(st) == SQLITE_ROW) {
+		cb((const char *)sqlite3_column_text(st, 0),
+		   (const char *)sqlite3_column_text(st, 1), arg);
+		n++;
+	}
+	sqlite3_finalize(st);
+	/* Taken: a later start holds only for its own reasons. A refused delete
+	 * holds once more at the next start, the safe side. */
+	exec_w(s, "DELETE FROM meta WHERE key LIKE 'hold:%'", "");
+	pthread_mutex_unlock(&s->wlock);
+	return n;
+}
+
+json_t *store_runs_queued(store_t *s)
+{
+	sqlite3_stmt *st = NULL;
+	json_t *list = json_array();
+
+	pthread_mutex_lock(&s->wlock);
+	if (!list ||
+	    sqlite3_prepare_v2(s->w,
+	                       "SELECT id, station, method_id, method_revision, sample_id, "
+	                       "amount, queued_at, record FROM runs WHERE state='queued' "
+	                       "ORDER BY id",
+	                       -1, &st, NULL) != SQLITE_OK) {
+		pthread_mutex_unlock(&s->wlock);
+		json_decref(list);
+		return NULL;
+	}
+	while (sqlite3_step(st) == SQLITE_ROW) {
+		const char *rec = (const char *)sqlite3_column_text(st, 7);
+		json_array_append_new(
+		    list,
+		    json_pack("{s:I,s:s,s:s,s:I,s:s,s:f,s:s,s:s}", "id",
+		              (json_int_t)sqlite3_column_int64(st, 0), "station",
+		              (const char *)sqlite3_column_text(st, 1), "method_id",
+		              (const char *)sqlite3_column_text(st, 2), "method_revision",
+		              (json_int_t)sqlite3_column_int64(st, 3), "sample_id",
+		              (const char *)sqlite3_column_text(st, 4), "amount",
+		              sqlite3_column_double(st, 5), "queued_at",
+		              (const char *)sqlite3_column_text(st, 6), "record", rec ? rec : ""));
+	}
+	sqlite3_finalize(st);
+	pthread_mutex_unlock(&s->wlock);
+	return list;
 }
 
 /* ---- methods ---- */

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 2
+#define STORE_SCHEMA_VERSION 3
 
 typedef struct store store_t;
 
@@ -42,10 +42,18 @@ double store_now_unix_s(void);
 
 /* ---- start-up ---- */
 
-/* Runs left `running` or `queued` by a daemon that died become `interrupted`
- * (points kept, seq assigned, stop_reason says why). Returns how many, -1 on
- * error. */
-int store_interrupt_stale(store_t *s, const char *at);
+/* Runs left `running` by a daemon that stopped become `interrupted` (points
+ * kept, seq assigned, stop_reason "interrupted", stop_detail and a fault say
+ * why). Their ended_at is the last moment the daemon is known to have held
+ * them: the later of its last heartbeat (store_heartbeat) and the run's last
+ * point, never after `at`. `held` is called with each such run's station.
+ * Queued runs stay queued (store_runs_queued). Returns how many, -1 on error
+ * (the caller tries again: docs/operations.md). */
+int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *station, void *arg),
+                          void *arg);
+/* Runs still `queued`, oldest first: [{"id","station","method_id",
+ * "method_revision","sample_id","amount","queued_at","record"}]; NULL on error. */
+json_t *store_runs_queued(store_t *s);
 
 /* ---- methods ---- */
 
@@ -57,6 +65,17 @@ typedef enum {
 	STORE_UNCHANGED = 3, /* the same revision with the same bytes is already stored */
 } store_status_t;
 
+/* The daemon is alive at `at`: kept in the database so that a crash leaves
+ * the last moment it held its runs (a few seconds apart, from the main loop). */
+store_status_t store_heartbeat(store_t *s, const char *at);
+/* A station to hold at the next start (a run was on it when the daemon was
+ * stopped), and the taking of those notes at start: cb for each, then
+ * they are gone. */
+store_status_t store_hold_note(store_t *s, const char *station, const char *reason);
+int store_hold_notes_take(store_t *s,
+                          void (*cb)(const char *station, const char *reason, void *arg),
+                          void *arg);
+
 /* Store a new revision. STORE_CONFLICT (with *stored_rev) when revision is
  * not above the stored one, except STORE_UNCHANGED for identical text at the
  * stored revision (a reload of an unchanged file). `source` is "file" or "api". */
@@ -64,6 +83,9 @@ store_status_t store_method_put(store_t *s, const char *id, long revision, const
                                 const char *text, size_t len, const char *source, long *stored_rev);
 
 /* Latest revision's text (malloc'd), revision and sha256. */
+/* One stored revision (want > 0), or the latest (want 0). */
+store_status_t store_method_revision(store_t *s, const char *id, long want, char **text,
+                                     size_t *len, long *revision, char sha256[65]);
 store_status_t store_method_latest(store_t *s, const char *id, char **text, size_t *len,
                                    long *revision, char sha256[65]);
 json_t *store_method_json(store_t *s, const char *id, bool *db_err); /* latest, with text */

@@ -104,14 +104,21 @@ static json_t *col_json_real(sqlite3_stmt *st, int i)
 store_status_t store_method_latest(store_t *s, const char *id, char **text, size_t *len,
                                    long *revision, char sha256[65])
 {
+	return store_method_revision(s, id, 0, text, len, revision, sha256);
+}
+
+store_status_t store_method_revision(store_t *s, const char *id, long want, char **text,
+                                     size_t *len, long *revision, char sha256[65])
+{
 	rq_t q;
 	store_status_t ret = STORE_NOT_FOUND;
 
 	if (rq_open(&q, s,
-	            "SELECT text, revision, sha256 FROM methods WHERE id=? "
-	            "ORDER BY revision DESC LIMIT 1"))
+	            "SELECT text, revision, sha256 FROM methods WHERE id=?1 "
+	            "AND (?2 = 0 OR revision = ?2) ORDER BY revision DESC LIMIT 1"))
 		return STORE_ERR;
 	sqlite3_bind_text(q.st, 1, id, -1, SQLITE_TRANSIENT);
+	sqlite3_bind_int64(q.st, 2, want);
 	if (sqlite3_step(q.st) == SQLITE_ROW) {
 		int n = sqlite3_column_bytes(q.st, 0);
 		const void *b = sqlite3_column_blob(q.st, 0);

@@ -121,11 +121,13 @@ TEST(store_points_and_result_feed_seq)
 	store_close(s);
 	s = store_open(path, err, sizeof err);
 	REQUIRE(s);
-	CHECK_INT(store_interrupt_stale(s, "2026-01-01T01:00:00.000Z"), 1);
-	CHECK_INT(store_interrupt_stale(s, "2026-01-01T01:00:00.000Z"), 0);
+	CHECK_INT(store_interrupt_stale(s, "2026-01-01T01:00:00.000Z", NULL, NULL), 1);
+	CHECK_INT(store_interrupt_stale(s, "2026-01-01T01:00:00.000Z", NULL, NULL), 0);
 	j = store_run_json(s, c, &db_err);
 	REQUIRE(j);
 	CHECK_STR(json_string_value(json_object_get(j, "state")), "interrupted");
+	/* One code, the words apart (docs/lims.md). */
+	CHECK_STR(json_string_value(json_object_get(j, "stop_reason")), "interrupted");
 	CHECK_INT(json_integer_value(json_object_get(j, "seq")), 3);
 	CHECK(json_is_null(json_object_get(j, "phase")));
 	json_decref(j);
