@@ -184,9 +184,15 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 	store_run_update(ctx->store, id, NULL, NULL, rec_text);
 	job->run_id = id;
 	if (station_enqueue(st, job)) {
-		station_abort_queued(st, job, "the station's queue is full");
-		http_reply_error(r, 409, "queue_full", "station %s has too many queued runs",
-		                 station);
+		/* Refused: nothing of the run remains, only the audit event. */
+		if (store_run_discard(ctx->store, id) != STORE_OK)
+			station_abort_queued(st, job, "the station's queue is full");
+		http_audit(q, station, 0, "run", "refused",
+		           "queue full: method %s, sample %s not queued", method_id, sample_id);
+		http_reply_error(
+		    r, 409, "queue_full",
+		    "station %s has %d runs queued, the most it takes; nothing was queued", station,
+		    STATION_QUEUE_MAX);
 		goto out;
 	}
 	http_audit(q, station, id, "run", "queued",

@@ -108,6 +108,9 @@ int station_dose_interlock(double dispensed_ml, double dose_ml, double method_ma
 #define STATION_HALT_RETRY_MAX_S 0.5
 double station_halt_retry_s(int failed_tries);
 
+/* Runs a station keeps waiting behind its current one (docs/api.md). */
+#define STATION_QUEUE_MAX 32
+
 /* A queued run: the method is copied. */
 typedef struct station_job {
 	int64_t run_id;

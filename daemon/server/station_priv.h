@@ -12,8 +12,7 @@
 #include "station.h"
 #include "store.h"
 
-#define STATION_QUEUE_MAX 32
-#define STATION_RING      8 /* published snapshots; a reader retries if lapped */
+#define STATION_RING 8 /* published snapshots; a reader retries if lapped */
 
 /* One published snapshot as relaxed atomic words: a seqlock whose data are
  * atomics is race-free in C11 terms (and to ThreadSanitizer). */

@@ -539,6 +539,16 @@ out_unlock:
 
 /* ---- runs ---- */
 
+store_status_t store_run_discard(store_t *s, int64_t id)
+{
+	int rc;
+
+	pthread_mutex_lock(&s->wlock);
+	rc = exec_w(s, "DELETE FROM runs WHERE id=? AND state='queued' AND seq IS NULL", "i", id);
+	pthread_mutex_unlock(&s->wlock);
+	return rc == SQLITE_DONE && sqlite3_changes(s->w) == 1 ? STORE_OK : STORE_ERR;
+}
+
 int64_t store_run_create(store_t *s, const store_run_new_t *r)
 {
 	int64_t id = -1;

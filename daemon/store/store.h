@@ -107,6 +107,9 @@ typedef struct store_run_new {
 } store_run_new_t;
 
 int64_t store_run_create(store_t *s, const store_run_new_t *r); /* id, or -1 */
+/* Remove a run that was never queued (a refused request): no run and no seq
+ * remain of it. Only a `queued` run without a seq is removed. */
+store_status_t store_run_discard(store_t *s, int64_t id);
 
 /* Replace the run's record and its query columns (state, phase may be NULL). */
 store_status_t store_run_update(store_t *s, int64_t id, const char *state, const char *phase,
