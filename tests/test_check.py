@@ -142,3 +142,19 @@ def test_cross_check_against_the_burette(tmp_path):
         "1 mL capacity x (1 + 20 refills) = 21 mL"]
     r = run("-c", cfg, "config/methods/water-blank.yaml")
     assert r.returncode == 0, r.stderr
+
+
+def test_safety_and_methods_docs_state_the_rule_the_code_applies(tmp_path):
+    # SAFETY.md said a volume_max_ml above the burette's capacity is refused,
+    # while the code allows capacity x (1 + 20 refills): one rule in all three.
+    cfg = write_config(tmp_path, [station("micro", 250, 1.0)])
+    r = run("-c", cfg, "config/methods/cider-acidity.yaml")
+    m = re.search(r"capacity x \(1 \+ (\d+) refills\)", r.stderr)
+    assert m, r.stderr
+    refills = m.group(1)
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    safety = open(os.path.join(root, "SAFETY.md")).read()
+    methods = open(os.path.join(root, "docs", "methods.md")).read()
+    assert f"capacity × (1 + {refills} refills)" in safety, "SAFETY.md must state the refill rule"
+    assert "burette's capacity × (1 + allowed refills)" in methods
+    assert f"the daemon allows a run {refills}\nrefills" in methods
