@@ -26,7 +26,8 @@ static bool str_key(const yt_doc_t *doc, const yt_node_t *m, const char *key, co
 			yt_missing(doc, m, key, where, d);
 		return !required;
 	}
-	return yt_string(doc, n, key, out, cap, d);
+	/* Commands, patterns and line ends are wire bytes: "\r\n" is allowed. */
+	return yt_bytes(doc, n, key, out, cap, d);
 }
 
 /* Placeholders a template or pattern may use. */

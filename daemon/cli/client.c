@@ -1,5 +1,6 @@
 /* client.c: what every `stopcock` client command shares (see client.h). */
 #include "client.h"
+#include "text.h"
 
 #include <ctype.h>
 #include <errno.h>
@@ -139,12 +140,54 @@ char *client_read_token(const char *path, char *err, size_t err_len)
 	return tok;
 }
 
+/* Every string the daemon sends is printed with its control characters
+ * escaped (text.h), whatever the daemon let in: what reaches the terminal is
+ * text, never a sequence that repaints it or a forged line. */
+static void defang(json_t *j)
+{
+	const char *k;
+	json_t *v;
+	size_t i;
+
+	if (json_is_object(j)) {
+		void *tmp;
+		json_object_foreach_safe(j, tmp, k, v)
+		{
+			if (json_is_string(v)) {
+				const char *s = json_string_value(v);
+				if (text_control_at(s, json_string_length(v), false) != TEXT_NONE) {
+					char *e = text_escaped(s);
+					json_object_set_new(j, k, json_string(e ? e : "?"));
+					free(e);
+				}
+			} else {
+				defang(v);
+			}
+		}
+	} else if (json_is_array(j)) {
+		json_array_foreach(j, i, v)
+		{
+			if (json_is_string(v)) {
+				const char *s = json_string_value(v);
+				if (text_control_at(s, json_string_length(v), false) != TEXT_NONE) {
+					char *e = text_escaped(s);
+					json_array_set_new(j, i, json_string(e ? e : "?"));
+					free(e);
+				}
+			} else {
+				defang(v);
+			}
+		}
+	}
+}
+
 /* The message of a daemon error body {"error":{"code","message"}}, or of
  * the status alone when the body is something else. */
 static void describe_http_error(const client_t *c, const httpc_resp_t *r, bool write)
 {
 	json_error_t je;
 	json_t *j = r->body ? json_loadb(r->body, r->body_len, 0, &je) : NULL;
+	defang(j);
 	json_t *e = j ? json_object_get(j, "error") : NULL;
 	const char *msg = client_str(e, "message", NULL), *code = client_str(e, "code", NULL);
 	if (msg)
@@ -244,6 +287,7 @@ static int call_json(client_t *c, const char *method, const char *path, json_t *
 	if (out) {
 		json_error_t je;
 		*out = json_loadb(r.body, r.body_len, 0, &je);
+		defang(*out);
 		if (!*out) {
 			if (quiet)
 				snprintf(err, err_len, "stopcockd's reply is not JSON: %s",

@@ -6,6 +6,8 @@
  */
 #include "yamltree.h"
 
+#include "text.h"
+
 #include <errno.h>
 #include <math.h>
 #include <stdarg.h>
@@ -825,6 +827,20 @@ bool yt_bool(const yt_doc_t *doc, const yt_node_t *n, const char *key, bool *out
 	return false;
 }
 
+bool yt_bytes(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *out, size_t cap,
+              diag_list_t *d)
+{
+	if (!want_value(doc, n, key, "text", d))
+		return false;
+	if (n->len >= cap) {
+		yt_error(doc, n, d, "%s is too long: %zu characters (at most %zu)", key, n->len,
+		         cap - 1);
+		return false;
+	}
+	memcpy(out, n->str, n->len + 1);
+	return true;
+}
+
 bool yt_string(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *out, size_t cap,
                diag_list_t *d)
 {
@@ -833,6 +849,17 @@ bool yt_string(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *o
 	if (n->len >= cap) {
 		yt_error(doc, n, d, "%s is too long: %zu characters (at most %zu)", key, n->len,
 		         cap - 1);
+		return false;
+	}
+	/* Text reaches records, logs and terminals: no control characters
+	 * (text.h). Byte strings such as a pump's line ends have getters of
+	 * their own. */
+	size_t at = text_control_at(n->str, n->len, false);
+	if (at != TEXT_NONE) {
+		unsigned char c = (unsigned char)n->str[at];
+		yt_error(doc, n, d,
+		         "%s holds a control character (U+%04X); write the text without it", key,
+		         c == 0xC2 ? (unsigned char)n->str[at + 1] : c);
 		return false;
 	}
 	memcpy(out, n->str, n->len + 1);

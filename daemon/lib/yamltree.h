@@ -100,7 +100,12 @@ bool yt_double_range(const yt_doc_t *doc, const yt_node_t *n, const char *key, c
 bool yt_long(const yt_doc_t *doc, const yt_node_t *n, const char *key, long lo, long hi, long *out,
              diag_list_t *d);
 bool yt_bool(const yt_doc_t *doc, const yt_node_t *n, const char *key, bool *out, diag_list_t *d);
-/* Any non-null scalar; copies at most cap-1 bytes, longer is an error. */
+/* A byte string, control characters allowed (a device's line ends, "\r\n"):
+ * only for wire protocol data, never for text people read. */
+bool yt_bytes(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *out, size_t cap,
+              diag_list_t *d);
+/* Text: any non-null scalar without control characters (text.h); copies at
+ * most cap-1 bytes, longer is an error. */
 bool yt_string(const yt_doc_t *doc, const yt_node_t *n, const char *key, char *out, size_t cap,
                diag_list_t *d);
 /* One of a NULL-terminated list of words; *out is its index. */

@@ -10,6 +10,7 @@
 #include "calib.h"
 #include "record.h"
 #include "svg.h"
+#include "text.h"
 
 static void db_error(http_reply_t *r)
 {
@@ -91,6 +92,12 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 	}
 	if (!*sample_id || strlen(sample_id) >= sizeof job->sample_id) {
 		http_reply_error(r, 400, "bad_request", "sample_id must be 1 to 127 characters");
+		goto out;
+	}
+	if (text_control_at(sample_id, strlen(sample_id), false) != TEXT_NONE) {
+		http_reply_error(r, 400, "bad_request",
+		                 "sample_id holds a control character (an escape, a newline, ...): "
+		                 "send the id as printed on the sample");
 		goto out;
 	}
 	if (!isfinite(amount) || amount <= 0) {

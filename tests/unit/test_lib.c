@@ -10,6 +10,7 @@
 #include "harness.h"
 #include "names.h"
 #include "numparse.h"
+#include "text.h"
 #include "sbuf.h"
 #include "timefmt.h"
 
@@ -144,4 +145,40 @@ TEST(lib_name_is_id)
 	CHECK(!name_is_id("a_b", 0));
 	CHECK(!name_is_id("a/b", 0));
 	CHECK(!name_is_id(NULL, 0));
+}
+
+/* Control characters: C0 but tab, DEL, C1 (text.h). */
+TEST(lib_text_control_characters)
+{
+	CHECK(text_control_at("BATCH-7", 7, false) == TEXT_NONE);
+	CHECK(text_control_at("a\tb", 3, false) == TEXT_NONE);
+	CHECK_INT((int)text_control_at("a\nb", 3, false), 1);
+	CHECK(text_control_at("a\nb", 3, true) == TEXT_NONE);
+	CHECK_INT((int)text_control_at("ok\x1b[2J", 6, false), 2);
+	CHECK_INT((int)text_control_at("x\x7f", 2, false), 1);
+	CHECK_INT((int)text_control_at("x\xc2\x9b", 3, false), 1);        /* U+009B, the C1 CSI */
+	CHECK(text_control_at("Bl\xc3\xa4ttler", 9, false) == TEXT_NONE); /* ä is text */
+	char *e = text_escaped("ok\x1b[2J\nFAKE \xc2\x9b \xff");
+	REQUIRE(e);
+	CHECK_STR(e, "ok\\x1B[2J\\x0AFAKE \\u009B \\xFF");
+	free(e);
+	e = text_escaped("G\xc3\xa4rtnerei");
+	REQUIRE(e);
+	CHECK_STR(e, "G\xc3\xa4rtnerei");
+	free(e);
+}
+
+/* UTF-8: well-formed per RFC 3629, and cuts on character boundaries. */
+TEST(lib_text_utf8)
+{
+	CHECK(text_utf8_valid("abc", 3));
+	CHECK(text_utf8_valid("\xc3\xa4\xe2\x82\xac\xf0\x9f\x8d\x8e", 9)); /* ä € 🍎 */
+	CHECK(!text_utf8_valid("\xe4", 1));                                /* Latin-1 ä */
+	CHECK(!text_utf8_valid("\xc0\xaf", 2));                            /* overlong '/' */
+	CHECK(!text_utf8_valid("\xed\xa0\x80", 3));                        /* a surrogate */
+	CHECK(!text_utf8_valid("\xe2\x82", 2));                            /* cut short */
+	/* "ä€" is 2 + 3 bytes: a cut at 4 keeps "ä" only. */
+	CHECK_INT((int)text_utf8_cut("\xc3\xa4\xe2\x82\xac", 4), 2);
+	CHECK_INT((int)text_utf8_cut("\xc3\xa4\xe2\x82\xac", 5), 5);
+	CHECK_INT((int)text_utf8_cut("abc", 2), 2);
 }
