@@ -1,5 +1,6 @@
 /* config.c: see config.h. */
 #include "config.h"
+#include "text.h"
 
 #include <arpa/inet.h>
 #include <errno.h>
@@ -337,6 +338,25 @@ int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d)
 		end = colon + 1 + strlen(colon + 1);
 		while (end > colon + 1 && (end[-1] == ' ' || end[-1] == '\t'))
 			*--end = '\0';
+		/* The name goes into every record and audit event the token
+		 * makes: it must be text (UTF-8, no control characters), or the
+		 * records it touches cannot be written as JSON. */
+		if (!*p) {
+			diag_add(d, path, lineno, 1, "the name before ':' is empty");
+			continue;
+		}
+		if (!text_utf8_valid(p, strlen(p))) {
+			diag_add(d, path, lineno, (int)(p - line) + 1,
+			         "the name is not valid UTF-8 (saved in another encoding, such as "
+			         "Latin-1?); save the token file as UTF-8");
+			continue;
+		}
+		if (text_control_at(p, strlen(p), false) != TEXT_NONE ||
+		    text_control_at(colon + 1, strlen(colon + 1), false) != TEXT_NONE) {
+			diag_add(d, path, lineno, (int)(p - line) + 1,
+			         "a token line holds a control character");
+			continue;
+		}
 		if (strlen(colon + 1) < 16 || strlen(colon + 1) >= sizeof t->v[0].token) {
 			diag_add(d, path, lineno, (int)(colon - line) + 2,
 			         "token of '%s' must be 16 to 255 characters long", p);
@@ -347,7 +367,10 @@ int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d)
 			         CFG_MAX_TOKENS);
 			break;
 		}
-		snprintf(t->v[t->n].name, sizeof t->v[t->n].name, "%.63s", p);
+		/* A long name is cut on a character boundary, never mid-character. */
+		size_t keep = text_utf8_cut(p, sizeof t->v[t->n].name - 1);
+		memcpy(t->v[t->n].name, p, keep);
+		t->v[t->n].name[keep] = '\0';
 		snprintf(t->v[t->n].token, sizeof t->v[t->n].token, "%.255s", colon + 1);
 		t->n++;
 	}

@@ -806,6 +806,20 @@ static void finish(run_t *r)
 		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		json_decref(j);
 	}
+	if (!text) {
+		/* No final state without its record: when the full record cannot
+		 * be written (out of memory), a short one says so; the points and
+		 * endpoints are in their own tables. */
+		json_t *j = json_pack(
+		    "{s:I,s:s,s:s,s:s,s:s,s:[{s:s,s:s,s:s}]}", "id", (json_int_t)r->job->run_id,
+		    "station", r->s->name, "state", state, "ended_at", r->rec.ended_at,
+		    "stop_reason", "fault", "faults", "at", r->rec.ended_at, "code", "internal",
+		    "message", "the full record could not be written; see the run's points");
+		text = j ? json_dumps(j, JSON_COMPACT) : NULL;
+		json_decref(j);
+		log_err("station %s run %lld: the full record could not be written", r->s->name,
+		        (long long)r->job->run_id);
+	}
 	if (store_run_finish(r->s->store, r->job->run_id, state, text, &seq) != STORE_OK) {
 		log_err("station %s run %lld: could not store the final record; keeping it to "
 		        "store again",
