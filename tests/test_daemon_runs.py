@@ -100,7 +100,7 @@ def test_result_feed_gives_each_final_run_once_across_restarts(bench, finished):
     assert cursor == seqs[-1]
     # Nothing new: the same cursor back, no records.
     again = bench.get(f"/v1/results?after={cursor}")
-    assert again == {"results": [], "next_after": cursor}
+    assert again == {"results": [], "next_after": cursor, "history": page["history"]}
     # A queued run aborted before it starts is final too: one new record.
     blocker = bench.start_run(sample="BLOCKER")
     queued = bench.start_run(sample="QUEUED")

@@ -1,6 +1,7 @@
 /* store.c: see store.h. Write paths; read paths are in store_read.c. */
 #include "store.h"
 #include "store_priv.h"
+#include "log.h"
 #include "timefmt.h"
 
 #include <math.h>
@@ -10,6 +11,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <time.h>
+#include <unistd.h>
 
 /* Each migration takes the schema from version i to i+1; never edit one that
  * has shipped, append a new one. */
@@ -141,6 +143,170 @@ fail:
 	return -1;
 }
 
+/* ---- history: ids and seqs are never issued twice (docs/lims.md) ----
+ *
+ * Beside the database, PATH.issued holds the history id and the highest run
+ * id and seq this daemon ever issued. A database whose marks are below the
+ * file's (or whose history is another) went back in time: a restored backup.
+ * Then a new history starts, and ids and seqs continue above the file's. */
+
+static int64_t one_int(sqlite3 *db, const char *sql)
+{
+	sqlite3_stmt *st;
+	int64_t v = 0;
+	if (sqlite3_prepare_v2(db, sql, -1, &st, NULL) == SQLITE_OK) {
+		if (sqlite3_step(st) == SQLITE_ROW)
+			v = sqlite3_column_int64(st, 0);
+		sqlite3_finalize(st);
+	}
+	return v;
+}
+
+static void meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
+{
+	sqlite3_stmt *st;
+	out[0] = '\0';
+	if (sqlite3_prepare_v2(db, "SELECT value FROM meta WHERE key=?", -1, &st, NULL) !=
+	    SQLITE_OK)
+		return;
+	sqlite3_bind_text(st, 1, key, -1, SQLITE_STATIC);
+	if (sqlite3_step(st) == SQLITE_ROW)
+		snprintf(out, cap, "%s", (const char *)sqlite3_column_text(st, 0));
+	sqlite3_finalize(st);
+}
+
+static int meta_set(sqlite3 *db, const char *key, const char *value)
+{
+	sqlite3_stmt *st;
+	int rc;
+	if (sqlite3_prepare_v2(db, "INSERT OR REPLACE INTO meta(key, value) VALUES(?, ?)", -1, &st,
+	                       NULL) != SQLITE_OK)
+		return -1;
+	sqlite3_bind_text(st, 1, key, -1, SQLITE_STATIC);
+	sqlite3_bind_text(st, 2, value, -1, SQLITE_STATIC);
+	rc = sqlite3_step(st);
+	sqlite3_finalize(st);
+	return rc == SQLITE_DONE ? 0 : -1;
+}
+
+static int new_history(char out[33])
+{
+	unsigned char b[16];
+	FILE *f = fopen("/dev/urandom", "rb");
+	size_t n = f ? fread(b, 1, sizeof b, f) : 0;
+	if (f)
+		fclose(f);
+	if (n != sizeof b)
+		return -1;
+	for (int i = 0; i < 16; i++)
+		snprintf(out + 2 * i, 3, "%02x", b[i]);
+	return 0;
+}
+
+static int64_t db_max_id(store_t *s)
+{
+	int64_t a = one_int(s->w, "SELECT seq FROM sqlite_sequence WHERE name='runs'");
+	int64_t b = one_int(s->w, "SELECT COALESCE(MAX(id),0) FROM runs");
+	return a > b ? a : b;
+}
+
+static int64_t db_max_seq(store_t *s)
+{
+	int64_t m = one_int(s->w, "SELECT COALESCE(MAX(seq),0) FROM runs");
+	return m > s->seq_floor ? m : s->seq_floor;
+}
+
+/* Write PATH.issued (a new file renamed over the old one). Callers hold
+ * wlock or are alone (store_open). A refused write keeps the old marks,
+ * which are lower: the next write catches up. */
+static void issued_write(store_t *s)
+{
+	char path[1100], tmp[1110];
+	FILE *f;
+
+	snprintf(path, sizeof path, "%s.issued", s->path);
+	snprintf(tmp, sizeof tmp, "%s.new", path);
+	f = fopen(tmp, "w");
+	if (!f)
+		return;
+	fprintf(f, "history %s\nrun_id %lld\nseq %lld\n", s->history, (long long)db_max_id(s),
+	        (long long)db_max_seq(s));
+	if (fflush(f) == 0 && fsync(fileno(f)) == 0 && fclose(f) == 0)
+		rename(tmp, path);
+	else
+		unlink(tmp);
+}
+
+static int history_start(store_t *s, char *err, size_t cap)
+{
+	char path[1100], fh[64] = "", buf[64];
+	long long fid = 0, fseq = 0;
+	FILE *f;
+
+	meta_get(s->w, "history", s->history, sizeof s->history);
+	meta_get(s->w, "seq_floor", buf, sizeof buf);
+	s->seq_floor = buf[0] ? strtoll(buf, NULL, 10) : 0;
+	if (!s->history[0]) {
+		if (new_history(s->history) || meta_set(s->w, "history", s->history)) {
+			snprintf(err, cap, "%s: cannot start the database's history", s->path);
+			return -1;
+		}
+	}
+	snprintf(path, sizeof path, "%s.issued", s->path);
+	f = fopen(path, "r");
+	if (f) {
+		if (fscanf(f, "history %32s run_id %lld seq %lld", fh, &fid, &fseq) != 3)
+			fh[0] = '\0';
+		fclose(f);
+	}
+	if (fh[0] && (strcmp(fh, s->history) || fid > db_max_id(s) || fseq > db_max_seq(s))) {
+		/* The database went back in time, or is another one. */
+		char old[33], num[32];
+		int64_t id_floor = fid > db_max_id(s) ? fid : db_max_id(s);
+		int64_t seq_floor = fseq > db_max_seq(s) ? fseq : db_max_seq(s);
+		snprintf(old, sizeof old, "%s", s->history);
+		if (new_history(s->history) || meta_set(s->w, "history", s->history) ||
+		    meta_set(s->w, "restored_from", fh)) {
+			snprintf(err, cap, "%s: cannot start a new history after a restore",
+			         s->path);
+			return -1;
+		}
+		snprintf(num, sizeof num, "%lld", (long long)seq_floor);
+		s->seq_floor = seq_floor;
+		if (meta_set(s->w, "seq_floor", num) ||
+		    sqlite3_exec(
+		        s->w, "INSERT OR IGNORE INTO sqlite_sequence(name, seq) VALUES('runs', 0)",
+		        NULL, NULL, NULL) != SQLITE_OK) {
+			snprintf(err, cap, "%s: cannot keep run ids above the lost history's",
+			         s->path);
+			return -1;
+		}
+		sqlite3_stmt *st;
+		if (sqlite3_prepare_v2(s->w, "UPDATE sqlite_sequence SET seq=? WHERE name='runs'",
+		                       -1, &st, NULL) != SQLITE_OK) {
+			snprintf(err, cap, "%s: cannot keep run ids above the lost history's",
+			         s->path);
+			return -1;
+		}
+		sqlite3_bind_int64(st, 1, id_floor);
+		sqlite3_step(st);
+		sqlite3_finalize(st);
+		s->restored_upto = fid;
+		log_warn(
+		    "%s went back in time (a restored backup?): it had issued run ids up to %lld "
+		    "and seqs up to %lld; history %s ends, history %s starts, and ids and seqs "
+		    "go on above those (docs/lims.md, \"After a restore\")",
+		    s->path, fid, fseq, old, s->history);
+	}
+	issued_write(s);
+	return 0;
+}
+
+const char *store_history(const store_t *s)
+{
+	return s->history;
+}
+
 store_t *store_open(const char *path, char *err, size_t err_cap)
 {
 	store_t *s = calloc(1, sizeof *s);
@@ -168,7 +334,7 @@ store_t *store_open(const char *path, char *err, size_t err_cap)
 		store_close(s);
 		return NULL;
 	}
-	if (migrate(s->w, err, err_cap)) {
+	if (migrate(s->w, err, err_cap) || history_start(s, err, err_cap)) {
 		store_close(s);
 		return NULL;
 	}
@@ -271,9 +437,10 @@ static int64_t next_seq(store_t *s)
 	sqlite3_stmt *st;
 	int64_t seq = -1;
 
-	if (sqlite3_prepare_v2(s->w, "SELECT COALESCE(MAX(seq),0)+1 FROM runs", -1, &st, NULL) !=
-	    SQLITE_OK)
+	if (sqlite3_prepare_v2(s->w, "SELECT MAX(COALESCE(MAX(seq),0), ?)+1 FROM runs", -1, &st,
+	                       NULL) != SQLITE_OK)
 		return -1;
+	sqlite3_bind_int64(st, 1, s->seq_floor);
 	if (sqlite3_step(st) == SQLITE_ROW)
 		seq = sqlite3_column_int64(st, 0);
 	sqlite3_finalize(st);
@@ -347,6 +514,9 @@ int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *s
 	int n = 0;
 	const char *why = "the daemon stopped while the run was running (a crash, a power cut or "
 	                  "a kill); nothing is known of the beaker after ended_at";
+	const char *why_restored =
+	    "the database was restored from a backup taken while this run was unfinished; what "
+	    "became of it is in the history before the restore (docs/lims.md, \"After a restore\")";
 
 	pthread_mutex_lock(&s->wlock);
 	if (begin(s))
@@ -354,15 +524,19 @@ int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *s
 	/* Oldest first, so seq follows the order the runs were queued. */
 	if (sqlite3_prepare_v2(s->w,
 	                       "SELECT id, station, started_at, record FROM runs WHERE "
-	                       "state='running' ORDER BY id",
+	                       "state='running' OR (state='queued' AND id <= ?) ORDER BY id",
 	                       -1, &st, NULL) != SQLITE_OK)
 		goto fail_tx;
+	sqlite3_bind_int64(st, 1, s->restored_upto);
 	while (sqlite3_step(st) == SQLITE_ROW) {
 		int64_t id = sqlite3_column_int64(st, 0);
 		char ended[32];
+		/* A run a restored backup left unfinished went on in the lost
+		 * history: its end is not known here (the LIMS may hold it). */
+		bool restored = id <= s->restored_upto;
 		last_held(s, id, (const char *)sqlite3_column_text(st, 2), at, ended);
 		char *rec = patch_record((const char *)sqlite3_column_text(st, 3), "interrupted",
-		                         ended, why);
+		                         ended, restored ? why_restored : why);
 		int64_t seq = next_seq(s);
 		int rc = exec_w(s,
 		                "UPDATE runs SET state='interrupted', phase=NULL, ended_at=?, "
@@ -380,6 +554,8 @@ int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *s
 	st = NULL;
 	if (commit(s))
 		goto fail;
+	if (n)
+		issued_write(s);
 	pthread_mutex_unlock(&s->wlock);
 	return n;
 fail_tx:
@@ -561,8 +737,10 @@ int64_t store_run_create(store_t *s, const store_run_new_t *r)
 	        " VALUES (?,?,?,?,?,?,?,?,'queued',?,?)",
 	        "ttittdtttt", r->station, r->method_id, (int64_t)r->method_revision,
 	        r->method_sha256, r->sample_id, r->amount, r->unit, r->signal, r->queued_at,
-	        r->record_json) == SQLITE_DONE)
+	        r->record_json) == SQLITE_DONE) {
 		id = sqlite3_last_insert_rowid(s->w);
+		issued_write(s);
+	}
 	pthread_mutex_unlock(&s->wlock);
 	return id;
 }
@@ -777,6 +955,7 @@ store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const
 		ret = STORE_OK;
 		if (seq_out)
 			*seq_out = seq;
+		issued_write(s);
 	}
 	goto out;
 out_tx:

@@ -68,6 +68,9 @@ typedef enum {
 /* The daemon is alive at `at`: kept in the database so that a crash leaves
  * the last moment it held its runs (a few seconds apart, from the main loop). */
 store_status_t store_heartbeat(store_t *s, const char *at);
+/* The database's history id (32 hex digits): a new one after a restore
+ * (docs/lims.md, "After a restore"); in every result-feed reply. */
+const char *store_history(const store_t *s);
 /* A station to hold at the next start (a run was on it when the daemon was
  * stopped), and the taking of those notes at start: cb for each, then
  * they are gone. */

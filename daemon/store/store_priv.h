@@ -15,6 +15,11 @@ struct store {
 	pthread_mutex_t rlock;     /* guards r[] and r_busy[] */
 	sqlite3 *r[STORE_READERS]; /* read-only connections, opened lazily */
 	bool r_busy[STORE_READERS];
+	/* The database's history (docs/lims.md, "After a restore"): a new one
+	 * whenever the database went back in time (a restored backup). */
+	char history[33];
+	int64_t seq_floor;     /* seqs are issued above this (the lost history's) */
+	int64_t restored_upto; /* runs up to this id left unfinished by a backup */
 };
 
 /* busy_timeout, synchronous=FULL, foreign_keys=ON. */

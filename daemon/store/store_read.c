@@ -376,7 +376,8 @@ json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err)
 		last = sqlite3_column_int64(q.st, 1);
 	}
 	rq_close(&q);
-	return json_pack("{s:o,s:I}", "results", arr, "next_after", (json_int_t)last);
+	return json_pack("{s:o,s:I,s:s}", "results", arr, "next_after", (json_int_t)last, "history",
+	                 store_history(s));
 }
 
 static json_t *text_or_null(sqlite3_stmt *st, int col)
