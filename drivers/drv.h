@@ -58,7 +58,9 @@ typedef struct drv_reading {
 	double ph;
 	bool has_temperature;
 	double temperature_c;
-	double t_s; /* CLOCK_MONOTONIC seconds when read */
+	double t_s;    /* CLOCK_MONOTONIC seconds when read */
+	bool repeated; /* the transmitter's measurement counter did not advance:
+	                * the same measurement as the last read, not a new one */
 } drv_reading_t;
 
 typedef struct drv_probe_ops {

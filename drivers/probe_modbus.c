@@ -154,7 +154,9 @@ static drv_status_t probe_read(void *priv, drv_reading_t *out, drv_err_t *err)
 			                "reports an error",
 			                (unsigned long)v[R_STATUS]);
 	}
+	bool repeated = false;
 	if (p->reg[R_COUNTER].present) {
+		repeated = p->have_counter && v[R_COUNTER] == p->counter;
 		if (!p->have_counter || v[R_COUNTER] != p->counter) {
 			p->have_counter = true;
 			p->counter = v[R_COUNTER];
@@ -173,6 +175,7 @@ static drv_status_t probe_read(void *priv, drv_reading_t *out, drv_err_t *err)
 	out->has_ph = p->reg[R_PH].present;
 	out->ph = v[R_PH];
 	out->t_s = now;
+	out->repeated = repeated;
 	if (out->has_temperature && (out->temperature_c < -50 || out->temperature_c > 200))
 		return drv_fail(err, DRV_BAD_REPLY, "probe: temperature %.1f degC out of range",
 		                out->temperature_c);

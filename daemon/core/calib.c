@@ -137,10 +137,23 @@ int calib_session_next(calib_session_t *s, double t_s, char *err, size_t err_cap
 		return -1;
 	}
 	s->res.state = CALIB_MEASURING;
+	s->res.reason[0] = '\0'; /* a failed try of this buffer is over */
 	s->t_next_s = t_s;
 	s->last_t_s = -INFINITY;
 	s->ring_head = s->ring_n = 0;
 	return 0;
+}
+
+void calib_session_fail_buffer(calib_session_t *s, const char *why)
+{
+	if (s->res.state != CALIB_MEASURING)
+		return;
+	snprintf(s->res.reason, sizeof s->res.reason,
+	         "buffer %g not recorded: %s; put the electrode back in it and measure it again",
+	         s->res.buffers[s->cur].nominal_ph, why && *why ? why : "probe fault");
+	s->res.state = CALIB_WAITING;
+	s->res.next_buffer = s->res.buffers[s->cur].nominal_ph;
+	s->ring_head = s->ring_n = 0;
 }
 
 static void reject(calib_session_t *s, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
@@ -211,6 +224,14 @@ static bool window_stats(const calib_session_t *s, double now_s, double *drift_m
 	/* Covered: readings from (nearly) the whole window; 10 % slack lets a
 	 * reading clock with jitter still qualify. */
 	if (n < MIN_WINDOW_READINGS || now_s - oldest < 0.9 * w)
+		return false;
+	/* ... and up to now: readings that stopped coming (a transmitter that
+	 * repeats its last value) never make a window stable. */
+	double newest = -INFINITY;
+	for (int k = 0; k < s->ring_n; k++)
+		if (s->ring_t[ring_idx(s, k)] > newest)
+			newest = s->ring_t[ring_idx(s, k)];
+	if (now_s - newest > fmax(1.0, 0.1 * w))
 		return false;
 	double tm = st / n, vm = sv / n;
 	double sxx = 0, sxy = 0;

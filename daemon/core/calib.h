@@ -174,6 +174,11 @@ int calib_session_next(calib_session_t *s, double t_s, char *err, size_t err_cap
  * MEASURING; readings closer together than window/200 are skipped. */
 calib_state_t calib_session_feed(calib_session_t *s, const calib_reading_t *r);
 
+/* A probe fault while a buffer is measured: that buffer is not recorded, the
+ * session waits for it again (state WAITING, the same next_buffer) and the
+ * reason says why. No effect unless MEASURING. */
+void calib_session_fail_buffer(calib_session_t *s, const char *why);
+
 /* End the session as REJECTED with this reason (probe fault, operator abort).
  * No effect once final. */
 void calib_session_cancel(calib_session_t *s, const char *reason);

@@ -463,12 +463,21 @@ static void calib_step(station_t *s)
 	cr.t_s = station_mono_s();
 	cr.mv = NAN;
 	cr.temperature_c = NAN;
-	if (station_read_probe(s, &r, &err) == DRV_OK) {
+	bool fault = station_read_probe(s, &r, &err) != DRV_OK;
+	/* A repeated measurement is not a new reading: fed as a tick, so a
+	 * frozen transmitter can never look stable. */
+	if (!fault && !r.repeated) {
 		cr.mv = r.mv;
 		cr.temperature_c = r.has_temperature ? r.temperature_c : NAN;
 	}
 	pthread_mutex_lock(&s->lock);
-	after = s->cal ? calib_session_feed(s->cal, &cr) : before;
+	if (fault && s->cal) {
+		/* Any probe fault fails the buffer being measured, with why. */
+		calib_session_fail_buffer(s->cal, err.msg);
+		after = calib_session_state(s->cal);
+	} else {
+		after = s->cal ? calib_session_feed(s->cal, &cr) : before;
+	}
 	station_unlock(s);
 	if (after != before)
 		calib_store(s);

@@ -1,10 +1,11 @@
-"""NOT YET COLLECTED (no test_ prefix): fails on this branch until issue 18 item 2 is fixed;
-rename to tests/test_calib_faults.py with the fix.
-
-A probe fault while a calibration buffer is measured fails that buffer
+"""A probe fault while a calibration buffer is measured fails that buffer
 with its reason, and a frozen reading is never recorded as stable
 (docs/calibration.md, "Stability"). The calibration's defaults are used
-(stable: 0.1 mV over 10 s, at least 5 s), as an operator would have them."""
+(stable: 0.1 mV over 10 s, at least 5 s), as an operator would have them.
+
+Before: freezing the transmitter 0.9 s after `next` recorded 180.96 mV for
+buffer 4.01 (true about 177.0) and accepted the calibration at 101.2 %
+(true 99.0 %)."""
 import json
 import time
 
