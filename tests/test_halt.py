@@ -138,6 +138,11 @@ def fault_in_move(bench, kind, during, request):
     assert end["moving"] is False and end["dispensed_ml"] == still["dispensed_ml"], (still, end)
     assert rec["state"] == "failed", rec
     assert rec["dispensed_ml"] == pytest.approx(put_in, abs=STEP_ML * 1.01), (rec, end)
+    # ... and the curve's last point stands where the pump stopped.
+    pts = bench.get(f"/v1/runs/{rid}/points")["points"]
+    if pts:
+        assert pts[-1]["volume_ml"] == pytest.approx(rec["dispensed_ml"], abs=STEP_ML * 1.01), \
+            (pts[-1], rec["dispensed_ml"])
     # What the record counts left the syringe: the simulator agrees.
     if during == "refill":
         assert end["valve"] == "out", end

@@ -730,6 +730,37 @@ int station_store_pending(station_t *s, bool now)
 	return 0;
 }
 
+/* A dose cut off by a fault or a halt may have put titrant in after the last
+ * point: the curve then ends with one more point at the pump's own position
+ * (unsettled), so the record's last point and dispensed_ml agree with what
+ * went into the beaker. */
+static void last_point_at_pump(run_t *r, int n)
+{
+	drv_reading_t rd = {0};
+	drv_err_t err = {{0}};
+	store_point_t p = {0};
+	double last_ml = n > 0 ? engine_point(r->e, n - 1)->volume_ml : 0;
+
+	if (!(r->dispensed_ml > last_ml + engine_dose_quantum_ml(r->e) / 2))
+		return;
+	p.t_s = t_run(r);
+	p.volume_ml = r->dispensed_ml;
+	p.mv = NAN;
+	if (station_read_probe(r->s, &rd, &err) == DRV_OK) {
+		p.mv = rd.mv;
+		p.has_ph = rd.has_ph;
+		p.ph = rd.ph;
+		p.has_temperature = rd.has_temperature;
+		p.temperature_c = rd.temperature_c;
+	}
+	if (!isfinite(p.mv))
+		return; /* no reading to put there: dispensed_ml alone says it */
+	p.settled = false;
+	if (store_point_add(r->s->store, r->job->run_id, n, &p, NULL) != STORE_OK)
+		log_warn("station %s run %lld: could not store the point at the pump's position",
+		         r->s->name, (long long)r->job->run_id);
+}
+
 /* Why a run ended early by a command, not by itself: "interrupted" (the
  * daemon is stopping), "halted" (the station's halt), "aborted" (the run's
  * abort); "" otherwise. Read at the end of the run, before the station
@@ -769,6 +800,7 @@ static void finish(run_t *r)
 			         r->s->name, (long long)r->job->run_id);
 		free(pts);
 	}
+	last_point_at_pump(r, n);
 	now_text(r->rec.ended_at);
 	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);
 	memset(&note, 0, sizeof note);
