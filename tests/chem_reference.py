@@ -7,7 +7,7 @@ published ones; the numerics are different: here the ionic strength is found
 by an outer brentq on I(I) - I, and the pH by an inner brentq, both plain
 bracketed root finds with no Newton steps and no fixed-point iteration.
 
-Scenarios are plain dicts with the keys of INTERFACE.md "Scenario keys"; a
+Scenarios are plain dicts with the keys of docs/chemistry.md "Scenario files"; a
 component is {"name", "molar", "pka": [...], "charge"} or {"name", "molar",
 "strong": "acid"|"base"|"salt"}.
 """
@@ -47,7 +47,7 @@ def pkw(t):
 
 
 def davies_a(t):
-    """Debye-Hueckel A from theory (CHECKS.md section 6)."""
+    """Debye-Hueckel A from theory (docs/chemistry.md §6)."""
     tk = t + 273.15
     eps_r = 87.740 - 0.40008 * t + 9.398e-4 * t**2 - 1.410e-6 * t**3  # Malmberg & Maryott
     rho = water_density(t) * 1000
@@ -139,7 +139,7 @@ def ph_at(scn, ml):
 
 
 def to_yaml(scn):
-    """The scenario as YAML text with INTERFACE.md keys (flow style for components)."""
+    """The scenario as YAML text with the keys of docs/chemistry.md (flow style for components)."""
     lines = []
     for key in ("temperature_c", "activity", "sample_ml", "water_ml", "pkw"):
         if key in scn:

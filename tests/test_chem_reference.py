@@ -26,7 +26,7 @@ def grid(lo, hi, n):
     return [round(lo + (hi - lo) * k / (n - 1), 3) for k in range(n)]
 
 
-# pKa values from CHECKS.md section 1 (25 degC) and its pKa(T) table (10, 40 degC).
+# pKa values from docs/chemistry.md §1 (25 degC) and its pKa(T) table (10, 40 degC).
 SCENARIOS = {
     # polyprotic: phosphoric acid (pKa 2.148, 7.198, 12.35), diluted 1:1
     "phosphoric": ({"temperature_c": 25, "sample_ml": 25.0, "water_ml": 25.0,
@@ -95,7 +95,7 @@ def test_curve_against_reference(tmp_path):
                 worst, where = diff, (name, v, ph, want)
             count += 1
             assert diff <= 0.002, f"{name} at {v} mL: curve {ph}, reference {want:.5f}"
-            # mV from the electrode equation of INTERFACE.md (default electrode)
+            # mV from the electrode equation of docs/chemistry.md (default electrode)
             assert mv == pytest.approx(-ref.nernst_mv(t) * (ph - 7.0), abs=0.011)
     print(f"\nchem reference: {count} points over {len(SCENARIOS)} scenarios, "
           f"max |dpH| = {worst:.5f} at {where}")
@@ -103,10 +103,10 @@ def test_curve_against_reference(tmp_path):
 
 
 def test_reference_laws_match_tables():
-    """The reference's own laws against CHECKS.md, so it is not wrong in step with C."""
+    """The reference's own laws against docs/chemistry.md, so it is not wrong in step with C."""
     # CRC "Ionization constant of water" at 0.1 MPa: 14.946, 13.995, 13.264 [S]
     for t, want in ((0, 14.946), (25, 13.995), (50, 13.264)):
         assert ref.pkw(t) == pytest.approx(want, abs=0.002)
-    # CHECKS.md section 6 theory A(25 degC) = 0.5108 [C]; section 4: 59.16 mV/pH [S]
+    # docs/chemistry.md §6 theory A(25 degC) = 0.5108 [C]; section 4: 59.16 mV/pH [S]
     assert ref.davies_a(25) == pytest.approx(0.5108, abs=0.0002)
     assert ref.nernst_mv(25) == pytest.approx(59.16, abs=0.005)

@@ -21,7 +21,7 @@ def test_prints_ml_ph_mv_lines():
         assert re.fullmatch(r"\d+\.\d{3} -?\d+\.\d{4} -?\d+\.\d{2}", line), line
     ml, ph, _ = lines[1].split()
     # Skoog et al., Fundamentals of Analytical Chemistry, weak acid/strong base
-    # table: pH 4.76 at half the equivalence volume [M] (CHECKS.md 5a)
+    # table: pH 4.76 at half the equivalence volume [M] (docs/chemistry.md §5a)
     assert ml == "25.000" and abs(float(ph) - 4.76) <= 0.01
 
 

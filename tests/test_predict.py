@@ -53,7 +53,7 @@ def test_json_is_the_run_record_with_duration():
     assert set(ep) >= {"n", "volume_ml", "u_volume_ml", "ph", "mv", "half_ph", "how"}
     assert abs(ep["volume_ml"] - 10.000) <= 0.005
     assert rec["duration_s"] > 0 and rec["additions"] == len(rec["points"]) - 1
-    # 1.000 mmol of acetic acid (60.052 g/mol, CHECKS.md 7) in 10 mL: 6.005 g/L
+    # 1.000 mmol of acetic acid (60.052 g/mol, docs/chemistry.md §7) in 10 mL: 6.005 g/L
     assert abs(rec["results"][0]["value"] - 6.005) <= 0.002
     pt = rec["points"][0]
     assert set(pt) == {"t_s", "volume_ml", "mv", "ph", "temperature_c", "settled", "dpdv"}

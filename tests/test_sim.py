@@ -1,4 +1,4 @@
-"""stopcock-sim as INTERFACE.md describes it: the ready line, the pump's own
+"""stopcock-sim as docs/drivers.md describes it: the ready line, the pump's own
 protocol and limits on its pty, the transmitter's registers over Modbus
 (pymodbus as an independent client), the control socket, --config-out, and a
 clean exit on SIGTERM."""

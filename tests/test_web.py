@@ -116,7 +116,7 @@ def test_static_files_refuse_writes(bench):
 
 
 def test_runs_list_and_method_check_routes(bench):
-    # The two routes the page needs beyond INTERFACE.md.
+    # The two routes the page needs beyond the LIMS contract of docs/lims.md.
     assert bench.get("/v1/runs?state=finished&since=2000-01-01")["runs"] is not None
     assert raw(bench, "/v1/runs?state=bogus").status == 400
     assert raw(bench, "/v1/runs?since=yesterday").status == 400

@@ -17,7 +17,7 @@ with a write token of their own in the daemon's token file):
 The tests run in file order and share one bench (module fixture), as a day's
 steps do. Truth comes from the scenarios written here: KHP 204.22 g/mol
 (IUPAC atomic weights; the usual primary standard), its pKa 5.41 (hydrogen
-phthalate, CRC Handbook, from memory), malic acid pKa 3.40 and 5.20 (CHECKS.md
+phthalate, CRC Handbook, from memory), malic acid pKa 3.40 and 5.20 (docs/chemistry.md
 section 1); the titrant's true molarity 0.1023 mol/L against its nominal
 0.1000.
 """

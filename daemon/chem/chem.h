@@ -4,7 +4,7 @@
  * of titrant?": the simulator, `stopcock predict`, `stopcock curve` and the
  * model-based endpoint evaluation all call chem_solve(). It also holds the
  * physical constants and temperature laws (Kw(T), Davies A(T), Nernst slope)
- * and the electrode equation of INTERFACE.md, so nothing else re-derives them.
+ * and the electrode equation of docs/chemistry.md, so nothing else re-derives them.
  *
  * Units: concentrations mol/L, volumes mL, temperatures degC, potentials mV.
  */
@@ -128,7 +128,7 @@ double chem_davies_log_gamma(double a, int z, double ionic_strength);
 /* Nernst slope ln(10) R T / F in mV per pH at t degC (CODATA 2018 R, F). */
 double chem_nernst_mv(double t_c);
 
-/* Electrode equation of INTERFACE.md (no lag, noise or drift):
+/* Electrode equation of docs/chemistry.md (no lag, noise or drift):
  * mV = offset_mv - slope_pct/100 * k(T) * (pH - 7). */
 double chem_mv_from_ph(double offset_mv, double slope_pct, double ph, double t_c);
 double chem_ph_from_mv(double offset_mv, double slope_pct, double mv, double t_c);

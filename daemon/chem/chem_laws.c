@@ -56,7 +56,7 @@ double chem_davies_a(double t_c)
 	/* Debye-Hueckel limiting-law constant from theory, log10 basis:
 	 * A = sqrt(2 pi N_A rho_w) / ln10 * (e^2 / (4 pi eps0 eps_r k_B T))^(3/2),
 	 * rho_w in kg/m3 (Kell 1975), eps_r Malmberg & Maryott 1956, CODATA 2018
-	 * constants. Gives 0.5108 (mol/kg)^-1/2 at 25 degC (CHECKS.md section 6). */
+	 * constants. Gives 0.5108 (mol/kg)^-1/2 at 25 degC (docs/chemistry.md §6). */
 	double t_k = t_c + KELVIN_OFFSET;
 	double rho_kg_m3 = water_density_g_cm3(t_c) * 1000.0;
 	double bjerrum_m = CODATA_E * CODATA_E /

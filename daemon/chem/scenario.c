@@ -1,4 +1,4 @@
-/* scenario.c: scenario files (INTERFACE.md "Scenario keys") into chem_scenario_t.
+/* scenario.c: scenario files (docs/chemistry.md "Scenario files") into chem_scenario_t.
  *
  * Every problem is reported as "file:line:col: message" and parsing goes on,
  * so a user sees all of a file's errors at once. Components are named in

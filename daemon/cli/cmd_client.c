@@ -1,5 +1,5 @@
 /* cmd_client.c: the `stopcock` client commands start, status, wait, abort
- * and halt, over the daemon's HTTP API (INTERFACE.md). `show` is in
+ * and halt, over the daemon's HTTP API (docs/api.md). `show` is in
  * cmd_show.c, `calibrate` in cmd_calibrate.c; shared plumbing in client.c. */
 #include <math.h>
 #include <stdio.h>

@@ -258,7 +258,7 @@ int calib_fit(const double *ph, const double *mv, const double *temperature_c, i
 {
 	if (n < 2)
 		return -1;
-	/* Model (INTERFACE.md's electrode): mV_i = offset - s/100 k(T_i) (pH_i - 7).
+	/* Model (docs/chemistry.md's electrode): mV_i = offset - s/100 k(T_i) (pH_i - 7).
 	 * Linear in (offset, s) with x_i = -k(T_i) (pH_i - 7) / 100. */
 	double sx = 0, sy = 0;
 	double x[CALIB_MAX_BUFFERS * 4];

@@ -73,7 +73,7 @@ typedef struct calib_config {
 	calib_buffer_t lab[CALIB_MAX_LAB_BUFFERS];
 } calib_config_t;
 
-/* Defaults: slope 95..105 %, offset -30..30 mV (common practice, CHECKS.md
+/* Defaults: slope 95..105 %, offset -30..30 mV (common practice, docs/chemistry.md
  * section 4), residual 5 mV, expires 24 h, stable 0.1 mV over 10 s after at
  * least 5 s, at most 180 s, no lab tables. */
 void calib_config_defaults(calib_config_t *c);
@@ -211,7 +211,7 @@ bool calib_is_valid(const calib_result_t *c, double now_unix_s);
 bool calib_check_for_run(const calib_result_t *c, const char *station, double now_unix_s, char *msg,
                          size_t cap);
 
-/* JSON of a calibration (INTERFACE.md): state, next_buffer (or null),
+/* JSON of a calibration (docs/api.md): state, next_buffer (or null),
  * slope_pct, offset_mv, temperature_c, slope_mv_per_ph, buffers [{nominal,
  * name, ph, mv, temperature_c, residual_mv}], at, expires_at (RFC 3339 UTC or
  * null), reason (or null). The caller adds "id" and "station". New reference. */
@@ -263,7 +263,7 @@ bool stdz_series_add(stdz_series_t *s, const stdz_config_t *cfg, const char *tit
                      stdz_result_t *out);
 
 /* Molarity (mol/L) of a base titrated against potassium hydrogen phthalate
- * (1:1): c = 1000 m P / (204.22 (V - V_blank)), CHECKS.md section 8. mass_g
+ * (1:1): c = 1000 m P / (204.22 (V - V_blank)), docs/chemistry.md §8. mass_g
  * of KHP, purity as a fraction (1.0 when unknown), volumes mL. NaN when
  * V - V_blank <= 0 or an input is not finite. */
 double stdz_khp_molarity(double mass_g, double purity, double volume_ml, double blank_ml);

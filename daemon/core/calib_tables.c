@@ -13,7 +13,7 @@
 #include "calib.h"
 
 /* IUPAC 2002 (Buck et al., Pure Appl. Chem. 74, 2169), pH(PS) of the primary
- * standards, copied from CHECKS.md section 3. The full 3-decimal rows there are
+ * standards, copied from docs/chemistry.md §3. The full 3-decimal rows there are
  * marked [M] (from memory); the 25 degC values are confirmed [S]: KHP 4.005
  * (Hamer, Pinching & Acree 1946), phosphate 6.865 (Partanen & Minkkinen 1996),
  * borax 9.180 and carbonate 10.012 (Bates et al. 1969). Every row agrees with
@@ -157,7 +157,7 @@ double calib_buffer_ph(const calib_buffer_t *b, double temperature_c)
 void calib_config_defaults(calib_config_t *c)
 {
 	memset(c, 0, sizeof *c);
-	/* Common practice, not a standard (CHECKS.md section 4): 95..105 % of the
+	/* Common practice, not a standard (docs/chemistry.md §4): 95..105 % of the
 	 * Nernst slope and +-30 mV at pH 7 are the widely used acceptance limits. */
 	c->slope_min_pct = 95.0;
 	c->slope_max_pct = 105.0;
@@ -170,7 +170,7 @@ void calib_config_defaults(calib_config_t *c)
 	c->expires_h = 24.0;
 	/* Our choice: the electrode has settled when its reading drifts less than
 	 * 0.1 mV (about 0.002 pH) over 10 s; 180 s is ample for a healthy glass
-	 * electrode in a stirred buffer (t90 is typically 2-30 s, CHECKS.md 10). */
+	 * electrode in a stirred buffer (t90 is typically 2-30 s, docs/chemistry.md §10). */
 	c->stable_drift_mv = 0.1;
 	c->stable_window_s = 10.0;
 	c->stable_min_s = 5.0;

@@ -383,7 +383,7 @@ static double gran_volume(const method_t *m, const engine_point_t *pts, int n, i
 		/* c: the ion the titrant removes, mol/L: H+ when the pH rises,
 		 * OH- (Kw 1e-14) when it falls. The weak form counts the conjugate
 		 * made by the titrant, corrected for the free c itself, which
-		 * matters early on (Ingman & Still, Talanta 1966; CHECKS.md 9):
+		 * matters early on (Ingman & Still, Talanta 1966; docs/chemistry.md §9):
 		 * x = V + (V0 + V) c / c_t, and x c is linear in x to zero at Ve. */
 		double ph = gran_ph(m, &pts[i]);
 		double c = ph_dir > 0 ? pow(10.0, -ph) : pow(10.0, ph - 14.0);

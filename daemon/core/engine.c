@@ -300,7 +300,7 @@ static void evaluate(engine_t *e)
 		    /* A settled point is good to about half the settling band
 		     * (the electrode may still creep within it), and never better
 		     * than the meter's resolution (0.001 pH / 0.1 mV, common
-		     * practice, CHECKS.md 10). */
+		     * practice, docs/chemistry.md §10). */
 		    .sigma_signal = fmax(0.002, e->m.still_within / 2),
 		    .sigma_ml = e->quantum_ml,
 		    /* a real beaker's electrode reads a(H+), and its activity

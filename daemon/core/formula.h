@@ -1,6 +1,6 @@
 /* formula.h: the result formula language of method files.
  *
- * Numbers, + - * / ( ), unary minus, and the named variables of INTERFACE.md:
+ * Numbers, + - * / ( ), unary minus, and the named variables of docs/methods.md:
  * end1_ml .. end4_ml, end1_ph .. end4_ph, half1_ph .. half4_ph, blank_ml,
  * titrant_molarity, titer, amount. Nothing else is evaluated. A formula is
  * compiled once into a fixed-size postfix program (no heap), so method_t

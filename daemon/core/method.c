@@ -91,7 +91,7 @@ void method_defaults(method_t *m)
 }
 
 /* Defaults in signal units change with the signal: a 0.1 pH step is about
- * 6 mV at 25 degC (59.16 mV/pH, CODATA 2018 via CHECKS.md section 4). */
+ * 6 mV at 25 degC (59.16 mV/pH, CODATA 2018 via docs/chemistry.md §4). */
 static void signal_defaults(method_t *m)
 {
 	if (m->signal == SIGNAL_MV) {

@@ -1,6 +1,6 @@
 /* method.h: a validated titration method, as the engine consumes it.
  *
- * Method files are YAML written by people (keys in ../shared/INTERFACE.md and
+ * Method files are YAML written by people (keys in docs/methods.md and
  * docs/methods.md). method_parse() checks every key, type, unit, range and
  * cross-field rule and reports every error as "file:line:col: message".
  * The struct it fills is plain data: no pointers into the YAML, so it may be

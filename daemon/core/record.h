@@ -1,4 +1,4 @@
-/* record.h: the run record of INTERFACE.md as a C struct, and its one JSON form.
+/* record.h: the run record of docs/lims.md as a C struct, and its one JSON form.
  *
  * `stopcock predict --json` and the daemon (GET /v1/runs/{id}, /v1/results)
  * print the same record through record_to_json(), so the two can never
@@ -30,7 +30,7 @@ typedef struct record_endpoint {
 	double mv;          /* NaN -> null */
 	double half_ph;     /* pH at half the endpoint volume; NaN -> null */
 	char how[16];       /* "inflection", "model", "target", "gran" */
-	/* additions to INTERFACE.md: both evaluations side by side */
+	/* additions to the record of docs/lims.md: both evaluations side by side */
 	double derivative_ml; /* first-derivative / target / Gran volume; NaN -> null */
 	double model_ml;      /* model-fit volume; NaN -> null */
 } record_endpoint_t;
@@ -118,10 +118,10 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 /* Append a fault (silently dropped past RECORD_MAX_FAULTS). */
 void record_add_fault(run_record_t *r, const char *at, const char *code, const char *message);
 
-/* The record as INTERFACE.md's JSON object (new reference; NULL on OOM). */
+/* The record as docs/lims.md's JSON object (new reference; NULL on OOM). */
 json_t *record_to_json(const run_record_t *r);
 
-/* One point as INTERFACE.md's point object {t_s, volume_ml, mv, ph,
+/* One point as docs/api.md's point object {t_s, volume_ml, mv, ph,
  * temperature_c, settled, dpdv} (new reference). */
 json_t *record_point_to_json(const engine_point_t *p);
 

@@ -84,7 +84,7 @@ int stdz_replicates(const double *titers, int n, double max_rsd_pct, stdz_result
 
 double stdz_khp_molarity(double mass_g, double purity, double volume_ml, double blank_ml)
 {
-	/* CHECKS.md section 8: c = 1000 m P / (204.22 (V - V_blank)), 1:1
+	/* docs/chemistry.md §8: c = 1000 m P / (204.22 (V - V_blank)), 1:1
 	 * stoichiometry (one acidic proton per phthalate). */
 	if (!isfinite(mass_g) || !isfinite(purity) || !isfinite(volume_ml) || !isfinite(blank_ml))
 		return NAN;

@@ -1,4 +1,4 @@
-/* http.h: the HTTP API of INTERFACE.md on libmicrohttpd (routes in docs/api.md).
+/* http.h: the HTTP API of docs/api.md on libmicrohttpd (routes in docs/api.md).
  *
  * Handlers never touch a device: they read the store and station snapshots
  * and post commands to station threads. Every error is JSON

@@ -1,5 +1,5 @@
 /* http_www.c: the bench page (docs/bench-page.md) and the two routes it needs
- * beyond INTERFACE.md: GET /v1/runs (a filtered list) and
+ * beyond the LIMS contract of docs/lims.md: GET /v1/runs (a filtered list) and
  * POST /v1/methods/{id}/check (validate a method's text without saving it).
  *
  * The page is plain files: GET / is index.html, GET /www/NAME any other file

@@ -1,4 +1,4 @@
-/* stopcock_sim.c: `stopcock-sim`, the simulated bench (INTERFACE.md).
+/* stopcock_sim.c: `stopcock-sim`, the simulated bench (docs/api.md).
  *
  * A burette on a pseudo-terminal (config/pumps/sim.yaml's protocol), a pH/mV
  * transmitter and stirrer on Modbus TCP (and RTU on a second pty with

@@ -164,7 +164,7 @@ store_status_t store_run_state(store_t *s, int64_t id, char *out, size_t cap, ch
                                size_t station_cap);
 /* The method's signal word of a run ("ph"/"mv") into out. */
 store_status_t store_run_signal(store_t *s, int64_t id, char *out, size_t cap);
-/* Points as a JSON array of point objects (INTERFACE.md fields). */
+/* Points as a JSON array of point objects (docs/api.md fields). */
 json_t *store_points_json(store_t *s, int64_t id, bool *db_err);
 /* Points as CSV text (malloc'd): header t_s,volume_ml,mv,ph,temperature_c,settled,dpdv. */
 char *store_points_csv(store_t *s, int64_t id, bool *db_err);

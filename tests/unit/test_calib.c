@@ -13,7 +13,7 @@
 #include "yamltree.h"
 
 /* IUPAC 2002 (Buck et al., Pure Appl. Chem. 74, 2169) pH(PS), as copied in
- * CHECKS.md section 3. The full 3-decimal rows are [M] (from memory); the 25
+ * docs/chemistry.md §3. The full 3-decimal rows are [M] (from memory); the 25
  * degC values are [S] (Hamer, Pinching & Acree 1946; Partanen & Minkkinen 1996;
  * Bates et al. 1969). Typed here independently of calib_tables.c. */
 static const double ref_t_c[] = {5, 10, 15, 20, 25, 30, 35, 37, 40, 50};
@@ -43,7 +43,7 @@ TEST(calib_iupac_tables_5_to_50_c)
 	CHECK_NEAR(calib_buffer_ph(&khp, 22.5), 4.0025, 0.0005);
 	/* Cross-check of the shape between rows against an independent closed
 	 * form: Hetzer, Durst, Robinson & Bates 1977 (NBS basis, about 0.003 above
-	 * the IUPAC rows; CHECKS.md section 3 [S]). */
+	 * the IUPAC rows; docs/chemistry.md §3 [S]). */
 	for (double t_c = 7.5; t_c <= 42.5; t_c += 5.0) {
 		double t_k = t_c + 273.15;
 		double nbs = 2073.44 / t_k - 13.3270 + 0.045199 * t_k - 3.4846e-5 * t_k * t_k;
@@ -122,7 +122,7 @@ TEST(calib_config_parse_keys)
 	CHECK_NEAR(calib_buffer_ph(&b, 37.5), 4.03, 1e-9);
 	diag_free(&d);
 
-	/* Absent key: defaults (common practice, CHECKS.md section 4). */
+	/* Absent key: defaults (common practice, docs/chemistry.md §4). */
 	CHECK_INT(load_cfg("stations: []\n", &c, &d), 0);
 	CHECK_NEAR(c.slope_min_pct, 95, 0);
 	CHECK_NEAR(c.slope_max_pct, 105, 0);
@@ -236,7 +236,7 @@ TEST(calib_session_recovers_noisy_lagging_electrode)
 {
 	calib_config_t cfg;
 	calib_config_defaults(&cfg);
-	/* Electrode like CHECKS.md section 10's defaults (common practice):
+	/* Electrode like docs/chemistry.md §10's defaults (common practice):
 	 * 0.1 mV RMS noise, t90 5 s (tau 2.2 s), plus an aged slope. */
 	const struct {
 		double slope_pct, offset_mv, t_c;
@@ -409,7 +409,7 @@ TEST(calib_temperature_compensation)
 {
 	/* Calibrated at 25 degC: ideal electrode. A reading at 37 degC of a
 	 * pH 9.000 sample gives -2 k(37) = -123.081 mV (k(37) = 61.540 mV/pH,
-	 * CHECKS.md section 4 [C], CODATA 2018). */
+	 * docs/chemistry.md §4 [C], CODATA 2018). */
 	calib_result_t c;
 	memset(&c, 0, sizeof c);
 	c.state = CALIB_ACCEPTED;
@@ -524,7 +524,7 @@ TEST(stdz_replicates_hand_computed)
 
 TEST(stdz_khp_titer_hand_computed)
 {
-	/* CHECKS.md section 8: c = 1000 m P / (204.22 (V - V_blank)); by hand
+	/* docs/chemistry.md §8: c = 1000 m P / (204.22 (V - V_blank)); by hand
 	 * 0.5105 g KHP, P = 1, 25.00 mL, blank 0.02 mL:
 	 * 510.5 / (204.22 x 24.98) = 510.5 / 5101.4156 = 0.100070 mol/L. */
 	double c = stdz_khp_molarity(0.5105, 1.0, 25.00, 0.02);

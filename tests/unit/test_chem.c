@@ -1,6 +1,6 @@
 /* test_chem.c: the chemistry model against published values and facts.
  *
- * Every reference value names its source beside it, with the mark CHECKS.md
+ * Every reference value names its source beside it, with the mark docs/chemistry.md
  * gives it: [S] confirmed in a stored source, [M] from memory, [C] computed
  * from a formula. Facts of the trade are marked "common practice".
  */
@@ -50,7 +50,7 @@ static chem_scenario_t base_scenario(double sample_ml, double naoh_molar)
 /* Skoog, West, Holler & Crouch, Fundamentals of Analytical Chemistry (8th/9th
  * ed., ch. 14), table "Changes in pH during the titration of a weak acid with
  * a strong base": 50.00 mL HOAc with NaOH of equal concentration, Ka 1.75e-5,
- * Kw 1.00e-14, no activity corrections. Book values [M] (CHECKS.md 5a). */
+ * Kw 1.00e-14, no activity corrections. Book values [M] (docs/chemistry.md §5a). */
 TEST(chem_skoog_weak_acid_strong_base)
 {
 	static const struct {
@@ -72,9 +72,10 @@ TEST(chem_skoog_weak_acid_strong_base)
 			double want = conc == 0 ? rows[i].ph_01 : rows[i].ph_0001;
 			double tol = 0.01;
 			if (want < 0)
-				continue; /* CHECKS.md: memory of these dilute cells is weak */
+				continue; /* docs/chemistry.md §5: memory of these dilute cells is
+				             weak */
 			/* The book's 49.90 mL row uses Henderson-Hasselbalch: 7.46 vs
-			 * the exact 7.45 (CHECKS.md 5a note); still within 0.01. */
+			 * the exact 7.45 (docs/chemistry.md §5a note); still within 0.01. */
 			CHECK_NEAR(chem_ph(&s, rows[i].ml), want, tol);
 		}
 	}
@@ -82,7 +83,7 @@ TEST(chem_skoog_weak_acid_strong_base)
 
 /* Skoog et al., same chapter, "titration of a strong acid with a strong
  * base": 50.00 mL 0.0500 M HCl with 0.1000 M NaOH, and 0.000500 M HCl with
- * 0.001000 M NaOH. Book values [M] (CHECKS.md 5b). Kw 1.00e-14. */
+ * 0.001000 M NaOH. Book values [M] (docs/chemistry.md §5b). Kw 1.00e-14. */
 TEST(chem_skoog_strong_acid_strong_base)
 {
 	static const struct {
@@ -106,7 +107,7 @@ TEST(chem_skoog_strong_acid_strong_base)
 }
 
 /* Skoog Example 15-9, maleic acid, Ka1 1.3e-2, Ka2 5.9e-7 [M]; the pH values
- * are the exact charge-balance solution of CHECKS.md 5c [C]. */
+ * are the exact charge-balance solution of docs/chemistry.md §5c [C]. */
 TEST(chem_maleic_acid_polyprotic)
 {
 	static const double ml[] = {0, 5, 12.5, 20, 24, 25, 26, 30, 37.5, 45, 49, 50, 51, 55, 60};
@@ -126,7 +127,7 @@ TEST(chem_maleic_acid_polyprotic)
 	CHECK_NEAR(eq[1], 50.0, 1e-9);
 }
 
-/* CHECKS.md 5c extra case, phosphoric acid, pKa 2.148, 7.198, 12.35, ideal [C]. */
+/* docs/chemistry.md §5c extra case, phosphoric acid, pKa 2.148, 7.198, 12.35, ideal [C]. */
 TEST(chem_phosphoric_acid_polyprotic)
 {
 	static const double ml[] = {0,  10, 25, 40,  49,  50,  51,  60,
@@ -149,7 +150,7 @@ TEST(chem_phosphoric_acid_polyprotic)
 }
 
 /* CRC Handbook table "Ionization constant of water", pKw at 0.1 MPa:
- * 14.946 / 13.995 / 13.264 at 0 / 25 / 50 degC [S] (CHECKS.md 2). */
+ * 14.946 / 13.995 / 13.264 at 0 / 25 / 50 degC [S] (docs/chemistry.md §2). */
 TEST(chem_pkw_against_crc)
 {
 	CHECK_NEAR(chem_pkw(0.0), 14.946, 0.002);
@@ -161,13 +162,13 @@ TEST(chem_pkw_against_crc)
 }
 
 /* Nernst slope ln10 R T / F with CODATA 2018 R, F: 59.16 mV/pH at 25 degC
- * [S]; 54.199 at 0 and 64.120 at 50 degC [C] (CHECKS.md 4). */
+ * [S]; 54.199 at 0 and 64.120 at 50 degC [C] (docs/chemistry.md §4). */
 TEST(chem_nernst_slope)
 {
 	CHECK_NEAR(chem_nernst_mv(25.0), 59.16, 0.005);
 	CHECK_NEAR(chem_nernst_mv(0.0), 54.199, 0.001);
 	CHECK_NEAR(chem_nernst_mv(50.0), 64.120, 0.001);
-	/* INTERFACE.md electrode equation: 0 mV at pH 7, slope sign negative. */
+	/* docs/chemistry.md electrode equation: 0 mV at pH 7, slope sign negative. */
 	CHECK_NEAR(chem_mv_from_ph(0.0, 100.0, 7.0, 25.0), 0.0, 1e-12);
 	CHECK_NEAR(chem_mv_from_ph(5.0, 98.0, 4.0, 25.0), 5.0 + 0.98 * 59.1593 * 3.0, 0.001);
 	for (double ph = -1.0; ph <= 15.0; ph += 0.5)
@@ -176,7 +177,7 @@ TEST(chem_nernst_slope)
 		    1e-9);
 }
 
-/* Debye-Hueckel A from theory, CHECKS.md 6 [C]: 0.4918 / 0.5108 / 0.5342 at
+/* Debye-Hueckel A from theory, docs/chemistry.md §6 [C]: 0.4918 / 0.5108 / 0.5342 at
  * 0 / 25 / 50 degC; the classic table [S] differs by up to 0.003. */
 TEST(chem_davies_a_from_theory)
 {
@@ -205,7 +206,7 @@ TEST(chem_neutral_water)
 /* Facts of the trade (common practice), with the model's own laws. */
 TEST(chem_trade_facts)
 {
-	double pka = 4.756; /* acetic acid, CHECKS.md 1 (CRC via LibreTexts E1) [S] */
+	double pka = 4.756; /* acetic acid, docs/chemistry.md §1 (CRC via LibreTexts E1) [S] */
 	chem_scenario_t s = base_scenario(50.0, 0.1000);
 	s.n_sample = 1;
 	s.sample[0] = weak("acetic acid", 0.1000, 0, 1, &pka);
@@ -228,7 +229,7 @@ TEST(chem_trade_facts)
 		CHECK_NEAR(chem_ph(&s, 25.0), pka, 0.03);
 	}
 	/* The same for a base titrated with acid: ammonia (NH4+ pKa 9.245,
-	 * CHECKS.md 1 [S]) with HCl, half-way pH = pKa. */
+	 * docs/chemistry.md §1 [S]) with HCl, half-way pH = pKa. */
 	double pka_nh4 = 9.245;
 	chem_scenario_t b = base_scenario(20.0, 0.1);
 	b.activity = CHEM_ACT_IDEAL;
@@ -248,8 +249,8 @@ TEST(chem_trade_facts)
 /* Equivalence volumes for mixtures: free strong acid first, then weak steps. */
 TEST(chem_equivalence_mixtures)
 {
-	/* Cider of INTERFACE.md: 10 mL of HCl 0.001 + malic 0.042 (3.40, 5.20) +
-	 * ammonia 0.005 (9.25, charge 1), 0.1 M NaOH. Protons 0.085 mol/L; the
+	/* The cider of config/scenarios/cider-acidity.yaml: 10 mL of HCl 0.001 + malic 0.042
+	 * (3.40, 5.20) + ammonia 0.005 (9.25, charge 1), 0.1 M NaOH. Protons 0.085 mol/L; the
 	 * ammonia takes one from the first malic step: 3.8, 8.0, 8.5 mL. */
 	double malic[2] = {3.40, 5.20}, nh4 = 9.25, eq[8];
 	chem_scenario_t s = base_scenario(10.0, 0.1);
@@ -541,11 +542,11 @@ TEST(beaker_noise_drift_and_seed)
 }
 
 /* IUPAC 2002 primary pH standards at 25 degC (Buck et al., Pure Appl. Chem.
- * 74, 2169; the 25 degC values confirmed [S], CHECKS.md 3): 0.05 mol/kg KHP
+ * 74, 2169; the 25 degC values confirmed [S], docs/chemistry.md §3): 0.05 mol/kg KHP
  * 4.005, 0.025/0.025 KH2PO4/Na2HPO4 6.865, 0.025/0.025 NaHCO3/Na2CO3 10.012.
  * They are defined with the Bates-Guggenheim convention, molal; the model
  * uses Davies, molar, so it is held to 0.02 pH, not to the table's digits.
- * pKa from CHECKS.md 1: phthalic 2.950, 5.408 [M]; phosphoric 2.148, 7.198,
+ * pKa from docs/chemistry.md §1: phthalic 2.950, 5.408 [M]; phosphoric 2.148, 7.198,
  * 12.35 [C]/[M]; carbonic 6.351, 10.329 [C]. */
 TEST(chem_iupac_buffers_davies)
 {

@@ -129,7 +129,7 @@ TEST(engine_endpoint_strong_acid)
 	/* HCl 1.000 mmol / 0.1 mol/L = 10.000 mL; tolerance as for the weak acid. */
 	CHECK_NEAR(engine_endpoint(e, 0)->volume_ml, 10.000, 0.005);
 	/* Strong acid and strong base: the equivalence pH is 7 (Skoog, strong
-	 * acid table, CHECKS.md 5b [M]); the point interpolated there lies on
+	 * acid table, docs/chemistry.md §5b [M]); the point interpolated there lies on
 	 * the steep part, so only its side is checked: between 5 and 9. */
 	CHECK(engine_endpoint(e, 0)->ph > 5 && engine_endpoint(e, 0)->ph < 9);
 	engine_free(e);
@@ -427,7 +427,7 @@ TEST(engine_deterministic_with_seed)
 }
 
 /* signal: mv. The electrode's mV falls as the pH rises (59.16 mV/pH at
- * 25 degC, CHECKS.md 4), so the curve in mV is a falling one; the model fit
+ * 25 degC, docs/chemistry.md §4), so the curve in mV is a falling one; the model fit
  * works in pH through the calibration. Same volume, same tolerance. */
 TEST(engine_signal_mv_falling)
 {

@@ -30,7 +30,7 @@
 	"drift_mv_per_min: 0.0}\nburette: {capacity_ml: 20.0, steps: 40000}\n"
 
 /* Target: to pH 8.20 (the wine-acidity endpoint of Iland et al. 2000,
- * CHECKS.md section 8). The reference is the model's own volume at pH 8.20,
+ * docs/chemistry.md §8). The reference is the model's own volume at pH 8.20,
  * found by bisection on the equilibrium curve. The additions shrink towards
  * the target (dose_min 0.005 mL), and the volume is interpolated between the
  * points either side, so it is good to about one smallest addition. */
@@ -68,7 +68,7 @@ TEST(engine_target_endpoint)
 	engine_free(e);
 }
 
-/* Gran (Gran 1952; CHECKS.md 9): V 10^-pH against V is a straight line
+/* Gran (Gran 1952; docs/chemistry.md §9): V 10^-pH against V is a straight line
  * before the endpoint whose x-intercept is the equivalence volume, 10.000
  * mL here. The line is straight only where activity coefficients stay
  * constant (Gran titrations keep a constant ionic medium): with Davies
@@ -97,7 +97,7 @@ TEST(engine_gran_endpoint)
 }
 
 /* Skoog et al., Fundamentals of Analytical Chemistry, weak acid table
- * (CHECKS.md 5a; book values [M], exact column [C]): 50.00 mL of 0.1000 M
+ * (docs/chemistry.md §5a; book values [M], exact column [C]): 50.00 mL of 0.1000 M
  * HOAc, Ka 1.75e-5, Kw 1.00e-14, no activity corrections, titrated with
  * 0.1000 M NaOH: equivalence at 50.00 mL, pH 4.76 at 25.00 mL (half). The
  * run needs two refills of a 20 mL burette. Tolerances: 0.025 mL is the
@@ -162,7 +162,7 @@ TEST(engine_results_accept_and_null)
 	engine_t *e = simrun_run(&m, &s, &o, &out);
 	REQUIRE(e && engine_n_results(e) == 4);
 	/* 1.000 mmol acetic acid (60.052 g/mol) in 10 mL: 6.0052 g/L -> 6.01
-	 * (CHECKS.md 7, molar mass from CIAAW 2021 atomic weights). */
+	 * (docs/chemistry.md §7, molar mass from CIAAW 2021 atomic weights). */
 	const engine_result_t *r = engine_result(e, 0);
 	CHECK(r->has_value);
 	CHECK_NEAR(r->value, 6.01, 1e-9);
@@ -198,7 +198,7 @@ TEST(engine_results_accept_and_null)
 	engine_free(e);
 }
 
-/* The record's JSON: INTERFACE.md field names, nulls for unknowns. */
+/* The record's JSON: docs/lims.md field names, nulls for unknowns. */
 TEST(engine_record_json)
 {
 	method_t m;

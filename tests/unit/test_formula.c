@@ -39,7 +39,7 @@ TEST(formula_precedence_and_associativity)
 TEST(formula_alkalinity_standard_methods)
 {
 	/* Standard Methods 2320 B: alkalinity (mg CaCO3/L) = A x N x 50 000 / mL sample
-	 * (form [M] in CHECKS.md section 8; 50 000 from CaCO3's equivalent mass 50.043 g,
+	 * (form [M] in docs/chemistry.md §8; 50 000 from CaCO3's equivalent mass 50.043 g,
 	 * CIAAW 2021 [S]). Hand-computed: 4.20 mL x 0.0200 N x 50 000 / 100 mL = 42.0. */
 	formula_vars_t fv = {0};
 	formula_vars_set(&fv, FV_END_ML + 0, 4.20);
@@ -59,7 +59,7 @@ TEST(formula_alkalinity_standard_methods)
 TEST(formula_khp_titer)
 {
 	/* NaOH standardized with KHP: c = 1000 m P / (204.22 (V - V_blank)), 1:1
-	 * (CHECKS.md section 8; 204.22 g/mol from CIAAW 2021 atomic weights [S]).
+	 * (docs/chemistry.md §8; 204.22 g/mol from CIAAW 2021 atomic weights [S]).
 	 * Hand-computed: m = 0.5105 g, P = 1, V = 25.10 mL, blank 0.05 mL:
 	 * c = 510.5 / (204.22 x 25.05) = 0.099790625 mol/L; titer = c / 0.1000 = 0.99790625. */
 	formula_vars_t fv = {0};
@@ -75,7 +75,7 @@ TEST(formula_khp_titer)
 TEST(formula_cider_acidity)
 {
 	/* Titratable acidity as malic acid: V x c x 67.04 / V_sample, g/L; 67.04 g per
-	 * equivalent = 134.087 / 2 (CHECKS.md section 7 [C]; AOAC 942.15 malic factor
+	 * equivalent = 134.087 / 2 (docs/chemistry.md §7 [C]; AOAC 942.15 malic factor
 	 * 0.067 g/meq [S]). Hand-computed: 8.15 mL x 0.1 x 67.04 / 10 mL = 5.46376 g/L. */
 	formula_vars_t fv = {0};
 	formula_vars_set(&fv, FV_END_ML + 0, 8.15);

@@ -69,7 +69,7 @@ static void electrode(chem_scenario_t *s)
 {
 	s->electrode.offset_mv = ELECTRODE_OFFSET_MV;
 	s->electrode.slope_pct = ELECTRODE_SLOPE_PCT;
-	s->electrode.tau_s = 2.2; /* t90 5 s: CHECKS.md section 10 (common practice) */
+	s->electrode.tau_s = 2.2; /* t90 5 s: docs/chemistry.md §10 (common practice) */
 	s->electrode.noise_mv = 0.1;
 	s->electrode.drift_mv_per_min = 0.0;
 }
@@ -77,7 +77,7 @@ static void electrode(chem_scenario_t *s)
 static bool khp_scenario(chem_scenario_t *s)
 {
 	char yaml[1024];
-	/* KHP as phthalic acid (pKa 2.950, 5.408, CHECKS.md section 1 [M]) plus
+	/* KHP as phthalic acid (pKa 2.950, 5.408, docs/chemistry.md §1 [M]) plus
 	 * one equivalent of potassium as strong base; KHP_G g in 50 mL. */
 	double molar = KHP_G / 204.22 / 0.050;
 	snprintf(yaml, sizeof yaml,
@@ -259,7 +259,7 @@ TEST(stdz_titer_changes_a_bench_result_exactly)
 	CHECK_NEAR(v[1] / v[0], 1.0230, 1e-8);
 	/* With the true titer the result is right: 0.042 mol/L malic acid gives
 	 * 2 x 0.042 mol NaOH per litre, at 67.04 g malic acid per mol NaOH
-	 * (134.087/2, CHECKS.md section 7): 5.631 g/L (0.5 %: endpoint accuracy). */
+	 * (134.087/2, docs/chemistry.md §7): 5.631 g/L (0.5 %: endpoint accuracy). */
 	CHECK_NEAR(v[1], 0.042 * 2 * 67.04, 0.042 * 2 * 67.04 * 0.005);
 	CHECK(fabs(v[0] - 0.042 * 2 * 67.04) > 0.02 * 0.042 * 2 * 67.04 * 0.5);
 }
