@@ -53,8 +53,8 @@ static const char *const migrations[] = {
     "  run_id INTEGER);",
     /* 1 -> 2: the audit trail names who did it (a token's name, "daemon",
      * "signal"); titrants keep the replicate statistics of their titer. */
-    "ALTER TABLE events ADD COLUMN actor TEXT;"
-    "ALTER TABLE titrants ADD COLUMN replicates TEXT;",
+    ("ALTER TABLE events ADD COLUMN actor TEXT;"
+     "ALTER TABLE titrants ADD COLUMN replicates TEXT;"),
     /* 2 -> 3: the daemon's heartbeat, for the end time of a run a crash cut. */
     "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
 };
