@@ -59,7 +59,7 @@ typedef struct cfg {
 	char methods_dir[CFG_PATH_MAX]; /* "" when none */
 	int n_stations;
 	cfg_station_t stations[CFG_MAX_STATIONS];
-	/* parsed by calib.h (calib_config_parse, stdz_config_parse); NULL: absent */
+	/* parsed by calib.h (calib_config_parse, standardization_config_parse); NULL: absent */
 	const yt_node_t *calibration;
 	const yt_node_t *standardization;
 	yt_doc_t doc; /* owns the station subtrees */

@@ -30,7 +30,7 @@ typedef struct mp_ctx {
 	mp_field_t f_kind, f_count, f_min_jump, f_window, f_target;
 	mp_field_t f_past, f_vol_max, f_limit, f_time_max;
 	/* The result a standardize run takes its titer from (the rule of
-	 * stdz_titer_from_result in calib.h): one named titer, else the first
+	 * standardization_titer_from_result in calib.h): one named titer, else the first
 	 * named molarity or in mol/L. -1 when none. */
 	int titer_index;
 	bool titer_is_named;

@@ -74,7 +74,8 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 	{
 		/* stopcockd reports errors in `standardization:`; here only the values */
 		diag_list_t ignored = DIAG_LIST_INIT;
-		stdz_config_parse(&c->doc, c->standardization, &s->stdz_cfg, &ignored);
+		standardization_config_parse(&c->doc, c->standardization, &s->standardization_cfg,
+		                             &ignored);
 		diag_free(&ignored);
 	}
 	if (cal)
@@ -778,6 +779,11 @@ int station_enqueue(station_t *s, const station_job_t *job)
 	pthread_cond_broadcast(&s->cond);
 	station_unlock(s);
 	return 0;
+}
+
+void station_set_titer_book(station_t *s, struct titer_book *b)
+{
+	s->titers = b;
 }
 
 void station_hold(station_t *s, const char *reason)

@@ -29,6 +29,7 @@
 #include "store.h"
 
 typedef struct station station_t;
+struct titer_book;
 
 typedef struct station_snapshot {
 	char name[CFG_NAME_MAX];
@@ -137,6 +138,10 @@ typedef enum {
 station_cmd_t station_abort(station_t *s, int64_t run_id);
 /* Halt the burette at once; the current run becomes aborted. */
 station_cmd_t station_halt(station_t *s);
+
+/* The daemon's titer book (titer_book.h), shared by every station; before
+ * station_start(). */
+void station_set_titer_book(station_t *s, struct titer_book *b);
 
 /* Hold the station: no run starts (queued runs wait) until station_resume().
  * The daemon holds a station at start-up when it had a running or queued run,

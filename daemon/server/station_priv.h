@@ -8,6 +8,7 @@
 #include <stdint.h>
 
 #include "calib.h"
+#include "standardization.h"
 #include "drv.h"
 #include "station.h"
 #include "store.h"
@@ -63,8 +64,9 @@ struct station {
 	atomic_uint_fast64_t heartbeat_us; /* notify_now_us() of the last loop */
 
 	calib_config_t cal_cfg;
-	stdz_config_t stdz_cfg; /* replicates that make one titer (config) */
-	calib_session_t *cal;   /* the station's calibration, NULL when none */
+	standardization_config_t standardization_cfg; /* replicates that make one titer (config) */
+	struct titer_book *titers; /* the daemon's, shared by all stations; NULL: none */
+	calib_session_t *cal;      /* the station's calibration, NULL when none */
 	int64_t cal_id;
 	int64_t cal_logged_id; /* calibration whose end is in the audit trail */
 	char cal_actor[64];    /* the token's name that started cal_id */

@@ -7,6 +7,7 @@
  */
 #include "station.h"
 #include "station_priv.h"
+#include "titer_book.h"
 
 #include <math.h>
 #include <pthread.h>
@@ -551,21 +552,13 @@ static const char *final_state(const run_t *r)
 	}
 }
 
-/* Replicates of each titrant, daemon-wide: the titer is stored per titrant
- * name (not per station), so replicates of one titrant may run on any
- * station. In memory only: a restart starts each series afresh (said in
- * docs/calibration.md), which is what a lab wants after an interruption. */
-#define STDZ_BOOK 8
-static pthread_mutex_t stdz_lock = PTHREAD_MUTEX_INITIALIZER;
-static stdz_series_t stdz_book[STDZ_BOOK];
-
-typedef struct stdz_note {
+typedef struct standardization_note {
 	bool have;     /* a standardization run gave a titer */
 	bool complete; /* the series is complete: res holds its statistics */
 	int replicate, of;
 	double titer;
-	stdz_result_t res;
-} stdz_note_t;
+	standardization_result_t res;
+} standardization_note_t;
 
 /* The titer a finished standardization run yields, or NaN. */
 static double run_titer(const run_t *r)
@@ -577,39 +570,33 @@ static double run_titer(const run_t *r)
 		if (!res->has_value || res->accept == ENGINE_ACCEPT_LOW ||
 		    res->accept == ENGINE_ACCEPT_HIGH)
 			continue;
-		if (stdz_titer_from_result(res->name, res->unit, res->value, m->titrant_molarity,
-		                           &titer) == 0)
+		if (standardization_titer_from_result(res->name, res->unit, res->value,
+		                                      m->titrant_molarity, &titer) == 0)
 			return titer;
 	}
 	return NAN;
 }
 
 /* Add a finished standardization run to its titrant's series. */
-static void stdz_add(run_t *r, stdz_note_t *n)
+static void standardization_add(run_t *r, standardization_note_t *n)
 {
 	const char *name = r->job->method.titrant_name;
-	stdz_series_t *s = NULL;
 
 	memset(n, 0, sizeof *n);
 	n->titer = run_titer(r);
 	if (!isfinite(n->titer))
 		return;
 	n->have = true;
-	n->of = r->s->stdz_cfg.replicates;
-	pthread_mutex_lock(&stdz_lock);
-	for (int i = 0; i < STDZ_BOOK && !s; i++)
-		if (!strcmp(stdz_book[i].titrant, name))
-			s = &stdz_book[i];
-	for (int i = 0; i < STDZ_BOOK && !s; i++)
-		if (!stdz_book[i].titrant[0])
-			s = &stdz_book[i];
-	if (!s) { /* more titrants than slots: reuse the first */
-		s = &stdz_book[0];
-		s->titrant[0] = '\0';
+	n->of = r->s->standardization_cfg.replicates;
+	if (!r->s->titers) /* no book: a station outside the daemon (unit tests) */
+		return;
+	n->complete = titer_book_add(r->s->titers, &r->s->standardization_cfg, name, n->titer,
+	                             &n->replicate, &n->res);
+	if (n->replicate < 0) {
+		n->have = false;
+		log_err("station %s run %lld: out of memory keeping the titer", r->s->name,
+		        (long long)r->job->run_id);
 	}
-	n->replicate = s->n + 1;
-	n->complete = stdz_series_add(s, &r->s->stdz_cfg, name, n->titer, &n->res);
-	pthread_mutex_unlock(&stdz_lock);
 }
 
 static json_t *num_or_null(double v)
@@ -618,7 +605,7 @@ static json_t *num_or_null(double v)
 }
 
 /* The run record's "standardization" object (docs/api.md). */
-static json_t *stdz_json(const stdz_note_t *n)
+static json_t *standardization_json(const standardization_note_t *n)
 {
 	json_t *j = json_pack("{s:o,s:i,s:i,s:b}", "titer", num_or_null(n->titer), "replicate",
 	                      n->replicate, "of", n->of, "complete", n->complete);
@@ -636,7 +623,7 @@ static json_t *stdz_json(const stdz_note_t *n)
 
 /* After the final record of a finished standardization or blank is stored:
  * keep what it measured, and say so in the audit trail. */
-static void keep_outcome(run_t *r, const stdz_note_t *n)
+static void keep_outcome(run_t *r, const standardization_note_t *n)
 {
 	const method_t *m = &r->job->method;
 	const char *st = r->s->name;
@@ -652,7 +639,7 @@ static void keep_outcome(run_t *r, const stdz_note_t *n)
 		store_event_add(r->s->store, at, st, id, "standardization", "replicate", msg, who);
 	} else if (m->purpose == PURPOSE_STANDARDIZE && n->have) {
 		if (n->res.accepted) {
-			json_t *j = stdz_json(n);
+			json_t *j = standardization_json(n);
 			char *text =
 			    j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 			json_decref(j);
@@ -787,7 +774,7 @@ static void finish(run_t *r)
 	char *text;
 	int64_t seq = 0;
 	int n = engine_n_points(r->e);
-	stdz_note_t note;
+	standardization_note_t note;
 
 	set_stirrer(r, false);
 	/* engine_done() smooths dpdv: store the final points in place. */
@@ -805,7 +792,7 @@ static void finish(run_t *r)
 	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);
 	memset(&note, 0, sizeof note);
 	if (!strcmp(state, "finished") && r->job->method.purpose == PURPOSE_STANDARDIZE)
-		stdz_add(r, &note);
+		standardization_add(r, &note);
 	text = record_text(r);
 	/* record_fill_from_engine() sets the phase; a final record has none */
 	if (text) {
@@ -834,7 +821,7 @@ static void finish(run_t *r)
 				                                    "message", words));
 		}
 		if (note.have)
-			json_object_set_new(j, "standardization", stdz_json(&note));
+			json_object_set_new(j, "standardization", standardization_json(&note));
 		text = json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		json_decref(j);
 	}

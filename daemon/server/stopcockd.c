@@ -24,7 +24,9 @@
 #include "notify.h"
 #include "recover.h"
 #include "station.h"
+#include "standardization.h"
 #include "store.h"
+#include "titer_book.h"
 
 #define READY_WAIT_S 15.0 /* how long start-up waits for devices to answer */
 /* How often the daemon notes in the database that it is alive: the end time
@@ -292,6 +294,7 @@ int main(int argc, char **argv)
 	int rc = 1, n = 0;
 	uint64_t wd_us;
 	bool stale_pending = false;
+	titer_book_t *titers = NULL; /* the replicate titers, daemon-wide */
 	double beat_s = 0, stale_try_s = 0;
 
 	sigemptyset(&set);
@@ -322,13 +325,20 @@ int main(int argc, char **argv)
 		snprintf(cfg.database, sizeof cfg.database, "%s/stopcock.db", o.state_dir);
 	calib_config_parse(&cfg.doc, cfg.calibration, &cal, &d);
 	if (cfg.standardization) {
-		stdz_config_t sz;
-		stdz_config_parse(&cfg.doc, cfg.standardization, &sz, &d);
+		standardization_config_t sz;
+		standardization_config_parse(&cfg.doc, cfg.standardization, &sz, &d);
+	}
+	titers = titer_book_new();
+	if (!titers) {
+		log_err("out of memory");
+		goto out;
 	}
 	for (int i = 0; i < cfg.n_stations; i++) {
 		stations[i] = station_new(&cfg, &cfg.stations[i], &cal, &d);
-		if (stations[i])
+		if (stations[i]) {
+			station_set_titer_book(stations[i], titers);
 			n++;
+		}
 	}
 	ctx.cfg = &cfg;
 	ctx.stations = stations;
@@ -503,6 +513,7 @@ out:
 	http_stop(http);
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
+	titer_book_free(titers);
 	store_close(store);
 	pthread_rwlock_destroy(&ctx.tokens_lock);
 	diag_free(&d);

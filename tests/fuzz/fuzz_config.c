@@ -55,11 +55,11 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 				drv_stirrer_close(&s);
 		}
 		calib_config_t cc;
-		stdz_config_t sc;
+		standardization_config_t sc;
 		if (c->calibration)
 			(void)calib_config_parse(&c->doc, c->calibration, &cc, &d);
 		if (c->standardization)
-			(void)stdz_config_parse(&c->doc, c->standardization, &sc, &d);
+			(void)standardization_config_parse(&c->doc, c->standardization, &sc, &d);
 	}
 	cfg_free(c);
 	free(c);

@@ -7,6 +7,7 @@
 #include <string.h>
 
 #include "calib.h"
+#include "standardization.h"
 #include "chem.h"
 #include "formula.h"
 #include "harness.h"
@@ -490,59 +491,60 @@ TEST(calib_json_round_trip)
 	CHECK_INT(calib_result_from_json(NULL, &b), -1);
 }
 
-TEST(stdz_replicates_hand_computed)
+TEST(standardization_replicates_hand_computed)
 {
 	/* Hand computation: mean (1.0012 + 1.0020 + 1.0004)/3 = 1.0012;
 	 * deviations 0, +0.0008, -0.0008; SD = sqrt(1.28e-6 / 2) = 0.0008;
 	 * RSD = 0.0008/1.0012 = 0.0799 %. */
 	const double t[] = {1.0012, 1.0020, 1.0004};
-	stdz_result_t r;
-	CHECK_INT(stdz_replicates(t, 3, 0.2, &r), 0);
+	standardization_result_t r;
+	CHECK_INT(standardization_replicates(t, 3, 0.2, &r), 0);
 	CHECK_NEAR(r.mean, 1.0012, 1e-12);
 	CHECK_NEAR(r.sd, 0.0008, 1e-12);
 	CHECK_NEAR(r.rsd_pct, 0.0799041, 1e-6);
 	CHECK(r.accepted);
 	/* 1.000 and 1.010: SD = 0.01/sqrt(2) = 0.0070711, RSD 0.7036 % > 0.2 %. */
 	const double u[] = {1.000, 1.010};
-	CHECK_INT(stdz_replicates(u, 2, 0.2, &r), 0);
+	CHECK_INT(standardization_replicates(u, 2, 0.2, &r), 0);
 	CHECK_NEAR(r.rsd_pct, 0.703589, 1e-5);
 	CHECK(!r.accepted);
 	CHECK(strstr(r.reason, "RSD") != NULL);
 	/* One replicate: a mean, no acceptance. */
-	CHECK_INT(stdz_replicates(u, 1, 0.2, &r), 0);
+	CHECK_INT(standardization_replicates(u, 1, 0.2, &r), 0);
 	CHECK(!r.accepted);
 	CHECK_NEAR(r.mean, 1.000, 0);
 	const double bad[] = {1.0, NAN};
-	CHECK_INT(stdz_replicates(bad, 2, 0.2, &r), -1);
+	CHECK_INT(standardization_replicates(bad, 2, 0.2, &r), -1);
 	CHECK(!r.accepted);
-	CHECK_INT(stdz_replicates(NULL, 0, 0.2, &r), -1);
-	stdz_config_t c;
-	stdz_config_defaults(&c);
+	CHECK_INT(standardization_replicates(NULL, 0, 0.2, &r), -1);
+	standardization_config_t c;
+	standardization_config_defaults(&c);
 	CHECK_INT(c.replicates, 3);
 	CHECK_NEAR(c.rsd_max_pct, 0.2, 0); /* common practice */
 }
 
-TEST(stdz_khp_titer_hand_computed)
+TEST(standardization_khp_titer_hand_computed)
 {
 	/* docs/chemistry.md §8: c = 1000 m P / (204.22 (V - V_blank)); by hand
 	 * 0.5105 g KHP, P = 1, 25.00 mL, blank 0.02 mL:
 	 * 510.5 / (204.22 x 24.98) = 510.5 / 5101.4156 = 0.100070 mol/L. */
-	double c = stdz_khp_molarity(0.5105, 1.0, 25.00, 0.02);
+	double c = standardization_khp_molarity(0.5105, 1.0, 25.00, 0.02);
 	CHECK_NEAR(c, 0.100070, 1e-6);
-	CHECK_NEAR(stdz_titer(c, 0.1000), 1.00070, 1e-5);
+	CHECK_NEAR(standardization_titer(c, 0.1000), 1.00070, 1e-5);
 	/* A certified KHP of 99.95 % scales it exactly. */
-	CHECK_NEAR(stdz_khp_molarity(0.5105, 0.9995, 25.00, 0.02), c * 0.9995, 1e-15);
-	CHECK(isnan(stdz_khp_molarity(0.5, 1.0, 0.02, 0.02)));
-	CHECK(isnan(stdz_khp_molarity(NAN, 1.0, 25, 0)));
-	CHECK(isnan(stdz_titer(0.1, 0)));
+	CHECK_NEAR(standardization_khp_molarity(0.5105, 0.9995, 25.00, 0.02), c * 0.9995, 1e-15);
+	CHECK(isnan(standardization_khp_molarity(0.5, 1.0, 0.02, 0.02)));
+	CHECK(isnan(standardization_khp_molarity(NAN, 1.0, 25, 0)));
+	CHECK(isnan(standardization_titer(0.1, 0)));
 	double titer = 0;
-	CHECK_INT(stdz_titer_from_result("molarity", "mol/L", 0.10212, 0.1000, &titer), 0);
+	CHECK_INT(standardization_titer_from_result("molarity", "mol/L", 0.10212, 0.1000, &titer),
+	          0);
 	CHECK_NEAR(titer, 1.0212, 1e-12);
-	CHECK_INT(stdz_titer_from_result("titer", "", 0.9987, 0.1000, &titer), 0);
+	CHECK_INT(standardization_titer_from_result("titer", "", 0.9987, 0.1000, &titer), 0);
 	CHECK_NEAR(titer, 0.9987, 0);
-	CHECK_INT(stdz_titer_from_result("c_naoh", "mol/L", 0.0995, 0.1000, &titer), 0);
+	CHECK_INT(standardization_titer_from_result("c_naoh", "mol/L", 0.0995, 0.1000, &titer), 0);
 	CHECK_NEAR(titer, 0.995, 1e-12);
-	CHECK_INT(stdz_titer_from_result("acidity", "g/L", 5.2, 0.1000, &titer), -1);
+	CHECK_INT(standardization_titer_from_result("acidity", "g/L", 5.2, 0.1000, &titer), -1);
 }
 
 static double eval(const char *text, double end1_ml, double blank_ml, double titer)
@@ -565,7 +567,7 @@ static double eval(const char *text, double end1_ml, double blank_ml, double tit
 	return out;
 }
 
-TEST(stdz_titer_and_blank_change_results_as_expected)
+TEST(standardization_titer_and_blank_change_results_as_expected)
 {
 	/* Orchard Lane Cider's acidity method: a new titer scales the result by
 	 * titer_new/titer_old; a new blank shifts it by the blank's share. */
@@ -581,28 +583,28 @@ TEST(stdz_titer_and_blank_change_results_as_expected)
 	CHECK_NEAR(both, (8.40 - 0.05) * 0.1 * 1.0123 * 67.04 / 10.0, 1e-12);
 }
 
-TEST(stdz_series_collects_replicates)
+TEST(standardization_series_collects_replicates)
 {
-	stdz_config_t c;
-	stdz_config_defaults(&c);
-	stdz_series_t s;
+	standardization_config_t c;
+	standardization_config_defaults(&c);
+	titer_series_t s;
 	memset(&s, 0, sizeof s);
-	stdz_result_t r;
+	standardization_result_t r;
 	/* The hand-computed set above, one run at a time. */
-	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0012, &r));
+	CHECK(!titer_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0012, &r));
 	CHECK_INT(r.n, 1);
-	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", NAN, &r)); /* ignored */
-	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0020, &r));
-	CHECK(stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0004, &r));
+	CHECK(!titer_series_add(&s, &c, "NaOH 0.1 mol/L", NAN, &r)); /* ignored */
+	CHECK(!titer_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0020, &r));
+	CHECK(titer_series_add(&s, &c, "NaOH 0.1 mol/L", 1.0004, &r));
 	CHECK(r.accepted);
 	CHECK_NEAR(r.mean, 1.0012, 1e-12);
 	CHECK_NEAR(r.rsd_pct, 0.0799041, 1e-6);
 	CHECK_INT(s.n, 0);
 	/* Another titrant starts over; a spread set is refused. */
-	CHECK(!stdz_series_add(&s, &c, "NaOH 0.1 mol/L", 1.000, &r));
-	CHECK(!stdz_series_add(&s, &c, "HCl 0.1 mol/L", 1.000, &r));
-	CHECK(!stdz_series_add(&s, &c, "HCl 0.1 mol/L", 1.010, &r));
-	CHECK(stdz_series_add(&s, &c, "HCl 0.1 mol/L", 1.005, &r));
+	CHECK(!titer_series_add(&s, &c, "NaOH 0.1 mol/L", 1.000, &r));
+	CHECK(!titer_series_add(&s, &c, "HCl 0.1 mol/L", 1.000, &r));
+	CHECK(!titer_series_add(&s, &c, "HCl 0.1 mol/L", 1.010, &r));
+	CHECK(titer_series_add(&s, &c, "HCl 0.1 mol/L", 1.005, &r));
 	CHECK(!r.accepted);
 	CHECK(strstr(r.reason, "RSD") != NULL);
 }

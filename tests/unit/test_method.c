@@ -278,7 +278,7 @@ TEST(method_mv_defaults_and_constant_mode)
 TEST(method_standardize_by_molarity)
 {
 	/* A standardize run may report the measured molarity instead of the
-	 * titer: stdz_titer_from_result (calib.h) divides it by the nominal. */
+	 * titer: standardization_titer_from_result (calib.h) divides it by the nominal. */
 	static const char text[] =
 	    "method: khp-molarity\n"
 	    "title: NaOH against KHP, as mol/L\n"

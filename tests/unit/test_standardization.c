@@ -1,4 +1,4 @@
-/* test_stdz_bench.c: calibration and standardization on the in-process
+/* test_standardization.c: calibration and standardization on the in-process
  * simulated bench (beaker.h, simrun.h) on a virtual clock:
  *   - the calibration session recovers the beaker's electrode;
  *   - a KHP standardization, read through that calibration, recovers the
@@ -13,6 +13,8 @@
 
 #include "beaker.h"
 #include "calib.h"
+#include "standardization.h"
+#include "titer_book.h"
 #include "chem.h"
 #include "scenario.h"
 #include "engine.h"
@@ -166,7 +168,7 @@ static double result_value(const engine_t *e, const char *name)
 	return NAN;
 }
 
-TEST(stdz_khp_on_the_bench_recovers_true_molarity)
+TEST(standardization_khp_on_the_bench_recovers_true_molarity)
 {
 	/* 1. Calibrate the bench's electrode. */
 	chem_scenario_t sc;
@@ -204,20 +206,20 @@ TEST(stdz_khp_on_the_bench_recovers_true_molarity)
 		CHECK_NEAR(molarity, TRUE_NAOH, TRUE_NAOH * 0.001);
 		/* the daemon keeps the `titer` result; it must agree with molarity */
 		titers[k] = NAN;
-		CHECK_INT(stdz_titer_from_result("titer", "", result_value(e, "titer"),
-		                                 m.titrant_molarity, &titers[k]),
+		CHECK_INT(standardization_titer_from_result("titer", "", result_value(e, "titer"),
+		                                            m.titrant_molarity, &titers[k]),
 		          0);
 		CHECK_NEAR(titers[k], molarity / m.titrant_molarity, 1e-5);
 		engine_free(e);
 	}
-	stdz_result_t r;
-	CHECK_INT(stdz_replicates(titers, n_rep, 0.2, &r), 0);
+	standardization_result_t r;
+	CHECK_INT(standardization_replicates(titers, n_rep, 0.2, &r), 0);
 	CHECK(r.accepted);
 	CHECK_NEAR(r.mean, TRUE_NAOH / 0.1000, TRUE_NAOH / 0.1000 * 0.001);
 	CHECK(r.rsd_pct < 0.2);
 }
 
-TEST(stdz_titer_changes_a_bench_result_exactly)
+TEST(standardization_titer_changes_a_bench_result_exactly)
 {
 	/* Orchard Lane Cider: 10 mL of cider; the same run (same seed, same
 	 * noise) evaluated with another titer and blank. Titer and blank do not
@@ -262,4 +264,35 @@ TEST(stdz_titer_changes_a_bench_result_exactly)
 	 * (134.087/2, docs/chemistry.md §7): 5.631 g/L (0.5 %: endpoint accuracy). */
 	CHECK_NEAR(v[1], 0.042 * 2 * 67.04, 0.042 * 2 * 67.04 * 0.005);
 	CHECK(fabs(v[0] - 0.042 * 2 * 67.04) > 0.02 * 0.042 * 2 * 67.04 * 0.5);
+}
+
+/* The daemon's titer book keeps one series per titrant however many
+ * titrants there are: before, the ninth titrant silently took the first's
+ * slot and lost its replicates. */
+TEST(titer_book_has_no_silent_limit)
+{
+	titer_book_t *b = titer_book_new();
+	REQUIRE(b);
+	standardization_config_t cfg;
+	standardization_config_defaults(&cfg); /* 3 replicates, RSD <= 0.2 % */
+	standardization_result_t res;
+	char name[32];
+	int rep = 0;
+	/* Two replicates each of 12 titrants... */
+	for (int k = 0; k < 2; k++)
+		for (int t = 0; t < 12; t++) {
+			snprintf(name, sizeof name, "NaOH lot %d", t);
+			CHECK(!titer_book_add(b, &cfg, name, 1.0010, &rep, &res));
+			CHECK_INT(rep, k + 1);
+		}
+	CHECK_INT(titer_book_titrants(b), 12);
+	/* ... then the third of each completes every series. */
+	for (int t = 0; t < 12; t++) {
+		snprintf(name, sizeof name, "NaOH lot %d", t);
+		CHECK(titer_book_add(b, &cfg, name, 1.0010, &rep, &res));
+		CHECK_INT(rep, 3);
+		CHECK_INT(res.n, 3);
+		CHECK(res.accepted);
+	}
+	titer_book_free(b);
 }

@@ -1,4 +1,4 @@
-/* stdz.c: titrant standardization (titer from replicates, KHP molarity) and
+/* standardization.c: titrant standardization (titer from replicates, KHP molarity) and
  * the daemon config's `standardization:` key (see calib.h).
  */
 #include <math.h>
@@ -6,9 +6,9 @@
 #include <string.h>
 #include <strings.h>
 
-#include "calib.h"
+#include "standardization.h"
 
-void stdz_config_defaults(stdz_config_t *c)
+void standardization_config_defaults(standardization_config_t *c)
 {
 	/* Common practice: three replicate titrations, accepted when their
 	 * relative standard deviation is at most 0.2 %. */
@@ -16,10 +16,11 @@ void stdz_config_defaults(stdz_config_t *c)
 	c->rsd_max_pct = 0.2;
 }
 
-int stdz_config_parse(const yt_doc_t *doc, const yt_node_t *n, stdz_config_t *c, diag_list_t *d)
+int standardization_config_parse(const yt_doc_t *doc, const yt_node_t *n,
+                                 standardization_config_t *c, diag_list_t *d)
 {
 	static const char *const keys[] = {"replicates", "rsd_max_pct", NULL};
-	stdz_config_defaults(c);
+	standardization_config_defaults(c);
 	if (!n || yt_is_null(n))
 		return 0;
 	if (!yt_want_map(doc, n, "standardization", d))
@@ -40,7 +41,8 @@ int stdz_config_parse(const yt_doc_t *doc, const yt_node_t *n, stdz_config_t *c,
 	return ok ? 0 : -1;
 }
 
-int stdz_replicates(const double *titers, int n, double max_rsd_pct, stdz_result_t *out)
+int standardization_replicates(const double *titers, int n, double max_rsd_pct,
+                               standardization_result_t *out)
 {
 	memset(out, 0, sizeof *out);
 	out->n = n;
@@ -82,7 +84,7 @@ int stdz_replicates(const double *titers, int n, double max_rsd_pct, stdz_result
 	return 0;
 }
 
-double stdz_khp_molarity(double mass_g, double purity, double volume_ml, double blank_ml)
+double standardization_khp_molarity(double mass_g, double purity, double volume_ml, double blank_ml)
 {
 	/* docs/chemistry.md §8: c = 1000 m P / (204.22 (V - V_blank)), 1:1
 	 * stoichiometry (one acidic proton per phthalate). */
@@ -91,18 +93,18 @@ double stdz_khp_molarity(double mass_g, double purity, double volume_ml, double 
 	double net_ml = volume_ml - blank_ml;
 	if (!(net_ml > 0) || !(mass_g > 0) || !(purity > 0))
 		return NAN;
-	return 1000.0 * mass_g * purity / (STDZ_KHP_G_PER_MOL * net_ml);
+	return 1000.0 * mass_g * purity / (KHP_G_PER_MOL * net_ml);
 }
 
-double stdz_titer(double measured_molarity, double nominal_molarity)
+double standardization_titer(double measured_molarity, double nominal_molarity)
 {
 	if (!(nominal_molarity > 0) || !isfinite(measured_molarity))
 		return NAN;
 	return measured_molarity / nominal_molarity;
 }
 
-int stdz_titer_from_result(const char *name, const char *unit, double value,
-                           double nominal_molarity, double *titer)
+int standardization_titer_from_result(const char *name, const char *unit, double value,
+                                      double nominal_molarity, double *titer)
 {
 	if (!isfinite(value) || !(value > 0))
 		return -1;
@@ -111,7 +113,7 @@ int stdz_titer_from_result(const char *name, const char *unit, double value,
 		return 0;
 	}
 	if ((name && strcmp(name, "molarity") == 0) || (unit && strcasecmp(unit, "mol/L") == 0)) {
-		double t = stdz_titer(value, nominal_molarity);
+		double t = standardization_titer(value, nominal_molarity);
 		if (!isfinite(t))
 			return -1;
 		*titer = t;
@@ -120,12 +122,12 @@ int stdz_titer_from_result(const char *name, const char *unit, double value,
 	return -1;
 }
 
-bool stdz_series_add(stdz_series_t *s, const stdz_config_t *cfg, const char *titrant, double titer,
-                     stdz_result_t *out)
+bool titer_series_add(titer_series_t *s, const standardization_config_t *cfg, const char *titrant,
+                      double titer, standardization_result_t *out)
 {
-	stdz_config_t def;
+	standardization_config_t def;
 	if (!cfg) {
-		stdz_config_defaults(&def);
+		standardization_config_defaults(&def);
 		cfg = &def;
 	}
 	memset(out, 0, sizeof *out);
@@ -143,9 +145,9 @@ bool stdz_series_add(stdz_series_t *s, const stdz_config_t *cfg, const char *tit
 	int want = cfg->replicates;
 	if (want < 2)
 		want = 2;
-	if (want > STDZ_MAX_REPLICATES)
-		want = STDZ_MAX_REPLICATES;
-	if (s->n >= STDZ_MAX_REPLICATES)
+	if (want > TITER_MAX_REPLICATES)
+		want = TITER_MAX_REPLICATES;
+	if (s->n >= TITER_MAX_REPLICATES)
 		s->n = 0;
 	s->titers[s->n++] = titer;
 	if (s->n < want) {
@@ -153,7 +155,7 @@ bool stdz_series_add(stdz_series_t *s, const stdz_config_t *cfg, const char *tit
 		snprintf(out->reason, sizeof out->reason, "replicate %d of %d", s->n, want);
 		return false;
 	}
-	stdz_replicates(s->titers, s->n, cfg->rsd_max_pct, out);
+	standardization_replicates(s->titers, s->n, cfg->rsd_max_pct, out);
 	s->n = 0;
 	return true;
 }
