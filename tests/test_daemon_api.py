@@ -205,7 +205,7 @@ def test_amount_outside_the_method_range_is_400(bench):
 
 def test_results_feed_parameters(bench):
     page = bench.get("/v1/results?after=0&limit=5")
-    assert set(page) == {"results", "next_after"}
+    assert set(page) == {"results", "next_after", "history"}
     assert bench.request("GET", "/v1/results?after=x").status == 400
     assert bench.request("GET", "/v1/results?limit=0").status == 400
     assert bench.request("GET", "/v1/results?limit=5000").status == 400
