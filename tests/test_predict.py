@@ -97,3 +97,12 @@ def test_bad_input_exits_2_with_file_line_col(tmp_path):
     r = predict(str(bad), "--scenario", SCENARIO)
     assert r.returncode == 2
     assert re.search(r"weak\.yaml:\d+:\d+: .*step_aim", r.stderr), r.stderr
+
+
+def test_human_output_says_which_sample_amount_it_assumed():
+    r = predict(METHOD, "--scenario", SCENARIO)
+    assert r.returncode == 0, r.stderr
+    m = re.search(r"^sample amount: ([0-9.]+) (mL|g) \(assumed", r.stdout, re.M)
+    assert m, r.stdout
+    r = predict(METHOD, "--scenario", SCENARIO, "--amount", "7")
+    assert re.search(r"^sample amount: 7 (mL|g) \(--amount\)", r.stdout, re.M), r.stdout

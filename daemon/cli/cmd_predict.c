@@ -44,10 +44,15 @@ static bool parse_double(const char *s, double *out)
 }
 
 static void print_human(const method_t *m, const engine_t *e, const simrun_out_t *out,
-                        const char *scenario, unsigned long long seed)
+                        const char *scenario, unsigned long long seed, double amount,
+                        bool amount_given)
 {
 	printf("method %s (revision %ld) against %s, seed %llu\n", m->id, m->revision, scenario,
 	       seed);
+	/* Results scale with the amount, so say which one they are for; without
+	 * --amount it is the scenario's sample volume, which a reader cannot guess. */
+	printf("sample amount: %g %s (%s)\n", amount, method_unit_name(m->sample_unit),
+	       amount_given ? "--amount" : "assumed: the scenario's sample_ml; give --amount");
 	const char *unit = m->signal == SIGNAL_MV ? "mV" : "pH";
 	int ne = engine_n_endpoints(e);
 	if (ne == 0)
@@ -226,7 +231,9 @@ int cmd_predict(int argc, char **argv)
 		simrun_params(&m, &scn, &o, &p);
 		rc = print_json(&m, e, &out, &p);
 	} else {
-		print_human(&m, e, &out, scenario_path, o.seed);
+		engine_params_t p;
+		simrun_params(&m, &s, &o, &p);
+		print_human(&m, e, &out, scenario_path, o.seed, p.amount, o.has_amount);
 	}
 	if (out.stuck) {
 		fprintf(stderr, "stopcock predict: the simulation did not finish (engine bug)\n");
