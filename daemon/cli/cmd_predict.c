@@ -216,6 +216,17 @@ int cmd_predict(int argc, char **argv)
 	}
 	diag_free(&d);
 
+	/* A method written for another titrant strength gives results off by
+	 * the ratio, with nothing else looking wrong; 10 % is far outside any
+	 * titer a standardization would accept, so it means another titrant. */
+	double scn_mol_l = fabs(chem_titrant_acidity(&s)); /* mol/L of H+ or OH- */
+	if (m.titrant_molarity > 0 &&
+	    fabs(scn_mol_l - m.titrant_molarity) > 0.10 * m.titrant_molarity)
+		fprintf(stderr,
+		        "warning: the method's titrant (%s, %g mol/L) differs from the "
+		        "scenario's (%g mol/L); results assume the method's\n",
+		        m.titrant_name, m.titrant_molarity, scn_mol_l);
+
 	simrun_out_t out;
 	engine_t *e = simrun_run(&m, &s, &o, &out);
 	if (!e) {
