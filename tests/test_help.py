@@ -60,3 +60,20 @@ def test_sim_help_and_man_page_list_the_same_options():
     assert "version" in helped and "help" in helped
     assert helped == manned, (
         f"only in --help: {sorted(helped - manned)}; only in the man page: {sorted(manned - helped)}")
+
+
+def man_text(name):
+    with open(os.path.join(ROOT, "docs", name)) as f:
+        return f.read()
+
+
+def test_check_and_ports_options_are_in_the_man_page():
+    manned = long_options(man_text("stopcock.1"))
+    for cmd, want in (("check", {"config", "station"}), ("ports", {"test", "station"}),
+                      ("predict", {"calibration", "amount", "seed", "scenario", "json"})):
+        r = run(prog("stopcock"), cmd, "--help")
+        assert r.returncode == 0, r.stderr
+        helped = long_options(r.stdout) - {"help"}
+        assert want <= helped | manned
+        missing = (helped | want) - manned
+        assert not missing, f"stopcock {cmd}: {sorted(missing)} missing from stopcock.1"
