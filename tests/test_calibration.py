@@ -86,7 +86,7 @@ def model_ph(path):
     out = subprocess.run([str(build_dir() / "bin" / "stopcock"), "curve", str(path),
                           "--ml", "0"], capture_output=True, text=True, timeout=20)
     assert out.returncode == 0, out.stderr
-    return float(out.stdout.split()[1])
+    return float(out.stdout.splitlines()[1].split()[1])
 
 
 def buffer_scenario(tmp, nominal, true_ph):

@@ -76,7 +76,9 @@ def run_curve(path, volumes):
     p = subprocess.run([BIN, "curve", str(path), "--ml", ml], capture_output=True, text=True,
                        timeout=30)
     assert p.returncode == 0, p.stderr
-    rows = [line.split() for line in p.stdout.splitlines()]
+    lines = p.stdout.splitlines()
+    assert lines[0] == "# titrant_mL pH electrode_mV"
+    rows = [line.split() for line in lines[1:]]
     assert len(rows) == len(volumes)
     return [(float(a), float(b), float(c)) for a, b, c in rows]
 

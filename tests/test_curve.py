@@ -15,7 +15,7 @@ def curve(*args):
 def test_prints_ml_ph_mv_lines():
     p = curve(GOOD, "--ml", "0,25,50")
     assert p.returncode == 0, p.stderr
-    lines = p.stdout.splitlines()
+    header, *lines = p.stdout.splitlines()
     assert len(lines) == 3
     for line in lines:
         assert re.fullmatch(r"\d+\.\d{3} -?\d+\.\d{4} -?\d+\.\d{2}", line), line
@@ -52,3 +52,11 @@ def test_missing_file_exits_2():
     p = curve("tests/scenarios/no-such-file.yaml", "--ml", "1")
     assert p.returncode == 2
     assert "no-such-file.yaml:0:0: cannot open" in p.stderr
+
+
+def test_curve_prints_a_header_naming_each_column_and_unit():
+    p = curve(GOOD, "--ml", "0")
+    assert p.returncode == 0, p.stderr
+    header = p.stdout.splitlines()[0]
+    assert header.startswith("#"), "the header must read as a comment to plotting tools"
+    assert header.split()[1:] == ["titrant_mL", "pH", "electrode_mV"], header

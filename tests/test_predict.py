@@ -125,3 +125,24 @@ def test_out_of_limits_exits_3(tmp_path):
     assert r.returncode == 3, (r.stdout, r.stderr)
     assert re.search(r"result acidity: 5\.3\d g/L \(high\)", r.stdout), r.stdout
     assert "outcome: finished" in r.stdout
+
+
+def test_human_output_says_which_sample_amount_it_assumed():
+    r = predict(METHOD, "--scenario", SCENARIO)
+    assert r.returncode == 0, r.stderr
+    m = re.search(r"^sample amount: ([0-9.]+) (mL|g) \(assumed", r.stdout, re.M)
+    assert m, r.stdout
+    r = predict(METHOD, "--scenario", SCENARIO, "--amount", "7")
+    assert re.search(r"^sample amount: 7 (mL|g) \(--amount\)", r.stdout, re.M), r.stdout
+
+
+def test_warns_when_the_scenario_titrant_differs_from_the_method(tmp_path):
+    r = predict(METHOD, "--scenario", SCENARIO)
+    assert "warning:" not in r.stderr, r.stderr
+    text = open(SCENARIO).read().replace("{name: sodium hydroxide, molar: 0.1000",
+                                         "{name: sodium hydroxide, molar: 0.5000")
+    scn = tmp_path / "strong-titrant.yaml"
+    scn.write_text(text)
+    r = predict(METHOD, "--scenario", str(scn))
+    assert r.returncode == 0, r.stderr
+    assert re.search(r"^warning: .*titrant.*0\.1 mol/L.*0\.5 mol/L", r.stderr, re.M), r.stderr

@@ -21,7 +21,10 @@
 
 static void usage(FILE *f)
 {
-	fprintf(f, "usage: stopcock check [-c stopcockd.yaml] [--station NAME] METHOD.yaml...\n");
+	fprintf(f, "usage: stopcock check [-c stopcockd.yaml] [--station NAME] METHOD.yaml...\n"
+	           "  -c, --config FILE   also hold the methods against this daemon config's\n"
+	           "                      station limits\n"
+	           "      --station NAME  only that station of the config\n");
 }
 
 int cmd_check(int argc, char **argv)

@@ -22,7 +22,8 @@
 static void curve_usage(FILE *f)
 {
 	fprintf(f, "usage: stopcock curve S.yaml --ml 0,1,2.5,...\n"
-	           "  prints one line per volume: titrant mL, equilibrium pH, electrode mV\n");
+	           "  prints a header line '# titrant_mL pH electrode_mV', then one line per\n"
+	           "  volume: titrant added (mL), equilibrium pH, electrode potential (mV)\n");
 }
 
 /* Parse "0,1,2.5" into volumes (mL >= 0). Errors go to d at column of the item. */
@@ -128,6 +129,9 @@ int cmd_curve(int argc, char **argv)
 		diag_print(&d, stderr);
 		goto out;
 	}
+	/* A header so a reader knows each column's unit; '#' lets plotting tools
+	 * (gnuplot, numpy.loadtxt) skip it as a comment. */
+	printf("# titrant_mL pH electrode_mV\n");
 	for (int i = 0; i < n_ml; i++) {
 		chem_state_t st;
 		if (chem_solve(&scn, ml[i], &st) != 0) {

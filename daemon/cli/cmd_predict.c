@@ -44,10 +44,15 @@ static bool parse_double(const char *s, double *out)
 }
 
 static void print_human(const method_t *m, const engine_t *e, const simrun_out_t *out,
-                        const char *scenario, unsigned long long seed)
+                        const char *scenario, unsigned long long seed, double amount,
+                        bool amount_given)
 {
 	printf("method %s (revision %ld) against %s, seed %llu\n", m->id, m->revision, scenario,
 	       seed);
+	/* Results scale with the amount, so say which one they are for; without
+	 * --amount it is the scenario's sample volume, which a reader cannot guess. */
+	printf("sample amount: %g %s (%s)\n", amount, method_unit_name(m->sample_unit),
+	       amount_given ? "--amount" : "assumed: the scenario's sample_ml; give --amount");
 	const char *unit = m->signal == SIGNAL_MV ? "mV" : "pH";
 	int ne = engine_n_endpoints(e);
 	if (ne == 0)
@@ -208,6 +213,17 @@ int cmd_predict(int argc, char **argv)
 	}
 	diag_free(&d);
 
+	/* A method written for another titrant strength gives results off by
+	 * the ratio, with nothing else looking wrong; 10 % is far outside any
+	 * titer a standardization would accept, so it means another titrant. */
+	double scn_mol_l = fabs(chem_titrant_acidity(&s)); /* mol/L of H+ or OH- */
+	if (m.titrant_molarity > 0 &&
+	    fabs(scn_mol_l - m.titrant_molarity) > 0.10 * m.titrant_molarity)
+		fprintf(stderr,
+		        "warning: the method's titrant (%s, %g mol/L) differs from the "
+		        "scenario's (%g mol/L); results assume the method's\n",
+		        m.titrant_name, m.titrant_molarity, scn_mol_l);
+
 	simrun_out_t out;
 	engine_t *e = simrun_run(&m, &s, &o, &out);
 	if (!e) {
@@ -223,7 +239,9 @@ int cmd_predict(int argc, char **argv)
 		simrun_params(&m, &scn, &o, &p);
 		rc = print_json(&m, e, &out, &p);
 	} else {
-		print_human(&m, e, &out, scenario_path, o.seed);
+		engine_params_t p;
+		simrun_params(&m, &s, &o, &p);
+		print_human(&m, e, &out, scenario_path, o.seed, p.amount, o.has_amount);
 	}
 	if (out.stuck) {
 		fprintf(stderr, "stopcock predict: the simulation did not finish (engine bug)\n");

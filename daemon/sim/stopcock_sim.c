@@ -7,6 +7,7 @@
  * or SIGINT ends it cleanly with status 0. */
 #include <errno.h>
 #include <fcntl.h>
+#include <getopt.h>
 #include <limits.h>
 #include <pthread.h>
 #include <signal.h>
@@ -20,6 +21,7 @@
 #include <modbus.h>
 
 #include "datadir.h"
+#include "numparse.h"
 #include "serial.h"
 #include "scenario.h"
 #include "sim.h"
@@ -32,49 +34,98 @@ typedef struct opts {
 
 static void usage(FILE *f)
 {
-	fprintf(f, "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
-	           "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
-	           "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n"
-	           "       stopcock-sim control SOCKET COMMAND [ARG...]\n");
+	fprintf(f,
+	        "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
+	        "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
+	        "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n"
+	        "       stopcock-sim control SOCKET COMMAND [ARG...]\n"
+	        "\n"
+	        "options:\n"
+	        "      --scenario FILE     beaker scenario (YAML): sample, titrant, electrode\n"
+	        "      --modbus-tcp H:P    address of the simulated transmitter (Modbus TCP)\n"
+	        "      --pump-link PATH    symlink created to the burette's pseudo-terminal\n"
+	        "      --rtu-link PATH     symlink created to a Modbus RTU pseudo-terminal\n"
+	        "      --control SOCKET    Unix socket for sample changes and fault injection\n"
+	        "      --seed N            seed of the electrode noise (whole number, default 1)\n"
+	        "      --config-out FILE   write a stopcockd config for this bench to FILE\n"
+	        "      --state-dir DIR     state folder named in that config\n"
+	        "      --listen A:P        HTTP address named in that config\n"
+	        "  -V, --version           print the version and exit\n"
+	        "  -h, --help              print this help and exit\n"
+	        "\n"
+	        "exit status: 0 clean stop (SIGTERM/SIGINT), 1 runtime failure,\n"
+	        "             2 bad arguments or scenario\n");
 }
 
 static int parse_args(int argc, char **argv, opts_t *o)
 {
+	static const struct option longopts[] = {
+	    {"scenario", required_argument, NULL, 's'},
+	    {"modbus-tcp", required_argument, NULL, 't'},
+	    {"pump-link", required_argument, NULL, 'p'},
+	    {"rtu-link", required_argument, NULL, 'r'},
+	    {"control", required_argument, NULL, 'c'},
+	    {"seed", required_argument, NULL, 'S'},
+	    {"config-out", required_argument, NULL, 'o'},
+	    {"state-dir", required_argument, NULL, 'd'},
+	    {"listen", required_argument, NULL, 'l'},
+	    {"version", no_argument, NULL, 'V'},
+	    {"help", no_argument, NULL, 'h'},
+	    {NULL, 0, NULL, 0},
+	};
 	memset(o, 0, sizeof(*o));
 	o->seed = 1;
-	for (int i = 1; i < argc; i++) {
-		const char *a = argv[i];
-		if (!strcmp(a, "-h") || !strcmp(a, "--help")) {
+	int ch;
+	while ((ch = getopt_long(argc, argv, "Vh", longopts, NULL)) != -1) {
+		switch (ch) {
+		case 's':
+			o->scenario = optarg;
+			break;
+		case 't':
+			o->tcp = optarg;
+			break;
+		case 'p':
+			o->pump_link = optarg;
+			break;
+		case 'r':
+			o->rtu_link = optarg;
+			break;
+		case 'c':
+			o->control = optarg;
+			break;
+		case 'o':
+			o->config_out = optarg;
+			break;
+		case 'd':
+			o->state_dir = optarg;
+			break;
+		case 'l':
+			o->listen = optarg;
+			break;
+		case 'S': {
+			long long seed;
+			if (!parse_whole(optarg, 0, LLONG_MAX, &seed)) {
+				fprintf(stderr,
+				        "stopcock-sim: --seed wants a whole number (got %s)\n",
+				        optarg);
+				return -1;
+			}
+			o->seed = (unsigned long long)seed;
+			break;
+		}
+		case 'V':
+			printf("stopcock-sim %s\n", STOPCOCK_VERSION);
+			exit(0);
+		case 'h':
 			usage(stdout);
 			exit(0);
+		default:
+			return -1; /* getopt_long has named the option */
 		}
-		if (i + 1 >= argc) {
-			fprintf(stderr, "stopcock-sim: %s needs a value\n", a);
-			return -1;
-		}
-		const char *v = argv[++i];
-		if (!strcmp(a, "--scenario"))
-			o->scenario = v;
-		else if (!strcmp(a, "--modbus-tcp"))
-			o->tcp = v;
-		else if (!strcmp(a, "--pump-link"))
-			o->pump_link = v;
-		else if (!strcmp(a, "--rtu-link"))
-			o->rtu_link = v;
-		else if (!strcmp(a, "--control"))
-			o->control = v;
-		else if (!strcmp(a, "--config-out"))
-			o->config_out = v;
-		else if (!strcmp(a, "--state-dir"))
-			o->state_dir = v;
-		else if (!strcmp(a, "--listen"))
-			o->listen = v;
-		else if (!strcmp(a, "--seed"))
-			o->seed = strtoull(v, NULL, 10);
-		else {
-			fprintf(stderr, "stopcock-sim: unknown option %s\n", a);
-			return -1;
-		}
+	}
+	if (optind < argc) {
+		fprintf(stderr, "stopcock-sim: unexpected argument %s\n", argv[optind]);
+		return -1;
 	}
 	if (!o->scenario || !o->tcp || !o->pump_link) {
 		fprintf(stderr, "stopcock-sim: --scenario, --modbus-tcp and --pump-link are "
@@ -265,7 +316,7 @@ int main(int argc, char **argv)
 	if (argc >= 2 && !strcmp(argv[1], "control"))
 		return sim_control_client(argc - 2, argv + 2);
 	if (parse_args(argc, argv, &o) != 0) {
-		usage(stderr);
+		fprintf(stderr, "stopcock-sim: see 'stopcock-sim --help'\n");
 		return 2;
 	}
 	chem_scenario_t scen;
