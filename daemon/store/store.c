@@ -306,7 +306,7 @@ int store_interrupt_stale(store_t *s, const char *at)
 		goto fail;
 	/* Oldest first, so seq follows the order the runs were queued. */
 	if (sqlite3_prepare_v2(s->w,
-	                       "SELECT id, state, record FROM runs WHERE state IN "
+	                       "SELECT id, state, record, station FROM runs WHERE state IN "
 	                       "('running','queued') ORDER BY id",
 	                       -1, &st, NULL) != SQLITE_OK)
 		goto fail_tx;
@@ -326,6 +326,14 @@ int store_interrupt_stale(store_t *s, const char *at)
 		                "ttiti", at, why, seq, rec, id);
 		free(rec);
 		if (seq < 0 || rc != SQLITE_DONE)
+			goto fail_tx;
+		/* into the audit trail in the same transaction: the run's end and
+		 * its line there are one change */
+		if (exec_w(s,
+		           "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
+		           "VALUES (?,?,?,'run','interrupted',?,'daemon')",
+		           "ttit", at, (const char *)sqlite3_column_text(st, 3), id,
+		           why) != SQLITE_DONE)
 			goto fail_tx;
 		n++;
 	}
