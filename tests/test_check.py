@@ -50,7 +50,11 @@ def expected(path):
 
 
 @pytest.mark.parametrize("name", ["many-errors", "formula-folded", "duplicate-key",
-                                  "bad-utf8", "unknown-key-typo"])
+                                  "bad-utf8", "unknown-key-typo", "formula-unclosed",
+                                  "syntax-colon-no-space", "syntax-tab-indent",
+                                  "syntax-indent-mismatch", "syntax-unclosed-bracket",
+                                  "syntax-unclosed-brace", "syntax-unclosed-quote",
+                                  "yaml-syntax-error"])
 def test_bad_file_exit_2_with_exact_errors(name):
     path = "tests/methods/bad/%s.yaml" % name
     r = run(path)

@@ -86,6 +86,11 @@ def test_calibration_is_accepted_with_the_electrodes_slope_and_offset(bench):
     assert cal["at"] and cal["expires_at"] > cal["at"]
     assert bench.get("/v1/calibrations/latest?station=sim1")["id"] == cid
     assert bench.write("POST", f"/v1/calibrations/{cid}/next").status == 409
+    # Each buffer step is in the audit trail, not only the start and the end.
+    evs = bench.get("/v1/events?after=0&limit=1000")["events"]
+    steps = [e for e in evs if e["kind"] == "calibration" and e["code"] == "next"
+             and e["message"].startswith(f"calibration {cid}:")]
+    assert len(steps) == len(BUFFERS), evs
 
 
 def test_calibrated_station_shows_ph_and_runs_ph_methods(bench):

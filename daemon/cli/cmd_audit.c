@@ -9,6 +9,14 @@
 #include "client.h"
 #include "cmd.h"
 
+/* Grow a column's width *w (characters) to fit s. */
+static void widen(int *w, const char *s)
+{
+	int n = (int)strlen(s);
+	if (n > *w)
+		*w = n;
+}
+
 /* ---- titrants ---- */
 
 int cmd_titrants(int argc, char **argv)
@@ -92,26 +100,45 @@ int cmd_events(int argc, char **argv)
 			client_say(&c, "stopcockd's event list is not a list");
 			rc = -1;
 		} else {
-			printf("%6s  %-20s %-12s %-16s %-10s %-8s %s\n", "SEQ", "AT", "ACTOR",
-			       "EVENT", "STATION", "RUN", "MESSAGE");
+			/* Columns as wide as their widest entry, so long event names
+			 * ("standardization replicate") never push a row out of line. */
+			int w_at = 2, w_actor = 5, w_what = 5, w_station = 7, w_run = 3;
 			size_t i;
 			json_t *e;
-			json_array_foreach(list, i, e)
-			{
-				const json_t *id = json_object_get(e, "id"),
-				             *run = json_object_get(e, "run_id");
-				char what[64], runs[24] = "-";
-				snprintf(what, sizeof what, "%s %s", client_str(e, "kind", "?"),
-				         client_str(e, "code", ""));
-				if (json_is_integer(run))
-					snprintf(runs, sizeof runs, "%lld",
-					         (long long)json_integer_value(run));
-				printf("%6lld  %-20s %-12s %-16s %-10s %-8s %s\n",
-				       json_is_integer(id) ? (long long)json_integer_value(id)
-				                           : 0LL,
-				       client_str(e, "at", "-"), client_str(e, "actor", "-"), what,
-				       client_str(e, "station", "-"), runs,
-				       client_str(e, "message", ""));
+			for (int pass = 0; pass < 2; pass++) {
+				if (pass == 1)
+					printf("%6s  %-*s  %-*s  %-*s  %-*s  %-*s  %s\n", "SEQ",
+					       w_at, "AT", w_actor, "ACTOR", w_what, "EVENT",
+					       w_station, "STATION", w_run, "RUN", "MESSAGE");
+				json_array_foreach(list, i, e)
+				{
+					const json_t *id = json_object_get(e, "id"),
+					             *run = json_object_get(e, "run_id");
+					const char *at = client_str(e, "at", "-"),
+					           *actor = client_str(e, "actor", "-"),
+					           *station = client_str(e, "station", "-");
+					char what[64], runs[24] = "-";
+					snprintf(what, sizeof what, "%s %s",
+					         client_str(e, "kind", "?"),
+					         client_str(e, "code", ""));
+					if (json_is_integer(run))
+						snprintf(runs, sizeof runs, "%lld",
+						         (long long)json_integer_value(run));
+					if (pass == 0) {
+						widen(&w_at, at);
+						widen(&w_actor, actor);
+						widen(&w_what, what);
+						widen(&w_station, station);
+						widen(&w_run, runs);
+						continue;
+					}
+					printf("%6lld  %-*s  %-*s  %-*s  %-*s  %-*s  %s\n",
+					       json_is_integer(id)
+					           ? (long long)json_integer_value(id)
+					           : 0LL,
+					       w_at, at, w_actor, actor, w_what, what, w_station,
+					       station, w_run, runs, client_str(e, "message", ""));
+				}
 			}
 			const json_t *next = json_object_get(j, "next_after");
 			if (json_is_integer(next))

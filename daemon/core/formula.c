@@ -53,6 +53,7 @@ typedef struct parser {
 	char *msg;
 	size_t msg_cap;
 	int col;
+	int base_col; /* file column of s[0], so messages name columns the author sees */
 } parser_t;
 
 static void fail(parser_t *p, size_t at, const char *fmt, ...)
@@ -265,7 +266,7 @@ static void parse_primary(parser_t *p)
 		if (p->s[p->pos] != ')') {
 			describe_here(p, what, sizeof what);
 			fail(p, p->pos, "expected ')' to close the '(' at column %zu, found %s",
-			     open + 1, what);
+			     open + (size_t)p->base_col, what);
 			return;
 		}
 		p->pos++;
@@ -328,7 +329,17 @@ static void parse_expr(parser_t *p)
 
 int formula_compile(const char *text, formula_t *f, char *msg, size_t msg_cap, int *col)
 {
-	parser_t p = {.s = text ? text : "", .f = f, .msg = msg, .msg_cap = msg_cap};
+	return formula_compile_at(text, 1, f, msg, msg_cap, col);
+}
+
+int formula_compile_at(const char *text, int base_col, formula_t *f, char *msg, size_t msg_cap,
+                       int *col)
+{
+	parser_t p = {.s = text ? text : "",
+	              .f = f,
+	              .msg = msg,
+	              .msg_cap = msg_cap,
+	              .base_col = base_col > 0 ? base_col : 1};
 	char what[32];
 	memset(f, 0, sizeof *f);
 	if (msg && msg_cap)

@@ -49,6 +49,11 @@ void formula_vars_set(formula_vars_t *fv, formula_var_t var, double value);
 /* Compile. On error returns -1 and fills msg (a sentence naming what is
  * wrong) and *col (1-based column in `text`). */
 int formula_compile(const char *text, formula_t *f, char *msg, size_t msg_cap, int *col);
+/* The same, for a formula whose first character sits at file column
+ * base_col: columns named inside msg are file columns (*col stays 1-based
+ * in `text`). */
+int formula_compile_at(const char *text, int base_col, formula_t *f, char *msg, size_t msg_cap,
+                       int *col);
 
 typedef enum {
 	FORMULA_OK = 0,

@@ -252,7 +252,10 @@ static void parse_result(mp_ctx_t *c, const yt_node_t *item, int i)
 	if (!n) {
 		yt_missing(c->doc, item, "formula", where, c->d);
 	} else if (yt_string(c->doc, n, path, r->formula_text, sizeof r->formula_text, c->d)) {
-		if (formula_compile(r->formula_text, &r->formula, msg, sizeof msg, &col) != 0)
+		int fline, fcol;
+		mp_scalar_pos(c->doc, n, 0, &fline, &fcol);
+		if (formula_compile_at(r->formula_text, fcol, &r->formula, msg, sizeof msg, &col) !=
+		    0)
 			formula_error(c, n, (size_t)(col > 0 ? col - 1 : 0), path, msg);
 		else
 			check_formula_vars(c, n, r->formula_text, path);

@@ -100,6 +100,197 @@ static void offset_to_pos(const char *text, size_t len, size_t off, int *line, i
 	*col = c;
 }
 
+/* A plain account of a syntax error libyaml reported. libyaml notices most
+ * mistakes only where it can no longer go on, often a line later and in its
+ * own terms; this scan looks for the usual slips of a hand-written method at
+ * the place they are made. Returns true and fills line/col/msg if it found
+ * one at or before the line where libyaml stopped. */
+typedef struct hint {
+	int line, col;
+	char msg[200];
+} hint_t;
+
+#define HINT_MAX_LEVELS 64
+#define HINT_MAX_FLOW   64
+
+static bool hint_key_at(const char *s, const char *end, const char **colon)
+{
+	const char *p = s;
+	if (p >= end || !((*p >= 'a' && *p <= 'z') || (*p >= 'A' && *p <= 'Z') || *p == '_'))
+		return false;
+	while (p < end && ((*p >= 'a' && *p <= 'z') || (*p >= 'A' && *p <= 'Z') ||
+	                   (*p >= '0' && *p <= '9') || *p == '_' || *p == '-'))
+		p++;
+	if (p >= end || *p != ':')
+		return false;
+	*colon = p;
+	return true;
+}
+
+static bool syntax_hint(const char *text, size_t len, int stop_line, hint_t *h)
+{
+	int levels[HINT_MAX_LEVELS] = {0};
+	int n_levels = 1;
+	bool open_child = false; /* the line above ends in "key:" or "-" */
+	struct {
+		char ch;
+		int line, col, indent;
+	} flow[HINT_MAX_FLOW], quote = {0, 0, 0, 0};
+	int depth = 0, ln = 0;
+	const char *p = text, *end = text + len;
+
+	while (p < end && ln < stop_line) {
+		const char *eol = memchr(p, '\n', (size_t)(end - p));
+		const char *s = p, *c;
+		int indent;
+		if (!eol)
+			eol = end;
+		ln++;
+		while (s < eol && (*s == ' ' || *s == '\t'))
+			s++;
+		indent = (int)(s - p);
+		if (s < eol && *s == '\r')
+			s = eol;
+		if (depth > 0 || quote.ch) {
+			/* Inside an open bracket or quote: a new key at the opener's
+			 * indent or less means the closer was forgotten. */
+			const char *colon;
+			int o_line = quote.ch ? quote.line : flow[depth - 1].line;
+			int o_col = quote.ch ? quote.col : flow[depth - 1].col;
+			int o_ind = quote.ch ? quote.indent : flow[depth - 1].indent;
+			char o = quote.ch ? quote.ch : flow[depth - 1].ch;
+			if (s < eol && indent <= o_ind && hint_key_at(s, eol, &colon)) {
+				h->line = o_line;
+				h->col = o_col;
+				snprintf(
+				    h->msg, sizeof h->msg,
+				    "this %c is never closed: end the value with %c on line %d", o,
+				    o == '['   ? ']'
+				    : o == '{' ? '}'
+				               : o,
+				    o_line);
+				return true;
+			}
+		} else if (s < eol && *s != '#') {
+			for (const char *t = p; t < s; t++)
+				if (*t == '\t') {
+					h->line = ln;
+					h->col = (int)(t - p) + 1;
+					snprintf(
+					    h->msg, sizeof h->msg,
+					    "a tab indents this line; indent with spaces only");
+					return true;
+				}
+			while (n_levels > 1 && indent < levels[n_levels - 1])
+				n_levels--;
+			if (indent > levels[n_levels - 1]) {
+				if (open_child && n_levels < HINT_MAX_LEVELS) {
+					levels[n_levels++] = indent;
+				} else if (hint_key_at(s, eol, &c)) {
+					h->line = ln;
+					h->col = indent + 1;
+					snprintf(
+					    h->msg, sizeof h->msg,
+					    "indentation does not match: this key starts at column "
+					    "%d, the keys above it at column %d",
+					    indent + 1, levels[n_levels - 1] + 1);
+					return true;
+				}
+			} else if (indent != levels[n_levels - 1]) {
+				h->line = ln;
+				h->col = indent + 1;
+				snprintf(
+				    h->msg, sizeof h->msg,
+				    "indentation does not match: this line starts at column %d, "
+				    "the lines it could belong to at column %d or %d",
+				    indent + 1, levels[n_levels - 1] + 1,
+				    n_levels > 1 ? levels[n_levels - 2] + 1 : 1);
+				return true;
+			}
+			/* "- key: value": the item's keys line up after the dash */
+			while (s + 1 < eol && s[0] == '-' && s[1] == ' ') {
+				s += 2;
+				while (s < eol && *s == ' ')
+					s++;
+				if (n_levels < HINT_MAX_LEVELS)
+					levels[n_levels++] = (int)(s - p);
+			}
+			open_child = s + 1 == eol && *s == '-';
+			if (hint_key_at(s, eol, &c)) {
+				const char *v = c + 1;
+				if (v < eol && *v != ' ' && *v != '\r' && *v != '#') {
+					int klen = (int)(c - s), vlen = 0;
+					while (v + vlen < eol && v[vlen] != ' ' &&
+					       v[vlen] != '\r' && vlen < 40)
+						vlen++;
+					h->line = ln;
+					h->col = (int)(v - p) + 1;
+					snprintf(h->msg, sizeof h->msg,
+					         "missing space after ':' (write '%.*s: %.*s')",
+					         klen > 60 ? 60 : klen, s, vlen, v);
+					return true;
+				}
+				while (v < eol && *v == ' ')
+					v++;
+				open_child = v >= eol || *v == '#' || *v == '\r';
+				s = v;
+			}
+		}
+		/* Follow brackets and quotes through the rest of the line. */
+		{
+			bool value_start = depth == 0 && !quote.ch;
+			for (c = s; c < eol; c++) {
+				if (quote.ch) {
+					if (quote.ch == '"' && *c == '\\' && c + 1 < eol)
+						c++;
+					else if (*c == quote.ch && quote.ch == '\'' &&
+					         c + 1 < eol && c[1] == '\'')
+						c++;
+					else if (*c == quote.ch)
+						quote.ch = 0;
+					continue;
+				}
+				if (*c == '#' && (c == p || c[-1] == ' '))
+					break;
+				if ((*c == '"' || *c == '\'') && value_start) {
+					quote.ch = *c;
+					quote.line = ln;
+					quote.col = (int)(c - p) + 1;
+					quote.indent = indent;
+					continue;
+				}
+				if ((*c == '[' || *c == '{') && value_start) {
+					if (depth < HINT_MAX_FLOW) {
+						flow[depth].ch = *c;
+						flow[depth].line = ln;
+						flow[depth].col = (int)(c - p) + 1;
+						flow[depth].indent = indent;
+						depth++;
+					}
+					continue;
+				}
+				if ((*c == ']' || *c == '}') && depth > 0)
+					depth--;
+				if (*c == ' ')
+					continue;
+				value_start = depth > 0 && (*c == ',' || *c == ':');
+			}
+		}
+		p = eol < end ? eol + 1 : end;
+	}
+	if ((depth > 0 || quote.ch) && p >= end) {
+		char o = quote.ch ? quote.ch : flow[depth - 1].ch;
+		h->line = quote.ch ? quote.line : flow[depth - 1].line;
+		h->col = quote.ch ? quote.col : flow[depth - 1].col;
+		snprintf(h->msg, sizeof h->msg, "this %c is never closed: end the value with %c", o,
+		         o == '['   ? ']'
+		         : o == '{' ? '}'
+		                    : o);
+		return true;
+	}
+	return false;
+}
+
 static bool push_item(yt_node_t *parent, yt_node_t *key, yt_node_t *val)
 {
 	/* The capacity is 4, then doubles each time n reaches a power of two
@@ -387,9 +578,12 @@ int yt_load_buffer(const char *name, const char *buf, size_t len, yt_doc_t *doc,
 				lerr(&L, line, col, "%s (the file must be UTF-8 text)",
 				     parser.problem ? parser.problem : "unreadable bytes");
 			} else {
+				hint_t h;
 				line = (int)parser.problem_mark.line + 1;
 				col = (int)parser.problem_mark.column + 1;
-				if (parser.context)
+				if (syntax_hint(doc->text, len, line, &h))
+					lerr(&L, h.line, h.col, "YAML syntax: %s", h.msg);
+				else if (parser.context)
 					lerr(&L, line, col, "YAML syntax: %s %s", parser.problem,
 					     parser.context);
 				else

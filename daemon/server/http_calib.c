@@ -93,6 +93,8 @@ static void post_next(const http_req_t *q, long long id, http_reply_t *r)
 		json_decref(j);
 		return;
 	}
+	http_audit(q, station, 0, "calibration", "next",
+	           "calibration %lld: buffer in place, measuring", id);
 	json_decref(j);
 	/* The thread stores `measuring` at its next step (<= 0.25 s); answer
 	 * with the stored state once it has. */

@@ -291,6 +291,13 @@ drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err)
 	return st;
 }
 
+void station_audit_run(station_t *s, int64_t run_id, const char *code, const char *msg)
+{
+	if (store_event_add(s->store, NULL, s->name, run_id, "run", code, msg, "daemon") !=
+	    STORE_OK)
+		log_warn("station %s: could not store the audit event run/%s", s->name, code);
+}
+
 bool station_interrupted(station_t *s, int64_t run_id)
 {
 	bool r;
@@ -388,6 +395,7 @@ void station_abort_queued(station_t *s, station_job_t *job, const char *why)
 		json_decref(j);
 	}
 	store_run_finish(s->store, job->run_id, "aborted", text, NULL);
+	station_audit_run(s, job->run_id, "aborted", why);
 	store_event_add(s->store, at, s->name, job->run_id, "abort", "queued", why, "daemon");
 	free(text);
 }
@@ -660,6 +668,7 @@ static void *station_main(void *arg)
 		station_unlock(s);
 		if (job) {
 			set_state(s, "running");
+			station_audit_run(s, job->run_id, "started", "run started");
 			station_run_job(s, job);
 			free(job);
 			pthread_mutex_lock(&s->lock);

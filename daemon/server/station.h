@@ -126,6 +126,10 @@ typedef struct station_job {
 int station_enqueue(station_t *s, const station_job_t *job);
 /* End a queued (never started) run as aborted in the store, with a reason. */
 void station_abort_queued(station_t *s, station_job_t *job, const char *why);
+/* A run's change of state into the audit trail (kind "run", code one of
+ * started finished failed aborted resumed), made by the daemon itself.
+ * Called at each state transition, so a resume adds one line too. */
+void station_audit_run(station_t *s, int64_t run_id, const char *code, const char *msg);
 
 typedef enum {
 	STATION_CMD_OK = 0,

@@ -839,6 +839,7 @@ static void finish(run_t *r)
 		log_err("station %s run %lld: the full record could not be written", r->s->name,
 		        (long long)r->job->run_id);
 	}
+	station_audit_run(r->s, r->job->run_id, state, cut[0] ? cut : engine_stop_name(engine_stop_reason(r->e)));
 	if (store_run_finish(r->s->store, r->job->run_id, state, text, &seq) != STORE_OK) {
 		log_err("station %s run %lld: could not store the final record; keeping it to "
 		        "store again",
@@ -870,6 +871,7 @@ static void fail_early(run_t *r, const char *code, const char *msg)
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(j);
 	store_run_finish(r->s->store, r->job->run_id, "failed", text, NULL);
+	station_audit_run(r->s, r->job->run_id, "failed", msg);
 	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg, "daemon");
 	free(text);
 	log_err("station %s run %lld: %s", r->s->name, (long long)r->job->run_id, msg);

@@ -548,6 +548,14 @@ int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *s
 			goto fail_tx;
 		if (held)
 			held((const char *)sqlite3_column_text(st, 1), arg);
+		/* into the audit trail in the same transaction: the run's end and
+		 * its line there are one change */
+		if (exec_w(s,
+		           "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
+		           "VALUES (?,?,?,'run','interrupted',?,'daemon')",
+		           "ttit", at, (const char *)sqlite3_column_text(st, 1), id,
+		           restored ? why_restored : why) != SQLITE_DONE)
+			goto fail_tx;
 		n++;
 	}
 	sqlite3_finalize(st);
