@@ -46,13 +46,6 @@ drv_status_t drv_fail(drv_err_t *err, drv_status_t st, const char *fmt, ...)
 	return st;
 }
 
-double drv_now_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
-}
-
 const drv_probe_ops_t *const *drv_probe_table(void)
 {
 	return probes;

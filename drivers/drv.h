@@ -180,7 +180,4 @@ void drv_stirrer_close(drv_stirrer_t *s);
 drv_status_t drv_fail(drv_err_t *err, drv_status_t st, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
 
-/* CLOCK_MONOTONIC in seconds. */
-double drv_now_s(void);
-
 #endif

@@ -10,6 +10,7 @@
 #include "drv.h"
 #include "link.h"
 #include "mbus.h"
+#include "clock.h"
 
 enum { R_MV = 0, R_TEMP, R_PH, R_STATUS, R_COUNTER, R_N };
 static const char *const reg_names[R_N] = {"mv", "temperature_c", "ph", "status", "counter"};
@@ -131,7 +132,7 @@ static drv_status_t probe_read(void *priv, drv_reading_t *out, drv_err_t *err)
 		st = read_table(p, MBUS_HOLDING, raw, err);
 	if (st != DRV_OK)
 		return st;
-	double now = drv_now_s();
+	double now = clock_mono_s();
 	double v[R_N] = {0};
 	for (int i = 0; i < R_N; i++) {
 		const mbus_reg_t *r = &p->reg[i];

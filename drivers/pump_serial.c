@@ -18,6 +18,7 @@
 #include "link.h"
 #include "pump_profile.h"
 #include "serial.h"
+#include "clock.h"
 
 typedef enum {
 	MODE_IDLE = 0,
@@ -165,7 +166,7 @@ static drv_status_t transact_once(pump_t *p, const char *cmd, pump_reply_t *rep,
 	int n = snprintf(buf, sizeof(buf), "%s%s", cmd, p->prof.command_end);
 	if (n < 0 || (size_t)n >= sizeof(buf))
 		return drv_fail(err, DRV_CONFIG, "pump: command too long");
-	double deadline = drv_now_s() + (double)p->link.timeout_ms / 1000.0;
+	double deadline = clock_mono_s() + (double)p->link.timeout_ms / 1000.0;
 	serial_drain(&p->ser);
 	drv_status_t st = serial_write(&p->ser, buf, (size_t)n, deadline, err);
 	if (st != DRV_OK)

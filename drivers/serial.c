@@ -7,6 +7,7 @@
 #include <unistd.h>
 
 #include "serial.h"
+#include "clock.h"
 
 void serial_init(serial_t *s)
 {
@@ -98,7 +99,7 @@ void serial_close(serial_t *s)
 
 static int ms_left(double deadline_s)
 {
-	double left = deadline_s - drv_now_s();
+	double left = deadline_s - clock_mono_s();
 	if (left <= 0)
 		return 0;
 	return (int)(left * 1000.0) + 1;

@@ -333,13 +333,6 @@ void client_escape_segment(const char *s, char *out, size_t out_len)
 		out[j < out_len ? j : out_len - 1] = '\0';
 }
 
-double client_mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
-}
-
 void client_sleep_ms(int ms)
 {
 	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};

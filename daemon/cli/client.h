@@ -91,8 +91,6 @@ int client_json_quiet(client_t *c, const char *method, const char *path, json_t 
 /* Percent-encode a path segment (station names) into out. */
 void client_escape_segment(const char *s, char *out, size_t out_len);
 
-/* Monotonic time, s, and a sleep that resumes after signals. */
-double client_mono_s(void);
 void client_sleep_ms(int ms);
 
 /* Parse a run id: a positive integer. */

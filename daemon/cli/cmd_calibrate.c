@@ -11,6 +11,7 @@
 
 #include "client.h"
 #include "cmd.h"
+#include "clock.h"
 
 #define CAL_MAX_BUFFERS   8     /* sent on; the daemon enforces its own limit */
 #define CAL_POLL_MS       500   /* ms between polls while a buffer is measured */
@@ -155,7 +156,7 @@ int cmd_calibrate(int argc, char **argv)
 		json_decref(r);
 		/* Poll until this buffer is measured; show the live mV meanwhile. */
 		snprintf(path, sizeof path, "/v1/calibrations/%lld", id);
-		double t0 = client_mono_s();
+		double t0 = clock_mono_s();
 		bool broken = false;
 		for (;;) {
 			json_t *now = NULL;
@@ -167,7 +168,7 @@ int cmd_calibrate(int argc, char **argv)
 			cal = now;
 			if (strcmp(client_str(cal, "state", "?"), "measuring"))
 				break;
-			if (client_mono_s() - t0 > CAL_MEASURE_MAX_S) {
+			if (clock_mono_s() - t0 > CAL_MEASURE_MAX_S) {
 				client_say(&c, "buffer %s not stable after %.0f s; giving up", nb,
 				           CAL_MEASURE_MAX_S);
 				broken = true;
@@ -175,7 +176,7 @@ int cmd_calibrate(int argc, char **argv)
 			}
 			if (tty) {
 				fprintf(stderr, "\r\033[Kmeasuring buffer %s ... %.0f s", nb,
-				        client_mono_s() - t0);
+				        clock_mono_s() - t0);
 				fflush(stderr);
 			}
 			client_sleep_ms(CAL_POLL_MS);

@@ -9,6 +9,7 @@
 
 #include "client.h"
 #include "cmd.h"
+#include "clock.h"
 
 #define WAIT_POLL_MS       500  /* how often `wait` asks, ms */
 #define WAIT_UNREACHABLE_S 10.0 /* `wait` gives up after the daemon is gone this long, s */
@@ -323,7 +324,7 @@ int cmd_wait(int argc, char **argv)
 	watch_t w = {.tty = isatty(STDERR_FILENO), .last_additions = -1, .last_point_ph = NAN};
 	char path[64], last_err[1500] = "";
 	snprintf(path, sizeof path, "/v1/runs/%lld", id);
-	double t0 = client_mono_s(), gone_since = -1;
+	double t0 = clock_mono_s(), gone_since = -1;
 	bool seen = false;
 	int rc = CLIENT_EXIT_FAIL;
 	for (;;) {
@@ -345,8 +346,8 @@ int cmd_wait(int argc, char **argv)
 				/* Not reachable. Once the run was seen the daemon may
 				 * be restarting: give it a while; before, fail at once. */
 				if (gone_since < 0)
-					gone_since = client_mono_s();
-				if (!seen || client_mono_s() - gone_since > WAIT_UNREACHABLE_S) {
+					gone_since = clock_mono_s();
+				if (!seen || clock_mono_s() - gone_since > WAIT_UNREACHABLE_S) {
 					if (w.tty && w.line[0])
 						fputc('\n', stderr);
 					client_say(&c, "%s", err);
@@ -368,7 +369,7 @@ int cmd_wait(int argc, char **argv)
 			show_progress(&c, &w, id, rec, path);
 		}
 		json_decref(rec);
-		if (timeout_s > 0 && client_mono_s() - t0 >= timeout_s) {
+		if (timeout_s > 0 && clock_mono_s() - t0 >= timeout_s) {
 			if (w.tty && w.line[0])
 				fputc('\n', stderr);
 			if (gone_since >= 0)

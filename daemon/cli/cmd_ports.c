@@ -16,6 +16,7 @@
 #include "cmd.h"
 #include "drv.h"
 #include "yamltree.h"
+#include "clock.h"
 
 /* The stable name of a port under /dev/serial/by-id (it survives reboots
  * and replugging, unlike ttyUSB numbers), or "" when there is none. */
@@ -114,7 +115,7 @@ static void head(const char *cmd, drv_status_t st, double t0, const drv_err_t *e
 {
 	printf("{\"cmd\":");
 	json_str(cmd);
-	printf(",\"status\":\"%s\",\"ms\":%.1f", drv_status_name(st), (drv_now_s() - t0) * 1000);
+	printf(",\"status\":\"%s\",\"ms\":%.1f", drv_status_name(st), (clock_mono_s() - t0) * 1000);
 	if (st != DRV_OK) {
 		printf(",\"error\":");
 		json_str(e->msg);
@@ -145,7 +146,7 @@ static void run_command(bench_t *b, char *line)
 		return;
 	drv_err_t e = {""};
 	drv_status_t st = DRV_OK;
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	bool need_bur = !strcmp(word, "status") || !strcmp(word, "dose") || !strcmp(word, "halt") ||
 	                !strcmp(word, "refill") || !strcmp(word, "wait");
 	if ((need_bur && !b->has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
@@ -171,7 +172,7 @@ static void run_command(bench_t *b, char *line)
 		double limit = (!strcmp(word, "wait") && n == 2) ? arg : 0;
 		for (;;) {
 			st = drv_burette_status(&b->bur, &bs, &e);
-			if (st != DRV_OK || !bs.moving || drv_now_s() - t0 >= limit)
+			if (st != DRV_OK || !bs.moving || clock_mono_s() - t0 >= limit)
 				break;
 			sleep_s(0.05);
 		}
@@ -250,7 +251,7 @@ static int test_devices(const char *path, const char *station)
 	rc = 0;
 	/* Open each device; report, but go on: commands reopen by themselves. */
 	drv_err_t e;
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	if (b.has_bur) {
 		drv_status_t st = drv_burette_open(&b.bur, &e);
 		head("open burette", st, t0, &e);
@@ -262,13 +263,13 @@ static int test_devices(const char *path, const char *station)
 		printf("}\n");
 	}
 	if (b.has_probe) {
-		t0 = drv_now_s();
+		t0 = clock_mono_s();
 		drv_status_t st = drv_probe_open(&b.probe, &e);
 		head("open probe", st, t0, &e);
 		printf("}\n");
 	}
 	if (b.has_stir) {
-		t0 = drv_now_s();
+		t0 = clock_mono_s();
 		drv_status_t st = drv_stirrer_open(&b.stir, &e);
 		head("open stirrer", st, t0, &e);
 		printf("}\n");

@@ -17,6 +17,7 @@
 #include "drv.h"
 #include "http_guard.h"
 #include "log.h"
+#include "clock.h"
 
 #define MAX_SEGMENTS 8
 #define HTTP_NICE    5 /* niceness of HTTP worker threads, relative to 0 */
@@ -443,7 +444,7 @@ static void on_mhd_log(void *cls, const char *fmt, va_list ap)
 {
 	http_server_t *h = cls;
 	char buf[512];
-	double now = drv_now_s();
+	double now = clock_mono_s();
 	unsigned dropped = 0;
 	bool keep;
 
@@ -488,7 +489,7 @@ http_server_t *http_start(http_ctx_t *ctx, char *err, size_t cap)
 		return NULL;
 	}
 	pthread_mutex_init(&h->log_lock, NULL);
-	h->log_window_s = drv_now_s();
+	h->log_window_s = clock_mono_s();
 	memset(&a4, 0, sizeof a4);
 	memset(&a6, 0, sizeof a6);
 	if (inet_pton(AF_INET, ctx->cfg->listen_addr, &a4.sin_addr) == 1) {

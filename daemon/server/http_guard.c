@@ -12,6 +12,7 @@
 #include <time.h>
 
 #include "drv.h"
+#include "clock.h"
 
 #define WATCH_PERIOD_NS (100 * 1000 * 1000) /* deadlines are kept to 0.1 s */
 
@@ -60,7 +61,7 @@ static double deadline_s(const http_guard_t *g, bool over_limit)
 	double d = g->ctx->cfg->request_deadline_s;
 	if (over_limit && (d == 0 || d > HTTP_OVER_LIMIT_GRACE_S))
 		d = HTTP_OVER_LIMIT_GRACE_S;
-	return d > 0 ? drv_now_s() + d : 0;
+	return d > 0 ? clock_mono_s() + d : 0;
 }
 
 static void started(http_guard_t *g, struct MHD_Connection *c, void **socket_context)
@@ -164,7 +165,7 @@ static void *watch(void *arg)
 
 	pthread_mutex_lock(&g->lock);
 	while (!g->stop) {
-		double now = drv_now_s();
+		double now = clock_mono_s();
 		for (http_conn_t *k = g->head; k; k = k->next) {
 			if (k->cut || k->deadline_s == 0 || now < k->deadline_s)
 				continue;

@@ -9,13 +9,7 @@
 #include <time.h>
 
 #include "station.h"
-
-static double mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + ts.tv_nsec / 1e9;
-}
+#include "clock.h"
 
 static json_t *real_or_null(bool have, double v)
 {
@@ -293,7 +287,7 @@ char *http_metrics_text(http_ctx_t *ctx, size_t *out_len)
 	       atomic_load(&ctx->requests_2xx), atomic_load(&ctx->requests_4xx),
 	       atomic_load(&ctx->requests_5xx), atomic_load(&ctx->auth_failures),
 	       atomic_load(&ctx->body_too_large), atomic_load(&ctx->deadline_cuts),
-	       atomic_load(&ctx->over_limit), mono_s() - ctx->started_mono_s);
+	       atomic_load(&ctx->over_limit), clock_mono_s() - ctx->started_mono_s);
 	*out_len = len;
 	return b;
 }
@@ -334,7 +328,7 @@ bool http_route_misc(const http_req_t *q, const char *const *seg, int n, http_re
 			http_reply_json(r, 200,
 			                json_pack("{s:s,s:s,s:f}", "status", "ok", "version",
 			                          STOPCOCK_VERSION, "uptime_s",
-			                          mono_s() - q->ctx->started_mono_s));
+			                          clock_mono_s() - q->ctx->started_mono_s));
 		return true;
 	}
 	if (!strcmp(seg[1], "stations")) {

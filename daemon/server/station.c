@@ -13,16 +13,10 @@
 #include "log.h"
 #include "notify.h"
 #include "record.h"
+#include "clock.h"
 
 #define IDLE_READ_S 1.0 /* probe reading while idle, for the live value */
 #define REOPEN_S    2.0 /* retry unanswering devices this often */
-
-double station_mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + ts.tv_nsec / 1e9;
-}
 
 static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_burette_t *b,
                               drv_probe_t *p, drv_stirrer_t *st, diag_list_t *d)
@@ -148,7 +142,7 @@ static bool open_burette(station_t *s)
 static void open_devices(station_t *s, bool force)
 {
 	drv_err_t err = {{0}};
-	double now = station_mono_s();
+	double now = clock_mono_s();
 
 	if (!force && now < s->next_open_try_s)
 		return;
@@ -226,7 +220,7 @@ static void note_halt(station_t *s, const char *why, bool ok, const char *msg)
 	}
 	s->halt_pending = true;
 	s->halt_tries++;
-	s->halt_next_s = station_mono_s() + station_halt_retry_s(s->halt_tries);
+	s->halt_next_s = clock_mono_s() + station_halt_retry_s(s->halt_tries);
 	pthread_mutex_lock(&s->lock);
 	s->snap.halt_pending = true;
 	snprintf(s->snap.last_error, sizeof s->snap.last_error,
@@ -252,7 +246,7 @@ bool station_halt_burette(station_t *s, const char *why)
 
 bool station_halt_retry(station_t *s)
 {
-	if (s->halt_pending && station_mono_s() >= s->halt_next_s)
+	if (s->halt_pending && clock_mono_s() >= s->halt_next_s)
 		station_halt_burette(s, s->halt_why);
 	return !s->halt_pending;
 }
@@ -313,7 +307,7 @@ bool station_wait_until(station_t *s, double t_mono_s, int64_t run_id)
 
 	pthread_mutex_lock(&s->lock);
 	for (;;) {
-		double now = station_mono_s(), until;
+		double now = clock_mono_s(), until;
 		struct timespec ts;
 		r = s->stop_req || s->halt_req || (run_id && s->abort_run == run_id);
 		atomic_store_explicit(&s->heartbeat_us, notify_now_us(), memory_order_relaxed);
@@ -346,7 +340,7 @@ void station_unlock(station_t *s)
 
 void station_snapshot(station_t *s, station_snapshot_t *out)
 {
-	double now = station_mono_s();
+	double now = clock_mono_s();
 	uint64_t tmp[STATION_SNAP_WORDS];
 
 	/* Slot a is rewritten only when the writer publishes a + STATION_RING,
@@ -469,7 +463,7 @@ static void calib_step(station_t *s)
 	station_unlock(s);
 	if (before != CALIB_MEASURING)
 		return;
-	cr.t_s = station_mono_s();
+	cr.t_s = clock_mono_s();
 	cr.mv = NAN;
 	cr.temperature_c = NAN;
 	bool fault = station_read_probe(s, &r, &err) != DRV_OK;
@@ -550,7 +544,7 @@ int station_calib_next(station_t *s, int64_t id, char *err, size_t cap)
 		snprintf(err, cap, "station %s has a run", s->name);
 		return -1;
 	}
-	rc = calib_session_next(s->cal, station_mono_s(), err, cap);
+	rc = calib_session_next(s->cal, clock_mono_s(), err, cap);
 	s->cal_dirty = true;
 	pthread_cond_broadcast(&s->cond);
 	station_unlock(s);
@@ -575,7 +569,7 @@ static void note_health(station_t *s, const char *what, bool *bad, bool ok, cons
 
 static void idle_tick(station_t *s, double *next_read)
 {
-	double now = station_mono_s();
+	double now = clock_mono_s();
 	drv_reading_t r = {0};
 	drv_burette_status_t bs = {0};
 	drv_err_t err = {{0}};
@@ -681,7 +675,7 @@ static void *station_main(void *arg)
 			continue;
 		}
 		idle_tick(s, &next_read);
-		station_wait_until(s, station_mono_s() + 0.1, 0);
+		station_wait_until(s, clock_mono_s() + 0.1, 0);
 		/* a halt while idle is handled by idle_tick; stop ends the loop */
 		pthread_mutex_lock(&s->lock);
 		if (s->halt_req && !s->stop_req) {

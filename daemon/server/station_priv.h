@@ -100,9 +100,6 @@ struct station {
 /* Publish snap for readers and release `lock` (use after any change of snap). */
 void station_unlock(station_t *s);
 
-/* Monotonic clock, s. */
-double station_mono_s(void);
-
 /* Sleep until t_mono_s or a command that interrupts the current run.
  * Returns true when interrupted (stop, halt, abort of run_id). */
 bool station_wait_until(station_t *s, double t_mono_s, int64_t run_id);

@@ -19,6 +19,7 @@
 #include "engine.h"
 #include "log.h"
 #include "record.h"
+#include "clock.h"
 
 #define PROBE_TRIES     3     /* readings tried before a probe fault */
 #define PROBE_RETRY_S   0.2   /* between those tries */
@@ -130,14 +131,14 @@ static double t_run(const run_t *r);
 static bool halt_for_run(run_t *r, const char *why, drv_burette_status_t *bs)
 {
 	station_t *s = r->s;
-	double until = station_mono_s() + HALT_WAIT_S;
+	double until = clock_mono_s() + HALT_WAIT_S;
 	drv_err_t err = {{0}};
 	bool halted = station_halt_burette(s, why);
 
 	for (;;) {
 		if (halted && burette_status(r, bs, &err) && !bs->moving)
 			return true;
-		if (station_mono_s() >= until)
+		if (clock_mono_s() >= until)
 			return false;
 		pthread_mutex_lock(&s->lock);
 		bool stopping = s->stop_req;
@@ -145,7 +146,7 @@ static bool halt_for_run(run_t *r, const char *why, drv_burette_status_t *bs)
 		pthread_mutex_unlock(&s->lock);
 		if (stopping)
 			return false;
-		station_wait_until(s, station_mono_s() + STATION_HALT_RETRY_MIN_S, 0);
+		station_wait_until(s, clock_mono_s() + STATION_HALT_RETRY_MIN_S, 0);
 		if (!halted)
 			halted = station_halt_retry(s);
 		else if (bs->moving) /* answered, yet moving: halt it again */
@@ -214,7 +215,7 @@ static engine_action_t dose_fault(run_t *r, double before_ml, const drv_burette_
 
 static double t_run(const run_t *r)
 {
-	return station_mono_s() - r->t0;
+	return clock_mono_s() - r->t0;
 }
 
 /* A reading for the status only: a failure here is not the run's fault (the
@@ -223,7 +224,7 @@ static void live_read(run_t *r)
 {
 	drv_reading_t rd = {0};
 	drv_err_t err = {{0}};
-	double now = station_mono_s();
+	double now = clock_mono_s();
 
 	if (now - r->live_read_mono_s < LIVE_READ_S)
 		return;
@@ -236,13 +237,13 @@ static void live_read(run_t *r)
 static bool wait_reading(run_t *r, double until_mono_s)
 {
 	for (;;) {
-		double now = station_mono_s(), slice = until_mono_s;
+		double now = clock_mono_s(), slice = until_mono_s;
 
 		/* A live read only where it cannot delay the step the engine asked
 		 * for: a Modbus reading takes milliseconds, the margin is 0.3 s. */
 		if (until_mono_s - now > LIVE_READ_S + 0.3) {
 			live_read(r);
-			slice = station_mono_s() + LIVE_READ_S;
+			slice = clock_mono_s() + LIVE_READ_S;
 		}
 		if (station_wait_until(r->s, slice, r->job->run_id))
 			return true;
@@ -275,11 +276,11 @@ static bool burette_status(run_t *r, drv_burette_status_t *bs, drv_err_t *err)
 /* Wait for the plunger to stop. 0 done, 1 interrupted (halted), -1 fault. */
 static int wait_move(run_t *r, drv_burette_status_t *bs, char *msg, size_t cap)
 {
-	double deadline = station_mono_s() + MOVE_DEADLINE_S;
+	double deadline = clock_mono_s() + MOVE_DEADLINE_S;
 	drv_err_t err = {{0}};
 
 	for (;;) {
-		if (station_wait_until(r->s, station_mono_s() + DOSE_POLL_S, r->job->run_id)) {
+		if (station_wait_until(r->s, clock_mono_s() + DOSE_POLL_S, r->job->run_id)) {
 			halt_for_run(r, "run interrupted", bs);
 			return 1;
 		}
@@ -294,7 +295,7 @@ static int wait_move(run_t *r, drv_burette_status_t *bs, char *msg, size_t cap)
 		}
 		if (!bs->moving)
 			return 0;
-		if (station_mono_s() > deadline) {
+		if (clock_mono_s() > deadline) {
 			snprintf(msg, cap, "burette still moving after %.0f s", MOVE_DEADLINE_S);
 			return -1;
 		}
@@ -441,11 +442,11 @@ static engine_action_t do_read(run_t *r, double scheduled_t_s)
 			break;
 		if (i == PROBE_TRIES - 1)
 			return feed_fault(r, t_run(r), "probe", err.msg);
-		if (station_wait_until(r->s, station_mono_s() + PROBE_RETRY_S, r->job->run_id))
+		if (station_wait_until(r->s, clock_mono_s() + PROBE_RETRY_S, r->job->run_id))
 			return engine_feed(
 			    r->e, &(engine_event_t){.kind = ENGINE_EV_ABORT, .t_s = t_run(r)});
 	}
-	if (station_mono_s() - rd.t_s > STALE_READING_S)
+	if (clock_mono_s() - rd.t_s > STALE_READING_S)
 		return feed_fault(r, t_run(r), "probe_stale", "the probe reading is stale");
 	ev.t_s = t_run(r);
 	if (ev.t_s - scheduled_t_s >= 0 && ev.t_s - scheduled_t_s < READ_ON_TIME_S)
@@ -684,16 +685,16 @@ static void keep_pending(station_t *s, int64_t run_id, const char *state, char *
 	snprintf(p->state, sizeof p->state, "%s", state);
 	p->record_json = text;
 	p->tries = 1;
-	s->pending_next_s = station_mono_s() + STATION_PENDING_RETRY_S;
+	s->pending_next_s = clock_mono_s() + STATION_PENDING_RETRY_S;
 	station_set_error(s, "the database refuses writes (disk full?): a run's final record "
 	                     "waits to be stored and no run starts until it is");
 }
 
 int station_store_pending(station_t *s, bool now)
 {
-	if (s->n_pending == 0 || (!now && station_mono_s() < s->pending_next_s))
+	if (s->n_pending == 0 || (!now && clock_mono_s() < s->pending_next_s))
 		return s->n_pending;
-	s->pending_next_s = station_mono_s() + STATION_PENDING_RETRY_S;
+	s->pending_next_s = clock_mono_s() + STATION_PENDING_RETRY_S;
 	while (s->n_pending > 0) {
 		struct station_pending *p = &s->pending[0];
 		int64_t seq = 0;
@@ -928,7 +929,7 @@ void station_run_job(station_t *s, station_job_t *job)
 	log_info("station %s run %lld: started, method %s revision %ld", s->name,
 	         (long long)job->run_id, job->method.id, job->method.revision);
 
-	r.t0 = station_mono_s();
+	r.t0 = clock_mono_s();
 	act = engine_feed(r.e, &(engine_event_t){.kind = ENGINE_EV_START, .t_s = 0});
 	while (act.kind != ENGINE_ACT_STOP) {
 		publish(&r);
@@ -952,11 +953,11 @@ void station_run_job(station_t *s, station_job_t *job)
 		case ENGINE_ACT_READ:
 			/* Only a wait that starts before its time measures scheduling:
 			 * a time already past is the cost of the last step (a commit). */
-			scheduled = r.t0 + act.until_t_s > station_mono_s() + 1e-4;
+			scheduled = r.t0 + act.until_t_s > clock_mono_s() + 1e-4;
 			if (wait_reading(&r, r.t0 + act.until_t_s))
 				continue; /* handled at the top of the loop */
 			if (scheduled)
-				note_lateness(s, station_mono_s() - (r.t0 + act.until_t_s));
+				note_lateness(s, clock_mono_s() - (r.t0 + act.until_t_s));
 			if (act.kind == ENGINE_ACT_READ)
 				act = do_read(&r, act.until_t_s);
 			else

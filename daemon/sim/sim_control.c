@@ -14,13 +14,7 @@
 
 #include "scenario.h"
 #include "sim.h"
-
-static double mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
-}
+#include "clock.h"
 
 static void kinds(char *out, size_t cap)
 {
@@ -48,7 +42,7 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		rest++;
 	if (!strcmp(word, "state")) {
 		pthread_mutex_lock(&s->mu);
-		sim_tick(s, mono_s());
+		sim_tick(s, clock_mono_s());
 		const char *f = sim_fault_name(s->fault);
 		char fq[40];
 		snprintf(fq, sizeof(fq), f ? "\"%s\"" : "null", f);
@@ -86,7 +80,7 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		} else {
 			pthread_mutex_lock(&s->mu);
 			s->fault = f;
-			s->fault_until_s = n == 2 ? mono_s() + secs : 0;
+			s->fault_until_s = n == 2 ? clock_mono_s() + secs : 0;
 			pthread_mutex_unlock(&s->mu);
 			snprintf(reply, cap, "ok");
 		}

@@ -16,16 +16,10 @@
 #include <modbus.h>
 
 #include "sim.h"
+#include "clock.h"
 
 #define MAX_CLIENTS 8
 #define UNIT_ID     1
-
-static double mono_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
-}
 
 int sim_tcp_listen(const char *host, int port, int *port_out)
 {
@@ -66,8 +60,8 @@ static int fault_action(sim_t *s)
 	if (f == SIM_FAULT_MODBUS_EXCEPTION)
 		return 2;
 	if (f == SIM_FAULT_SLOW_PROBE) {
-		double until = mono_s() + SIM_SLOW_PROBE_S;
-		while (mono_s() < until && !atomic_load(&s->stop)) {
+		double until = clock_mono_s() + SIM_SLOW_PROBE_S;
+		while (clock_mono_s() < until && !atomic_load(&s->stop)) {
 			struct timespec ts = {0, 20000000L};
 			nanosleep(&ts, NULL);
 		}

@@ -16,6 +16,7 @@
 #include <unistd.h>
 
 #include "sim.h"
+#include "clock.h"
 
 static const char *const fault_names[SIM_FAULT_COUNT] = {
     NULL,    "noise",        "mute-pump", "mute-probe", "slow-probe", "modbus-exception",
@@ -32,13 +33,6 @@ sim_fault_t sim_fault_parse(const char *s)
 		if (!strcmp(fault_names[i], s))
 			return (sim_fault_t)i;
 	return SIM_FAULT_COUNT;
-}
-
-static double now_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
 }
 
 static unsigned rng_next(sim_t *s)
@@ -97,7 +91,7 @@ int sim_init(sim_t *s, const chem_scenario_t *scen, unsigned long long seed)
 	s->pump.target = s->pump.pos;
 	s->stir_rpm = 0;
 	s->tcp_listen_fd = -1;
-	s->last_tick_s = now_s();
+	s->last_tick_s = clock_mono_s();
 	s->next_measure_s = s->last_tick_s;
 	measure(s);
 	atomic_store(&s->stop, false);
@@ -280,8 +274,8 @@ static size_t garbage(sim_t *s, char *out, size_t n)
 
 static void write_all(int fd, const char *b, size_t n)
 {
-	double deadline = now_s() + 1.0;
-	while (n > 0 && now_s() < deadline) {
+	double deadline = clock_mono_s() + 1.0;
+	while (n > 0 && clock_mono_s() < deadline) {
 		ssize_t w = write(fd, b, n);
 		if (w > 0) {
 			b += w;
@@ -321,7 +315,7 @@ void *sim_pump_thread(void *arg)
 	size_t len = 0;
 	while (!atomic_load(&s->stop)) {
 		pthread_mutex_lock(&s->mu);
-		sim_tick(s, now_s());
+		sim_tick(s, clock_mono_s());
 		bool unplugged = s->fault == SIM_FAULT_UNPLUG;
 		pthread_mutex_unlock(&s->mu);
 		if (unplugged && master >= 0) {
@@ -362,7 +356,7 @@ void *sim_pump_thread(void *arg)
 			char reply[128], out[300];
 			size_t n = 0;
 			pthread_mutex_lock(&s->mu);
-			sim_tick(s, now_s());
+			sim_tick(s, clock_mono_s());
 			if (sim_pump_command(s, line, reply, sizeof(reply)))
 				n = frame_reply(s, reply, out, sizeof(out));
 			pthread_mutex_unlock(&s->mu);

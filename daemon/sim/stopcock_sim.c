@@ -25,6 +25,7 @@
 #include "serial.h"
 #include "scenario.h"
 #include "sim.h"
+#include "clock.h"
 
 typedef struct opts {
 	const char *scenario, *tcp, *pump_link, *rtu_link, *control, *config_out, *state_dir;
@@ -257,9 +258,9 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
  * TCP (and RTU). Tries for up to 5 s. */
 static int self_check(const sim_t *s, const char *pump_abs)
 {
-	double until = drv_now_s() + 5.0;
+	double until = clock_mono_s() + 5.0;
 	bool pump_ok = false, tcp_ok = false, rtu_ok = !s->rtu_link[0];
-	while (drv_now_s() < until && !(pump_ok && tcp_ok && rtu_ok)) {
+	while (clock_mono_s() < until && !(pump_ok && tcp_ok && rtu_ok)) {
 		if (!pump_ok) {
 			link_serial_t l = {.baud = 9600, .parity = 'N', .stop_bits = 1};
 			snprintf(l.port, sizeof(l.port), "%s", pump_abs);
@@ -268,8 +269,8 @@ static int self_check(const sim_t *s, const char *pump_abs)
 			drv_err_t e;
 			char line[128];
 			if (serial_open(&ser, &l, &e) == DRV_OK &&
-			    serial_write(&ser, "STAT\n", 5, drv_now_s() + 0.5, &e) == DRV_OK &&
-			    serial_read_line(&ser, "\r\n", line, sizeof(line), drv_now_s() + 0.5,
+			    serial_write(&ser, "STAT\n", 5, clock_mono_s() + 0.5, &e) == DRV_OK &&
+			    serial_read_line(&ser, "\r\n", line, sizeof(line), clock_mono_s() + 0.5,
 			                     &e) == DRV_OK &&
 			    !strncmp(line, "AT ", 3))
 				pump_ok = true;

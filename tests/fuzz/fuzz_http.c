@@ -27,6 +27,7 @@
 #include "drv.h"
 #include "http.h"
 #include "store.h"
+#include "clock.h"
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
@@ -125,7 +126,7 @@ static size_t put_path(char *out, size_t at, size_t cap, const uint8_t *s, size_
 static int wait_for(int fd, short ev, double deadline)
 {
 	for (;;) {
-		double left = deadline - drv_now_s();
+		double left = deadline - clock_mono_s();
 		if (left <= 0)
 			return 0;
 		struct pollfd p = {fd, ev, 0};
@@ -146,7 +147,7 @@ static int connect_to(int fd, const struct sockaddr_in *a)
 	/* an interrupted connect goes on in the background (connect(2)) */
 	int e = 0;
 	socklen_t l = sizeof e;
-	if (!wait_for(fd, POLLOUT, drv_now_s() + 30) ||
+	if (!wait_for(fd, POLLOUT, clock_mono_s() + 30) ||
 	    getsockopt(fd, SOL_SOCKET, SO_ERROR, &e, &l) != 0 || e != 0)
 		return -1;
 	return 0;
@@ -159,7 +160,7 @@ static int read_all(int fd, char *buf, size_t cap, size_t *len)
 {
 	*len = 0;
 	for (;;) {
-		if (!wait_for(fd, POLLIN, drv_now_s() + SILENCE_S))
+		if (!wait_for(fd, POLLIN, clock_mono_s() + SILENCE_S))
 			return -1;
 		ssize_t r = recv(fd, buf + *len, cap - 1 - *len, 0);
 		if (r < 0 && errno == EINTR)
@@ -231,14 +232,14 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 	}
 	shutdown(fd, SHUT_WR);
 	size_t len;
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	if (read_all(fd, resp, sizeof resp, &len) != 0) {
 		/* A server that neither answers nor closes for 30 s, three times
 		 * its own connection timeout, has hung: that is a finding. */
 		fprintf(
 		    stderr,
 		    "fuzz_http: no reply and no close in %.1f s (%zu bytes so far) for: %.200s\n",
-		    drv_now_s() - t0, len, req);
+		    clock_mono_s() - t0, len, req);
 		abort();
 	}
 	close(fd);

@@ -11,6 +11,7 @@
 #include "harness.h"
 #include "scenario.h"
 #include "sim.h"
+#include "clock.h"
 
 static const char scen_text[] =
     "sample_ml: 10\nwater_ml: 40\n"
@@ -77,14 +78,14 @@ static void set_fault(fixture_t *f, sim_fault_t k)
 static drv_status_t wait_idle(fixture_t *f, drv_burette_status_t *st, double max_s)
 {
 	drv_err_t e;
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	drv_status_t rc;
 	do {
 		rc = drv_burette_status(&f->b, st, &e);
 		if (rc != DRV_OK || !st->moving)
 			return rc;
 		usleep(20000);
-	} while (drv_now_s() - t0 < max_s);
+	} while (clock_mono_s() - t0 < max_s);
 	return DRV_TIMEOUT;
 }
 
@@ -104,12 +105,12 @@ TEST(drv_pump_sim_dose_refill)
 	CHECK_NEAR(st.dispensed_ml, 0.0, 1e-9);
 
 	/* 0.25 mL at 1 mL/s: moving at first, done after ~0.25 s */
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	REQUIRE(drv_burette_dose(&f.b, 0.25, &e) == DRV_OK);
 	CHECK(drv_burette_status(&f.b, &st, &e) == DRV_OK);
 	CHECK(st.moving);
 	CHECK(wait_idle(&f, &st, 3) == DRV_OK);
-	double took = drv_now_s() - t0;
+	double took = clock_mono_s() - t0;
 	CHECK(took > 0.2);
 	CHECK_NEAR(st.dispensed_ml, 0.25, 1e-9);
 	CHECK_NEAR(st.contents_ml, 9.75, 1e-9);
@@ -174,9 +175,9 @@ TEST(drv_pump_sim_faults)
 
 	/* mute: timeout within (1 + retries) x timeout_ms */
 	set_fault(&f, SIM_FAULT_MUTE_PUMP);
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	CHECK(drv_burette_status(&f.b, &st, &e) == DRV_TIMEOUT);
-	double took = drv_now_s() - t0;
+	double took = clock_mono_s() - t0;
 	CHECK(took >= 0.6 && took < 0.6 + 0.5);
 	set_fault(&f, SIM_FAULT_NONE);
 	CHECK(drv_burette_status(&f.b, &st, &e) == DRV_OK);

@@ -9,6 +9,7 @@
 #include "harness.h"
 #include "serial.h"
 #include "sim.h"
+#include "clock.h"
 
 static int pty_pair(char *link, size_t cap, int *master, int *slave)
 {
@@ -38,17 +39,17 @@ TEST(drv_serial_pty_lines)
 	/* one line in two writes, then two lines in one write */
 	put(m, "AT 12");
 	put(m, "3 IDLE\r\nOK\r\nBUSY\r\n");
-	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), clock_mono_s() + 1, &e) == DRV_OK);
 	CHECK_STR(line, "AT 123 IDLE");
-	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), clock_mono_s() + 1, &e) == DRV_OK);
 	CHECK_STR(line, "OK");
-	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), clock_mono_s() + 1, &e) == DRV_OK);
 	CHECK_STR(line, "BUSY");
 
 	/* NUL bytes dropped; garbage stays for the parser to skip */
 	ssize_t w = write(m, "#\0~OK\r\n", 7);
 	CHECK(w == 7);
-	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), clock_mono_s() + 1, &e) == DRV_OK);
 	CHECK_STR(line, "#~OK");
 
 	/* a line too long for the caller is discarded whole; the next is read */
@@ -57,26 +58,26 @@ TEST(drv_serial_pty_lines)
 	big[sizeof(big) - 1] = '\0';
 	put(m, big);
 	put(m, "\r\nOK\r\n");
-	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), clock_mono_s() + 1, &e) == DRV_OK);
 	CHECK_STR(line, "OK");
 
 	/* no terminator: timeout at the deadline, not before */
 	put(m, "partial");
-	double t0 = drv_now_s();
+	double t0 = clock_mono_s();
 	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), t0 + 0.15, &e) == DRV_TIMEOUT);
-	CHECK(drv_now_s() - t0 >= 0.15);
-	CHECK(drv_now_s() - t0 < 2.0);
+	CHECK(clock_mono_s() - t0 >= 0.15);
+	CHECK(clock_mono_s() - t0 < 2.0);
 
 	/* drain drops what is pending */
 	put(m, "stale\r\n");
 	usleep(20000);
 	serial_drain(&s);
 	put(m, "fresh\r\n");
-	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), clock_mono_s() + 1, &e) == DRV_OK);
 	CHECK_STR(line, "fresh");
 
 	/* writes reach the other end */
-	CHECK(serial_write(&s, "STAT\n", 5, drv_now_s() + 1, &e) == DRV_OK);
+	CHECK(serial_write(&s, "STAT\n", 5, clock_mono_s() + 1, &e) == DRV_OK);
 	char got[16] = "";
 	usleep(20000);
 	CHECK(read(m, got, sizeof(got) - 1) == 5);
@@ -85,10 +86,10 @@ TEST(drv_serial_pty_lines)
 	/* hang-up: the far end closes -> unplugged, link closed */
 	close(m);
 	close(sl);
-	t0 = drv_now_s();
+	t0 = clock_mono_s();
 	CHECK(serial_read_line(&s, "\r\n", line, sizeof(line), t0 + 1, &e) == DRV_UNPLUGGED);
 	CHECK(!serial_is_open(&s));
-	CHECK(serial_write(&s, "X", 1, drv_now_s() + 1, &e) == DRV_UNPLUGGED);
+	CHECK(serial_write(&s, "X", 1, clock_mono_s() + 1, &e) == DRV_UNPLUGGED);
 	serial_close(&s);
 	unlink(link);
 

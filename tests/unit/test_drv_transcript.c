@@ -12,6 +12,7 @@
 #include "drv.h"
 #include "harness.h"
 #include "sim.h"
+#include "clock.h"
 
 #define MAX_STEPS 64
 
@@ -46,8 +47,8 @@ static int load(replay_t *r, const char *path)
 static int read_cmd(int fd, char *out, size_t cap)
 {
 	size_t n = 0;
-	double until = drv_now_s() + 2.0;
-	while (drv_now_s() < until) {
+	double until = clock_mono_s() + 2.0;
+	while (clock_mono_s() < until) {
 		struct pollfd pf = {.fd = fd, .events = POLLIN};
 		if (poll(&pf, 1, 50) <= 0)
 			continue;
