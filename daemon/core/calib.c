@@ -17,6 +17,7 @@
 
 #include "calib.h"
 #include "chem.h"
+#include "timefmt.h"
 
 #define RING_MAX            256 /* readings kept for one window; faster readings are thinned */
 #define MIN_WINDOW_READINGS 5
@@ -449,22 +450,11 @@ bool calib_is_valid(const calib_result_t *c, double now_unix_s)
 	       isfinite(c->offset_mv) && now_unix_s < c->expires_at_unix_s;
 }
 
-static void format_time(double unix_s, char out[32])
+static void format_time(double unix_s, char out[TIME_RFC3339_SIZE])
 {
-	if (!(unix_s > 0) || !isfinite(unix_s)) {
+	/* 0 means "not yet": no time at all rather than the epoch. */
+	if (!(unix_s > 0) || !time_format_rfc3339(unix_s, out))
 		out[0] = '\0';
-		return;
-	}
-	time_t sec = (time_t)floor(unix_s);
-	int ms = (int)floor((unix_s - (double)sec) * 1000.0 + 1e-6);
-	if (ms > 999)
-		ms = 999;
-	struct tm tm;
-	if (!gmtime_r(&sec, &tm) || strftime(out, 20, "%Y-%m-%dT%H:%M:%S", &tm) != 19) {
-		out[0] = '\0';
-		return;
-	}
-	snprintf(out + 19, 13, ".%03dZ", ms < 0 ? 0 : ms);
 }
 
 bool calib_check_for_run(const calib_result_t *c, const char *station, double now_unix_s, char *msg,
@@ -559,27 +549,8 @@ static double jget_num(const json_t *o, const char *key)
 
 static double parse_time(const char *s)
 {
-	int y, mo, d, h, mi, sec, n = 0;
-	if (!s || sscanf(s, "%4d-%2d-%2dT%2d:%2d:%2d%n", &y, &mo, &d, &h, &mi, &sec, &n) != 6)
-		return 0;
-	double frac = 0;
-	const char *p = s + n;
-	if (*p == '.') {
-		double scale = 0.1;
-		for (p++; *p >= '0' && *p <= '9'; p++, scale /= 10)
-			frac += (*p - '0') * scale;
-	}
-	if (*p != 'Z')
-		return 0;
-	struct tm tm = {0};
-	tm.tm_year = y - 1900;
-	tm.tm_mon = mo - 1;
-	tm.tm_mday = d;
-	tm.tm_hour = h;
-	tm.tm_min = mi;
-	tm.tm_sec = sec;
-	time_t t = timegm(&tm);
-	return t == (time_t)-1 ? 0 : (double)t + frac;
+	double t = 0;
+	return s && time_parse_rfc3339(s, &t) ? t : 0;
 }
 
 int calib_result_from_json(const json_t *j, calib_result_t *c)

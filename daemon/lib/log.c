@@ -1,5 +1,7 @@
 /* log.c: see log.h. */
 #include "log.h"
+#include "clock.h"
+#include "timefmt.h"
 
 #include <pthread.h>
 #include <stdarg.h>
@@ -65,14 +67,9 @@ void log_msg(int level, const char *fmt, ...)
 	if (log_cfg.journal) {
 		fprintf(stderr, "<%d>%s\n", level, line);
 	} else {
-		struct timespec ts;
-		struct tm tm;
-		char when[32];
-		clock_gettime(CLOCK_REALTIME, &ts);
-		gmtime_r(&ts.tv_sec, &tm);
-		strftime(when, sizeof when, "%Y-%m-%dT%H:%M:%S", &tm);
-		fprintf(stderr, "%s.%03ldZ %s %s: %s\n", when, ts.tv_nsec / 1000000L,
-		        log_cfg.program, words[level], line);
+		char when[TIME_RFC3339_SIZE];
+		time_format_rfc3339(clock_wall_s(), when);
+		fprintf(stderr, "%s %s %s: %s\n", when, log_cfg.program, words[level], line);
 	}
 	fflush(stderr);
 	pthread_mutex_unlock(&log_lock);

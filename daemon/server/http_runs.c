@@ -11,6 +11,8 @@
 #include "record.h"
 #include "svg.h"
 #include "text.h"
+#include "timefmt.h"
+#include "clock.h"
 
 static void db_error(http_reply_t *r)
 {
@@ -37,7 +39,7 @@ static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, ch
 	station_snapshot(st, &s);
 	if (s.has_reading && s.ph_from_probe)
 		return true;
-	store_time_rfc3339(store_now_unix_s(), now);
+	time_format_rfc3339(clock_wall_s(), now);
 	/* A valid accepted calibration counts even when a newer one was started
 	 * and left unfinished; only without one does the latest of any state
 	 * explain the refusal (rejected, expired, still in progress). */
@@ -45,9 +47,9 @@ static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, ch
 	if (!j)
 		j = store_calib_latest(ctx->store, station_name(st), false, now, &db_err);
 	if (j && calib_result_from_json(j, &cal) == 0)
-		ok = calib_check_for_run(&cal, station_name(st), store_now_unix_s(), msg, cap);
+		ok = calib_check_for_run(&cal, station_name(st), clock_wall_s(), msg, cap);
 	else
-		ok = calib_check_for_run(NULL, station_name(st), store_now_unix_s(), msg, cap);
+		ok = calib_check_for_run(NULL, station_name(st), clock_wall_s(), msg, cap);
 	json_decref(j);
 	return ok;
 }
@@ -146,7 +148,7 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 	}
 	job->amount = amount;
 	snprintf(job->sample_id, sizeof job->sample_id, "%s", sample_id);
-	store_time_rfc3339(store_now_unix_s(), job->queued_at);
+	time_format_rfc3339(clock_wall_s(), job->queued_at);
 	snprintf(job->requested_by, sizeof job->requested_by, "%s", http_actor(q));
 
 	record_init(rec);

@@ -6,9 +6,11 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "clock.h"
 #include "log.h"
 #include "station.h"
 #include "store.h"
+#include "timefmt.h"
 
 static void hold_running(const char *name, void *arg)
 {
@@ -26,7 +28,7 @@ static void end_queued(store_t *store, json_int_t id, const char *record, const 
 	json_t *j = json_loads(record, 0, NULL);
 	char *text = NULL;
 
-	store_time_rfc3339(store_now_unix_s(), at);
+	time_format_rfc3339(clock_wall_s(), at);
 	if (j && json_is_object(j)) {
 		json_t *fl = json_object_get(j, "faults");
 		json_object_set_new(j, "state", json_string("interrupted"));
@@ -120,7 +122,7 @@ static bool mark(http_ctx_t *ctx, bool first)
 	char at[32];
 	int k;
 
-	store_time_rfc3339(store_now_unix_s(), at);
+	time_format_rfc3339(clock_wall_s(), at);
 	k = store_interrupt_stale(ctx->store, at, hold_running, ctx);
 	if (k < 0) {
 		if (first) {

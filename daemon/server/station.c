@@ -14,6 +14,7 @@
 #include "notify.h"
 #include "record.h"
 #include "clock.h"
+#include "timefmt.h"
 
 #define IDLE_READ_S 1.0 /* probe reading while idle, for the live value */
 #define REOPEN_S    2.0 /* retry unanswering devices this often */
@@ -268,7 +269,7 @@ drv_status_t station_read_probe(station_t *s, drv_reading_t *r, drv_err_t *err)
 		s->snap.has_ph = s->snap.ph_from_probe;
 		s->snap.ph = r->ph;
 		if (!s->snap.has_ph && s->has_valid_cal &&
-		    calib_is_valid(&s->valid_cal, store_now_unix_s())) {
+		    calib_is_valid(&s->valid_cal, clock_wall_s())) {
 			/* live display only; runs take the calibration from the store */
 			s->snap.ph = calib_ph_from_mv(&s->valid_cal, r->mv,
 			                              r->has_temperature ? r->temperature_c : NAN);
@@ -378,7 +379,7 @@ void station_abort_queued(station_t *s, station_job_t *job, const char *why)
 
 	if (!s->store)
 		return;
-	store_time_rfc3339(store_now_unix_s(), at);
+	time_format_rfc3339(clock_wall_s(), at);
 	j = store_run_json(s->store, job->run_id, &db_err);
 	if (j) {
 		json_object_set_new(j, "state", json_string("aborted"));
@@ -414,7 +415,7 @@ static void calib_store(station_t *s)
 		return;
 	}
 	state = calib_session_state(s->cal);
-	calib_session_result(s->cal, store_now_unix_s(), &res);
+	calib_session_result(s->cal, clock_wall_s(), &res);
 	s->cal_dirty = false;
 	cal_id = s->cal_id;
 	/* the end of each calibration goes into the audit trail once */
@@ -427,9 +428,9 @@ static void calib_store(station_t *s)
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(j);
 	if (res.at_unix_s > 0)
-		store_time_rfc3339(res.at_unix_s, at);
+		time_format_rfc3339(res.at_unix_s, at);
 	if (res.expires_at_unix_s > 0)
-		store_time_rfc3339(res.expires_at_unix_s, exp);
+		time_format_rfc3339(res.expires_at_unix_s, exp);
 	store_calib_update(s->store, cal_id, calib_state_name(state), at[0] ? at : NULL,
 	                   exp[0] ? exp : NULL, text);
 	free(text);
@@ -715,7 +716,7 @@ static void load_valid_cal(station_t *s)
 	json_t *j;
 	calib_result_t c;
 
-	store_time_rfc3339(store_now_unix_s(), now);
+	time_format_rfc3339(clock_wall_s(), now);
 	j = store_calib_latest(s->store, s->name, true, now, &db_err);
 	pthread_mutex_lock(&s->lock);
 	s->has_valid_cal = j && calib_result_from_json(j, &c) == 0;

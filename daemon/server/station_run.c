@@ -20,6 +20,7 @@
 #include "log.h"
 #include "record.h"
 #include "clock.h"
+#include "timefmt.h"
 
 #define PROBE_TRIES     3     /* readings tried before a probe fault */
 #define PROBE_RETRY_S   0.2   /* between those tries */
@@ -50,7 +51,7 @@ typedef struct run {
 
 static void now_text(char out[32])
 {
-	store_time_rfc3339(store_now_unix_s(), out);
+	time_format_rfc3339(clock_wall_s(), out);
 }
 
 static char *record_text(run_t *r)
@@ -517,7 +518,7 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 		bool db_err;
 		calib_result_t cal;
 		json_t *j;
-		store_time_rfc3339(store_now_unix_s(), now);
+		time_format_rfc3339(clock_wall_s(), now);
 		j = store_calib_latest(s->store, s->name, true, now, &db_err);
 		if (!j || calib_result_from_json(j, &cal)) {
 			json_decref(j);
@@ -536,7 +537,7 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 		r->rec.has_calibration = true;
 		r->rec.calibration.slope_pct = cal.slope_pct;
 		r->rec.calibration.offset_mv = cal.offset_mv;
-		store_time_rfc3339(cal.at_unix_s, r->rec.calibration.at);
+		time_format_rfc3339(cal.at_unix_s, r->rec.calibration.at);
 	}
 	return true;
 }

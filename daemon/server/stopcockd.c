@@ -27,6 +27,8 @@
 #include "standardization.h"
 #include "store.h"
 #include "titer_book.h"
+#include "timefmt.h"
+#include "clock.h"
 
 #define READY_WAIT_S 15.0 /* how long start-up waits for devices to answer */
 /* How often the daemon notes in the database that it is alive: the end time
@@ -478,11 +480,11 @@ int main(int argc, char **argv)
 		}
 		set_status(stations, n);
 		{
-			double now = store_now_unix_s();
+			double now = clock_wall_s();
 			if (now - beat_s >= HEARTBEAT_S) {
 				char at[32];
 				beat_s = now;
-				store_time_rfc3339(now, at);
+				time_format_rfc3339(now, at);
 				store_heartbeat(store,
 				                at); /* a refused beat costs only precision */
 			}

@@ -3,6 +3,7 @@
 #include "store_priv.h"
 #include "log.h"
 #include "timefmt.h"
+#include "clock.h"
 
 #include <math.h>
 #include <pthread.h>
@@ -60,28 +61,6 @@ static const char *const migrations[] = {
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
-
-double store_now_unix_s(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_REALTIME, &ts);
-	return (double)ts.tv_sec + ts.tv_nsec / 1e9;
-}
-
-void store_time_rfc3339(double unix_s, char out[32])
-{
-	time_t t = (time_t)floor(unix_s);
-	int ms = (int)((unix_s - (double)t) * 1000.0);
-	struct tm tm;
-
-	if (ms > 999)
-		ms = 999;
-	gmtime_r(&t, &tm);
-	/* strftime keeps the compiler from fearing a 6-digit year. */
-	char date[24];
-	strftime(date, sizeof date, "%Y-%m-%dT%H:%M:%S", &tm);
-	snprintf(out, 32, "%.19s.%03uZ", date, (unsigned)ms % 1000u);
-}
 
 int store_setup_conn(sqlite3 *db)
 {
@@ -668,7 +647,7 @@ store_status_t store_method_put(store_t *s, const char *id, long revision, const
 	long cur = 0;
 	bool same = false;
 
-	store_time_rfc3339(store_now_unix_s(), at);
+	time_format_rfc3339(clock_wall_s(), at);
 	pthread_mutex_lock(&s->wlock);
 	if (begin(s))
 		goto out_unlock;
@@ -981,7 +960,7 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
 	int rc;
 	char now[32];
 	if (!at) {
-		store_time_rfc3339(store_now_unix_s(), now);
+		time_format_rfc3339(clock_wall_s(), now);
 		at = now;
 	}
 	pthread_mutex_lock(&s->wlock);

@@ -36,10 +36,6 @@ store_t *store_open(const char *path, char *err, size_t err_cap);
 void store_close(store_t *s);
 int store_schema_version(store_t *s);
 
-/* RFC 3339 UTC with milliseconds, e.g. "2026-12-01T21:46:40.123Z". */
-void store_time_rfc3339(double unix_s, char out[32]);
-double store_now_unix_s(void);
-
 /* ---- start-up ---- */
 
 /* Runs left `running` by a daemon that stopped become `interrupted` (points

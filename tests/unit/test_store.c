@@ -7,6 +7,7 @@
 
 #include "harness.h"
 #include "store.h"
+#include "timefmt.h"
 
 static store_t *open_tmp(char dir[64], char path[128])
 {
@@ -161,9 +162,9 @@ TEST(store_points_csv_header)
 TEST(store_time_rfc3339_format)
 {
 	char t[32];
-	store_time_rfc3339(0.25, t);
+	time_format_rfc3339(0.25, t);
 	CHECK_STR(t, "1970-01-01T00:00:00.250Z");
-	store_time_rfc3339(1796160400.0, t);
+	time_format_rfc3339(1796160400.0, t);
 	CHECK_STR(t, "2026-12-01T21:26:40.000Z");
 }
 
