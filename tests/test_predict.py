@@ -91,6 +91,8 @@ def test_bad_input_exits_2_with_file_line_col(tmp_path):
     assert predict(METHOD).returncode == 2  # no --scenario
     assert predict(METHOD, "--scenario", SCENARIO, "--seed", "-1").returncode == 2
     assert predict(METHOD, "--scenario", SCENARIO, "--amount", "zero").returncode == 2
+    # Decimal only: strtod would read "0x1p3" as 8.
+    assert predict(METHOD, "--scenario", SCENARIO, "--amount", "0x1p3").returncode == 2
     assert predict(METHOD, "--scenario", SCENARIO, "--calibration", "98").returncode == 2
     bad = tmp_path / "weak.yaml"
     bad.write_text(Path(METHOD).read_text().replace("step_aim: 0.50", "step_aim: lots"))

@@ -1,7 +1,9 @@
 /* client.c: what every `stopcock` client command shares (see client.h). */
 #include "client.h"
 #include "text.h"
+#include "numparse.h"
 
+#include <limits.h>
 #include <ctype.h>
 #include <errno.h>
 #include <getopt.h>
@@ -342,28 +344,8 @@ void client_sleep_ms(int ms)
 
 bool client_parse_id(const char *s, long long *id)
 {
-	if (!s || !isdigit((unsigned char)*s))
-		return false;
-	char *e;
-	errno = 0;
-	long long v = strtoll(s, &e, 10);
-	if (*e || errno || v <= 0)
-		return false;
-	*id = v;
-	return true;
-}
-
-bool client_parse_number(const char *s, double *v)
-{
-	if (!s || !*s)
-		return false;
-	char *e;
-	errno = 0;
-	double d = strtod(s, &e);
-	if (*e || errno || !isfinite(d))
-		return false;
-	*v = d;
-	return true;
+	/* Digits only: an id is never written with a sign. */
+	return s && isdigit((unsigned char)*s) && parse_whole(s, 1, LLONG_MAX, id);
 }
 
 const char *client_str(const json_t *o, const char *key, const char *dflt)

@@ -95,8 +95,6 @@ void client_sleep_ms(int ms);
 
 /* Parse a run id: a positive integer. */
 bool client_parse_id(const char *s, long long *id);
-/* Parse a finite number. */
-bool client_parse_number(const char *s, double *v);
 
 /* Accessors that tolerate missing keys and nulls. */
 const char *client_str(const json_t *o, const char *key, const char *dflt);

@@ -12,6 +12,7 @@
 #include "client.h"
 #include "cmd.h"
 #include "clock.h"
+#include "numparse.h"
 
 #define CAL_MAX_BUFFERS   8     /* sent on; the daemon enforces its own limit */
 #define CAL_POLL_MS       500   /* ms between polls while a buffer is measured */
@@ -27,7 +28,7 @@ static int parse_buffers(const char *s, double *ph, int max)
 		return -1;
 	for (char *tok = strtok_r(copy, ",", &save); tok; tok = strtok_r(NULL, ",", &save)) {
 		double v;
-		if (n == max || !client_parse_number(tok, &v) || v < 0 || v > 14) {
+		if (n == max || !parse_decimal(tok, &v) || v < 0 || v > 14) {
 			n = -1;
 			break;
 		}

@@ -10,6 +10,7 @@
 #include "client.h"
 #include "cmd.h"
 #include "clock.h"
+#include "numparse.h"
 
 #define WAIT_POLL_MS       500  /* how often `wait` asks, ms */
 #define WAIT_UNREACHABLE_S 10.0 /* `wait` gives up after the daemon is gone this long, s */
@@ -37,7 +38,7 @@ int cmd_start(int argc, char **argv)
 		                    "--station, --method, --sample-id and --amount are "
 		                    "all needed");
 	double amount;
-	if (!client_parse_number(amount_s, &amount) || amount <= 0)
+	if (!parse_decimal(amount_s, &amount) || amount <= 0)
 		return client_usage(&c, usage,
 		                    "--amount must be a positive number (mL or g, as the method's "
 		                    "sample unit says), not '%s'",
@@ -313,7 +314,7 @@ int cmd_wait(int argc, char **argv)
 	if (early >= 0)
 		return early;
 	double timeout_s = 0; /* 0: as long as it takes */
-	if (timeout_arg && (!client_parse_number(timeout_arg, &timeout_s) || timeout_s <= 0))
+	if (timeout_arg && (!parse_decimal(timeout_arg, &timeout_s) || timeout_s <= 0))
 		return client_usage(&c, usage,
 		                    "--timeout must be a positive number of seconds, not '%s'",
 		                    timeout_arg);

@@ -16,6 +16,7 @@
 #include "scenario.h"
 #include "cmd.h"
 #include "diag.h"
+#include "numparse.h"
 
 #define CURVE_MAX_POINTS 100000
 
@@ -41,7 +42,6 @@ static int parse_ml_list(const char *list, double **out, int *n_out, diag_list_t
 		const char *comma = strchr(p, ',');
 		size_t len = comma ? (size_t)(comma - p) : strlen(p);
 		char item[64];
-		char *end;
 		int col = (int)(start - list) + 1;
 		if (len == 0 || len >= sizeof item) {
 			diag_add(d, "--ml", 1, col, "expected a volume in mL (got \"%.*s\")",
@@ -51,11 +51,8 @@ static int parse_ml_list(const char *list, double **out, int *n_out, diag_list_t
 		}
 		memcpy(item, start, len);
 		item[len] = '\0';
-		errno = 0;
-		double ml = strtod(item, &end);
-		/* decimal only: strtod would also take hex, "inf" and "nan" */
-		if (*end != '\0' || errno == ERANGE || !isfinite(ml) ||
-		    strspn(item, "0123456789.+-eE") != len) {
+		double ml;
+		if (!parse_decimal(item, &ml)) {
 			diag_add(d, "--ml", 1, col, "expected a volume in mL (got \"%s\")", item);
 			free(v);
 			return -1;

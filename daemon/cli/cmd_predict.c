@@ -25,22 +25,12 @@
 #include "method.h"
 #include "record.h"
 #include "simrun.h"
+#include "numparse.h"
 
 static void usage(FILE *f)
 {
 	fprintf(f, "usage: stopcock predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N]\n"
 	           "                        [--calibration SLOPE_PCT,OFFSET_MV] [--json]\n");
-}
-
-static bool parse_double(const char *s, double *out)
-{
-	char *end;
-	errno = 0;
-	double v = strtod(s, &end);
-	if (errno || end == s || *end || !isfinite(v))
-		return false;
-	*out = v;
-	return true;
 }
 
 static void print_human(const method_t *m, const engine_t *e, const simrun_out_t *out,
@@ -148,7 +138,7 @@ int cmd_predict(int argc, char **argv)
 		} else if (!strcmp(a, "--scenario") && has_val) {
 			scenario_path = argv[++i];
 		} else if (!strcmp(a, "--amount") && has_val) {
-			if (!parse_double(argv[++i], &o.amount) || !(o.amount > 0)) {
+			if (!parse_decimal(argv[++i], &o.amount) || !(o.amount > 0)) {
 				fprintf(stderr,
 				        "stopcock predict: --amount must be a number > 0 "
 				        "(got '%s')\n",
@@ -175,8 +165,8 @@ int cmd_predict(int argc, char **argv)
 			double slope = 0, off = 0;
 			if (comma)
 				*comma = '\0';
-			if (!comma || !parse_double(buf, &slope) ||
-			    !parse_double(comma + 1, &off) || !(slope > 0)) {
+			if (!comma || !parse_decimal(buf, &slope) ||
+			    !parse_decimal(comma + 1, &off) || !(slope > 0)) {
 				fprintf(stderr,
 				        "stopcock predict: --calibration wants SLOPE_PCT,"
 				        "OFFSET_MV, e.g. 98.5,-4.2 (got '%s')\n",

@@ -5,6 +5,7 @@
  * unbounded nesting; with events we refuse those while streaming.
  */
 #include "yamltree.h"
+#include "numparse.h"
 
 #include "text.h"
 
@@ -878,45 +879,6 @@ static bool want_value(const yt_doc_t *doc, const yt_node_t *n, const char *key,
 		yt_error(doc, n, d, "%s has no value (expected %s)", key, expect);
 		return false;
 	}
-	return true;
-}
-
-/* Strict decimal number: [+-]digits[.digits][e[+-]digits] or [+-].digits... */
-static bool parse_decimal(const char *s, double *out)
-{
-	const char *p = s;
-	bool digits = false;
-	char *end;
-	if (*p == '+' || *p == '-')
-		p++;
-	while (*p >= '0' && *p <= '9') {
-		p++;
-		digits = true;
-	}
-	if (*p == '.') {
-		p++;
-		while (*p >= '0' && *p <= '9') {
-			p++;
-			digits = true;
-		}
-	}
-	if (!digits)
-		return false;
-	if (*p == 'e' || *p == 'E') {
-		p++;
-		if (*p == '+' || *p == '-')
-			p++;
-		if (!(*p >= '0' && *p <= '9'))
-			return false;
-		while (*p >= '0' && *p <= '9')
-			p++;
-	}
-	if (*p != '\0')
-		return false;
-	errno = 0;
-	*out = strtod(s, &end);
-	if (*end != '\0' || !isfinite(*out))
-		return false;
 	return true;
 }
 

@@ -8,6 +8,7 @@
 
 #include "client.h"
 #include "harness.h"
+#include "numparse.h"
 
 static char *write_tmp(const char *text)
 {
@@ -120,12 +121,16 @@ TEST(client_escape_and_numbers)
 	CHECK(!client_parse_id("", &id));
 	CHECK(!client_parse_id("99999999999999999999", &id));
 	double v = 0;
-	CHECK(client_parse_number("10", &v) && v == 10.0);
-	CHECK(client_parse_number("0.25", &v) && v == 0.25);
-	CHECK(!client_parse_number("ten", &v));
-	CHECK(!client_parse_number("1e999", &v));
-	CHECK(!client_parse_number("nan", &v));
-	CHECK(!client_parse_number("", &v));
+	CHECK(parse_decimal("10", &v) && v == 10.0);
+	CHECK(parse_decimal("0.25", &v) && v == 0.25);
+	CHECK(!parse_decimal("ten", &v));
+	CHECK(!parse_decimal("1e999", &v));
+	CHECK(!parse_decimal("nan", &v));
+	CHECK(!parse_decimal("", &v));
+	/* Decimal only: hex floats, spaces and infinities are not a lab number. */
+	CHECK(!parse_decimal("0x1p3", &v));
+	CHECK(!parse_decimal(" 1", &v));
+	CHECK(!parse_decimal("inf", &v));
 
 	char b[32];
 	CHECK_STR(client_fmt(b, sizeof b, 5.36, 2), "5.36");
