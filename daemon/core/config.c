@@ -1,6 +1,7 @@
 /* config.c: see config.h. */
 #include "config.h"
 #include "text.h"
+#include "names.h"
 
 #include <arpa/inet.h>
 #include <errno.h>
@@ -67,16 +68,6 @@ void cfg_resolve_path(const char *base_file, const char *rel, char *out, size_t 
 		return;
 	}
 	snprintf(out, cap, "%.*s/%s", (int)(slash - base_file), base_file, rel);
-}
-
-static bool valid_name(const char *s)
-{
-	if (!*s)
-		return false;
-	for (; *s; s++)
-		if (!((*s >= 'a' && *s <= 'z') || (*s >= '0' && *s <= '9') || *s == '-'))
-			return false;
-	return true;
 }
 
 static void get_uint(const yt_doc_t *doc, const yt_node_t *m, const char *key, const char *name,
@@ -207,7 +198,7 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 	if (!(n = yt_get(s, "name"))) {
 		yt_missing(&c->doc, s, "name", "station", d);
 	} else if (yt_string(&c->doc, n, "name", st->name, sizeof st->name, d)) {
-		if (!valid_name(st->name))
+		if (!name_is_id(st->name, 0))
 			yt_error(&c->doc, n, d,
 			         "station name must be lower-case letters, digits and '-' "
 			         "(got '%s')",

@@ -16,6 +16,7 @@
 #include <strings.h>
 
 #include "sha256.h"
+#include "names.h"
 
 /* Electrode ranges: a glass electrode reads pH -1 .. 15; a mV input spans
  * +-1000 mV (common practice for pH/mV transmitters). */
@@ -199,16 +200,6 @@ static bool word(mp_ctx_t *c, const yt_node_t *map, const char *key, const char 
 
 /* ---- sections ---- */
 
-static bool id_ok(const char *s)
-{
-	if (!*s)
-		return false;
-	for (; *s; s++)
-		if (!((*s >= 'a' && *s <= 'z') || (*s >= '0' && *s <= '9') || *s == '-'))
-			return false;
-	return true;
-}
-
 static void parse_head(mp_ctx_t *c, const yt_node_t *root, const char *name)
 {
 	method_t *m = c->m;
@@ -219,7 +210,7 @@ static void parse_head(mp_ctx_t *c, const yt_node_t *root, const char *name)
 	if (!n) {
 		missing(c, root, "method", "method");
 	} else if (yt_string(c->doc, n, "method", m->id, sizeof m->id, c->d)) {
-		if (!id_ok(m->id)) {
+		if (!name_is_id(m->id, 0)) {
 			yt_error(c->doc, n, c->d,
 			         "method must be an id of lower-case letters, digits and '-' "
 			         "(got \"%s\")",

@@ -10,19 +10,11 @@
 
 #include "station.h"
 #include "clock.h"
+#include "names.h"
 
 static json_t *real_or_null(bool have, double v)
 {
 	return have && isfinite(v) ? json_real(v) : json_null();
-}
-
-static bool valid_name(const char *s)
-{
-	size_t n = 0;
-	for (; *s; s++, n++)
-		if (!((*s >= 'a' && *s <= 'z') || (*s >= '0' && *s <= '9') || *s == '-'))
-			return false;
-	return n > 0 && n < METHOD_ID_MAX;
 }
 
 static json_t *station_json(station_t *st)
@@ -127,7 +119,7 @@ static void put_method(const http_req_t *q, const char *id, http_reply_t *r)
 	long stored = 0;
 	store_status_t st;
 
-	if (!valid_name(id)) {
+	if (!name_is_id(id, METHOD_ID_MAX)) {
 		http_reply_error(r, 400, "bad_request",
 		                 "a method id is lower-case letters, digits and '-'");
 		return;
