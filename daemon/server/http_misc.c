@@ -11,6 +11,7 @@
 #include "station.h"
 #include "clock.h"
 #include "names.h"
+#include "sbuf.h"
 
 static json_t *real_or_null(bool have, double v)
 {
@@ -169,119 +170,86 @@ out:
 	free(m);
 }
 
-static void append(char **buf, size_t *len, size_t *cap, const char *fmt, ...)
-    __attribute__((format(printf, 4, 5)));
-
-static void append(char **buf, size_t *len, size_t *cap, const char *fmt, ...)
-{
-	va_list ap;
-	int n;
-
-	for (;;) {
-		va_start(ap, fmt);
-		n = vsnprintf(*buf + *len, *cap - *len, fmt, ap);
-		va_end(ap);
-		if (n < 0)
-			return;
-		if ((size_t)n < *cap - *len) {
-			*len += (size_t)n;
-			return;
-		}
-		char *nb = realloc(*buf, *cap * 2 + (size_t)n);
-		if (!nb)
-			return;
-		*buf = nb;
-		*cap = *cap * 2 + (size_t)n;
-	}
-}
-
 char *http_metrics_text(http_ctx_t *ctx, size_t *out_len)
 {
 	static const char *const states[] = {"queued",  "running", "finished",
 	                                     "aborted", "failed",  "interrupted"};
 	long counts[6];
-	size_t len = 0, cap = 4096;
-	char *b = malloc(cap);
-
-	if (!b)
-		return NULL;
-	b[0] = '\0';
-	append(&b, &len, &cap, "# TYPE stopcock_runs gauge\n# HELP stopcock_runs Runs by state.\n");
+	/* An out-of-memory anywhere makes the whole text NULL (a 500), never a
+	 * short page that a scraper would take for the truth. */
+	sbuf_t b = SBUF_INIT;
+	sbuf_addf(&b, "# TYPE stopcock_runs gauge\n# HELP stopcock_runs Runs by state.\n");
 	if (store_run_counts(ctx->store, states, counts, 6) == 0)
 		for (int i = 0; i < 6; i++)
-			append(&b, &len, &cap, "stopcock_runs{state=\"%s\"} %ld\n", states[i],
-			       counts[i]);
-	append(&b, &len, &cap,
-	       "# TYPE stopcock_additions counter\n"
-	       "# HELP stopcock_additions Doses sent to the burette since the daemon started.\n");
+			sbuf_addf(&b, "stopcock_runs{state=\"%s\"} %ld\n", states[i], counts[i]);
+	sbuf_addf(
+	    &b, "# TYPE stopcock_additions counter\n"
+	        "# HELP stopcock_additions Doses sent to the burette since the daemon started.\n");
 	for (int i = 0; i < ctx->n_stations; i++) {
 		station_snapshot_t s;
 		station_snapshot(ctx->stations[i], &s);
-		append(&b, &len, &cap, "stopcock_additions_total{station=\"%s\"} %ld\n", s.name,
-		       s.additions_total);
+		sbuf_addf(&b, "stopcock_additions_total{station=\"%s\"} %ld\n", s.name,
+		          s.additions_total);
 	}
-	append(&b, &len, &cap,
-	       "# TYPE stopcock_reading_age_seconds gauge\n"
-	       "# UNIT stopcock_reading_age_seconds seconds\n"
-	       "# HELP stopcock_reading_age_seconds Age of the station's last probe reading.\n");
+	sbuf_addf(&b,
+	          "# TYPE stopcock_reading_age_seconds gauge\n"
+	          "# UNIT stopcock_reading_age_seconds seconds\n"
+	          "# HELP stopcock_reading_age_seconds Age of the station's last probe reading.\n");
 	for (int i = 0; i < ctx->n_stations; i++) {
 		station_snapshot_t s;
 		station_snapshot(ctx->stations[i], &s);
 		if (s.has_reading)
-			append(&b, &len, &cap,
-			       "stopcock_reading_age_seconds{station=\"%s\"} %.3f\n", s.name,
-			       s.reading_age_s);
+			sbuf_addf(&b, "stopcock_reading_age_seconds{station=\"%s\"} %.3f\n", s.name,
+			          s.reading_age_s);
 	}
-	append(&b, &len, &cap,
-	       "# TYPE stopcock_wake_lateness_seconds summary\n"
-	       "# UNIT stopcock_wake_lateness_seconds seconds\n"
-	       "# HELP stopcock_wake_lateness_seconds How late station threads woke for the "
-	       "engine's scheduled readings.\n");
+	sbuf_addf(&b, "# TYPE stopcock_wake_lateness_seconds summary\n"
+	              "# UNIT stopcock_wake_lateness_seconds seconds\n"
+	              "# HELP stopcock_wake_lateness_seconds How late station threads woke for the "
+	              "engine's scheduled readings.\n");
 	for (int i = 0; i < ctx->n_stations; i++) {
 		station_snapshot_t s;
 		station_snapshot(ctx->stations[i], &s);
-		append(&b, &len, &cap,
-		       "stopcock_wake_lateness_seconds_count{station=\"%s\"} %ld\n"
-		       "stopcock_wake_lateness_seconds_sum{station=\"%s\"} %.6f\n",
-		       s.name, s.wake_count, s.name, s.wake_late_sum_s);
+		sbuf_addf(&b,
+		          "stopcock_wake_lateness_seconds_count{station=\"%s\"} %ld\n"
+		          "stopcock_wake_lateness_seconds_sum{station=\"%s\"} %.6f\n",
+		          s.name, s.wake_count, s.name, s.wake_late_sum_s);
 	}
-	append(&b, &len, &cap,
-	       "# TYPE stopcock_wake_lateness_max_seconds gauge\n"
-	       "# UNIT stopcock_wake_lateness_max_seconds seconds\n"
-	       "# HELP stopcock_wake_lateness_max_seconds The largest of those since start.\n");
+	sbuf_addf(&b,
+	          "# TYPE stopcock_wake_lateness_max_seconds gauge\n"
+	          "# UNIT stopcock_wake_lateness_max_seconds seconds\n"
+	          "# HELP stopcock_wake_lateness_max_seconds The largest of those since start.\n");
 	for (int i = 0; i < ctx->n_stations; i++) {
 		station_snapshot_t s;
 		station_snapshot(ctx->stations[i], &s);
-		append(&b, &len, &cap, "stopcock_wake_lateness_max_seconds{station=\"%s\"} %.6f\n",
-		       s.name, s.wake_late_max_s);
+		sbuf_addf(&b, "stopcock_wake_lateness_max_seconds{station=\"%s\"} %.6f\n", s.name,
+		          s.wake_late_max_s);
 	}
-	append(&b, &len, &cap,
-	       "# TYPE stopcock_http_requests counter\n"
-	       "# HELP stopcock_http_requests HTTP requests answered, by status class.\n"
-	       "stopcock_http_requests_total{class=\"2xx\"} %ld\n"
-	       "stopcock_http_requests_total{class=\"4xx\"} %ld\n"
-	       "stopcock_http_requests_total{class=\"5xx\"} %ld\n"
-	       "# TYPE stopcock_http_auth_failures counter\n"
-	       "stopcock_http_auth_failures_total %ld\n"
-	       "# TYPE stopcock_http_body_too_large counter\n"
-	       "stopcock_http_body_too_large_total %ld\n"
-	       "# TYPE stopcock_http_deadline_cuts counter\n"
-	       "# HELP stopcock_http_deadline_cuts Connections closed for not delivering a "
-	       "request within http.request_deadline_s.\n"
-	       "stopcock_http_deadline_cuts_total %ld\n"
-	       "# TYPE stopcock_http_busy counter\n"
-	       "# HELP stopcock_http_busy Requests answered 503 for their address's "
-	       "connection limit.\n"
-	       "stopcock_http_busy_total %ld\n"
-	       "# TYPE stopcock_uptime_seconds gauge\n"
-	       "# UNIT stopcock_uptime_seconds seconds\n"
-	       "stopcock_uptime_seconds %.1f\n# EOF\n",
-	       atomic_load(&ctx->requests_2xx), atomic_load(&ctx->requests_4xx),
-	       atomic_load(&ctx->requests_5xx), atomic_load(&ctx->auth_failures),
-	       atomic_load(&ctx->body_too_large), atomic_load(&ctx->deadline_cuts),
-	       atomic_load(&ctx->over_limit), clock_mono_s() - ctx->started_mono_s);
-	*out_len = len;
-	return b;
+	sbuf_addf(&b,
+	          "# TYPE stopcock_http_requests counter\n"
+	          "# HELP stopcock_http_requests HTTP requests answered, by status class.\n"
+	          "stopcock_http_requests_total{class=\"2xx\"} %ld\n"
+	          "stopcock_http_requests_total{class=\"4xx\"} %ld\n"
+	          "stopcock_http_requests_total{class=\"5xx\"} %ld\n"
+	          "# TYPE stopcock_http_auth_failures counter\n"
+	          "stopcock_http_auth_failures_total %ld\n"
+	          "# TYPE stopcock_http_body_too_large counter\n"
+	          "stopcock_http_body_too_large_total %ld\n"
+	          "# TYPE stopcock_http_deadline_cuts counter\n"
+	          "# HELP stopcock_http_deadline_cuts Connections closed for not delivering a "
+	          "request within http.request_deadline_s.\n"
+	          "stopcock_http_deadline_cuts_total %ld\n"
+	          "# TYPE stopcock_http_busy counter\n"
+	          "# HELP stopcock_http_busy Requests answered 503 for their address's "
+	          "connection limit.\n"
+	          "stopcock_http_busy_total %ld\n"
+	          "# TYPE stopcock_uptime_seconds gauge\n"
+	          "# UNIT stopcock_uptime_seconds seconds\n"
+	          "stopcock_uptime_seconds %.1f\n# EOF\n",
+	          atomic_load(&ctx->requests_2xx), atomic_load(&ctx->requests_4xx),
+	          atomic_load(&ctx->requests_5xx), atomic_load(&ctx->auth_failures),
+	          atomic_load(&ctx->body_too_large), atomic_load(&ctx->deadline_cuts),
+	          atomic_load(&ctx->over_limit), clock_mono_s() - ctx->started_mono_s);
+	return sbuf_finish(&b, out_len);
 }
 
 static void method_not_allowed(const http_req_t *q, http_reply_t *r)

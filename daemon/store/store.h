@@ -162,7 +162,8 @@ store_status_t store_run_state(store_t *s, int64_t id, char *out, size_t cap, ch
 store_status_t store_run_signal(store_t *s, int64_t id, char *out, size_t cap);
 /* Points as a JSON array of point objects (docs/api.md fields). */
 json_t *store_points_json(store_t *s, int64_t id, bool *db_err);
-/* Points as CSV text (malloc'd): header t_s,volume_ml,mv,ph,temperature_c,settled,dpdv. */
+/* Points as CSV text (malloc'd): header t_s,volume_ml,mv,ph,temperature_c,settled,dpdv.
+ * NULL with *db_err set on a database error or out of memory (never a short table). */
 char *store_points_csv(store_t *s, int64_t id, bool *db_err);
 /* {"results":[records with seq], "next_after":SEQ}. */
 json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err);

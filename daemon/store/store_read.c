@@ -1,6 +1,7 @@
 /* store_read.c: the read paths of store.h, on a pool of read-only connections. */
 #include "store.h"
 #include "store_priv.h"
+#include "sbuf.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -300,34 +301,16 @@ json_t *store_points_json(store_t *s, int64_t id, bool *db_err)
 	return json_pack("{s:I,s:o}", "run", (json_int_t)id, "points", arr);
 }
 
-static void csv_num(char **buf, size_t *len, size_t *cap, sqlite3_stmt *st, int i, int digits,
-                    char sep)
+static void csv_num(sbuf_t *b, sqlite3_stmt *st, int i, int digits, char sep)
 {
-	char tmp[48];
-	int n;
-
-	if (sqlite3_column_type(st, i) == SQLITE_NULL)
-		n = snprintf(tmp, sizeof tmp, "%c", sep);
-	else
-		n = snprintf(tmp, sizeof tmp, "%.*f%c", digits, sqlite3_column_double(st, i), sep);
-	if (*len + (size_t)n + 1 > *cap) {
-		size_t nc = (*cap + (size_t)n + 1) * 2;
-		char *nb = realloc(*buf, nc);
-		if (!nb)
-			return;
-		*buf = nb;
-		*cap = nc;
-	}
-	memcpy(*buf + *len, tmp, (size_t)n + 1);
-	*len += (size_t)n;
+	if (sqlite3_column_type(st, i) != SQLITE_NULL)
+		sbuf_addf(b, "%.*f", digits, sqlite3_column_double(st, i));
+	sbuf_addc(b, sep);
 }
 
 char *store_points_csv(store_t *s, int64_t id, bool *db_err)
 {
-	static const char header[] = "t_s,volume_ml,mv,ph,temperature_c,settled,dpdv\n";
 	rq_t q;
-	size_t cap = 4096, len = sizeof header - 1;
-	char *buf;
 
 	if (!run_exists(s, id, db_err))
 		return NULL;
@@ -335,25 +318,24 @@ char *store_points_csv(store_t *s, int64_t id, bool *db_err)
 		*db_err = true;
 		return NULL;
 	}
-	buf = malloc(cap);
-	if (!buf) {
-		rq_close(&q);
-		*db_err = true;
-		return NULL;
-	}
-	memcpy(buf, header, sizeof header);
+	sbuf_t b = SBUF_INIT;
+	sbuf_add(&b, "t_s,volume_ml,mv,ph,temperature_c,settled,dpdv\n");
 	sqlite3_bind_int64(q.st, 1, id);
 	while (sqlite3_step(q.st) == SQLITE_ROW) {
-		csv_num(&buf, &len, &cap, q.st, 0, 3, ',');
-		csv_num(&buf, &len, &cap, q.st, 1, 4, ',');
-		csv_num(&buf, &len, &cap, q.st, 2, 2, ',');
-		csv_num(&buf, &len, &cap, q.st, 3, 3, ',');
-		csv_num(&buf, &len, &cap, q.st, 4, 2, ',');
-		csv_num(&buf, &len, &cap, q.st, 5, 0, ',');
-		csv_num(&buf, &len, &cap, q.st, 6, 4, '\n');
+		csv_num(&b, q.st, 0, 3, ',');
+		csv_num(&b, q.st, 1, 4, ',');
+		csv_num(&b, q.st, 2, 2, ',');
+		csv_num(&b, q.st, 3, 3, ',');
+		csv_num(&b, q.st, 4, 2, ',');
+		csv_num(&b, q.st, 5, 0, ',');
+		csv_num(&b, q.st, 6, 4, '\n');
 	}
 	rq_close(&q);
-	return buf;
+	/* Out of memory mid-table: an error (500), never a CSV missing rows. */
+	char *csv = sbuf_finish(&b, NULL);
+	if (!csv)
+		*db_err = true;
+	return csv;
 }
 
 json_t *store_results_after(store_t *s, int64_t after, int limit, bool *db_err)
