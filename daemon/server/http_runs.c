@@ -8,6 +8,7 @@
 #include <time.h>
 
 #include "calib.h"
+#include "submit.h"
 #include "record.h"
 #include "svg.h"
 #include "text.h"
@@ -24,56 +25,26 @@ static bool is_final(const char *state)
 	return strcmp(state, "queued") && strcmp(state, "running");
 }
 
-/* A pH run on a probe without its own pH needs a valid calibration. */
-static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, char *msg, size_t cap)
-{
-	station_snapshot_t s;
-	char now[32];
-	bool db_err;
-	json_t *j;
-	calib_result_t cal;
-	bool ok;
-
-	if (m->signal != SIGNAL_PH)
-		return true;
-	station_snapshot(st, &s);
-	if (s.has_reading && s.ph_from_probe)
-		return true;
-	time_format_rfc3339(clock_wall_s(), now);
-	/* A valid accepted calibration counts even when a newer one was started
-	 * and left unfinished; only without one does the latest of any state
-	 * explain the refusal (rejected, expired, still in progress). */
-	j = store_calib_latest(ctx->store, station_name(st), true, now, &db_err);
-	if (!j)
-		j = store_calib_latest(ctx->store, station_name(st), false, now, &db_err);
-	if (j && calib_result_from_json(j, &cal) == 0)
-		ok = calib_check_for_run(&cal, station_name(st), clock_wall_s(), msg, cap);
-	else
-		ok = calib_check_for_run(NULL, station_name(st), clock_wall_s(), msg, cap);
-	json_decref(j);
-	return ok;
-}
-
 static void post_run(const http_req_t *q, http_reply_t *r)
 {
-	http_ctx_t *ctx = q->ctx;
+	/* Error code, HTTP status and the reply's error word, in submit_error_t order. */
+	static const struct {
+		int status;
+		const char *code;
+	} replies[] = {
+	    [SUBMIT_OK] = {201, ""},
+	    [SUBMIT_BAD_REQUEST] = {400, "bad_request"},
+	    [SUBMIT_NOT_FOUND] = {404, "not_found"},
+	    [SUBMIT_INVALID_METHOD] = {422, "invalid_method"},
+	    [SUBMIT_NO_CALIBRATION] = {409, "no_calibration"},
+	    [SUBMIT_QUEUE_FULL] = {409, "queue_full"},
+	    [SUBMIT_DATABASE] = {500, "database"},
+	    [SUBMIT_NO_MEMORY] = {500, "internal"},
+	};
 	json_t *body;
 	json_error_t jerr;
-	const char *station = NULL, *method_id = NULL, *sample_id = NULL;
-	double amount = 0;
-	station_t *st;
-	char *text = NULL, sha[65];
-	size_t len = 0;
-	long rev = 0;
-	station_job_t *job = NULL;
-	method_limits_t lim;
-	diag_list_t d = DIAG_LIST_INIT;
-	char name[METHOD_ID_MAX + 8], msg[512];
-	run_record_t *rec = NULL;
-	json_t *rj;
-	char *rec_text = NULL;
-	int64_t id;
-	store_status_t ss;
+	run_request_t req = {.requested_by = http_actor(q)};
+	run_submit_result_t res;
 
 	if (!q->body || !q->body_len) {
 		http_reply_error(r, 400, "bad_request",
@@ -87,135 +58,32 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 		                 jerr.text);
 		return;
 	}
-	if (json_unpack_ex(body, &jerr, JSON_STRICT, "{s:s,s:s,s:s,s:F}", "station", &station,
-	                   "method", &method_id, "sample_id", &sample_id, "amount", &amount)) {
+	if (json_unpack_ex(body, &jerr, JSON_STRICT, "{s:s,s:s,s:s,s:F}", "station", &req.station,
+	                   "method", &req.method_id, "sample_id", &req.sample_id, "amount",
+	                   &req.amount)) {
 		http_reply_error(r, 400, "bad_request", "%s", jerr.text);
-		goto out;
+		json_decref(body);
+		return;
 	}
-	if (!*sample_id || strlen(sample_id) >= sizeof job->sample_id) {
-		http_reply_error(r, 400, "bad_request", "sample_id must be 1 to 127 characters");
-		goto out;
-	}
-	if (text_control_at(sample_id, strlen(sample_id), false) != TEXT_NONE) {
-		http_reply_error(r, 400, "bad_request",
-		                 "sample_id holds a control character (an escape, a newline, ...): "
-		                 "send the id as printed on the sample");
-		goto out;
-	}
-	if (!isfinite(amount) || amount <= 0) {
-		http_reply_error(r, 400, "bad_request", "amount must be a number above 0");
-		goto out;
-	}
-	st = http_find_station(ctx, station);
-	if (!st) {
-		http_reply_error(r, 404, "not_found", "no station '%s'", station);
-		goto out;
-	}
-	ss = store_method_latest(ctx->store, method_id, &text, &len, &rev, sha);
-	if (ss == STORE_NOT_FOUND) {
-		http_reply_error(r, 404, "not_found", "no method '%s'", method_id);
-		goto out;
-	} else if (ss != STORE_OK) {
+	if (run_submit(q->ctx, &req, &res) == SUBMIT_OK) {
+		http_audit(q, req.station, res.run_id, "run", "queued",
+		           "method %s revision %ld, sample %s, amount %g %s", req.method_id,
+		           res.method_revision, req.sample_id, req.amount, res.unit);
+		http_reply_json(
+		    r, 201,
+		    json_pack("{s:I,s:s}", "id", (json_int_t)res.run_id, "state", "queued"));
+		snprintf(r->location, sizeof r->location, "/v1/runs/%lld", (long long)res.run_id);
+	} else if (res.error == SUBMIT_DATABASE) {
 		db_error(r);
-		goto out;
+	} else {
+		if (res.error == SUBMIT_QUEUE_FULL)
+			http_audit(q, req.station, 0, "run", "refused",
+			           "queue full: method %s, sample %s not queued", req.method_id,
+			           req.sample_id);
+		http_reply_error(r, replies[res.error].status, replies[res.error].code, "%s",
+		                 res.message ? res.message : "out of memory");
 	}
-	job = calloc(1, sizeof *job);
-	rec = calloc(1, sizeof *rec);
-	if (!job || !rec) {
-		http_reply_error(r, 500, "internal", "out of memory");
-		goto out;
-	}
-	snprintf(name, sizeof name, "%s.yaml", method_id);
-	http_method_limits(ctx, st, &lim);
-	if (method_parse(name, text, len, &lim, &job->method, &d)) {
-		char *all = diag_join(&d);
-		http_reply_error(r, 422, "invalid_method",
-		                 "method '%s' revision %ld cannot run on station %s:\n%s",
-		                 method_id, rev, station, all ? all : "");
-		free(all);
-		goto out;
-	}
-	if (amount < job->method.sample_min || amount > job->method.sample_max) {
-		http_reply_error(r, 400, "bad_request",
-		                 "amount %g %s is outside the method's sample range %g to %g",
-		                 amount, method_unit_name(job->method.sample_unit),
-		                 job->method.sample_min, job->method.sample_max);
-		goto out;
-	}
-	if (!calibration_ok(ctx, st, &job->method, msg, sizeof msg)) {
-		http_reply_error(r, 409, "no_calibration", "%s", msg);
-		goto out;
-	}
-	job->amount = amount;
-	snprintf(job->sample_id, sizeof job->sample_id, "%s", sample_id);
-	time_format_rfc3339(clock_wall_s(), job->queued_at);
-	snprintf(job->requested_by, sizeof job->requested_by, "%s", http_actor(q));
-
-	record_init(rec);
-	snprintf(rec->station, sizeof rec->station, "%s", station);
-	record_set_method(rec, &job->method);
-	snprintf(rec->sample.id, sizeof rec->sample.id, "%s", sample_id);
-	rec->sample.amount = amount;
-	snprintf(rec->queued_at, sizeof rec->queued_at, "%s", job->queued_at);
-	snprintf(rec->requested_by, sizeof rec->requested_by, "%s", job->requested_by);
-	rec->titrant.titer = 1.0;
-	{
-		double titer;
-		if (store_titrant_get(ctx->store, job->method.titrant_name, &titer, NULL) ==
-		        STORE_OK &&
-		    titer > 0)
-			rec->titrant.titer = titer;
-	}
-	rj = record_to_json(rec);
-	rec_text = rj ? json_dumps(rj, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
-	json_decref(rj);
-	id = store_run_create(ctx->store,
-	                      &(store_run_new_t){.station = station,
-	                                         .method_id = method_id,
-	                                         .method_revision = job->method.revision,
-	                                         .method_sha256 = job->method.sha256,
-	                                         .sample_id = sample_id,
-	                                         .amount = amount,
-	                                         .unit = method_unit_name(job->method.sample_unit),
-	                                         .signal = method_signal_name(job->method.signal),
-	                                         .queued_at = job->queued_at,
-	                                         .record_json = rec_text});
-	if (id < 0) {
-		db_error(r);
-		goto out;
-	}
-	/* The record's id is known only now. */
-	rec->id = id;
-	free(rec_text);
-	rj = record_to_json(rec);
-	rec_text = rj ? json_dumps(rj, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
-	json_decref(rj);
-	store_run_update(ctx->store, id, NULL, NULL, rec_text);
-	job->run_id = id;
-	if (station_enqueue(st, job)) {
-		/* Refused: nothing of the run remains, only the audit event. */
-		if (store_run_discard(ctx->store, id) != STORE_OK)
-			station_abort_queued(st, job, "the station's queue is full");
-		http_audit(q, station, 0, "run", "refused",
-		           "queue full: method %s, sample %s not queued", method_id, sample_id);
-		http_reply_error(
-		    r, 409, "queue_full",
-		    "station %s has %d runs queued, the most it takes; nothing was queued", station,
-		    STATION_QUEUE_MAX);
-		goto out;
-	}
-	http_audit(q, station, id, "run", "queued",
-	           "method %s revision %ld, sample %s, amount %g %s", method_id,
-	           job->method.revision, sample_id, amount,
-	           method_unit_name(job->method.sample_unit));
-	http_reply_json(r, 201, json_pack("{s:I,s:s}", "id", (json_int_t)id, "state", "queued"));
-	snprintf(r->location, sizeof r->location, "/v1/runs/%lld", (long long)id);
-out:
-	diag_free(&d);
-	free(text);
-	free(job);
-	free(rec);
-	free(rec_text);
+	run_submit_done(&res);
 	json_decref(body);
 }
 

@@ -841,7 +841,8 @@ static void finish(run_t *r)
 		log_err("station %s run %lld: the full record could not be written", r->s->name,
 		        (long long)r->job->run_id);
 	}
-	station_audit_run(r->s, r->job->run_id, state, cut[0] ? cut : engine_stop_name(engine_stop_reason(r->e)));
+	station_audit_run(r->s, r->job->run_id, state,
+	                  cut[0] ? cut : engine_stop_name(engine_stop_reason(r->e)));
 	if (store_run_finish(r->s->store, r->job->run_id, state, text, &seq) != STORE_OK) {
 		log_err("station %s run %lld: could not store the final record; keeping it to "
 		        "store again",

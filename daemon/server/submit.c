@@ -1,0 +1,211 @@
+/* submit.c: see submit.h. */
+#include "submit.h"
+
+#include "text.h"
+
+#include <math.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "calib.h"
+#include "clock.h"
+#include "record.h"
+#include "timefmt.h"
+
+static submit_error_t fail(run_submit_result_t *res, submit_error_t e, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+
+static submit_error_t fail(run_submit_result_t *res, submit_error_t e, const char *fmt, ...)
+{
+	va_list ap;
+	va_start(ap, fmt);
+	if (vasprintf(&res->message, fmt, ap) < 0)
+		res->message = NULL;
+	va_end(ap);
+	res->error = e;
+	return e;
+}
+
+/* A pH run on a probe without its own pH needs a valid calibration. */
+static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, char *msg, size_t cap)
+{
+	station_snapshot_t s;
+	char now[32];
+	bool db_err;
+	json_t *j;
+	calib_result_t cal;
+	bool ok;
+
+	if (m->signal != SIGNAL_PH)
+		return true;
+	station_snapshot(st, &s);
+	if (s.has_reading && s.ph_from_probe)
+		return true;
+	time_format_rfc3339(clock_wall_s(), now);
+	/* A valid accepted calibration counts even when a newer one was started
+	 * and left unfinished; only without one does the latest of any state
+	 * explain the refusal (rejected, expired, still in progress). */
+	j = store_calib_latest(ctx->store, station_name(st), true, now, &db_err);
+	if (!j)
+		j = store_calib_latest(ctx->store, station_name(st), false, now, &db_err);
+	if (j && calib_result_from_json(j, &cal) == 0)
+		ok = calib_check_for_run(&cal, station_name(st), clock_wall_s(), msg, cap);
+	else
+		ok = calib_check_for_run(NULL, station_name(st), clock_wall_s(), msg, cap);
+	json_decref(j);
+	return ok;
+}
+
+static char *record_text(const run_record_t *rec)
+{
+	json_t *rj = record_to_json(rec);
+	char *t = rj ? json_dumps(rj, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
+	json_decref(rj);
+	return t;
+}
+
+submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_result_t *res)
+{
+	const char *station = req->station, *method_id = req->method_id;
+	const char *sample_id = req->sample_id;
+	double amount = req->amount;
+	station_t *st;
+	char *text = NULL, sha[65];
+	size_t len = 0;
+	long rev = 0;
+	station_job_t *job = NULL;
+	method_limits_t lim;
+	diag_list_t d = DIAG_LIST_INIT;
+	char name[METHOD_ID_MAX + 8], msg[512];
+	run_record_t *rec = NULL;
+	char *rec_text = NULL;
+	int64_t id;
+	store_status_t ss;
+
+	memset(res, 0, sizeof *res);
+	if (!*sample_id || strlen(sample_id) >= sizeof job->sample_id) {
+		fail(res, SUBMIT_BAD_REQUEST, "sample_id must be 1 to 127 characters");
+		goto out;
+	}
+	if (text_control_at(sample_id, strlen(sample_id), false) != TEXT_NONE) {
+		fail(res, SUBMIT_BAD_REQUEST,
+		     "sample_id holds a control character (an escape, a newline, ...): send the id "
+		     "as printed on the sample");
+		goto out;
+	}
+	if (!isfinite(amount) || amount <= 0) {
+		fail(res, SUBMIT_BAD_REQUEST, "amount must be a number above 0");
+		goto out;
+	}
+	st = http_find_station(ctx, station);
+	if (!st) {
+		fail(res, SUBMIT_NOT_FOUND, "no station '%s'", station);
+		goto out;
+	}
+	ss = store_method_latest(ctx->store, method_id, &text, &len, &rev, sha);
+	if (ss == STORE_NOT_FOUND) {
+		fail(res, SUBMIT_NOT_FOUND, "no method '%s'", method_id);
+		goto out;
+	} else if (ss != STORE_OK) {
+		fail(res, SUBMIT_DATABASE, "the database failed");
+		goto out;
+	}
+	job = calloc(1, sizeof *job);
+	rec = calloc(1, sizeof *rec);
+	if (!job || !rec) {
+		fail(res, SUBMIT_NO_MEMORY, "out of memory");
+		goto out;
+	}
+	snprintf(name, sizeof name, "%s.yaml", method_id);
+	http_method_limits(ctx, st, &lim);
+	if (method_parse(name, text, len, &lim, &job->method, &d)) {
+		char *all = diag_join(&d);
+		fail(res, SUBMIT_INVALID_METHOD,
+		     "method '%s' revision %ld cannot run on station %s:\n%s", method_id, rev,
+		     station, all ? all : "");
+		free(all);
+		goto out;
+	}
+	if (amount < job->method.sample_min || amount > job->method.sample_max) {
+		fail(res, SUBMIT_BAD_REQUEST,
+		     "amount %g %s is outside the method's sample range %g to %g", amount,
+		     method_unit_name(job->method.sample_unit), job->method.sample_min,
+		     job->method.sample_max);
+		goto out;
+	}
+	if (!calibration_ok(ctx, st, &job->method, msg, sizeof msg)) {
+		fail(res, SUBMIT_NO_CALIBRATION, "%s", msg);
+		goto out;
+	}
+	job->amount = amount;
+	snprintf(job->sample_id, sizeof job->sample_id, "%s", sample_id);
+	time_format_rfc3339(clock_wall_s(), job->queued_at);
+	snprintf(job->requested_by, sizeof job->requested_by, "%s", req->requested_by);
+
+	record_init(rec);
+	snprintf(rec->station, sizeof rec->station, "%s", station);
+	record_set_method(rec, &job->method);
+	snprintf(rec->sample.id, sizeof rec->sample.id, "%s", sample_id);
+	rec->sample.amount = amount;
+	snprintf(rec->queued_at, sizeof rec->queued_at, "%s", job->queued_at);
+	snprintf(rec->requested_by, sizeof rec->requested_by, "%s", job->requested_by);
+	rec->titrant.titer = 1.0;
+	{
+		double titer;
+		if (store_titrant_get(ctx->store, job->method.titrant_name, &titer, NULL) ==
+		        STORE_OK &&
+		    titer > 0)
+			rec->titrant.titer = titer;
+	}
+	rec_text = record_text(rec);
+	id = store_run_create(ctx->store,
+	                      &(store_run_new_t){.station = station,
+	                                         .method_id = method_id,
+	                                         .method_revision = job->method.revision,
+	                                         .method_sha256 = job->method.sha256,
+	                                         .sample_id = sample_id,
+	                                         .amount = amount,
+	                                         .unit = method_unit_name(job->method.sample_unit),
+	                                         .signal = method_signal_name(job->method.signal),
+	                                         .queued_at = job->queued_at,
+	                                         .record_json = rec_text});
+	if (id < 0) {
+		fail(res, SUBMIT_DATABASE, "the database failed");
+		goto out;
+	}
+	/* The record's id is known only now. */
+	rec->id = id;
+	free(rec_text);
+	rec_text = record_text(rec);
+	store_run_update(ctx->store, id, NULL, NULL, rec_text);
+	job->run_id = id;
+	if (station_enqueue(st, job)) {
+		/* Refused: nothing of the run remains (docs/api.md), only the
+		 * audit event the caller writes. */
+		if (store_run_discard(ctx->store, id) != STORE_OK)
+			station_abort_queued(st, job, "the station's queue is full");
+		fail(res, SUBMIT_QUEUE_FULL,
+		     "station %s has %d runs queued, the most it takes; nothing was queued",
+		     station, STATION_QUEUE_MAX);
+		goto out;
+	}
+	res->error = SUBMIT_OK;
+	res->run_id = id;
+	res->method_revision = job->method.revision;
+	res->unit = method_unit_name(job->method.sample_unit);
+out:
+	diag_free(&d);
+	free(text);
+	free(job);
+	free(rec);
+	free(rec_text);
+	return res->error;
+}
+
+void run_submit_done(run_submit_result_t *res)
+{
+	free(res->message);
+	res->message = NULL;
+}
