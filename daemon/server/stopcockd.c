@@ -237,12 +237,11 @@ static void load_tokens(const cfg_t *cfg, http_ctx_t *ctx)
  * not wait for them): returns that signal, else 0. */
 static int wait_for_stations(station_t **st, int n)
 {
-	struct timespec start, now;
 	sigset_t stop;
 	sigemptyset(&stop);
 	sigaddset(&stop, SIGTERM);
 	sigaddset(&stop, SIGINT);
-	clock_gettime(CLOCK_MONOTONIC, &start);
+	double start_s = clock_mono_s();
 	for (;;) {
 		int offline = 0;
 		const char *name = NULL;
@@ -256,8 +255,7 @@ static int wait_for_stations(station_t **st, int n)
 		}
 		if (!offline)
 			return 0;
-		clock_gettime(CLOCK_MONOTONIC, &now);
-		if ((double)(now.tv_sec - start.tv_sec) > READY_WAIT_S) {
+		if (clock_mono_s() - start_s > READY_WAIT_S) {
 			log_warn("station %s: devices not answering; starting anyway, retrying",
 			         name);
 			return 0;
