@@ -46,7 +46,7 @@ LDLIBS = $(PKG_LIBS) -lpthread -lm
 
 # ---- layers (docs/architecture.md) ----
 # Each folder sees only the headers of the layers it may use, so a forbidden
-# #include fails to compile; tests/layers.py says which rule it broke.
+# #include fails to compile; tests/lint/layers.py says which rule it broke.
 #   lib                       nothing of ours
 #   drivers, chem, store      lib
 #   core                      lib chem
@@ -186,14 +186,14 @@ pytest: all san
 # ---- demo and benchmarks ----
 demo: deps
 	@$(MAKE) --no-print-directory all
-	@bash tests/demo.sh $(abspath $(BUILD))
+	@bash tests/e2e/demo.sh $(abspath $(BUILD))
 
 bench: deps
 	@$(MAKE) --no-print-directory bench-run
 
 bench-run: all $(REL)/bench
 	$(REL)/bench
-	@if [ -f tests/bench_http.sh ]; then bash tests/bench_http.sh $(abspath $(BUILD)); fi
+	@if [ -f tests/bench/bench_http.sh ]; then bash tests/bench/bench_http.sh $(abspath $(BUILD)); fi
 
 # ---- fuzzing: libFuzzer targets tests/fuzz/fuzz_*.c (clang, ASan+UBSan) ----
 # `make fuzz FUZZ_SECONDS=N` replays tests/fuzz/regress/<target>/, then fuzzes
@@ -226,7 +226,7 @@ fuzz: $(addprefix $(FUZZ)/bin/fuzz_,$(FUZZ_TARGETS))
 # Long versions of the reliability suites: 1,000 SIGKILLs, 60 s of load.
 soak: all san
 	STOPCOCK_BUILD=$(abspath $(BUILD)) STOPCOCK_KILLS=1000 STOPCOCK_LOAD_S=60 \
-	  $(PYTHON) -m pytest -q -p no:cacheprovider -s tests/test_crash.py tests/test_load.py
+	  $(PYTHON) -m pytest -q -p no:cacheprovider -s tests/reliability/test_crash.py tests/reliability/test_load.py
 
 # ---- install ----
 install: all

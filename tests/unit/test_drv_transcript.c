@@ -1,4 +1,4 @@
-/* Replay an annotated device transcript (tests/drivers/NAME.transcript) through
+/* Replay an annotated device transcript (tests/data/drivers/NAME.transcript) through
  * a pty: a fake pump thread checks each command the driver sends and answers
  * from the transcript, so the second profile (CR terminators, an init
  * command, volumes in uL) is tested byte for byte. */
@@ -99,7 +99,7 @@ TEST(drv_transcript_generic_ascii)
 {
 	static replay_t r;
 	memset(&r, 0, sizeof(r));
-	REQUIRE(load(&r, "tests/drivers/generic-ascii.transcript") == 0);
+	REQUIRE(load(&r, "tests/data/drivers/generic-ascii.transcript") == 0);
 	REQUIRE(r.n > 10);
 	char link[128];
 	int slave;

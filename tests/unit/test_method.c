@@ -1,6 +1,6 @@
 /* Unit tests for method.c / method_cross.c.
  *
- * The malformed corpus lives in tests/methods/bad/: each NAME.yaml has a
+ * The malformed corpus lives in tests/data/methods/bad/: each NAME.yaml has a
  * NAME.expect with the exact "line:col: message" lines method_load must give,
  * in order (an optional first line "# limits: vessel_max_ml=.. burette_capacity_ml=..
  * max_refills=.." checks against a station). Every config/methods/ file must
@@ -126,7 +126,7 @@ static void check_bad_file(const char *path)
 TEST(method_malformed_corpus)
 {
 	char **files;
-	int n = list_yaml("tests/methods/bad", &files);
+	int n = list_yaml("tests/data/methods/bad", &files);
 	REQUIRE(n >= 0);
 	CHECK(n >= 40);
 	for (int i = 0; i < n; i++) {

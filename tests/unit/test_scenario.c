@@ -1,5 +1,5 @@
 /* test_scenario.c: scenario files: good ones parse to the right values, and
- * every file of the malformed corpus tests/scenarios/bad/ is refused with the
+ * every file of the malformed corpus tests/data/scenarios/bad/ is refused with the
  * exact line, column and message (1-based, as editors count). */
 #include "harness.h"
 
@@ -54,7 +54,7 @@ TEST(scenario_bad_corpus_exact_messages)
 		char path[256];
 		chem_scenario_t s;
 		diag_list_t d = DIAG_LIST_INIT;
-		snprintf(path, sizeof path, "tests/scenarios/bad/%s", bad_cases[i].file);
+		snprintf(path, sizeof path, "tests/data/scenarios/bad/%s", bad_cases[i].file);
 		CHECK(scenario_load(path, &s, &d) == -1);
 		if (d.n != 1) {
 			harness_fail(__FILE__, __LINE__, "%s: %zu errors, want 1", path, d.n);
@@ -72,9 +72,9 @@ TEST(scenario_bad_corpus_exact_messages)
 
 TEST(scenario_good_files_parse)
 {
-	static const char *const files[] = {"tests/scenarios/acetic-skoog.yaml",
-	                                    "tests/scenarios/cider.yaml",
-	                                    "tests/scenarios/alkalinity.yaml"};
+	static const char *const files[] = {"tests/data/scenarios/acetic-skoog.yaml",
+	                                    "tests/data/scenarios/cider.yaml",
+	                                    "tests/data/scenarios/alkalinity.yaml"};
 	for (size_t i = 0; i < sizeof files / sizeof files[0]; i++) {
 		chem_scenario_t s;
 		diag_list_t d = DIAG_LIST_INIT;

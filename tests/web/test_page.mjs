@@ -1,6 +1,6 @@
 // The bench page in headless Chromium (Debian's /usr/bin/chromium, driven by
 // playwright-core), against a real stopcockd on the simulated bench.
-// Run by tests/test_web.py, which passes in the environment:
+// Run by tests/e2e/test_web.py, which passes in the environment:
 //   STOPCOCK_URL, STOPCOCK_TOKEN, STOPCOCK_CONTROL (simulator control socket),
 //   STOPCOCK_SCENARIO (a fresh sample), STOPCOCK_BUFFERS ([[pH, scenario], ...]),
 //   STOPCOCK_SHOTS (screenshot folder).
@@ -22,7 +22,7 @@ const SHOTS = process.env.STOPCOCK_SHOTS;
 const METHOD = 'wash-acid-mv';
 
 for (const [k, v] of Object.entries({URL, TOKEN, CONTROL, SCENARIO, SHOTS}))
-	if (!v) throw new Error(`${k} is not set (tests/test_web.py sets it)`);
+	if (!v) throw new Error(`${k} is not set (tests/e2e/test_web.py sets it)`);
 
 let checks = 0;
 function check(cond, what) {
@@ -400,7 +400,7 @@ async function main() {
 		await page.locator('.verdict[data-state]').waitFor({timeout: 30000});
 		const verdict = await page.getAttribute('.verdict', 'data-state');
 		check(verdict === 'accepted', `the calibration is accepted (${verdict}: ${await page.textContent('.verdict')})`);
-		// The simulated electrode of the buffer beakers (tests/test_web.py):
+		// The simulated electrode of the buffer beakers (tests/e2e/test_web.py):
 		// slope_pct 99.0, offset_mv 2.0. The buffers are model beakers of pH
 		// = pKa at 25 degC, so the fit should give them back closely.
 		const [slope, offset] = (await page.$$eval('.verdict dd', (d) => d.map((x) => x.textContent)));

@@ -1,0 +1,81 @@
+"""Help, version and argument errors as a newcomer meets them (issue 20, "Help and hints").
+
+Each test runs the built program the way a user types it and checks what they read.
+"""
+import os
+import re
+import subprocess
+
+import common
+
+ROOT = str(common.ROOT)
+
+
+def build_dir():
+    b = os.environ.get("STOPCOCK_BUILD")
+    assert b, "STOPCOCK_BUILD must name the build directory (make pytest sets it)"
+    return b
+
+
+def prog(name):
+    return os.path.join(build_dir(), "bin", name)
+
+
+def run(*args):
+    return subprocess.run(list(args), capture_output=True, text=True, timeout=30)
+
+
+def long_options(text):
+    """Every --long-option named in a text (help output or a man page's roff)."""
+    text = text.replace("\\-", "-")
+    return set(re.findall(r"(?<![\w-])--([a-z][a-z0-9-]*)", text))
+
+
+def test_sim_version_prints_version_and_exits_0():
+    r = run(prog("stopcock-sim"), "--version")
+    assert r.returncode == 0, r.stderr
+    assert re.fullmatch(r"stopcock-sim \d+\.\d+\.\d+\n", r.stdout), r.stdout
+
+
+def test_sim_unknown_option_is_a_clear_error_with_status_2():
+    r = run(prog("stopcock-sim"), "--scenaro", "x.yaml")
+    assert r.returncode == 2
+    assert "--scenaro" in r.stderr
+    assert "--help" in r.stderr
+    # a short pointer, not the whole usage text repeated on every typo
+    assert len(r.stderr.splitlines()) <= 3, r.stderr
+
+
+def test_sim_bad_seed_is_refused():
+    r = run(prog("stopcock-sim"), "--seed", "0x10", "--scenario", "a",
+            "--modbus-tcp", "127.0.0.1:1", "--pump-link", "p")
+    assert r.returncode == 2
+    assert "--seed" in r.stderr
+
+
+def test_sim_help_and_man_page_list_the_same_options():
+    r = run(prog("stopcock-sim"), "--help")
+    assert r.returncode == 0, r.stderr
+    helped = long_options(r.stdout)
+    with open(os.path.join(ROOT, "docs", "stopcock-sim.1")) as f:
+        manned = long_options(f.read())
+    assert "version" in helped and "help" in helped
+    assert helped == manned, (
+        f"only in --help: {sorted(helped - manned)}; only in the man page: {sorted(manned - helped)}")
+
+
+def man_text(name):
+    with open(os.path.join(ROOT, "docs", name)) as f:
+        return f.read()
+
+
+def test_check_and_ports_options_are_in_the_man_page():
+    manned = long_options(man_text("stopcock.1"))
+    for cmd, want in (("check", {"config", "station"}), ("ports", {"test", "station"}),
+                      ("predict", {"calibration", "amount", "seed", "scenario", "json"})):
+        r = run(prog("stopcock"), cmd, "--help")
+        assert r.returncode == 0, r.stderr
+        helped = long_options(r.stdout) - {"help"}
+        assert want <= helped | manned
+        missing = (helped | want) - manned
+        assert not missing, f"stopcock {cmd}: {sorted(missing)} missing from stopcock.1"
