@@ -5,6 +5,7 @@
  * to check wiring before the daemon runs (docs/drivers.md). */
 #include <dirent.h>
 #include <limits.h>
+#include <jansson.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -96,38 +97,40 @@ typedef struct bench {
 	bool has_bur, has_probe, has_stir;
 } bench_t;
 
-static void json_str(const char *s)
+/* Every reply is one JSON object on one line, written by jansson: text in
+ * UTF-8 as it is, and a number that is not finite as null. */
+static json_t *num(double x, double scale)
 {
-	putchar('"');
-	for (; *s; s++) {
-		unsigned char c = (unsigned char)*s;
-		if (c == '"' || c == '\\')
-			printf("\\%c", c);
-		else if (c < 0x20 || c >= 0x7f)
-			printf("\\u%04x", c);
-		else
-			putchar(c);
-	}
-	putchar('"');
+	return isfinite(x) ? json_real(round(x * scale) / scale) : json_null();
 }
 
-static void head(const char *cmd, drv_status_t st, double t0, const drv_err_t *e)
+static json_t *head(const char *cmd, drv_status_t st, double t0, const drv_err_t *e)
 {
-	printf("{\"cmd\":");
-	json_str(cmd);
-	printf(",\"status\":\"%s\",\"ms\":%.1f", drv_status_name(st), (clock_mono_s() - t0) * 1000);
-	if (st != DRV_OK) {
-		printf(",\"error\":");
-		json_str(e->msg);
-	}
+	json_t *o = json_object();
+	json_object_set_new(o, "cmd", json_string(cmd));
+	json_object_set_new(o, "status", json_string(drv_status_name(st)));
+	json_object_set_new(o, "ms", num((clock_mono_s() - t0) * 1000, 10));
+	if (st != DRV_OK)
+		json_object_set_new(o, "error", json_string(e->msg));
+	return o;
 }
 
-static void print_burette(const drv_burette_status_t *b)
+static void emit(json_t *o)
 {
-	printf(",\"moving\":%s,\"refilling\":%s,\"dispensed_ml\":%.6f,\"contents_ml\":%.6f,"
-	       "\"fault\":%s",
-	       b->moving ? "true" : "false", b->refilling ? "true" : "false", b->dispensed_ml,
-	       b->contents_ml, b->fault ? "true" : "false");
+	char *text = o ? json_dumps(o, JSON_COMPACT | JSON_PRESERVE_ORDER) : NULL;
+	puts(text ? text : "{\"status\":\"internal\",\"error\":\"out of memory\"}");
+	free(text);
+	json_decref(o);
+	fflush(stdout);
+}
+
+static void print_burette(json_t *o, const drv_burette_status_t *b)
+{
+	json_object_set_new(o, "moving", json_boolean(b->moving));
+	json_object_set_new(o, "refilling", json_boolean(b->refilling));
+	json_object_set_new(o, "dispensed_ml", num(b->dispensed_ml, 1e6));
+	json_object_set_new(o, "contents_ml", num(b->contents_ml, 1e6));
+	json_object_set_new(o, "fault", json_boolean(b->fault));
 }
 
 static void sleep_s(double s)
@@ -147,25 +150,25 @@ static void run_command(bench_t *b, char *line)
 	drv_err_t e = {""};
 	drv_status_t st = DRV_OK;
 	double t0 = clock_mono_s();
+	json_t *o = NULL;
 	bool need_bur = !strcmp(word, "status") || !strcmp(word, "dose") || !strcmp(word, "halt") ||
 	                !strcmp(word, "refill") || !strcmp(word, "wait");
 	if ((need_bur && !b->has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
 	    (!strcmp(word, "stir") && !b->has_stir)) {
 		st = drv_fail(&e, DRV_CONFIG, "this station has no such device");
-		head(word, st, t0, &e);
-		printf("}\n");
+		emit(head(word, st, t0, &e));
 		return;
 	}
 	if (!strcmp(word, "read")) {
 		drv_reading_t r;
 		st = drv_probe_read(&b->probe, &r, &e);
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 		if (st == DRV_OK) {
-			printf(",\"mv\":%.3f", r.mv);
+			json_object_set_new(o, "mv", num(r.mv, 1e3));
 			if (r.has_ph)
-				printf(",\"ph\":%.4f", r.ph);
+				json_object_set_new(o, "ph", num(r.ph, 1e4));
 			if (r.has_temperature)
-				printf(",\"temperature_c\":%.2f", r.temperature_c);
+				json_object_set_new(o, "temperature_c", num(r.temperature_c, 1e2));
 		}
 	} else if (!strcmp(word, "status") || !strcmp(word, "wait")) {
 		drv_burette_status_t bs;
@@ -176,19 +179,19 @@ static void run_command(bench_t *b, char *line)
 				break;
 			sleep_s(0.05);
 		}
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 		if (st == DRV_OK)
-			print_burette(&bs);
+			print_burette(o, &bs);
 	} else if (!strcmp(word, "dose")) {
 		st = n == 2 ? drv_burette_dose(&b->bur, arg, &e)
 		            : drv_fail(&e, DRV_CONFIG, "dose needs a volume in mL");
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 	} else if (!strcmp(word, "halt")) {
 		st = drv_burette_halt(&b->bur, &e);
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 	} else if (!strcmp(word, "refill")) {
 		st = drv_burette_refill(&b->bur, &e);
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 	} else if (!strcmp(word, "stir")) {
 		char onoff[8] = "";
 		double rpm = 0;
@@ -197,20 +200,19 @@ static void run_command(bench_t *b, char *line)
 			st = drv_fail(&e, DRV_CONFIG, "stir on [RPM] | stir off");
 		else
 			st = drv_stirrer_set(&b->stir, !strcmp(onoff, "on"), rpm, &e);
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 	} else if (!strcmp(word, "sleep")) {
 		if (n == 2 && arg > 0 && arg < 3600)
 			sleep_s(arg);
-		head(word, st, t0, &e);
+		o = head(word, st, t0, &e);
 	} else {
 		snprintf(extra, sizeof(extra), "%s", word);
 		st = drv_fail(&e, DRV_CONFIG,
 		              "unknown command (read, status, dose ML, wait [S], refill, halt, "
 		              "stir on [RPM], stir off, sleep S)");
-		head(extra, st, t0, &e);
+		o = head(extra, st, t0, &e);
 	}
-	printf("}\n");
-	fflush(stdout);
+	emit(o);
 }
 
 static const yt_node_t *find_station(const yt_doc_t *doc, const char *name, diag_list_t *d)
@@ -254,25 +256,24 @@ static int test_devices(const char *path, const char *station)
 	double t0 = clock_mono_s();
 	if (b.has_bur) {
 		drv_status_t st = drv_burette_open(&b.bur, &e);
-		head("open burette", st, t0, &e);
+		json_t *o = head("open burette", st, t0, &e);
 		if (st == DRV_OK) {
 			drv_burette_info_t info;
 			drv_burette_info(&b.bur, &info);
-			printf(",\"capacity_ml\":%.4f,\"steps\":%ld", info.capacity_ml, info.steps);
+			json_object_set_new(o, "capacity_ml", num(info.capacity_ml, 1e4));
+			json_object_set_new(o, "steps", json_integer(info.steps));
 		}
-		printf("}\n");
+		emit(o);
 	}
 	if (b.has_probe) {
 		t0 = clock_mono_s();
 		drv_status_t st = drv_probe_open(&b.probe, &e);
-		head("open probe", st, t0, &e);
-		printf("}\n");
+		emit(head("open probe", st, t0, &e));
 	}
 	if (b.has_stir) {
 		t0 = clock_mono_s();
 		drv_status_t st = drv_stirrer_open(&b.stir, &e);
-		head("open stirrer", st, t0, &e);
-		printf("}\n");
+		emit(head("open stirrer", st, t0, &e));
 	}
 	fflush(stdout);
 	char line[256];

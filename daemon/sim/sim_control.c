@@ -4,6 +4,8 @@
 #include <errno.h>
 #include <limits.h>
 #include <poll.h>
+#include <jansson.h>
+#include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -26,6 +28,11 @@ static void kinds(char *out, size_t cap)
 	}
 }
 
+static json_t *real_or_null(double v)
+{
+	return isfinite(v) ? json_real(v) : json_null();
+}
+
 void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 {
 	while (*line == ' ')
@@ -44,17 +51,26 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		pthread_mutex_lock(&s->mu);
 		sim_tick(s, clock_mono_s());
 		const char *f = sim_fault_name(s->fault);
-		char fq[40];
-		snprintf(fq, sizeof(fq), f ? "\"%s\"" : "null", f);
 		double ml_per_step = s->pump.capacity_ml / (double)s->pump.steps;
-		snprintf(reply, cap,
-		         "{\"dispensed_ml\":%.6f,\"ph\":%.4f,\"mv\":%.3f,\"temperature_c\":%.2f,"
-		         "\"moving\":%s,\"fault\":%s,\"contents_ml\":%.6f,\"valve\":\"%s\","
-		         "\"stirrer\":%s,\"stirrer_rpm\":%u}",
-		         beaker_titrant_ml(s->beaker), beaker_true_ph(s->beaker), s->mv,
-		         beaker_temperature_c(s->beaker), s->pump.moving ? "true" : "false", fq,
-		         (double)s->pump.pos * ml_per_step, s->pump.valve_in ? "in" : "out",
-		         s->stir_on ? "true" : "false", (unsigned)s->stir_rpm);
+		/* jansson writes the reply: a number that is not finite (a beaker
+		 * model gone wrong) is null, never text that is not JSON. */
+		json_t *o = json_object();
+		json_object_set_new(o, "dispensed_ml", real_or_null(beaker_titrant_ml(s->beaker)));
+		json_object_set_new(o, "ph", real_or_null(beaker_true_ph(s->beaker)));
+		json_object_set_new(o, "mv", real_or_null(s->mv));
+		json_object_set_new(o, "temperature_c",
+		                    real_or_null(beaker_temperature_c(s->beaker)));
+		json_object_set_new(o, "moving", json_boolean(s->pump.moving));
+		json_object_set_new(o, "fault", f ? json_string(f) : json_null());
+		json_object_set_new(o, "contents_ml",
+		                    real_or_null((double)s->pump.pos * ml_per_step));
+		json_object_set_new(o, "valve", json_string(s->pump.valve_in ? "in" : "out"));
+		json_object_set_new(o, "stirrer", json_boolean(s->stir_on));
+		json_object_set_new(o, "stirrer_rpm", json_integer((json_int_t)s->stir_rpm));
+		char *text = json_dumps(o, JSON_COMPACT | JSON_REAL_PRECISION(10));
+		snprintf(reply, cap, "%s", text ? text : "error: out of memory");
+		free(text);
+		json_decref(o);
 		pthread_mutex_unlock(&s->mu);
 	} else if (!strcmp(word, "clear") && !*rest) {
 		pthread_mutex_lock(&s->mu);

@@ -293,3 +293,19 @@ def test_ports_lists_or_says_none():
     assert r.returncode == 0
     assert r.stdout.strip(), "stopcock ports printed nothing"
     assert ("no serial ports found" in r.stdout) or r.stdout.startswith("/dev/")
+
+
+def test_ports_test_writes_utf8_text_as_it_is(tmp_path):
+    # A port name a lab wrote in its own language: the error names it, and the
+    # JSON line gives it back as written. Before, every byte of UTF-8 came out
+    # as its own \u00XX escape ("Waage-Küche" read back as "Waage-KÃ¼che").
+    port = str(tmp_path / "Waage-Küche-pumpe")
+    cfg = benchlib.station_config(
+        tmp_path / "station.yaml",
+        burette=(f"{{driver: pump-serial, port: '{port}', timeout_ms: 100, retries: 0, "
+                 f"profile: {benchlib.ROOT}/config/pumps/sim.yaml}}"))
+    dev = Devices(cfg)
+    opened = dev.open(1)
+    assert opened[0]["status"] != "ok"
+    assert port in opened[0]["error"], opened[0]
+    assert dev.close() == 0
