@@ -15,7 +15,7 @@
 #include <string.h>
 #include <strings.h>
 
-#include "sha256.h"
+#include "digest.h"
 #include "names.h"
 
 /* Electrode ranges: a glass electrode reads pH -1 .. 15; a mV input spans
@@ -581,7 +581,7 @@ int method_parse(const char *name, const char *buf, size_t len, const method_lim
 	yt_doc_t doc;
 	int rc;
 	method_defaults(m);
-	sha256_hex(buf ? buf : "", buf ? len : 0, m->sha256);
+	digest_sha256_hex(buf ? buf : "", buf ? len : 0, m->sha256);
 	memset(&doc, 0, sizeof doc);
 	if (yt_load_buffer(name, buf ? buf : "", buf ? len : 0, &doc, d) != 0) {
 		yt_free(&doc);
@@ -606,7 +606,7 @@ int method_load(const char *path, const method_limits_t *lim, method_t *m, diag_
 			diag_sort(d);
 		return -1;
 	}
-	sha256_hex(doc.text ? doc.text : "", doc.text ? doc.text_len : 0, m->sha256);
+	digest_sha256_hex(doc.text ? doc.text : "", doc.text ? doc.text_len : 0, m->sha256);
 	rc = method_from_doc(&doc, path, lim, m, d);
 	yt_free(&doc);
 	return rc;

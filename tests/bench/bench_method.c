@@ -9,7 +9,7 @@
 #include "bench.h"
 #include "formula.h"
 #include "method.h"
-#include "sha256.h"
+#include "digest.h"
 
 static char *slurp(const char *path, size_t *len)
 {
@@ -138,7 +138,7 @@ BENCH(sha256)
 		return;
 	memset(buf, 'x', len);
 	t0 = bench_cpu_s();
-	sha256_hex(buf, len, hex);
+	digest_sha256_hex(buf, len, hex);
 	s = bench_cpu_s() - t0;
 	printf("sha256: %.0f MB/s (4 MiB in %.1f ms; a 256 KiB method in %.2f ms)\n", len / s / 1e6,
 	       s * 1e3, s * 1e3 / 16);

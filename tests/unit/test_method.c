@@ -13,7 +13,7 @@
 
 #include "harness.h"
 #include "method.h"
-#include "sha256.h"
+#include "digest.h"
 
 static char *read_all(const char *path, size_t *len)
 {
@@ -186,7 +186,7 @@ TEST(method_cider_values)
 	CHECK(m.results[0].formula.n > 0);
 	CHECK(m.results[0].has_min && m.results[0].has_max);
 	/* the fingerprint is of the exact bytes, and method_parse agrees */
-	sha256_hex(text, len, hex);
+	digest_sha256_hex(text, len, hex);
 	CHECK_STR(m.sha256, hex);
 	{
 		method_t m2;
