@@ -14,6 +14,7 @@
 #include "config.h"
 #include "diag.h"
 #include "drv.h"
+#include "standardization.h"
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
