@@ -440,6 +440,10 @@ static void *on_uri(void *cls, const char *uri, struct MHD_Connection *c)
 	return cs;
 }
 
+/* fmt is libmicrohttpd's own printf format: say so, so the compiler checks
+ * it as one rather than warning that it is not a literal. */
+static void on_mhd_log(void *cls, const char *fmt, va_list ap)
+    __attribute__((format(printf, 2, 0)));
 static void on_mhd_log(void *cls, const char *fmt, va_list ap)
 {
 	http_server_t *h = cls;
