@@ -3,6 +3,7 @@
 #include <string.h>
 
 #include "cmd.h"
+#include "yamltree.h"
 
 static const struct {
 	const char *name;
@@ -25,15 +26,33 @@ static const struct {
      "titrants                      stored titers and how they were found"},
     {"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
     {"ports", cmd_ports, "ports                         list serial ports"},
+    {"help", NULL, "help [COMMAND]                this list, or one command's options"},
 };
+#define N_COMMANDS (sizeof commands / sizeof commands[0])
 
 static void usage(FILE *f)
 {
 	fprintf(f, "usage: stopcock COMMAND [ARGS]\n\ncommands:\n");
-	for (size_t i = 0; i < sizeof commands / sizeof commands[0]; i++)
+	for (size_t i = 0; i < N_COMMANDS; i++)
 		fprintf(f, "  stopcock %s\n", commands[i].usage);
 	fprintf(f, "\nclient commands take --url URL (default $STOPCOCK_URL or "
 	           "http://127.0.0.1:8470)\nand --token-file F (default $STOPCOCK_TOKEN_FILE).\n");
+}
+
+/* An unknown command, with the near one when there is a single near one. */
+static int unknown(const char *word)
+{
+	const char *names[N_COMMANDS + 1] = {NULL};
+	for (size_t i = 0; i < N_COMMANDS; i++)
+		names[i] = commands[i].name;
+	const char *near = yt_closest(word, names);
+	if (near)
+		fprintf(stderr, "stopcock: unknown command '%s'; did you mean '%s'?\n\n", word,
+		        near);
+	else
+		fprintf(stderr, "stopcock: unknown command '%s'\n\n", word);
+	usage(stderr);
+	return 2;
 }
 
 int main(int argc, char **argv)
@@ -46,10 +65,20 @@ int main(int argc, char **argv)
 		printf("stopcock %s\n", STOPCOCK_VERSION);
 		return 0;
 	}
-	for (size_t i = 0; i < sizeof commands / sizeof commands[0]; i++)
-		if (!strcmp(argv[1], commands[i].name))
+	if (!strcmp(argv[1], "help")) {
+		if (argc < 3) {
+			usage(stdout);
+			return 0;
+		}
+		/* `stopcock help X` is `stopcock X --help`. */
+		char *sub[] = {argv[2], "--help", NULL};
+		for (size_t i = 0; i < N_COMMANDS; i++)
+			if (commands[i].fn && !strcmp(argv[2], commands[i].name))
+				return commands[i].fn(2, sub);
+		return unknown(argv[2]);
+	}
+	for (size_t i = 0; i < N_COMMANDS; i++)
+		if (commands[i].fn && !strcmp(argv[1], commands[i].name))
 			return commands[i].fn(argc - 1, argv + 1);
-	fprintf(stderr, "stopcock: unknown command '%s'\n\n", argv[1]);
-	usage(stderr);
-	return 2;
+	return unknown(argv[1]);
 }

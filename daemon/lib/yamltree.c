@@ -748,8 +748,7 @@ int yt_edit_distance(const char *a, const char *b, int cap)
 	return prev[lb] > cap ? cap + 1 : prev[lb];
 }
 
-/* The single closest word within a typo's distance, or NULL (none, or a tie). */
-static const char *closest(const char *word, const char *const *words)
+const char *yt_closest(const char *word, const char *const *words)
 {
 	const char *best = NULL;
 	int best_d = 1000, ties = 0;
@@ -811,7 +810,7 @@ bool yt_check_keys(const yt_doc_t *doc, const yt_node_t *m, const char *const *a
 		if (known)
 			continue;
 		ok = false;
-		const char *near = closest(k, allowed);
+		const char *near = yt_closest(k, allowed);
 		if (near) {
 			yt_error(doc, m->keys[i], d, "unknown key '%s' in %s; did you mean '%s'?",
 			         k, where, near);
@@ -1037,7 +1036,7 @@ bool yt_enum(const yt_doc_t *doc, const yt_node_t *n, const char *key, const cha
 			*out = i;
 			return true;
 		}
-	near = closest(n->str, words);
+	near = yt_closest(n->str, words);
 	if (near)
 		yt_error(doc, n, d, "%s must be one of %s (got \"%s\"; did you mean '%s'?)", key,
 		         list, n->str, near);

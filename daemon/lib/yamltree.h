@@ -119,4 +119,9 @@ void yt_error(const yt_doc_t *doc, const yt_node_t *n, diag_list_t *d, const cha
 /* Edit distance, capped (returns cap+1 when larger); used for did-you-mean. */
 int yt_edit_distance(const char *a, const char *b, int cap);
 
+/* The single closest word of the NULL-terminated list within a typo's
+ * distance (a unit left off counts as one), or NULL (none, or a tie): the
+ * "did you mean" of every error message. */
+const char *yt_closest(const char *word, const char *const *words);
+
 #endif

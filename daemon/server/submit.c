@@ -106,7 +106,23 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	}
 	ss = store_method_latest(ctx->store, method_id, &text, &len, &rev, sha);
 	if (ss == STORE_NOT_FOUND) {
-		fail(res, SUBMIT_NOT_FOUND, "no method '%s'", method_id);
+		/* A misspelt id gets the near one, as `stopcock check` does for keys. */
+		const char *ids[257] = {NULL};
+		bool db_err = false;
+		json_t *list = store_methods_list(ctx->store, &db_err), *m;
+		size_t i, n = 0;
+		json_array_foreach(json_object_get(list, "methods"), i, m)
+		{
+			if (n < 256)
+				ids[n++] = json_string_value(json_object_get(m, "id"));
+		}
+		const char *near = yt_closest(method_id, ids);
+		if (near)
+			fail(res, SUBMIT_NOT_FOUND, "no method '%s'; did you mean '%s'?", method_id,
+			     near);
+		else
+			fail(res, SUBMIT_NOT_FOUND, "no method '%s'", method_id);
+		json_decref(list);
 		goto out;
 	} else if (ss != STORE_OK) {
 		fail(res, SUBMIT_DATABASE, "the database failed");

@@ -525,3 +525,11 @@ def test_out_of_limits_finishes_and_wait_exits_3(bench, calibrated):
     assert rec["state"] == "finished", rec
     assert rec["results"][0]["accept"] == "low", rec["results"]
     assert w.returncode == 3, (w.stdout, w.stderr)
+
+
+def test_start_with_a_misspelt_method_names_the_near_one(bench):
+    # As `stopcock check` does for keys: the daemon's 404 names the near method.
+    r = cli("start", "--station", "sim1", "--method", "cli-quik", "--sample-id", "X",
+            "--amount", 2, env=bench.env)
+    assert r.returncode == 1
+    assert "no method 'cli-quik'; did you mean 'cli-quick'?" in r.stderr, r.stderr

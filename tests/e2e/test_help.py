@@ -79,3 +79,14 @@ def test_check_and_ports_options_are_in_the_man_page():
         assert want <= helped | manned
         missing = (helped | want) - manned
         assert not missing, f"stopcock {cmd}: {sorted(missing)} missing from stopcock.1"
+
+
+def test_help_command_and_a_misspelt_command():
+    stopcock = os.path.join(os.environ["STOPCOCK_BUILD"], "bin", "stopcock")
+    r = subprocess.run([stopcock, "help"], capture_output=True, text=True)
+    assert r.returncode == 0 and "stopcock start" in r.stdout and "stopcock help" in r.stdout
+    r = subprocess.run([stopcock, "help", "start"], capture_output=True, text=True)
+    assert r.returncode == 0 and "--sample-id" in r.stdout + r.stderr, (r.stdout, r.stderr)
+    r = subprocess.run([stopcock, "strat"], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert "unknown command 'strat'; did you mean 'start'?" in r.stderr, r.stderr
