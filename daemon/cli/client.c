@@ -30,6 +30,22 @@ static void print_usage(FILE *f, const char *usage)
 	fprintf(f, "usage: stopcock %s [--url URL] [--token-file F]\n", usage);
 }
 
+/* --help: the usage line, then every option with its meaning and unit. */
+static void print_help(const char *usage, const client_arg_t *args)
+{
+	print_usage(stdout, usage);
+	printf("\noptions:\n");
+	for (int i = 0; args && args[i].name; i++)
+		printf("  --%-12s %s\n", args[i].name, args[i].help ? args[i].help : "");
+	printf("  --%-12s %s\n", "url",
+	       "URL  the daemon (default $STOPCOCK_URL, else "
+	       "http://127.0.0.1:8470)");
+	printf("  --%-12s %s\n", "token-file",
+	       "F  a file of name:token lines; the first token is sent with writes (default "
+	       "$STOPCOCK_TOKEN_FILE)");
+	printf("  --%-12s %s\n", "help", "this text");
+}
+
 int client_parse(client_t *c, int argc, char **argv, const char *usage, const client_arg_t *args,
                  int *pos)
 {
@@ -57,7 +73,7 @@ int client_parse(client_t *c, int argc, char **argv, const char *usage, const cl
 			c->token = NULL;
 			c->token_loaded = false;
 		} else if (opt == OPT_HELP) {
-			print_usage(stdout, usage);
+			print_help(usage, args);
 			return CLIENT_EXIT_OK;
 		} else if (opt >= OPT_ARG0 && opt < OPT_ARG0 + n - 3) {
 			const client_arg_t *a = &args[opt - OPT_ARG0];

@@ -45,6 +45,7 @@ typedef struct client_arg {
 	const char *name; /* without the leading "--" */
 	const char **value;
 	bool *flag;
+	const char *help; /* "VALUE  meaning, with its unit" for --help */
 } client_arg_t;
 
 #define CLIENT_MAX_ARGS 8

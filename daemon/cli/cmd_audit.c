@@ -76,7 +76,9 @@ int cmd_events(int argc, char **argv)
 	static const char usage[] = "events [--after SEQ] [--limit N]";
 	const char *after_s = NULL, *limit_s = NULL;
 	const client_arg_t args[] = {
-	    {"after", &after_s, NULL}, {"limit", &limit_s, NULL}, {NULL, NULL, NULL}};
+	    {"after", &after_s, NULL, "SEQ  only events after this one (default 0)"},
+	    {"limit", &limit_s, NULL, "N  at most this many events, 1 to 1000 (default 100)"},
+	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "events");
 	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);

@@ -87,7 +87,10 @@ int cmd_calibrate(int argc, char **argv)
 {
 	const char *station = NULL, *buffers_s = NULL;
 	const client_arg_t args[] = {
-	    {"station", &station, NULL}, {"buffers", &buffers_s, NULL}, {NULL, NULL, NULL}};
+	    {"station", &station, NULL, "N  the station whose electrode is calibrated"},
+	    {"buffers", &buffers_s, NULL,
+	     "B1,B2,...  the buffers' pH at 25 degC, in the order you use them"},
+	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "calibrate");
 	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);

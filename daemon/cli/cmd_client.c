@@ -21,11 +21,13 @@ int cmd_start(int argc, char **argv)
 {
 	static const char usage[] = "start --station N --method M --sample-id ID --amount X";
 	const char *station = NULL, *method = NULL, *sample = NULL, *amount_s = NULL;
-	const client_arg_t args[] = {{"station", &station, NULL},
-	                             {"method", &method, NULL},
-	                             {"sample-id", &sample, NULL},
-	                             {"amount", &amount_s, NULL},
-	                             {NULL, NULL, NULL}};
+	const client_arg_t args[] = {
+	    {"station", &station, NULL, "N  the station to run on"},
+	    {"method", &method, NULL, "M  the method id (its latest revision runs)"},
+	    {"sample-id", &sample, NULL, "ID  the sample's id, as the LIMS knows it"},
+	    {"amount", &amount_s, NULL,
+	     "X  the sample amount, in the method's sample unit (mL or g)"},
+	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "start");
 	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
@@ -307,7 +309,9 @@ int cmd_wait(int argc, char **argv)
 {
 	static const char usage[] = "wait RUN [--timeout S]";
 	const char *timeout_arg = NULL;
-	const client_arg_t args[] = {{"timeout", &timeout_arg, NULL}, {NULL, NULL, NULL}};
+	const client_arg_t args[] = {{"timeout", &timeout_arg, NULL,
+	                              "S  give up after S seconds (default: wait for the end)"},
+	                             {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "wait");
 	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
@@ -413,7 +417,8 @@ static int station_post(int argc, char **argv, const char *cmd, const char *done
 {
 	char usage[64];
 	const char *station = NULL;
-	const client_arg_t args[] = {{"station", &station, NULL}, {NULL, NULL, NULL}};
+	const client_arg_t args[] = {{"station", &station, NULL, "N  the station"},
+	                             {NULL, NULL, NULL, NULL}};
 	client_t c;
 	snprintf(usage, sizeof usage, "%s --station N", cmd);
 	client_init(&c, cmd);

@@ -29,8 +29,22 @@
 
 static void usage(FILE *f)
 {
-	fprintf(f, "usage: stopcock predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N]\n"
-	           "                        [--calibration SLOPE_PCT,OFFSET_MV] [--json]\n");
+	fprintf(f,
+	        "usage: stopcock predict METHOD.yaml --scenario S.yaml [--amount X] [--seed N]\n"
+	        "                        [--calibration SLOPE_PCT,OFFSET_MV] [--json]\n"
+	        "  the method run against a simulated beaker on a virtual clock\n\n"
+	        "options:\n"
+	        "  --scenario S.yaml   the beaker: sample, titrant, electrode (docs/chemistry.md)\n"
+	        "  --amount X          the sample amount in the method's sample unit (mL or g);\n"
+	        "                      default: the scenario's sample_ml\n"
+	        "  --seed N            the electrode noise's seed, a whole number (default 1)\n"
+	        "  --calibration S,O   the electrode calibration the run uses: slope in %% of\n"
+	        "                      Nernstian, offset in mV at pH 7 (default: the scenario's\n"
+	        "                      electrode)\n"
+	        "  --json              the run record and its points as JSON\n"
+	        "  --help              this text\n"
+	        "exit status: 0 finished, every result passes or has no limits; 1 failed;\n"
+	        "2 bad arguments or files; 3 finished with a result outside its limits\n");
 }
 
 static void print_human(const method_t *m, const engine_t *e, const simrun_out_t *out,

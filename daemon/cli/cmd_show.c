@@ -148,7 +148,10 @@ int cmd_show(int argc, char **argv)
 	bool csv = false;
 	const char *svg_file = NULL;
 	const client_arg_t args[] = {
-	    {"csv", NULL, &csv}, {"svg", &svg_file, NULL}, {NULL, NULL, NULL}};
+	    {"csv", NULL, &csv,
+	     "   the points as CSV (t_s, volume_ml, mv, ph, ...) instead of the summary"},
+	    {"svg", &svg_file, NULL, "FILE  also write the curve as SVG to FILE"},
+	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "show");
 	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);

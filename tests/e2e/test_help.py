@@ -6,6 +6,8 @@ import os
 import re
 import subprocess
 
+import pytest
+
 import common
 
 ROOT = str(common.ROOT)
@@ -90,3 +92,22 @@ def test_help_command_and_a_misspelt_command():
     r = subprocess.run([stopcock, "strat"], capture_output=True, text=True)
     assert r.returncode == 2
     assert "unknown command 'strat'; did you mean 'start'?" in r.stderr, r.stderr
+
+
+@pytest.mark.parametrize("cmd,opts", [
+    ("start", ["station", "method", "sample-id", "amount"]), ("wait", ["timeout"]),
+    ("show", ["csv", "svg"]), ("halt", ["station"]), ("resume", ["station"]),
+    ("calibrate", ["station", "buffers"]), ("events", ["after", "limit"]),
+    ("predict", ["scenario", "amount", "seed", "calibration", "json"])])
+def test_every_option_has_its_meaning_in_help_and_the_man_page(cmd, opts):
+    # Before: `stopcock start --help` printed the usage line alone.
+    stopcock = os.path.join(os.environ["STOPCOCK_BUILD"], "bin", "stopcock")
+    r = subprocess.run([stopcock, cmd, "--help"], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    man = open(os.path.join(ROOT, "docs", "stopcock.1")).read()
+    for o in opts:
+        line = next((l for l in r.stdout.splitlines() if l.strip().startswith(f"--{o} ")), None)
+        assert line and len(line.split(None, 1)[1]) > 5, (cmd, o, r.stdout)
+        assert "\\-\\-" + o.replace("-", "\\-") in man, (cmd, o, "not in docs/stopcock.1")
+    if cmd == "start":
+        assert "sample unit (mL or g)" in r.stdout
