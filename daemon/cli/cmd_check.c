@@ -120,6 +120,10 @@ int cmd_check(int argc, char **argv)
 		} else {
 			printf("%s: ok (method %s, revision %ld, sha256 %s)\n", argv[i], m.id,
 			       m.revision, m.sha256);
+			char warn[8][256];
+			int nw = method_warnings(&m, have_lim, warn, 8);
+			for (int k = 0; k < nw; k++)
+				fprintf(stderr, "%s: warning: %s\n", argv[i], warn[k]);
 		}
 		diag_free(&d);
 	}

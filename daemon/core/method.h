@@ -118,4 +118,11 @@ const char *method_signal_name(method_signal_t s);
 const char *method_detect_name(method_detect_t k);
 const char *method_unit_name(method_unit_t u);
 
+/* Plausible mistakes in a valid method, as lines "warning: ..." (at most
+ * cap of them, each of line_cap bytes); `have_burette` says whether the
+ * station's burette is known (then the station check covers dose_max_ml).
+ * Returns how many. The rules and their thresholds are in docs/methods.md,
+ * "Warnings". */
+int method_warnings(const method_t *m, bool have_burette, char (*out)[256], int cap);
+
 #endif

@@ -471,3 +471,49 @@ void method_limits_add_station(method_limits_t *lim, double vessel_max_ml, doubl
 	    (lim->burette_capacity_ml == 0 || capacity_ml < lim->burette_capacity_ml))
 		lim->burette_capacity_ml = capacity_ml;
 }
+
+/* Thresholds of the warnings (docs/methods.md, "Warnings"), common practice:
+ * a glass electrode's reading is noisy by about 0.1 mV RMS, so a settling
+ * band below twice that (0.2 mV, about 0.0034 pH) is never reached by a
+ * still electrode; burette syringes are 1 to 50 mL. */
+#define WARN_NOISE_MV       0.2
+#define WARN_NOISE_PH       0.0034
+#define WARN_BIGGEST_SYR_ML 50.0
+
+int method_warnings(const method_t *m, bool have_burette, char (*out)[256], int cap)
+{
+	int n = 0;
+#define WARN(...)                                                                                  \
+	do {                                                                                       \
+		if (n < cap)                                                                       \
+			snprintf(out[n++], 256, __VA_ARGS__);                                      \
+	} while (0)
+	bool mv = m->signal == SIGNAL_MV;
+	/* pH-sized numbers on a mV signal: a window or an aim of a few units
+	 * is a fraction of a pH step in mV (59 mV per pH at 25 degC). */
+	if (mv && m->has_window && fabs(m->window_lo) <= 14 && fabs(m->window_hi) <= 14)
+		WARN("detect.window [%g, %g] looks like pH values, but signal is mv: the window "
+		     "is in mV (about 59 mV per pH unit at 25 degC)",
+		     m->window_lo, m->window_hi);
+	if (mv && m->dosing == DOSING_ADAPTIVE && m->step_aim < 2)
+		WARN("dosing.step_aim %g looks like a pH step, but signal is mv: it is in mV (try "
+		     "about %g mV for %g pH)",
+		     m->step_aim, m->step_aim * 59.16, m->step_aim);
+	double noise = mv ? WARN_NOISE_MV : WARN_NOISE_PH;
+	if (m->still_within < noise)
+		WARN("settle.still_within %g %s is below the noise of a typical electrode (about "
+		     "%g %s): points will be taken at wait_max_s, not when still",
+		     m->still_within, mv ? "mV" : "pH", noise, mv ? "mV" : "pH");
+	double dose_max = m->dosing == DOSING_ADAPTIVE ? m->dose_max_ml : m->dose_ml;
+	if (!have_burette && dose_max > WARN_BIGGEST_SYR_ML)
+		WARN("dosing.%s %g mL is more than the largest common burette syringe holds (%g "
+		     "mL); check the method against the station with -c stopcockd.yaml",
+		     m->dosing == DOSING_ADAPTIVE ? "dose_max_ml" : "dose_ml", dose_max,
+		     WARN_BIGGEST_SYR_ML);
+	if (m->dosing == DOSING_ADAPTIVE && m->dose_max_ml <= 2 * m->dose_min_ml)
+		WARN("dosing.step_aim has almost no effect: dose_max_ml (%g mL) leaves the doses "
+		     "between %g and %g mL whatever the curve does",
+		     m->dose_max_ml, m->dose_min_ml, m->dose_max_ml);
+#undef WARN
+	return n;
+}

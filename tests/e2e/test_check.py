@@ -164,3 +164,30 @@ def test_safety_and_methods_docs_state_the_rule_the_code_applies(tmp_path):
     assert f"capacity × (1 + {refills} refills)" in safety, "SAFETY.md must state the refill rule"
     assert "burette's capacity × (1 + allowed refills)" in methods
     assert f"the daemon allows a run {refills}\nrefills" in methods
+
+
+@pytest.mark.parametrize("old,new,words", [
+    # mV signal with pH-sized numbers (cider-acidity reads pH; made to read mV)
+    ("signal: ph", "signal: mv", "detect.window [5.5, 11.5] looks like pH values"),
+    ("signal: ph", "signal: mv", "dosing.step_aim 0.4 looks like a pH step"),
+    # a settling band below a typical electrode's noise (about 0.0034 pH)
+    ("still_within: 0.02", "still_within: 0.001", "below the noise of a typical electrode"),
+    # a dose no common burette syringe holds, checked without a station
+    ("dose_max_ml: 1.00", "dose_max_ml: 60.0", "more than the largest common burette"),
+    # step_aim made irrelevant by the dose range
+    ("dose_max_ml: 1.00", "dose_max_ml: 0.015", "step_aim has almost no effect"),
+])
+def test_plausible_mistakes_are_warned_about(tmp_path, old, new, words):
+    text = open("config/methods/cider-acidity.yaml").read()
+    assert old in text
+    if "60.0" in new:
+        text = text.replace("volume_max_ml: 25.0", "volume_max_ml: 100.0")
+    f = tmp_path / "cider-acidity.yaml"
+    f.write_text(text.replace(old, new))
+    r = run(str(f))
+    assert r.returncode == 0, r.stderr    # warnings do not fail a check
+    assert any(l.startswith(f"{f}: warning: ") and words in l for l in r.stderr.splitlines()), \
+        r.stderr
+    # and the method as shipped gets none
+    r = run("config/methods/cider-acidity.yaml")
+    assert "warning" not in r.stderr
