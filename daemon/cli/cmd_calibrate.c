@@ -15,7 +15,8 @@
 #include "numparse.h"
 
 #define CAL_MAX_BUFFERS   8     /* sent on; the daemon enforces its own limit */
-#define CAL_POLL_MS       500   /* ms between polls while a buffer is measured */
+#define CAL_POLL_MS       1000  /* ms between polls while a buffer is measured: one line a second */
+#define CAL_MOVE_S        5.0   /* s: the live line says how far the reading moved in this time */
 #define CAL_MEASURE_MAX_S 600.0 /* s; the daemon has its own, shorter time limit */
 
 static const char usage[] = "calibrate --station N --buffers 4.01,7.00,10.01";
@@ -57,10 +58,12 @@ static void print_verdict(const json_t *cal)
 	char b1[32], b2[32], b3[32], b4[32], b5[32];
 	size_t i;
 	json_t *b;
-	printf("buffers:\n");
+	/* One column each, right-aligned, units in the header ("°C" is two
+	 * bytes but one column: the header is padded by hand). */
+	printf("  buffer  pH at T     T, °C       mV   off the line, mV\n");
 	json_array_foreach(json_object_get(cal, "buffers"), i, b)
 	{
-		printf("  %s  pH %s at %s °C  %s mV  (off the line by %s mV)\n",
+		printf("  %6s  %7s  %8s  %7s  %17s\n",
 		       client_fmt(b1, sizeof b1, client_num(b, "nominal"), 2),
 		       client_fmt(b2, sizeof b2, client_num(b, "ph"), 3),
 		       client_fmt(b3, sizeof b3, client_num(b, "temperature_c"), 1),
@@ -81,6 +84,60 @@ static void print_verdict(const json_t *cal)
 	} else {
 		printf("verdict %s: %s\n", state, client_str(cal, "reason", "no reason given"));
 	}
+}
+
+/* The live reading while a buffer is measured: the station's mV now and how
+ * far it moved over the last CAL_MOVE_S, once a second (rewritten in place on
+ * a terminal, a line every 5 s otherwise). The daemon decides stability by
+ * its own rule (docs/calibration.md, "Stability"); this is what a person
+ * watches. */
+#define LIVE_MAX 64
+typedef struct live {
+	double t[LIVE_MAX], mv[LIVE_MAX];
+	int n;
+	double last_line_s;
+} live_t;
+
+static void live_line(client_t *c, const char *station, const char *nb, double elapsed_s, bool tty,
+                      live_t *lv)
+{
+	json_t *j = NULL, *st;
+	size_t i;
+	double mv = NAN, moved = NAN;
+	if (client_json_quiet(c, "GET", "/v1/stations", &j, NULL, NULL, 0) == 0) {
+		json_array_foreach(json_object_get(j, "stations"), i, st)
+		{
+			if (!strcmp(client_str(st, "name", ""), station))
+				mv = client_num(json_object_get(st, "reading"), "mv");
+		}
+	}
+	json_decref(j);
+	if (isfinite(mv)) {
+		if (lv->n == LIVE_MAX) {
+			memmove(lv->t, lv->t + 1, (LIVE_MAX - 1) * sizeof lv->t[0]);
+			memmove(lv->mv, lv->mv + 1, (LIVE_MAX - 1) * sizeof lv->mv[0]);
+			lv->n--;
+		}
+		lv->t[lv->n] = elapsed_s;
+		lv->mv[lv->n++] = mv;
+		for (int k = 0; k < lv->n; k++)
+			if (elapsed_s - lv->t[k] <= CAL_MOVE_S + 0.5) {
+				if (elapsed_s - lv->t[k] >= CAL_MOVE_S - 1.5)
+					moved = mv - lv->mv[k];
+				break;
+			}
+	}
+	char m1[32], m2[32], line[160];
+	snprintf(line, sizeof line, "buffer %s: %s mV, moved %s mV in the last %.0f s; %.0f s", nb,
+	         client_fmt(m1, sizeof m1, mv, 1), client_fmt(m2, sizeof m2, moved, 2), CAL_MOVE_S,
+	         elapsed_s);
+	if (tty) {
+		fprintf(stderr, "\r\033[K%s", line);
+	} else if (elapsed_s - lv->last_line_s >= 5.0) {
+		fprintf(stderr, "%s\n", line);
+		lv->last_line_s = elapsed_s;
+	}
+	fflush(stderr);
 }
 
 int cmd_calibrate(int argc, char **argv)
@@ -162,6 +219,7 @@ int cmd_calibrate(int argc, char **argv)
 		snprintf(path, sizeof path, "/v1/calibrations/%lld", id);
 		double t0 = clock_mono_s();
 		bool broken = false;
+		live_t lv = {0};
 		for (;;) {
 			json_t *now = NULL;
 			if (client_json(&c, "GET", path, NULL, false, &now, NULL)) {
@@ -178,11 +236,7 @@ int cmd_calibrate(int argc, char **argv)
 				broken = true;
 				break;
 			}
-			if (tty) {
-				fprintf(stderr, "\r\033[Kmeasuring buffer %s ... %.0f s", nb,
-				        clock_mono_s() - t0);
-				fflush(stderr);
-			}
+			live_line(&c, station, nb, clock_mono_s() - t0, tty, &lv);
 			client_sleep_ms(CAL_POLL_MS);
 		}
 		if (tty)

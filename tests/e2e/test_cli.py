@@ -219,6 +219,19 @@ def test_calibrate(calibrated):
     assert f"slope   {cal['slope_pct']:.1f} % of the Nernst slope" in out
     assert f"offset  {cal['offset_mv']:.1f} mV at pH 7" in out
     assert "verdict accepted" in out
+    # The live reading while a buffer settles: mV and how far it moved, once a
+    # second at most (a line every 5 s off a terminal), never the same second twice.
+    live = [l for l in out.splitlines() if l.startswith("buffer ") and " mV, moved " in l]
+    assert live, out
+    stamps = [(l.split(":")[0], l.rsplit(";", 1)[1].strip()) for l in live]
+    assert len(stamps) == len(set(stamps)), live
+    # The buffer table: a header with units, then one aligned row per buffer.
+    lines = out.splitlines()
+    h = next(i for i, l in enumerate(lines) if l.strip().startswith("buffer  pH at T"))
+    rows = lines[h + 1:h + 1 + len(cal["buffers"])]
+    assert len({len(r) for r in rows}) == 1, rows
+    for r, b in zip(rows, cal["buffers"]):
+        assert r.split()[0] == f"{b['nominal']:.2f}" and f"{b['mv']:.1f}" in r.split(), r
 
 
 def start(bench, sample="ORCHARD-LANE-0412", amount=2, beaker=None):
