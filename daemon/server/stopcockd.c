@@ -8,6 +8,7 @@
  */
 #include <dirent.h>
 #include <errno.h>
+#include <getopt.h>
 #include <jansson.h>
 #include <signal.h>
 #include <stdio.h>
@@ -45,38 +46,77 @@ typedef struct opts {
 
 static void usage(FILE *f)
 {
-	fprintf(f, "usage: stopcockd [-c FILE] [--listen ADDR:PORT] [--state-dir DIR] [-v]\n"
-	           "       stopcockd --check-config [-c FILE]\n"
-	           "default FILE: /etc/stopcock/stopcockd.yaml\n");
+	fprintf(f,
+	        "usage: stopcockd [-c FILE] [--listen ADDR:PORT] [--state-dir DIR] [-v]\n"
+	        "       stopcockd --check-config [-c FILE]\n\n"
+	        "options:\n"
+	        "  -c, --config FILE       the daemon config (default "
+	        "/etc/stopcock/stopcockd.yaml)\n"
+	        "      --listen ADDR:PORT  listen here instead of the config's http.listen\n"
+	        "      --state-dir DIR     create DIR (mode 0750) before opening the database\n"
+	        "      --check-config      check the config, its pump profiles, methods and token\n"
+	        "                          file, print every problem as FILE:LINE:COL, and exit\n"
+	        "  -v, --verbose           log debug messages too\n"
+	        "  -V, --version           print the version and exit\n"
+	        "  -h, --help              print this help and exit\n\n"
+	        "exit status: 0 clean stop (SIGTERM/SIGINT) or a good config; 1 a failure at\n"
+	        "start; 2 bad arguments or an invalid config\n");
 }
 
 static int parse_args(int argc, char **argv, opts_t *o)
 {
+	enum { OPT_LISTEN = 1000, OPT_STATE_DIR, OPT_CHECK };
+	static const struct option opts[] = {
+	    {"config", required_argument, NULL, 'c'},
+	    {"listen", required_argument, NULL, OPT_LISTEN},
+	    {"state-dir", required_argument, NULL, OPT_STATE_DIR},
+	    {"check-config", no_argument, NULL, OPT_CHECK},
+	    {"verbose", no_argument, NULL, 'v'},
+	    {"version", no_argument, NULL, 'V'},
+	    {"help", no_argument, NULL, 'h'},
+	    {NULL, 0, NULL, 0},
+	};
+	int opt;
+
 	o->config = "/etc/stopcock/stopcockd.yaml";
-	for (int i = 1; i < argc; i++) {
-		const char *a = argv[i];
-		bool has_next = i + 1 < argc;
-		if ((!strcmp(a, "-c") || !strcmp(a, "--config")) && has_next)
-			o->config = argv[++i];
-		else if (!strcmp(a, "--listen") && has_next)
-			o->listen = argv[++i];
-		else if (!strcmp(a, "--state-dir") && has_next)
-			o->state_dir = argv[++i];
-		else if (!strcmp(a, "--check-config"))
+	opterr = 0;
+	while ((opt = getopt_long(argc, argv, ":c:vVh", opts, NULL)) != -1) {
+		switch (opt) {
+		case 'c':
+			o->config = optarg;
+			break;
+		case OPT_LISTEN:
+			o->listen = optarg;
+			break;
+		case OPT_STATE_DIR:
+			o->state_dir = optarg;
+			break;
+		case OPT_CHECK:
 			o->check = true;
-		else if (!strcmp(a, "-v") || !strcmp(a, "--verbose"))
+			break;
+		case 'v':
 			o->verbose = true;
-		else if (!strcmp(a, "--version")) {
+			break;
+		case 'V':
 			printf("stopcockd %s\n", STOPCOCK_VERSION);
 			exit(0);
-		} else if (!strcmp(a, "-h") || !strcmp(a, "--help")) {
+		case 'h':
 			usage(stdout);
 			exit(0);
-		} else {
-			fprintf(stderr, "stopcockd: unknown or incomplete option '%s'\n", a);
-			usage(stderr);
+		case ':':
+			fprintf(stderr, "stopcockd: %s needs a value (see stopcockd --help)\n",
+			        argv[optind - 1]);
+			return -1;
+		default:
+			fprintf(stderr, "stopcockd: unknown option '%s' (see stopcockd --help)\n",
+			        argv[optind - 1]);
 			return -1;
 		}
+	}
+	if (optind < argc) {
+		fprintf(stderr, "stopcockd: unexpected argument '%s' (see stopcockd --help)\n",
+		        argv[optind]);
+		return -1;
 	}
 	return 0;
 }

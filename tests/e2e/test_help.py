@@ -111,3 +111,18 @@ def test_every_option_has_its_meaning_in_help_and_the_man_page(cmd, opts):
         assert "\\-\\-" + o.replace("-", "\\-") in man, (cmd, o, "not in docs/stopcock.1")
     if cmd == "start":
         assert "sample unit (mL or g)" in r.stdout
+
+
+def test_stopcockd_help_lists_every_option_with_its_meaning_and_the_man_page_too():
+    # Before: `stopcockd --help` gave the two usage lines alone.
+    d = os.path.join(os.environ["STOPCOCK_BUILD"], "bin", "stopcockd")
+    r = subprocess.run([d, "--help"], capture_output=True, text=True)
+    assert r.returncode == 0
+    opts = re.findall(r"^\s+(?:-\w, )?--([a-z-]+)(?: [A-Z:]+)?\s{2,}\S", r.stdout, re.M)
+    assert set(opts) >= {"config", "listen", "state-dir", "check-config", "verbose",
+                         "version", "help"}, r.stdout
+    man = open(os.path.join(ROOT, "docs", "stopcockd.8")).read()
+    for o in opts:
+        assert "\\-\\-" + o.replace("-", "\\-") in man, o
+    r = subprocess.run([d, "--bogus"], capture_output=True, text=True)
+    assert r.returncode == 2 and "unknown option '--bogus'" in r.stderr
