@@ -76,6 +76,9 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		pthread_mutex_lock(&s->mu);
 		s->fault = SIM_FAULT_NONE;
 		s->fault_until_s = 0;
+		/* A transmitter that thaws measures at once: the next tick gives a
+		 * new count, so a reader is not left with the frozen one. */
+		s->next_measure_s = 0;
 		pthread_mutex_unlock(&s->mu);
 		snprintf(reply, cap, "ok");
 	} else if (!strcmp(word, "fault")) {

@@ -114,6 +114,7 @@ void sim_tick(sim_t *s, double t)
 	if (s->fault_until_s > 0 && t >= s->fault_until_s) {
 		s->fault = SIM_FAULT_NONE;
 		s->fault_until_s = 0;
+		s->next_measure_s = 0; /* thawed: measure at once (as on `clear`) */
 	}
 	sim_pump_t *p = &s->pump;
 	if (p->moving && s->fault == SIM_FAULT_STALL) {
