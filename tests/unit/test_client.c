@@ -54,10 +54,10 @@ TEST(client_parse_options)
 {
 	const char *station = NULL, *timeout = NULL;
 	bool csv = false;
-	const client_arg_t args[] = {{"station", &station, NULL},
-	                             {"timeout", &timeout, NULL},
-	                             {"csv", NULL, &csv},
-	                             {NULL, NULL, NULL}};
+	const client_arg_t args[] = {{"station", &station, NULL, "N  a station"},
+	                             {"timeout", &timeout, NULL, "S  seconds"},
+	                             {"csv", NULL, &csv, "   as CSV"},
+	                             {NULL, NULL, NULL, NULL}};
 	char a0[] = "show", a1[] = "12", a2[] = "--station=sim1", a3[] = "--csv", a4[] = "--url",
 	     a5[] = "http://10.0.0.7:9000", a6[] = "--timeout", a7[] = "5";
 	char *argv[] = {a0, a1, a2, a3, a4, a5, a6, a7, NULL};

@@ -412,6 +412,15 @@ async function main() {
 		step('daemon restart');
 		await page.click('nav a[data-nav="stations"]');
 		await card.waitFor();
+		// A run on the station when the daemon stops: after the restart the
+		// station is held, and the page offers to resume it.
+		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
+		const held = await fetch(`${URL}/v1/runs`, {method: 'POST', headers: {
+			'Authorization': `Bearer ${TOKEN}`, 'Content-Type': 'application/json'},
+		body: JSON.stringify({station: 'sim1', method: METHOD, sample_id: 'MBD-held-1', amount: 10})});
+		check(held.status === 201, `a run to cut (${held.status})`);
+		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'running',
+			null, {timeout: 20000});
 		expectNetErrors = true;
 		await request('stop-daemon');
 		await page.waitForSelector('#link.down', {timeout: 15000});
@@ -419,8 +428,18 @@ async function main() {
 		await shot(page, '14-daemon-down');
 		await request('start-daemon');
 		await page.waitForSelector('#link.up', {timeout: 20000});
+		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'held',
+			null, {timeout: 20000});
+		check(!(await page.locator('section.station .held').isHidden()) &&
+			(await page.textContent('section.station .held-reason')).includes('beaker'),
+		'a held station says why and offers Resume');
+		await shot(page, '14b-held');
+		await page.click('section.station button.resume');
+		await page.locator('#confirm-dialog[open]').waitFor();
+		await page.click('#confirm-yes');
 		await page.waitForFunction(() => document.querySelector('section.station .badge')?.textContent === 'idle',
 			null, {timeout: 20000});
+		check(await page.locator('section.station .held').isHidden(), 'resumed: the hold is gone');
 		expectNetErrors = false;
 		check(true, 'the page recovers after the restart');
 

@@ -24,6 +24,12 @@ function card(name, methods) {
 	const note = h('p', {class: 'form-note', role: 'status'});
 	const halt = h('button', {type: 'button', class: 'halt', 'data-halt': name},
 		'HALT');
+	// After a restart a station that had a run is held until someone has
+	// looked at the beaker (docs/operations.md, "After a stop or a crash").
+	const heldWhy = h('span', {class: 'held-reason'});
+	const resume = h('button', {type: 'button', class: 'primary resume'}, 'Resume');
+	const held = h('div', {class: 'held', role: 'status', hidden: true},
+		h('strong', {}, 'Held: '), heldWhy, ' ', resume);
 	const method = h('select', {name: 'method', id: `method-${name}`, required: true});
 	const sample = h('input', {name: 'sample', id: `sample-${name}`, required: true,
 		autocomplete: 'off', placeholder: 'e.g. OLC-batch-12'});
@@ -67,9 +73,20 @@ function card(name, methods) {
 			err.textContent = `halt failed: ${errorText(e)}`;
 		}
 	});
+	resume.addEventListener('click', async () => {
+		if (!(await confirmAction(`Resume ${name}?`,
+			`Nothing moves on ${name} until you resume it. Check the beaker first; its queued runs then start in order.`,
+			`Resume ${name}`)))
+			return;
+		try {
+			await api('POST', `/v1/stations/${encodeURIComponent(name)}/resume`);
+		} catch (e) {
+			err.textContent = `resume failed: ${errorText(e)}`;
+		}
+	});
 	const el = h('section', {class: 'station card', 'data-station': name,
 		'aria-label': `station ${name}`},
-	h('header', {}, h('h2', {}, name), state, phase, halt),
+	h('header', {}, h('h2', {}, name), state, phase, halt), held,
 	h('div', {class: 'readings'}, ph.el, mv.el, temp.el, age.el),
 	h('div', {class: 'burette'}, h('span', {class: 'label'}, 'burette'), bar, bur),
 	h('p', {class: 'current'}, 'Current run: ', run, ' · queued: ', queued),
@@ -95,6 +112,8 @@ function card(name, methods) {
 		queued.textContent = String(st.queued || 0);
 		if (st.error) err.textContent = st.error;
 		halt.disabled = st.state === 'offline';
+		held.hidden = !st.held;
+		heldWhy.textContent = st.held_reason || '';
 	};
 	return {el, update, setMethods};
 }
