@@ -46,12 +46,12 @@ def moving_commands(cmds):
 def kill_loop(bench, n, seed, stats):
     rng = random.Random(seed)
     db_path = bench.tmp / "state" / "stopcock.db"
-    restart_t, sim_after_restart = 0.0, 0.0
+    restart_t, sim_after_restart, resumed_queued = 0.0, 0.0, False
     for i in range(n):
         bench.wait_idle()
         # Since the last restart nothing may have moved the plunger (checked
         # just before this authenticated start).
-        if i:
+        if i and not resumed_queued:
             cmds = bench.relay.since(restart_t)
             assert not moving_commands(cmds), ("dose before a new start", cmds)
             assert bench.sim_state()["dispensed_ml"] == sim_after_restart
@@ -86,15 +86,30 @@ def kill_loop(bench, n, seed, stats):
             stats["halt_first"] += 1
             stats["moving"] += moving
         assert lost == 0, ("acknowledged points lost", rid, acked, after)
-        assert rec["state"] in ("interrupted", "finished"), (rec["state"], rec["faults"], rec["stop_reason"], acked)
+        # A kill before the station took the run leaves it queued: it is queued
+        # again at start-up, with no point and nothing dosed for it.
+        assert rec["state"] in ("interrupted", "finished", "queued"), (
+            rec["state"], rec["faults"], rec["stop_reason"], acked)
         if rec["state"] == "interrupted":
             assert rec["stop_reason"] == "interrupted", rec["stop_reason"]
             assert rec["ended_at"]
+        if rec["state"] == "queued":
+            assert acked == [] and after == [], (acked, after)
         assert bench.station()["run"] is None
-        # Held until an operator resumes, when a run was on the station.
-        assert bench.station()["held"] is (rec["state"] == "interrupted")
+        # Held until an operator resumes, when a run was on the station or queued.
+        assert bench.station()["held"] is (rec["state"] in ("interrupted", "queued"))
+        # Nothing moved between the restart and the operator's resume.
+        cmds = bench.relay.since(restart_t)
+        assert not moving_commands(cmds), ("dose before the resume", cmds)
         sim_after_restart = bench.sim_state()["dispensed_ml"]
         bench.resume()
+        resumed_queued = rec["state"] == "queued"
+        if resumed_queued:
+            # The resume starts the run left queued; let it end before the next.
+            deadline = time.monotonic() + 60
+            while bench.run(rid)["state"] in ("queued", "running"):
+                assert time.monotonic() < deadline, bench.run(rid)["state"]
+                time.sleep(0.1)
 
 
 @pytest.fixture(scope="module")
