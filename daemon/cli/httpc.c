@@ -1,36 +1,18 @@
-/* httpc.c: a small HTTP/1.1 client over TCP sockets (see httpc.h). */
+/* httpc.c: the `stopcock` commands' HTTP client, on libcurl (see httpc.h).
+ *
+ * libcurl does the wire work (name lookup, connect, framing, chunked bodies,
+ * deadlines); this file checks the URL a user typed, sets the few options
+ * that make a request ours, and turns libcurl's result codes into the error
+ * kinds the commands print. */
 #include "httpc.h"
 
 #include <ctype.h>
-#include <errno.h>
-#include <netdb.h>
-#include <netinet/in.h>
-#include <poll.h>
+#include <curl/curl.h>
 #include <stdbool.h>
-#include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <strings.h>
-#include <sys/socket.h>
-#include <time.h>
-#include <unistd.h>
-
-#define HEADER_MAX (64 * 1024) /* bytes of status line and headers we accept */
-
-static long long now_ms(void)
-{
-	struct timespec ts;
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (long long)ts.tv_sec * 1000 + ts.tv_nsec / 1000000;
-}
-
-/* Milliseconds left before the deadline, at least 0. */
-static int left_ms(long long deadline_ms)
-{
-	long long d = deadline_ms - now_ms();
-	return d <= 0 ? 0 : d > INT32_MAX ? INT32_MAX : (int)d;
-}
 
 /* strerror, starting lower-case so it reads well after "cannot reach ...: ". */
 static void say_errno(char *err, size_t err_len, int e)
@@ -38,6 +20,15 @@ static void say_errno(char *err, size_t err_len, int e)
 	snprintf(err, err_len, "%s", strerror(e));
 	if (err_len && isupper((unsigned char)err[0]))
 		err[0] = (char)tolower((unsigned char)err[0]);
+}
+
+/* One URL part from a parsed handle, or NULL when it is absent. */
+static char *url_part(CURLU *h, CURLUPart what)
+{
+	char *v = NULL;
+	if (curl_url_get(h, what, &v, 0) != CURLUE_OK)
+		return NULL;
+	return v;
 }
 
 int httpc_parse_url(const char *url, httpc_url_t *u, char *err, size_t err_len)
@@ -56,480 +47,234 @@ int httpc_parse_url(const char *url, httpc_url_t *u, char *err, size_t err_len)
 		snprintf(err, err_len, "'%s' is not an http://host:port URL", url);
 		return -1;
 	}
-	const char *p = url + 7, *host_end;
-	if (*p == '[') { /* IPv6 literal */
-		host_end = strchr(p, ']');
-		if (!host_end || host_end == p + 1) {
-			snprintf(err, err_len, "'%s': unterminated [IPv6] host", url);
-			return -1;
-		}
-		p++;
-	} else {
-		host_end = p + strcspn(p, ":/?#@");
-	}
-	size_t host_len = (size_t)(host_end - p);
-	if (host_len == 0 || host_len >= sizeof u->host) {
-		snprintf(err, err_len, "'%s': missing or too long host", url);
+	CURLU *h = curl_url();
+	if (!h) {
+		snprintf(err, err_len, "out of memory");
 		return -1;
 	}
-	memcpy(u->host, p, host_len);
-	p = host_end + (*host_end == ']');
-	if (*p == '@' || *p == '?' || *p == '#') {
-		snprintf(err, err_len, "'%s': user names, queries and fragments do not belong here",
-		         url);
-		return -1;
-	}
-	snprintf(u->port, sizeof u->port, "80");
-	if (*p == ':') {
-		p++;
-		size_t n = strspn(p, "0123456789");
-		long port = n && n <= 5 ? strtol(p, NULL, 10) : 0;
-		if (port < 1 || port > 65535 || (p[n] && p[n] != '/')) {
+	int rc = -1;
+	char *host = NULL, *port = NULL, *path = NULL, *user = NULL, *query = NULL, *frag = NULL;
+	CURLUcode uc = curl_url_set(h, CURLUPART_URL, url, 0);
+	if (uc != CURLUE_OK) {
+		/* A port libcurl refuses reads best in our words; the rest in its. */
+		if (uc == CURLUE_BAD_PORT_NUMBER)
 			snprintf(err, err_len, "'%s': the port must be a number from 1 to 65535",
 			         url);
-			return -1;
-		}
-		snprintf(u->port, sizeof u->port, "%ld", port);
-		p += n;
+		else
+			snprintf(err, err_len, "'%s': %s", url, curl_url_strerror(uc));
+		goto out;
 	}
-	size_t plen = strlen(p);
-	while (plen && p[plen - 1] == '/')
+	host = url_part(h, CURLUPART_HOST);
+	port = url_part(h, CURLUPART_PORT);
+	path = url_part(h, CURLUPART_PATH);
+	user = url_part(h, CURLUPART_USER);
+	query = url_part(h, CURLUPART_QUERY);
+	frag = url_part(h, CURLUPART_FRAGMENT);
+	if (user || query || frag) {
+		snprintf(err, err_len, "'%s': user names, queries and fragments do not belong here",
+		         url);
+		goto out;
+	}
+	/* libcurl keeps an IPv6 literal's brackets; the Host header adds them back. */
+	size_t hl = host ? strlen(host) : 0;
+	const char *hp = host;
+	if (hl >= 2 && host[0] == '[' && host[hl - 1] == ']') {
+		hp++;
+		hl -= 2;
+	}
+	if (hl == 0 || hl >= sizeof u->host) {
+		snprintf(err, err_len, "'%s': missing or too long host", url);
+		goto out;
+	}
+	memcpy(u->host, hp, hl);
+	long pn = port ? strtol(port, NULL, 10) : 80;
+	if (pn < 1 || pn > 65535) {
+		snprintf(err, err_len, "'%s': the port must be a number from 1 to 65535", url);
+		goto out;
+	}
+	snprintf(u->port, sizeof u->port, "%ld", pn);
+	size_t plen = path ? strlen(path) : 0;
+	while (plen && path[plen - 1] == '/')
 		plen--;
-	if (plen >= sizeof u->prefix || memchr(p, '?', plen) || memchr(p, '#', plen) ||
-	    memchr(p, ' ', plen)) {
+	if (plen >= sizeof u->prefix || (path && memchr(path, ' ', plen))) {
 		snprintf(err, err_len, "'%s': bad path after the host", url);
-		return -1;
+		goto out;
 	}
-	memcpy(u->prefix, p, plen);
-	return 0;
-}
-
-int httpc_dechunk(const char *in, size_t in_len, size_t max, char **out, size_t *out_len)
-{
-	size_t i = 0, len = 0, cap = 0;
-	char *buf = NULL;
-	int rc = -1;
-	for (;;) {
-		/* size line: hex digits, optional ";extension", CRLF */
-		size_t start = i, size = 0;
-		while (i < in_len && isxdigit((unsigned char)in[i])) {
-			int d = isdigit((unsigned char)in[i])
-			            ? in[i] - '0'
-			            : tolower((unsigned char)in[i]) - 'a' + 10;
-			if (size > (SIZE_MAX - 15) / 16)
-				goto out;
-			size = size * 16 + (size_t)d;
-			i++;
-		}
-		if (i == in_len)
-			goto more;
-		if (i == start)
-			goto out;
-		if (in[i] == ';') /* a chunk extension: ignored */
-			while (i < in_len && in[i] != '\r' && in[i] != '\n')
-				i++;
-		if (i + 1 >= in_len)
-			goto more;
-		if (in[i] != '\r' || in[i + 1] != '\n')
-			goto out;
-		i += 2;
-		if (size == 0) {
-			/* trailers, each ending in CRLF, then an empty line */
-			for (;;) {
-				const char *nl = memchr(in + i, '\n', in_len - i);
-				if (!nl)
-					goto more;
-				size_t line_len = (size_t)(nl - (in + i));
-				if (line_len == 0 || in[i + line_len - 1] != '\r')
-					goto out;
-				i += line_len + 1;
-				if (line_len == 1)
-					break;
-			}
-			break;
-		}
-		if (size > max || len > max - size)
-			goto out;
-		if (in_len - i < size + 2)
-			goto more;
-		if (in[i + size] != '\r' || in[i + size + 1] != '\n')
-			goto out;
-		if (len + size + 1 > cap) {
-			size_t ncap = cap ? cap : 1024;
-			while (ncap < len + size + 1)
-				ncap *= 2;
-			char *nb = realloc(buf, ncap);
-			if (!nb)
-				goto out;
-			buf = nb;
-			cap = ncap;
-		}
-		memcpy(buf + len, in + i, size);
-		len += size;
-		i += size + 2;
-	}
-	if (!buf) {
-		buf = malloc(1);
-		if (!buf)
-			goto out;
-	}
-	buf[len] = '\0';
-	*out = buf;
-	*out_len = len;
-	return 0;
-more:
-	rc = 1;
+	memcpy(u->prefix, path ? path : "", plen);
+	rc = 0;
 out:
-	free(buf);
+	curl_free(host);
+	curl_free(port);
+	curl_free(path);
+	curl_free(user);
+	curl_free(query);
+	curl_free(frag);
+	curl_url_cleanup(h);
 	return rc;
 }
 
-/* Look the host up within the deadline: numeric hosts at once, names through
- * getaddrinfo_a so that a dead DNS server cannot hang the client. */
-static httpc_err_t resolve(const httpc_url_t *u, long long deadline_ms, struct addrinfo **res,
-                           char *err, size_t err_len)
+/* The reply body as it arrives, refused past HTTPC_MAX_BODY. */
+typedef struct sink {
+	char *buf;
+	size_t len, cap;
+	bool too_big, no_mem;
+	char length[24]; /* the first Content-Length value seen, "" before */
+	bool two_lengths;
+} sink_t;
+
+/* Refuse a reply with two different Content-Lengths (RFC 9112 §6.3): its
+ * end is ambiguous, and libcurl 7.88 would silently take the last one. */
+static size_t on_header(char *p, size_t size, size_t n, void *arg)
 {
-	struct addrinfo hints = {.ai_family = AF_UNSPEC,
-	                         .ai_socktype = SOCK_STREAM,
-	                         .ai_flags = AI_NUMERICHOST | AI_NUMERICSERV};
-	int rc = getaddrinfo(u->host, u->port, &hints, res);
-	if (rc == 0)
-		return HTTPC_OK;
-	if (rc != EAI_NONAME) {
-		snprintf(err, err_len, "%s", gai_strerror(rc));
-		return HTTPC_E_RESOLVE;
-	}
-	/* Everything the lookup thread reads lives on the heap, so that a lookup
-	 * that cannot be cancelled may finish after we return (a rare small leak). */
-	struct lookup {
-		struct gaicb cb;
-		struct addrinfo hints;
-		char host[sizeof u->host];
-		char port[sizeof u->port];
-	} *lk = calloc(1, sizeof *lk);
-	if (!lk)
-		return HTTPC_E_NOMEM;
-	memcpy(lk->host, u->host, sizeof lk->host);
-	memcpy(lk->port, u->port, sizeof lk->port);
-	lk->hints = hints;
-	lk->hints.ai_flags = AI_NUMERICSERV;
-	lk->cb.ar_name = lk->host;
-	lk->cb.ar_service = lk->port;
-	lk->cb.ar_request = &lk->hints;
-	struct gaicb *list[1] = {&lk->cb};
-	if (getaddrinfo_a(GAI_NOWAIT, list, 1, NULL)) {
-		free(lk);
-		snprintf(err, err_len, "cannot start the name lookup of '%s'", u->host);
-		return HTTPC_E_RESOLVE;
-	}
-	while (gai_error(&lk->cb) == EAI_INPROGRESS) {
-		int ms = left_ms(deadline_ms);
-		if (ms == 0) {
-			int c = gai_cancel(&lk->cb);
-			if (c == EAI_ALLDONE && gai_error(&lk->cb) == 0)
-				freeaddrinfo(lk->cb.ar_result);
-			if (c == EAI_CANCELED || c == EAI_ALLDONE)
-				free(lk);
-			snprintf(err, err_len, "looking up '%s' took too long", u->host);
-			return HTTPC_E_TIMEOUT;
+	sink_t *s = arg;
+	size_t k = size * n;
+	static const char name[] = "content-length:";
+	const size_t nl = sizeof name - 1;
+
+	if (k > nl && !strncasecmp(p, name, nl)) {
+		char v[24];
+		size_t a = nl, b = k;
+		while (a < b && (p[a] == ' ' || p[a] == '\t'))
+			a++;
+		while (b > a && isspace((unsigned char)p[b - 1]))
+			b--;
+		snprintf(v, sizeof v, "%.*s", (int)(b - a), p + a);
+		if (!s->length[0]) {
+			snprintf(s->length, sizeof s->length, "%s", v);
+		} else if (strcmp(s->length, v)) {
+			s->two_lengths = true;
+			return 0; /* libcurl ends the transfer with CURLE_WRITE_ERROR */
 		}
-		struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
-		gai_suspend((const struct gaicb *const *)list, 1, &ts);
 	}
-	rc = gai_error(&lk->cb);
-	*res = lk->cb.ar_result;
-	free(lk);
-	if (rc) {
-		snprintf(err, err_len, "unknown host '%s' (%s)", u->host, gai_strerror(rc));
-		return HTTPC_E_RESOLVE;
-	}
-	return HTTPC_OK;
+	/* A status line starts the headers of the next reply (after a 1xx). */
+	if (k > 5 && !strncmp(p, "HTTP/", 5))
+		s->length[0] = '\0';
+	return k;
 }
 
-static httpc_err_t connect_any(const struct addrinfo *ai, long long deadline_ms, int *fd_out,
-                               char *err, size_t err_len)
+static size_t on_body(char *p, size_t size, size_t n, void *arg)
 {
-	int last = ECONNREFUSED;
-	for (; ai; ai = ai->ai_next) {
-		int fd = socket(ai->ai_family, ai->ai_socktype | SOCK_NONBLOCK | SOCK_CLOEXEC,
-		                ai->ai_protocol);
-		if (fd < 0) {
-			last = errno;
-			continue;
-		}
-		if (connect(fd, ai->ai_addr, ai->ai_addrlen) == 0) {
-			*fd_out = fd;
-			return HTTPC_OK;
-		}
-		if (errno == EINPROGRESS) {
-			struct pollfd pfd = {.fd = fd, .events = POLLOUT};
-			int pr;
-			do
-				pr = poll(&pfd, 1, left_ms(deadline_ms));
-			while (pr < 0 && errno == EINTR);
-			if (pr == 0) {
-				close(fd);
-				snprintf(err, err_len,
-				         "no answer to the connection attempt in time");
-				return HTTPC_E_TIMEOUT;
-			}
-			int soerr = 0;
-			socklen_t sl = sizeof soerr;
-			if (pr > 0 && getsockopt(fd, SOL_SOCKET, SO_ERROR, &soerr, &sl) == 0 &&
-			    soerr == 0) {
-				*fd_out = fd;
-				return HTTPC_OK;
-			}
-			last = pr < 0 ? errno : soerr;
-		} else {
-			last = errno;
-		}
-		close(fd);
+	sink_t *s = arg;
+	size_t k = size * n;
+	if (s->len + k > HTTPC_MAX_BODY) {
+		s->too_big = true;
+		return 0; /* libcurl ends the transfer with CURLE_WRITE_ERROR */
 	}
-	say_errno(err, err_len, last);
-	return HTTPC_E_CONNECT;
-}
-
-static httpc_err_t send_all(int fd, const char *p, size_t n, long long deadline_ms, char *err,
-                            size_t err_len)
-{
-	while (n) {
-		ssize_t k = send(fd, p, n, MSG_NOSIGNAL);
-		if (k > 0) {
-			p += k;
-			n -= (size_t)k;
-			continue;
-		}
-		if (k < 0 && errno == EINTR)
-			continue;
-		if (k < 0 && errno != EAGAIN && errno != EWOULDBLOCK) {
-			say_errno(err, err_len, errno);
-			return HTTPC_E_IO;
-		}
-		struct pollfd pfd = {.fd = fd, .events = POLLOUT};
-		int ms = left_ms(deadline_ms);
-		if (ms == 0 || poll(&pfd, 1, ms) == 0) {
-			snprintf(err, err_len, "sending the request took too long");
-			return HTTPC_E_TIMEOUT;
-		}
-	}
-	return HTTPC_OK;
-}
-
-/* Read more bytes into *buf. Returns the count, 0 at EOF, -1 with err set. */
-static ssize_t recv_some(int fd, char **buf, size_t *len, size_t *cap, size_t limit,
-                         long long deadline_ms, httpc_err_t *kind, char *err, size_t err_len)
-{
-	if (*cap - *len < 4096 + 1) {
-		size_t ncap = *cap ? *cap * 2 : 16384;
-		if (ncap > limit + 4096 + 1)
-			ncap = limit + 4096 + 1;
-		if (*len >= limit || ncap <= *len + 1) {
-			*kind = HTTPC_E_PROTO;
-			snprintf(err, err_len, "the reply is larger than %zu bytes", limit);
-			return -1;
-		}
-		char *nb = realloc(*buf, ncap);
+	if (s->len + k + 1 > s->cap) {
+		size_t cap = s->cap ? s->cap : 4096;
+		while (cap < s->len + k + 1)
+			cap *= 2;
+		char *nb = realloc(s->buf, cap);
 		if (!nb) {
-			*kind = HTTPC_E_NOMEM;
-			snprintf(err, err_len, "out of memory");
-			return -1;
+			s->no_mem = true;
+			return 0;
 		}
-		*buf = nb;
-		*cap = ncap;
+		s->buf = nb;
+		s->cap = cap;
 	}
-	for (;;) {
-		struct pollfd pfd = {.fd = fd, .events = POLLIN};
-		int ms = left_ms(deadline_ms);
-		int pr = ms == 0 ? 0 : poll(&pfd, 1, ms);
-		if (pr < 0 && errno == EINTR)
-			continue;
-		if (pr == 0) {
-			*kind = HTTPC_E_TIMEOUT;
-			snprintf(err, err_len, "no complete reply in time");
-			return -1;
-		}
-		ssize_t k = recv(fd, *buf + *len, *cap - *len - 1, 0);
-		if (k < 0 && (errno == EINTR || errno == EAGAIN || errno == EWOULDBLOCK))
-			continue;
-		if (k < 0) {
-			*kind = HTTPC_E_IO;
-			say_errno(err, err_len, errno);
-			return -1;
-		}
-		*len += (size_t)k;
-		return k;
-	}
+	memcpy(s->buf + s->len, p, k);
+	s->len += k;
+	s->buf[s->len] = '\0';
+	return k;
 }
 
-typedef struct head {
-	int status;
-	bool chunked;
-	bool has_length;
-	size_t length;
-	char *content_type;
-} head_t;
-
-/* Parse the status line and headers (text up to and excluding the blank line). */
-static int parse_head(char *h, head_t *hd, char *err, size_t err_len)
+/* libcurl's outcome as one of our kinds, with a message a user can act on. */
+static httpc_err_t kind_of(CURLcode rc, CURL *c, const httpc_url_t *u, const sink_t *s,
+                           const char *detail, char *err, size_t err_len)
 {
-	if (strncmp(h, "HTTP/1.", 7) || !isdigit((unsigned char)h[7]) || h[8] != ' ' ||
-	    !isdigit((unsigned char)h[9]) || !isdigit((unsigned char)h[10]) ||
-	    !isdigit((unsigned char)h[11]) || (h[12] != ' ' && h[12] != '\r')) {
-		snprintf(err, err_len, "the reply is not HTTP/1.x");
-		return -1;
-	}
-	hd->status = (h[9] - '0') * 100 + (h[10] - '0') * 10 + (h[11] - '0');
-	char *line = strstr(h, "\r\n");
-	while (line) {
-		line += 2;
-		char *end = strstr(line, "\r\n");
-		if (end)
-			*end = '\0';
-		char *colon = strchr(line, ':');
-		if (colon && colon != line) {
-			*colon = '\0';
-			char *v = colon + 1;
-			while (*v == ' ' || *v == '\t')
-				v++;
-			size_t vl = strlen(v);
-			while (vl && (v[vl - 1] == ' ' || v[vl - 1] == '\t'))
-				v[--vl] = '\0';
-			if (!strcasecmp(line, "Content-Length")) {
-				char *e;
-				errno = 0;
-				unsigned long long cl = strtoull(v, &e, 10);
-				if (!isdigit((unsigned char)*v) || *e || errno ||
-				    (hd->has_length && hd->length != cl)) {
-					snprintf(err, err_len, "bad Content-Length '%s'", v);
-					return -1;
-				}
-				hd->has_length = true;
-				hd->length = (size_t)cl;
-			} else if (!strcasecmp(line, "Transfer-Encoding")) {
-				if (strcasestr(v, "chunked"))
-					hd->chunked = true;
-			} else if (!strcasecmp(line, "Content-Type") && !hd->content_type) {
-				hd->content_type = strdup(v);
-			}
+	long os_errno = 0;
+	curl_easy_getinfo(c, CURLINFO_OS_ERRNO, &os_errno);
+	switch (rc) {
+	case CURLE_COULDNT_RESOLVE_HOST:
+		snprintf(err, err_len, "unknown host '%s'", u->host);
+		return HTTPC_E_RESOLVE;
+	case CURLE_COULDNT_CONNECT:
+		if (os_errno)
+			say_errno(err, err_len, (int)os_errno);
+		else
+			snprintf(err, err_len, "%s", detail[0] ? detail : curl_easy_strerror(rc));
+		return HTTPC_E_CONNECT;
+	case CURLE_OPERATION_TIMEDOUT:
+		snprintf(err, err_len, "no complete reply in time");
+		return HTTPC_E_TIMEOUT;
+	case CURLE_WRITE_ERROR:
+		if (s->two_lengths) {
+			snprintf(err, err_len, "the reply has two different Content-Lengths");
+			return HTTPC_E_PROTO;
 		}
-		line = end;
-	}
-	return 0;
-}
-
-static httpc_err_t exchange(int fd, const char *head, size_t head_len, const httpc_req_t *req,
-                            long long deadline_ms, httpc_resp_t *resp, char *err, size_t err_len)
-{
-	httpc_err_t kind = send_all(fd, head, head_len, deadline_ms, err, err_len);
-	if (kind == HTTPC_OK && req->body && req->body_len)
-		kind = send_all(fd, req->body, req->body_len, deadline_ms, err, err_len);
-	if (kind != HTTPC_OK)
-		return kind;
-
-	char *buf = NULL;
-	size_t len = 0, cap = 0, hlen = 0;
-	head_t hd = {0};
-	const size_t limit = HEADER_MAX + HTTPC_MAX_BODY + 64;
-	/* 1. status line and headers */
-	for (;;) {
-		char *blank = len ? memmem(buf, len, "\r\n\r\n", 4) : NULL;
-		if (blank) {
-			hlen = (size_t)(blank - buf) + 4;
-			break;
+		if (s->too_big) {
+			snprintf(err, err_len, "the reply's body is larger than %u bytes",
+			         HTTPC_MAX_BODY);
+			return HTTPC_E_PROTO;
 		}
-		if (len > HEADER_MAX) {
-			snprintf(err, err_len, "the reply's headers exceed %d bytes", HEADER_MAX);
-			kind = HTTPC_E_PROTO;
-			goto fail;
-		}
-		ssize_t k =
-		    recv_some(fd, &buf, &len, &cap, limit, deadline_ms, &kind, err, err_len);
-		if (k < 0)
-			goto fail;
-		if (k == 0) {
-			snprintf(err, err_len,
-			         len ? "the server closed the connection mid-reply"
-			             : "the server closed the connection without replying");
-			kind = HTTPC_E_IO;
-			goto fail;
-		}
-	}
-	buf[hlen - 2] = '\0';
-	if (parse_head(buf, &hd, err, err_len)) {
-		kind = HTTPC_E_PROTO;
-		goto fail;
-	}
-	bool no_body = !strcmp(req->method, "HEAD") || hd.status / 100 == 1 || hd.status == 204 ||
-	               hd.status == 304;
-	if (!no_body && hd.has_length && !hd.chunked && hd.length > HTTPC_MAX_BODY) {
-		snprintf(err, err_len, "the reply's body is larger than %u bytes", HTTPC_MAX_BODY);
-		kind = HTTPC_E_PROTO;
-		goto fail;
-	}
-	/* 2. the body */
-	char *body = NULL;
-	size_t body_len = 0;
-	for (;;) {
-		size_t have = len - hlen;
-		if (no_body) {
-			body = strdup("");
-			break;
-		}
-		if (hd.chunked) {
-			int r = httpc_dechunk(buf + hlen, have, HTTPC_MAX_BODY, &body, &body_len);
-			if (r == 0)
-				break;
-			if (r < 0) {
-				snprintf(err, err_len, "bad chunked body in the reply");
-				kind = HTTPC_E_PROTO;
-				goto fail;
-			}
-		} else if (hd.has_length && have >= hd.length) {
-			body_len = hd.length;
-			body = malloc(body_len + 1);
-			if (body) {
-				memcpy(body, buf + hlen, body_len);
-				body[body_len] = '\0';
-			}
-			break;
-		}
-		ssize_t k =
-		    recv_some(fd, &buf, &len, &cap, limit, deadline_ms, &kind, err, err_len);
-		if (k < 0)
-			goto fail;
-		if (k == 0) {
-			if (hd.chunked || hd.has_length) {
-				snprintf(err, err_len, "the reply was cut short (%zu body bytes)",
-				         len - hlen);
-				kind = HTTPC_E_IO;
-				goto fail;
-			}
-			/* no framing: the body runs until the server closes */
-			body_len = len - hlen;
-			body = malloc(body_len + 1);
-			if (body) {
-				memcpy(body, buf + hlen, body_len);
-				body[body_len] = '\0';
-			}
-			break;
-		}
-	}
-	if (!body) {
 		snprintf(err, err_len, "out of memory");
-		kind = HTTPC_E_NOMEM;
-		goto fail;
+		return HTTPC_E_NOMEM;
+	case CURLE_OUT_OF_MEMORY:
+		snprintf(err, err_len, "out of memory");
+		return HTTPC_E_NOMEM;
+	case CURLE_PARTIAL_FILE:
+		snprintf(err, err_len, "the reply was cut short (%zu body bytes)", s->len);
+		return HTTPC_E_IO;
+	case CURLE_WEIRD_SERVER_REPLY:
+	case CURLE_UNSUPPORTED_PROTOCOL:
+	case CURLE_BAD_CONTENT_ENCODING:
+		snprintf(err, err_len, "the reply is not HTTP/1.x as we understand it (%s)",
+		         detail[0] ? detail : curl_easy_strerror(rc));
+		return HTTPC_E_PROTO;
+	default:
+		if (os_errno)
+			say_errno(err, err_len, (int)os_errno);
+		else
+			snprintf(err, err_len, "%s", detail[0] ? detail : curl_easy_strerror(rc));
+		return HTTPC_E_IO;
 	}
-	free(buf);
-	resp->status = hd.status;
-	resp->content_type = hd.content_type;
-	resp->body = body;
-	resp->body_len = body_len;
-	return HTTPC_OK;
-fail:
-	free(buf);
-	free(hd.content_type);
-	return kind;
+}
+
+/* The request line's target and headers, or NULL with *nomem when out of memory. */
+static struct curl_slist *headers_for(const httpc_req_t *req, bool *nomem)
+{
+	char *auth = NULL, *ctype = NULL;
+	const char *fixed[] = {"Accept: application/json, text/csv, image/svg+xml, */*",
+	                       "Connection: close",
+	                       /* No 100-continue round trip: bodies are small and the
+	                        * daemon reads them whole anyway. */
+	                       "Expect:"};
+	struct curl_slist *l = NULL, *t;
+
+	*nomem = false;
+	for (size_t i = 0; i < sizeof fixed / sizeof fixed[0]; i++) {
+		if (!(t = curl_slist_append(l, fixed[i])))
+			goto oom;
+		l = t;
+	}
+	if (req->token) {
+		if (asprintf(&auth, "Authorization: Bearer %s", req->token) < 0) {
+			auth = NULL;
+			goto oom;
+		}
+		if (!(t = curl_slist_append(l, auth)))
+			goto oom;
+		l = t;
+	}
+	if (req->body || strcmp(req->method, "GET")) {
+		if (asprintf(&ctype, "Content-Type: %s",
+		             req->content_type ? req->content_type : "application/json") < 0) {
+			ctype = NULL;
+			goto oom;
+		}
+		if (!(t = curl_slist_append(l, ctype)))
+			goto oom;
+		l = t;
+	}
+	free(auth);
+	free(ctype);
+	return l;
+oom:
+	free(auth);
+	free(ctype);
+	curl_slist_free_all(l);
+	*nomem = true;
+	return NULL;
 }
 
 httpc_err_t httpc_request(const char *base_url, const httpc_req_t *req, httpc_resp_t *resp,
@@ -547,52 +292,79 @@ httpc_err_t httpc_request(const char *base_url, const httpc_req_t *req, httpc_re
 		snprintf(err, err_len, "bad request path or token");
 		return HTTPC_E_URL;
 	}
-	long long deadline_ms = now_ms() + (req->timeout_ms > 0 ? req->timeout_ms : 10000);
 
-	char hostport[300];
+	char *full = NULL;
 	bool v6 = strchr(u.host, ':') != NULL;
-	snprintf(hostport, sizeof hostport, "%s%s%s:%s", v6 ? "[" : "", u.host, v6 ? "]" : "",
-	         u.port);
-	char *head = NULL;
-	int hl = asprintf(&head,
-	                  "%s %s%s HTTP/1.1\r\nHost: %s\r\nUser-Agent: stopcock/" STOPCOCK_VERSION
-	                  "\r\nAccept: application/json, text/csv, image/svg+xml, */*\r\n"
-	                  "Connection: close\r\n%s%s%s",
-	                  req->method, u.prefix, path, hostport,
-	                  req->token ? "Authorization: Bearer " : "", req->token ? req->token : "",
-	                  req->token ? "\r\n" : "");
-	if (hl < 0)
+	if (asprintf(&full, "http://%s%s%s:%s%s%s", v6 ? "[" : "", u.host, v6 ? "]" : "", u.port,
+	             u.prefix, path) < 0)
 		return HTTPC_E_NOMEM;
-	if (req->body || strcmp(req->method, "GET")) {
-		char *more = NULL;
-		hl = asprintf(&more, "%sContent-Type: %s\r\nContent-Length: %zu\r\n\r\n", head,
-		              req->content_type ? req->content_type : "application/json",
-		              req->body ? req->body_len : 0);
-		free(head);
-		head = more;
-	} else {
-		char *more = NULL;
-		hl = asprintf(&more, "%s\r\n", head);
-		free(head);
-		head = more;
+	bool nomem;
+	struct curl_slist *hdrs = headers_for(req, &nomem);
+	CURL *c = nomem ? NULL : curl_easy_init();
+	if (!c) {
+		curl_slist_free_all(hdrs);
+		free(full);
+		snprintf(err, err_len, "out of memory");
+		return HTTPC_E_NOMEM;
 	}
-	if (hl < 0)
-		return HTTPC_E_NOMEM;
+	sink_t s = {0};
+	char detail[CURL_ERROR_SIZE] = "";
+	long timeout_ms = req->timeout_ms > 0 ? req->timeout_ms : 10000;
+	bool is_get = !strcmp(req->method, "GET"), is_head = !strcmp(req->method, "HEAD");
 
-	struct addrinfo *ai = NULL;
-	httpc_err_t kind = resolve(&u, deadline_ms, &ai, err, err_len);
-	if (kind != HTTPC_OK) {
-		free(head);
-		return kind;
+	curl_easy_setopt(c, CURLOPT_URL, full);
+	/* Only plain HTTP, never a redirect elsewhere, never through a proxy
+	 * from the environment: the daemon is on loopback or the lab's LAN. */
+	curl_easy_setopt(c, CURLOPT_PROTOCOLS_STR, "http");
+	curl_easy_setopt(c, CURLOPT_FOLLOWLOCATION, 0L);
+	curl_easy_setopt(c, CURLOPT_PROXY, "");
+	/* One deadline for the whole exchange, lookup included; no signals, so
+	 * the client may run beside threads (the benchmark's server). */
+	curl_easy_setopt(c, CURLOPT_TIMEOUT_MS, timeout_ms);
+	curl_easy_setopt(c, CURLOPT_NOSIGNAL, 1L);
+	curl_easy_setopt(c, CURLOPT_FORBID_REUSE, 1L);
+	curl_easy_setopt(c, CURLOPT_USERAGENT, "stopcock/" STOPCOCK_VERSION);
+	curl_easy_setopt(c, CURLOPT_HTTPHEADER, hdrs);
+	curl_easy_setopt(c, CURLOPT_ERRORBUFFER, detail);
+	curl_easy_setopt(c, CURLOPT_WRITEFUNCTION, on_body);
+	curl_easy_setopt(c, CURLOPT_WRITEDATA, &s);
+	curl_easy_setopt(c, CURLOPT_HEADERFUNCTION, on_header);
+	curl_easy_setopt(c, CURLOPT_HEADERDATA, &s);
+	if (is_head) {
+		curl_easy_setopt(c, CURLOPT_NOBODY, 1L);
+	} else if (!is_get || req->body) {
+		/* Every other method sends a body, empty when there is none, so the
+		 * daemon always sees a Content-Length. */
+		curl_easy_setopt(c, CURLOPT_POSTFIELDSIZE_LARGE,
+		                 (curl_off_t)(req->body ? req->body_len : 0));
+		curl_easy_setopt(c, CURLOPT_POSTFIELDS, req->body ? req->body : "");
+		if (strcmp(req->method, "POST"))
+			curl_easy_setopt(c, CURLOPT_CUSTOMREQUEST, req->method);
 	}
-	int fd = -1;
-	kind = connect_any(ai, deadline_ms, &fd, err, err_len);
-	freeaddrinfo(ai);
-	if (kind == HTTPC_OK) {
-		kind = exchange(fd, head, (size_t)hl, req, deadline_ms, resp, err, err_len);
-		close(fd);
+
+	httpc_err_t kind = HTTPC_OK;
+	CURLcode rc = curl_easy_perform(c);
+	if (rc != CURLE_OK) {
+		kind = kind_of(rc, c, &u, &s, detail, err, err_len);
+		free(s.buf);
+	} else {
+		long status = 0;
+		char *ct = NULL;
+		curl_easy_getinfo(c, CURLINFO_RESPONSE_CODE, &status);
+		curl_easy_getinfo(c, CURLINFO_CONTENT_TYPE, &ct);
+		resp->status = (int)status;
+		resp->body = s.buf ? s.buf : calloc(1, 1);
+		resp->body_len = s.len;
+		resp->content_type = ct ? strdup(ct) : NULL;
+		if (!resp->body || (ct && !resp->content_type)) {
+			httpc_resp_free(resp);
+			snprintf(err, err_len, "out of memory");
+			kind = HTTPC_E_NOMEM;
+		}
 	}
-	free(head);
+	curl_easy_cleanup(c);
+	curl_slist_free_all(hdrs);
+	free(full);
 	return kind;
 }
 

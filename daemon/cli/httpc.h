@@ -1,10 +1,9 @@
-/* httpc.h: a small HTTP/1.1 client for the `stopcock` commands.
+/* httpc.h: the HTTP client of the `stopcock` commands, on libcurl.
  *
- * Plain TCP (loopback or LAN), `http://host[:port][/prefix]` URLs only, no
- * TLS, one request per connection (Connection: close). Every step has one
- * deadline: name lookup, connect, send and receive all count against the
- * request's timeout. Bodies come with Content-Length, chunked, or until the
- * server closes. Errors are values: a kind and a message a user can act on.
+ * `http://host[:port][/prefix]` URLs only (loopback or the lab's LAN), no
+ * TLS, no proxy, no redirects, one request per connection. One deadline
+ * covers the whole exchange, name lookup included. Errors are values: a kind
+ * and a message a user can act on.
  */
 #ifndef STOPCOCK_HTTPC_H
 #define STOPCOCK_HTTPC_H
@@ -49,12 +48,6 @@ typedef struct httpc_req {
 
 /* Split a base URL. Returns 0, or -1 with a message in err. */
 int httpc_parse_url(const char *url, httpc_url_t *u, char *err, size_t err_len);
-
-/* Decode a complete chunked body in place-independent form: `in` holds the
- * bytes after the headers. On success returns 0 and sets *out (malloc'd,
- * NUL-terminated) and *out_len; returns 1 when more bytes are needed, -1 when
- * the framing is wrong or the body exceeds `max` bytes. */
-int httpc_dechunk(const char *in, size_t in_len, size_t max, char **out, size_t *out_len);
 
 /* Do one request. On HTTPC_OK *resp is filled (any status, 4xx and 5xx
  * included) and must be freed with httpc_resp_free; otherwise *resp is

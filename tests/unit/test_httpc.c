@@ -141,44 +141,6 @@ TEST(httpc_parse_url_table)
 	CHECK(strstr(err, "https is not supported") != NULL);
 }
 
-TEST(httpc_dechunk_table)
-{
-	static const struct {
-		const char *in;
-		int rc;
-		const char *out;
-	} cases[] = {
-	    {"5\r\nhello\r\n0\r\n\r\n", 0, "hello"},
-	    {"5;ext=1\r\nhello\r\n6\r\n world\r\n0\r\n\r\n", 0, "hello world"},
-	    {"A\r\n0123456789\r\n0\r\nX-Trailer: y\r\n\r\n", 0, "0123456789"},
-	    {"0\r\n\r\n", 0, ""},
-	    {"5\r\nhel", 1, NULL},            /* cut inside a chunk */
-	    {"5\r\nhello\r\n", 1, NULL},      /* no last chunk yet */
-	    {"5\r\nhello\r\n0\r\n", 1, NULL}, /* no final blank line yet */
-	    {"", 1, NULL},
-	    {"zz\r\nhello\r\n0\r\n\r\n", -1, NULL}, /* not hex */
-	    {"5\r\nhelloXY0\r\n\r\n", -1, NULL},    /* no CRLF after the data */
-	    {"5 \r\nhello\r\n0\r\n\r\n", -1, NULL}, /* junk after the size */
-	    {"FFFFFFFFFFFFFFFFFF\r\n", -1, NULL},   /* size overflows */
-	};
-	for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
-		char *out = NULL;
-		size_t n = 0;
-		int rc = httpc_dechunk(cases[i].in, strlen(cases[i].in), 1 << 20, &out, &n);
-		CHECK_INT(rc, cases[i].rc);
-		if (cases[i].out && rc == 0) {
-			CHECK_STR(out, cases[i].out);
-			CHECK_INT(n, strlen(cases[i].out));
-		}
-		free(out);
-	}
-	/* The size limit holds across chunks. */
-	char *out = NULL;
-	size_t n = 0;
-	CHECK_INT(httpc_dechunk("4\r\nabcd\r\n4\r\nefgh\r\n0\r\n\r\n", 26, 6, &out, &n), -1);
-	free(out);
-}
-
 TEST(httpc_post_with_length)
 {
 	srv_t s = {.reply = "HTTP/1.1 201 Created\r\nContent-Type: application/json\r\n"
