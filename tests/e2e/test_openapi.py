@@ -191,6 +191,23 @@ def test_daemon_source_routes_are_in_spec():
         assert ok, f"daemon serves {lit!r}, which docs/openapi.yaml does not describe"
 
 
+def test_route_table_is_the_spec():
+    """The daemon's one route table has exactly the spec's operations, each
+    with the spec's authorization: open where the spec says security [{}],
+    a token always for a write, a token on request (http.read_needs_token)
+    for any other read."""
+    table = {(m.lower(), p): auth for m, p, auth in route_table()}
+    spec = {(m, p): op for p, m, op in operations()}
+    assert len(table) == len(route_table()), "a route is in the table twice"
+    assert set(table) == set(spec), \
+        f"only in the table: {sorted(set(table) - set(spec))}; " \
+        f"only in the spec: {sorted(set(spec) - set(table))}"
+    for (m, p), auth in sorted(table.items()):
+        want = ("OPEN" if spec[m, p].get("security") == [{}]
+                else "WRITE" if is_write(m) else "READ")
+        assert auth == want, f"{m.upper()} {p}: the table says {auth}, the spec {want}"
+
+
 # ------------------------------------------------ the running daemon
 
 
@@ -476,6 +493,32 @@ def test_unknown_route_is_a_json_404(daemon):
     status, ctype, body = daemon.call("get", "/v1/no-such-route")
     assert status == 404
     assert check_schema(json.loads(body), {"$ref": "#/components/schemas/Error"}) == []
+
+
+def test_every_spec_path_answers_options_with_its_allow(daemon):
+    """Each spec path, asked with a method no route has (OPTIONS), without a
+    token: 405 method_not_allowed with Allow listing exactly the spec's
+    methods for it (GET bringing HEAD). Each of its spec methods is not a 405
+    and not a "no such route"."""
+    for path, item in SPEC["paths"].items():
+        concrete = re.sub(r"\{[^}]+\}", "1", path)
+        want = {m.upper() for m in METHODS if m in item}
+        if "GET" in want:
+            want.add("HEAD")
+        req = urllib.request.Request(daemon.base + concrete, method="OPTIONS")
+        with pytest.raises(urllib.error.HTTPError) as e:
+            urllib.request.urlopen(req, timeout=10)
+        body = e.value.read()
+        assert e.value.code == 405, f"OPTIONS {concrete}: {e.value.code} {body[:200]!r}"
+        assert json.loads(body)["error"]["code"] == "method_not_allowed"
+        allow = {x.strip() for x in e.value.headers.get("Allow", "").split(",")}
+        assert allow == want, f"OPTIONS {concrete}: Allow {allow}, the spec {want}"
+        for m in want - {"HEAD"}:
+            status, _, rb = daemon.call(m.lower(), concrete, token=False,
+                                        body=None if m == "GET" else b"")
+            msg = json.loads(rb)["error"]["message"] if status >= 400 and rb else ""
+            assert status != 405 and not msg.startswith("no such route"), \
+                f"{m} {concrete}: {status} {msg}"
 
 
 def route_table():
