@@ -1,5 +1,7 @@
-/* http.c: the server, bodies, authentication, dispatch and replies.
- * Routes are in http_runs.c, http_misc.c and http_calib.c. */
+/* http.c: the server, bodies, authentication and replies. Which path and
+ * method is which handler, and who may call it, is the route table's
+ * (http_routes.c); the handlers are in http_www.c, http_misc.c, http_runs.c
+ * and http_calib.c. */
 #include "http.h"
 
 #include <arpa/inet.h>
@@ -16,11 +18,11 @@
 
 #include "drv.h"
 #include "http_guard.h"
+#include "http_routes.h"
 #include "log.h"
 #include "clock.h"
 
-#define MAX_SEGMENTS 8
-#define HTTP_NICE    5 /* niceness of HTTP worker threads, relative to 0 */
+#define HTTP_NICE 5 /* niceness of HTTP worker threads, relative to 0 */
 
 static _Thread_local bool niced;
 
@@ -200,39 +202,6 @@ static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *
 	return found;
 }
 
-static int split_path(char *path, const char **seg, int max)
-{
-	int n = 0;
-	char *save = NULL;
-
-	for (char *p = strtok_r(path, "/", &save); p; p = strtok_r(NULL, "/", &save)) {
-		if (n == max)
-			return -1;
-		seg[n++] = p;
-	}
-	return n;
-}
-
-static void dispatch(const http_req_t *q, http_reply_t *r)
-{
-	char path[512];
-	const char *seg[MAX_SEGMENTS];
-	int n;
-
-	if (strlen(q->path) >= sizeof path) {
-		http_reply_error(r, 404, "not_found", "no such route");
-		return;
-	}
-	snprintf(path, sizeof path, "%s", q->path);
-	n = split_path(path, seg, MAX_SEGMENTS);
-	if (n >= 0 && http_route_www(q, seg, n, r))
-		return;
-	if (n > 0 && (http_route_misc(q, seg, n, r) || http_route_runs(q, seg, n, r) ||
-	              http_route_calib(q, seg, n, r)))
-		return;
-	http_reply_error(r, 404, "not_found", "no such route: %s %s", q->method, q->path);
-}
-
 static enum MHD_Result send_reply(struct MHD_Connection *c, http_ctx_t *ctx, http_reply_t *r)
 {
 	struct MHD_Response *resp;
@@ -278,19 +247,6 @@ static enum MHD_Result send_reply(struct MHD_Connection *c, http_ctx_t *ctx, htt
 	return ret;
 }
 
-/* Is w one of the words of "A, B, C"? */
-static bool word_in_list(const char *w, const char *list)
-{
-	size_t n = strlen(w);
-	for (const char *p = list; *p; p += strspn(p, ", ")) {
-		size_t k = strcspn(p, ", ");
-		if (k == n && !strncmp(p, w, n))
-			return true;
-		p += k;
-	}
-	return false;
-}
-
 static enum MHD_Result too_large(struct MHD_Connection *c, http_ctx_t *ctx)
 {
 	http_reply_t r = {0};
@@ -308,7 +264,7 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	conn_state_t *cs = *con_cls;
 	http_reply_t r = {0};
 	http_req_t q = {0};
-	bool write = strcmp(method, "GET") && strcmp(method, "HEAD");
+	http_auth_t auth;
 	enum MHD_Result ret;
 
 	if (!niced) {
@@ -326,7 +282,8 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	if (!cs->started) {
 		const char *cl =
 		    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);
-		const char *allow = http_route_allow(url);
+		char allow_buf[64];
+		const char *allow = http_routes_allow(url, allow_buf, sizeof allow_buf);
 		cs->started = true;
 		/* Everything that can be refused from the headers is refused
 		 * here, before the body is read and before authentication; MHD
@@ -340,7 +297,7 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 			                 ctx->cfg->max_per_ip);
 		} else if (http_guard_refuse(ctx, c, method, version, cs->n_args, &r)) {
 			/* r filled */
-		} else if (allow && !word_in_list(method, allow)) {
+		} else if (allow && !http_routes_known(method, url)) {
 			r.allow = allow;
 			http_reply_error(&r, 405, "method_not_allowed",
 			                 "%s is not allowed on %s (use %s)", method, url, allow);
@@ -393,10 +350,10 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	q.body = cs->buf;
 	q.body_len = cs->len;
 	q.conn = c;
-	if (write || ctx->cfg->read_needs_token) {
-		bool open_route = !write && (!strcmp(url, "/v1/health") || http_www_is_static(url));
+	auth = http_routes_auth(method, url);
+	if (auth == HTTP_WRITE || (auth == HTTP_READ && ctx->cfg->read_needs_token)) {
 		q.token_name = check_token(ctx, c, q.token_buf, sizeof q.token_buf);
-		if (!q.token_name && !open_route) {
+		if (!q.token_name) {
 			const char *h = MHD_lookup_connection_value(c, MHD_HEADER_KIND,
 			                                            MHD_HTTP_HEADER_AUTHORIZATION);
 			atomic_fetch_add(&ctx->auth_failures, 1);
@@ -406,7 +363,7 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 			return send_reply(c, ctx, &r);
 		}
 	}
-	dispatch(&q, &r);
+	http_routes_dispatch(&q, &r);
 	ret = send_reply(c, ctx, &r);
 	free(r.body);
 	return ret;

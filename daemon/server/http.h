@@ -45,7 +45,7 @@ void http_set_tokens(http_ctx_t *ctx, const cfg_tokens_t *t);
 /* Stop accepting, finish the requests in flight, free. */
 void http_stop(http_server_t *h);
 
-/* ---- for the route files (http_*.c) ---- */
+/* ---- for the route handlers (http_*.c) ---- */
 
 typedef struct http_req {
 	http_ctx_t *ctx;
@@ -56,6 +56,11 @@ typedef struct http_req {
 	void *conn;             /* struct MHD_Connection * */
 	const char *token_name; /* who wrote, for the events table (in token_buf) */
 	char token_buf[64];
+	/* Set by http_routes_dispatch: the text of the path's {...} segment
+	 * (NULL when its pattern has none) and, when the route takes a numeric
+	 * id, that id. */
+	const char *param;
+	long long id;
 } http_req_t;
 
 typedef struct http_reply {
@@ -93,17 +98,11 @@ station_t *http_find_station(http_ctx_t *ctx, const char *name);
 /* Limits a method must meet on station st (NULL: the strictest of all). */
 void http_method_limits(http_ctx_t *ctx, station_t *st, method_limits_t *lim);
 
-/* Route groups. Each returns true when it handled the path (the reply is
- * filled), false when the path is not its own. */
-bool http_route_runs(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
-bool http_route_misc(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
-bool http_route_calib(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
+/* The routes and their handlers are in http_routes.h. */
 
-/* The bench page and its extra routes (http_www.c): GET /, GET /www/NAME,
- * GET /v1/runs, POST /v1/methods/{id}/check. */
-bool http_route_www(const http_req_t *q, const char *const *seg, int nseg, http_reply_t *r);
-/* True for the page's own files, which need no token even when reads do
- * (the token is entered on the page itself). */
+/* The bench page's files (http_www.c). True for "/" and "/www/NAME" with a
+ * good NAME: the page's own files, open without a token (the token is
+ * entered on the page itself). */
 bool http_www_is_static(const char *url);
 /* [a-z0-9][a-z0-9._-]*, no "..", at most 63 bytes, a known extension. */
 bool http_www_name_ok(const char *name);

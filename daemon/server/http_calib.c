@@ -1,6 +1,7 @@
 /* http_calib.c: electrode calibrations (the logic is calib.h's; the station
  * thread measures). */
 #include "http.h"
+#include "http_routes.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -8,7 +9,7 @@
 #include <string.h>
 #include <time.h>
 
-static void post_calibration(const http_req_t *q, http_reply_t *r)
+void http_post_calibration(const http_req_t *q, http_reply_t *r)
 {
 	json_t *body, *bufs = NULL, *v;
 	json_error_t jerr;
@@ -73,8 +74,9 @@ static void reply_calib(http_reply_t *r, json_t *j, bool db_err, const char *wha
 		http_reply_error(r, 404, "not_found", "no calibration %s", what);
 }
 
-static void post_next(const http_req_t *q, long long id, http_reply_t *r)
+void http_post_calibration_next(const http_req_t *q, http_reply_t *r)
 {
+	long long id = q->id;
 	bool db_err;
 	json_t *j = store_calib_json(q->ctx->store, id, &db_err);
 	const char *station;
@@ -113,53 +115,27 @@ static void post_next(const http_req_t *q, long long id, http_reply_t *r)
 	reply_calib(r, j, db_err, "with this id");
 }
 
-bool http_route_calib(const http_req_t *q, const char *const *seg, int n, http_reply_t *r)
+void http_get_calibration_latest(const http_req_t *q, http_reply_t *r)
 {
-	bool get = !strcmp(q->method, "GET"), post = !strcmp(q->method, "POST");
-	long long id;
+	const char *station = http_query(q, "station");
 	bool db_err;
 
-	if (n < 2 || strcmp(seg[0], "v1") || strcmp(seg[1], "calibrations") || n > 4)
-		return false;
-	if (n == 2) {
-		if (post)
-			post_calibration(q, r);
-		else
-			http_reply_error(r, 405, "method_not_allowed", "use POST");
-		return true;
+	if (!station || !http_find_station(q->ctx, station)) {
+		http_reply_error(r, station ? 404 : 400, station ? "not_found" : "bad_request",
+		                 station ? "no station '%s'" : "%s",
+		                 station ? station : "give ?station=NAME");
+	} else {
+		/* Read first: an argument list does not order the call before
+		 * the read of db_err (UBSan saw an uninitialised bool). */
+		json_t *j = store_calib_latest(q->ctx->store, station, false, NULL, &db_err);
+		reply_calib(r, j, db_err, "for this station");
 	}
-	if (n == 3 && !strcmp(seg[2], "latest")) {
-		const char *station = http_query(q, "station");
-		if (!get) {
-			http_reply_error(r, 405, "method_not_allowed", "use GET");
-		} else if (!station || !http_find_station(q->ctx, station)) {
-			http_reply_error(r, station ? 404 : 400,
-			                 station ? "not_found" : "bad_request",
-			                 station ? "no station '%s'" : "%s",
-			                 station ? station : "give ?station=NAME");
-		} else {
-			/* Read first: an argument list does not order the call before
-			 * the read of db_err (UBSan saw an uninitialised bool). */
-			json_t *j =
-			    store_calib_latest(q->ctx->store, station, false, NULL, &db_err);
-			reply_calib(r, j, db_err, "for this station");
-		}
-		return true;
-	}
-	if (!http_parse_id(seg[2], &id)) {
-		http_reply_error(r, 400, "bad_request",
-		                 "a calibration id is a positive integer (got '%s')", seg[2]);
-		return true;
-	}
-	if (n == 3 && get) {
-		json_t *j = store_calib_json(q->ctx->store, id, &db_err);
-		reply_calib(r, j, db_err, "with this id");
-	} else if (n == 4 && post && !strcmp(seg[3], "next"))
-		post_next(q, id, r);
-	else if (n == 3 || !strcmp(seg[3], "next"))
-		http_reply_error(r, 405, "method_not_allowed", "%s is not allowed on %s", q->method,
-		                 q->path);
-	else
-		return false;
-	return true;
+}
+
+void http_get_calibration(const http_req_t *q, http_reply_t *r)
+{
+	bool db_err;
+	json_t *j = store_calib_json(q->ctx->store, q->id, &db_err);
+
+	reply_calib(r, j, db_err, "with this id");
 }

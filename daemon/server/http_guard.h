@@ -11,8 +11,8 @@
  *   are cut after HTTP_OVER_LIMIT_GRACE_S); libmicrohttpd drops the rest.
  * - Protocol: Host, framing (Content-Length, Transfer-Encoding), one
  *   Authorization header without NUL, query arguments (count, NUL,
- *   repeats), and the methods each known path allows (405 with Allow,
- *   before authentication).
+ *   repeats). The methods each known path allows (405 with Allow, also
+ *   before authentication) are the route table's (http_routes.h).
  */
 #ifndef STOPCOCK_HTTP_GUARD_H
 #define STOPCOCK_HTTP_GUARD_H
@@ -58,9 +58,5 @@ unsigned http_guard_count_args(char *target);
  * count. */
 bool http_guard_refuse(http_ctx_t *ctx, struct MHD_Connection *c, const char *method,
                        const char *version, unsigned n_args, http_reply_t *r);
-
-/* For a known path: the methods it allows ("GET, HEAD"); NULL when the path
- * is not one of docs/openapi.yaml's. */
-const char *http_route_allow(const char *path);
 
 #endif

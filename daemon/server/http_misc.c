@@ -1,5 +1,7 @@
-/* http_misc.c: health, stations, halt, methods and /metrics. */
+/* http_misc.c: health, stations (halt, resume), methods (list, get, put,
+ * check) and /metrics. */
 #include "http.h"
+#include "http_routes.h"
 
 #include <math.h>
 #include <stdarg.h>
@@ -44,7 +46,7 @@ static json_t *station_json(station_t *st)
 	                 "held_reason", s.held ? json_string(s.held_reason) : json_null());
 }
 
-static void get_stations(const http_req_t *q, http_reply_t *r)
+void http_get_stations(const http_req_t *q, http_reply_t *r)
 {
 	json_t *arr = json_array();
 	for (int i = 0; i < q->ctx->n_stations; i++)
@@ -52,8 +54,9 @@ static void get_stations(const http_req_t *q, http_reply_t *r)
 	http_reply_json(r, 200, json_pack("{s:o}", "stations", arr));
 }
 
-static void post_halt(const http_req_t *q, const char *name, http_reply_t *r)
+void http_post_halt(const http_req_t *q, http_reply_t *r)
 {
+	const char *name = q->param;
 	station_t *st = http_find_station(q->ctx, name);
 	station_snapshot_t s;
 
@@ -69,8 +72,9 @@ static void post_halt(const http_req_t *q, const char *name, http_reply_t *r)
 	                          s.run_id ? json_integer(s.run_id) : json_null()));
 }
 
-static void post_resume(const http_req_t *q, const char *name, http_reply_t *r)
+void http_post_resume(const http_req_t *q, http_reply_t *r)
 {
+	const char *name = q->param;
 	station_t *st = http_find_station(q->ctx, name);
 	char why[200];
 	station_snapshot_t s;
@@ -98,8 +102,20 @@ static void post_resume(const http_req_t *q, const char *name, http_reply_t *r)
 	    r, 200, json_pack("{s:s,s:b,s:i}", "station", name, "resumed", 1, "queued", s.queued));
 }
 
-static void get_method(const http_req_t *q, const char *id, http_reply_t *r)
+void http_get_methods(const http_req_t *q, http_reply_t *r)
 {
+	bool db_err;
+	json_t *j = store_methods_list(q->ctx->store, &db_err);
+
+	if (j)
+		http_reply_json(r, 200, j);
+	else
+		http_reply_error(r, 500, "database", "the database failed");
+}
+
+void http_get_method(const http_req_t *q, http_reply_t *r)
+{
+	const char *id = q->param;
 	bool db_err;
 	json_t *j = store_method_json(q->ctx->store, id, &db_err);
 
@@ -111,33 +127,55 @@ static void get_method(const http_req_t *q, const char *id, http_reply_t *r)
 		http_reply_error(r, 404, "not_found", "no method '%s'", id);
 }
 
-static void put_method(const http_req_t *q, const char *id, http_reply_t *r)
+/* Parse the body as method id's text, as PUT stores it and check judges it:
+ * named like its file ("ID.yaml", into name), so method_parse checks
+ * `method:` against the id, with the limits of every station. NULL with r
+ * filled when there is no body, the id is too long or memory ran out; else
+ * the method to free, *valid and the diagnostics in d. */
+static method_t *parse_body(const http_req_t *q, const char *id, char *name, size_t cap,
+                            bool *valid, diag_list_t *d, http_reply_t *r)
 {
-	method_t *m;
 	method_limits_t lim;
+	method_t *m;
+
+	if (!q->body || q->body_len == 0) {
+		http_reply_error(r, 400, "bad_request", "the body must be the method's YAML text");
+		return NULL;
+	}
+	if (strlen(id) >= METHOD_ID_MAX) {
+		http_reply_error(r, 400, "bad_request", "method id too long");
+		return NULL;
+	}
+	m = malloc(sizeof *m);
+	if (!m) {
+		http_reply_error(r, 500, "internal", "out of memory");
+		return NULL;
+	}
+	snprintf(name, cap, "%s.yaml", id);
+	http_method_limits(q->ctx, NULL, &lim);
+	*valid = method_parse(name, q->body, q->body_len, &lim, m, d) == 0;
+	return m;
+}
+
+void http_put_method(const http_req_t *q, http_reply_t *r)
+{
+	const char *id = q->param;
+	method_t *m;
 	diag_list_t d = DIAG_LIST_INIT;
 	char name[METHOD_ID_MAX + 8];
 	long stored = 0;
 	store_status_t st;
+	bool valid;
 
 	if (!name_is_id(id, METHOD_ID_MAX)) {
 		http_reply_error(r, 400, "bad_request",
 		                 "a method id is lower-case letters, digits and '-'");
 		return;
 	}
-	if (!q->body || q->body_len == 0) {
-		http_reply_error(r, 400, "bad_request", "the body must be the method's YAML text");
+	m = parse_body(q, id, name, sizeof name, &valid, &d, r);
+	if (!m)
 		return;
-	}
-	m = malloc(sizeof *m);
-	if (!m) {
-		http_reply_error(r, 500, "internal", "out of memory");
-		return;
-	}
-	/* Named like its file, so method_parse checks `method:` against the id. */
-	snprintf(name, sizeof name, "%s.yaml", id);
-	http_method_limits(q->ctx, NULL, &lim);
-	if (method_parse(name, q->body, q->body_len, &lim, m, &d)) {
+	if (!valid) {
 		char *msg = diag_join(&d);
 		http_reply_error(r, 422, "invalid_method", "%s",
 		                 msg && *msg ? msg : "invalid method");
@@ -166,6 +204,47 @@ static void put_method(const http_req_t *q, const char *id, http_reply_t *r)
 		http_reply_error(r, 500, "database", "the database failed");
 	}
 out:
+	diag_free(&d);
+	free(m);
+}
+
+/* ---- POST /v1/methods/{id}/check ---- */
+
+void http_post_method_check(const http_req_t *q, http_reply_t *r)
+{
+	const char *id = q->param;
+	method_t *m;
+	diag_list_t d = DIAG_LIST_INIT;
+	char name[METHOD_ID_MAX + 8], sha[65];
+	char *stored_text = NULL;
+	size_t stored_len = 0;
+	long stored_rev = 0;
+	json_t *diags, *out;
+	bool valid;
+
+	/* PUT's parse, so the verdict is PUT's. */
+	m = parse_body(q, id, name, sizeof name, &valid, &d, r);
+	if (!m)
+		return;
+	diags = json_array();
+	for (size_t i = 0; i < d.n; i++)
+		json_array_append_new(diags, json_pack("{s:s,s:i,s:i,s:s}", "file",
+		                                       d.v[i].file ? d.v[i].file : name, "line",
+		                                       d.v[i].line, "col", d.v[i].col, "message",
+		                                       d.v[i].msg ? d.v[i].msg : "invalid"));
+	if (store_method_latest(q->ctx->store, id, &stored_text, &stored_len, &stored_rev, sha) !=
+	    STORE_OK)
+		stored_rev = 0;
+	free(stored_text);
+	out = json_pack("{s:s,s:b,s:o,s:o,s:o}", "id", id, "valid", valid, "revision",
+	                valid ? json_integer(m->revision) : json_null(), "stored_revision",
+	                stored_rev > 0 ? json_integer(stored_rev) : json_null(), "diagnostics",
+	                diags);
+	/* A valid text whose revision is not above the stored one would get 409
+	 * from PUT: say so here, so the editor can tell before saving. */
+	if (out && valid)
+		json_object_set_new(out, "saves", json_boolean(stored_rev < m->revision));
+	http_reply_json(r, 200, out);
 	diag_free(&d);
 	free(m);
 }
@@ -252,77 +331,21 @@ char *http_metrics_text(http_ctx_t *ctx, size_t *out_len)
 	return sbuf_finish(&b, out_len);
 }
 
-static void method_not_allowed(const http_req_t *q, http_reply_t *r)
+void http_get_metrics(const http_req_t *q, http_reply_t *r)
 {
-	http_reply_error(r, 405, "method_not_allowed", "%s is not allowed on %s", q->method,
-	                 q->path);
+	size_t len;
+	char *t = http_metrics_text(q->ctx, &len);
+
+	if (!t)
+		http_reply_error(r, 500, "internal", "out of memory");
+	else
+		http_reply_text(
+		    r, 200, "application/openmetrics-text; version=1.0.0; charset=utf-8", t, len);
 }
 
-bool http_route_misc(const http_req_t *q, const char *const *seg, int n, http_reply_t *r)
+void http_get_health(const http_req_t *q, http_reply_t *r)
 {
-	bool get = !strcmp(q->method, "GET");
-
-	if (n == 1 && !strcmp(seg[0], "metrics")) {
-		size_t len;
-		char *t;
-		if (!get) {
-			method_not_allowed(q, r);
-			return true;
-		}
-		t = http_metrics_text(q->ctx, &len);
-		if (!t)
-			http_reply_error(r, 500, "internal", "out of memory");
-		else
-			http_reply_text(r, 200,
-			                "application/openmetrics-text; version=1.0.0; "
-			                "charset=utf-8",
-			                t, len);
-		return true;
-	}
-	if (n < 2 || strcmp(seg[0], "v1"))
-		return false;
-	if (n == 2 && !strcmp(seg[1], "health")) {
-		if (!get)
-			method_not_allowed(q, r);
-		else
-			http_reply_json(r, 200,
-			                json_pack("{s:s,s:s,s:f}", "status", "ok", "version",
-			                          STOPCOCK_VERSION, "uptime_s",
-			                          clock_mono_s() - q->ctx->started_mono_s));
-		return true;
-	}
-	if (!strcmp(seg[1], "stations")) {
-		if (n == 2 && get)
-			get_stations(q, r);
-		else if (n == 4 && !strcmp(seg[3], "halt") && !strcmp(q->method, "POST"))
-			post_halt(q, seg[2], r);
-		else if (n == 4 && !strcmp(seg[3], "resume") && !strcmp(q->method, "POST"))
-			post_resume(q, seg[2], r);
-		else if (n == 2 ||
-		         (n == 4 && (!strcmp(seg[3], "halt") || !strcmp(seg[3], "resume"))))
-			method_not_allowed(q, r);
-		else
-			return false;
-		return true;
-	}
-	if (!strcmp(seg[1], "methods")) {
-		if (n == 2 && get) {
-			bool db_err;
-			json_t *j = store_methods_list(q->ctx->store, &db_err);
-			if (j)
-				http_reply_json(r, 200, j);
-			else
-				http_reply_error(r, 500, "database", "the database failed");
-		} else if (n == 3 && get) {
-			get_method(q, seg[2], r);
-		} else if (n == 3 && !strcmp(q->method, "PUT")) {
-			put_method(q, seg[2], r);
-		} else if (n <= 3) {
-			method_not_allowed(q, r);
-		} else {
-			return false;
-		}
-		return true;
-	}
-	return false;
+	http_reply_json(r, 200,
+	                json_pack("{s:s,s:s,s:f}", "status", "ok", "version", STOPCOCK_VERSION,
+	                          "uptime_s", clock_mono_s() - q->ctx->started_mono_s));
 }

@@ -1,5 +1,7 @@
-/* http_runs.c: runs, their points and curve, abort, and the result feed. */
+/* http_runs.c: runs (the list, one run, its points and curve, abort), the
+ * result and event feeds, and the titrants. */
 #include "http.h"
+#include "http_routes.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -15,6 +17,9 @@
 #include "timefmt.h"
 #include "clock.h"
 
+#define RUN_STATES    "queued running finished aborted failed interrupted"
+#define TIME_TEXT_MAX 32
+
 static void db_error(http_reply_t *r)
 {
 	http_reply_error(r, 500, "database", "the database failed; the request may be retried");
@@ -25,7 +30,7 @@ static bool is_final(const char *state)
 	return strcmp(state, "queued") && strcmp(state, "running");
 }
 
-static void post_run(const http_req_t *q, http_reply_t *r)
+void http_post_run(const http_req_t *q, http_reply_t *r)
 {
 	/* Error code, HTTP status and the reply's error word, in submit_error_t order. */
 	static const struct {
@@ -87,8 +92,132 @@ static void post_run(const http_req_t *q, http_reply_t *r)
 	json_decref(body);
 }
 
-static void get_run(const http_req_t *q, long long id, http_reply_t *r)
+/* ---- GET /v1/runs: the runs list, filtered (for the page) ---- */
+
+static bool word_in(const char *w, const char *list)
 {
+	size_t n = strlen(w);
+	for (const char *p = list; (p = strstr(p, w)); p += n)
+		if ((p == list || p[-1] == ' ') && (p[n] == ' ' || p[n] == '\0'))
+			return n > 0;
+	return false;
+}
+
+/* n digits at *p as a number in [lo, hi]; advances *p. */
+static bool digits_in(const char **p, int n, int lo, int hi, int *out)
+{
+	int v = 0;
+	for (int i = 0; i < n; i++) {
+		if ((*p)[i] < '0' || (*p)[i] > '9')
+			return false;
+		v = v * 10 + ((*p)[i] - '0');
+	}
+	*p += n;
+	*out = v;
+	return v >= lo && v <= hi;
+}
+
+/* A real date or UTC time, whole or cut after a field: YYYY[-MM[-DD
+ * [THH[:MM[:SS[.fff]]][Z]]]] ("2026-02-30", "2026-13" or "1%00abc" are
+ * refused; the store compares it with RFC 3339 text, so a prefix works). */
+static bool time_text_ok(const char *s)
+{
+	static const int mdays[] = {31, 29, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+	const char *p = s;
+	int y, mo, d, v;
+
+	if (strlen(s) >= TIME_TEXT_MAX || !digits_in(&p, 4, 1970, 9999, &y))
+		return false;
+	if (!*p)
+		return true;
+	if (*p++ != '-' || !digits_in(&p, 2, 1, 12, &mo))
+		return false;
+	if (!*p)
+		return true;
+	if (*p++ != '-' || !digits_in(&p, 2, 1, mdays[mo - 1], &d))
+		return false;
+	if (mo == 2 && d == 29 && !(y % 4 == 0 && (y % 100 != 0 || y % 400 == 0)))
+		return false;
+	if (!*p)
+		return true;
+	if (*p++ != 'T' || !digits_in(&p, 2, 0, 23, &v))
+		return false;
+	int field = 0;
+	for (; field < 2 && *p == ':'; field++) { /* minutes, seconds */
+		p++;
+		if (!digits_in(&p, 2, 0, 59, &v))
+			return false;
+	}
+	if (*p == '.' && field == 2) { /* a fraction of a second */
+		if (p[1] < '0' || p[1] > '9')
+			return false;
+		for (p++; *p >= '0' && *p <= '9'; p++)
+			;
+	}
+	if (*p == 'Z')
+		p++;
+	return *p == '\0';
+}
+
+static const char *arg(const http_req_t *q, const char *key)
+{
+	const char *v = http_query(q, key);
+	return v && *v ? v : NULL;
+}
+
+void http_get_runs(const http_req_t *q, http_reply_t *r)
+{
+	store_runs_filter_t f = {.station = arg(q, "station"),
+	                         .state = arg(q, "state"),
+	                         .since = arg(q, "since"),
+	                         .until = arg(q, "until"),
+	                         .limit = 100};
+	const char *limit = arg(q, "limit"), *before = arg(q, "before");
+	long long v;
+	bool db_err;
+	json_t *j;
+
+	if (f.state && !word_in(f.state, RUN_STATES)) {
+		http_reply_error(r, 400, "bad_request", "state is one of: %s", RUN_STATES);
+		return;
+	}
+	if (f.station && strlen(f.station) >= CFG_NAME_MAX) {
+		http_reply_error(r, 400, "bad_request", "station name too long");
+		return;
+	}
+	if ((f.since && !time_text_ok(f.since)) || (f.until && !time_text_ok(f.until))) {
+		http_reply_error(r, 400, "bad_request",
+		                 "since and until are dates or UTC times, e.g. 2026-12-01 or "
+		                 "2026-12-01T14:00:00Z");
+		return;
+	}
+	if (limit) {
+		if (!http_parse_id(limit, &v) || v > 1000) {
+			http_reply_error(r, 400, "bad_request",
+			                 "limit must be an integer 1 to 1000");
+			return;
+		}
+		f.limit = (int)v;
+	}
+	if (before) {
+		if (!http_parse_id(before, &v)) {
+			http_reply_error(r, 400, "bad_request", "before must be a run id");
+			return;
+		}
+		f.before_id = v;
+	}
+	j = store_runs_list(q->ctx->store, &f, &db_err);
+	if (j)
+		http_reply_json(r, 200, j);
+	else
+		db_error(r);
+}
+
+/* ---- one run ---- */
+
+void http_get_run(const http_req_t *q, http_reply_t *r)
+{
+	long long id = q->id;
 	bool db_err;
 	json_t *j = store_run_json(q->ctx->store, id, &db_err);
 
@@ -100,8 +229,9 @@ static void get_run(const http_req_t *q, long long id, http_reply_t *r)
 		http_reply_error(r, 404, "not_found", "no run %lld", id);
 }
 
-static void get_points(const http_req_t *q, long long id, http_reply_t *r)
+void http_get_points(const http_req_t *q, http_reply_t *r)
 {
+	long long id = q->id;
 	const char *fmt = http_query(q, "format");
 	bool db_err = false;
 
@@ -131,8 +261,9 @@ static double num_or_nan(const json_t *j)
 	return json_is_number(j) ? json_number_value(j) : NAN;
 }
 
-static void get_curve(const http_req_t *q, long long id, http_reply_t *r)
+void http_get_curve(const http_req_t *q, http_reply_t *r)
 {
+	long long id = q->id;
 	bool db_err = false;
 	json_t *pts = store_points_json(q->ctx->store, id, &db_err);
 	json_t *rec = pts ? store_run_json(q->ctx->store, id, &db_err) : NULL;
@@ -187,8 +318,9 @@ static void get_curve(const http_req_t *q, long long id, http_reply_t *r)
 	json_decref(rec);
 }
 
-static void post_abort(const http_req_t *q, long long id, http_reply_t *r)
+void http_post_abort(const http_req_t *q, http_reply_t *r)
 {
+	long long id = q->id;
 	char state[32], station[CFG_NAME_MAX];
 	store_status_t ss =
 	    store_run_state(q->ctx->store, id, state, sizeof state, station, sizeof station);
@@ -259,58 +391,23 @@ static void get_feed(const http_req_t *q, http_reply_t *r, bool events)
 		db_error(r);
 }
 
-bool http_route_runs(const http_req_t *q, const char *const *seg, int n, http_reply_t *r)
+void http_get_results(const http_req_t *q, http_reply_t *r)
 {
-	bool get = !strcmp(q->method, "GET"), post = !strcmp(q->method, "POST");
-	long long id;
+	get_feed(q, r, false);
+}
 
-	if (n < 2 || strcmp(seg[0], "v1"))
-		return false;
-	if (n == 2 && (!strcmp(seg[1], "results") || !strcmp(seg[1], "events"))) {
-		if (get)
-			get_feed(q, r, !strcmp(seg[1], "events"));
-		else
-			http_reply_error(r, 405, "method_not_allowed", "use GET");
-		return true;
-	}
-	if (n == 2 && !strcmp(seg[1], "titrants")) {
-		bool db_err;
-		json_t *j = get ? store_titrants_json(q->ctx->store, &db_err) : NULL;
-		if (!get)
-			http_reply_error(r, 405, "method_not_allowed", "use GET");
-		else if (j)
-			http_reply_json(r, 200, j);
-		else
-			db_error(r);
-		return true;
-	}
-	if (strcmp(seg[1], "runs") || n > 4)
-		return false;
-	if (n == 2) {
-		if (post)
-			post_run(q, r);
-		else
-			http_reply_error(r, 405, "method_not_allowed", "use POST");
-		return true;
-	}
-	if (!http_parse_id(seg[2], &id)) {
-		http_reply_error(r, 400, "bad_request", "a run id is a positive integer (got '%s')",
-		                 seg[2]);
-		return true;
-	}
-	if (n == 3 && get)
-		get_run(q, id, r);
-	else if (n == 4 && get && !strcmp(seg[3], "points"))
-		get_points(q, id, r);
-	else if (n == 4 && get && !strcmp(seg[3], "curve.svg"))
-		get_curve(q, id, r);
-	else if (n == 4 && post && !strcmp(seg[3], "abort"))
-		post_abort(q, id, r);
-	else if (n == 3 || !strcmp(seg[3], "points") || !strcmp(seg[3], "curve.svg") ||
-	         !strcmp(seg[3], "abort"))
-		http_reply_error(r, 405, "method_not_allowed", "%s is not allowed on %s", q->method,
-		                 q->path);
+void http_get_events(const http_req_t *q, http_reply_t *r)
+{
+	get_feed(q, r, true);
+}
+
+void http_get_titrants(const http_req_t *q, http_reply_t *r)
+{
+	bool db_err;
+	json_t *j = store_titrants_json(q->ctx->store, &db_err);
+
+	if (j)
+		http_reply_json(r, 200, j);
 	else
-		return false;
-	return true;
+		db_error(r);
 }

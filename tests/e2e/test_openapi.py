@@ -191,6 +191,23 @@ def test_daemon_source_routes_are_in_spec():
         assert ok, f"daemon serves {lit!r}, which docs/openapi.yaml does not describe"
 
 
+def test_route_table_is_the_spec():
+    """The daemon's one route table has exactly the spec's operations, each
+    with the spec's authorization: open where the spec says security [{}],
+    a token always for a write, a token on request (http.read_needs_token)
+    for any other read."""
+    table = {(m.lower(), p): auth for m, p, auth in route_table()}
+    spec = {(m, p): op for p, m, op in operations()}
+    assert len(table) == len(route_table()), "a route is in the table twice"
+    assert set(table) == set(spec), \
+        f"only in the table: {sorted(set(table) - set(spec))}; " \
+        f"only in the spec: {sorted(set(spec) - set(table))}"
+    for (m, p), auth in sorted(table.items()):
+        want = ("OPEN" if spec[m, p].get("security") == [{}]
+                else "WRITE" if is_write(m) else "READ")
+        assert auth == want, f"{m.upper()} {p}: the table says {auth}, the spec {want}"
+
+
 # ------------------------------------------------ the running daemon
 
 
@@ -478,18 +495,49 @@ def test_unknown_route_is_a_json_404(daemon):
     assert check_schema(json.loads(body), {"$ref": "#/components/schemas/Error"}) == []
 
 
+def test_every_spec_path_answers_options_with_its_allow(daemon):
+    """Each spec path, asked with a method no route has (OPTIONS), without a
+    token: 405 method_not_allowed with Allow listing exactly the spec's
+    methods for it (GET bringing HEAD). Each of its spec methods is not a 405
+    and not a "no such route"."""
+    for path, item in SPEC["paths"].items():
+        concrete = re.sub(r"\{[^}]+\}", "1", path)
+        want = {m.upper() for m in METHODS if m in item}
+        if "GET" in want:
+            want.add("HEAD")
+        req = urllib.request.Request(daemon.base + concrete, method="OPTIONS")
+        with pytest.raises(urllib.error.HTTPError) as e:
+            urllib.request.urlopen(req, timeout=10)
+        body = e.value.read()
+        assert e.value.code == 405, f"OPTIONS {concrete}: {e.value.code} {body[:200]!r}"
+        assert json.loads(body)["error"]["code"] == "method_not_allowed"
+        allow = {x.strip() for x in e.value.headers.get("Allow", "").split(",")}
+        assert allow == want, f"OPTIONS {concrete}: Allow {allow}, the spec {want}"
+        for m in want - {"HEAD"}:
+            status, _, rb = daemon.call(m.lower(), concrete, token=False,
+                                        body=None if m == "GET" else b"")
+            msg = json.loads(rb)["error"]["message"] if status >= 400 and rb else ""
+            assert status != 405 and not msg.startswith("no such route"), \
+                f"{m} {concrete}: {status} {msg}"
+
+
+def route_table():
+    """(METHOD, pattern, authorization) for every row of the daemon's route
+    table (daemon/server/http_routes.c)."""
+    text = (ROOT / "daemon" / "server" / "http_routes.c").read_text()
+    rows = re.findall(r'\{\s*"([A-Z]+)",\s*"(/[^"]*)",\s*\w+,\s*HTTP_(OPEN|READ|WRITE)', text)
+    assert rows, "no rows found in daemon/server/http_routes.c; adjust this test"
+    return rows
+
+
 def route_vocabulary():
-    """Per daemon/server/http*.c file: {segment position: words it compares}."""
-    vocab = {}
-    for src in sorted((ROOT / "daemon" / "server").glob("http*.c")):
-        if src.name.startswith("httpc"):
-            continue
-        words = {}
-        for pos, word in re.findall(r'seg\[(\d+)\]\s*,\s*"([^"]+)"', src.read_text()):
-            words.setdefault(int(pos), set()).add(word)
-        if words:
-            vocab[src.name] = words
-    return vocab
+    """{segment position: words} of the route table's literal segments."""
+    words = {}
+    for _, pattern, _ in route_table():
+        for pos, seg in enumerate(s for s in pattern.split("/") if s):
+            if not seg.startswith("{"):
+                words.setdefault(pos, set()).add(seg)
+    return {"http_routes.c": words} if words else {}
 
 
 def spec_match(method, path):
@@ -501,8 +549,8 @@ def spec_match(method, path):
 
 
 def test_every_route_the_daemon_serves_is_in_spec(daemon):
-    """Ask the daemon every path built from the segment words its route code
-    compares (plus ids and names in the other places): whatever it does not
+    """Ask the daemon every path built from the literal segments of its route
+    table (plus ids and names in the other places): whatever it does not
     answer with "no such route" must be in the spec. 405 (a known path, another
     method) needs the path in the spec with some method."""
     import itertools
@@ -512,7 +560,7 @@ def test_every_route_the_daemon_serves_is_in_spec(daemon):
     mid = json.loads(body)["methods"][0]["id"]
     fillers = ["1", "999999", station, mid]
     vocab = route_vocabulary()
-    assert vocab, "no segment words found in daemon/server/http*.c; adjust this test"
+    assert vocab, "no segment words found in daemon/server/http_routes.c; adjust this test"
     served = 0
     for fname, words in vocab.items():
         top = max(words)
@@ -537,9 +585,8 @@ def test_every_route_the_daemon_serves_is_in_spec(daemon):
                     # "no such file": /www with no file name, or a file not there.
                     if status == 404 and msg.startswith(("no such route", "no such file")):
                         continue
-                    # The daemon checks a path's id segment before the rest of the
-                    # path, so /v1/runs/x/anything is a 400 about the id: that
-                    # tells nothing about a route.
+                    # A route's id that is not a number (/v1/runs/x/points) is a
+                    # 400 about the id: the same route was asked with a number.
                     if status == 400 and "id is a positive integer" in msg:
                         continue
                     # 405: a known path, another method. 400: the daemon checks an

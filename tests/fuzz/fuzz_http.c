@@ -7,8 +7,8 @@
  * route code, not the HTTP parser, sees the bytes), then the body. A leading
  * '!' sends no token, '?' a wrong one; otherwise the valid token goes along.
  * The reply must be a complete HTTP response with a JSON error body when
- * the status is 4xx. The http_route_* functions need a live MHD connection
- * for query arguments, so they are reached through a socket, not called. */
+ * the status is 4xx. The route handlers need a live MHD connection for
+ * query arguments, so they are reached through a socket, not called. */
 #include <arpa/inet.h>
 #include <errno.h>
 #include <netinet/in.h>
