@@ -63,7 +63,7 @@ INC_cli := $(INC_core) -Idrivers -Idaemon/cli
 INC_sim := $(INC_chem) -Idrivers -Idaemon/sim
 INC_server := $(INC_core) -Idrivers -Idaemon/store -Idaemon/server
 # Tests, benchmarks and fuzz targets reach every layer.
-INC_tests := $(INC_server) -Idaemon/cli -Idaemon/sim -Itests/unit -Itests/bench
+INC_tests := $(INC_server) -Idaemon/cli -Idaemon/sim -Itests/unit -Itests/speed
 layer_of = $(if $(filter drivers/%,$(1)),drivers,$(if $(filter tests/%,$(1)),tests,$(word 2,$(subst /, ,$(1)))))
 inc_for = $(INC_$(call layer_of,$(1)))
 
@@ -71,7 +71,7 @@ MAIN_SRC := daemon/server/stopcockd.c daemon/cli/stopcock.c daemon/sim/stopcock_
 LIB_SRC = $(filter-out $(MAIN_SRC),$(sort $(foreach l,$(LAYERS),$(wildcard daemon/$(l)/*.c)) \
 	$(wildcard drivers/*.c)))
 UNIT_SRC = $(sort $(wildcard tests/unit/*.c))
-BENCH_SRC = $(sort $(wildcard tests/bench/*.c))
+SPEED_SRC = $(sort $(wildcard tests/speed/*.c))
 
 REL := $(BUILD)/rel
 SAN := $(BUILD)/san
@@ -135,7 +135,7 @@ $(SAN)/unit_tests: $(call san_obj,$(UNIT_SRC)) $(SAN)/libstopcock.a
 $(REL)/unit_tests: $(call rel_obj,$(UNIT_SRC)) $(REL)/libstopcock.a
 	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
 
-$(REL)/bench: $(call rel_obj,$(BENCH_SRC)) $(REL)/libstopcock.a
+$(REL)/speed: $(call rel_obj,$(SPEED_SRC)) $(REL)/libstopcock.a
 	$(CC) $(REL_CFLAGS) $^ -o $@ $(LDLIBS)
 
 # ---- Debian packages ----
@@ -183,7 +183,7 @@ unit: $(SAN)/unit_tests
 pytest: all san
 	STOPCOCK_BUILD=$(abspath $(BUILD)) $(PYTHON) -m pytest -q -p no:cacheprovider $(if $(T),$(T),tests)
 
-# ---- demo and benchmarks ----
+# ---- demo and speed figures ----
 demo: deps
 	@$(MAKE) --no-print-directory all
 	@bash tests/e2e/demo.sh $(abspath $(BUILD))
@@ -191,9 +191,9 @@ demo: deps
 bench: deps
 	@$(MAKE) --no-print-directory bench-run
 
-bench-run: all $(REL)/bench
-	$(REL)/bench
-	@if [ -f tests/bench/bench_http.sh ]; then bash tests/bench/bench_http.sh $(abspath $(BUILD)); fi
+bench-run: all $(REL)/speed
+	$(REL)/speed
+	@if [ -f tests/speed/speed_http.sh ]; then bash tests/speed/speed_http.sh $(abspath $(BUILD)); fi
 
 # ---- fuzzing: libFuzzer targets tests/fuzz/fuzz_*.c (clang, ASan+UBSan) ----
 # `make fuzz FUZZ_SECONDS=N` replays tests/fuzz/regress/<target>/, then fuzzes
@@ -261,7 +261,7 @@ uninstall:
 
 # ---- code hygiene: all three run inside `make check` ----
 C_FILES = $(sort $(foreach l,$(LAYERS),$(wildcard daemon/$(l)/*.[ch])) $(wildcard drivers/*.[ch]) \
-	$(wildcard tests/unit/*.[ch] tests/bench/*.[ch] tests/fuzz/*.c))
+	$(wildcard tests/unit/*.[ch] tests/speed/*.[ch] tests/fuzz/*.c))
 
 format:
 	clang-format -i $(C_FILES)
@@ -277,7 +277,7 @@ format-check:
 lint:
 	cppcheck --quiet --error-exitcode=1 --enable=warning,performance,portability \
 	  --inline-suppr --std=c11 --library=tests/lint/jansson.cfg $(INC_tests) \
-	  $(foreach l,$(LAYERS),daemon/$(l)) drivers tests/unit tests/bench tests/fuzz
+	  $(foreach l,$(LAYERS),daemon/$(l)) drivers tests/unit tests/speed tests/fuzz
 	@echo "lint: cppcheck clean on $(words $(C_FILES)) files"
 
 layers:

@@ -9,8 +9,8 @@ import subprocess
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
-METHOD = str(ROOT / "tests/bench/methods/weak.yaml")
-SCENARIO = str(ROOT / "tests/bench/scenarios/weak.yaml")
+METHOD = str(ROOT / "tests/speed/methods/weak.yaml")
+SCENARIO = str(ROOT / "tests/speed/scenarios/weak.yaml")
 
 
 def stopcock():

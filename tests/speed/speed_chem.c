@@ -1,7 +1,7 @@
-/* bench_chem.c: time per chem_solve (the simulator solves once per addition,
+/* speed_chem.c: time per chem_solve (the simulator solves once per addition,
  * `stopcock predict` and model-based evaluation many times per run).
  * Target: microseconds a solve (issue 2); printed as met / NOT met. */
-#include "bench.h"
+#include "speed.h"
 
 #include <stdio.h>
 #include <stdlib.h>
@@ -40,7 +40,7 @@ static void run(const char *label, const chem_scenario_t *s, double v_max_ml)
 	double us[BATCHES], sink = 0.0;
 	long iters = 0, solves = 0;
 	for (int b = 0; b < BATCHES; b++) {
-		double t0 = bench_cpu_s();
+		double t0 = speed_cpu_s();
 		for (int i = 0; i < BATCH; i++) {
 			chem_state_t st;
 			chem_solve(s, v_max_ml * (double)i / (BATCH - 1), &st);
@@ -48,7 +48,7 @@ static void run(const char *label, const chem_scenario_t *s, double v_max_ml)
 			iters += st.iterations;
 			solves++;
 		}
-		us[b] = (bench_cpu_s() - t0) / BATCH * 1e6;
+		us[b] = (speed_cpu_s() - t0) / BATCH * 1e6;
 	}
 	qsort(us, BATCHES, sizeof us[0], cmp_double);
 	printf("  %-34s median %6.2f us/solve (min %6.2f, max %6.2f), %.1f charge-balance "
@@ -57,7 +57,7 @@ static void run(const char *label, const chem_scenario_t *s, double v_max_ml)
 	       us[BATCHES / 2] <= TARGET_US ? "met" : "NOT met", sink == 0.0 ? " " : "");
 }
 
-BENCH(chem_solve)
+SPEED(chem_solve)
 {
 	chem_scenario_t s;
 	double h3po4[3] = {2.148, 7.198, 12.35}, citric[3] = {3.128, 4.761, 6.396};

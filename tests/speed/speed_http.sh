@@ -4,27 +4,27 @@
 # the run's scheduling jitter (how late the station thread woke for the
 # engine's reading times, i.e. when additions go out) with and without that
 # load. Targets: >= 10000 req/s, p99 <= 10 ms on 2 cores, jitter <= 5 ms.
-# Usage: bash tests/bench/bench_http.sh BUILD_DIR
+# Usage: bash tests/speed/speed_http.sh BUILD_DIR
 set -euo pipefail
 
-BUILD=${1:?usage: bench_http.sh BUILD_DIR}
+BUILD=${1:?usage: speed_http.sh BUILD_DIR}
 ROOT=$(cd "$(dirname "$0")/../.." && pwd)
 BIN="$BUILD/bin"
 WRK_S=${WRK_S:-5}      # seconds per wrk run
 WRK_CONNS=${WRK_CONNS:-"8 64"} # connection counts, one wrk run each
-TMP=$(mktemp -d /tmp/stopcock-bench-XXXXXX)
+TMP=$(mktemp -d /tmp/stopcock-speed-XXXXXX)
 SIM_PID=""
 D_PID=""
 
 cleanup() {
 	[ -n "$D_PID" ] && kill "$D_PID" 2>/dev/null && wait "$D_PID" 2>/dev/null || true
 	[ -n "$SIM_PID" ] && kill "$SIM_PID" 2>/dev/null && wait "$SIM_PID" 2>/dev/null || true
-	if [ -n "${KEEP_TMP:-}" ]; then echo "bench_http: kept $TMP"; else rm -rf "$TMP"; fi
+	if [ -n "${KEEP_TMP:-}" ]; then echo "speed_http: kept $TMP"; else rm -rf "$TMP"; fi
 }
 trap cleanup EXIT
 
 for t in wrk curl; do
-	command -v $t >/dev/null || { echo "bench_http: $t is missing (make deps installs it)"; exit 1; }
+	command -v $t >/dev/null || { echo "speed_http: $t is missing (make deps installs it)"; exit 1; }
 done
 
 free_port() { /usr/bin/python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
@@ -36,11 +36,11 @@ URL="http://127.0.0.1:$PORT"
 	--state-dir "$TMP/state" --listen "127.0.0.1:$PORT" >"$TMP/sim.out" 2>"$TMP/sim.log" &
 SIM_PID=$!
 for _ in $(seq 100); do grep -q ready "$TMP/sim.out" 2>/dev/null && break; sleep 0.1; done
-grep -q ready "$TMP/sim.out" || { echo "bench_http: the simulator did not start"; cat "$TMP/sim.log"; exit 1; }
+grep -q ready "$TMP/sim.out" || { echo "speed_http: the simulator did not start"; cat "$TMP/sim.log"; exit 1; }
 TOKEN=$(cut -d: -f2 "$TMP/token")
 # wrk opens all its connections from one address: lift http.max_per_ip (32).
 sed -i 's/^  read_needs_token: false$/&\n  max_per_ip: 0/' "$TMP/stopcockd.yaml"
-grep -q "^  max_per_ip: 0" "$TMP/stopcockd.yaml" || { echo "bench_http: cannot set max_per_ip"; exit 1; }
+grep -q "^  max_per_ip: 0" "$TMP/stopcockd.yaml" || { echo "speed_http: cannot set max_per_ip"; exit 1; }
 
 start_daemon() {
 	"$BIN/stopcockd" -c "$TMP/stopcockd.yaml" >>"$TMP/daemon.log" 2>&1 &
@@ -49,7 +49,7 @@ start_daemon() {
 		curl -sf "$URL/v1/stations" 2>/dev/null | grep -q '"state":"idle"' && return 0
 		sleep 0.1
 	done
-	echo "bench_http: stopcockd did not come up"; tail "$TMP/daemon.log"; exit 1
+	echo "speed_http: stopcockd did not come up"; tail "$TMP/daemon.log"; exit 1
 }
 
 stop_daemon() { kill "$D_PID"; wait "$D_PID" || true; D_PID=""; }
@@ -59,7 +59,7 @@ sim_ctl() { /usr/bin/python3 -c 'import socket,sys; s=socket.socket(socket.AF_UN
 start_run() {
 	sim_ctl "load $ROOT/tests/data/daemon/wash-acid.yaml" >/dev/null
 	curl -sf -H "Authorization: Bearer $TOKEN" -X POST "$URL/v1/runs" \
-		-d "{\"station\":\"sim1\",\"method\":\"wash-acid-mv\",\"sample_id\":\"BENCH-$1\",\"amount\":10}" |
+		-d "{\"station\":\"sim1\",\"method\":\"wash-acid-mv\",\"sample_id\":\"SPEED-$1\",\"amount\":10}" |
 		sed -n 's/.*"id":\([0-9]*\).*/\1/p'
 }
 

@@ -1,4 +1,4 @@
-/* bench_engine.c: the engine against the simulated beaker, a panel of
+/* speed_engine.c: the engine against the simulated beaker, a panel of
  * scenarios, each run with adaptive dosing and with constant 0.02 mL
  * additions. Prints one row per run and a summary line, each figure beside
  * its target (met / NOT met). The targets are the project's (issue 4):
@@ -17,7 +17,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "bench.h"
+#include "speed.h"
 #include "chem.h"
 #include "scenario.h"
 #include "diag.h"
@@ -185,7 +185,7 @@ static const char *met(bool ok)
 	return ok ? "met" : "NOT met";
 }
 
-BENCH(engine_panel)
+SPEED(engine_panel)
 {
 	printf("%-12s %-8s %9s %-10s %8s %5s %6s %8s %8s %8s  %s\n", "scenario", "dosing", "err_%",
 	       "how", "deriv_%", "adds", "adds/e", "sim_s", "sim_s/e", "cpu_us/p", "stop");
@@ -194,8 +194,8 @@ BENCH(engine_panel)
 	int n_ok = 0;
 	for (int i = 0; i < N_SCN; i++) {
 		char mp[256], sp[256];
-		snprintf(mp, sizeof mp, "tests/bench/methods/%s.yaml", scenarios[i]);
-		snprintf(sp, sizeof sp, "tests/bench/scenarios/%s.yaml", scenarios[i]);
+		snprintf(mp, sizeof mp, "tests/speed/methods/%s.yaml", scenarios[i]);
+		snprintf(sp, sizeof sp, "tests/speed/scenarios/%s.yaml", scenarios[i]);
 		method_t m;
 		chem_scenario_t s;
 		diag_list_t d = DIAG_LIST_INIT;

@@ -1,4 +1,4 @@
-/* bench_client.c: the curve SVG renderer and the HTTP client's request cost.
+/* speed_client.c: the curve SVG renderer and the HTTP client's request cost.
  *
  * Target (our own): the curve of a long run (2000 points) renders in under
  * 5 ms, so GET /v1/runs/{id}/curve.svg stays cheap even when a LIMS fetches
@@ -15,13 +15,13 @@
 #include <sys/socket.h>
 #include <unistd.h>
 
-#include "bench.h"
+#include "speed.h"
 #include "httpc.h"
 #include "svg.h"
 
 #define SVG_TARGET_MS 5.0
 
-BENCH(svg_curve_2000_points)
+SPEED(svg_curve_2000_points)
 {
 	enum { N = 2000, REPS = 50 };
 	svg_point_t *pts = malloc(N * sizeof *pts);
@@ -36,13 +36,13 @@ BENCH(svg_curve_2000_points)
 	svg_endpoint_t ep = {8.0, 6.0, NULL};
 	svg_opts_t o = {.title = "Orchard Lane Cider, long run", .signal_unit = "pH"};
 	size_t bytes = 0;
-	double t0 = bench_cpu_s();
+	double t0 = speed_cpu_s();
 	for (int r = 0; r < REPS; r++) {
 		char *s = svg_curve(pts, N, &ep, 1, &o);
 		bytes = s ? strlen(s) : 0;
 		free(s);
 	}
-	double ms = (bench_cpu_s() - t0) / REPS * 1e3;
+	double ms = (speed_cpu_s() - t0) / REPS * 1e3;
 	printf("  svg_curve, %d points: %.2f ms CPU per render, %zu bytes (target < %.0f ms: %s)\n",
 	       N, ms, bytes, SVG_TARGET_MS, ms < SVG_TARGET_MS ? "met" : "NOT met");
 	free(pts);
@@ -79,7 +79,7 @@ static void *canned_main(void *arg)
 	return NULL;
 }
 
-BENCH(httpc_loopback_request)
+SPEED(httpc_loopback_request)
 {
 	enum { REQS = 500 };
 	canned_t c = {.lfd = socket(AF_INET, SOCK_STREAM | SOCK_CLOEXEC, 0), .n = REQS};
@@ -96,14 +96,14 @@ BENCH(httpc_loopback_request)
 	snprintf(url, sizeof url, "http://127.0.0.1:%d", ntohs(a.sin_port));
 	httpc_req_t req = {.method = "GET", .path = "/v1/health", .timeout_ms = 2000};
 	int ok = 0;
-	double t0 = bench_wall_s();
+	double t0 = speed_wall_s();
 	for (int i = 0; i < REQS; i++) {
 		httpc_resp_t r;
 		if (httpc_request(url, &req, &r, err, sizeof err) == HTTPC_OK && r.status == 200)
 			ok++;
 		httpc_resp_free(&r);
 	}
-	double us = (bench_wall_s() - t0) / REQS * 1e6;
+	double us = (speed_wall_s() - t0) / REQS * 1e6;
 	pthread_join(th, NULL);
 	close(c.lfd);
 	printf("  httpc: %d/%d loopback requests, %.0f us each (connect, send, receive, close)\n",

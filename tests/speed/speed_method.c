@@ -1,4 +1,4 @@
-/* bench_method.c: how long method files take to read (the daemon reads every
+/* speed_method.c: how long method files take to read (the daemon reads every
  * file of methods_dir at start and on SIGHUP, and each PUT), formula
  * evaluation (once per result per run) and SHA-256 throughput. Targets are
  * our own: a method in under 1 ms, so reloading 100 methods is instant. */
@@ -6,7 +6,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-#include "bench.h"
+#include "speed.h"
 #include "formula.h"
 #include "method.h"
 #include "digest.h"
@@ -31,7 +31,7 @@ static char *slurp(const char *path, size_t *len)
 	return buf;
 }
 
-BENCH(method_parse)
+SPEED(method_parse)
 {
 	size_t len = 0;
 	char *text = slurp("config/methods/phosphate-two-endpoints.yaml", &len);
@@ -44,13 +44,13 @@ BENCH(method_parse)
 		free(m);
 		return;
 	}
-	t0 = bench_cpu_s();
+	t0 = speed_cpu_s();
 	for (int i = 0; i < rounds; i++) {
 		diag_list_t d = DIAG_LIST_INIT;
 		bad += method_parse("phosphate-two-endpoints.yaml", text, len, NULL, m, &d) != 0;
 		diag_free(&d);
 	}
-	us = (bench_cpu_s() - t0) / rounds * 1e6;
+	us = (speed_cpu_s() - t0) / rounds * 1e6;
 	printf("method_parse (%zu-byte method, 3 formulas): %.1f us per file (target < 1000 us: "
 	       "%s)%s\n",
 	       len, us, us < 1000 ? "met" : "NOT met", bad ? " [PARSE FAILED]" : "");
@@ -62,7 +62,7 @@ BENCH(method_parse)
  * limit): reading it must stay linear in its keys, because the daemon reads
  * such a body on an HTTP worker (PUT /v1/methods, POST .../check). Target
  * our own: under 50 ms. */
-BENCH(method_many_unknown_keys)
+SPEED(method_many_unknown_keys)
 {
 	enum { KEYS = 20000 };
 	size_t base_len = 0, cap, len;
@@ -86,9 +86,9 @@ BENCH(method_many_unknown_keys)
 	for (int round = 0; round < 5; round++) {
 		double one;
 		diag_free(&d);
-		t0 = bench_cpu_s();
+		t0 = speed_cpu_s();
 		rc = method_parse("many-keys.yaml", text, len, NULL, m, &d);
-		one = (bench_cpu_s() - t0) * 1e3;
+		one = (speed_cpu_s() - t0) * 1e3;
 		ms = round == 0 || one < ms ? one : ms;
 	}
 	printf("method_parse (%zu-byte method, %d unknown keys): %.1f ms, %zu errors (target < 50 "
@@ -102,7 +102,7 @@ out:
 	free(m);
 }
 
-BENCH(formula_eval)
+SPEED(formula_eval)
 {
 	formula_t f;
 	formula_vars_t fv = {0};
@@ -118,18 +118,18 @@ BENCH(formula_eval)
 	formula_vars_set(&fv, FV_TITRANT_MOLARITY, 0.02);
 	formula_vars_set(&fv, FV_TITER, 1.0);
 	formula_vars_set(&fv, FV_AMOUNT, 100.0);
-	t0 = bench_cpu_s();
+	t0 = speed_cpu_s();
 	for (int i = 0; i < rounds; i++) {
 		formula_vars_set(&fv, FV_END_ML, 3.10 + i * 1e-9);
 		formula_eval(&f, &fv, &out, msg, sizeof msg);
 		sum += out;
 	}
-	ns = (bench_cpu_s() - t0) / rounds * 1e9;
+	ns = (speed_cpu_s() - t0) / rounds * 1e9;
 	printf("formula_eval (%d ops): %.0f ns per evaluation (checksum %.3f)\n", f.n, ns,
 	       sum / rounds);
 }
 
-BENCH(sha256)
+SPEED(sha256)
 {
 	size_t len = 4 << 20;
 	char *buf = malloc(len), hex[65];
@@ -137,9 +137,9 @@ BENCH(sha256)
 	if (!buf)
 		return;
 	memset(buf, 'x', len);
-	t0 = bench_cpu_s();
+	t0 = speed_cpu_s();
 	digest_sha256_hex(buf, len, hex);
-	s = bench_cpu_s() - t0;
+	s = speed_cpu_s() - t0;
 	printf("sha256: %.0f MB/s (4 MiB in %.1f ms; a 256 KiB method in %.2f ms)\n", len / s / 1e6,
 	       s * 1e3, s * 1e3 / 16);
 	free(buf);
