@@ -332,6 +332,32 @@ int client_json_quiet(client_t *c, const char *method, const char *path, json_t 
 	return call_json(c, method, path, NULL, false, out, status, true, err, err_len);
 }
 
+int client_parse_bare(client_t *c, int argc, char **argv, const char *usage)
+{
+	int pos, early = client_parse(c, argc, argv, usage, NULL, &pos);
+	if (early >= 0)
+		return early;
+	if (pos < argc)
+		return client_usage(c, usage, "unexpected argument '%s'", argv[pos]);
+	return -1;
+}
+
+json_t *client_get_list(client_t *c, const char *path, const char *key, const char *what,
+                        json_t **doc, int *rc)
+{
+	*doc = NULL;
+	*rc = client_json(c, "GET", path, NULL, false, doc, NULL);
+	if (*rc)
+		return NULL;
+	json_t *list = json_is_array(*doc) ? *doc : json_object_get(*doc, key);
+	if (!json_is_array(list)) {
+		client_say(c, "stopcockd's %s list is not a list", what);
+		*rc = -1;
+		return NULL;
+	}
+	return list;
+}
+
 int client_raw(client_t *c, const char *method, const char *path, httpc_resp_t *resp, int *status)
 {
 	return call(c, method, path, NULL, false, resp, status, false, NULL, 0);

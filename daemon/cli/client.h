@@ -82,6 +82,18 @@ char *client_read_token(const char *path, char *err, size_t err_len);
 int client_json(client_t *c, const char *method, const char *path, json_t *body, bool write,
                 json_t **out, int *status);
 
+/* A command that takes only the common options: client_parse, then a
+ * usage error for any positional argument. Returns -1 to go on, else the
+ * exit status, as client_parse does. */
+int client_parse_bare(client_t *c, int argc, char **argv, const char *usage);
+
+/* GET a list: the array under `key` of the reply, or the reply itself when
+ * it is a bare array. Returns it (borrowed from *doc, which the caller
+ * frees), or NULL with *rc -1 after saying what went wrong ("stopcockd's
+ * WHAT list is not a list"). */
+json_t *client_get_list(client_t *c, const char *path, const char *key, const char *what,
+                        json_t **doc, int *rc);
+
 /* The same for a non-JSON reply (CSV, SVG): *resp holds the body on 0. */
 int client_raw(client_t *c, const char *method, const char *path, httpc_resp_t *resp, int *status);
 

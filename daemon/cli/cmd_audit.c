@@ -24,19 +24,14 @@ int cmd_titrants(int argc, char **argv)
 	static const char usage[] = "titrants";
 	client_t c;
 	client_init(&c, "titrants");
-	int pos, early = client_parse(&c, argc, argv, usage, NULL, &pos);
+	int early = client_parse_bare(&c, argc, argv, usage);
 	if (early >= 0)
 		return early;
-	if (pos < argc)
-		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
-	json_t *j = NULL;
-	int rc = client_json(&c, "GET", "/v1/titrants", NULL, false, &j, NULL);
-	if (rc == 0) {
-		json_t *list = json_object_get(j, "titrants");
-		if (!json_is_array(list)) {
-			client_say(&c, "stopcockd's titrant list is not a list");
-			rc = -1;
-		} else if (json_array_size(list) == 0) {
+	json_t *j;
+	int rc;
+	json_t *list = client_get_list(&c, "/v1/titrants", "titrants", "titrant", &j, &rc);
+	if (list) {
+		if (json_array_size(list) == 0) {
 			printf("no titer stored yet: run a standardization method\n");
 		} else {
 			printf("%-24s %10s %8s %4s %8s  %-20s %s\n", "TITRANT", "MOL/L", "TITER",
@@ -94,60 +89,53 @@ int cmd_events(int argc, char **argv)
 		return client_usage(&c, usage, "--limit must be 1 to 1000 (got '%s')", limit_s);
 	char path[96];
 	snprintf(path, sizeof path, "/v1/events?after=%lld&limit=%lld", after, limit);
-	json_t *j = NULL;
-	int rc = client_json(&c, "GET", path, NULL, false, &j, NULL);
-	if (rc == 0) {
-		json_t *list = json_object_get(j, "events");
-		if (!json_is_array(list)) {
-			client_say(&c, "stopcockd's event list is not a list");
-			rc = -1;
-		} else {
-			/* Columns as wide as their widest entry, so long event names
-			 * ("standardization replicate") never push a row out of line. */
-			int w_at = 2, w_actor = 5, w_what = 5, w_station = 7, w_run = 3;
-			size_t i;
-			json_t *e;
-			for (int pass = 0; pass < 2; pass++) {
-				if (pass == 1)
-					printf("%6s  %-*s  %-*s  %-*s  %-*s  %-*s  %s\n", "SEQ",
-					       w_at, "AT", w_actor, "ACTOR", w_what, "EVENT",
-					       w_station, "STATION", w_run, "RUN", "MESSAGE");
-				json_array_foreach(list, i, e)
-				{
-					const json_t *id = json_object_get(e, "id"),
-					             *run = json_object_get(e, "run_id");
-					const char *at = client_str(e, "at", "-"),
-					           *actor = client_str(e, "actor", "-"),
-					           *station = client_str(e, "station", "-");
-					char what[64], runs[24] = "-";
-					snprintf(what, sizeof what, "%s %s",
-					         client_str(e, "kind", "?"),
-					         client_str(e, "code", ""));
-					if (json_is_integer(run))
-						snprintf(runs, sizeof runs, "%lld",
-						         (long long)json_integer_value(run));
-					if (pass == 0) {
-						widen(&w_at, at);
-						widen(&w_actor, actor);
-						widen(&w_what, what);
-						widen(&w_station, station);
-						widen(&w_run, runs);
-						continue;
-					}
-					printf("%6lld  %-*s  %-*s  %-*s  %-*s  %-*s  %s\n",
-					       json_is_integer(id)
-					           ? (long long)json_integer_value(id)
-					           : 0LL,
-					       w_at, at, w_actor, actor, w_what, what, w_station,
-					       station, w_run, runs, client_str(e, "message", ""));
+	json_t *j;
+	int rc;
+	json_t *list = client_get_list(&c, path, "events", "event", &j, &rc);
+	if (list) {
+		/* Columns as wide as their widest entry, so long event names
+		 * ("standardization replicate") never push a row out of line. */
+		int w_at = 2, w_actor = 5, w_what = 5, w_station = 7, w_run = 3;
+		size_t i;
+		json_t *e;
+		for (int pass = 0; pass < 2; pass++) {
+			if (pass == 1)
+				printf("%6s  %-*s  %-*s  %-*s  %-*s  %-*s  %s\n", "SEQ", w_at, "AT",
+				       w_actor, "ACTOR", w_what, "EVENT", w_station, "STATION",
+				       w_run, "RUN", "MESSAGE");
+			json_array_foreach(list, i, e)
+			{
+				const json_t *id = json_object_get(e, "id"),
+				             *run = json_object_get(e, "run_id");
+				const char *at = client_str(e, "at", "-"),
+				           *actor = client_str(e, "actor", "-"),
+				           *station = client_str(e, "station", "-");
+				char what[64], runs[24] = "-";
+				snprintf(what, sizeof what, "%s %s", client_str(e, "kind", "?"),
+				         client_str(e, "code", ""));
+				if (json_is_integer(run))
+					snprintf(runs, sizeof runs, "%lld",
+					         (long long)json_integer_value(run));
+				if (pass == 0) {
+					widen(&w_at, at);
+					widen(&w_actor, actor);
+					widen(&w_what, what);
+					widen(&w_station, station);
+					widen(&w_run, runs);
+					continue;
 				}
+				printf("%6lld  %-*s  %-*s  %-*s  %-*s  %-*s  %s\n",
+				       json_is_integer(id) ? (long long)json_integer_value(id)
+				                           : 0LL,
+				       w_at, at, w_actor, actor, w_what, what, w_station, station,
+				       w_run, runs, client_str(e, "message", ""));
 			}
-			const json_t *next = json_object_get(j, "next_after");
-			if (json_is_integer(next))
-				/* on stderr, so the table on stdout stays a table */
-				fprintf(stderr, "next: stopcock events --after %lld\n",
-				        (long long)json_integer_value(next));
 		}
+		const json_t *next = json_object_get(j, "next_after");
+		if (json_is_integer(next))
+			/* on stderr, so the table on stdout stays a table */
+			fprintf(stderr, "next: stopcock events --after %lld\n",
+			        (long long)json_integer_value(next));
 	}
 	json_decref(j);
 	return client_exit(&c, rc);

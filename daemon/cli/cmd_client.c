@@ -131,20 +131,14 @@ int cmd_status(int argc, char **argv)
 	static const char usage[] = "status";
 	client_t c;
 	client_init(&c, "status");
-	int pos, early = client_parse(&c, argc, argv, usage, NULL, &pos);
+	int early = client_parse_bare(&c, argc, argv, usage);
 	if (early >= 0)
 		return early;
-	if (pos < argc)
-		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
-	json_t *j = NULL;
-	int rc = client_json(&c, "GET", "/v1/stations", NULL, false, &j, NULL);
-	if (rc == 0) {
-		/* A bare list, or {"stations": [...]} */
-		json_t *list = json_is_array(j) ? j : json_object_get(j, "stations");
-		if (!json_is_array(list)) {
-			client_say(&c, "stopcockd's station list is not a list");
-			rc = -1;
-		} else if (json_array_size(list) == 0) {
+	json_t *j;
+	int rc;
+	json_t *list = client_get_list(&c, "/v1/stations", "stations", "station", &j, &rc);
+	if (list) {
+		if (json_array_size(list) == 0) {
 			printf("no stations configured\n");
 		} else {
 			printf("%-10s %-11s %-10s %6s %8s %-8s %6s  %10s  %-19s %s\n", "STATION",
