@@ -33,6 +33,8 @@ typedef struct record_endpoint {
 	/* additions to the record of docs/lims.md: both evaluations side by side */
 	double derivative_ml; /* first-derivative / target / Gran volume; NaN -> null */
 	double model_ml;      /* model-fit volume; NaN -> null */
+	int criterion;        /* 1-based detect criterion that gave it */
+	bool fallback;        /* found at the criterion's fallback signal */
 } record_endpoint_t;
 
 typedef struct record_result {
@@ -43,6 +45,7 @@ typedef struct record_result {
 	char unit[32];
 	char accept[8]; /* "pass", "low", "high", "none" */
 	char note[160]; /* "" -> no "note" key */
+	bool fallback;  /* its formula reads an endpoint found at a fallback signal */
 } record_result_t;
 
 typedef struct record_fault {
