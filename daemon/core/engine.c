@@ -346,7 +346,7 @@ static int seek(engine_t *e, const method_t *view, int ci, double from_ml, int d
 	const method_criterion_t *cr = &e->crits[ci];
 	if (cr->has_fallback && cr->kind != DETECT_TARGET) {
 		method_criterion_t fc = *cr;
-		engine_endpoint_t fb;
+		engine_endpoint_t fb = {0};
 		fc.kind = DETECT_TARGET;
 		fc.has_target = true;
 		fc.target = cr->fallback;

@@ -678,7 +678,7 @@ static void parse_detect(mp_ctx_t *c, const yt_node_t *root)
 		bool bad = false;
 		for (size_t i = 0; i < s->n; i++) {
 			memset(&fl[n], 0, sizeof fl[n]);
-			snprintf(fl[n].path, sizeof fl[n].path, "detect[%zu]", i + 1);
+			snprintf(fl[n].path, sizeof fl[n].path, "detect[%d]", n + 1);
 			m->criteria[n] = cr;
 			if (!yt_want_map(c->doc, s->items[i], fl[n].path, c->d)) {
 				bad = true;
