@@ -67,7 +67,7 @@ struct engine {
 	engine_point_t *seg; /* scratch: the points past seg_from_ml */
 	int cap_seg;
 	method_criterion_t crits[METHOD_MAX_ENDPOINTS];
-	char detail[256]; /* engine_stop_detail */
+	char detail[400]; /* engine_stop_detail */
 
 	int n_res;
 	engine_result_t res[METHOD_MAX_RESULTS];

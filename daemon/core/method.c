@@ -601,7 +601,15 @@ static void check_order(mp_ctx_t *c)
 			snprintf(path, sizeof path, "detect[%d]", i + 1);
 		else
 			snprintf(path, sizeof path, "detect");
-		if (prev < 0 && limit && v != m->signal_limit) {
+		if (limit && v == m->signal_limit) {
+			yt_error(
+			    c->doc, node, c->d,
+			    "%s.%s (%g %s) must differ from stop.signal_limit (%g %s): the run "
+			    "would stop on reaching it",
+			    path, what, v, u, m->signal_limit, u);
+			return;
+		}
+		if (prev < 0 && limit) {
 			dir = m->signal_limit > v ? 1 : -1;
 			dir_from = "toward stop.signal_limit";
 		}

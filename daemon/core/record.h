@@ -98,7 +98,7 @@ typedef struct run_record {
 	int additions;
 	double dispensed_ml;
 	char stop_reason[24];  /* a code of record_stop_codes (docs/lims.md); "" -> null */
-	char stop_detail[256]; /* the same in words, for a person; "" -> null */
+	char stop_detail[512]; /* the same in words, for a person; "" -> null */
 	int n_faults;
 	record_fault_t faults[RECORD_MAX_FAULTS];
 
