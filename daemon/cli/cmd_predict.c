@@ -67,6 +67,9 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 		if (isfinite(ep->u_volume_ml))
 			printf(" (u %.4f mL)", ep->u_volume_ml);
 		printf(" by %s", ep->how);
+		if (ep->fallback)
+			printf(" (fallback of detect criterion %d: no inflection before it)",
+			       ep->criterion);
 		if (strcmp(ep->how, "model") == 0)
 			printf(" (derivative %.4f mL)", ep->deriv_ml);
 		else if (isfinite(ep->model_ml))
@@ -82,8 +85,9 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 	for (int i = 0; i < engine_n_results(e); i++) {
 		const engine_result_t *r = engine_result(e, i);
 		if (r->has_value)
-			printf("result %s: %.*f%s%s (%s)\n", r->name, r->decimals, r->value,
-			       r->unit[0] ? " " : "", r->unit, engine_accept_name(r->accept));
+			printf("result %s: %.*f%s%s (%s)%s\n", r->name, r->decimals, r->value,
+			       r->unit[0] ? " " : "", r->unit, engine_accept_name(r->accept),
+			       r->from_fallback ? " from a fallback endpoint" : "");
 		else
 			printf("result %s: none (%s)\n", r->name, r->note);
 	}

@@ -91,6 +91,11 @@ static void print_record(const json_t *r)
 		       client_fmt(b4, sizeof b4, client_num(e, "mv"), 1),
 		       client_fmt(b2, sizeof b2, client_num(e, "half_ph"), 2),
 		       client_str(e, "how", "-"));
+		if (json_is_true(json_object_get(e, "fallback")))
+			printf(
+			    "      (at the fallback signal of detect criterion %lld: no inflection "
+			    "before it)\n",
+			    (long long)json_integer_value(json_object_get(e, "criterion")));
 	}
 	json_t *res = json_object_get(r, "results");
 	if (json_array_size(res))

@@ -27,7 +27,10 @@ typedef enum {
 } state_t;
 
 struct engine {
+	/* The method as the criterion now sought sees it (method_for_criterion):
+	 * for one detect mapping, the method itself. */
 	method_t m;
+	method_t full; /* the method as written */
 	engine_params_t p;
 	state_t st;
 	engine_action_t last; /* answer repeated for an unexpected event */
@@ -54,8 +57,17 @@ struct engine {
 	int n_ep;
 	engine_endpoint_t ep[METHOD_MAX_ENDPOINTS];
 	bool all_found;
-	bool target_recheck;  /* a target point was read again once */
+	bool target_recheck;  /* a target point was read again once (per criterion) */
 	double stop_after_ml; /* once all endpoints are found: dose up to here */
+
+	/* endpoints in sequence: detect's criteria, met in turn */
+	int n_crit, crit;    /* how many; the one sought now */
+	int n_done;          /* endpoints given by the criteria already met */
+	double seg_from_ml;  /* the current criterion is sought past this volume */
+	engine_point_t *seg; /* scratch: the points past seg_from_ml */
+	int cap_seg;
+	method_criterion_t crits[METHOD_MAX_ENDPOINTS];
+	char detail[400]; /* engine_stop_detail */
 
 	int n_res;
 	engine_result_t res[METHOD_MAX_RESULTS];
@@ -107,6 +119,8 @@ engine_t *engine_new(const method_t *m, const engine_params_t *p)
 	if (!e)
 		return NULL;
 	e->m = *m;
+	e->full = *m;
+	e->n_crit = method_criteria(m, e->crits);
 	e->p = *p;
 	if (!(e->p.burette_capacity_ml > 0))
 		e->p.burette_capacity_ml = 10.0;
@@ -142,6 +156,7 @@ void engine_free(engine_t *e)
 {
 	if (!e)
 		return;
+	free(e->seg);
 	free(e->pts);
 	free(e);
 }
@@ -213,6 +228,12 @@ static void compute_results(engine_t *e)
 		memcpy(r->unit, mr->unit, sizeof r->unit);
 		r->unit[sizeof r->unit - 1] = '\0';
 		r->decimals = mr->decimals;
+		for (int j = 0; j < e->n_ep && j < FORMULA_MAX_END; j++) {
+			unsigned bits =
+			    1u << (FV_END_ML + j) | 1u << (FV_END_PH + j) | 1u << (FV_HALF_PH + j);
+			if (e->ep[j].fallback && (mr->formula.used & bits))
+				r->from_fallback = true;
+		}
 		double v = 0;
 		char msg[160] = "";
 		formula_status_t st = formula_eval(&mr->formula, &fv, &v, msg, sizeof msg);
@@ -258,12 +279,23 @@ static void judge(engine_t *e)
 	e->eval_code[0] = e->eval_msg[0] = '\0';
 	if (e->reason == ENGINE_STOP_FAULT || e->reason == ENGINE_STOP_ABORTED)
 		return;
-	if (e->n_ep < e->m.count) {
+	if (e->n_ep < e->full.count && e->full.n_criteria > 0) {
+		/* a list: say which criterion was not met */
+		int ci = e->n_ep < e->n_crit ? e->n_ep : e->n_crit - 1;
+		snprintf(e->eval_code, sizeof e->eval_code, "endpoint_missing");
+		snprintf(e->eval_msg, sizeof e->eval_msg,
+		         "found %d of the %d endpoints the method asks for (detect[%d], %s, was "
+		         "not met); the run stopped on %s after %.4f mL",
+		         e->n_ep, e->full.count, ci + 1, method_detect_name(e->crits[ci].kind),
+		         engine_stop_name(e->reason), e->dispensed_ml);
+		return;
+	}
+	if (e->n_ep < e->full.count) {
 		snprintf(e->eval_code, sizeof e->eval_code, "endpoint_missing");
 		snprintf(e->eval_msg, sizeof e->eval_msg,
 		         "found %d of the %d endpoint%s the method asks for; the run stopped on %s "
 		         "after %.4f mL",
-		         e->n_ep, e->m.count, e->m.count == 1 ? "" : "s",
+		         e->n_ep, e->full.count, e->full.count == 1 ? "" : "s",
 		         engine_stop_name(e->reason), e->dispensed_ml);
 		return;
 	}
@@ -276,16 +308,147 @@ static void judge(engine_t *e)
 		}
 }
 
+/* Endpoints of criterion ci (seen through `view`) past from_ml, the
+ * endpoint before it; at most cap, in order of volume, each marked with its
+ * criterion. The search sees only the points from the last one at or before
+ * from_ml on, their volumes counted from from_ml, so each kind of search
+ * finds the next endpoint as it would a first one (Gran's dilution with the
+ * liquid then in the beaker). A criterion with a fallback ends at the
+ * fallback signal when no inflection lies before it (marked fallback). */
+static int seek(engine_t *e, const method_t *view, int ci, double from_ml, int dir, bool final,
+                engine_endpoint_t *out, int cap)
+{
+	const engine_point_t *pts = e->pts;
+	int n = e->n_pts;
+	double v0_ml = e->p.start_volume_ml;
+	if (cap < 1)
+		return 0;
+	if (from_ml > 0) {
+		int i0 = 0;
+		while (i0 + 1 < n && e->pts[i0 + 1].volume_ml <= from_ml)
+			i0++;
+		if (n - i0 > e->cap_seg) {
+			engine_point_t *g = realloc(e->seg, (size_t)e->cap_pts * sizeof *g);
+			if (!g)
+				return 0;
+			e->seg = g;
+			e->cap_seg = e->cap_pts;
+		}
+		for (int i = i0; i < n; i++) {
+			e->seg[i - i0] = e->pts[i];
+			e->seg[i - i0].volume_ml -= from_ml;
+		}
+		pts = e->seg;
+		n -= i0;
+		v0_ml += from_ml;
+	}
+	int k = endpoint_find(view, pts, n, dir, final, v0_ml, out, cap);
+	const method_criterion_t *cr = &e->crits[ci];
+	if (cr->has_fallback && cr->kind != DETECT_TARGET) {
+		method_criterion_t fc = *cr;
+		engine_endpoint_t fb = {0};
+		fc.kind = DETECT_TARGET;
+		fc.has_target = true;
+		fc.target = cr->fallback;
+		/* only the fields find_target reads differ from the view */
+		method_t *fm = malloc(sizeof *fm);
+		int kf = 0;
+		if (fm) {
+			method_for_criterion(view, &fc, fm);
+			kf = endpoint_find(fm, pts, n, dir, final, v0_ml, &fb, 1);
+			free(fm);
+		}
+		if (kf > 0) {
+			/* an inflection counts only before the fallback signal */
+			while (k > 0 && out[k - 1].volume_ml > fb.volume_ml)
+				k--;
+			if (k == 0) {
+				out[0] = fb;
+				out[0].fallback = true;
+				k = 1;
+			}
+		}
+	}
+	for (int i = 0; i < k; i++) {
+		out[i].criterion = ci + 1;
+		if (from_ml > 0) {
+			out[i].volume_ml = fmax(out[i].volume_ml + from_ml, from_ml);
+			out[i].deriv_ml += from_ml;
+			out[i].model_ml += from_ml;
+			out[i].half_ph = endpoint_interp(e->pts, e->n_pts, out[i].volume_ml / 2, 1);
+		}
+	}
+	return k;
+}
+
+/* Which criterion gave which endpoint, for a list or a fallback. */
+static void describe(engine_t *e)
+{
+	e->detail[0] = '\0';
+	if (e->full.n_criteria == 0 && !e->full.has_fallback)
+		return;
+	const char *u = e->full.signal == SIGNAL_MV ? "mV" : "pH";
+	size_t len = 0;
+	for (int i = 0; i < e->n_ep && len < sizeof e->detail; i++) {
+		const engine_endpoint_t *ep = &e->ep[i];
+		const method_criterion_t *cr = &e->crits[ep->criterion - 1];
+		char who[16];
+		if (e->full.n_criteria > 0)
+			snprintf(who, sizeof who, "detect[%d]", ep->criterion);
+		else
+			snprintf(who, sizeof who, "detect");
+		int w;
+		if (ep->fallback)
+			w = snprintf(
+			    e->detail + len, sizeof e->detail - len,
+			    "%sendpoint %d by %s at its fallback %g %s, no inflection before it",
+			    i ? "; " : "", ep->n, who, cr->fallback, u);
+		else if (cr->kind == DETECT_TARGET)
+			w = snprintf(e->detail + len, sizeof e->detail - len,
+			             "%sendpoint %d by %s, target %g %s", i ? "; " : "", ep->n, who,
+			             cr->target, u);
+		else
+			w = snprintf(e->detail + len, sizeof e->detail - len,
+			             "%sendpoint %d by %s, %s", i ? "; " : "", ep->n, who,
+			             method_detect_name(cr->kind));
+		if (w < 0)
+			break;
+		len += (size_t)w;
+	}
+}
+
 static void evaluate(engine_t *e)
 {
 	e->phase = "evaluating";
 	endpoint_central_dpdv(e->pts, e->n_pts);
 	int dir = run_dir(e);
-	e->n_ep = endpoint_find(&e->m, e->pts, e->n_pts, dir, true, e->p.start_volume_ml, e->ep,
-	                        METHOD_MAX_ENDPOINTS);
-	if (e->n_ep > e->m.count)
-		e->n_ep = e->m.count;
-	if (e->m.detect == DETECT_INFLECTION && e->n_ep > 0 && dir != 0) {
+	/* Each criterion in turn past the endpoint before it, on all the
+	 * points; for one mapping this is one search over the whole run. */
+	bool all_inflection = true;
+	double from_ml = 0;
+	e->n_ep = 0;
+	method_t *view = malloc(sizeof *view);
+	for (int ci = 0; view && ci < e->n_crit; ci++) {
+		method_for_criterion(&e->full, &e->crits[ci], view);
+		int want = e->crits[ci].count;
+		int k = seek(e, view, ci, from_ml, dir, true, e->ep + e->n_ep,
+		             METHOD_MAX_ENDPOINTS - e->n_ep);
+		if (k > want)
+			k = want;
+		for (int j = 0; j < k; j++) {
+			e->ep[e->n_ep + j].n = e->n_ep + j + 1;
+			if (e->ep[e->n_ep + j].fallback)
+				all_inflection = false;
+		}
+		if (e->crits[ci].kind != DETECT_INFLECTION)
+			all_inflection = false;
+		e->n_ep += k;
+		if (k < want)
+			break;
+		from_ml = e->ep[e->n_ep - 1].volume_ml;
+	}
+	free(view);
+	if (all_inflection && e->n_ep > 0 && dir != 0) {
 		double t_c = isfinite(e->pts[0].temperature_c) ? e->pts[0].temperature_c : 25.0;
 		double k = chem_nernst_mv(t_c);
 		modelfit_ctx_t c = {
@@ -318,6 +481,7 @@ static void evaluate(engine_t *e)
 	}
 	compute_results(e);
 	judge(e);
+	describe(e);
 }
 
 static engine_action_t stop(engine_t *e, engine_stop_t why)
@@ -532,20 +696,35 @@ static engine_action_t after_point(engine_t *e)
 	const engine_point_t *last = &e->pts[e->n_pts - 1];
 
 	int dir = run_dir(e);
-	if (!e->all_found) {
-		e->n_ep = endpoint_find(m, e->pts, e->n_pts, dir, false, e->p.start_volume_ml,
-		                        e->ep, METHOD_MAX_ENDPOINTS);
+	/* The criteria in turn: each sought past the endpoint before it; one
+	 * point may meet several (a large addition across two targets). */
+	while (!e->all_found) {
+		int want = e->crits[e->crit].count;
+		int k = seek(e, m, e->crit, e->seg_from_ml, dir, false, e->ep + e->n_done,
+		             METHOD_MAX_ENDPOINTS - e->n_done);
+		for (int j = 0; j < k; j++)
+			e->ep[e->n_done + j].n = e->n_done + j + 1;
+		e->n_ep = e->n_done + k;
 		/* A target must hold: a point that reached it without settling
-		 * is read again at the same volume before it counts. */
-		if (m->detect == DETECT_TARGET && e->n_ep > 0 && !last->settled &&
-		    !e->target_recheck) {
+		 * is read again at the same volume before it counts (a fallback
+		 * signal is a target too). */
+		bool at_target = k > 0 && (m->detect == DETECT_TARGET || e->ep[e->n_done].fallback);
+		if (at_target && !last->settled && !e->target_recheck) {
 			e->target_recheck = true;
-			e->n_ep = 0;
+			e->n_ep = e->n_done;
 			return begin_settle(e);
 		}
-		if (e->n_ep >= m->count) {
+		if (k < want)
+			break;
+		e->n_done += want;
+		e->seg_from_ml = e->ep[e->n_done - 1].volume_ml;
+		if (++e->crit >= e->n_crit) {
 			e->all_found = true;
-			e->stop_after_ml = e->ep[m->count - 1].volume_ml + m->past_endpoint_ml;
+			e->stop_after_ml = e->ep[e->n_done - 1].volume_ml + m->past_endpoint_ml;
+		} else {
+			/* the next criterion: dosing and the checks now see it */
+			method_for_criterion(&e->full, &e->crits[e->crit], &e->m);
+			e->target_recheck = false;
 		}
 	}
 	if (e->all_found && steps_within(e, e->stop_after_ml - last->volume_ml) < e->quantum_ml)
@@ -778,6 +957,11 @@ const char *engine_fault_code(const engine_t *e)
 	if (e->reason == ENGINE_STOP_FAULT)
 		return e->fault_code;
 	return e->st == ST_DONE ? e->eval_code : "";
+}
+
+const char *engine_stop_detail(const engine_t *e)
+{
+	return e->st == ST_DONE ? e->detail : "";
 }
 
 const char *engine_fault_message(const engine_t *e)

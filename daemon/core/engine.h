@@ -138,6 +138,8 @@ typedef struct engine_endpoint {
 	double deriv_ml;    /* the first-derivative (or target/gran) result, mL */
 	double model_ml;    /* the model fit's result, mL; NaN: no fit or a poor one */
 	double model_rms;   /* fit residual RMS in units of the assumed reading noise; NaN: none */
+	int criterion;      /* 1-based: the detect criterion that gave it (1 for one mapping) */
+	bool fallback;      /* found at the criterion's fallback signal: no inflection came first */
 } engine_endpoint_t;
 
 typedef enum {
@@ -166,7 +168,8 @@ typedef struct engine_result {
 	int decimals;
 	char unit[32];
 	engine_accept_t accept;
-	char note[160]; /* fault note when has_value is false */
+	char note[160];     /* fault note when has_value is false */
+	bool from_fallback; /* its formula reads an endpoint found at a fallback signal */
 } engine_result_t;
 
 /* A new engine; the method and params are copied. NULL on out-of-memory. */
@@ -187,6 +190,11 @@ const char *engine_stop_name(engine_stop_t s); /* JSON word, "" for NONE */
  * evaluation of a run that stopped by its own rules. */
 const char *engine_fault_code(const engine_t *e);
 const char *engine_fault_message(const engine_t *e);
+/* Once done: which criterion gave which endpoint, in words, when the method
+ * lists criteria or names a fallback (e.g. "endpoint 1 by detect[1], target
+ * 8.3 pH; endpoint 2 by detect[2] at its fallback 4.5 pH, no inflection
+ * before it"); "" otherwise. The run record appends it to stop_detail. */
+const char *engine_stop_detail(const engine_t *e);
 engine_outcome_t engine_outcome(const engine_t *e);
 const char *engine_outcome_name(engine_outcome_t o); /* "finished", "failed", "aborted", "" */
 /* True for a finished run whose results all pass or carry no limits: the

@@ -116,7 +116,7 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"max", "stir_s", "initial_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
-		"signal_limit", "time_max_s", "formula", "decimals", "accept", NULL};
+		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
 		const char *k = map->keys[i]->str;
@@ -401,108 +401,384 @@ static void parse_settle(mp_ctx_t *c, const yt_node_t *root)
 	    &c->f_still_for);
 }
 
-static void parse_window(mp_ctx_t *c, const yt_node_t *n)
+/* Where one criterion's values came from: `path` is "detect" for the single
+ * mapping, "detect[N]" for the Nth item of a list (messages name it). */
+typedef struct crit_fields {
+	char path[24];
+	mp_field_t kind, count, min_jump, window, target, fallback;
+} crit_fields_t;
+
+static void parse_window(mp_ctx_t *c, const yt_node_t *n, crit_fields_t *f, method_criterion_t *cr)
 {
 	method_t *m = c->m;
 	double lo, hi, v[2] = {0, 0};
 	bool ok = true;
 	const char *u = mp_signal_unit(m);
-	mp_field_t f;
-	c->f_window.node = n;
-	c->f_window.bad = true;
+	char plo[48], phi[48];
+	mp_field_t tmp;
+	f->window.node = n;
+	f->window.bad = true;
 	if (n->kind != YT_SEQ || n->n != 2) {
 		if (n->kind == YT_SEQ)
 			yt_error(c->doc, n, c->d,
-			         "detect.window must be a list of two numbers [low, high] in %s "
+			         "%s.window must be a list of two numbers [low, high] in %s "
 			         "(got %zu item%s)",
-			         u, n->n, n->n == 1 ? "" : "s");
+			         f->path, u, n->n, n->n == 1 ? "" : "s");
 		else
 			yt_error(c->doc, n, c->d,
-			         "detect.window must be a list of two numbers [low, high] in %s",
-			         u);
+			         "%s.window must be a list of two numbers [low, high] in %s",
+			         f->path, u);
 		return;
 	}
 	mp_signal_range(m, &lo, &hi);
-	if (!num_node(c, n->items[0], "detect.window low", u, lo, false, hi, &v[0], &f))
+	snprintf(plo, sizeof plo, "%s.window low", f->path);
+	snprintf(phi, sizeof phi, "%s.window high", f->path);
+	if (!num_node(c, n->items[0], plo, u, lo, false, hi, &v[0], &tmp))
 		ok = false;
-	if (!num_node(c, n->items[1], "detect.window high", u, lo, false, hi, &v[1], &f))
+	if (!num_node(c, n->items[1], phi, u, lo, false, hi, &v[1], &tmp))
 		ok = false;
 	if (!ok)
 		return;
 	if (v[0] >= v[1]) {
 		yt_error(c->doc, n->items[0], c->d,
-		         "detect.window low (%g %s) must be below its high (%g %s)", v[0], u, v[1],
-		         u);
+		         "%s.window low (%g %s) must be below its high (%g %s)", f->path, v[0], u,
+		         v[1], u);
 		return;
 	}
-	m->window_lo = v[0];
-	m->window_hi = v[1];
-	m->has_window = true;
-	c->f_window.bad = false;
+	cr->window_lo = v[0];
+	cr->window_hi = v[1];
+	cr->has_window = true;
+	f->window.bad = false;
+}
+
+/* fallback: {target: X}, the signal to end at when no inflection came first. */
+static void parse_fallback(mp_ctx_t *c, const yt_node_t *n, crit_fields_t *f,
+                           method_criterion_t *cr)
+{
+	static const char *const keys[] = {"target", NULL};
+	char path[48];
+	double lo, hi;
+	f->fallback.node = n;
+	f->fallback.bad = true;
+	snprintf(path, sizeof path, "%s.fallback", f->path);
+	if (!yt_want_map(c->doc, n, path, c->d))
+		return;
+	yt_check_keys(c->doc, n, keys, path, c->d);
+	if (!yt_get(n, "target")) {
+		yt_missing(c->doc, n, "target", path, c->d);
+		return;
+	}
+	snprintf(path, sizeof path, "%s.fallback.target", f->path);
+	mp_signal_range(c->m, &lo, &hi);
+	mp_field_t tmp;
+	if (num(c, n, "target", path, mp_signal_unit(c->m), lo, false, hi, &cr->fallback, &tmp)) {
+		cr->has_fallback = true;
+		f->fallback.node = yt_get(n, "target");
+		f->fallback.bad = false;
+	}
+}
+
+/* One criterion: the single detect mapping (in_list false, count allowed)
+ * or one item of a detect list (one endpoint each). */
+static void parse_criterion(mp_ctx_t *c, const yt_node_t *s, bool in_list, crit_fields_t *f,
+                            method_criterion_t *cr)
+{
+	static const char *const keys[] = {"kind",   "count",    "min_jump", "window",
+	                                   "target", "fallback", NULL};
+	method_t *m = c->m;
+	const yt_node_t *n;
+	const char *u = mp_signal_unit(m);
+	char path[48];
+	double lo, hi;
+	long count = cr->count;
+	int w = (int)cr->kind;
+	yt_check_keys(c->doc, s, keys, f->path, c->d);
+	if (!yt_get(s, "kind")) {
+		missing(c, s, "kind", f->path);
+		f->kind.bad = true;
+	} else {
+		snprintf(path, sizeof path, "%s.kind", f->path);
+		if (word(c, s, "kind", path, detect_words, &w, &f->kind))
+			cr->kind = (method_detect_t)w;
+	}
+	n = yt_get(s, "count");
+	f->count.node = n;
+	if (n && in_list) {
+		not_here(c, s, "count",
+		         "a detect list gives one endpoint per item: write the criterion once for "
+		         "each endpoint instead of count");
+		f->count.bad = true;
+	} else if (n) {
+		snprintf(path, sizeof path, "%s.count", f->path);
+		if (yt_long(c->doc, n, path, 1, METHOD_MAX_ENDPOINTS, &count, c->d))
+			cr->count = (int)count;
+		else
+			f->count.bad = true;
+	}
+	if (f->kind.bad)
+		return;
+	mp_signal_range(m, &lo, &hi);
+	if (cr->kind != DETECT_INFLECTION && n && !f->count.bad && cr->count != 1) {
+		yt_error(c->doc, n, c->d, "%s.count must be 1 with kind: %s (got %d)", f->path,
+		         method_detect_name(cr->kind), cr->count);
+		f->count.bad = true;
+	}
+	if (cr->kind == DETECT_INFLECTION) {
+		snprintf(path, sizeof path, "%s.min_jump", f->path);
+		num(c, s, "min_jump", path, u, 0.0, true, hi - lo, &cr->min_jump, &f->min_jump);
+	} else {
+		char msg[96];
+		snprintf(msg, sizeof msg, "%s.min_jump applies only to kind: inflection", f->path);
+		not_here(c, s, "min_jump", msg);
+	}
+
+	n = yt_get(s, "window");
+	if (n && cr->kind == DETECT_TARGET) {
+		snprintf(path, sizeof path, "%s.window", f->path);
+		yt_error(c->doc, yt_key(s, "window"), c->d,
+		         "%s applies only to kind: inflection or gran (a target is one value)",
+		         path);
+	} else if (n) {
+		parse_window(c, n, f, cr);
+	}
+
+	n = yt_get(s, "target");
+	if (cr->kind == DETECT_TARGET) {
+		snprintf(path, sizeof path, "%s.target", f->path);
+		if (!n) {
+			yt_error(c->doc, s, c->d,
+			         "missing key 'target' in %s (required with kind: target)",
+			         f->path);
+			f->target.bad = true;
+		} else if (num(c, s, "target", path, u, lo, false, hi, &cr->target, &f->target)) {
+			cr->has_target = true;
+		}
+	} else if (n) {
+		yt_error(c->doc, yt_key(s, "target"), c->d,
+		         "%s.target applies only to kind: target", f->path);
+	}
+
+	n = yt_get(s, "fallback");
+	if (n && cr->kind == DETECT_TARGET) {
+		yt_error(c->doc, yt_key(s, "fallback"), c->d,
+		         "%s.fallback applies only to kind: inflection or gran (a target is "
+		         "already a fixed signal)",
+		         f->path);
+		f->fallback.bad = true;
+	} else if (n && !f->count.bad && cr->count != 1) {
+		yt_error(c->doc, yt_key(s, "fallback"), c->d,
+		         "%s.fallback needs %s.count 1 (one endpoint to fall back for)", f->path,
+		         f->path);
+		f->fallback.bad = true;
+	} else if (n) {
+		parse_fallback(c, n, f, cr);
+	}
+}
+
+/* The signals a list's criteria stop at (targets, fallbacks) must run one
+ * way, and toward stop.signal_limit when there is one: a criterion is only
+ * sought past the endpoint before it, so a target behind the run could
+ * never be met. Uses c->crit_sig (set by parse_detect), after parse_stop. */
+static void check_order(mp_ctx_t *c)
+{
+	const method_t *m = c->m;
+	const char *u = mp_signal_unit(m);
+	method_criterion_t cr[METHOD_MAX_ENDPOINTS];
+	int n = method_criteria(m, cr), dir = 0, prev = -1;
+	double prev_v = 0;
+	const char *dir_from = "";
+	char path[24], prev_path[24] = "";
+	bool limit = m->has_signal_limit && !c->f_limit.bad;
+	if (m->n_criteria == 0 && !(m->has_fallback && limit))
+		return; /* one mapping: only a fallback against the limit to check */
+	for (int i = 0; i < n; i++) {
+		const yt_node_t *node = c->crit_sig[i];
+		if (!node)
+			continue;
+		double v = cr[i].has_target ? cr[i].target : cr[i].fallback;
+		const char *what = cr[i].has_target ? "target" : "fallback.target";
+		if (m->n_criteria > 0)
+			snprintf(path, sizeof path, "detect[%d]", i + 1);
+		else
+			snprintf(path, sizeof path, "detect");
+		if (limit && v == m->signal_limit) {
+			yt_error(
+			    c->doc, node, c->d,
+			    "%s.%s (%g %s) must differ from stop.signal_limit (%g %s): the run "
+			    "would stop on reaching it",
+			    path, what, v, u, m->signal_limit, u);
+			return;
+		}
+		if (prev < 0 && limit) {
+			dir = m->signal_limit > v ? 1 : -1;
+			dir_from = "toward stop.signal_limit";
+		}
+		if (prev >= 0) {
+			int d = v > prev_v ? 1 : v < prev_v ? -1 : 0;
+			if (dir == 0 && d != 0) {
+				dir = d;
+				dir_from = d > 0 ? "up, as the first two set it"
+				                 : "down, as the first two set it";
+			} else if (d != dir) {
+				yt_error(c->doc, node, c->d,
+				         "%s.%s (%g %s) is out of order: it must lie %s %s's %g %s "
+				         "(the run goes %s)",
+				         path, what, v, u, dir > 0 ? "above" : "below", prev_path,
+				         prev_v, u, dir_from);
+				return;
+			}
+		}
+		if (limit && dir != 0 && !(dir * (m->signal_limit - v) > 0)) {
+			yt_error(c->doc, node, c->d,
+			         "%s.%s (%g %s) lies at or beyond stop.signal_limit (%g %s): the "
+			         "run would stop before reaching it",
+			         path, what, v, u, m->signal_limit, u);
+			return;
+		}
+		prev = i;
+		prev_v = v;
+		memcpy(prev_path, path, sizeof path);
+	}
+}
+
+/* The node of the signal a criterion stops at (target or fallback), or NULL. */
+static const yt_node_t *sig_node(const method_criterion_t *cr, const crit_fields_t *f)
+{
+	if (cr->has_target && !f->target.bad)
+		return f->target.node;
+	if (cr->has_fallback && !f->fallback.bad)
+		return f->fallback.node;
+	return NULL;
 }
 
 static void parse_detect(mp_ctx_t *c, const yt_node_t *root)
 {
-	static const char *const keys[] = {"kind", "count", "min_jump", "window", "target", NULL};
 	method_t *m = c->m;
-	bool bad;
-	const yt_node_t *s = section(c, root, "detect", true, keys, &bad), *n;
-	const char *u = mp_signal_unit(m);
-	double lo, hi;
-	long count = m->count;
-	int w = (int)m->detect;
-	c->f_count.bad = c->f_window.bad = c->f_target.bad = bad;
-	if (!s)
+	const yt_node_t *s = yt_get(root, "detect");
+	method_criterion_t cr;
+	crit_fields_t f;
+	c->f_count.bad = c->f_window.bad = c->f_target.bad = false;
+	if (!s) {
+		missing(c, root, "detect", "method");
+		c->f_count.bad = c->f_window.bad = c->f_target.bad = true;
 		return;
-	if (!yt_get(s, "kind")) {
-		missing(c, s, "kind", "detect");
-		c->f_kind.bad = true;
-	} else if (word(c, s, "kind", "detect.kind", detect_words, &w, &c->f_kind)) {
-		m->detect = (method_detect_t)w;
 	}
-	n = yt_get(s, "count");
-	c->f_count.node = n;
-	if (n) {
-		if (yt_long(c->doc, n, "detect.count", 1, METHOD_MAX_ENDPOINTS, &count, c->d))
-			m->count = (int)count;
-		else
-			c->f_count.bad = true;
-	}
-	if (c->f_kind.bad)
-		return;
-	mp_signal_range(m, &lo, &hi);
-	if (m->detect != DETECT_INFLECTION && n && !c->f_count.bad && m->count != 1) {
-		yt_error(c->doc, n, c->d, "detect.count must be 1 with kind: %s (got %d)",
-		         method_detect_name(m->detect), m->count);
-		c->f_count.bad = true;
-	}
-	if (m->detect == DETECT_INFLECTION)
-		num(c, s, "min_jump", "detect.min_jump", u, 0.0, true, hi - lo, &m->min_jump,
-		    &c->f_min_jump);
-	else
-		not_here(c, s, "min_jump", "detect.min_jump applies only to kind: inflection");
-
-	n = yt_get(s, "window");
-	if (n && m->detect == DETECT_TARGET)
-		not_here(c, s, "window",
-		         "detect.window applies only to kind: inflection or gran (a target "
-		         "is one value)");
-	else if (n)
-		parse_window(c, n);
-
-	n = yt_get(s, "target");
-	if (m->detect == DETECT_TARGET) {
-		if (!n) {
-			yt_error(c->doc, s, c->d,
-			         "missing key 'target' in detect (required with kind: target)");
-			c->f_target.bad = true;
-		} else if (num(c, s, "target", "detect.target", u, lo, false, hi, &m->target,
-		               &c->f_target)) {
-			m->has_target = true;
+	method_criteria(m, &cr); /* the defaults, as one criterion */
+	if (s->kind == YT_SEQ) {
+		crit_fields_t fl[METHOD_MAX_ENDPOINTS];
+		int n = 0;
+		if (s->n == 0) {
+			yt_error(
+			    c->doc, s, c->d,
+			    "detect must be one criterion or a list of 1 to %d criteria (got an "
+			    "empty list)",
+			    METHOD_MAX_ENDPOINTS);
+			c->f_kind.bad = c->f_count.bad = true;
+			return;
 		}
-	} else if (n) {
-		not_here(c, s, "target", "detect.target applies only to kind: target");
+		if (s->n > METHOD_MAX_ENDPOINTS) {
+			yt_error(c->doc, s->items[METHOD_MAX_ENDPOINTS], c->d,
+			         "detect lists %zu criteria; at most %d endpoints are allowed",
+			         s->n, METHOD_MAX_ENDPOINTS);
+			c->f_kind.bad = c->f_count.bad = true;
+			return;
+		}
+		bool bad = false;
+		for (size_t i = 0; i < s->n; i++) {
+			memset(&fl[n], 0, sizeof fl[n]);
+			snprintf(fl[n].path, sizeof fl[n].path, "detect[%d]", n + 1);
+			m->criteria[n] = cr;
+			if (!yt_want_map(c->doc, s->items[i], fl[n].path, c->d)) {
+				bad = true;
+				n++;
+				continue;
+			}
+			parse_criterion(c, s->items[i], true, &fl[n], &m->criteria[n]);
+			if (fl[n].kind.bad)
+				bad = true;
+			n++;
+		}
+		m->n_criteria = n;
+		for (int i = 0; i < n && !bad; i++)
+			c->crit_sig[i] = sig_node(&m->criteria[i], &fl[i]);
+		method_criterion_t *c0 = &m->criteria[0];
+		m->detect = c0->kind;
+		m->min_jump = c0->min_jump;
+		m->has_window = c0->has_window;
+		m->window_lo = c0->window_lo;
+		m->window_hi = c0->window_hi;
+		m->has_target = c0->has_target;
+		m->target = c0->target;
+		m->has_fallback = c0->has_fallback;
+		m->fallback = c0->fallback;
+		m->count = n;
+		c->f_kind = fl[0].kind;
+		c->f_kind.bad = bad;
+		c->f_window = fl[0].window;
+		c->f_target = fl[0].target;
+		return;
 	}
+	if (!yt_want_map(c->doc, s, "detect", c->d)) {
+		c->f_count.bad = c->f_window.bad = c->f_target.bad = true;
+		return;
+	}
+	memset(&f, 0, sizeof f);
+	snprintf(f.path, sizeof f.path, "detect");
+	parse_criterion(c, s, false, &f, &cr);
+	m->detect = cr.kind;
+	m->count = cr.count;
+	m->min_jump = cr.min_jump;
+	m->has_window = cr.has_window;
+	m->window_lo = cr.window_lo;
+	m->window_hi = cr.window_hi;
+	m->has_target = cr.has_target;
+	m->target = cr.target;
+	m->has_fallback = cr.has_fallback;
+	m->fallback = cr.fallback;
+	c->f_kind = f.kind;
+	c->f_count = f.count;
+	c->f_min_jump = f.min_jump;
+	c->f_window = f.window;
+	c->f_target = f.target;
+	c->crit_sig[0] = sig_node(&cr, &f);
+}
+
+int method_criteria(const method_t *m, method_criterion_t *out)
+{
+	if (m->n_criteria > 0) {
+		int n = m->n_criteria < METHOD_MAX_ENDPOINTS ? m->n_criteria : METHOD_MAX_ENDPOINTS;
+		memcpy(out, m->criteria, (size_t)n * sizeof *out);
+		return n;
+	}
+	method_criterion_t c = {.kind = m->detect,
+	                        .count = m->count,
+	                        .min_jump = m->min_jump,
+	                        .has_window = m->has_window,
+	                        .window_lo = m->window_lo,
+	                        .window_hi = m->window_hi,
+	                        .has_target = m->has_target,
+	                        .target = m->target,
+	                        .has_fallback = m->has_fallback,
+	                        .fallback = m->fallback};
+	out[0] = c;
+	return 1;
+}
+
+void method_for_criterion(const method_t *m, const method_criterion_t *c, method_t *out)
+{
+	if (out != m)
+		*out = *m;
+	out->detect = c->kind;
+	out->count = c->count;
+	out->min_jump = c->min_jump;
+	out->has_window = c->has_window;
+	out->window_lo = c->window_lo;
+	out->window_hi = c->window_hi;
+	out->has_target = c->has_target;
+	out->target = c->target;
+	out->has_fallback = c->has_fallback;
+	out->fallback = c->fallback;
+	out->n_criteria = 0;
 }
 
 static void parse_stop(mp_ctx_t *c, const yt_node_t *root)
@@ -563,6 +839,7 @@ static int method_from_doc(const yt_doc_t *doc, const char *name, const method_l
 	parse_settle(&c, doc->root);
 	parse_detect(&c, doc->root);
 	parse_stop(&c, doc->root);
+	check_order(&c);
 	mp_parse_results(&c, doc->root);
 	mp_cross_check(&c, doc->root);
 out:

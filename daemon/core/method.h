@@ -26,6 +26,22 @@ typedef enum { DOSING_ADAPTIVE = 0, DOSING_CONSTANT } method_dosing_t;
 typedef enum { DETECT_INFLECTION = 0, DETECT_TARGET, DETECT_GRAN } method_detect_t;
 typedef enum { UNIT_ML = 0, UNIT_G } method_unit_t;
 
+/* One endpoint criterion of `detect` (docs/methods.md). A list of them is
+ * met in turn: each is sought only past the endpoint before it. */
+typedef struct method_criterion {
+	method_detect_t kind;
+	int count;       /* endpoints it gives: 1, or more for one inflection mapping */
+	double min_jump; /* smallest rise across an inflection, signal units */
+	bool has_window;
+	double window_lo, window_hi; /* signal units */
+	bool has_target;
+	double target; /* signal units, kind target */
+	/* Inflection or Gran only: end at this signal (signal units) when no
+	 * inflection has appeared before the signal reaches it. */
+	bool has_fallback;
+	double fallback;
+} method_criterion_t;
+
 typedef struct method_result {
 	char name[METHOD_ID_MAX];
 	char formula_text[512];
@@ -63,6 +79,9 @@ typedef struct method {
 	double still_within;           /* signal units */
 	double still_for_s;            /* s */
 
+	/* detect written as one mapping: these fields are it. Written as a
+	 * list (n_criteria > 0): they repeat criteria[0], except count, which
+	 * is always the number of endpoints the method asks for in all. */
 	method_detect_t detect;
 	int count;       /* endpoints to find before stopping, 1..METHOD_MAX_ENDPOINTS */
 	double min_jump; /* smallest rise across an inflection, signal units */
@@ -70,6 +89,10 @@ typedef struct method {
 	double window_lo, window_hi; /* signal units */
 	bool has_target;
 	double target; /* signal units, detect: target */
+	bool has_fallback;
+	double fallback; /* signal units, see method_criterion_t */
+	int n_criteria;  /* 0: detect is one mapping; else the length of its list */
+	method_criterion_t criteria[METHOD_MAX_ENDPOINTS];
 
 	double past_endpoint_ml; /* keep dosing this much past the last endpoint */
 	double volume_max_ml;    /* never dose beyond this total */
@@ -111,6 +134,16 @@ int method_load(const char *path, const method_limits_t *lim, method_t *m, diag_
 /* Fill m with every documented default (docs/methods.md); method_parse
  * starts from these. Useful for tests that build a method by hand. */
 void method_defaults(method_t *m);
+
+/* The method's endpoint criteria in order (one for a single mapping, taken
+ * from the top-level detect fields); out has room for
+ * METHOD_MAX_ENDPOINTS. Returns how many. */
+int method_criteria(const method_t *m, method_criterion_t *out);
+
+/* The method as one criterion sees it: a copy of m whose detect fields
+ * (detect, count, min_jump, window, target, fallback) are c's, with
+ * n_criteria 0, so code written for one mapping serves each criterion. */
+void method_for_criterion(const method_t *m, const method_criterion_t *c, method_t *out);
 
 /* Names for enum values as they appear in files and JSON. */
 const char *method_purpose_name(method_purpose_t p);

@@ -185,7 +185,13 @@ static void check_formula_vars(mp_ctx_t *c, const yt_node_t *n, const char *text
 		if (var < 0)
 			continue;
 		msg[0] = '\0';
-		if (var < FV_BLANK_ML && !c->f_count.bad && var % 4 + 1 > m->count)
+		if (var < FV_BLANK_ML && !c->f_count.bad && var % 4 + 1 > m->count &&
+		    m->n_criteria > 0)
+			snprintf(msg, sizeof msg,
+			         "%s needs a detect list of at least %d criteria (this method "
+			         "lists %d)",
+			         formula_var_name((formula_var_t)var), var % 4 + 1, m->count);
+		else if (var < FV_BLANK_ML && !c->f_count.bad && var % 4 + 1 > m->count)
 			snprintf(msg, sizeof msg,
 			         "%s needs detect.count of at least %d (this method finds %d "
 			         "endpoint%s)",
@@ -423,7 +429,9 @@ void mp_cross_check(mp_ctx_t *c, const yt_node_t *root)
 		         "stop.time_max_s (%g s) must be longer than start.stir_s (%g s)",
 		         m->time_max_s, m->stir_s);
 
-	if (m->has_signal_limit && m->has_target && m->signal_limit == m->target)
+	/* (a detect list's targets are checked against the limit with their order) */
+	if (m->has_signal_limit && m->has_target && m->signal_limit == m->target &&
+	    m->n_criteria == 0)
 		yt_error(c->doc, c->f_limit.node, c->d,
 		         "stop.signal_limit (%g %s) must differ from detect.target (%g %s)",
 		         m->signal_limit, sig, m->target, sig);

@@ -29,6 +29,9 @@ typedef struct mp_ctx {
 	mp_field_t f_wait_min, f_wait_max, f_still_within, f_still_for;
 	mp_field_t f_kind, f_count, f_min_jump, f_window, f_target;
 	mp_field_t f_past, f_vol_max, f_limit, f_time_max;
+	/* per detect criterion: the node of its target or fallback signal
+	 * (NULL: none, or given but bad), for the order check */
+	const yt_node_t *crit_sig[METHOD_MAX_ENDPOINTS];
 	/* The result a standardize run takes its titer from (the rule of
 	 * standardization_titer_from_result in calib.h): one named titer, else the first
 	 * named molarity or in mol/L. -1 when none. */

@@ -75,6 +75,8 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		snprintf(o->how, sizeof o->how, "%s", ep->how ? ep->how : "");
 		o->derivative_ml = ep->deriv_ml;
 		o->model_ml = ep->model_ml;
+		o->criterion = ep->criterion > 0 ? ep->criterion : 1;
+		o->fallback = ep->fallback;
 	}
 	r->n_results = 0;
 	for (int i = 0; i < engine_n_results(e) && i < METHOD_MAX_RESULTS; i++) {
@@ -87,6 +89,7 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		snprintf(o->unit, sizeof o->unit, "%s", er->unit);
 		snprintf(o->accept, sizeof o->accept, "%s", engine_accept_name(er->accept));
 		snprintf(o->note, sizeof o->note, "%s", er->note);
+		o->fallback = er->from_fallback;
 	}
 	r->additions = engine_additions(e);
 	r->dispensed_ml = engine_dispensed_ml(e);
@@ -98,6 +101,10 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		if (code && code[0] && engine_stop_reason(e) == ENGINE_STOP_FAULT)
 			snprintf(r->stop_detail, sizeof r->stop_detail, "%s",
 			         engine_fault_message(e));
+		else if (engine_stop_detail(e)[0])
+			/* a detect list or a fallback: which criterion gave which endpoint */
+			snprintf(r->stop_detail, sizeof r->stop_detail, "%s (%s)",
+			         record_stop_words(r->stop_reason), engine_stop_detail(e));
 		else
 			snprintf(r->stop_detail, sizeof r->stop_detail, "%s",
 			         record_stop_words(r->stop_reason));
@@ -224,6 +231,8 @@ json_t *record_to_json(const run_record_t *r)
 		put(e, "how", str_or_null(ep->how), &ok);
 		put(e, "derivative_ml", record_real_or_null(ep->derivative_ml), &ok);
 		put(e, "model_ml", record_real_or_null(ep->model_ml), &ok);
+		put(e, "criterion", json_integer(ep->criterion > 0 ? ep->criterion : 1), &ok);
+		put(e, "fallback", json_boolean(ep->fallback), &ok);
 		if (json_array_append_new(eps, e) < 0)
 			ok = false;
 	}
@@ -241,6 +250,7 @@ json_t *record_to_json(const run_record_t *r)
 		put(e, "value", result_value(rr), &ok);
 		put(e, "unit", json_string(rr->unit), &ok);
 		put(e, "accept", json_string(rr->accept[0] ? rr->accept : "none"), &ok);
+		put(e, "fallback", json_boolean(rr->fallback), &ok);
 		if (rr->note[0])
 			put(e, "note", json_string(rr->note), &ok);
 		if (json_array_append_new(res, e) < 0)

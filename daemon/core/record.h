@@ -33,6 +33,8 @@ typedef struct record_endpoint {
 	/* additions to the record of docs/lims.md: both evaluations side by side */
 	double derivative_ml; /* first-derivative / target / Gran volume; NaN -> null */
 	double model_ml;      /* model-fit volume; NaN -> null */
+	int criterion;        /* 1-based detect criterion that gave it */
+	bool fallback;        /* found at the criterion's fallback signal */
 } record_endpoint_t;
 
 typedef struct record_result {
@@ -43,6 +45,7 @@ typedef struct record_result {
 	char unit[32];
 	char accept[8]; /* "pass", "low", "high", "none" */
 	char note[160]; /* "" -> no "note" key */
+	bool fallback;  /* its formula reads an endpoint found at a fallback signal */
 } record_result_t;
 
 typedef struct record_fault {
@@ -95,7 +98,7 @@ typedef struct run_record {
 	int additions;
 	double dispensed_ml;
 	char stop_reason[24];  /* a code of record_stop_codes (docs/lims.md); "" -> null */
-	char stop_detail[256]; /* the same in words, for a person; "" -> null */
+	char stop_detail[512]; /* the same in words, for a person; "" -> null */
 	int n_faults;
 	record_fault_t faults[RECORD_MAX_FAULTS];
 

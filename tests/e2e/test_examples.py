@@ -30,6 +30,12 @@ EXPECTED = {
                                  "endpoint_ratio": (2.000, 0.01)}),
     # 50 mL x 0.0002 mol/L CO2 / 0.1 mol/L = 0.10 mL to bicarbonate (pH 8.2-8.3)
     "water-blank": (50, [0.100], 0.01, {"blank": (0.100, 0.01)}),
+    # 100 mL x (0.0036 - 0.0030) mol/L / 0.02 mol/L = 3.00 mL carbonate to hydrogen carbonate
+    # (pH 8.3), 100 x 0.0036 / 0.02 = 18.00 mL to carbonic acid (pH 4.5); each lies a little
+    # off its equivalence point (test_p_and_t_alkalinity_at_the_target_ph has the exact ones).
+    # 3.00 x 0.02 x 1000 / 100 = 0.60 mmol/L, 18.00 x 0.02 x 1000 / 100 = 3.60 mmol/L
+    "water-p-and-t-alkalinity": (100, [3.00, 18.00], 0.06,
+                                 {"p_alkalinity": (0.60, 0.015), "t_alkalinity": (3.60, 0.015)}),
 }
 
 
@@ -63,3 +69,35 @@ def test_example_predicts_its_scenario(method_id):
         assert by_name[name]["value"] is not None, name
         assert abs(by_name[name]["value"] - want) <= rtol, (name, by_name[name]["value"], want)
         assert by_name[name]["accept"] in ("pass", "none"), by_name[name]
+
+
+def test_p_and_t_alkalinity_at_the_target_ph():
+    """The two endpoints of the detect list land where the scenario's pH is 8.3 and 4.5,
+    solved here by the independent reference (chem_reference.py, scipy's brentq), each
+    marked with the criterion that gave it, in order, and none a fallback."""
+    import yaml
+    from scipy.optimize import brentq
+    import chem_reference as ref
+    mid = "water-p-and-t-alkalinity"
+    with open("config/scenarios/%s.yaml" % mid) as fh:
+        scn = yaml.safe_load(fh)
+    want = [brentq(lambda v, t=t: ref.ph_at(scn, v) - t, 0.01, 24.9, xtol=1e-9)
+            for t in (8.3, 4.5)]
+    # the P end point is near the carbonate -> hydrogen carbonate volume, 3.00 mL
+    assert abs(want[0] - 3.00) < 0.05, want
+    r = subprocess.run([os.path.join(BUILD, "bin", "stopcock"), "predict",
+                        "config/methods/%s.yaml" % mid, "--scenario",
+                        "config/scenarios/%s.yaml" % mid, "--amount", "100", "--seed", "2",
+                        "--json"], capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    rec = json.loads(r.stdout)
+    eps = rec["endpoints"]
+    assert [e["criterion"] for e in eps] == [1, 2]
+    assert [e["fallback"] for e in eps] == [False, False]
+    assert [round(e["ph"], 2) for e in eps] == [8.3, 4.5]
+    # The electrode lags (tau 3 s): a target read on a settling curve lands a little late,
+    # by up to 0.3 % here; never early.
+    for e, v in zip(eps, want):
+        assert v - 0.0005 * v <= e["volume_ml"] <= v + 0.003 * v, (e["volume_ml"], v)
+    assert all(x["fallback"] is False for x in rec["results"])
+    assert "endpoint 2 by detect[2], target 4.5 pH" in rec["stop_detail"]

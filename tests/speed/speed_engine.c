@@ -185,6 +185,81 @@ static const char *met(bool ok)
 	return ok ? "met" : "NOT met";
 }
 
+/* Titrant volume (mL) at which the simulated beaker's equilibrium pH is
+ * `ph`, by bisection on chem_ph between lo and hi (the curve is monotonic
+ * there); the engine is not consulted. */
+static double volume_at_ph(const chem_scenario_t *s, double ph, double lo, double hi)
+{
+	double flo = chem_ph(s, lo) - ph;
+	for (int it = 0; it < 100; it++) {
+		double mid = (lo + hi) / 2, f = chem_ph(s, mid) - ph;
+		if ((f > 0) == (flo > 0)) {
+			lo = mid;
+			flo = f;
+		} else {
+			hi = mid;
+		}
+	}
+	return (lo + hi) / 2;
+}
+
+/* P-then-T alkalinity (ISO 9963-1 on one aliquot, a detect list of two
+ * targets): the error of each endpoint against the volume at its target pH,
+ * over 20 seeds, median and worst. */
+static void p_then_t_row(void)
+{
+	method_t m;
+	chem_scenario_t s;
+	diag_list_t d = DIAG_LIST_INIT;
+	if (method_load("tests/speed/methods/p-then-t.yaml", NULL, &m, &d) != 0 ||
+	    scenario_load("tests/speed/scenarios/p-then-t.yaml", &s, &d) != 0) {
+		diag_print(&d, stdout);
+		diag_free(&d);
+		return;
+	}
+	diag_free(&d);
+	enum { SEEDS = 20 };
+	const double target[2] = {8.3, 4.5};
+	double ref[2], err[2][SEEDS], adds[SEEDS], dur[SEEDS];
+	for (int k = 0; k < 2; k++)
+		ref[k] = volume_at_ph(&s, target[k], 0.0, m.volume_max_ml);
+	int missed = 0;
+	for (int i = 0; i < SEEDS; i++) {
+		simrun_opts_t o = {.seed = 5000 + (unsigned)i, .burette_start_ml = -1};
+		simrun_out_t out;
+		engine_t *e = simrun_run(&m, &s, &o, &out);
+		err[0][i] = err[1][i] = adds[i] = dur[i] = NAN;
+		if (!e)
+			continue;
+		if (engine_n_endpoints(e) == 2) {
+			for (int k = 0; k < 2; k++)
+				err[k][i] =
+				    (engine_endpoint(e, k)->volume_ml - ref[k]) / ref[k] * 100;
+			adds[i] = engine_additions(e) / 2.0;
+			dur[i] = out.duration_s / 2;
+		} else {
+			missed++;
+		}
+		engine_free(e);
+	}
+	printf("p-then-t     adaptive  (detect list: target pH 8.3, then pH 4.5; %d seeds, %d "
+	       "missed an endpoint)\n",
+	       SEEDS, missed);
+	for (int k = 0; k < 2; k++) {
+		double worst = 0, abs_e[SEEDS];
+		for (int i = 0; i < SEEDS; i++) {
+			abs_e[i] = fabs(err[k][i]);
+			if (isfinite(err[k][i]) && fabs(err[k][i]) > fabs(worst))
+				worst = err[k][i];
+		}
+		printf("%-12s   endpoint %d (pH %.1f at %.4f mL): median |error| %.4f %%, worst "
+		       "%+.4f %%\n",
+		       "", k + 1, target[k], ref[k], median(abs_e, SEEDS), worst);
+	}
+	printf("%-12s   median additions/endpoint %.1f, simulated %.0f s/endpoint\n", "",
+	       median(adds, SEEDS), median(dur, SEEDS));
+}
+
 SPEED(engine_panel)
 {
 	printf("%-12s %-8s %9s %-10s %8s %5s %6s %8s %8s %8s  %s\n", "scenario", "dosing", "err_%",
@@ -273,6 +348,7 @@ SPEED(engine_panel)
 		                                            : "(no target)",
 		       met(ad.cpu_us_per_point <= 100));
 	}
+	p_then_t_row();
 	double me = median(med_err, N_SCN), ma = median(med_adds, N_SCN),
 	       md = median(med_dur, N_SCN), mcpu = median(med_cpu, N_SCN),
 	       mr = median(ratio, N_SCN);

@@ -382,6 +382,54 @@ static void random_method(method_t *m, const chem_scenario_t *s)
 	m->time_max_s = uni(30, 3600);
 }
 
+/* The properties every run must have, whatever the method and beaker:
+ * stopped by a rule (not stuck, not a fault), never past the volume limit,
+ * no NaN, points in order, endpoints within what was dosed, each result a
+ * value or a note; for endpoints in sequence, each endpoint's criterion in
+ * order and past the one before, a fallback only where the criterion has
+ * one. */
+static bool run_ok(const method_t *m, engine_t *e, const simrun_opts_t *o, const simrun_out_t *out,
+                   double *limit_out)
+{
+	double limit = m->volume_max_ml;
+	if (o->vessel_max_ml > 0 && o->vessel_max_ml < limit)
+		limit = o->vessel_max_ml;
+	*limit_out = limit;
+	bool ok = !out->stuck && engine_done(e) && engine_stop_reason(e) != ENGINE_STOP_NONE;
+	ok &= out->max_dispensed_ml <= limit + 1e-9;
+	ok &= fabs(engine_dispensed_ml(e) - out->max_dispensed_ml) < 1e-9;
+	ok &= engine_stop_reason(e) != ENGINE_STOP_FAULT;
+	for (int k = 0; k < engine_n_points(e); k++) {
+		const engine_point_t *p = engine_point(e, k);
+		ok &= isfinite(p->t_s) && isfinite(p->volume_ml) && isfinite(p->mv) &&
+		      isfinite(p->signal) && isfinite(p->dpdv) && isfinite(p->ph);
+		ok &= p->volume_ml <= limit + 1e-9;
+		if (k > 0)
+			ok &= p->volume_ml >= engine_point(e, k - 1)->volume_ml &&
+			      p->t_s >= engine_point(e, k - 1)->t_s;
+	}
+	method_criterion_t cr[METHOD_MAX_ENDPOINTS];
+	int n_crit = method_criteria(m, cr);
+	for (int k = 0; k < engine_n_endpoints(e); k++) {
+		const engine_endpoint_t *ep = engine_endpoint(e, k);
+		ok &= isfinite(ep->volume_ml) && ep->volume_ml >= 0 &&
+		      ep->volume_ml <= engine_dispensed_ml(e) + 1e-6;
+		ok &= isnan(ep->u_volume_ml) || ep->u_volume_ml >= 0;
+		ok &= ep->how != NULL;
+		ok &= ep->criterion >= 1 && ep->criterion <= n_crit;
+		ok &= !ep->fallback || cr[ep->criterion - 1].has_fallback;
+		if (k > 0 && m->n_criteria > 0) {
+			const engine_endpoint_t *pe = engine_endpoint(e, k - 1);
+			ok &= ep->criterion == pe->criterion + 1 && ep->volume_ml >= pe->volume_ml;
+		}
+	}
+	for (int k = 0; k < engine_n_results(e); k++) {
+		const engine_result_t *r = engine_result(e, k);
+		ok &= r->has_value ? isfinite(r->value) : r->note[0] != '\0';
+	}
+	return ok;
+}
+
 TEST(engine_property_random_runs)
 {
 	method_t base;
@@ -407,33 +455,8 @@ TEST(engine_property_random_runs)
 		simrun_out_t out;
 		engine_t *e = simrun_run(&m, &s, &o, &out);
 		REQUIRE(e);
-		double limit = m.volume_max_ml;
-		if (o.vessel_max_ml > 0 && o.vessel_max_ml < limit)
-			limit = o.vessel_max_ml;
-		bool ok = !out.stuck && engine_done(e) && engine_stop_reason(e) != ENGINE_STOP_NONE;
-		ok &= out.max_dispensed_ml <= limit + 1e-9;
-		ok &= fabs(engine_dispensed_ml(e) - out.max_dispensed_ml) < 1e-9;
-		ok &= engine_stop_reason(e) != ENGINE_STOP_FAULT;
-		for (int k = 0; k < engine_n_points(e); k++) {
-			const engine_point_t *p = engine_point(e, k);
-			ok &= isfinite(p->t_s) && isfinite(p->volume_ml) && isfinite(p->mv) &&
-			      isfinite(p->signal) && isfinite(p->dpdv) && isfinite(p->ph);
-			ok &= p->volume_ml <= limit + 1e-9;
-			if (k > 0)
-				ok &= p->volume_ml >= engine_point(e, k - 1)->volume_ml &&
-				      p->t_s >= engine_point(e, k - 1)->t_s;
-		}
-		for (int k = 0; k < engine_n_endpoints(e); k++) {
-			const engine_endpoint_t *ep = engine_endpoint(e, k);
-			ok &= isfinite(ep->volume_ml) && ep->volume_ml >= 0 &&
-			      ep->volume_ml <= engine_dispensed_ml(e) + 1e-6;
-			ok &= isnan(ep->u_volume_ml) || ep->u_volume_ml >= 0;
-			ok &= ep->how != NULL;
-		}
-		for (int k = 0; k < engine_n_results(e); k++) {
-			const engine_result_t *r = engine_result(e, k);
-			ok &= r->has_value ? isfinite(r->value) : r->note[0] != '\0';
-		}
+		double limit;
+		bool ok = run_ok(&m, e, &o, &out, &limit);
 		if (!ok) {
 			bad++;
 			harness_fail(
@@ -446,4 +469,85 @@ TEST(engine_property_random_runs)
 		}
 		engine_free(e);
 	}
+}
+
+/* The same properties with endpoints in sequence: detect lists of 1 to 4
+ * random criteria of any kind (targets in any order, as a hand-built method
+ * may have them), some with fallbacks, and single criteria with a fallback. */
+TEST(engine_property_random_sequences)
+{
+	method_t base;
+	REQUIRE(fixture_method(
+	    HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
+	         "dose_max_ml: 1.0}\n"
+	         "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	         "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, time_max_s: 3600}\n"
+	         "results:\n  - name: r\n    formula: end1_ml * titer / amount\n"
+	         "    unit: mL/mL\n    decimals: 3\n",
+	    &base));
+	rng_state = 20261205;
+	int runs = harness_quick() ? 40 : 300;
+	int bad = 0, listed = 0, fell_back = 0;
+	for (int i = 0; i < runs && bad < 5; i++) {
+		chem_scenario_t s;
+		method_t m = base;
+		random_scenario(&s);
+		random_method(&m, &s);
+		double u = m.signal == SIGNAL_MV ? 59.16 : 1.0;
+		bool mv = m.signal == SIGNAL_MV;
+		int n = urand() < 0.25 ? 0 : 1 + (int)(urand() * METHOD_MAX_ENDPOINTS);
+		for (int c = 0; c < (n ? n : 1); c++) {
+			method_criterion_t *cr = &m.criteria[c];
+			int k = (int)(urand() * 3);
+			cr->kind = k == 0   ? DETECT_INFLECTION
+			           : k == 1 ? DETECT_TARGET
+			                    : DETECT_GRAN;
+			cr->count = 1;
+			cr->min_jump = uni(0.1, 3) * u;
+			cr->has_window = urand() < 0.5;
+			double lo = uni(2, 8), hi = lo + uni(1, 6);
+			cr->window_lo = mv ? (7 - hi) * u : lo;
+			cr->window_hi = mv ? (7 - lo) * u : hi;
+			cr->has_target = cr->kind == DETECT_TARGET;
+			cr->target = mv ? (7 - uni(3, 11)) * u : uni(3, 11);
+			cr->has_fallback = cr->kind != DETECT_TARGET && urand() < 0.6;
+			cr->fallback = mv ? (7 - uni(3, 11)) * u : uni(3, 11);
+		}
+		if (n) {
+			m.n_criteria = n;
+			m.count = n;
+			listed++;
+		} else {
+			method_criterion_t one = m.criteria[0];
+			one.count = m.count;
+			if (one.kind == DETECT_TARGET)
+				one.count = 1;
+			one.has_fallback = one.kind != DETECT_TARGET && one.count == 1;
+			method_for_criterion(&m, &one, &m);
+		}
+		simrun_opts_t o = {.seed = 7000 + (unsigned long long)i,
+		                   .burette_start_ml = urand() < 0.3 ? uni(0, 1) : -1,
+		                   .vessel_max_ml = urand() < 0.2 ? uni(0.5, 30) : 0};
+		simrun_out_t out;
+		engine_t *e = simrun_run(&m, &s, &o, &out);
+		REQUIRE(e);
+		double limit;
+		bool ok = run_ok(&m, e, &o, &out, &limit);
+		for (int k = 0; k < engine_n_endpoints(e); k++)
+			fell_back += engine_endpoint(e, k)->fallback;
+		if (!ok) {
+			bad++;
+			harness_fail(
+			    __FILE__, __LINE__,
+			    "run %d: %d criteria, stuck %d stop %s dispensed %.6f (limit %.6f) "
+			    "points %d endpoints %d fault '%s'",
+			    i, n, out.stuck, engine_stop_name(engine_stop_reason(e)),
+			    engine_dispensed_ml(e), limit, engine_n_points(e),
+			    engine_n_endpoints(e), engine_fault_code(e));
+		}
+		engine_free(e);
+	}
+	/* the generator really made lists, and some runs really fell back */
+	CHECK(listed > runs / 2);
+	CHECK(fell_back > 0);
 }

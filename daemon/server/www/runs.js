@@ -168,7 +168,8 @@ export function runView(root, id) {
 						h('td', {}, `E${e.n}`),
 						h('td', {}, withUncertainty(e.volume_ml, e.u_volume_ml)),
 						h('td', {}, fmt(e.ph, 2)), h('td', {}, fmt(e.mv, 1)),
-						h('td', {}, e.how || '')))))
+						h('td', {}, (e.how || '') + (e.fallback
+							? ` (fallback of criterion ${e.criterion}: no inflection)` : ''))))))
 				: h('p', {class: 'muted'}, FINAL.has(rec.state) ? 'No endpoint found.'
 					: 'No endpoint yet.'));
 			const res = rec.results || [];
@@ -178,7 +179,8 @@ export function runView(root, id) {
 						h('th', {}, 'accept'))),
 					h('tbody', {}, res.map((x) => h('tr', {'data-result': x.name},
 						h('td', {}, x.name),
-						h('td', {class: 'num'}, `${resultText(x)} ${x.unit || ''}`),
+						h('td', {class: 'num'}, `${resultText(x)} ${x.unit || ''}`
+							+ (x.fallback ? ' (from a fallback endpoint)' : '')),
 						h('td', {}, acceptBadge(x.accept))))))
 				: h('p', {class: 'muted'}, FINAL.has(rec.state) ? 'No results.'
 					: 'Results appear when the run ends.'));
