@@ -14,8 +14,10 @@
 #include "chem.h"
 #include "endpoint.h"
 #include "modelfit.h"
+#include "settlefit.h"
 
 #define WIN_MAX 512 /* readings kept while settling */
+#define FIT_MAX 64  /* latest readings the settling fit looks at */
 
 typedef enum {
 	ST_INIT = 0,
@@ -47,6 +49,16 @@ struct engine {
 	double settle_from_s;
 	int n_win;
 	double win_t[WIN_MAX], win_s[WIN_MAX], win_mv[WIN_MAX], win_ph[WIN_MAX], win_tc[WIN_MAX];
+	/* the readings' noise, from the scatter around the settling fit of each
+	 * point that had enough readings for one */
+	int noise_pts, noisy_pts;
+	double noise_sum;
+	/* the electrode's time constant, from the points whose approach fixed
+	 * it (log-mean, s); extrapolation then needs fewer readings */
+	double tau_chi2[SETTLEFIT_N_TAU]; /* summed misfit per grid tau */
+	int tau_k_lo, tau_k_hi;           /* the taus it admits; lo > hi: not yet fixed */
+	char warn_code[32];
+	char warn_msg[256];
 
 	engine_point_t *pts;
 	int n_pts, cap_pts;
@@ -54,6 +66,7 @@ struct engine {
 	int n_ep;
 	engine_endpoint_t ep[METHOD_MAX_ENDPOINTS];
 	bool all_found;
+	int found_at;         /* points when all endpoints were found */
 	bool target_recheck;  /* a target point was read again once */
 	double stop_after_ml; /* once all endpoints are found: dose up to here */
 
@@ -129,6 +142,8 @@ engine_t *engine_new(const method_t *m, const engine_params_t *p)
 		e->content_ml = e->p.burette_capacity_ml;
 	e->phase = "stirring";
 	e->stop_after_ml = INFINITY;
+	e->tau_k_lo = 1;
+	e->tau_k_hi = 0;
 	e->cap_pts = 64;
 	e->pts = malloc((size_t)e->cap_pts * sizeof *e->pts);
 	if (!e->pts) {
@@ -382,6 +397,13 @@ static double steps_within(const engine_t *e, double room_ml)
 	return floor(room_ml / e->quantum_ml + 1e-9) * e->quantum_ml;
 }
 
+/* Signal change per decade of the remaining volume near an acid-base
+ * equivalence point: 1/ln 10 pH, or a Nernst slope over ln 10 in mV. */
+static double decade_amp(const engine_t *e)
+{
+	return (e->m.signal == SIGNAL_MV ? chem_nernst_mv(25.0) : 1.0) / 2.302585092994046;
+}
+
 /* Addition for a signal change `aim` near a jump: the slope of a titration
  * curve before an equivalence point grows roughly as a/(Ve - V) (the
  * buffer term log(V/(Ve - V)) dominates there). Two slopes fix a and Ve;
@@ -422,8 +444,7 @@ static double hyperbolic_dose(const engine_t *e, double aim)
 		 * slope at the last point taken as the last secant grown once
 		 * more by its growth ratio. Without this a jump can be crossed in
 		 * one addition, leaving no point on it. */
-		double amp =
-		    (e->m.signal == SIGNAL_MV ? chem_nernst_mv(25.0) : 1.0) / 2.302585092994046;
+		double amp = decade_amp(e);
 		double sb = s1 * fmin(s1 / s0, 10.0);
 		return amp / sb * (1.0 - exp(-aim / amp));
 	}
@@ -434,16 +455,72 @@ static double hyperbolic_dose(const engine_t *e, double aim)
 	return d > 0 ? d : INFINITY;
 }
 
+/* Guided mode, past the last endpoint: what is left up to the stop volume
+ * only serves the evaluation (the model fit wants a point or two beyond the
+ * jump, not many), so it goes in two additions: half, then the rest. */
+static double guided_after(const engine_t *e, double dose)
+{
+	if (!e->all_found || !isfinite(e->stop_after_ml))
+		return dose;
+	double left = e->stop_after_ml - e->dispensed_ml;
+	if (!(left > 0))
+		return dose;
+	return fmax(dose, e->n_pts - e->found_at >= 1 ? left : left / 2);
+}
+
+/* The equivalence volume the last two points predict, mL, or NAN. Before an
+ * equivalence point the signal moves at least one decade (decade_amp) per
+ * decade of the remaining volume Ve - V; a weak acid's buffer term and the
+ * dilution of a strong one only add to that. Taking all of the last rise as
+ * that law, (Ve - V2) / (Ve - V1) = exp(-dS / amp), puts Ve no later than it
+ * is: a safe aim for a large addition. */
+static double predicted_ve(const engine_t *e, int dir)
+{
+	int n = e->n_pts;
+	if (n < 2 || dir == 0)
+		return NAN;
+	const engine_point_t *a = &e->pts[n - 2], *b = &e->pts[n - 1];
+	double dv = b->volume_ml - a->volume_ml, ds = (b->signal - a->signal) * dir;
+	if (!(dv > 0) || !(ds > 0))
+		return NAN;
+	double r = exp(-ds / decade_amp(e));
+	double ve = (b->volume_ml - r * a->volume_ml) / (1.0 - r);
+	return ve > b->volume_ml ? ve : NAN;
+}
+
+/* True once the slopes have risen to twice their lowest: a jump is near or
+ * under way, and additions must not grow fast. */
+static bool jump_seen(const engine_t *e)
+{
+	double smin = INFINITY, smax = 0;
+	for (int i = 1; i < e->n_pts; i++) {
+		double dv = e->pts[i].volume_ml - e->pts[i - 1].volume_ml;
+		if (!(dv > 0))
+			continue;
+		double sl = fabs(e->pts[i].signal - e->pts[i - 1].signal) / dv;
+		smin = fmin(smin, sl);
+		smax = fmax(smax, sl);
+	}
+	return smax >= 2 * smin;
+}
+
 static double next_dose_ml(const engine_t *e)
 {
 	const method_t *m = &e->m;
 	double dose;
 	int n = e->n_pts;
+	bool guided = m->dosing == DOSING_GUIDED;
 	if (m->dosing == DOSING_CONSTANT) {
 		dose = m->dose_ml;
 	} else {
 		double lo = m->dose_min_ml, hi = m->dose_max_ml;
 		double aim = m->step_aim;
+		/* Guided: never aim at more than a decade of the remaining volume
+		 * per addition, so the hyperbolic law below keeps at least one
+		 * point in each e-fold of the approach to the predicted
+		 * equivalence point, whatever step_aim says. */
+		if (guided && aim > decade_amp(e))
+			aim = decade_amp(e);
 		if (m->detect == DETECT_TARGET && m->has_target && n >= 1) {
 			int dir = run_dir(e);
 			double left = (m->target - e->pts[n - 1].signal) * (dir ? dir : 1);
@@ -462,12 +539,29 @@ static double next_dose_ml(const engine_t *e)
 		 * be overshot, and an inflection needs points on its steep part
 		 * for the derivative (the model fit gains from them too). */
 		dose = fmin(dose, hyperbolic_dose(e, aim));
-		/* Never more than three times the last addition: a flat stretch read
-		 * through noise must not launch a jump over the endpoint. */
-		if (n >= 2) {
+		if (guided) {
+			/* Guided: far from the predicted equivalence point, cover
+			 * 70 % of the way to it at once (the prediction errs
+			 * early, so the next point is still before it); on and
+			 * past the jump the rules above hold. */
+			double ve = predicted_ve(e, run_dir(e));
+			if (!e->all_found && isfinite(ve)) {
+				double plan = 0.7 * (ve - e->pts[n - 1].volume_ml);
+				if (m->detect != DETECT_TARGET || plan < dose)
+					dose = plan;
+			}
+			dose = guided_after(e, dose);
+		}
+		/* Never more than three times the last addition: a flat stretch
+		 * read through noise must not launch a jump over the endpoint.
+		 * Guided: eight times while no slope has yet risen (the first
+		 * additions reach full size at once), and no limit past the last
+		 * endpoint (only the stop volume is ahead). */
+		if (n >= 2 && !(guided && e->all_found)) {
 			double last = e->pts[n - 1].volume_ml - e->pts[n - 2].volume_ml;
-			if (last > 0 && dose > 3 * last)
-				dose = 3 * last;
+			double grow = guided && !jump_seen(e) ? 8 : 3;
+			if (last > 0 && dose > grow * last)
+				dose = grow * last;
 		}
 		if (dose < lo)
 			dose = lo;
@@ -545,6 +639,7 @@ static engine_action_t after_point(engine_t *e)
 		}
 		if (e->n_ep >= m->count) {
 			e->all_found = true;
+			e->found_at = e->n_pts;
 			e->stop_after_ml = e->ep[m->count - 1].volume_ml + m->past_endpoint_ml;
 		}
 	}
@@ -585,7 +680,83 @@ static bool push_point(engine_t *e, const engine_point_t *pt)
 	return true;
 }
 
-/* A reading while settling: accept a point when still, or at wait_max_s. */
+/* The smallest reading scatter the settling fit assumes: the meter's
+ * resolution, 0.001 pH or 0.1 mV (common practice, docs/chemistry.md §10). */
+static double signal_floor(const engine_t *e)
+{
+	return e->m.signal == SIGNAL_MV ? 0.1 : 0.001;
+}
+
+/* The settling fit of the readings since the addition (the latest FIT_MAX).
+ * `learned`: over the time constants the run's points admit together once
+ * they fix it; else over the full grid.
+ * The scatter assumed is at least the noise seen so far. */
+static settlefit_t settle_fit(const engine_t *e, bool learned)
+{
+	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
+	double noise = signal_floor(e);
+	if (e->noise_pts > 0)
+		noise = fmax(noise, e->noise_sum / e->noise_pts);
+	int lo = 0, hi = SETTLEFIT_N_TAU - 1;
+	if (learned && e->tau_k_lo <= e->tau_k_hi) {
+		lo = e->tau_k_lo;
+		hi = e->tau_k_hi;
+	}
+	return settlefit_fit(e->win_t + f0, e->win_s + f0, nfit, noise, lo, hi);
+}
+
+/* What a point's readings tell of the electrode's time constant, added to
+ * what the earlier points told: the run's time constant is fixed once the
+ * taus within 4 of the least summed misfit (2 sigma) span at most a factor
+ * 4 and stop short of the grid's slowest. */
+static void note_tau(engine_t *e, const settlefit_t *fit)
+{
+	if (!fit->ok)
+		return;
+	int best = 0;
+	for (int k = 0; k < SETTLEFIT_N_TAU; k++) {
+		if (isfinite(fit->chi2[k]))
+			e->tau_chi2[k] += fit->chi2[k];
+		if (e->tau_chi2[k] < e->tau_chi2[best])
+			best = k;
+	}
+	int lo = best, hi = best;
+	while (lo > 0 && e->tau_chi2[lo - 1] <= e->tau_chi2[best] + 4)
+		lo--;
+	while (hi < SETTLEFIT_N_TAU - 1 && e->tau_chi2[hi + 1] <= e->tau_chi2[best] + 4)
+		hi++;
+	if (hi < SETTLEFIT_N_TAU - 1 && settlefit_tau(hi) <= 4 * settlefit_tau(lo)) {
+		e->tau_k_lo = lo;
+		e->tau_k_hi = hi;
+	}
+}
+
+/* The noise check: a settling band narrower than three times the readings'
+ * RMS noise is rarely met by a run of still readings, so each point would
+ * wait for wait_max_s. Judged over the points whose settling had enough
+ * readings for a fit; reported once most of at least three say so. */
+static void note_noise(engine_t *e, const settlefit_t *fit)
+{
+	if (!fit->ok || !isfinite(fit->sigma))
+		return;
+	e->noise_pts++;
+	e->noise_sum += fit->sigma;
+	if (3.0 * fit->sigma > e->m.still_within)
+		e->noisy_pts++;
+	if (e->warn_code[0] || e->noise_pts < 3 || 2 * e->noisy_pts <= e->noise_pts)
+		return;
+	const char *u = e->m.signal == SIGNAL_MV ? "mV" : "pH";
+	double sigma = e->noise_sum / e->noise_pts;
+	snprintf(e->warn_code, sizeof e->warn_code, "settle_below_noise");
+	snprintf(e->warn_msg, sizeof e->warn_msg,
+	         "settle.still_within %g %s is below the readings' noise (about %.2g %s RMS "
+	         "over %d points): points wait for settle.wait_max_s; widen still_within to "
+	         "%.2g %s or more, or use settle.rule: extrapolate",
+	         e->m.still_within, u, sigma, u, e->noise_pts, 3 * sigma, u);
+}
+
+/* A reading while settling: accept a point when settled by the
+ * method's rule, or at wait_max_s. */
 static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 {
 	const method_t *m = &e->m;
@@ -611,25 +782,41 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 	double waited = ev->t_s - e->settle_from_s;
 	bool accept = false, settled = false;
 	int from = e->n_win - 1;
+	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
+	settlefit_t fit = {.ok = false};
+	/* The first point follows no addition: nothing to extrapolate, so it
+	 * waits to be still. */
+	bool extrap = m->settle_rule == SETTLE_EXTRAPOLATE && e->n_pts > 0, use_fit = false;
 	if (waited >= m->wait_min_s) {
-		/* Still: the readings of the last still_for_s, which must reach
-		 * back that far since the addition, lie within still_within. When
-		 * still_for_s is not a whole number of reading intervals, the
-		 * reading just before the window's start stands for its start. */
-		double t0 = ev->t_s - m->still_for_s;
-		while (from > 0 && e->win_t[from - 1] >= t0 - 1e-9)
-			from--;
-		if (from > 0 && e->win_t[from] > t0 + 1e-9)
-			from--;
-		bool covers = e->win_t[from] <= t0 + 1e-9 || m->still_for_s <= 0;
-		if (covers) {
-			double lo = INFINITY, hi = -INFINITY;
-			for (int i = from; i < e->n_win; i++) {
-				lo = fmin(lo, e->win_s[i]);
-				hi = fmax(hi, e->win_s[i]);
+		if (extrap) {
+			/* Extrapolate: the first-order fit of the readings since the
+			 * addition fixes the settled value within the band; once
+			 * the run's points have fixed the electrode's time
+			 * constant, under that constant. */
+			fit = settle_fit(e, true);
+			if (fit.ok && fit.half <= m->still_within)
+				accept = settled = use_fit = true;
+		} else {
+			/* Still: the readings of the last still_for_s, which must
+			 * reach back that far since the addition, lie within
+			 * still_within. When still_for_s is not a whole number of
+			 * reading intervals, the reading just before the window's
+			 * start stands for its start. */
+			double t0 = ev->t_s - m->still_for_s;
+			while (from > 0 && e->win_t[from - 1] >= t0 - 1e-9)
+				from--;
+			if (from > 0 && e->win_t[from] > t0 + 1e-9)
+				from--;
+			bool covers = e->win_t[from] <= t0 + 1e-9 || m->still_for_s <= 0;
+			if (covers) {
+				double lo = INFINITY, hi = -INFINITY;
+				for (int i = from; i < e->n_win; i++) {
+					lo = fmin(lo, e->win_s[i]);
+					hi = fmax(hi, e->win_s[i]);
+				}
+				if (hi - lo <= m->still_within)
+					accept = settled = true;
 			}
-			if (hi - lo <= m->still_within)
-				accept = settled = true;
 		}
 		if (!accept && waited >= m->wait_max_s) {
 			accept = true;
@@ -639,21 +826,41 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 	if (!accept)
 		return act(e, ENGINE_ACT_READ, ev->t_s + e->p.read_interval_s);
 
-	/* The point is the mean over the still window: it averages the noise
-	 * of the readings that showed the signal had settled. */
+	/* What the readings say of the electrode, for the next points. */
+	settlefit_t wide = settle_fit(e, false);
+	note_noise(e, &wide);
+	note_tau(e, &wide);
+
 	engine_point_t pt = {.t_s = ev->t_s, .volume_ml = e->dispensed_ml, .settled = settled};
-	double sm = 0, sv = 0, sp = 0, st = 0;
-	int cnt = 0;
-	for (int i = from; i < e->n_win; i++, cnt++) {
-		sm += e->win_s[i];
-		sv += e->win_mv[i];
-		sp += e->win_ph[i];
-		st += e->win_tc[i];
+	if (use_fit) {
+		/* The point is the predicted settled value, each channel under
+		 * the time constant the signal's fit found. */
+		const double *t = e->win_t + f0;
+		pt.signal = fit.y_inf;
+		pt.mv = settlefit_at_tau(t, e->win_mv + f0, nfit, fit.tau_s);
+		pt.ph = isfinite(e->win_ph[e->n_win - 1])
+		            ? settlefit_at_tau(t, e->win_ph + f0, nfit, fit.tau_s)
+		            : NAN;
+		double st = 0;
+		for (int i = f0; i < e->n_win; i++)
+			st += e->win_tc[i];
+		pt.temperature_c = st / nfit;
+	} else {
+		/* The point is the mean over the still window: it averages the
+		 * noise of the readings that showed the signal had settled. */
+		double sm = 0, sv = 0, sp = 0, st = 0;
+		int cnt = 0;
+		for (int i = from; i < e->n_win; i++, cnt++) {
+			sm += e->win_s[i];
+			sv += e->win_mv[i];
+			sp += e->win_ph[i];
+			st += e->win_tc[i];
+		}
+		pt.signal = sm / cnt;
+		pt.mv = sv / cnt;
+		pt.ph = sp / cnt;
+		pt.temperature_c = st / cnt;
 	}
-	pt.signal = sm / cnt;
-	pt.mv = sv / cnt;
-	pt.ph = sp / cnt;
-	pt.temperature_c = st / cnt;
 	if (e->n_pts > 0) {
 		const engine_point_t *prev = &e->pts[e->n_pts - 1];
 		double dv = pt.volume_ml - prev->volume_ml;
@@ -785,6 +992,16 @@ const char *engine_fault_message(const engine_t *e)
 	if (e->reason == ENGINE_STOP_FAULT)
 		return e->fault_msg;
 	return e->st == ST_DONE ? e->eval_msg : "";
+}
+
+const char *engine_warning_code(const engine_t *e)
+{
+	return e->warn_code;
+}
+
+const char *engine_warning_message(const engine_t *e)
+{
+	return e->warn_msg;
 }
 
 engine_outcome_t engine_outcome(const engine_t *e)

@@ -1,0 +1,130 @@
+/* settlefit.c: first-order fit of an electrode's approach (see settlefit.h).
+ *
+ * For a fixed time constant the law y = y_inf + A g(t), g = exp(-(t - t0)/tau),
+ * is linear in (y_inf, A), so the fit scans tau over a log grid and solves
+ * the 2x2 least-squares problem at each (variable projection). The interval
+ * of y_inf is the profile over tau: every tau whose residual sum stays within
+ * four noise variances of the best (a 2-sigma profile for one parameter)
+ * contributes its y_inf with its own 2-sigma linear error. When the range is open and its slowest
+ * tau still fits, the readings cannot tell an approach from a drift: the interval is infinite.
+ */
+#include "settlefit.h"
+
+#include <math.h>
+
+double settlefit_tau(int k)
+{
+	return SETTLEFIT_TAU_LO *
+	       pow(SETTLEFIT_TAU_HI / SETTLEFIT_TAU_LO, (double)k / (SETTLEFIT_N_TAU - 1));
+}
+
+typedef struct lin {
+	double c, a, sse, var_c_unit; /* var_c_unit: var(c) per unit noise variance */
+	bool ok;
+} lin_t;
+
+/* Least squares of y = c + a g at one tau; y is taken relative to y0 for
+ * precision. g is built by a running product: one exp per distinct
+ * reading interval, not one per reading. */
+static lin_t lin_at(const double *t_s, const double *y, int n, double tau_s, double y0)
+{
+	lin_t r = {0};
+	double sg = 0, sgg = 0, sy = 0, sgy = 0, g = 1.0, last_dt = NAN, step = 1.0;
+	for (int i = 0; i < n; i++) {
+		if (i > 0) {
+			double dt = t_s[i] - t_s[i - 1];
+			if (dt != last_dt) {
+				step = exp(-dt / tau_s);
+				last_dt = dt;
+			}
+			g *= step;
+		}
+		double v = y[i] - y0;
+		sg += g;
+		sgg += g * g;
+		sy += v;
+		sgy += g * v;
+	}
+	double det = n * sgg - sg * sg;
+	if (!(det > 1e-12 * n * n))
+		return r;
+	r.c = (sgg * sy - sg * sgy) / det;
+	r.a = (n * sgy - sg * sy) / det;
+	r.var_c_unit = sgg / det;
+	g = 1.0;
+	last_dt = NAN;
+	double sse = 0;
+	for (int i = 0; i < n; i++) {
+		if (i > 0) {
+			double dt = t_s[i] - t_s[i - 1];
+			if (dt != last_dt) {
+				step = exp(-dt / tau_s);
+				last_dt = dt;
+			}
+			g *= step;
+		}
+		double d = y[i] - y0 - r.c - r.a * g;
+		sse += d * d;
+	}
+	r.sse = sse;
+	r.c += y0;
+	r.ok = true;
+	return r;
+}
+
+settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, int k_lo,
+                          int k_hi)
+{
+	settlefit_t f = {.ok = false, .y_inf = NAN, .half = INFINITY, .tau_s = NAN, .sigma = NAN};
+	for (int k = 0; k < SETTLEFIT_N_TAU; k++)
+		f.chi2[k] = INFINITY;
+	if (k_lo < 0)
+		k_lo = 0;
+	if (k_hi > SETTLEFIT_N_TAU - 1)
+		k_hi = SETTLEFIT_N_TAU - 1;
+	/* Over the full grid tau is a third parameter; over a narrow range of
+	 * a known electrode it is all but fixed. */
+	bool open = k_lo == 0 && k_hi == SETTLEFIT_N_TAU - 1;
+	int npar = open ? 3 : 2;
+	if (n < 4 || k_lo > k_hi)
+		return f;
+	double y0 = y[n - 1];
+	lin_t fits[SETTLEFIT_N_TAU];
+	int best = -1;
+	for (int k = k_lo; k <= k_hi; k++) {
+		fits[k] = lin_at(t_s, y, n, settlefit_tau(k), y0);
+		if (fits[k].ok && (best < 0 || fits[k].sse < fits[best].sse))
+			best = k;
+	}
+	if (best < 0)
+		return f;
+	double own = fits[best].sse / (n - npar);
+	double var = fmax(own, noise * noise);
+	double spread = 0;
+	bool unfixed = false;
+	for (int k = k_lo; k <= k_hi; k++) {
+		if (!fits[k].ok)
+			continue;
+		f.chi2[k] = (fits[k].sse - fits[best].sse) / var;
+		if (open && f.chi2[k] > 4.0)
+			continue;
+		if (k == SETTLEFIT_N_TAU - 1 && open)
+			unfixed = true;
+		spread = fmax(spread, fabs(fits[k].c - fits[best].c) +
+		                          2.0 * sqrt(var * fits[k].var_c_unit));
+	}
+	f.ok = true;
+	f.y_inf = fits[best].c;
+	f.tau_s = settlefit_tau(best);
+	f.sigma = n >= SETTLEFIT_NOISE_N ? sqrt(own) : NAN;
+	f.half = unfixed ? INFINITY : spread;
+	return f;
+}
+
+double settlefit_at_tau(const double *t_s, const double *y, int n, double tau_s)
+{
+	if (n < 2 || !(tau_s > 0))
+		return n > 0 ? y[n - 1] : NAN;
+	lin_t r = lin_at(t_s, y, n, tau_s, y[n - 1]);
+	return r.ok ? r.c : y[n - 1];
+}
