@@ -49,14 +49,14 @@ struct engine {
 	double settle_from_s;
 	int n_win;
 	double win_t[WIN_MAX], win_s[WIN_MAX], win_mv[WIN_MAX], win_ph[WIN_MAX], win_tc[WIN_MAX];
-	/* the readings' noise, from the scatter around the settling fit of each
-	 * point that had enough readings for one */
-	int noise_pts, noisy_pts;
-	double noise_sum;
+	/* the readings' noise: the scatter around the settling fits of the
+	 * points, pooled (residual sums and their degrees of freedom) */
+	double noise_sse;
+	int noise_dof, noise_pts;
 	/* the electrode's time constant, from the points whose approach fixed
 	 * it (log-mean, s); extrapolation then needs fewer readings */
 	double tau_chi2[SETTLEFIT_N_TAU]; /* summed misfit per grid tau */
-	int tau_k_lo, tau_k_hi;           /* the taus it admits; lo > hi: not yet fixed */
+	double tau_lo_s, tau_hi_s;        /* the taus it admits, s; 0: not yet fixed */
 	char warn_code[32];
 	char warn_msg[256];
 
@@ -142,8 +142,6 @@ engine_t *engine_new(const method_t *m, const engine_params_t *p)
 		e->content_ml = e->p.burette_capacity_ml;
 	e->phase = "stirring";
 	e->stop_after_ml = INFINITY;
-	e->tau_k_lo = 1;
-	e->tau_k_hi = 0;
 	e->cap_pts = 64;
 	e->pts = malloc((size_t)e->cap_pts * sizeof *e->pts);
 	if (!e->pts) {
@@ -695,20 +693,20 @@ static settlefit_t settle_fit(const engine_t *e, bool learned)
 {
 	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
 	double noise = signal_floor(e);
-	if (e->noise_pts > 0)
-		noise = fmax(noise, e->noise_sum / e->noise_pts);
-	int lo = 0, hi = SETTLEFIT_N_TAU - 1;
-	if (learned && e->tau_k_lo <= e->tau_k_hi) {
-		lo = e->tau_k_lo;
-		hi = e->tau_k_hi;
-	}
-	return settlefit_fit(e->win_t + f0, e->win_s + f0, nfit, noise, lo, hi);
+	if (e->noise_dof > 0)
+		noise = fmax(noise, sqrt(e->noise_sse / e->noise_dof));
+	bool known = learned && e->tau_lo_s > 0;
+	return settlefit_fit(e->win_t + f0, e->win_s + f0, nfit, noise, known ? e->tau_lo_s : 0,
+	                     known ? e->tau_hi_s : 0);
 }
 
 /* What a point's readings tell of the electrode's time constant, added to
- * what the earlier points told: the run's time constant is fixed once the
- * taus within 4 of the least summed misfit (2 sigma) span at most a factor
- * 4 and stop short of the grid's slowest. */
+ * what the earlier points told. The summed misfit is smooth in log tau: a
+ * parabola through the least grid value and its neighbours gives the best
+ * tau and the range within 4 of its least value (2 sigma), never narrower
+ * than a quarter grid step either way. The run's time constant counts as
+ * fixed once that range spans at most a factor 4 and stops short of the
+ * grid's slowest. */
 static void note_tau(engine_t *e, const settlefit_t *fit)
 {
 	if (!fit->ok)
@@ -720,39 +718,59 @@ static void note_tau(engine_t *e, const settlefit_t *fit)
 		if (e->tau_chi2[k] < e->tau_chi2[best])
 			best = k;
 	}
-	int lo = best, hi = best;
-	while (lo > 0 && e->tau_chi2[lo - 1] <= e->tau_chi2[best] + 4)
-		lo--;
-	while (hi < SETTLEFIT_N_TAU - 1 && e->tau_chi2[hi + 1] <= e->tau_chi2[best] + 4)
-		hi++;
-	if (hi < SETTLEFIT_N_TAU - 1 && settlefit_tau(hi) <= 4 * settlefit_tau(lo)) {
-		e->tau_k_lo = lo;
-		e->tau_k_hi = hi;
-	}
+	if (best == 0 || best == SETTLEFIT_N_TAU - 1)
+		return;
+	double cm = e->tau_chi2[best - 1], c0 = e->tau_chi2[best], cp = e->tau_chi2[best + 1];
+	double curv = (cm + cp - 2 * c0) / 2; /* chi2 = c + curv (k - k*)^2 */
+	if (!(curv > 0))
+		return;
+	double kstar = best + (cm - cp) / (4 * curv);
+	double half_k = fmax(sqrt(4.0 / curv), 0.25);
+	double klo = kstar - half_k, khi = kstar + half_k;
+	if (khi >= SETTLEFIT_N_TAU - 1 || settlefit_tau(khi) > 4 * settlefit_tau(klo))
+		return;
+	e->tau_lo_s = settlefit_tau(fmax(klo, 0));
+	e->tau_hi_s = settlefit_tau(khi);
 }
 
-/* The noise check: a settling band narrower than three times the readings'
- * RMS noise is rarely met by a run of still readings, so each point would
- * wait for wait_max_s. Judged over the points whose settling had enough
- * readings for a fit; reported once most of at least three say so. */
+/* The noise check: the still rule accepts when the readings of still_for_s
+ * lie within still_within; when the expected range of that many readings of
+ * pure noise (d_n sigma, d_n the mean range of n normal deviates: Tippett
+ * 1925, as tabled for control charts) exceeds the band, most windows fail and
+ * points wait for wait_max_s. The noise is pooled over the points' settling
+ * fits; reported once it rests on at least 10 degrees of freedom from 3
+ * points. */
+static double mean_range_of(int n)
+{
+	static const double d[] = {0,     0,     1.128, 1.693, 2.059, 2.326, 2.534,
+	                           2.704, 2.847, 2.970, 3.078, 3.173, 3.258};
+	if (n < 2)
+		return 1.128; /* a still_for_s of 0 still compares two readings */
+	return n < (int)(sizeof d / sizeof d[0]) ? d[n] : d[sizeof d / sizeof d[0] - 1];
+}
+
 static void note_noise(engine_t *e, const settlefit_t *fit)
 {
-	if (!fit->ok || !isfinite(fit->sigma))
+	if (!fit->ok || !(fit->dof > 0) || !isfinite(fit->sse))
 		return;
+	e->noise_sse += fit->sse;
+	e->noise_dof += fit->dof;
 	e->noise_pts++;
-	e->noise_sum += fit->sigma;
-	if (3.0 * fit->sigma > e->m.still_within)
-		e->noisy_pts++;
-	if (e->warn_code[0] || e->noise_pts < 3 || 2 * e->noisy_pts <= e->noise_pts)
+	double sigma = sqrt(e->noise_sse / e->noise_dof);
+	int n_still = (int)floor(e->m.still_for_s / e->p.read_interval_s + 1e-9) + 1;
+	double need = mean_range_of(n_still) * sigma;
+	if (e->warn_code[0] || e->noise_pts < 3 || e->noise_dof < 10 || !(need > e->m.still_within))
 		return;
 	const char *u = e->m.signal == SIGNAL_MV ? "mV" : "pH";
-	double sigma = e->noise_sum / e->noise_pts;
 	snprintf(e->warn_code, sizeof e->warn_code, "settle_below_noise");
 	snprintf(e->warn_msg, sizeof e->warn_msg,
 	         "settle.still_within %g %s is below the readings' noise (about %.2g %s RMS "
-	         "over %d points): points wait for settle.wait_max_s; widen still_within to "
-	         "%.2g %s or more, or use settle.rule: extrapolate",
-	         e->m.still_within, u, sigma, u, e->noise_pts, 3 * sigma, u);
+	         "over %d points): %s; widen still_within to %.2g %s or more",
+	         e->m.still_within, u, sigma, u, e->noise_pts,
+	         e->m.settle_rule == SETTLE_STILL
+	             ? "points wait for settle.wait_max_s (or use settle.rule: extrapolate)"
+	             : "each point needs many readings",
+	         need, u);
 }
 
 /* A reading while settling: accept a point when settled by the

@@ -90,6 +90,18 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 	}
 	r->additions = engine_additions(e);
 	r->dispensed_ml = engine_dispensed_ml(e);
+	/* A warning that did not stop the run (the settling band below the
+	 * readings' noise) is listed with the faults, once, as soon as it is
+	 * known: it says why the run took so long or its points are unsettled. */
+	const char *warn = engine_warning_code(e);
+	if (warn[0]) {
+		bool listed = false;
+		for (int i = 0; i < r->n_faults; i++)
+			if (!strcmp(r->faults[i].code, warn))
+				listed = true;
+		if (!listed)
+			record_add_fault(r, at, warn, engine_warning_message(e));
+	}
 	if (engine_done(e)) {
 		r->phase[0] = '\0';
 		snprintf(r->stop_reason, sizeof r->stop_reason, "%s",

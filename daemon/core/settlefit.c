@@ -12,7 +12,7 @@
 
 #include <math.h>
 
-double settlefit_tau(int k)
+double settlefit_tau(double k)
 {
 	return SETTLEFIT_TAU_LO *
 	       pow(SETTLEFIT_TAU_HI / SETTLEFIT_TAU_LO, (double)k / (SETTLEFIT_N_TAU - 1));
@@ -72,27 +72,30 @@ static lin_t lin_at(const double *t_s, const double *y, int n, double tau_s, dou
 	return r;
 }
 
-settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, int k_lo,
-                          int k_hi)
+#define N_RANGE 9 /* taus tried across a known range */
+
+settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, double tau_lo_s,
+                          double tau_hi_s)
 {
-	settlefit_t f = {.ok = false, .y_inf = NAN, .half = INFINITY, .tau_s = NAN, .sigma = NAN};
+	settlefit_t f = {.ok = false, .y_inf = NAN, .half = INFINITY, .tau_s = NAN, .sse = NAN};
 	for (int k = 0; k < SETTLEFIT_N_TAU; k++)
 		f.chi2[k] = INFINITY;
-	if (k_lo < 0)
-		k_lo = 0;
-	if (k_hi > SETTLEFIT_N_TAU - 1)
-		k_hi = SETTLEFIT_N_TAU - 1;
-	/* Over the full grid tau is a third parameter; over a narrow range of
-	 * a known electrode it is all but fixed. */
-	bool open = k_lo == 0 && k_hi == SETTLEFIT_N_TAU - 1;
-	int npar = open ? 3 : 2;
-	if (n < 4 || k_lo > k_hi)
+	/* Over the grid tau is a third parameter; over a known electrode's
+	 * range it is all but fixed. */
+	bool open = !(tau_lo_s > 0);
+	if (!open && !(tau_hi_s >= tau_lo_s))
+		return f;
+	int npar = open ? 3 : 2, nk = open ? SETTLEFIT_N_TAU : N_RANGE;
+	if (n < 4)
 		return f;
 	double y0 = y[n - 1];
 	lin_t fits[SETTLEFIT_N_TAU];
+	double taus[SETTLEFIT_N_TAU];
 	int best = -1;
-	for (int k = k_lo; k <= k_hi; k++) {
-		fits[k] = lin_at(t_s, y, n, settlefit_tau(k), y0);
+	for (int k = 0; k < nk; k++) {
+		taus[k] = open ? settlefit_tau(k)
+		               : tau_lo_s * pow(tau_hi_s / tau_lo_s, (double)k / (N_RANGE - 1));
+		fits[k] = lin_at(t_s, y, n, taus[k], y0);
 		if (fits[k].ok && (best < 0 || fits[k].sse < fits[best].sse))
 			best = k;
 	}
@@ -102,21 +105,25 @@ settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double nois
 	double var = fmax(own, noise * noise);
 	double spread = 0;
 	bool unfixed = false;
-	for (int k = k_lo; k <= k_hi; k++) {
+	for (int k = 0; k < nk; k++) {
 		if (!fits[k].ok)
 			continue;
-		f.chi2[k] = (fits[k].sse - fits[best].sse) / var;
-		if (open && f.chi2[k] > 4.0)
-			continue;
-		if (k == SETTLEFIT_N_TAU - 1 && open)
-			unfixed = true;
+		double chi2 = (fits[k].sse - fits[best].sse) / var;
+		if (open) {
+			f.chi2[k] = chi2;
+			if (chi2 > 4.0)
+				continue;
+			if (k == SETTLEFIT_N_TAU - 1)
+				unfixed = true;
+		}
 		spread = fmax(spread, fabs(fits[k].c - fits[best].c) +
 		                          2.0 * sqrt(var * fits[k].var_c_unit));
 	}
 	f.ok = true;
 	f.y_inf = fits[best].c;
-	f.tau_s = settlefit_tau(best);
-	f.sigma = n >= SETTLEFIT_NOISE_N ? sqrt(own) : NAN;
+	f.tau_s = taus[best];
+	f.sse = fits[best].sse;
+	f.dof = n - npar;
 	f.half = unfixed ? INFINITY : spread;
 	return f;
 }

@@ -16,10 +16,9 @@
 
 #include <stdbool.h>
 
-#define SETTLEFIT_N_TAU   64   /* steps of the common grid of time constants (x1.135) */
-#define SETTLEFIT_TAU_LO  0.02 /* s: faster than readings can show */
-#define SETTLEFIT_TAU_HI  60.0 /* s: slower than any usable electrode */
-#define SETTLEFIT_NOISE_N 6    /* readings for a scatter worth reporting */
+#define SETTLEFIT_N_TAU  64   /* steps of the common grid of time constants (x1.135) */
+#define SETTLEFIT_TAU_LO 0.02 /* s: faster than readings can show */
+#define SETTLEFIT_TAU_HI 60.0 /* s: slower than any usable electrode */
 
 typedef struct settlefit {
 	bool ok;      /* enough readings for a fit (at least 4) */
@@ -28,27 +27,28 @@ typedef struct settlefit {
 	               * uncertainty included; INFINITY when the readings do not
 	               * fix it (over the full grid a slow drift fits any tau) */
 	double tau_s; /* best time constant, s */
-	double sigma; /* RMS scatter of the readings around the fit (NaN below
-	               * SETTLEFIT_NOISE_N readings) */
+	double sse;   /* residual sum of squares at the best tau */
+	int dof;      /* its degrees of freedom (readings less parameters) */
 	/* misfit at each grid tau, in units of the scatter assumed: the
 	 * residual sum over the variance, minus its least value; INFINITY
-	 * outside [k_lo, k_hi] */
+	 * when the fit had a tau range */
 	double chi2[SETTLEFIT_N_TAU];
 } settlefit_t;
 
-/* Time constant k of the common grid, s (log-spaced, TAU_LO .. TAU_HI). */
-double settlefit_tau(int k);
+/* Time constant at grid position k (0 .. SETTLEFIT_N_TAU - 1, fractions
+ * allowed), s: log-spaced from TAU_LO to TAU_HI. */
+double settlefit_tau(double k);
 
-/* Fit y[i] at t_s[i] (s, increasing), n readings, over the grid taus
- * k_lo..k_hi. `noise` is the scatter to assume at least (the meter's
- * resolution, or the noise seen on earlier points; same unit as y): a fit
- * through a few readings can look perfect by chance. Over the full grid
- * tau is the readings' to find: the interval spans the taus they admit,
- * and a fit still good at the slowest leaves y_inf unfixed. Over a
- * narrower range (an electrode known from earlier points) every tau of the
- * range counts, whatever these few readings prefer. */
-settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, int k_lo,
-                          int k_hi);
+/* Fit y[i] at t_s[i] (s, increasing), n readings. `noise` is the scatter to
+ * assume at least (the meter's resolution, or the noise seen on earlier
+ * points; same unit as y): a fit through a few readings can look perfect by
+ * chance. Without a tau range (tau_lo_s <= 0) tau is the readings' to find
+ * over the common grid: the interval spans the taus they admit, a fit still
+ * good at the slowest leaves y_inf unfixed, and chi2 is filled. With a range
+ * (an electrode known from earlier points) every tau in it counts, whatever
+ * these few readings prefer. */
+settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, double tau_lo_s,
+                          double tau_hi_s);
 
 /* The settled value of another channel read at the same times (mV beside
  * pH) under the time constant tau_s found by settlefit_fit. */
