@@ -55,7 +55,7 @@ struct engine {
 	int noise_dof, noise_pts;
 	/* the electrode's time constant, from the points whose approach fixed
 	 * it (log-mean, s); extrapolation then needs fewer readings */
-	double tau_chi2[SETTLEFIT_N_TAU]; /* summed misfit per grid tau */
+	double tau_dsse[SETTLEFIT_N_TAU]; /* summed misfit per grid tau (signal units^2) */
 	double tau_lo_s, tau_hi_s;        /* the taus it admits, s; 0: not yet fixed */
 	char warn_code[32];
 	char warn_msg[256];
@@ -502,6 +502,10 @@ static bool jump_seen(const engine_t *e)
 	return smax >= 2 * smin;
 }
 
+/* Guided: the share of the way to the predicted equivalence point one
+ * addition covers. */
+#define PLAN_SHARE 0.8
+
 static double next_dose_ml(const engine_t *e)
 {
 	const method_t *m = &e->m;
@@ -539,14 +543,15 @@ static double next_dose_ml(const engine_t *e)
 		dose = fmin(dose, hyperbolic_dose(e, aim));
 		if (guided) {
 			/* Guided: far from the predicted equivalence point, cover
-			 * 70 % of the way to it at once (the prediction errs
-			 * early, so the next point is still before it); on and
-			 * past the jump the rules above hold. */
+			 * PLAN_SHARE of the way to it at once (the prediction errs
+			 * early, so the next point is still before it); where the
+			 * rules above allow more, they hold. A target is never
+			 * approached faster than the rules above allow. */
 			double ve = predicted_ve(e, run_dir(e));
 			if (!e->all_found && isfinite(ve)) {
-				double plan = 0.7 * (ve - e->pts[n - 1].volume_ml);
-				if (m->detect != DETECT_TARGET || plan < dose)
-					dose = plan;
+				double plan = PLAN_SHARE * (ve - e->pts[n - 1].volume_ml);
+				dose = m->detect == DETECT_TARGET ? fmin(dose, plan)
+				                                  : fmax(dose, plan);
 			}
 			dose = guided_after(e, dose);
 		}
@@ -685,6 +690,15 @@ static double signal_floor(const engine_t *e)
 	return e->m.signal == SIGNAL_MV ? 0.1 : 0.001;
 }
 
+/* The readings' noise as pooled so far, never below the meter's
+ * resolution; NAN before 10 degrees of freedom. */
+static double pooled_noise(const engine_t *e)
+{
+	if (e->noise_dof < 10)
+		return NAN;
+	return fmax(signal_floor(e), sqrt(e->noise_sse / e->noise_dof));
+}
+
 /* The settling fit of the readings since the addition (the latest FIT_MAX).
  * `learned`: over the time constants the run's points admit together once
  * they fix it; else over the full grid.
@@ -692,40 +706,46 @@ static double signal_floor(const engine_t *e)
 static settlefit_t settle_fit(const engine_t *e, bool learned)
 {
 	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
-	double noise = signal_floor(e);
-	if (e->noise_dof > 0)
-		noise = fmax(noise, sqrt(e->noise_sse / e->noise_dof));
+	double noise = pooled_noise(e);
+	if (!isfinite(noise))
+		noise = signal_floor(e);
 	bool known = learned && e->tau_lo_s > 0;
 	return settlefit_fit(e->win_t + f0, e->win_s + f0, nfit, noise, known ? e->tau_lo_s : 0,
-	                     known ? e->tau_hi_s : 0);
+	                     known ? e->tau_hi_s : 0, true);
 }
 
 /* What a point's readings tell of the electrode's time constant, added to
- * what the earlier points told. The summed misfit is smooth in log tau: a
- * parabola through the least grid value and its neighbours gives the best
- * tau and the range within 4 of its least value (2 sigma), never narrower
- * than a quarter grid step either way. The run's time constant counts as
- * fixed once that range spans at most a factor 4 and stops short of the
- * grid's slowest. */
+ * what the earlier points told. The summed misfit, over the pooled noise
+ * variance (the same electrode's noise on every point), is smooth in log
+ * tau: a parabola through the least grid value and its neighbours gives the
+ * best tau and the range within 4 of its least value (2 sigma), never
+ * narrower than TAU_FLOOR_STEP grid steps either way. The run's time
+ * constant counts as fixed once that range spans at most a factor 4 and
+ * stops short of the grid's slowest. */
+#define TAU_FLOOR_STEP 0.1 /* 1.3 % */
+
 static void note_tau(engine_t *e, const settlefit_t *fit)
 {
 	if (!fit->ok)
 		return;
 	int best = 0;
 	for (int k = 0; k < SETTLEFIT_N_TAU; k++) {
-		if (isfinite(fit->chi2[k]))
-			e->tau_chi2[k] += fit->chi2[k];
-		if (e->tau_chi2[k] < e->tau_chi2[best])
+		if (isfinite(fit->dsse[k]))
+			e->tau_dsse[k] += fit->dsse[k];
+		if (e->tau_dsse[k] < e->tau_dsse[best])
 			best = k;
 	}
-	if (best == 0 || best == SETTLEFIT_N_TAU - 1)
+	double sigma = pooled_noise(e);
+	if (!isfinite(sigma) || best == 0 || best == SETTLEFIT_N_TAU - 1)
 		return;
-	double cm = e->tau_chi2[best - 1], c0 = e->tau_chi2[best], cp = e->tau_chi2[best + 1];
+	double var = sigma * sigma;
+	double cm = e->tau_dsse[best - 1] / var, c0 = e->tau_dsse[best] / var,
+	       cp = e->tau_dsse[best + 1] / var;
 	double curv = (cm + cp - 2 * c0) / 2; /* chi2 = c + curv (k - k*)^2 */
 	if (!(curv > 0))
 		return;
 	double kstar = best + (cm - cp) / (4 * curv);
-	double half_k = fmax(sqrt(4.0 / curv), 0.25);
+	double half_k = fmax(sqrt(4.0 / curv), TAU_FLOOR_STEP);
 	double klo = kstar - half_k, khi = kstar + half_k;
 	if (khi >= SETTLEFIT_N_TAU - 1 || settlefit_tau(khi) > 4 * settlefit_tau(klo))
 		return;
@@ -814,6 +834,19 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 			fit = settle_fit(e, true);
 			if (fit.ok && fit.half <= m->still_within)
 				accept = settled = use_fit = true;
+			/* A large approach can fix its own settled value better
+			 * than the run's range of tau allows: the readings' own
+			 * interval (tau searched within a factor 2 of that range)
+			 * counts as well. */
+			if (!accept && e->tau_lo_s > 0 && e->n_win >= 6) {
+				settlefit_t own = settlefit_fit(
+				    e->win_t + f0, e->win_s + f0, nfit, fmax(pooled_noise(e), 0),
+				    e->tau_lo_s / 2, e->tau_hi_s * 2, false);
+				if (own.ok && own.half <= m->still_within) {
+					fit = own;
+					accept = settled = use_fit = true;
+				}
+			}
 		} else {
 			/* Still: the readings of the last still_for_s, which must
 			 * reach back that far since the addition, lie within

@@ -75,25 +75,25 @@ static lin_t lin_at(const double *t_s, const double *y, int n, double tau_s, dou
 #define N_RANGE 9 /* taus tried across a known range */
 
 settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, double tau_lo_s,
-                          double tau_hi_s)
+                          double tau_hi_s, bool known)
 {
 	settlefit_t f = {.ok = false, .y_inf = NAN, .half = INFINITY, .tau_s = NAN, .sse = NAN};
 	for (int k = 0; k < SETTLEFIT_N_TAU; k++)
-		f.chi2[k] = INFINITY;
-	/* Over the grid tau is a third parameter; over a known electrode's
-	 * range it is all but fixed. */
-	bool open = !(tau_lo_s > 0);
-	if (!open && !(tau_hi_s >= tau_lo_s))
+		f.dsse[k] = INFINITY;
+	/* Over the grid or a range of search tau is a third parameter; over a
+	 * known electrode's range it is all but fixed. */
+	bool grid = !(tau_lo_s > 0), open = grid || !known;
+	if (!grid && !(tau_hi_s >= tau_lo_s))
 		return f;
-	int npar = open ? 3 : 2, nk = open ? SETTLEFIT_N_TAU : N_RANGE;
-	if (n < 4)
+	int npar = open ? 3 : 2, nk = grid ? SETTLEFIT_N_TAU : N_RANGE;
+	if (n < npar + 1)
 		return f;
 	double y0 = y[n - 1];
 	lin_t fits[SETTLEFIT_N_TAU];
 	double taus[SETTLEFIT_N_TAU];
 	int best = -1;
 	for (int k = 0; k < nk; k++) {
-		taus[k] = open ? settlefit_tau(k)
+		taus[k] = grid ? settlefit_tau(k)
 		               : tau_lo_s * pow(tau_hi_s / tau_lo_s, (double)k / (N_RANGE - 1));
 		fits[k] = lin_at(t_s, y, n, taus[k], y0);
 		if (fits[k].ok && (best < 0 || fits[k].sse < fits[best].sse))
@@ -101,6 +101,39 @@ settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double nois
 	}
 	if (best < 0)
 		return f;
+	/* The grid steps tau by 13.5 %: on a large approach that alone leaves
+	 * a residual far above the noise. Golden-section search between the
+	 * best grid point's neighbours finds the best tau itself; it stands
+	 * for the best grid point from here on. (A known range counts every
+	 * tau in it: no search.) */
+	if (open) {
+		double a = log(taus[best > 0 ? best - 1 : best]);
+		double b = log(taus[best < nk - 1 ? best + 1 : best]);
+		const double g = 0.6180339887498949;
+		double x1 = b - g * (b - a), x2 = a + g * (b - a);
+		lin_t f1 = lin_at(t_s, y, n, exp(x1), y0), f2 = lin_at(t_s, y, n, exp(x2), y0);
+		for (int it = 0; it < 14 && f1.ok && f2.ok; it++) {
+			if (f1.sse < f2.sse) {
+				b = x2;
+				x2 = x1;
+				f2 = f1;
+				x1 = b - g * (b - a);
+				f1 = lin_at(t_s, y, n, exp(x1), y0);
+			} else {
+				a = x1;
+				x1 = x2;
+				f1 = f2;
+				x2 = a + g * (b - a);
+				f2 = lin_at(t_s, y, n, exp(x2), y0);
+			}
+		}
+		lin_t *m = f1.ok && f1.sse < f2.sse ? &f1 : &f2;
+		double xm = m == &f1 ? x1 : x2;
+		if (m->ok && m->sse < fits[best].sse) {
+			fits[best] = *m;
+			taus[best] = exp(xm);
+		}
+	}
 	double own = fits[best].sse / (n - npar);
 	double var = fmax(own, noise * noise);
 	double spread = 0;
@@ -109,15 +142,32 @@ settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double nois
 		if (!fits[k].ok)
 			continue;
 		double chi2 = (fits[k].sse - fits[best].sse) / var;
+		if (grid)
+			f.dsse[k] = fits[k].sse - fits[best].sse;
 		if (open) {
-			f.chi2[k] = chi2;
 			if (chi2 > 4.0)
 				continue;
-			if (k == SETTLEFIT_N_TAU - 1)
+			/* the slowest tau still fits: a drift; over a search
+			 * range, either end: the interval runs past it */
+			if (k == nk - 1 || (!grid && k == 0))
 				unfixed = true;
 		}
 		spread = fmax(spread, fabs(fits[k].c - fits[best].c) +
 		                          2.0 * sqrt(var * fits[k].var_c_unit));
+	}
+	/* The profile near the best tau, finer than the grid: a readings'
+	 * interval of tau narrower than a grid step would otherwise count
+	 * no tau uncertainty at all. Steps of 1.5 %, out to the neighbours. */
+	if (open) {
+		for (int j = -9; j <= 9; j++) {
+			if (j == 0)
+				continue;
+			lin_t r = lin_at(t_s, y, n, taus[best] * exp(0.015 * j), y0);
+			if (!r.ok || (r.sse - fits[best].sse) / var > 4.0)
+				continue;
+			spread =
+			    fmax(spread, fabs(r.c - fits[best].c) + 2.0 * sqrt(var * r.var_c_unit));
+		}
 	}
 	f.ok = true;
 	f.y_inf = fits[best].c;

@@ -29,10 +29,10 @@ typedef struct settlefit {
 	double tau_s; /* best time constant, s */
 	double sse;   /* residual sum of squares at the best tau */
 	int dof;      /* its degrees of freedom (readings less parameters) */
-	/* misfit at each grid tau, in units of the scatter assumed: the
-	 * residual sum over the variance, minus its least value; INFINITY
-	 * when the fit had a tau range */
-	double chi2[SETTLEFIT_N_TAU];
+	/* misfit at each grid tau: the residual sum of squares less the
+	 * least one (in the readings' unit squared); INFINITY when the fit
+	 * had a tau range */
+	double dsse[SETTLEFIT_N_TAU];
 } settlefit_t;
 
 /* Time constant at grid position k (0 .. SETTLEFIT_N_TAU - 1, fractions
@@ -44,11 +44,13 @@ double settlefit_tau(double k);
  * points; same unit as y): a fit through a few readings can look perfect by
  * chance. Without a tau range (tau_lo_s <= 0) tau is the readings' to find
  * over the common grid: the interval spans the taus they admit, a fit still
- * good at the slowest leaves y_inf unfixed, and chi2 is filled. With a range
- * (an electrode known from earlier points) every tau in it counts, whatever
- * these few readings prefer. */
+ * good at the slowest leaves y_inf unfixed, and dsse is filled. With a range
+ * and `known` (an electrode known from earlier points) every tau in it
+ * counts, whatever these few readings prefer; with a range and not `known`
+ * the readings search it, and a fit still good at either end leaves y_inf
+ * unfixed. */
 settlefit_t settlefit_fit(const double *t_s, const double *y, int n, double noise, double tau_lo_s,
-                          double tau_hi_s);
+                          double tau_hi_s, bool known);
 
 /* The settled value of another channel read at the same times (mV beside
  * pH) under the time constant tau_s found by settlefit_fit. */
