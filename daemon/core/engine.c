@@ -463,7 +463,7 @@ static double guided_after(const engine_t *e, double dose)
 	double left = e->stop_after_ml - e->dispensed_ml;
 	if (!(left > 0))
 		return dose;
-	return fmax(dose, e->n_pts - e->found_at >= 1 ? left : left / 2);
+	return fmax(dose, left);
 }
 
 /* The equivalence volume the last two points predict, mL, or NAN. Before an
@@ -486,6 +486,44 @@ static double predicted_ve(const engine_t *e, int dir)
 	return ve > b->volume_ml ? ve : NAN;
 }
 
+/* The equivalence volume the last three points predict, mL, or NAN. Before
+ * an equivalence point both a weak acid (pH = pKa + log(V/(Ve - V))) and a
+ * strong one (pH = -log((Ve - V) c/(V0 + V))) follow
+ * S = p + amp ln(V + b) - amp ln(Ve - V), with b = 0 and b = V0 (the
+ * beaker's start volume). For each b from 0 to 2 V0 the last two points
+ * fix Ve; the b whose curve also passes the third point from the end (within
+ * a tenth of the rise) wins. NAN when none does: predicted_ve() stands. */
+static double predicted_ve3(const engine_t *e, int dir)
+{
+	int n = e->n_pts;
+	if (n < 3 || dir == 0)
+		return NAN;
+	const engine_point_t *a = &e->pts[n - 3], *b = &e->pts[n - 2], *c = &e->pts[n - 1];
+	double amp = decade_amp(e);
+	double dsab = (b->signal - a->signal) * dir, dsbc = (c->signal - b->signal) * dir;
+	if (!(dsab > 0) || !(dsbc > 0) || !(b->volume_ml > a->volume_ml) ||
+	    !(c->volume_ml > b->volume_ml))
+		return NAN;
+	double best_ve = NAN, best_miss = INFINITY;
+	for (int k = 0; k <= 24; k++) {
+		double off = k == 0 ? 0 : 2 * e->p.start_volume_ml * pow(2.0, k - 24);
+		double r = (c->volume_ml + off) / (b->volume_ml + off) * exp(-dsbc / amp);
+		if (!(r < 1))
+			continue;
+		double ve = (c->volume_ml - r * b->volume_ml) / (1 - r);
+		if (!(ve > c->volume_ml) || !(a->volume_ml + off > 0))
+			continue;
+		double pred = amp * (log((b->volume_ml + off) / (a->volume_ml + off)) -
+		                     log((ve - b->volume_ml) / (ve - a->volume_ml)));
+		double miss = fabs(pred - dsab);
+		if (miss < best_miss) {
+			best_miss = miss;
+			best_ve = ve;
+		}
+	}
+	return best_miss <= 0.1 * dsab ? best_ve : NAN;
+}
+
 /* True once the slopes have risen to twice their lowest: a jump is near or
  * under way, and additions must not grow fast. */
 static bool jump_seen(const engine_t *e)
@@ -504,7 +542,7 @@ static bool jump_seen(const engine_t *e)
 
 /* Guided: the share of the way to the predicted equivalence point one
  * addition covers. */
-#define PLAN_SHARE 0.8
+#define PLAN_SHARE 0.9
 
 static double next_dose_ml(const engine_t *e)
 {
@@ -547,7 +585,9 @@ static double next_dose_ml(const engine_t *e)
 			 * early, so the next point is still before it); where the
 			 * rules above allow more, they hold. A target is never
 			 * approached faster than the rules above allow. */
-			double ve = predicted_ve(e, run_dir(e));
+			double ve = predicted_ve3(e, run_dir(e));
+			if (!isfinite(ve))
+				ve = predicted_ve(e, run_dir(e));
 			if (!e->all_found && isfinite(ve)) {
 				double plan = PLAN_SHARE * (ve - e->pts[n - 1].volume_ml);
 				dose = m->detect == DETECT_TARGET ? fmin(dose, plan)
