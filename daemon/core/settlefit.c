@@ -23,22 +23,29 @@ typedef struct lin {
 	bool ok;
 } lin_t;
 
+/* g(t_i) = exp(-(t_i - t_0)/tau) as a running product: one exp per
+ * distinct reading interval, not one per reading. Start with g = 1,
+ * last_dt = NAN, and call for i = 1, 2, ... in turn. */
+static double next_g(const double *t_s, int i, double tau_s, double g, double *last_dt,
+                     double *step)
+{
+	double dt = t_s[i] - t_s[i - 1];
+	if (dt != *last_dt) {
+		*step = exp(-dt / tau_s);
+		*last_dt = dt;
+	}
+	return g * *step;
+}
+
 /* Least squares of y = c + a g at one tau; y is taken relative to y0 for
- * precision. g is built by a running product: one exp per distinct
- * reading interval, not one per reading. */
+ * precision. */
 static lin_t lin_at(const double *t_s, const double *y, int n, double tau_s, double y0)
 {
 	lin_t r = {0};
 	double sg = 0, sgg = 0, sy = 0, sgy = 0, g = 1.0, last_dt = NAN, step = 1.0;
 	for (int i = 0; i < n; i++) {
-		if (i > 0) {
-			double dt = t_s[i] - t_s[i - 1];
-			if (dt != last_dt) {
-				step = exp(-dt / tau_s);
-				last_dt = dt;
-			}
-			g *= step;
-		}
+		if (i > 0)
+			g = next_g(t_s, i, tau_s, g, &last_dt, &step);
 		double v = y[i] - y0;
 		sg += g;
 		sgg += g * g;
@@ -55,14 +62,8 @@ static lin_t lin_at(const double *t_s, const double *y, int n, double tau_s, dou
 	last_dt = NAN;
 	double sse = 0;
 	for (int i = 0; i < n; i++) {
-		if (i > 0) {
-			double dt = t_s[i] - t_s[i - 1];
-			if (dt != last_dt) {
-				step = exp(-dt / tau_s);
-				last_dt = dt;
-			}
-			g *= step;
-		}
+		if (i > 0)
+			g = next_g(t_s, i, tau_s, g, &last_dt, &step);
 		double d = y[i] - y0 - r.c - r.a * g;
 		sse += d * d;
 	}

@@ -185,6 +185,21 @@ static const char *met(bool ok)
 	return ok ? "met" : "NOT met";
 }
 
+/* The bench method and scenario named `name`; false (and the errors
+ * printed) when either does not load. */
+static bool load_pair(const char *name, method_t *m, chem_scenario_t *s)
+{
+	char mp[256], sp[256];
+	snprintf(mp, sizeof mp, "tests/speed/methods/%s.yaml", name);
+	snprintf(sp, sizeof sp, "tests/speed/scenarios/%s.yaml", name);
+	diag_list_t d = DIAG_LIST_INIT;
+	bool ok = method_load(mp, NULL, m, &d) == 0 && scenario_load(sp, s, &d) == 0;
+	if (!ok)
+		diag_print(&d, stdout);
+	diag_free(&d);
+	return ok;
+}
+
 SPEED(engine_panel)
 {
 	printf("%-12s %-8s %9s %-10s %8s %5s %6s %8s %8s %8s  %s\n", "scenario", "dosing", "err_%",
@@ -193,19 +208,12 @@ SPEED(engine_panel)
 	bool err_ok = true, adds_ok = true, ratio_ok = true, dur_ok = true, cpu_ok = true;
 	int n_ok = 0;
 	for (int i = 0; i < N_SCN; i++) {
-		char mp[256], sp[256];
-		snprintf(mp, sizeof mp, "tests/speed/methods/%s.yaml", scenarios[i]);
-		snprintf(sp, sizeof sp, "tests/speed/scenarios/%s.yaml", scenarios[i]);
 		method_t m;
 		chem_scenario_t s;
-		diag_list_t d = DIAG_LIST_INIT;
-		if (method_load(mp, NULL, &m, &d) != 0 || scenario_load(sp, &s, &d) != 0) {
-			diag_print(&d, stdout);
-			diag_free(&d);
+		if (!load_pair(scenarios[i], &m, &s)) {
 			med_err[i] = med_adds[i] = med_dur[i] = med_cpu[i] = ratio[i] = NAN;
 			continue;
 		}
-		diag_free(&d);
 		row_t ad = run_one(&m, &s, 1000 + (unsigned)i);
 		method_t mc = m;
 		mc.dosing = DOSING_CONSTANT;
@@ -351,20 +359,13 @@ SPEED(engine_modes)
 	for (int k = 0; k < N_MODES; k++)
 		err_ok[k] = cpu_ok[k] = true;
 	for (int i = 0; i < N_SCN; i++) {
-		char mp[256], sp[256];
-		snprintf(mp, sizeof mp, "tests/speed/methods/%s.yaml", scenarios[i]);
-		snprintf(sp, sizeof sp, "tests/speed/scenarios/%s.yaml", scenarios[i]);
 		method_t m;
 		chem_scenario_t s;
-		diag_list_t d = DIAG_LIST_INIT;
-		if (method_load(mp, NULL, &m, &d) != 0 || scenario_load(sp, &s, &d) != 0) {
-			diag_print(&d, stdout);
-			diag_free(&d);
+		if (!load_pair(scenarios[i], &m, &s)) {
 			for (int k = 0; k < N_MODES; k++)
 				med_adds[k][i] = med_dur[k][i] = med_err[k][i] = NAN;
 			continue;
 		}
-		diag_free(&d);
 		bool tau15 = fabs(s.electrode.tau_s - 1.5) < 1e-9;
 		for (int k = 0; k < N_MODES; k++) {
 			method_t mm = m;
