@@ -738,6 +738,14 @@ static double pooled_noise(const engine_t *e)
 	return fmax(signal_floor(e), sqrt(e->noise_sse / e->noise_dof));
 }
 
+/* The scatter a settling fit assumes at least: the pooled noise once it is
+ * known, else the meter's resolution. */
+static double assumed_noise(const engine_t *e)
+{
+	double noise = pooled_noise(e);
+	return isfinite(noise) ? noise : signal_floor(e);
+}
+
 /* The settling fit of the readings since the addition (the latest FIT_MAX).
  * `learned`: over the time constants the run's points admit together once
  * they fix it; else over the full grid.
@@ -745,9 +753,7 @@ static double pooled_noise(const engine_t *e)
 static settlefit_t settle_fit(const engine_t *e, bool learned)
 {
 	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
-	double noise = pooled_noise(e);
-	if (!isfinite(noise))
-		noise = signal_floor(e);
+	double noise = assumed_noise(e);
 	bool known = learned && e->tau_lo_s > 0;
 	return settlefit_fit(e->win_t + f0, e->win_s + f0, nfit, noise, known ? e->tau_lo_s : 0,
 	                     known ? e->tau_hi_s : 0, true);
@@ -878,9 +884,9 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 			 * interval (tau searched within a factor 2 of that range)
 			 * counts as well. */
 			if (!accept && e->tau_lo_s > 0 && e->n_win >= 6) {
-				settlefit_t own = settlefit_fit(
-				    e->win_t + f0, e->win_s + f0, nfit, fmax(pooled_noise(e), 0),
-				    e->tau_lo_s / 2, e->tau_hi_s * 2, false);
+				settlefit_t own = settlefit_fit(e->win_t + f0, e->win_s + f0, nfit,
+				                                assumed_noise(e), e->tau_lo_s / 2,
+				                                e->tau_hi_s * 2, false);
 				if (own.ok && own.half <= m->still_within) {
 					fit = own;
 					accept = settled = use_fit = true;
