@@ -251,6 +251,11 @@ int cmd_predict(int argc, char **argv)
 		simrun_params(&m, &s, &o, &p);
 		print_human(&m, e, &out, scenario_path, o.seed, p.amount, o.has_amount);
 	}
+	/* A warning the run raised about itself (the record lists it with the
+	 * faults too): the method would behave so on the bench. */
+	if (engine_warning_code(e)[0])
+		fprintf(stderr, "warning: %s: %s\n", engine_warning_code(e),
+		        engine_warning_message(e));
 	if (out.stuck) {
 		fprintf(stderr, "stopcock predict: the simulation did not finish (engine bug)\n");
 		rc = 1;

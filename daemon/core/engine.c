@@ -14,8 +14,10 @@
 #include "chem.h"
 #include "endpoint.h"
 #include "modelfit.h"
+#include "settlefit.h"
 
 #define WIN_MAX 512 /* readings kept while settling */
+#define FIT_MAX 64  /* latest readings the settling fit looks at */
 
 typedef enum {
 	ST_INIT = 0,
@@ -50,6 +52,16 @@ struct engine {
 	double settle_from_s;
 	int n_win;
 	double win_t[WIN_MAX], win_s[WIN_MAX], win_mv[WIN_MAX], win_ph[WIN_MAX], win_tc[WIN_MAX];
+	/* the readings' noise: the scatter around the settling fits of the
+	 * points, pooled (residual sums and their degrees of freedom) */
+	double noise_sse;
+	int noise_dof, noise_pts;
+	/* the electrode's time constant, from the points whose approach fixed
+	 * it (log-mean, s); extrapolation then needs fewer readings */
+	double tau_dsse[SETTLEFIT_N_TAU]; /* summed misfit per grid tau (signal units^2) */
+	double tau_lo_s, tau_hi_s;        /* the taus it admits, s; 0: not yet fixed */
+	char warn_code[32];
+	char warn_msg[256];
 
 	engine_point_t *pts;
 	int n_pts, cap_pts;
@@ -546,6 +558,13 @@ static double steps_within(const engine_t *e, double room_ml)
 	return floor(room_ml / e->quantum_ml + 1e-9) * e->quantum_ml;
 }
 
+/* Signal change per decade of the remaining volume near an acid-base
+ * equivalence point: 1/ln 10 pH, or a Nernst slope over ln 10 in mV. */
+static double decade_amp(const engine_t *e)
+{
+	return (e->m.signal == SIGNAL_MV ? chem_nernst_mv(25.0) : 1.0) / 2.302585092994046;
+}
+
 /* Addition for a signal change `aim` near a jump: the slope of a titration
  * curve before an equivalence point grows roughly as a/(Ve - V) (the
  * buffer term log(V/(Ve - V)) dominates there). Two slopes fix a and Ve;
@@ -586,8 +605,7 @@ static double hyperbolic_dose(const engine_t *e, double aim)
 		 * slope at the last point taken as the last secant grown once
 		 * more by its growth ratio. Without this a jump can be crossed in
 		 * one addition, leaving no point on it. */
-		double amp =
-		    (e->m.signal == SIGNAL_MV ? chem_nernst_mv(25.0) : 1.0) / 2.302585092994046;
+		double amp = decade_amp(e);
 		double sb = s1 * fmin(s1 / s0, 10.0);
 		return amp / sb * (1.0 - exp(-aim / amp));
 	}
@@ -598,16 +616,115 @@ static double hyperbolic_dose(const engine_t *e, double aim)
 	return d > 0 ? d : INFINITY;
 }
 
+/* Guided mode, past the last endpoint: what is left up to the stop volume
+ * only serves the evaluation (the model fit wants the curve beyond the jump,
+ * and the points that confirmed the endpoint are already on it), so it goes
+ * in one addition (bench: errors unchanged, one to two additions fewer). */
+static double guided_after(const engine_t *e, double dose)
+{
+	if (!e->all_found || !isfinite(e->stop_after_ml))
+		return dose;
+	double left = e->stop_after_ml - e->dispensed_ml;
+	if (!(left > 0))
+		return dose;
+	return fmax(dose, left);
+}
+
+/* The equivalence volume the last two points predict, mL, or NAN. Before an
+ * equivalence point the signal moves at least one decade (decade_amp) per
+ * decade of the remaining volume Ve - V; a weak acid's buffer term and the
+ * dilution of a strong one only add to that. Taking all of the last rise as
+ * that law, (Ve - V2) / (Ve - V1) = exp(-dS / amp), puts Ve no later than it
+ * is: a safe aim for a large addition. */
+static double predicted_ve(const engine_t *e, int dir)
+{
+	int n = e->n_pts;
+	if (n < 2 || dir == 0)
+		return NAN;
+	const engine_point_t *a = &e->pts[n - 2], *b = &e->pts[n - 1];
+	double dv = b->volume_ml - a->volume_ml, ds = (b->signal - a->signal) * dir;
+	if (!(dv > 0) || !(ds > 0))
+		return NAN;
+	double r = exp(-ds / decade_amp(e));
+	double ve = (b->volume_ml - r * a->volume_ml) / (1.0 - r);
+	return ve > b->volume_ml ? ve : NAN;
+}
+
+/* The equivalence volume the last three points predict, mL, or NAN. Before
+ * an equivalence point both a weak acid (pH = pKa + log(V/(Ve - V))) and a
+ * strong one (pH = -log((Ve - V) c/(V0 + V))) follow
+ * S = p + amp ln(V + b) - amp ln(Ve - V), with b = 0 and b = V0 (the
+ * beaker's start volume). For each b from 0 to 2 V0 the last two points
+ * fix Ve; the b whose curve also passes the third point from the end (within
+ * a tenth of the rise) wins. NAN when none does: predicted_ve() stands. */
+static double predicted_ve3(const engine_t *e, int dir)
+{
+	int n = e->n_pts;
+	if (n < 3 || dir == 0)
+		return NAN;
+	const engine_point_t *a = &e->pts[n - 3], *b = &e->pts[n - 2], *c = &e->pts[n - 1];
+	double amp = decade_amp(e);
+	double dsab = (b->signal - a->signal) * dir, dsbc = (c->signal - b->signal) * dir;
+	if (!(dsab > 0) || !(dsbc > 0) || !(b->volume_ml > a->volume_ml) ||
+	    !(c->volume_ml > b->volume_ml))
+		return NAN;
+	double best_ve = NAN, best_miss = INFINITY;
+	for (int k = 0; k <= 24; k++) {
+		double off = k == 0 ? 0 : 2 * e->p.start_volume_ml * pow(2.0, k - 24);
+		double r = (c->volume_ml + off) / (b->volume_ml + off) * exp(-dsbc / amp);
+		if (!(r < 1))
+			continue;
+		double ve = (c->volume_ml - r * b->volume_ml) / (1 - r);
+		if (!(ve > c->volume_ml) || !(a->volume_ml + off > 0))
+			continue;
+		double pred = amp * (log((b->volume_ml + off) / (a->volume_ml + off)) -
+		                     log((ve - b->volume_ml) / (ve - a->volume_ml)));
+		double miss = fabs(pred - dsab);
+		if (miss < best_miss) {
+			best_miss = miss;
+			best_ve = ve;
+		}
+	}
+	return best_miss <= 0.1 * dsab ? best_ve : NAN;
+}
+
+/* True once the slopes have risen to twice their lowest: a jump is near or
+ * under way, and additions must not grow fast. */
+static bool jump_seen(const engine_t *e)
+{
+	double smin = INFINITY, smax = 0;
+	for (int i = 1; i < e->n_pts; i++) {
+		double dv = e->pts[i].volume_ml - e->pts[i - 1].volume_ml;
+		if (!(dv > 0))
+			continue;
+		double sl = fabs(e->pts[i].signal - e->pts[i - 1].signal) / dv;
+		smin = fmin(smin, sl);
+		smax = fmax(smax, sl);
+	}
+	return smax >= 2 * smin;
+}
+
+/* Guided: the share of the way to the predicted equivalence point one
+ * addition covers. */
+#define PLAN_SHARE 0.9
+
 static double next_dose_ml(const engine_t *e)
 {
 	const method_t *m = &e->m;
 	double dose;
 	int n = e->n_pts;
+	bool guided = m->dosing == DOSING_GUIDED;
 	if (m->dosing == DOSING_CONSTANT) {
 		dose = m->dose_ml;
 	} else {
 		double lo = m->dose_min_ml, hi = m->dose_max_ml;
 		double aim = m->step_aim;
+		/* Guided: never aim at more than a decade of the remaining volume
+		 * per addition, so the hyperbolic law below keeps at least one
+		 * point in each e-fold of the approach to the predicted
+		 * equivalence point, whatever step_aim says. */
+		if (guided && aim > decade_amp(e))
+			aim = decade_amp(e);
 		if (m->detect == DETECT_TARGET && m->has_target && n >= 1) {
 			int dir = run_dir(e);
 			double left = (m->target - e->pts[n - 1].signal) * (dir ? dir : 1);
@@ -626,12 +743,32 @@ static double next_dose_ml(const engine_t *e)
 		 * be overshot, and an inflection needs points on its steep part
 		 * for the derivative (the model fit gains from them too). */
 		dose = fmin(dose, hyperbolic_dose(e, aim));
-		/* Never more than three times the last addition: a flat stretch read
-		 * through noise must not launch a jump over the endpoint. */
-		if (n >= 2) {
+		if (guided) {
+			/* Guided: far from the predicted equivalence point, cover
+			 * PLAN_SHARE of the way to it at once (the prediction errs
+			 * early, so the next point is still before it); where the
+			 * rules above allow more, they hold. A target is never
+			 * approached faster than the rules above allow. */
+			double ve = predicted_ve3(e, run_dir(e));
+			if (!isfinite(ve))
+				ve = predicted_ve(e, run_dir(e));
+			if (!e->all_found && isfinite(ve)) {
+				double plan = PLAN_SHARE * (ve - e->pts[n - 1].volume_ml);
+				dose = m->detect == DETECT_TARGET ? fmin(dose, plan)
+				                                  : fmax(dose, plan);
+			}
+			dose = guided_after(e, dose);
+		}
+		/* Never more than three times the last addition: a flat stretch
+		 * read through noise must not launch a jump over the endpoint.
+		 * Guided: eight times while no slope has yet risen (the first
+		 * additions reach full size at once), and no limit past the last
+		 * endpoint (only the stop volume is ahead). */
+		if (n >= 2 && !(guided && e->all_found)) {
 			double last = e->pts[n - 1].volume_ml - e->pts[n - 2].volume_ml;
-			if (last > 0 && dose > 3 * last)
-				dose = 3 * last;
+			double grow = guided && !jump_seen(e) ? 8 : 3;
+			if (last > 0 && dose > grow * last)
+				dose = grow * last;
 		}
 		if (dose < lo)
 			dose = lo;
@@ -764,7 +901,124 @@ static bool push_point(engine_t *e, const engine_point_t *pt)
 	return true;
 }
 
-/* A reading while settling: accept a point when still, or at wait_max_s. */
+/* The smallest reading scatter the settling fit assumes: the meter's
+ * resolution, 0.001 pH or 0.1 mV (common practice, docs/chemistry.md §10). */
+static double signal_floor(const engine_t *e)
+{
+	return e->m.signal == SIGNAL_MV ? 0.1 : 0.001;
+}
+
+/* The readings' noise as pooled so far, never below the meter's
+ * resolution; NAN before 10 degrees of freedom. */
+static double pooled_noise(const engine_t *e)
+{
+	if (e->noise_dof < 10)
+		return NAN;
+	return fmax(signal_floor(e), sqrt(e->noise_sse / e->noise_dof));
+}
+
+/* The scatter a settling fit assumes at least: the pooled noise once it is
+ * known, else the meter's resolution. */
+static double assumed_noise(const engine_t *e)
+{
+	double noise = pooled_noise(e);
+	return isfinite(noise) ? noise : signal_floor(e);
+}
+
+/* The settling fit of the readings since the addition (the latest FIT_MAX).
+ * `learned`: over the time constants the run's points admit together once
+ * they fix it; else over the full grid.
+ * The scatter assumed is at least the noise seen so far. */
+static settlefit_t settle_fit(const engine_t *e, bool learned)
+{
+	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
+	double noise = assumed_noise(e);
+	bool known = learned && e->tau_lo_s > 0;
+	return settlefit_fit(e->win_t + f0, e->win_s + f0, nfit, noise, known ? e->tau_lo_s : 0,
+	                     known ? e->tau_hi_s : 0, true);
+}
+
+/* What a point's readings tell of the electrode's time constant, added to
+ * what the earlier points told. The summed misfit, over the pooled noise
+ * variance (the same electrode's noise on every point), is smooth in log
+ * tau: a parabola through the least grid value and its neighbours gives the
+ * best tau and the range within 4 of its least value (2 sigma), never
+ * narrower than TAU_FLOOR_STEP grid steps either way. The run's time
+ * constant counts as fixed once that range spans at most a factor 4 and
+ * stops short of the grid's slowest. */
+#define TAU_FLOOR_STEP 0.1 /* 1.3 % */
+
+static void note_tau(engine_t *e, const settlefit_t *fit)
+{
+	if (!fit->ok)
+		return;
+	int best = 0;
+	for (int k = 0; k < SETTLEFIT_N_TAU; k++) {
+		if (isfinite(fit->dsse[k]))
+			e->tau_dsse[k] += fit->dsse[k];
+		if (e->tau_dsse[k] < e->tau_dsse[best])
+			best = k;
+	}
+	double sigma = pooled_noise(e);
+	if (!isfinite(sigma) || best == 0 || best == SETTLEFIT_N_TAU - 1)
+		return;
+	double var = sigma * sigma;
+	double cm = e->tau_dsse[best - 1] / var, c0 = e->tau_dsse[best] / var,
+	       cp = e->tau_dsse[best + 1] / var;
+	double curv = (cm + cp - 2 * c0) / 2; /* chi2 = c + curv (k - k*)^2 */
+	if (!(curv > 0))
+		return;
+	double kstar = best + (cm - cp) / (4 * curv);
+	double half_k = fmax(sqrt(4.0 / curv), TAU_FLOOR_STEP);
+	double klo = kstar - half_k, khi = kstar + half_k;
+	if (khi >= SETTLEFIT_N_TAU - 1 || settlefit_tau(khi) > 4 * settlefit_tau(klo))
+		return;
+	e->tau_lo_s = settlefit_tau(fmax(klo, 0));
+	e->tau_hi_s = settlefit_tau(khi);
+}
+
+/* The noise check: the still rule accepts when the readings of still_for_s
+ * lie within still_within; when the expected range of that many readings of
+ * pure noise (d_n sigma, d_n the mean range of n normal deviates: Tippett
+ * 1925, as tabled for control charts) exceeds the band, most windows fail and
+ * points wait for wait_max_s. The noise is pooled over the points' settling
+ * fits; reported once it rests on at least 10 degrees of freedom from 3
+ * points. */
+static double mean_range_of(int n)
+{
+	static const double d[] = {0,     0,     1.128, 1.693, 2.059, 2.326, 2.534,
+	                           2.704, 2.847, 2.970, 3.078, 3.173, 3.258};
+	if (n < 2)
+		return 1.128; /* a still_for_s of 0 still compares two readings */
+	return n < (int)(sizeof d / sizeof d[0]) ? d[n] : d[sizeof d / sizeof d[0] - 1];
+}
+
+static void note_noise(engine_t *e, const settlefit_t *fit)
+{
+	if (!fit->ok || !(fit->dof > 0) || !isfinite(fit->sse))
+		return;
+	e->noise_sse += fit->sse;
+	e->noise_dof += fit->dof;
+	e->noise_pts++;
+	double sigma = sqrt(e->noise_sse / e->noise_dof);
+	int n_still = (int)floor(e->m.still_for_s / e->p.read_interval_s + 1e-9) + 1;
+	double need = mean_range_of(n_still) * sigma;
+	if (e->warn_code[0] || e->noise_pts < 3 || e->noise_dof < 10 || !(need > e->m.still_within))
+		return;
+	const char *u = e->m.signal == SIGNAL_MV ? "mV" : "pH";
+	snprintf(e->warn_code, sizeof e->warn_code, "settle_below_noise");
+	snprintf(e->warn_msg, sizeof e->warn_msg,
+	         "settle.still_within %g %s is below the readings' noise (about %.2g %s RMS "
+	         "over %d points): %s; widen still_within to %.2g %s or more",
+	         e->m.still_within, u, sigma, u, e->noise_pts,
+	         e->m.settle_rule == SETTLE_STILL
+	             ? "points wait for settle.wait_max_s (or use settle.rule: extrapolate)"
+	             : "each point needs many readings",
+	         need, u);
+}
+
+/* A reading while settling: accept a point when settled by the
+ * method's rule, or at wait_max_s. */
 static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 {
 	const method_t *m = &e->m;
@@ -790,25 +1044,54 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 	double waited = ev->t_s - e->settle_from_s;
 	bool accept = false, settled = false;
 	int from = e->n_win - 1;
+	int nfit = e->n_win < FIT_MAX ? e->n_win : FIT_MAX, f0 = e->n_win - nfit;
+	settlefit_t fit = {.ok = false};
+	/* The first point follows no addition: nothing to extrapolate, so it
+	 * waits to be still. */
+	bool extrap = m->settle_rule == SETTLE_EXTRAPOLATE && e->n_pts > 0, use_fit = false;
 	if (waited >= m->wait_min_s) {
-		/* Still: the readings of the last still_for_s, which must reach
-		 * back that far since the addition, lie within still_within. When
-		 * still_for_s is not a whole number of reading intervals, the
-		 * reading just before the window's start stands for its start. */
-		double t0 = ev->t_s - m->still_for_s;
-		while (from > 0 && e->win_t[from - 1] >= t0 - 1e-9)
-			from--;
-		if (from > 0 && e->win_t[from] > t0 + 1e-9)
-			from--;
-		bool covers = e->win_t[from] <= t0 + 1e-9 || m->still_for_s <= 0;
-		if (covers) {
-			double lo = INFINITY, hi = -INFINITY;
-			for (int i = from; i < e->n_win; i++) {
-				lo = fmin(lo, e->win_s[i]);
-				hi = fmax(hi, e->win_s[i]);
+		if (extrap) {
+			/* Extrapolate: the first-order fit of the readings since the
+			 * addition fixes the settled value within the band; once
+			 * the run's points have fixed the electrode's time
+			 * constant, under that constant. */
+			fit = settle_fit(e, true);
+			if (fit.ok && fit.half <= m->still_within)
+				accept = settled = use_fit = true;
+			/* A large approach can fix its own settled value better
+			 * than the run's range of tau allows: the readings' own
+			 * interval (tau searched within a factor 2 of that range)
+			 * counts as well. */
+			if (!accept && e->tau_lo_s > 0 && e->n_win >= 6) {
+				settlefit_t own = settlefit_fit(e->win_t + f0, e->win_s + f0, nfit,
+				                                assumed_noise(e), e->tau_lo_s / 2,
+				                                e->tau_hi_s * 2, false);
+				if (own.ok && own.half <= m->still_within) {
+					fit = own;
+					accept = settled = use_fit = true;
+				}
 			}
-			if (hi - lo <= m->still_within)
-				accept = settled = true;
+		} else {
+			/* Still: the readings of the last still_for_s, which must
+			 * reach back that far since the addition, lie within
+			 * still_within. When still_for_s is not a whole number of
+			 * reading intervals, the reading just before the window's
+			 * start stands for its start. */
+			double t0 = ev->t_s - m->still_for_s;
+			while (from > 0 && e->win_t[from - 1] >= t0 - 1e-9)
+				from--;
+			if (from > 0 && e->win_t[from] > t0 + 1e-9)
+				from--;
+			bool covers = e->win_t[from] <= t0 + 1e-9 || m->still_for_s <= 0;
+			if (covers) {
+				double lo = INFINITY, hi = -INFINITY;
+				for (int i = from; i < e->n_win; i++) {
+					lo = fmin(lo, e->win_s[i]);
+					hi = fmax(hi, e->win_s[i]);
+				}
+				if (hi - lo <= m->still_within)
+					accept = settled = true;
+			}
 		}
 		if (!accept && waited >= m->wait_max_s) {
 			accept = true;
@@ -818,21 +1101,41 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 	if (!accept)
 		return act(e, ENGINE_ACT_READ, ev->t_s + e->p.read_interval_s);
 
-	/* The point is the mean over the still window: it averages the noise
-	 * of the readings that showed the signal had settled. */
+	/* What the readings say of the electrode, for the next points. */
+	settlefit_t wide = settle_fit(e, false);
+	note_noise(e, &wide);
+	note_tau(e, &wide);
+
 	engine_point_t pt = {.t_s = ev->t_s, .volume_ml = e->dispensed_ml, .settled = settled};
-	double sm = 0, sv = 0, sp = 0, st = 0;
-	int cnt = 0;
-	for (int i = from; i < e->n_win; i++, cnt++) {
-		sm += e->win_s[i];
-		sv += e->win_mv[i];
-		sp += e->win_ph[i];
-		st += e->win_tc[i];
+	if (use_fit) {
+		/* The point is the predicted settled value, each channel under
+		 * the time constant the signal's fit found. */
+		const double *t = e->win_t + f0;
+		pt.signal = fit.y_inf;
+		pt.mv = settlefit_at_tau(t, e->win_mv + f0, nfit, fit.tau_s);
+		pt.ph = isfinite(e->win_ph[e->n_win - 1])
+		            ? settlefit_at_tau(t, e->win_ph + f0, nfit, fit.tau_s)
+		            : NAN;
+		double st = 0;
+		for (int i = f0; i < e->n_win; i++)
+			st += e->win_tc[i];
+		pt.temperature_c = st / nfit;
+	} else {
+		/* The point is the mean over the still window: it averages the
+		 * noise of the readings that showed the signal had settled. */
+		double sm = 0, sv = 0, sp = 0, st = 0;
+		int cnt = 0;
+		for (int i = from; i < e->n_win; i++, cnt++) {
+			sm += e->win_s[i];
+			sv += e->win_mv[i];
+			sp += e->win_ph[i];
+			st += e->win_tc[i];
+		}
+		pt.signal = sm / cnt;
+		pt.mv = sv / cnt;
+		pt.ph = sp / cnt;
+		pt.temperature_c = st / cnt;
 	}
-	pt.signal = sm / cnt;
-	pt.mv = sv / cnt;
-	pt.ph = sp / cnt;
-	pt.temperature_c = st / cnt;
 	if (e->n_pts > 0) {
 		const engine_point_t *prev = &e->pts[e->n_pts - 1];
 		double dv = pt.volume_ml - prev->volume_ml;
@@ -969,6 +1272,16 @@ const char *engine_fault_message(const engine_t *e)
 	if (e->reason == ENGINE_STOP_FAULT)
 		return e->fault_msg;
 	return e->st == ST_DONE ? e->eval_msg : "";
+}
+
+const char *engine_warning_code(const engine_t *e)
+{
+	return e->warn_code;
+}
+
+const char *engine_warning_message(const engine_t *e)
+{
+	return e->warn_msg;
 }
 
 engine_outcome_t engine_outcome(const engine_t *e)

@@ -196,6 +196,11 @@ const char *engine_fault_message(const engine_t *e);
  * before it"); "" otherwise. The run record appends it to stop_detail. */
 const char *engine_stop_detail(const engine_t *e);
 engine_outcome_t engine_outcome(const engine_t *e);
+/* A warning about the run that did not stop it, or "" when none: today
+ * "settle_below_noise", the settling band is narrower than the readings'
+ * noise (docs/engine.md, "Settling"). Set while running, once. */
+const char *engine_warning_code(const engine_t *e);
+const char *engine_warning_message(const engine_t *e);
 const char *engine_outcome_name(engine_outcome_t o); /* "finished", "failed", "aborted", "" */
 /* True for a finished run whose results all pass or carry no limits: the
  * outcome nobody has to look at again (the CLI's exit status 0). */

@@ -27,7 +27,8 @@
 
 static const char *const purpose_words[] = {"assay", "standardize", "blank", NULL};
 static const char *const signal_words[] = {"ph", "mv", NULL};
-static const char *const dosing_words[] = {"adaptive", "constant", NULL};
+static const char *const dosing_words[] = {"adaptive", "constant", "guided", NULL};
+static const char *const rule_words[] = {"still", "extrapolate", NULL};
 static const char *const detect_words[] = {"inflection", "target", "gran", NULL};
 static const char *const unit_words[] = {"mL", "g", NULL};
 
@@ -49,6 +50,16 @@ const char *method_detect_name(method_detect_t k)
 const char *method_unit_name(method_unit_t u)
 {
 	return (unsigned)u < 2 ? unit_words[u] : "?";
+}
+
+const char *method_dosing_name(method_dosing_t d)
+{
+	return (unsigned)d < 3 ? dosing_words[d] : "?";
+}
+
+const char *method_settle_rule_name(method_settle_rule_t r)
+{
+	return (unsigned)r < 2 ? rule_words[r] : "?";
 }
 
 const char *mp_signal_unit(const method_t *m)
@@ -116,7 +127,8 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"max", "stir_s", "initial_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
-		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", NULL};
+		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", "rule",
+		NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
 		const char *k = map->keys[i]->str;
@@ -350,7 +362,7 @@ static void parse_dosing(mp_ctx_t *c, const yt_node_t *root)
 	}
 	/* Doses: 0.5 uL is about the resolution of a 1 mL syringe on a
 	 * 2000-step drive; 100 mL is more than any burette holds. */
-	if (m->dosing == DOSING_ADAPTIVE) {
+	if (m->dosing != DOSING_CONSTANT) {
 		mp_signal_range(m, &lo, &hi);
 		num(c, s, "step_aim", "dosing.step_aim", mp_signal_unit(m), 0.0, true,
 		    m->signal == SIGNAL_MV ? 120.0 : 2.0, &m->step_aim, &c->f_step_aim);
@@ -363,9 +375,11 @@ static void parse_dosing(mp_ctx_t *c, const yt_node_t *root)
 		         "adaptively; remove it or set mode: constant)");
 		return;
 	}
-	not_here(c, s, "step_aim", "dosing.step_aim applies only to mode: adaptive");
-	not_here(c, s, "dose_min_ml", "dosing.dose_min_ml applies only to mode: adaptive");
-	not_here(c, s, "dose_max_ml", "dosing.dose_max_ml applies only to mode: adaptive");
+	not_here(c, s, "step_aim", "dosing.step_aim applies only to mode: adaptive or guided");
+	not_here(c, s, "dose_min_ml",
+	         "dosing.dose_min_ml applies only to mode: adaptive or guided");
+	not_here(c, s, "dose_max_ml",
+	         "dosing.dose_max_ml applies only to mode: adaptive or guided");
 	if (!yt_get(s, "dose_ml")) {
 		yt_error(c->doc, s, c->d,
 		         "missing key 'dose_ml' in dosing (required with mode: "
@@ -383,14 +397,18 @@ static void parse_dosing(mp_ctx_t *c, const yt_node_t *root)
 
 static void parse_settle(mp_ctx_t *c, const yt_node_t *root)
 {
-	static const char *const keys[] = {"wait_min_s", "wait_max_s", "still_within",
-	                                   "still_for_s", NULL};
+	static const char *const keys[] = {"rule",         "wait_min_s",  "wait_max_s",
+	                                   "still_within", "still_for_s", NULL};
 	method_t *m = c->m;
 	bool bad;
 	const yt_node_t *s = section(c, root, "settle", false, keys, &bad);
+	int w = (int)m->settle_rule;
+	mp_field_t f_rule;
 	c->f_wait_min.bad = c->f_wait_max.bad = c->f_still_for.bad = bad;
 	if (!s)
 		return;
+	if (word(c, s, "rule", "settle.rule", rule_words, &w, &f_rule))
+		m->settle_rule = (method_settle_rule_t)w;
 	num(c, s, "wait_min_s", "settle.wait_min_s", "s", 0.0, false, 600.0, &m->wait_min_s,
 	    &c->f_wait_min);
 	num(c, s, "wait_max_s", "settle.wait_max_s", "s", 0.0, true, 3600.0, &m->wait_max_s,

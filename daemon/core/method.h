@@ -22,7 +22,13 @@
 
 typedef enum { PURPOSE_ASSAY = 0, PURPOSE_STANDARDIZE, PURPOSE_BLANK } method_purpose_t;
 typedef enum { SIGNAL_PH = 0, SIGNAL_MV } method_signal_t;
-typedef enum { DOSING_ADAPTIVE = 0, DOSING_CONSTANT } method_dosing_t;
+/* guided: adaptive, and once the points allow it the next addition is planned
+ * from a local model of the coming jump (docs/engine.md, "Dosing"). */
+typedef enum { DOSING_ADAPTIVE = 0, DOSING_CONSTANT, DOSING_GUIDED } method_dosing_t;
+/* still: accept when the readings sit still; extrapolate: accept when a
+ * first-order fit of the readings since the addition predicts the settled
+ * value within still_within (docs/engine.md, "Settling"). */
+typedef enum { SETTLE_STILL = 0, SETTLE_EXTRAPOLATE } method_settle_rule_t;
 typedef enum { DETECT_INFLECTION = 0, DETECT_TARGET, DETECT_GRAN } method_detect_t;
 typedef enum { UNIT_ML = 0, UNIT_G } method_unit_t;
 
@@ -75,6 +81,7 @@ typedef struct method {
 	double dose_max_ml;
 	double dose_ml; /* constant mode */
 
+	method_settle_rule_t settle_rule;
 	double wait_min_s, wait_max_s; /* settling bounds, s */
 	double still_within;           /* signal units */
 	double still_for_s;            /* s */
@@ -150,6 +157,8 @@ const char *method_purpose_name(method_purpose_t p);
 const char *method_signal_name(method_signal_t s);
 const char *method_detect_name(method_detect_t k);
 const char *method_unit_name(method_unit_t u);
+const char *method_dosing_name(method_dosing_t d);
+const char *method_settle_rule_name(method_settle_rule_t r);
 
 /* Plausible mistakes in a valid method, as lines "warning: ..." (at most
  * cap of them, each of line_cap bytes); `have_burette` says whether the

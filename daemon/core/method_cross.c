@@ -388,7 +388,7 @@ void mp_cross_check(mp_ctx_t *c, const yt_node_t *root)
 		         "sample.min (%g %s) must not exceed sample.max (%g %s)", m->sample_min, su,
 		         m->sample_max, su);
 
-	if (m->dosing == DOSING_ADAPTIVE && both_ok(&c->f_dose_min, &c->f_dose_max) &&
+	if (m->dosing != DOSING_CONSTANT && both_ok(&c->f_dose_min, &c->f_dose_max) &&
 	    m->dose_min_ml > m->dose_max_ml)
 		yt_error(c->doc, at(&c->f_dose_min, &c->f_dose_max), c->d,
 		         "dosing.dose_min_ml (%g mL) must not exceed dosing.dose_max_ml (%g mL)",
@@ -503,7 +503,7 @@ int method_warnings(const method_t *m, bool have_burette, char (*out)[256], int 
 		WARN("detect.window [%g, %g] looks like pH values, but signal is mv: the window "
 		     "is in mV (about 59 mV per pH unit at 25 degC)",
 		     m->window_lo, m->window_hi);
-	if (mv && m->dosing == DOSING_ADAPTIVE && m->step_aim < 2)
+	if (mv && m->dosing != DOSING_CONSTANT && m->step_aim < 2)
 		WARN("dosing.step_aim %g looks like a pH step, but signal is mv: it is in mV (try "
 		     "about %g mV for %g pH)",
 		     m->step_aim, m->step_aim * 59.16, m->step_aim);
@@ -512,13 +512,13 @@ int method_warnings(const method_t *m, bool have_burette, char (*out)[256], int 
 		WARN("settle.still_within %g %s is below the noise of a typical electrode (about "
 		     "%g %s): points will be taken at wait_max_s, not when still",
 		     m->still_within, mv ? "mV" : "pH", noise, mv ? "mV" : "pH");
-	double dose_max = m->dosing == DOSING_ADAPTIVE ? m->dose_max_ml : m->dose_ml;
+	double dose_max = m->dosing != DOSING_CONSTANT ? m->dose_max_ml : m->dose_ml;
 	if (!have_burette && dose_max > WARN_BIGGEST_SYR_ML)
 		WARN("dosing.%s %g mL is more than the largest common burette syringe holds (%g "
 		     "mL); check the method against the station with -c stopcockd.yaml",
-		     m->dosing == DOSING_ADAPTIVE ? "dose_max_ml" : "dose_ml", dose_max,
+		     m->dosing != DOSING_CONSTANT ? "dose_max_ml" : "dose_ml", dose_max,
 		     WARN_BIGGEST_SYR_ML);
-	if (m->dosing == DOSING_ADAPTIVE && m->dose_max_ml <= 2 * m->dose_min_ml)
+	if (m->dosing != DOSING_CONSTANT && m->dose_max_ml <= 2 * m->dose_min_ml)
 		WARN("dosing.step_aim has almost no effect: dose_max_ml (%g mL) leaves the doses "
 		     "between %g and %g mL whatever the curve does",
 		     m->dose_max_ml, m->dose_min_ml, m->dose_max_ml);

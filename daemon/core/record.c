@@ -60,6 +60,15 @@ void record_add_fault(run_record_t *r, const char *at, const char *code, const c
 	snprintf(f->message, sizeof f->message, "%s", message ? message : "");
 }
 
+/* Append a fault unless one with the same code is already listed. */
+static void add_fault_once(run_record_t *r, const char *at, const char *code, const char *message)
+{
+	for (int i = 0; i < r->n_faults; i++)
+		if (!strcmp(r->faults[i].code, code))
+			return;
+	record_add_fault(r, at, code, message);
+}
+
 void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 {
 	r->n_endpoints = 0;
@@ -93,6 +102,12 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 	}
 	r->additions = engine_additions(e);
 	r->dispensed_ml = engine_dispensed_ml(e);
+	/* A warning that did not stop the run (the settling band below the
+	 * readings' noise) is listed with the faults, once, as soon as it is
+	 * known: it says why the run took so long or its points are unsettled. */
+	const char *warn = engine_warning_code(e);
+	if (warn[0])
+		add_fault_once(r, at, warn, engine_warning_message(e));
 	if (engine_done(e)) {
 		r->phase[0] = '\0';
 		snprintf(r->stop_reason, sizeof r->stop_reason, "%s",
@@ -108,14 +123,8 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		else
 			snprintf(r->stop_detail, sizeof r->stop_detail, "%s",
 			         record_stop_words(r->stop_reason));
-		if (code && code[0]) {
-			bool listed = false;
-			for (int i = 0; i < r->n_faults; i++)
-				if (!strcmp(r->faults[i].code, code))
-					listed = true;
-			if (!listed)
-				record_add_fault(r, at, code, engine_fault_message(e));
-		}
+		if (code && code[0])
+			add_fault_once(r, at, code, engine_fault_message(e));
 	} else {
 		snprintf(r->phase, sizeof r->phase, "%s", engine_phase(e));
 		r->stop_reason[0] = '\0';

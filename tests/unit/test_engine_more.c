@@ -346,6 +346,9 @@ static void random_scenario(chem_scenario_t *s)
 	s->burette.steps = (long)uni(1000, 40000);
 }
 
+/* When set, every random method doses guided and settles by extrapolation. */
+static bool force_guided_extrapolate;
+
 static void random_method(method_t *m, const chem_scenario_t *s)
 {
 	bool mv = urand() < 0.3;
@@ -354,7 +357,13 @@ static void random_method(method_t *m, const chem_scenario_t *s)
 	m->signal = mv ? SIGNAL_MV : SIGNAL_PH;
 	m->stir_s = uni(0, 20);
 	m->initial_ml = urand() < 0.3 ? uni(0, 2) : 0;
-	m->dosing = urand() < 0.7 ? DOSING_ADAPTIVE : DOSING_CONSTANT;
+	double d = urand();
+	m->dosing = d < 0.45 ? DOSING_ADAPTIVE : d < 0.7 ? DOSING_GUIDED : DOSING_CONSTANT;
+	m->settle_rule = urand() < 0.5 ? SETTLE_STILL : SETTLE_EXTRAPOLATE;
+	if (force_guided_extrapolate) {
+		m->dosing = DOSING_GUIDED;
+		m->settle_rule = SETTLE_EXTRAPOLATE;
+	}
 	m->step_aim = uni(0.05, 1.0) * u;
 	m->dose_min_ml = fmax(q, uni(0.001, 0.1));
 	m->dose_max_ml = m->dose_min_ml * uni(1, 50);
@@ -430,7 +439,7 @@ static bool run_ok(const method_t *m, engine_t *e, const simrun_opts_t *o, const
 	return ok;
 }
 
-TEST(engine_property_random_runs)
+static void property_runs(unsigned long long seed, int runs)
 {
 	method_t base;
 	REQUIRE(fixture_method(
@@ -441,8 +450,7 @@ TEST(engine_property_random_runs)
 	         "results:\n  - name: r\n    formula: end1_ml * titer / amount\n"
 	         "    unit: mL/mL\n    decimals: 3\n",
 	    &base));
-	rng_state = 20261201;
-	int runs = harness_quick() ? 40 : 300;
+	rng_state = seed;
 	int bad = 0;
 	for (int i = 0; i < runs && bad < 5; i++) {
 		chem_scenario_t s;
@@ -550,4 +558,19 @@ TEST(engine_property_random_sequences)
 	/* the generator really made lists, and some runs really fell back */
 	CHECK(listed > runs / 2);
 	CHECK(fell_back > 0);
+}
+
+TEST(engine_property_random_runs)
+{
+	force_guided_extrapolate = false;
+	property_runs(20261201, harness_quick() ? 40 : 300);
+}
+
+/* The same properties with every method dosing guided and settling by
+ * extrapolation: always terminates, never past a limit, never NaN. */
+TEST(engine_property_guided_extrapolate)
+{
+	force_guided_extrapolate = true;
+	property_runs(20261205, harness_quick() ? 40 : 300);
+	force_guided_extrapolate = false;
 }
