@@ -138,6 +138,11 @@ typedef struct engine_endpoint {
 	double deriv_ml;    /* the first-derivative (or target/gran) result, mL */
 	double model_ml;    /* the model fit's result, mL; NaN: no fit or a poor one */
 	double model_rms;   /* fit residual RMS in units of the assumed reading noise; NaN: none */
+	double model_u_ml;  /* the model fit's standard uncertainty, mL; NaN: no fit */
+	/* "": the points support the endpoint; else why they do not, a
+	 * sentence (docs/engine.md, "Doubtful endpoints"). Its results are then
+	 * "doubtful", never "pass". */
+	char doubt[120];
 } engine_endpoint_t;
 
 typedef enum {
@@ -145,7 +150,8 @@ typedef enum {
 	ENGINE_ACCEPT_PASS,
 	ENGINE_ACCEPT_LOW,
 	ENGINE_ACCEPT_HIGH,
-	ENGINE_ACCEPT_MISSING /* "missing": the result has no value (docs/lims.md) */
+	ENGINE_ACCEPT_MISSING, /* "missing": the result has no value (docs/lims.md) */
+	ENGINE_ACCEPT_DOUBTFUL /* "doubtful": from an endpoint the points do not support */
 } engine_accept_t;
 
 /* How a run ended, from the engine's point of view (docs/lims.md): FINISHED
@@ -205,7 +211,8 @@ int engine_n_endpoints(const engine_t *e);
 const engine_endpoint_t *engine_endpoint(const engine_t *e, int i);
 int engine_n_results(const engine_t *e);
 const engine_result_t *engine_result(const engine_t *e, int i);
-const char *engine_accept_name(engine_accept_t a); /* "pass", "low", "high", "none" */
+/* "pass", "low", "high", "none", "missing", "doubtful" */
+const char *engine_accept_name(engine_accept_t a);
 
 /* The quantum of dosing (burette capacity/steps), mL. */
 double engine_dose_quantum_ml(const engine_t *e);

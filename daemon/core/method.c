@@ -86,6 +86,7 @@ void method_defaults(method_t *m)
 	m->detect = DETECT_INFLECTION;
 	m->count = 1;
 	m->min_jump = 0.5;
+	m->u_max_pct = METHOD_U_MAX_PCT;
 	m->past_endpoint_ml = 0.5;
 	m->volume_max_ml = 10.0;
 	m->time_max_s = 1800.0;
@@ -115,7 +116,7 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"dosing", "settle", "detect", "stop", "results", "name", "molarity", "unit", "min",
 		"max", "stir_s", "initial_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
-		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
+		"count", "min_jump", "window", "target", "u_max_pct", "past_endpoint_ml", "volume_max_ml",
 		"signal_limit", "time_max_s", "formula", "decimals", "accept", NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
@@ -443,7 +444,8 @@ static void parse_window(mp_ctx_t *c, const yt_node_t *n)
 
 static void parse_detect(mp_ctx_t *c, const yt_node_t *root)
 {
-	static const char *const keys[] = {"kind", "count", "min_jump", "window", "target", NULL};
+	static const char *const keys[] = {"kind",   "count",     "min_jump",
+	                                   "window", "target",    "u_max_pct", NULL};
 	method_t *m = c->m;
 	bool bad;
 	const yt_node_t *s = section(c, root, "detect", true, keys, &bad), *n;
@@ -503,6 +505,9 @@ static void parse_detect(mp_ctx_t *c, const yt_node_t *root)
 	} else if (n) {
 		not_here(c, s, "target", "detect.target applies only to kind: target");
 	}
+	/* docs/methods.md: above this the endpoint is doubtful, never a pass */
+	num(c, s, "u_max_pct", "detect.u_max_pct", "%", 0.0, true, 100.0, &m->u_max_pct,
+	    &c->f_u_max);
 }
 
 static void parse_stop(mp_ctx_t *c, const yt_node_t *root)

@@ -18,6 +18,8 @@
 #define METHOD_ID_MAX        64
 #define METHOD_TEXT_MAX      160
 #define METHOD_MAX_RESULTS   8
+/* Default of detect.u_max_pct, % (docs/methods.md). */
+#define METHOD_U_MAX_PCT 0.1
 #define METHOD_MAX_ENDPOINTS 4
 
 typedef enum { PURPOSE_ASSAY = 0, PURPOSE_STANDARDIZE, PURPOSE_BLANK } method_purpose_t;
@@ -70,6 +72,9 @@ typedef struct method {
 	double window_lo, window_hi; /* signal units */
 	bool has_target;
 	double target; /* signal units, detect: target */
+	/* An endpoint whose standard uncertainty is above this share of its
+	 * volume is doubtful (detect.u_max_pct), %. */
+	double u_max_pct;
 
 	double past_endpoint_ml; /* keep dosing this much past the last endpoint */
 	double volume_max_ml;    /* never dose beyond this total */

@@ -27,7 +27,7 @@ typedef struct mp_ctx {
 	mp_field_t f_stir, f_predose;
 	mp_field_t f_mode, f_step_aim, f_dose_min, f_dose_max, f_dose;
 	mp_field_t f_wait_min, f_wait_max, f_still_within, f_still_for;
-	mp_field_t f_kind, f_count, f_min_jump, f_window, f_target;
+	mp_field_t f_kind, f_count, f_min_jump, f_window, f_target, f_u_max;
 	mp_field_t f_past, f_vol_max, f_limit, f_time_max;
 	/* The result a standardize run takes its titer from (the rule of
 	 * standardization_titer_from_result in calib.h): one named titer, else the first

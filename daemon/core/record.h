@@ -41,7 +41,7 @@ typedef struct record_result {
 	double value;
 	int decimals;
 	char unit[32];
-	char accept[8]; /* "pass", "low", "high", "none" */
+	char accept[16]; /* "pass", "low", "high", "none", "missing", "doubtful" */
 	char note[160]; /* "" -> no "note" key */
 } record_result_t;
 
