@@ -91,6 +91,9 @@ static void print_record(const json_t *r)
 		       client_fmt(b4, sizeof b4, client_num(e, "mv"), 1),
 		       client_fmt(b2, sizeof b2, client_num(e, "half_ph"), 2),
 		       client_str(e, "how", "-"));
+		const char *doubt = client_str(e, "doubt", NULL);
+		if (doubt)
+			printf("      doubtful: %s\n", doubt);
 	}
 	json_t *res = json_object_get(r, "results");
 	if (json_array_size(res))

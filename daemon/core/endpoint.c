@@ -361,8 +361,7 @@ static double gran_ph(const method_t *m, const engine_point_t *p)
  * the standard error of the x-intercept -a/b from the residual scatter
  * (s^2/b^2 (1/n + (x0 - mean x)^2 / Sxx), the usual propagation for a
  * calibration line's inverse prediction). */
-static double line_fit(const double *x, const double *y, int n, double *a, double *b,
-                       double *u_x0)
+static double line_fit(const double *x, const double *y, int n, double *a, double *b, double *u_x0)
 {
 	if (n < 3)
 		return -1;
@@ -466,8 +465,8 @@ int endpoint_find(const method_t *m, const engine_point_t *pts, int n, int dir, 
 		double v_prev = 0;
 		for (int i = 0; i < k; i++) {
 			double u_se = NAN, ve0 = out[i].volume_ml;
-			double g = gran_volume(m, pts, n, ph_dir, v_prev, ve0, start_volume_ml,
-			                       &u_se);
+			double g =
+			    gran_volume(m, pts, n, ph_dir, v_prev, ve0, start_volume_ml, &u_se);
 			v_prev = ve0;
 			if (isfinite(g)) {
 				out[i].volume_ml = g;
@@ -533,9 +532,9 @@ static double inverse_quadratic(const engine_point_t *a, const engine_point_t *b
 /* u of a target crossing at v, mL: the settling band (a point accepted
  * as still may lag its settled value by up to still_within, always on the
  * same side: the whole band) and the reading noise, each through the
- * flatter of the bracketing addition and the one before it; and the curve's bend between the two points,
- * as far as a quadratic through a third point moves the crossing (the
- * larger of the two neighbours'), bounded by the step itself. */
+ * flatter of the bracketing addition and the one before it; and the curve's bend between the two
+ * points, as far as a quadratic through a third point moves the crossing (the larger of the two
+ * neighbours'), bounded by the step itself. */
 static double target_u(const method_t *m, const engine_point_t *pts, int n, double v_ml)
 {
 	int i = bracket_at(pts, n, v_ml);
@@ -609,9 +608,10 @@ void endpoint_assess(const method_t *m, const engine_point_t *pts, int n, double
 			double u_m = model ? u : ep->model_u_ml;
 			double d = fabs(ep->model_ml - ep->deriv_ml);
 			if (isfinite(u_d) && isfinite(u_m) && d > 2 * sqrt(u_d * u_d + u_m * u_m)) {
-				snprintf(ep->doubt, sizeof ep->doubt,
-				         "the model fit (%.4f mL) and the derivative (%.4f mL) disagree",
-				         ep->model_ml, ep->deriv_ml);
+				snprintf(
+				    ep->doubt, sizeof ep->doubt,
+				    "the model fit (%.4f mL) and the derivative (%.4f mL) disagree",
+				    ep->model_ml, ep->deriv_ml);
 				continue;
 			}
 		}
@@ -624,9 +624,10 @@ void endpoint_assess(const method_t *m, const engine_point_t *pts, int n, double
 				         "spans it (u %.2f %%, limit %.2f %%)",
 				         h, pct, m->u_max_pct);
 			else
-				snprintf(ep->doubt, sizeof ep->doubt,
-				         "u %.4f mL is %.2f %% of the volume, above the limit %.2f %%",
-				         u, pct, m->u_max_pct);
+				snprintf(
+				    ep->doubt, sizeof ep->doubt,
+				    "u %.4f mL is %.2f %% of the volume, above the limit %.2f %%",
+				    u, pct, m->u_max_pct);
 		}
 	}
 }

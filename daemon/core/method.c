@@ -444,8 +444,8 @@ static void parse_window(mp_ctx_t *c, const yt_node_t *n)
 
 static void parse_detect(mp_ctx_t *c, const yt_node_t *root)
 {
-	static const char *const keys[] = {"kind",   "count",     "min_jump",
-	                                   "window", "target",    "u_max_pct", NULL};
+	static const char *const keys[] = {"kind",   "count",     "min_jump", "window",
+	                                   "target", "u_max_pct", NULL};
 	method_t *m = c->m;
 	bool bad;
 	const yt_node_t *s = section(c, root, "detect", true, keys, &bad), *n;

@@ -15,11 +15,11 @@
 #include "diag.h"
 #include "formula.h"
 
-#define METHOD_ID_MAX        64
-#define METHOD_TEXT_MAX      160
-#define METHOD_MAX_RESULTS   8
+#define METHOD_ID_MAX      64
+#define METHOD_TEXT_MAX    160
+#define METHOD_MAX_RESULTS 8
 /* Default of detect.u_max_pct, % (docs/methods.md). */
-#define METHOD_U_MAX_PCT 0.1
+#define METHOD_U_MAX_PCT     0.1
 #define METHOD_MAX_ENDPOINTS 4
 
 typedef enum { PURPOSE_ASSAY = 0, PURPOSE_STANDARDIZE, PURPOSE_BLANK } method_purpose_t;

@@ -75,6 +75,7 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		snprintf(o->how, sizeof o->how, "%s", ep->how ? ep->how : "");
 		o->derivative_ml = ep->deriv_ml;
 		o->model_ml = ep->model_ml;
+		snprintf(o->doubt, sizeof o->doubt, "%s", ep->doubt);
 	}
 	r->n_results = 0;
 	for (int i = 0; i < engine_n_results(e) && i < METHOD_MAX_RESULTS; i++) {
@@ -224,6 +225,7 @@ json_t *record_to_json(const run_record_t *r)
 		put(e, "how", str_or_null(ep->how), &ok);
 		put(e, "derivative_ml", record_real_or_null(ep->derivative_ml), &ok);
 		put(e, "model_ml", record_real_or_null(ep->model_ml), &ok);
+		put(e, "doubt", str_or_null(ep->doubt), &ok);
 		if (json_array_append_new(eps, e) < 0)
 			ok = false;
 	}

@@ -33,6 +33,7 @@ typedef struct record_endpoint {
 	/* additions to the record of docs/lims.md: both evaluations side by side */
 	double derivative_ml; /* first-derivative / target / Gran volume; NaN -> null */
 	double model_ml;      /* model-fit volume; NaN -> null */
+	char doubt[120];      /* why the points do not support it; "" -> null */
 } record_endpoint_t;
 
 typedef struct record_result {
@@ -42,7 +43,7 @@ typedef struct record_result {
 	int decimals;
 	char unit[32];
 	char accept[16]; /* "pass", "low", "high", "none", "missing", "doubtful" */
-	char note[160]; /* "" -> no "note" key */
+	char note[160];  /* "" -> no "note" key */
 } record_result_t;
 
 typedef struct record_fault {

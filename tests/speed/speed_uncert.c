@@ -85,7 +85,8 @@ static void run_row(const method_t *m, const chem_scenario_t *s, const char *nam
 	tally_t t = {.ratio = ratio};
 	const char *how = "-";
 	for (int k = 0; k < SEEDS; k++) {
-		simrun_opts_t o = {.seed = 7000 + 131 * (unsigned long long)k, .burette_start_ml = -1};
+		simrun_opts_t o = {.seed = 7000 + 131 * (unsigned long long)k,
+		                   .burette_start_ml = -1};
 		simrun_out_t out;
 		engine_t *e = simrun_run(m, s, &o, &out);
 		if (!e)
@@ -164,9 +165,9 @@ SPEED(engine_uncertainty)
 		method_detect_t kind;
 		double target; /* pH */
 	} variants[] = {
-	    {"weak", DETECT_TARGET, 8.3},      {"weak-base", DETECT_TARGET, 4.5},
-	    {"strong", DETECT_TARGET, 7.0},    {"weak", DETECT_GRAN, 0},
-	    {"strong", DETECT_GRAN, 0},        {"formic", DETECT_GRAN, 0},
+	    {"weak", DETECT_TARGET, 8.3},   {"weak-base", DETECT_TARGET, 4.5},
+	    {"strong", DETECT_TARGET, 7.0}, {"weak", DETECT_GRAN, 0},
+	    {"strong", DETECT_GRAN, 0},     {"formic", DETECT_GRAN, 0},
 	    {"weak-base", DETECT_GRAN, 0},
 	};
 	double *ratio = malloc(MAX_EPS * sizeof *ratio);
