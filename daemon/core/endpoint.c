@@ -532,9 +532,10 @@ static double inverse_quadratic(const engine_point_t *a, const engine_point_t *b
 /* u of a target crossing at v, mL: the settling band (a point accepted
  * as still may lag its settled value by up to still_within, always on the
  * same side: the whole band) and the reading noise, each through the
- * flatter of the bracketing addition and the one before it; and the curve's bend between the two
- * points, as far as a quadratic through a third point moves the crossing (the larger of the two
- * neighbours'), bounded by the step itself. */
+ * flatter of the bracketing addition and the one before it; and the
+ * curve's bend between the two points: the most that a quadratic through
+ * a third point, or a straight line in the ion's concentration, moves the
+ * crossing, at most the step's own h/sqrt 3. */
 static double target_u(const method_t *m, const engine_point_t *pts, int n, double v_ml)
 {
 	int i = bracket_at(pts, n, v_ml);
@@ -570,6 +571,21 @@ static double target_u(const method_t *m, const engine_point_t *pts, int n, doub
 		double q = inverse_quadratic(p0, p1, &pts[i + 1], m->target);
 		if (isfinite(q))
 			bend = fmax(bend, fabs(q - v_ml));
+	}
+	/* ... and as far as interpolating the ion's concentration instead of
+	 * its logarithm moves it, either way round ([H+] or [OH-]): past an
+	 * equivalence point the excess ion grows linearly with the volume,
+	 * so the curve between two points on the jump bends like a log. */
+	double per_ph = m->signal == SIGNAL_MV ? 1.0 / 59.16 : 1.0; /* pH per signal unit */
+	for (int sgn = -1; sgn <= 1 && h > 0; sgn += 2) {
+		double c0 = pow(10.0, sgn * per_ph * p0->signal);
+		double c1 = pow(10.0, sgn * per_ph * p1->signal);
+		double ct = pow(10.0, sgn * per_ph * m->target);
+		if (c1 != c0 && isfinite(c0) && isfinite(c1)) {
+			double ve = p0->volume_ml + (ct - c0) / (c1 - c0) * h;
+			if (isfinite(ve))
+				bend = fmax(bend, fabs(ve - v_ml));
+		}
 	}
 	bend = fmin(bend, h / sqrt(3.0));
 	return sqrt(u_band * u_band + u_noise * u_noise + bend * bend);
@@ -615,10 +631,15 @@ void endpoint_assess(const method_t *m, const engine_point_t *pts, int n, double
 				continue;
 			}
 		}
+		/* Never below two burette steps: no method can locate a volume
+		 * better than the burette delivers it (a 0.1 mL blank is read to
+		 * its step, not to 0.1 % of itself). */
 		double pct = fabs(v) > 0 ? 100 * u / fabs(v) : INFINITY;
-		if (pct > m->u_max_pct) {
+		double limit_ml = fmax(m->u_max_pct / 100 * fabs(v), 2 * quantum_ml);
+		if (u > limit_ml) {
 			double h = step_at(pts, n, v);
-			if (!model && h > 2 * sqrt(3.0) * m->u_max_pct / 100 * fabs(v))
+			bool jump = !ep->how || strcmp(ep->how, "target");
+			if (jump && !model && h > 2 * sqrt(3.0) * limit_ml)
 				snprintf(ep->doubt, sizeof ep->doubt,
 				         "too few points across the jump: one addition of %.4f mL "
 				         "spans it (u %.2f %%, limit %.2f %%)",

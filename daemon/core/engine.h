@@ -129,7 +129,8 @@ typedef struct engine_point {
 typedef struct engine_endpoint {
 	int n;              /* 1-based */
 	double volume_ml;   /* the reported volume */
-	double u_volume_ml; /* standard uncertainty, mL; NaN: the method gives none */
+	double u_volume_ml; /* standard uncertainty, mL, finite and > 0 once the run is
+	                     * done (docs/engine.md, "Uncertainty"); NaN while running */
 	double ph;          /* pH at the endpoint (NaN when unknown) */
 	double mv;          /* mV at the endpoint */
 	double signal;      /* in method units */

@@ -168,21 +168,23 @@ TEST(engine_uncert_coarse_far_is_doubtful)
 
 /* detect.u_max_pct: a method may ask for a tighter limit, and an endpoint
  * above it is doubtful, its result "doubtful" (with the reason as note), the
- * run finished but not clean, and the record carries both. */
+ * run finished but not clean, and the record carries both. A target at pH
+ * 8.20 on vinegar: its u (the settling band through the slope, several uL)
+ * is above a 0.00001 % limit (raised to the floor of two burette steps,
+ * 1 uL here) and below a 1 % one. */
 TEST(engine_uncert_u_max_pct)
 {
 	method_t m;
 	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
 	                            "dose_max_ml: 1.0}\n"
-	                            "detect: {kind: inflection, count: 1, min_jump: 1.0}\n"
+	                            "detect: {kind: target, target: 8.20}\n"
 	                            "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, "
 	                            "time_max_s: 3600}\n" RESULT,
 	                       &m));
 	CHECK_NEAR(m.u_max_pct, METHOD_U_MAX_PCT, 0);
 	REQUIRE(fixture_method(HEAD "dosing: {mode: adaptive, step_aim: 0.5, dose_min_ml: 0.02, "
 	                            "dose_max_ml: 1.0}\n"
-	                            "detect: {kind: inflection, count: 1, min_jump: 1.0, "
-	                            "u_max_pct: 0.00001}\n"
+	                            "detect: {kind: target, target: 8.20, u_max_pct: 0.00001}\n"
 	                            "stop: {past_endpoint_ml: 0.5, volume_max_ml: 20, "
 	                            "time_max_s: 3600}\n" RESULT,
 	                       &m));
@@ -194,6 +196,7 @@ TEST(engine_uncert_u_max_pct)
 	engine_t *e = simrun_run(&m, &s, &o, &out);
 	REQUIRE(e && engine_n_endpoints(e) == 1 && engine_n_results(e) == 1);
 	const engine_endpoint_t *ep = engine_endpoint(e, 0);
+	CHECK(ep->u_volume_ml > 0.001 && ep->u_volume_ml < 0.1);
 	CHECK(strstr(ep->doubt, "above the limit") != NULL);
 	CHECK_STR(engine_accept_name(engine_result(e, 0)->accept), "doubtful");
 	CHECK(strstr(engine_result(e, 0)->note, "endpoint 1") != NULL);
@@ -213,8 +216,8 @@ TEST(engine_uncert_u_max_pct)
 	json_decref(j);
 	engine_free(e);
 
-	/* With the default limit the same run is supported and passes. */
-	m.u_max_pct = METHOD_U_MAX_PCT;
+	/* With a limit of 1 % the same run is supported and passes. */
+	m.u_max_pct = 1.0;
 	e = simrun_run(&m, &s, &o, &out);
 	REQUIRE(e && engine_n_endpoints(e) == 1 && engine_n_results(e) == 1);
 	CHECK_STR(engine_endpoint(e, 0)->doubt, "");
