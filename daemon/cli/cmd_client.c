@@ -214,7 +214,8 @@ static int final_status(const json_t *rec)
 		if (!strcmp(a, "low") || !strcmp(a, "high"))
 			rc = CLIENT_EXIT_OUT_OF_LIMITS;
 		else if (strcmp(a, "pass") && strcmp(a, "none"))
-			return CLIENT_EXIT_FAIL; /* "missing" or a word this client does not know */
+			return CLIENT_EXIT_FAIL; /* "missing", "doubtful" or a word this
+			                          * client does not know: someone must look */
 	}
 	return rc;
 }
@@ -233,6 +234,8 @@ static void print_final(long long id, const json_t *rec)
 		printf("%s E%lld %s mL", i ? "," : ":",
 		       (long long)json_integer_value(json_object_get(e, "n")),
 		       client_fmt(b, sizeof b, client_num(e, "volume_ml"), 4));
+		if (client_str(e, "doubt", NULL))
+			printf(" (doubtful)");
 	}
 	json_array_foreach(json_object_get(rec, "results"), i, e)
 	{
@@ -243,6 +246,13 @@ static void print_final(long long id, const json_t *rec)
 		       client_str(e, "unit", ""), client_str(e, "accept", "none"));
 	}
 	printf("\n");
+	json_array_foreach(json_object_get(rec, "endpoints"), i, e)
+	{
+		const char *doubt = client_str(e, "doubt", NULL);
+		if (doubt)
+			printf("  doubtful E%lld: %s\n",
+			       (long long)json_integer_value(json_object_get(e, "n")), doubt);
+	}
 	json_t *faults = json_object_get(rec, "faults");
 	json_array_foreach(faults, i, e)
 	    printf("  fault %s: %s\n", client_str(e, "code", "?"), client_str(e, "message", ""));

@@ -80,13 +80,16 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 			printf(", pH %.2f", ep->ph);
 		if (isfinite(ep->half_ph))
 			printf(", pH %.2f at half volume", ep->half_ph);
+		if (ep->doubt[0])
+			printf("\n  doubtful: %s", ep->doubt);
 		printf("\n");
 	}
 	for (int i = 0; i < engine_n_results(e); i++) {
 		const engine_result_t *r = engine_result(e, i);
 		if (r->has_value)
-			printf("result %s: %.*f%s%s (%s)%s\n", r->name, r->decimals, r->value,
+			printf("result %s: %.*f%s%s (%s%s%s)%s\n", r->name, r->decimals, r->value,
 			       r->unit[0] ? " " : "", r->unit, engine_accept_name(r->accept),
+			       r->note[0] ? ": " : "", r->note,
 			       r->from_fallback ? " from a fallback endpoint" : "");
 		else
 			printf("result %s: none (%s)\n", r->name, r->note);
@@ -262,6 +265,9 @@ int cmd_predict(int argc, char **argv)
 	} else if (rc == 0 && !engine_outcome_clean(e)) {
 		/* The same statuses as `stopcock wait` (docs/cli.md). */
 		rc = engine_outcome(e) == ENGINE_OUTCOME_FINISHED ? 3 : 1;
+		for (int i = 0; i < engine_n_results(e); i++)
+			if (engine_result(e, i)->accept == ENGINE_ACCEPT_DOUBTFUL)
+				rc = 1; /* someone must look, as for `wait` */
 	}
 	engine_free(e);
 	return rc;

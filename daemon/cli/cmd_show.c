@@ -96,6 +96,9 @@ static void print_record(const json_t *r)
 			    "      (at the fallback signal of detect criterion %lld: no inflection "
 			    "before it)\n",
 			    (long long)json_integer_value(json_object_get(e, "criterion")));
+		const char *doubt = client_str(e, "doubt", NULL);
+		if (doubt)
+			printf("      doubtful: %s\n", doubt);
 	}
 	json_t *res = json_object_get(r, "results");
 	if (json_array_size(res))

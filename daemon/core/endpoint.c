@@ -18,6 +18,7 @@
 #include "endpoint.h"
 
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -49,6 +50,23 @@ double endpoint_interp(const engine_point_t *pts, int n, double v_ml, int field)
 	}
 	return FIELD(pts[n - 1]);
 #undef FIELD
+}
+
+/* The addition that brackets volume v: index i of its upper point (v in
+ * [V_i-1, V_i]), 0 when v is at or before the first point. */
+static int bracket_at(const engine_point_t *pts, int n, double v_ml)
+{
+	for (int i = 1; i < n; i++)
+		if (pts[i].volume_ml >= v_ml)
+			return i;
+	return 0;
+}
+
+/* Size of that addition, mL (0 outside the curve). */
+static double step_at(const engine_point_t *pts, int n, double v_ml)
+{
+	int i = bracket_at(pts, n, v_ml);
+	return i > 0 ? pts[i].volume_ml - pts[i - 1].volume_ml : 0;
 }
 
 void endpoint_central_dpdv(engine_point_t *pts, int n)
@@ -93,6 +111,8 @@ static void fill_point_fields(const engine_point_t *pts, int n, engine_endpoint_
 	ep->u_volume_ml = NAN;
 	ep->model_ml = NAN;
 	ep->model_rms = NAN;
+	ep->model_u_ml = NAN;
+	ep->doubt[0] = '\0';
 }
 
 /* Derivative segments: g[j] = dir * dS/dV over [V_j, V_j+1], at vm[j]. */
@@ -337,8 +357,11 @@ static double gran_ph(const method_t *m, const engine_point_t *p)
 	return m->signal == SIGNAL_MV ? 7.0 - p->mv / 59.16 : p->signal;
 }
 
-/* Straight line through (x, y): y = a + b x; returns r^2, or -1. */
-static double line_fit(const double *x, const double *y, int n, double *a, double *b)
+/* Straight line through (x, y): y = a + b x; returns r^2, or -1. *u_x0 is
+ * the standard error of the x-intercept -a/b from the residual scatter
+ * (s^2/b^2 (1/n + (x0 - mean x)^2 / Sxx), the usual propagation for a
+ * calibration line's inverse prediction). */
+static double line_fit(const double *x, const double *y, int n, double *a, double *b, double *u_x0)
 {
 	if (n < 3)
 		return -1;
@@ -358,13 +381,20 @@ static double line_fit(const double *x, const double *y, int n, double *a, doubl
 		return -1;
 	*b = sxy / sxx;
 	*a = my - *b * mx;
+	double ss = 0;
+	for (int i = 0; i < n; i++) {
+		double r = y[i] - *a - *b * x[i];
+		ss += r * r;
+	}
+	double x0 = -*a / *b, s2 = ss / (n - 2);
+	*u_x0 = sqrt(s2 / (*b * *b) * (1.0 / n + (x0 - mx) * (x0 - mx) / sxx));
 	return sxy * sxy / (sxx * syy);
 }
 
 /* Gran volume for the endpoint near ve0 (from the derivative), between the
  * previous endpoint v_prev and ve0; NaN when the data do not allow it. */
 static double gran_volume(const method_t *m, const engine_point_t *pts, int n, int ph_dir,
-                          double v_prev, double ve0, double v0_ml)
+                          double v_prev, double ve0, double v0_ml, double *u_ml)
 {
 	double span = ve0 - v_prev;
 	if (!(span > 0))
@@ -395,15 +425,18 @@ static double gran_volume(const method_t *m, const engine_point_t *pts, int n, i
 		y2[k] = (v0_ml + v) * c;
 		k++;
 	}
-	double a1, b1, a2, b2;
-	double r1 = line_fit(xw, y1, k, &a1, &b1);
-	double r2 = line_fit(x, y2, k, &a2, &b2);
+	double a1, b1, a2, b2, u1 = NAN, u2 = NAN;
+	double r1 = line_fit(xw, y1, k, &a1, &b1, &u1);
+	double r2 = line_fit(x, y2, k, &a2, &b2, &u2);
 	double v1 = r1 > 0 && b1 < 0 ? -a1 / b1 : NAN;
 	double v2 = r2 > 0 && b2 < 0 ? -a2 / b2 : NAN;
-	if (isfinite(v1) && (!isfinite(v2) || r1 >= r2))
+	if (isfinite(v1) && (!isfinite(v2) || r1 >= r2)) {
 		best = v1;
-	else if (isfinite(v2))
+		*u_ml = u1;
+	} else if (isfinite(v2)) {
 		best = v2;
+		*u_ml = u2;
+	}
 	/* A Gran intercept far from the derivative's volume is not this endpoint,
 	 * nor is one beyond the last point when the curve has already shown
 	 * its jump (the line was fitted to the wrong stretch). */
@@ -431,15 +464,191 @@ int endpoint_find(const method_t *m, const engine_point_t *pts, int n, int dir, 
 		int ph_dir = m->signal == SIGNAL_MV ? -dir : dir;
 		double v_prev = 0;
 		for (int i = 0; i < k; i++) {
-			double g = gran_volume(m, pts, n, ph_dir, v_prev, out[i].volume_ml,
-			                       start_volume_ml);
-			v_prev = out[i].volume_ml;
+			double u_se = NAN, ve0 = out[i].volume_ml;
+			double g =
+			    gran_volume(m, pts, n, ph_dir, v_prev, ve0, start_volume_ml, &u_se);
+			v_prev = ve0;
 			if (isfinite(g)) {
 				out[i].volume_ml = g;
 				fill_point_fields(pts, n, &out[i]);
 				out[i].how = "gran";
+				/* The line's own scatter, and half its distance from
+				 * the derivative's volume: a Gran line bent by
+				 * changing activity coefficients (docs/engine.md)
+				 * has a small scatter but lands away from the jump. */
+				double half = (g - ve0) / 2;
+				out[i].u_volume_ml = sqrt(u_se * u_se + half * half);
+				double u_d = step_at(pts, n, ve0) / sqrt(12.0);
+				if (fabs(g - ve0) > 2 * sqrt(u_se * u_se + u_d * u_d))
+					snprintf(out[i].doubt, sizeof out[i].doubt,
+					         "the Gran line (%.4f mL) and the derivative (%.4f "
+					         "mL) disagree",
+					         g, ve0);
 			}
 		}
 	}
 	return k;
+}
+
+double endpoint_sigma_signal(const method_t *m)
+{
+	/* A settled point is good to about half the settling band (the
+	 * electrode may still creep within it), and never better than the
+	 * meter's resolution (0.001 pH / 0.1 mV, common practice,
+	 * docs/chemistry.md §10). */
+	return fmax(m->signal == SIGNAL_MV ? 0.1 : 0.002, m->still_within / 2);
+}
+
+/* u of a first-derivative volume v, mL: the peak lies somewhere on the
+ * addition that brackets v (rectangular over that step h: h/sqrt 12; the
+ * parabola through the top narrows it, so this is an upper figure where the
+ * top has many points), and the reading noise through the steepest slope
+ * there (signal/mL). */
+static double deriv_u(const method_t *m, const engine_point_t *pts, int n, double v_ml)
+{
+	int i = bracket_at(pts, n, v_ml);
+	if (i < 1)
+		return NAN;
+	double h = pts[i].volume_ml - pts[i - 1].volume_ml;
+	double g = fmax(fabs(pts[i].dpdv), fabs(pts[i - 1].dpdv));
+	g = fmax(g, h > 0 ? fabs(pts[i].signal - pts[i - 1].signal) / h : 0);
+	double u_noise = g > 0 ? endpoint_sigma_signal(m) / g : 0;
+	return sqrt(h * h / 12 + u_noise * u_noise);
+}
+
+/* V at signal t on the quadratic V(S) through points a, b, c (inverse
+ * interpolation); NaN when two signals coincide. */
+static double inverse_quadratic(const engine_point_t *a, const engine_point_t *b,
+                                const engine_point_t *c, double t)
+{
+	double sa = a->signal, sb = b->signal, sc = c->signal;
+	if (sa == sb || sb == sc || sa == sc)
+		return NAN;
+	return a->volume_ml * (t - sb) * (t - sc) / ((sa - sb) * (sa - sc)) +
+	       b->volume_ml * (t - sa) * (t - sc) / ((sb - sa) * (sb - sc)) +
+	       c->volume_ml * (t - sa) * (t - sb) / ((sc - sa) * (sc - sb));
+}
+
+/* u of a target crossing at v, mL: the settling band (a point accepted
+ * as still may lag its settled value by up to still_within, always on the
+ * same side: the whole band) and the reading noise, each through the
+ * flatter of the bracketing addition and the one before it; and the
+ * curve's bend between the two points: the most that a quadratic through
+ * a third point, or a straight line in the ion's concentration, moves the
+ * crossing, at most the step's own h/sqrt 3. */
+static double target_u(const method_t *m, const engine_point_t *pts, int n, double v_ml)
+{
+	int i = bracket_at(pts, n, v_ml);
+	if (i < 1)
+		return NAN;
+	const engine_point_t *p0 = &pts[i - 1], *p1 = &pts[i];
+	double h = p1->volume_ml - p0->volume_ml;
+	double ds = fabs(p1->signal - p0->signal);
+	double u_band, u_noise;
+	/* the slope on the approach: the addition before the bracketing one
+	 * when it was flatter (the lag of the last reading acts there) */
+	double per = h > 0 && ds > 0 ? h / ds : 0;
+	if (per > 0 && i >= 2) {
+		double h0 = p0->volume_ml - pts[i - 2].volume_ml;
+		double ds0 = fabs(p0->signal - pts[i - 2].signal);
+		if (h0 > 0 && ds0 > 0)
+			per = fmax(per, h0 / ds0);
+	}
+	if (per > 0) {
+		u_band = m->still_within * per;
+		u_noise = endpoint_sigma_signal(m) * per;
+	} else {
+		u_band = h / sqrt(3.0);
+		u_noise = 0;
+	}
+	double bend = 0;
+	if (i >= 2) {
+		double q = inverse_quadratic(&pts[i - 2], p0, p1, m->target);
+		if (isfinite(q))
+			bend = fmax(bend, fabs(q - v_ml));
+	}
+	if (i + 1 < n) {
+		double q = inverse_quadratic(p0, p1, &pts[i + 1], m->target);
+		if (isfinite(q))
+			bend = fmax(bend, fabs(q - v_ml));
+	}
+	/* ... and as far as interpolating the ion's concentration instead of
+	 * its logarithm moves it, either way round ([H+] or [OH-]): past an
+	 * equivalence point the excess ion grows linearly with the volume,
+	 * so the curve between two points on the jump bends like a log. */
+	double per_ph = m->signal == SIGNAL_MV ? 1.0 / 59.16 : 1.0; /* pH per signal unit */
+	for (int sgn = -1; sgn <= 1 && h > 0; sgn += 2) {
+		double c0 = pow(10.0, sgn * per_ph * p0->signal);
+		double c1 = pow(10.0, sgn * per_ph * p1->signal);
+		double ct = pow(10.0, sgn * per_ph * m->target);
+		if (c1 != c0 && isfinite(c0) && isfinite(c1)) {
+			double ve = p0->volume_ml + (ct - c0) / (c1 - c0) * h;
+			if (isfinite(ve))
+				bend = fmax(bend, fabs(ve - v_ml));
+		}
+	}
+	bend = fmin(bend, h / sqrt(3.0));
+	return sqrt(u_band * u_band + u_noise * u_noise + bend * bend);
+}
+
+void endpoint_assess(const method_t *m, const engine_point_t *pts, int n, double quantum_ml,
+                     engine_endpoint_t *eps, int n_eps)
+{
+	double u_q = quantum_ml > 0 ? quantum_ml / sqrt(3.0) : 0;
+	for (int i = 0; i < n_eps; i++) {
+		engine_endpoint_t *ep = &eps[i];
+		double v = ep->volume_ml;
+		bool model = ep->how && !strcmp(ep->how, "model");
+		double u = ep->u_volume_ml;
+		if (ep->how && !strcmp(ep->how, "target"))
+			u = target_u(m, pts, n, v);
+		else if (ep->how && !strcmp(ep->how, "inflection"))
+			u = deriv_u(m, pts, n, v);
+		else if (!isfinite(u))
+			u = deriv_u(m, pts, n, v);
+		/* the burette's step on every volume but the model's, whose fit
+		 * already weighs it */
+		if (!model)
+			u = sqrt(u * u + u_q * u_q);
+		if (!(u > 0) || !isfinite(u))
+			u = fmax(u_q, step_at(pts, n, v) / sqrt(12.0));
+		if (!(u > 0))
+			u = fmax(fabs(v), 1.0); /* nothing measured near it: u as large as it */
+		ep->u_volume_ml = u;
+
+		if (ep->doubt[0])
+			continue;
+		/* The fit and the derivative disagree beyond both uncertainties. */
+		if (isfinite(ep->model_ml) && isfinite(ep->deriv_ml)) {
+			double u_d = deriv_u(m, pts, n, ep->deriv_ml);
+			double u_m = model ? u : ep->model_u_ml;
+			double d = fabs(ep->model_ml - ep->deriv_ml);
+			if (isfinite(u_d) && isfinite(u_m) && d > 2 * sqrt(u_d * u_d + u_m * u_m)) {
+				snprintf(
+				    ep->doubt, sizeof ep->doubt,
+				    "the model fit (%.4f mL) and the derivative (%.4f mL) disagree",
+				    ep->model_ml, ep->deriv_ml);
+				continue;
+			}
+		}
+		/* Never below two burette steps: no method can locate a volume
+		 * better than the burette delivers it (a 0.1 mL blank is read to
+		 * its step, not to 0.1 % of itself). */
+		double pct = fabs(v) > 0 ? 100 * u / fabs(v) : INFINITY;
+		double limit_ml = fmax(m->u_max_pct / 100 * fabs(v), 2 * quantum_ml);
+		if (u > limit_ml) {
+			double h = step_at(pts, n, v);
+			bool jump = !ep->how || strcmp(ep->how, "target");
+			if (jump && !model && h > 2 * sqrt(3.0) * limit_ml)
+				snprintf(ep->doubt, sizeof ep->doubt,
+				         "too few points across the jump: one addition of %.4f mL "
+				         "spans it (u %.2f %%, limit %.2f %%)",
+				         h, pct, m->u_max_pct);
+			else
+				snprintf(
+				    ep->doubt, sizeof ep->doubt,
+				    "u %.4f mL is %.2f %% of the volume, above the limit %.2f %%",
+				    u, pct, m->u_max_pct);
+		}
+	}
 }

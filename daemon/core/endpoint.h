@@ -34,4 +34,17 @@ double endpoint_interp(const engine_point_t *pts, int n, double v_ml, int field)
  * first derivative, signal units per mL. */
 void endpoint_central_dpdv(engine_point_t *pts, int n);
 
+/* Reading noise assumed for a settled point, signal units: half the
+ * settling band, never below the meter's resolution. */
+double endpoint_sigma_signal(const method_t *m);
+
+/* Once the run is done (points with their central dpdv, the model fit
+ * applied): give every endpoint a finite u_volume_ml > 0 (docs/engine.md,
+ * "Uncertainty") and mark in `doubt` each one the points cannot support
+ * (the model fit and the derivative disagree, or u above the method's
+ * u_max_pct, naming too few points across the jump when one addition spans
+ * it). quantum_ml is the burette's step. */
+void endpoint_assess(const method_t *m, const engine_point_t *pts, int n, double quantum_ml,
+                     engine_endpoint_t *eps, int n_eps);
+
 #endif

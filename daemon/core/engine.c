@@ -89,6 +89,7 @@ struct engine {
 	char fault_msg[256];
 	char eval_code[32]; /* endpoint_missing, result_missing: set by evaluate() */
 	char eval_msg[256];
+	char doubt_note[160]; /* a doubtful endpoint, as the results' note */
 	const char *phase;
 };
 
@@ -120,6 +121,8 @@ const char *engine_accept_name(engine_accept_t a)
 		return "high";
 	case ENGINE_ACCEPT_MISSING:
 		return "missing";
+	case ENGINE_ACCEPT_DOUBTFUL:
+		return "doubtful";
 	default:
 		return "none";
 	}
@@ -211,6 +214,19 @@ static double quantize(const engine_t *e, double ml)
 
 /* ---- evaluation ---- */
 
+/* The first doubtful endpoint's reason, prefixed with its number; NULL
+ * when every endpoint is supported. */
+static const char *endpoints_doubt(engine_t *e)
+{
+	for (int i = 0; i < e->n_ep; i++)
+		if (e->ep[i].doubt[0]) {
+			snprintf(e->doubt_note, sizeof e->doubt_note, "endpoint %d: %s", e->ep[i].n,
+			         e->ep[i].doubt);
+			return e->doubt_note;
+		}
+	return NULL;
+}
+
 static void compute_results(engine_t *e)
 {
 	formula_vars_t fv;
@@ -269,6 +285,13 @@ static void compute_results(engine_t *e)
 			r->accept = ENGINE_ACCEPT_PASS;
 		else
 			r->accept = ENGINE_ACCEPT_NONE;
+		/* A value from an endpoint the points do not support is no pass,
+		 * whatever its limits say (docs/lims.md). */
+		const char *doubt = endpoints_doubt(e);
+		if (doubt) {
+			r->accept = ENGINE_ACCEPT_DOUBTFUL;
+			snprintf(r->note, sizeof r->note, "%s", doubt);
+		}
 	}
 }
 
@@ -472,11 +495,7 @@ static void evaluate(engine_t *e)
 		    .pkw = chem_pkw(t_c),
 		    .sig7 = 7.0, /* signal ph: the nominal pH is the signal */
 		    .sig_per_ph = 1.0,
-		    /* A settled point is good to about half the settling band
-		     * (the electrode may still creep within it), and never better
-		     * than the meter's resolution (0.001 pH / 0.1 mV, common
-		     * practice, docs/chemistry.md §10). */
-		    .sigma_signal = fmax(0.002, e->m.still_within / 2),
+		    .sigma_signal = endpoint_sigma_signal(&e->m),
 		    .sigma_ml = e->quantum_ml,
 		    /* a real beaker's electrode reads a(H+), and its activity
 		     * coefficients move with the ionic strength (modelfit.c) */
@@ -487,10 +506,27 @@ static void evaluate(engine_t *e)
 			double slope = e->p.has_calibration ? e->p.cal_slope_pct : 100.0;
 			c.sig7 = e->p.has_calibration ? e->p.cal_offset_mv : 0.0;
 			c.sig_per_ph = -k * slope / 100.0;
-			c.sigma_signal = fmax(0.1, e->m.still_within / 2);
 		}
 		modelfit_refine(&c, e->pts, e->n_pts, e->ep, e->n_ep);
 	}
+	/* Each endpoint is assessed under its own criterion: a target's u reads
+	 * the curve at that criterion's target (a fallback's at its signal). */
+	method_t *one = malloc(sizeof *one);
+	for (int i = 0; i < e->n_ep; i++) {
+		engine_endpoint_t *ep = &e->ep[i];
+		int ci = ep->criterion >= 1 && ep->criterion <= e->n_crit ? ep->criterion - 1 : 0;
+		if (!one) {
+			endpoint_assess(&e->m, e->pts, e->n_pts, e->quantum_ml, ep, 1);
+			continue;
+		}
+		method_for_criterion(&e->full, &e->crits[ci], one);
+		if (ep->fallback) {
+			one->has_target = true;
+			one->target = e->crits[ci].fallback;
+		}
+		endpoint_assess(one, e->pts, e->n_pts, e->quantum_ml, ep, 1);
+	}
+	free(one);
 	compute_results(e);
 	judge(e);
 	describe(e);

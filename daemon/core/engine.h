@@ -129,7 +129,8 @@ typedef struct engine_point {
 typedef struct engine_endpoint {
 	int n;              /* 1-based */
 	double volume_ml;   /* the reported volume */
-	double u_volume_ml; /* standard uncertainty, mL; NaN: the method gives none */
+	double u_volume_ml; /* standard uncertainty, mL, finite and > 0 once the run is
+	                     * done (docs/engine.md, "Uncertainty"); NaN while running */
 	double ph;          /* pH at the endpoint (NaN when unknown) */
 	double mv;          /* mV at the endpoint */
 	double signal;      /* in method units */
@@ -140,6 +141,11 @@ typedef struct engine_endpoint {
 	double model_rms;   /* fit residual RMS in units of the assumed reading noise; NaN: none */
 	int criterion;      /* 1-based: the detect criterion that gave it (1 for one mapping) */
 	bool fallback;      /* found at the criterion's fallback signal: no inflection came first */
+	double model_u_ml;  /* the model fit's standard uncertainty, mL; NaN: no fit */
+	/* "": the points support the endpoint; else why they do not, a
+	 * sentence (docs/engine.md, "Doubtful endpoints"). Its results are then
+	 * "doubtful", never "pass". */
+	char doubt[120];
 } engine_endpoint_t;
 
 typedef enum {
@@ -147,7 +153,8 @@ typedef enum {
 	ENGINE_ACCEPT_PASS,
 	ENGINE_ACCEPT_LOW,
 	ENGINE_ACCEPT_HIGH,
-	ENGINE_ACCEPT_MISSING /* "missing": the result has no value (docs/lims.md) */
+	ENGINE_ACCEPT_MISSING, /* "missing": the result has no value (docs/lims.md) */
+	ENGINE_ACCEPT_DOUBTFUL /* "doubtful": from an endpoint the points do not support */
 } engine_accept_t;
 
 /* How a run ended, from the engine's point of view (docs/lims.md): FINISHED
@@ -218,7 +225,8 @@ int engine_n_endpoints(const engine_t *e);
 const engine_endpoint_t *engine_endpoint(const engine_t *e, int i);
 int engine_n_results(const engine_t *e);
 const engine_result_t *engine_result(const engine_t *e, int i);
-const char *engine_accept_name(engine_accept_t a); /* "pass", "low", "high", "none" */
+/* "pass", "low", "high", "none", "missing", "doubtful" */
+const char *engine_accept_name(engine_accept_t a);
 
 /* The quantum of dosing (burette capacity/steps), mL. */
 double engine_dose_quantum_ml(const engine_t *e);

@@ -97,6 +97,7 @@ void method_defaults(method_t *m)
 	m->detect = DETECT_INFLECTION;
 	m->count = 1;
 	m->min_jump = 0.5;
+	m->u_max_pct = METHOD_U_MAX_PCT;
 	m->past_endpoint_ml = 0.5;
 	m->volume_max_ml = 10.0;
 	m->time_max_s = 1800.0;
@@ -127,7 +128,7 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"max", "stir_s", "initial_ml", "mode", "step_aim", "dose_min_ml", "dose_max_ml",
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
-		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", "rule",
+		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", "rule", "u_max_pct",
 		NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
@@ -501,8 +502,8 @@ static void parse_fallback(mp_ctx_t *c, const yt_node_t *n, crit_fields_t *f,
 static void parse_criterion(mp_ctx_t *c, const yt_node_t *s, bool in_list, crit_fields_t *f,
                             method_criterion_t *cr)
 {
-	static const char *const keys[] = {"kind",   "count",    "min_jump", "window",
-	                                   "target", "fallback", NULL};
+	static const char *const keys[] = {"kind",   "count",    "min_jump",  "window",
+	                                   "target", "fallback", "u_max_pct", NULL};
 	method_t *m = c->m;
 	const yt_node_t *n;
 	const char *u = mp_signal_unit(m);
@@ -590,6 +591,25 @@ static void parse_criterion(mp_ctx_t *c, const yt_node_t *s, bool in_list, crit_
 		f->fallback.bad = true;
 	} else if (n) {
 		parse_fallback(c, n, f, cr);
+	}
+
+	/* docs/methods.md: above this the endpoint is doubtful, never a pass.
+	 * One limit for the run: a list may give it on any item, once or alike. */
+	n = yt_get(s, "u_max_pct");
+	if (n) {
+		double v;
+		mp_field_t tmp;
+		snprintf(path, sizeof path, "%s.u_max_pct", f->path);
+		if (num(c, s, "u_max_pct", path, "%", 0.0, true, 100.0, &v, &tmp)) {
+			if (c->u_max_node && v != m->u_max_pct)
+				yt_error(
+				    c->doc, n, c->d,
+				    "%s (%g %%) differs from the %g %% given before: one limit "
+				    "applies to all of the run's endpoints",
+				    path, v, m->u_max_pct);
+			m->u_max_pct = v;
+			c->u_max_node = n;
+		}
 	}
 }
 

@@ -15,9 +15,11 @@
 #include "diag.h"
 #include "formula.h"
 
-#define METHOD_ID_MAX        64
-#define METHOD_TEXT_MAX      160
-#define METHOD_MAX_RESULTS   8
+#define METHOD_ID_MAX      64
+#define METHOD_TEXT_MAX    160
+#define METHOD_MAX_RESULTS 8
+/* Default of detect.u_max_pct, % (docs/methods.md). */
+#define METHOD_U_MAX_PCT     0.1
 #define METHOD_MAX_ENDPOINTS 4
 
 typedef enum { PURPOSE_ASSAY = 0, PURPOSE_STANDARDIZE, PURPOSE_BLANK } method_purpose_t;
@@ -100,6 +102,9 @@ typedef struct method {
 	double fallback; /* signal units, see method_criterion_t */
 	int n_criteria;  /* 0: detect is one mapping; else the length of its list */
 	method_criterion_t criteria[METHOD_MAX_ENDPOINTS];
+	/* An endpoint whose standard uncertainty is above this share of its
+	 * volume is doubtful (detect.u_max_pct), %. */
+	double u_max_pct;
 
 	double past_endpoint_ml; /* keep dosing this much past the last endpoint */
 	double volume_max_ml;    /* never dose beyond this total */

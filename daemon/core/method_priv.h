@@ -28,6 +28,7 @@ typedef struct mp_ctx {
 	mp_field_t f_mode, f_step_aim, f_dose_min, f_dose_max, f_dose;
 	mp_field_t f_wait_min, f_wait_max, f_still_within, f_still_for;
 	mp_field_t f_kind, f_count, f_min_jump, f_window, f_target;
+	const yt_node_t *u_max_node; /* where detect...u_max_pct was given, or NULL */
 	mp_field_t f_past, f_vol_max, f_limit, f_time_max;
 	/* per detect criterion: the node of its target or fallback signal
 	 * (NULL: none, or given but bad), for the order check */

@@ -700,6 +700,7 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		}
 		eps[i].model_ml = veq;
 		eps[i].model_rms = rms;
+		eps[i].model_u_ml = u;
 		/* Good fit: residuals near the assumed noise, a small uncertainty,
 		 * and agreement with the derivative within a few percent (a model
 		 * that found another step is no refinement). */

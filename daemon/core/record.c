@@ -86,6 +86,7 @@ void record_fill_from_engine(run_record_t *r, const engine_t *e, const char *at)
 		o->model_ml = ep->model_ml;
 		o->criterion = ep->criterion > 0 ? ep->criterion : 1;
 		o->fallback = ep->fallback;
+		snprintf(o->doubt, sizeof o->doubt, "%s", ep->doubt);
 	}
 	r->n_results = 0;
 	for (int i = 0; i < engine_n_results(e) && i < METHOD_MAX_RESULTS; i++) {
@@ -242,6 +243,7 @@ json_t *record_to_json(const run_record_t *r)
 		put(e, "model_ml", record_real_or_null(ep->model_ml), &ok);
 		put(e, "criterion", json_integer(ep->criterion > 0 ? ep->criterion : 1), &ok);
 		put(e, "fallback", json_boolean(ep->fallback), &ok);
+		put(e, "doubt", str_or_null(ep->doubt), &ok);
 		if (json_array_append_new(eps, e) < 0)
 			ok = false;
 	}

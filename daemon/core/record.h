@@ -35,6 +35,7 @@ typedef struct record_endpoint {
 	double model_ml;      /* model-fit volume; NaN -> null */
 	int criterion;        /* 1-based detect criterion that gave it */
 	bool fallback;        /* found at the criterion's fallback signal */
+	char doubt[120];      /* why the points do not support it; "" -> null */
 } record_endpoint_t;
 
 typedef struct record_result {
@@ -43,9 +44,9 @@ typedef struct record_result {
 	double value;
 	int decimals;
 	char unit[32];
-	char accept[8]; /* "pass", "low", "high", "none" */
-	char note[160]; /* "" -> no "note" key */
-	bool fallback;  /* its formula reads an endpoint found at a fallback signal */
+	bool fallback;   /* its formula reads an endpoint found at a fallback signal */
+	char accept[16]; /* "pass", "low", "high", "none", "missing", "doubtful" */
+	char note[160];  /* "" -> no "note" key */
 } record_result_t;
 
 typedef struct record_fault {

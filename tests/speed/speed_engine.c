@@ -8,7 +8,7 @@
  *   simulated per endpoint at tau 1.5 s; <= 100 us CPU per point.
  * The stoichiometric volumes come from the scenario (chem_equivalence_ml),
  * not from the engine; for a titrant with a weak component (carbonate taken
- * up from air) see titrant_ref_ml. CPU per point is the engine's own time
+ * up from air) see speed_titrant_ref_ml. CPU per point is the engine's own time
  * (engine_feed), without the simulated chemistry, divided by the accepted
  * points.
  */
@@ -18,6 +18,7 @@
 #include <string.h>
 
 #include "speed.h"
+#include "speed_engine.h"
 #include "chem.h"
 #include "scenario.h"
 #include "diag.h"
@@ -39,11 +40,11 @@ typedef struct row {
 	double cpu_us_per_point;
 	const char *how;
 	const char *stop;
-	double full_ml, full_err_pct; /* see titrant_ref_ml */
+	double full_ml, full_err_pct; /* see speed_titrant_ref_ml */
 } row_t;
 
 /* Nearest stoichiometric volume to v. */
-static double nearest(const double *eq, int n, double v)
+double speed_nearest_ml(const double *eq, int n, double v)
 {
 	double best = NAN;
 	for (int i = 0; i < n; i++)
@@ -52,7 +53,7 @@ static double nearest(const double *eq, int n, double v)
 	return best;
 }
 
-static bool titrant_has_weak(const chem_scenario_t *s)
+bool speed_titrant_has_weak(const chem_scenario_t *s)
 {
 	for (int i = 0; i < s->n_titrant; i++)
 		if (s->titrant[i].kind == CHEM_WEAK)
@@ -75,7 +76,7 @@ static bool titrant_has_weak(const chem_scenario_t *s)
  * beaker holds the sample's salt and the titrant's weak system at its
  * equilibrium, which is the equivalence point. full_ml is the volume that
  * counts every proton, eq_full. */
-static double titrant_ref_ml(const chem_scenario_t *s, double eq_full)
+double speed_titrant_ref_ml(const chem_scenario_t *s, double eq_full)
 {
 	double acidity = chem_titrant_acidity(s);
 	double need_mmol = eq_full * fabs(acidity);
@@ -124,9 +125,9 @@ static row_t run_one(const method_t *m, const chem_scenario_t *s, unsigned long 
 	           .full_err_pct = NAN};
 	double eq[16];
 	int n_eq = chem_equivalence_ml(s, eq, 16);
-	if (m->count == 1 && n_eq == 1 && titrant_has_weak(s)) {
+	if (m->count == 1 && n_eq == 1 && speed_titrant_has_weak(s)) {
 		r.full_ml = eq[0];
-		eq[0] = titrant_ref_ml(s, eq[0]);
+		eq[0] = speed_titrant_ref_ml(s, eq[0]);
 	}
 	simrun_opts_t o = {.seed = seed, .burette_start_ml = -1};
 	simrun_out_t out;
@@ -143,7 +144,7 @@ static row_t run_one(const method_t *m, const chem_scenario_t *s, unsigned long 
 	double worst = 0, worst_d = 0;
 	for (int i = 0; i < r.found; i++) {
 		const engine_endpoint_t *ep = engine_endpoint(e, i);
-		double ve = nearest(eq, n_eq, ep->volume_ml);
+		double ve = speed_nearest_ml(eq, n_eq, ep->volume_ml);
 		double err = fabs(ep->volume_ml - ve) / ve * 100;
 		double err_d = fabs(ep->deriv_ml - ve) / ve * 100;
 		if (!(err <= worst))
@@ -168,7 +169,7 @@ static int cmp_d(const void *a, const void *b)
 	return (x > y) - (x < y);
 }
 
-static double median(double *v, int n)
+double speed_median(double *v, int n)
 {
 	int k = 0;
 	for (int i = 0; i < n; i++)
@@ -254,10 +255,10 @@ static void p_then_t_row(void)
 		}
 		printf("%-12s   endpoint %d (pH %.1f at %.4f mL): median |error| %.4f %%, worst "
 		       "%+.4f %%\n",
-		       "", k + 1, target[k], ref[k], median(abs_e, SEEDS), worst);
+		       "", k + 1, target[k], ref[k], speed_median(abs_e, SEEDS), worst);
 	}
 	printf("%-12s   median additions/endpoint %.1f, simulated %.0f s/endpoint\n", "",
-	       median(adds, SEEDS), median(dur, SEEDS));
+	       speed_median(adds, SEEDS), speed_median(dur, SEEDS));
 }
 
 /* The bench method and scenario named `name`; false (and the errors
@@ -317,7 +318,7 @@ SPEED(engine_panel)
 			       r->ok ? "" : " (STUCK)");
 		}
 		if (isfinite(ad.full_err_pct)) {
-			double ref = titrant_ref_ml(&s, ad.full_ml);
+			double ref = speed_titrant_ref_ml(&s, ad.full_ml);
 			printf(
 			    "%-12s   (titrant with a weak component: err_%% is against %.4f mL, "
 			    "its "
@@ -357,9 +358,9 @@ SPEED(engine_panel)
 		       met(ad.cpu_us_per_point <= 100));
 	}
 	p_then_t_row();
-	double me = median(med_err, N_SCN), ma = median(med_adds, N_SCN),
-	       md = median(med_dur, N_SCN), mcpu = median(med_cpu, N_SCN),
-	       mr = median(ratio, N_SCN);
+	double me = speed_median(med_err, N_SCN), ma = speed_median(med_adds, N_SCN),
+	       md = speed_median(med_dur, N_SCN), mcpu = speed_median(med_cpu, N_SCN),
+	       mr = speed_median(ratio, N_SCN);
 	printf("summary: %d scenarios; median error %.4f %% (single-endpoint 0.15 mV <= 0.05 %%: "
 	       "%s); median additions/endpoint %.1f (<= 25: %s); additions constant/adaptive "
 	       "%.1fx (>= 4x at equal or better error: %s); median simulated %.0f s/endpoint "
@@ -419,9 +420,9 @@ static agg_t run_seeds(const method_t *m, const chem_scenario_t *s, unsigned bas
 	}
 	if (a.missed)
 		a.worst_err = NAN;
-	a.med_err = median(err, N_SEEDS);
-	a.med_adds = median(adds, N_SEEDS);
-	a.med_dur = median(dur, N_SEEDS);
+	a.med_err = speed_median(err, N_SEEDS);
+	a.med_adds = speed_median(adds, N_SEEDS);
+	a.med_dur = speed_median(dur, N_SEEDS);
 	a.cpu = ncpu ? cpu / ncpu : NAN;
 	return a;
 }
@@ -461,8 +462,8 @@ SPEED(engine_modes)
 		}
 	}
 	for (int k = 0; k < N_MODES; k++) {
-		double ma = median(med_adds[k], N_SCN), md = median(med_dur[k], N_SCN),
-		       me = median(med_err[k], N_SCN);
+		double ma = speed_median(med_adds[k], N_SCN), md = speed_median(med_dur[k], N_SCN),
+		       me = speed_median(med_err[k], N_SCN);
 		bool guided = modes[k].dosing == DOSING_GUIDED;
 		printf("summary %-16s: median error %.4f %%; single-endpoint rows median <= "
 		       "0.01 %% and worst <= 0.05 %%: %s; median additions/endpoint %.1f%s%s; "
@@ -526,11 +527,12 @@ SPEED(engine_target_ph)
 				dur[j] = out.duration_s;
 				engine_free(e);
 			}
-			double mb = median(bias, N_SEEDS);
+			double mb = speed_median(bias, N_SEEDS);
 			printf("pH %-5.1f %-16s %10.4f %10.4f %10.4f %7.1f %8.0f  within 0.05 %%: "
 			       "%s\n",
-			       targets[t], modes[k].name, vt, mb, worst, median(adds, N_SEEDS),
-			       median(dur, N_SEEDS), met(fabs(mb) <= 0.05 && worst <= 0.05));
+			       targets[t], modes[k].name, vt, mb, worst,
+			       speed_median(adds, N_SEEDS), speed_median(dur, N_SEEDS),
+			       met(fabs(mb) <= 0.05 && worst <= 0.05));
 		}
 	}
 }

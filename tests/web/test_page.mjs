@@ -199,6 +199,16 @@ async function main() {
 		check((await page.getAttribute('p.outcome', 'class')).includes('good') &&
 			(await page.textContent('p.outcome')) === 'Finished: every result within its limits',
 			`the outcome in words (${await page.textContent('p.outcome')})`);
+		// A run whose endpoint the points cannot support (docs/lims.md): the
+		// page's own outcome rule, as served, puts it in the failure style
+		// with the endpoint's reason, never as a pass.
+		const doubtful = await page.evaluate(async () => (await import('/www/runs.js')).outcomeOf({
+			state: 'finished', results: [{name: 'acid', value: 20, accept: 'doubtful'}],
+			endpoints: [{n: 1, doubt: 'u 0.0100 mL is 0.50 % of the volume, above the limit 0.10 %'}],
+		}));
+		check(doubtful && doubtful.bad &&
+			doubtful.text === 'Doubtful: endpoint 1: u 0.0100 mL is 0.50 % of the volume, above the limit 0.10 %',
+			`a doubtful endpoint is shown as such (${JSON.stringify(doubtful)})`);
 		const csv = await page.getAttribute('a[download]', 'href');
 		const csvResp = await fetch(new globalThis.URL(csv, URL));
 		check(csvResp.ok && (await csvResp.text()).startsWith('t_s,'), 'the CSV link works');

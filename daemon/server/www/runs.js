@@ -7,7 +7,8 @@ const FINAL = new Set(['finished', 'aborted', 'failed', 'interrupted']);
 const STATES = ['queued', 'running', 'finished', 'aborted', 'failed', 'interrupted'];
 
 function acceptBadge(a) {
-	const words = {pass: 'pass', low: 'low', high: 'high', none: 'no limits', missing: 'no value'};
+	const words = {pass: 'pass', low: 'low', high: 'high', none: 'no limits', missing: 'no value',
+		doubtful: 'doubtful'};
 	return h('span', {class: `badge accept-${a || 'none'}`}, words[a] || a || '—');
 }
 
@@ -45,6 +46,10 @@ export function outcomeOf(rec) {
 	const why = fault ? fault.message : stopWords(rec.stop_reason);
 	switch (rec.state) {
 	case 'finished': {
+		const doubtful = (rec.endpoints || []).filter((e) => e.doubt);
+		if (doubtful.length)
+			return {bad: true, text: 'Doubtful: ' + doubtful.map((e) =>
+				`endpoint ${e.n}: ${e.doubt}`).join('; ')};
 		const off = res.filter((r) => r.accept === 'low' || r.accept === 'high');
 		if (off.length)
 			return {bad: true, text: 'Out of limits: ' + off.map((r) =>
@@ -169,7 +174,10 @@ export function runView(root, id) {
 						h('td', {}, withUncertainty(e.volume_ml, e.u_volume_ml)),
 						h('td', {}, fmt(e.ph, 2)), h('td', {}, fmt(e.mv, 1)),
 						h('td', {}, (e.how || '') + (e.fallback
-							? ` (fallback of criterion ${e.criterion}: no inflection)` : ''))))))
+							? ` (fallback of criterion ${e.criterion}: no inflection)` : ''),
+							e.doubt ? h('span', {class: 'badge accept-doubtful',
+								title: e.doubt}, 'doubtful') : ''),
+						e.doubt ? h('td', {class: 'doubt'}, e.doubt) : ''))))
 				: h('p', {class: 'muted'}, FINAL.has(rec.state) ? 'No endpoint found.'
 					: 'No endpoint yet.'));
 			const res = rec.results || [];
