@@ -56,6 +56,7 @@ struct engine {
 	 * points, pooled (residual sums and their degrees of freedom) */
 	double noise_sse;
 	int noise_dof, noise_pts;
+	int n_timed_out; /* points the still rule took at wait_max_s */
 	/* the electrode's time constant, from the points whose approach fixed
 	 * it (log-mean, s); extrapolation then needs fewer readings */
 	double tau_dsse[SETTLEFIT_N_TAU]; /* summed misfit per grid tau (signal units^2) */
@@ -1041,6 +1042,10 @@ static void note_noise(engine_t *e, const settlefit_t *fit)
 	double need = mean_range_of(n_still) * sigma;
 	if (e->warn_code[0] || e->noise_pts < 3 || e->noise_dof < 10 || !(need > e->m.still_within))
 		return;
+	/* Under the still rule a band near the noise only costs a few extra
+	 * readings; it is worth a warning once points really wait it out. */
+	if (e->m.settle_rule == SETTLE_STILL && e->n_timed_out < 2)
+		return;
 	const char *u = e->m.signal == SIGNAL_MV ? "mV" : "pH";
 	snprintf(e->warn_code, sizeof e->warn_code, "settle_below_noise");
 	snprintf(e->warn_msg, sizeof e->warn_msg,
@@ -1132,6 +1137,7 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 		if (!accept && waited >= m->wait_max_s) {
 			accept = true;
 			from = e->n_win - 1;
+			e->n_timed_out++;
 		}
 	}
 	if (!accept)
