@@ -10,7 +10,10 @@
  * --amount X is the sample amount in the method's unit; with unit mL it is
  * also the sample put in the beaker (the scenario's sample_ml otherwise).
  * With signal: ph the engine reads mV through a calibration equal to the
- * scenario's electrode unless --calibration gives another.
+ * scenario's electrode unless --calibration gives another. The method's
+ * before steps run first; each add takes its reagent from the scenario's
+ * `dosers` entry of the doser's name (docs/chemistry.md), at that reagent's
+ * molarity as add1_molarity and a titer of 1.
  */
 #include <errno.h>
 #include <math.h>
@@ -223,6 +226,11 @@ int cmd_predict(int argc, char **argv)
 		return 2;
 	}
 	diag_free(&d);
+	char why[256];
+	if (simrun_check(&m, &s, why, sizeof why) != 0) {
+		fprintf(stderr, "%s: %s\n", scenario_path, why);
+		return 2;
+	}
 
 	/* A method written for another titrant strength gives results off by
 	 * the ratio, with nothing else looking wrong; 10 % is far outside any
