@@ -60,6 +60,18 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 	 * --amount it is the scenario's sample volume, which a reader cannot guess. */
 	printf("sample amount: %g %s (%s)\n", amount, method_unit_name(m->sample_unit),
 	       amount_given ? "--amount" : "assumed: the scenario's sample_ml; give --amount");
+	/* The before steps, as the beaker got them (endpoint volumes below are
+	 * the burette's titrant only). */
+	for (int i = 0; i < m->n_before; i++) {
+		const method_step_t *st = &m->before[i];
+		printf("%s", i ? ", " : "before: ");
+		if (st->kind == STEP_ADD)
+			printf("add %g mL from %s", st->ml, st->doser);
+		else
+			printf("%s %g", method_step_name(st->kind), st->s);
+	}
+	if (m->n_before > 0)
+		printf(" (%.0f s)\n", out->steps_s);
 	const char *unit = m->signal == SIGNAL_MV ? "mV" : "pH";
 	int ne = engine_n_endpoints(e);
 	if (ne == 0)

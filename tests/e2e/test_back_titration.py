@@ -7,6 +7,7 @@ The daemon refuses to queue a method with steps, which its stations cannot
 run yet."""
 import json
 import os
+import re
 import subprocess
 
 import pytest
@@ -95,6 +96,21 @@ def test_back_titration_matches_stoichiometry(tmp_path, sample_ml, nh3_molar, ad
     assert abs(first["ph"] - want_ph) < 0.01, (first["ph"], want_ph)
     # without the acid the beaker would be alkaline, not acid
     assert ref.ph_at(scn, 0.0) > 10
+
+
+def test_predict_says_which_steps_it_ran(tmp_path):
+    _, text = scenario(50.0, 0.01, 0.1)
+    (tmp_path / "ammonia-back.yaml").write_text(METHOD % {"add_ml": 10.0})
+    (tmp_path / "beaker.yaml").write_text(text)
+    r = subprocess.run([os.path.join(BUILD, "bin", "stopcock"), "predict",
+                        str(tmp_path / "ammonia-back.yaml"), "--scenario",
+                        str(tmp_path / "beaker.yaml"), "--amount", "50"],
+                       capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    # 10 mL at the simulated pump's 30 s per 10 mL stroke, then 20 s of stirring
+    assert "before: add 10 mL from acid, stir_s 20 (50 s)\n" in r.stdout, r.stdout
+    m = re.search(r"^result ammonia: ([0-9.]+) mmol/L", r.stdout, re.M)
+    assert m and abs(float(m.group(1)) - 10.0) <= 0.01, r.stdout
 
 
 def test_predict_refuses_a_scenario_without_the_doser(tmp_path):
