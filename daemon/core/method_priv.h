@@ -43,6 +43,7 @@ typedef struct mp_ctx {
 	 * steps_bad: a step was reported, so the total volume is unknown. */
 	const yt_node_t *before_node[METHOD_MAX_STEPS];
 	const yt_node_t *after_node[METHOD_MAX_STEPS];
+	int before_pos[METHOD_MAX_STEPS], after_pos[METHOD_MAX_STEPS]; /* 1-based in the file */
 	bool steps_bad;
 } mp_ctx_t;
 

@@ -113,7 +113,7 @@ static bool parse_step(mp_ctx_t *c, const yt_node_t *item, const char *where, me
 }
 
 static int parse_list(mp_ctx_t *c, const yt_node_t *root, const char *key, method_step_t *out,
-                      const yt_node_t **nodes)
+                      const yt_node_t **nodes, int *pos)
 {
 	const yt_node_t *s = yt_get(root, key);
 	int n = 0;
@@ -134,6 +134,7 @@ static int parse_list(mp_ctx_t *c, const yt_node_t *root, const char *key, metho
 		}
 		snprintf(where, sizeof where, "%s[%zu]", key, i + 1);
 		if (parse_step(c, s->items[i], where, &out[n])) {
+			pos[n] = (int)i + 1;
 			nodes[n++] = s->items[i];
 		} else {
 			c->steps_bad = true;
@@ -145,8 +146,8 @@ static int parse_list(mp_ctx_t *c, const yt_node_t *root, const char *key, metho
 void mp_parse_steps(mp_ctx_t *c, const yt_node_t *root)
 {
 	method_t *m = c->m;
-	m->n_before = parse_list(c, root, "before", m->before, c->before_node);
-	m->n_after = parse_list(c, root, "after", m->after, c->after_node);
+	m->n_before = parse_list(c, root, "before", m->before, c->before_node, c->before_pos);
+	m->n_after = parse_list(c, root, "after", m->after, c->after_node, c->after_pos);
 	int adds = 0;
 	for (int i = 0; i < m->n_before; i++)
 		if (m->before[i].kind == STEP_ADD && ++adds == METHOD_MAX_ADDS + 1)
@@ -164,8 +165,8 @@ static bool has_doser(const method_limits_t *lim, const char *name)
 	return false;
 }
 
-static void check_dosers(mp_ctx_t *c, const method_step_t *st, const yt_node_t **nodes, int n,
-                         const char *key)
+static void check_dosers(mp_ctx_t *c, const method_step_t *st, const yt_node_t **nodes,
+                         const int *pos, int n, const char *key)
 {
 	const method_limits_t *lim = c->lim;
 	for (int i = 0; i < n; i++) {
@@ -178,7 +179,7 @@ static void check_dosers(mp_ctx_t *c, const method_step_t *st, const yt_node_t *
 			                        j ? ", " : "", lim->dosers[j]);
 		yt_error(c->doc, yt_get(yt_get(nodes[i], "add"), "doser"), c->d,
 		         "%s[%d].add.doser '%s' is not a dosing unit of the station (%s%s)", key,
-		         i + 1, st[i].doser, lim->n_dosers ? "it has: " : "it has none", have);
+		         pos[i], st[i].doser, lim->n_dosers ? "it has: " : "it has none", have);
 	}
 }
 
@@ -189,8 +190,8 @@ void mp_check_steps(mp_ctx_t *c)
 	if (!lim)
 		return;
 	if (lim->dosers_known) {
-		check_dosers(c, m->before, c->before_node, m->n_before, "before");
-		check_dosers(c, m->after, c->after_node, m->n_after, "after");
+		check_dosers(c, m->before, c->before_node, c->before_pos, m->n_before, "before");
+		check_dosers(c, m->after, c->after_node, c->after_pos, m->n_after, "after");
 	}
 	/* Everything that may be in the beaker at once: the largest sample
 	 * (when measured in mL), every addition of before (after's additions
