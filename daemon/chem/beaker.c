@@ -111,6 +111,14 @@ void beaker_load(beaker_t *b, const chem_scenario_t *s)
 	resolve(b); /* lag_mv stays: the electrode moves from where it was */
 }
 
+int beaker_add_reagent(beaker_t *b, const chem_comp_t *reagent, double ml)
+{
+	if (!b || chem_scenario_add(&b->scn, reagent, ml) != 0)
+		return -1;
+	resolve(b);
+	return 0;
+}
+
 void beaker_add_ml(beaker_t *b, double ml)
 {
 	if (!b || !(ml > 0.0) || !isfinite(ml))

@@ -30,6 +30,10 @@ void beaker_load(beaker_t *b, const chem_scenario_t *s);
 /* Titrant arrives (ml >= 0; negative, NaN or infinite amounts are ignored). */
 void beaker_add_ml(beaker_t *b, double ml);
 
+/* A reagent arrives from a dosing unit (chem_scenario_add): ml mL of
+ * `reagent`. Returns 0, or -1 when the scenario cannot take it. */
+int beaker_add_reagent(beaker_t *b, const chem_comp_t *reagent, double ml);
+
 /* Time passes (dt_s >= 0 s): first-order lag tau_s towards the equilibrium
  * mV, and drift. Exact for any step length (exponential, not Euler). */
 void beaker_advance(beaker_t *b, double dt_s);

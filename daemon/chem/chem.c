@@ -365,6 +365,38 @@ static double comp_protons(const chem_comp_t *c)
 	return 0.0;
 }
 
+int chem_scenario_add(chem_scenario_t *s, const chem_comp_t *reagent, double ml)
+{
+	if (!s || !reagent || !(ml > 0.0) || !isfinite(ml) || !(s->sample_ml > 0.0) ||
+	    !(reagent->molar >= 0.0) || !isfinite(reagent->molar))
+		return -1;
+	/* mmol = molar * ml; as a sample component it is diluted from sample_ml. */
+	double molar = reagent->molar * ml / s->sample_ml;
+	int i = 0;
+	while (i < s->n_sample &&
+	       !(s->sample[i].kind == reagent->kind && s->sample[i].kind != CHEM_WEAK &&
+	         !strcmp(s->sample[i].name, reagent->name)))
+		i++;
+	if (i == s->n_sample) {
+		if (s->n_sample >= CHEM_MAX_COMP)
+			return -1;
+		s->sample[i] = *reagent;
+		s->sample[i].molar = 0.0;
+		s->n_sample++;
+	}
+	s->sample[i].molar += molar;
+	s->water_ml += ml;
+	return 0;
+}
+
+const chem_comp_t *chem_scenario_doser(const chem_scenario_t *s, const char *name)
+{
+	for (int i = 0; s && name && i < s->n_dosers && i < CHEM_MAX_DOSERS; i++)
+		if (!strcmp(s->doser_name[i], name))
+			return &s->doser[i];
+	return NULL;
+}
+
 double chem_titrant_acidity(const chem_scenario_t *s)
 {
 	/* At the far basic end every weak system of the titrant has given up all

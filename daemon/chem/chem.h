@@ -16,9 +16,10 @@
 
 #include "diag.h"
 
-#define CHEM_MAX_COMP 12 /* components per list (sample, titrant) */
-#define CHEM_MAX_PKA  6  /* protonation steps per weak system */
-#define CHEM_NAME_MAX 64
+#define CHEM_MAX_COMP   12 /* components per list (sample, titrant) */
+#define CHEM_MAX_PKA    6  /* protonation steps per weak system */
+#define CHEM_NAME_MAX   64
+#define CHEM_MAX_DOSERS 8 /* named reagents of a scenario's dosing units */
 
 typedef enum {
 	CHEM_WEAK = 0,    /* weak system with pKa list */
@@ -66,6 +67,12 @@ typedef struct chem_scenario {
 	 * e.g. 14.00 to reproduce textbook tables that state Kw = 1.00e-14.
 	 * 0 (the default, and what a zeroed struct gives) means "from T". */
 	double pkw_override;
+	/* Optional (YAML `dosers`): the reagent of each named dosing unit, as a
+	 * component (molar = the reagent's concentration), for a method's add
+	 * steps (chem_scenario_add). */
+	int n_dosers;
+	char doser_name[CHEM_MAX_DOSERS][CHEM_NAME_MAX];
+	chem_comp_t doser[CHEM_MAX_DOSERS];
 } chem_scenario_t;
 
 /* Equilibrium state of the beaker. Species fractions: for component i of the
@@ -92,6 +99,17 @@ typedef struct chem_state {
  * only for an unusable scenario (negative volume or concentration) with
  * out->ph set to 7. Pure: no I/O, no global state, thread-safe. */
 int chem_solve(const chem_scenario_t *s, double titrant_ml, chem_state_t *out);
+
+/* ml mL of a reagent (a component at reagent->molar mol/L) go into the
+ * beaker before the titrant: its amount joins the sample list (merged with
+ * a component of the same name and kind) and its volume the diluent
+ * (water_ml), which is exact in this model's dilution law. The sample must
+ * have a volume (sample_ml > 0). Returns 0, or -1 (bad volume, no sample
+ * volume, or a full sample list) with s untouched. */
+int chem_scenario_add(chem_scenario_t *s, const chem_comp_t *reagent, double ml);
+
+/* The reagent of dosing unit `name` in s, or NULL. */
+const chem_comp_t *chem_scenario_doser(const chem_scenario_t *s, const char *name);
 
 /* Convenience: pH only. */
 double chem_ph(const chem_scenario_t *s, double titrant_ml);

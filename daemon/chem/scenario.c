@@ -24,7 +24,7 @@
 
 static const char *const top_keys[] = {"title",    "temperature_c", "activity", "sample_ml",
                                        "water_ml", "sample",        "titrant",  "electrode",
-                                       "burette",  "pkw",           NULL};
+                                       "burette",  "pkw",           "dosers",   NULL};
 static const char *const comp_keys[] = {"name", "molar", "pka", "charge", "strong", NULL};
 static const char *const electrode_keys[] = {"offset_mv", "slope_pct",        "tau_s",
                                              "noise_mv",  "drift_mv_per_min", NULL};
@@ -232,6 +232,36 @@ static bool parse_burette(const yt_doc_t *doc, const yt_node_t *m, chem_burette_
 	return ok;
 }
 
+/* dosers: {NAME: COMPONENT, ...}: the reagent each dosing unit holds. */
+static bool parse_dosers(const yt_doc_t *doc, const yt_node_t *m, chem_scenario_t *s,
+                         diag_list_t *d)
+{
+	bool ok = true;
+	if (!yt_want_map(doc, m, "dosers", d))
+		return false;
+	for (size_t i = 0; i < m->n; i++) {
+		char where[96];
+		if (i >= CHEM_MAX_DOSERS) {
+			yt_error(doc, m->keys[i], d, "dosers has more than %d dosing units",
+			         CHEM_MAX_DOSERS);
+			return false;
+		}
+		snprintf(where, sizeof where, "dosers.%s", m->keys[i]->str);
+		if (m->keys[i]->len >= CHEM_NAME_MAX) {
+			yt_error(doc, m->keys[i], d, "%s: the name is longer than %d bytes", where,
+			         CHEM_NAME_MAX - 1);
+			ok = false;
+			continue;
+		}
+		snprintf(s->doser_name[s->n_dosers], CHEM_NAME_MAX, "%s", m->keys[i]->str);
+		if (parse_comp(doc, m->items[i], where, &s->doser[s->n_dosers], d))
+			s->n_dosers++;
+		else
+			ok = false;
+	}
+	return ok;
+}
+
 static int parse_doc(const yt_doc_t *doc, chem_scenario_t *s, diag_list_t *d)
 {
 	const yt_node_t *root = doc->root;
@@ -283,6 +313,8 @@ static int parse_doc(const yt_doc_t *doc, chem_scenario_t *s, diag_list_t *d)
 	if (yt_key(root, "burette"))
 		ok &= parse_burette(doc, yt_get(root, "burette"), &s->burette, d);
 	ok &= opt_double(doc, root, "pkw", "pkw", NULL, 10.0, 20.0, &s->pkw_override, d);
+	if (yt_key(root, "dosers"))
+		ok &= parse_dosers(doc, yt_get(root, "dosers"), s, d);
 	if (ok && s->n_titrant > 0 && chem_titrant_acidity(s) == 0.0) {
 		yt_error(doc, yt_get(root, "titrant"), d,
 		         "the titrant is neither an acid nor a base (it must contain a strong "

@@ -8,6 +8,8 @@
  * the one named by --station, else the smallest vessel and the smallest
  * burette of all, so a method that passes fits every station. The burette's
  * capacity comes from its driver's configuration (parsed, never opened).
+ * A method's add steps must name dosers every such station has, and the
+ * beaker must hold sample, additions and titrant (docs/methods.md, "Steps").
  * Exit 0 when every file is valid, 2 otherwise.
  */
 #include <stdio.h>
@@ -104,6 +106,26 @@ int cmd_check(int argc, char **argv)
 				return 2;
 			}
 			diag_free(&bd);
+			/* Each doser's driver is checked like the burette's; the
+			 * method's add steps may name only the dosers every
+			 * station given has. */
+			char names[CFG_MAX_DOSERS][METHOD_ID_MAX];
+			for (int k = 0; k < st->n_dosers; k++) {
+				drv_burette_t db = {0};
+				diag_list_t dd = DIAG_LIST_INIT;
+				if (drv_burette_configure(&cfg.doc, st->dosers[k].burette, &db,
+				                          &dd) != 0) {
+					diag_print(&dd, stderr);
+					diag_free(&dd);
+					cfg_free(&cfg);
+					return 2;
+				}
+				drv_burette_close(&db);
+				diag_free(&dd);
+				snprintf(names[k], METHOD_ID_MAX, "%s", st->dosers[k].name);
+			}
+			method_limits_add_dosers(&lim, (const char(*)[METHOD_ID_MAX])names,
+			                         st->n_dosers);
 			have_lim = true;
 		}
 		cfg_free(&cfg);

@@ -10,7 +10,10 @@
  * --amount X is the sample amount in the method's unit; with unit mL it is
  * also the sample put in the beaker (the scenario's sample_ml otherwise).
  * With signal: ph the engine reads mV through a calibration equal to the
- * scenario's electrode unless --calibration gives another.
+ * scenario's electrode unless --calibration gives another. The method's
+ * before steps run first; each add takes its reagent from the scenario's
+ * `dosers` entry of the doser's name (docs/chemistry.md), at that reagent's
+ * molarity as add1_molarity and a titer of 1.
  */
 #include <errno.h>
 #include <math.h>
@@ -57,6 +60,18 @@ static void print_human(const method_t *m, const engine_t *e, const simrun_out_t
 	 * --amount it is the scenario's sample volume, which a reader cannot guess. */
 	printf("sample amount: %g %s (%s)\n", amount, method_unit_name(m->sample_unit),
 	       amount_given ? "--amount" : "assumed: the scenario's sample_ml; give --amount");
+	/* The before steps, as the beaker got them (endpoint volumes below are
+	 * the burette's titrant only). */
+	for (int i = 0; i < m->n_before; i++) {
+		const method_step_t *st = &m->before[i];
+		printf("%s", i ? ", " : "before: ");
+		if (st->kind == STEP_ADD)
+			printf("add %g mL from %s", st->ml, st->doser);
+		else
+			printf("%s %g", method_step_name(st->kind), st->s);
+	}
+	if (m->n_before > 0)
+		printf(" (%.0f s)\n", out->steps_s);
 	const char *unit = m->signal == SIGNAL_MV ? "mV" : "pH";
 	int ne = engine_n_endpoints(e);
 	if (ne == 0)
@@ -223,6 +238,11 @@ int cmd_predict(int argc, char **argv)
 		return 2;
 	}
 	diag_free(&d);
+	char why[256];
+	if (simrun_check(&m, &s, why, sizeof why) != 0) {
+		fprintf(stderr, "%s: %s\n", scenario_path, why);
+		return 2;
+	}
 
 	/* A method written for another titrant strength gives results off by
 	 * the ratio, with nothing else looking wrong; 10 % is far outside any

@@ -18,8 +18,8 @@ static const char *const http_keys[] = {
     "threads",    "allowed_hosts",  NULL};
 /* clang-format on */
 static const char *const storage_keys[] = {"database", NULL};
-static const char *const station_keys[] = {
-    "name", "vessel_max_ml", "read_interval_s", "burette", "probe", "stirrer", NULL};
+static const char *const station_keys[] = {"name",  "vessel_max_ml", "read_interval_s", "burette",
+                                           "probe", "stirrer",       "dosers",          NULL};
 
 int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port)
 {
@@ -179,6 +179,59 @@ static void parse_http(cfg_t *c, const yt_node_t *h, diag_list_t *d)
 		parse_allowed_hosts(c, n, d);
 }
 
+/* dosers: {NAME: {reagent: TEXT, molarity: M, burette: {driver: ...}}}. A
+ * molarity is the reagent's nominal one: 0.00001 to 20 mol/L, from trace
+ * standards to concentrated acids. */
+static void parse_dosers(cfg_t *c, cfg_station_t *st, const yt_node_t *n, diag_list_t *d)
+{
+	static const char *const doser_keys[] = {"reagent", "molarity", "burette", NULL};
+	if (yt_is_null(n))
+		return;
+	if (!yt_want_map(&c->doc, n, "dosers", d))
+		return;
+	for (size_t i = 0; i < n->n; i++) {
+		const yt_node_t *key = n->keys[i], *u = n->items[i], *v;
+		char where[96];
+		snprintf(where, sizeof where, "dosers.%s", key->str);
+		if (st->n_dosers >= CFG_MAX_DOSERS) {
+			yt_error(&c->doc, key, d, "a station has at most %d dosers",
+			         CFG_MAX_DOSERS);
+			return;
+		}
+		if (!name_is_id(key->str, CFG_NAME_MAX)) {
+			yt_error(&c->doc, key, d,
+			         "doser name must be 1 to %d lower-case letters, digits and '-' "
+			         "(got '%s')",
+			         CFG_NAME_MAX - 1, key->str);
+			continue;
+		}
+		if (!yt_want_map(&c->doc, u, where, d))
+			continue;
+		cfg_doser_t *ds = &st->dosers[st->n_dosers++];
+		memset(ds, 0, sizeof *ds);
+		snprintf(ds->name, sizeof ds->name, "%s", key->str);
+		ds->line = u->line;
+		ds->col = u->col;
+		yt_check_keys(&c->doc, u, doser_keys, where, d);
+		char path[128];
+		snprintf(path, sizeof path, "%s.reagent", where);
+		if (!(v = yt_get(u, "reagent")))
+			yt_missing(&c->doc, u, "reagent", where, d);
+		else
+			yt_string(&c->doc, v, path, ds->reagent, sizeof ds->reagent, d);
+		snprintf(path, sizeof path, "%s.molarity", where);
+		if (!(v = yt_get(u, "molarity")))
+			yt_missing(&c->doc, u, "molarity", where, d);
+		else
+			yt_double_range(&c->doc, v, path, "mol/L", 0.00001, 20.0, &ds->molarity, d);
+		snprintf(path, sizeof path, "%s.burette", where);
+		if (!(ds->burette = yt_get(u, "burette")))
+			yt_missing(&c->doc, u, "burette", where, d);
+		else if (!yt_want_map(&c->doc, ds->burette, path, d))
+			ds->burette = NULL;
+	}
+}
+
 static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 {
 	cfg_station_t *st;
@@ -235,6 +288,8 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 		st->stirrer = NULL;
 	else if (st->stirrer)
 		yt_want_map(&c->doc, st->stirrer, "stirrer", d);
+	if ((n = yt_get(s, "dosers")))
+		parse_dosers(c, st, n, d);
 }
 
 int cfg_load(const char *path, cfg_t *c, diag_list_t *d)

@@ -27,6 +27,18 @@
 #define CFG_HOST_MAX     254 /* a DNS name, without a trailing dot */
 #define CFG_MAX_TOKENS   32
 
+/* An extra dosing unit of a station: a burette driver of its own holding
+ * a reagent, used by a method's add steps (docs/methods.md, "Steps"). Its
+ * capacity is its driver's (drv_burette_info). */
+#define CFG_MAX_DOSERS 8
+typedef struct cfg_doser {
+	char name[CFG_NAME_MAX];  /* [a-z0-9-]+, what an add step's doser names */
+	char reagent[160];        /* the reagent's name, as people read it */
+	double molarity;          /* nominal, mol/L: addN_molarity in formulas */
+	const yt_node_t *burette; /* driver subtree, in cfg_t.doc */
+	int line, col;            /* of the doser's entry, for messages */
+} cfg_doser_t;
+
 typedef struct cfg_station {
 	char name[CFG_NAME_MAX];  /* [a-z0-9-]+ */
 	double vessel_max_ml;     /* most liquid the beaker may hold, mL */
@@ -35,6 +47,9 @@ typedef struct cfg_station {
 	const yt_node_t *probe;
 	const yt_node_t *stirrer; /* NULL when absent */
 	int line, col;            /* of the station's entry, for messages */
+	/* dosers: the station's extra dosing units (docs/config.md) */
+	int n_dosers;
+	cfg_doser_t dosers[CFG_MAX_DOSERS];
 } cfg_station_t;
 
 typedef struct cfg {

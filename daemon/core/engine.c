@@ -245,6 +245,11 @@ static void compute_results(engine_t *e)
 	formula_vars_set(&fv, FV_TITRANT_MOLARITY, e->m.titrant_molarity);
 	formula_vars_set(&fv, FV_TITER, e->p.titer);
 	formula_vars_set(&fv, FV_AMOUNT, e->p.amount);
+	for (int i = 0; i < e->p.n_adds && i < FORMULA_MAX_ADD; i++) {
+		formula_vars_set(&fv, (formula_var_t)(FV_ADD_ML + i), e->p.add_ml[i]);
+		formula_vars_set(&fv, (formula_var_t)(FV_ADD_MOLARITY + i), e->p.add_molarity[i]);
+		formula_vars_set(&fv, (formula_var_t)(FV_ADD_TITER + i), e->p.add_titer[i]);
+	}
 
 	e->n_res = 0;
 	for (int i = 0; i < e->m.n_results && i < METHOD_MAX_RESULTS; i++) {

@@ -58,6 +58,15 @@ typedef struct engine_params {
 
 	double read_interval_s; /* time between probe readings while settling; <= 0: 0.5 s */
 	double start_volume_ml; /* liquid in the beaker at start (for the model fit); <= 0: 50 mL */
+
+	/* The method's additions (its before steps' add, in order) as the
+	 * caller made them: volume delivered, mL; the reagent's nominal
+	 * molarity, mol/L; its correction factor (1.0 when unknown). The
+	 * formulas read them as addN_ml, addN_molarity, addN_titer. */
+	int n_adds;
+	double add_ml[FORMULA_MAX_ADD];
+	double add_molarity[FORMULA_MAX_ADD];
+	double add_titer[FORMULA_MAX_ADD];
 } engine_params_t;
 
 typedef enum {

@@ -24,10 +24,15 @@ enum { OP_NUM = 0, OP_VAR, OP_ADD, OP_SUB, OP_MUL, OP_DIV, OP_NEG };
 #define FORMULA_MAX_DEPTH 32
 
 static const char *const var_names[FV_COUNT] = {
-    "end1_ml",  "end2_ml",          "end3_ml",  "end4_ml",  "end1_ph",  "end2_ph",
-    "end3_ph",  "end4_ph",          "half1_ph", "half2_ph", "half3_ph", "half4_ph",
-    "blank_ml", "titrant_molarity", "titer",    "amount",
+    "end1_ml",       "end2_ml",       "end3_ml",       "end4_ml",          "end1_ph",
+    "end2_ph",       "end3_ph",       "end4_ph",       "half1_ph",         "half2_ph",
+    "half3_ph",      "half4_ph",      "blank_ml",      "titrant_molarity", "titer",
+    "amount",        "add1_ml",       "add2_ml",       "add3_ml",          "add4_ml",
+    "add1_molarity", "add2_molarity", "add3_molarity", "add4_molarity",    "add1_titer",
+    "add2_titer",    "add3_titer",    "add4_titer",
 };
+/* `used` and `have` hold one bit per variable. */
+_Static_assert(FV_COUNT <= 32, "a bit per formula variable in an unsigned");
 
 const char *formula_var_name(formula_var_t v)
 {
@@ -236,7 +241,9 @@ static void parse_variable(parser_t *p)
 		else
 			fail(p, start,
 			     "unknown variable '%s' (allowed: end1_ml..end4_ml, end1_ph..end4_ph, "
-			     "half1_ph..half4_ph, blank_ml, titrant_molarity, titer, amount)",
+			     "half1_ph..half4_ph, blank_ml, titrant_molarity, titer, amount, "
+			     "add1_ml..add4_ml, add1_molarity..add4_molarity, "
+			     "add1_titer..add4_titer)",
 			     name);
 	}
 }

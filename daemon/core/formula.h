@@ -2,7 +2,9 @@
  *
  * Numbers, + - * / ( ), unary minus, and the named variables of docs/methods.md:
  * end1_ml .. end4_ml, end1_ph .. end4_ph, half1_ph .. half4_ph, blank_ml,
- * titrant_molarity, titer, amount. Nothing else is evaluated. A formula is
+ * titrant_molarity, titer, amount, and per addition of a method's before
+ * steps add1_ml .. add4_ml, add1_molarity .. add4_molarity, add1_titer ..
+ * add4_titer. Nothing else is evaluated. A formula is
  * compiled once into a fixed-size postfix program (no heap), so method_t
  * stays plain data.
  */
@@ -14,6 +16,7 @@
 
 #define FORMULA_MAX_OPS 128
 #define FORMULA_MAX_END 4
+#define FORMULA_MAX_ADD 4
 
 typedef enum {
 	FV_END_ML = 0, /* + index 0..3 */
@@ -23,7 +26,10 @@ typedef enum {
 	FV_TITRANT_MOLARITY,
 	FV_TITER,
 	FV_AMOUNT,
-	FV_COUNT
+	FV_ADD_ML = 16,       /* + index 0..3: volume of the method's addition N, mL */
+	FV_ADD_MOLARITY = 20, /* its reagent's nominal molarity, mol/L */
+	FV_ADD_TITER = 24,    /* its reagent's correction factor */
+	FV_COUNT = 28
 } formula_var_t;
 
 typedef struct formula_op {

@@ -129,6 +129,7 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
 		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", "rule", "u_max_pct",
+		"before", "after", "add", "doser", "ml", "wait_s", "rinse_s",
 		NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
@@ -852,9 +853,9 @@ static void parse_stop(mp_ctx_t *c, const yt_node_t *root)
 static int method_from_doc(const yt_doc_t *doc, const char *name, const method_limits_t *lim,
                            method_t *m, diag_list_t *d)
 {
-	static const char *const top[] = {"method", "title",  "revision", "purpose", "titrant",
-	                                  "sample", "signal", "start",    "dosing",  "settle",
-	                                  "detect", "stop",   "results",  NULL};
+	static const char *const top[] = {
+	    "method", "title",  "revision", "purpose", "titrant", "sample", "signal", "start",
+	    "dosing", "settle", "detect",   "stop",    "results", "before", "after",  NULL};
 	mp_ctx_t c;
 	size_t before = d ? d->n : 0;
 	diag_list_t local = DIAG_LIST_INIT;
@@ -878,8 +879,10 @@ static int method_from_doc(const yt_doc_t *doc, const char *name, const method_l
 	parse_detect(&c, doc->root);
 	parse_stop(&c, doc->root);
 	check_order(&c);
+	mp_parse_steps(&c, doc->root);
 	mp_parse_results(&c, doc->root);
 	mp_cross_check(&c, doc->root);
+	mp_check_steps(&c);
 out:
 	diag_sort(d);
 	if (d == &local) {

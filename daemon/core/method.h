@@ -50,6 +50,19 @@ typedef struct method_criterion {
 	double fallback;
 } method_criterion_t;
 
+/* Steps run before or after the titration (docs/methods.md, "Steps"). */
+#define METHOD_MAX_STEPS 16
+/* Additions a formula can name (add1_ml .. add4_ml, FORMULA_MAX_ADD). */
+#define METHOD_MAX_ADDS 4
+typedef enum { STEP_ADD = 0, STEP_STIR, STEP_WAIT, STEP_RINSE } method_step_kind_t;
+
+typedef struct method_step {
+	method_step_kind_t kind;
+	char doser[METHOD_ID_MAX]; /* add: the station's dosing unit, [a-z0-9-]+ */
+	double ml;                 /* add: volume, mL */
+	double s;                  /* stir, wait, rinse: duration, s */
+} method_step_t;
+
 typedef struct method_result {
 	char name[METHOD_ID_MAX];
 	char formula_text[512];
@@ -115,15 +128,28 @@ typedef struct method {
 	int n_results;
 	method_result_t results[METHOD_MAX_RESULTS];
 
+	/* before: run in order before the titration's start.stir_s; after: once
+	 * the titration has stopped. The n-th add of `before` is addN_* in
+	 * the formulas. */
+	int n_before, n_after;
+	method_step_t before[METHOD_MAX_STEPS];
+	method_step_t after[METHOD_MAX_STEPS];
+
 	char sha256[65]; /* hex of the exact file bytes */
 } method_t;
 
 /* Limits from the daemon config for cross-checks; pass NULL offline
  * (`stopcock check` without -c checks everything else). */
+#define METHOD_MAX_DOSERS 8
 typedef struct method_limits {
 	double vessel_max_ml;       /* station */
 	double burette_capacity_ml; /* station's burette */
 	int max_refills;            /* allowed refills per run (0: none) */
+	/* The dosing units every station given has (names); only checked when
+	 * dosers_known (method_limits_add_dosers was called). */
+	bool dosers_known;
+	int n_dosers;
+	char dosers[METHOD_MAX_DOSERS][METHOD_ID_MAX];
 } method_limits_t;
 
 /* Refills a method may count on when its volume_max_ml is checked against a
@@ -135,6 +161,18 @@ typedef struct method_limits {
  * the method may run on; the smallest vessel and burette win. 0 = unknown. */
 void method_limits_init(method_limits_t *lim);
 void method_limits_add_station(method_limits_t *lim, double vessel_max_ml, double capacity_ml);
+/* Fold in one station's dosing units (names): only those every station has
+ * stay, since the method may run on any of them. Call once per station,
+ * with n 0 for a station without dosers. */
+void method_limits_add_dosers(method_limits_t *lim, const char (*names)[METHOD_ID_MAX], int n);
+
+/* The name of a step kind as its key reads in files and JSON ("add",
+ * "stir_s", ...). */
+const char *method_step_name(method_step_kind_t k);
+/* The method's n-th (0-based) addition of its before steps, or NULL; and
+ * how many additions before has. */
+const method_step_t *method_addition(const method_t *m, int n);
+int method_additions(const method_t *m);
 
 /* Parse and validate a method. `name` is the path or name used in messages;
  * the file's base name (without .yaml) must equal `method:` when name ends in

@@ -204,6 +204,12 @@ static void check_formula_vars(mp_ctx_t *c, const yt_node_t *n, const char *text
 			snprintf(msg, sizeof msg,
 			         "blank_ml cannot be used in a blank method (the blank is what it "
 			         "measures)");
+		else if (var >= FV_ADD_ML && !c->steps_bad &&
+		         (var - FV_ADD_ML) % 4 >= method_additions(m))
+			snprintf(msg, sizeof msg,
+			         "%s needs at least %d add step%s in before (this method has %d)",
+			         formula_var_name((formula_var_t)var), (var - FV_ADD_ML) % 4 + 1,
+			         (var - FV_ADD_ML) % 4 ? "s" : "", method_additions(m));
 		else if (var == FV_TITER && m->purpose == PURPOSE_STANDARDIZE)
 			snprintf(msg, sizeof msg,
 			         "titer cannot be used in a standardize method (it determines the "

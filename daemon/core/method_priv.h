@@ -39,6 +39,12 @@ typedef struct mp_ctx {
 	int titer_index;
 	bool titer_is_named;
 	const yt_node_t *titer_item;
+	/* before/after: where each step came from (the item), for cross-checks;
+	 * steps_bad: a step was reported, so the total volume is unknown. */
+	const yt_node_t *before_node[METHOD_MAX_STEPS];
+	const yt_node_t *after_node[METHOD_MAX_STEPS];
+	int before_pos[METHOD_MAX_STEPS], after_pos[METHOD_MAX_STEPS]; /* 1-based in the file */
+	bool steps_bad;
 } mp_ctx_t;
 
 const char *mp_signal_unit(const method_t *m);
@@ -46,6 +52,10 @@ void mp_signal_range(const method_t *m, double *lo, double *hi);
 
 void mp_parse_results(mp_ctx_t *c, const yt_node_t *root);
 void mp_cross_check(mp_ctx_t *c, const yt_node_t *root);
+/* before: and after: (method_steps.c), and their checks against the
+ * station's dosers and vessel (after mp_cross_check's own). */
+void mp_parse_steps(mp_ctx_t *c, const yt_node_t *root);
+void mp_check_steps(mp_ctx_t *c);
 
 /* 1-based line/column in the file of byte `off` of scalar n's value, for
  * plain, quoted and block scalars alike. */

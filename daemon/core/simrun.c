@@ -2,6 +2,7 @@
 #include "simrun.h"
 
 #include <math.h>
+#include <stdio.h>
 #include <string.h>
 #include <time.h>
 
@@ -33,6 +34,57 @@ void simrun_params(const method_t *m, const chem_scenario_t *s, const simrun_opt
 	if (o->has_amount && m->sample_unit == UNIT_ML)
 		sample_ml = o->amount;
 	p->start_volume_ml = sample_ml + s->water_ml;
+	/* The additions as the before steps make them; the scenario's reagent
+	 * is taken at its nominal molarity (a titer of 1). */
+	for (int i = 0; i < METHOD_MAX_ADDS && i < FORMULA_MAX_ADD; i++) {
+		const method_step_t *st = method_addition(m, i);
+		if (!st)
+			break;
+		const chem_comp_t *r = chem_scenario_doser(s, st->doser);
+		p->add_ml[i] = r ? st->ml : 0.0;
+		p->add_molarity[i] = r ? r->molar : 0.0;
+		p->add_titer[i] = 1.0;
+		p->n_adds = i + 1;
+		p->start_volume_ml += p->add_ml[i];
+	}
+}
+
+int simrun_check(const method_t *m, const chem_scenario_t *s, char *msg, size_t msg_cap)
+{
+	for (int i = 0; i < m->n_before; i++) {
+		const method_step_t *st = &m->before[i];
+		if (st->kind == STEP_ADD && !chem_scenario_doser(s, st->doser)) {
+			snprintf(
+			    msg, msg_cap,
+			    "before[%d] adds from dosing unit '%s', which the scenario does not "
+			    "name (add it under dosers:)",
+			    i + 1, st->doser);
+			return -1;
+		}
+	}
+	return 0;
+}
+
+/* The method's before steps in the beaker, on the virtual clock; returns
+ * the time they took, s. */
+static double run_before(const method_t *m, beaker_t *b, double cap_ml, double stroke_s)
+{
+	double t = 0;
+	for (int i = 0; i < m->n_before; i++) {
+		const method_step_t *st = &m->before[i];
+		double dt = st->s;
+		if (st->kind == STEP_ADD) {
+			const chem_comp_t *r = chem_scenario_doser(beaker_scenario(b), st->doser);
+			if (!r)
+				continue;
+			chem_comp_t reagent = *r; /* beaker_add_reagent changes the scenario */
+			beaker_add_reagent(b, &reagent, st->ml);
+			dt = fmax(0.2, stroke_s * st->ml / cap_ml);
+		}
+		beaker_advance(b, dt);
+		t += dt;
+	}
+	return t;
 }
 
 /* Thread CPU time, s: the benchmark's CPU per point of the engine alone. The
@@ -77,6 +129,7 @@ engine_t *simrun_run(const method_t *m, const chem_scenario_t *s, const simrun_o
 	double stroke_s = o->stroke_s > 0 ? o->stroke_s : 30.0;
 	double refill_s = o->refill_s > 0 ? o->refill_s : 20.0;
 	double total_ml = 0;
+	out->steps_s = run_before(m, b, cap_ml, stroke_s);
 
 	double t = 0;
 	engine_event_t ev = {.kind = ENGINE_EV_START, .t_s = 0};
@@ -143,7 +196,7 @@ engine_t *simrun_run(const method_t *m, const chem_scenario_t *s, const simrun_o
 		ev.t_s = t;
 		a = feed(e, &ev, out);
 	}
-	out->duration_s = t;
+	out->duration_s = out->steps_s + t;
 	beaker_free(b);
 	return e;
 }

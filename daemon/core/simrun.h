@@ -10,6 +10,7 @@
 #define STOPCOCK_SIMRUN_H
 
 #include <stdbool.h>
+#include <stddef.h>
 
 #include "chem.h"
 #include "engine.h"
@@ -38,10 +39,20 @@ typedef struct simrun_out {
 	double max_dispensed_ml; /* the most the virtual burette ever delivered in total */
 	bool stuck;              /* the loop guard stopped the run (an engine bug) */
 	double engine_cpu_s;     /* thread CPU time spent inside engine_feed, s */
+	double steps_s;          /* simulated time of the before steps, s (in duration_s) */
 } simrun_out_t;
 
-/* Run m against scenario s. Returns the finished engine (caller frees), or
- * NULL on out-of-memory. */
+/* Whether s can run m's steps: every add of before names a dosing unit of
+ * the scenario (its `dosers`). Returns 0, or -1 with msg saying which is
+ * missing. */
+int simrun_check(const method_t *m, const chem_scenario_t *s, char *msg, size_t msg_cap);
+
+/* Run m against scenario s: first the method's before steps (each add from
+ * the scenario's dosing unit of that name, at the burette's stroke rate;
+ * stir, wait and rinse as time passing), then the titration. The after
+ * steps change nothing the run reports. Call simrun_check first: an add
+ * whose doser the scenario lacks adds nothing. Returns the finished engine
+ * (caller frees), or NULL on out-of-memory. */
 engine_t *simrun_run(const method_t *m, const chem_scenario_t *s, const simrun_opts_t *o,
                      simrun_out_t *out);
 

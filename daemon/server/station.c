@@ -28,6 +28,14 @@ static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_buret
 		drv_probe_configure(&c->doc, sc->probe, p, d);
 	if (sc->stirrer)
 		drv_stirrer_configure(&c->doc, sc->stirrer, st, d);
+	/* Each doser is a burette driver of its own: its keys are checked
+	 * here, at start and by --check-config; nothing runs it yet. */
+	for (int i = 0; i < sc->n_dosers; i++) {
+		drv_burette_t db = {0};
+		if (sc->dosers[i].burette)
+			drv_burette_configure(&c->doc, sc->dosers[i].burette, &db, d);
+		drv_burette_close(&db);
+	}
 }
 
 int station_check_config(const cfg_t *c, const cfg_station_t *sc, diag_list_t *d)

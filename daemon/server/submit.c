@@ -144,6 +144,16 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 		free(all);
 		goto out;
 	}
+	/* A station does not run before/after steps yet: a back titration
+	 * without its addition would report a wrong value, so refuse it
+	 * (`stopcock predict` runs the steps against the simulated beaker). */
+	if (job->method.n_before > 0 || job->method.n_after > 0) {
+		fail(res, SUBMIT_INVALID_METHOD,
+		     "method '%s' revision %ld has before/after steps, which station %s cannot "
+		     "run yet",
+		     method_id, rev, station);
+		goto out;
+	}
 	if (amount < job->method.sample_min || amount > job->method.sample_max) {
 		fail(res, SUBMIT_BAD_REQUEST,
 		     "amount %g %s is outside the method's sample range %g to %g", amount,

@@ -150,6 +150,56 @@ def test_cross_check_against_the_burette(tmp_path):
     assert r.returncode == 0, r.stderr
 
 
+def doser(name):
+    return ("      %s:\n        reagent: HCl 0.1 mol/L\n        molarity: 0.1\n"
+            "        burette: {driver: pump-serial, port: /dev/null, profile: %s,"
+            " capacity_ml: 20}\n" % (name, os.path.abspath("config/pumps/sim.yaml")))
+
+
+def test_cross_check_add_steps_against_the_station_dosers(tmp_path):
+    f = "config/methods/whey-ammonium.yaml"
+    with_acid = station("a", 150, 10) + "    dosers:\n" + doser("acid") + doser("base")
+    without = station("b", 150, 10) + "    dosers:\n" + doser("base")
+    cfg = write_config(tmp_path, [with_acid, without])
+    r = run("-c", cfg, "--station", "a", f)
+    assert r.returncode == 0, r.stderr
+    # whey-ammonium.yaml line 15 is `  - {add: {doser: acid, ml: 10.0}}`
+    want = [f + ":15:19: before[1].add.doser 'acid' is not a dosing unit of the station "
+            "(it has: base)"]
+    r = run("-c", cfg, "--station", "b", f)
+    assert r.returncode == 2
+    assert r.stderr.splitlines() == want
+    # without --station the method must fit every station: b lacks acid
+    r = run("-c", cfg, f)
+    assert r.returncode == 2
+    assert r.stderr.splitlines() == want
+    # a station without a dosers key has none
+    cfg = write_config(tmp_path, [station("c", 150, 10)])
+    r = run("-c", cfg, f)
+    assert r.returncode == 2
+    assert "'acid' is not a dosing unit of the station (it has none)" in r.stderr
+    # a doser whose driver config is bad is the driver's error, as for the burette
+    bad = station("d", 150, 10) + "    dosers:\n" + doser("acid").replace("capacity_ml: 20",
+                                                                          "capacity_ml: -1")
+    r = run("-c", write_config(tmp_path, [bad]), f)
+    assert r.returncode == 2
+    assert "capacity_ml" in r.stderr
+
+
+def test_cross_check_beaker_total_with_additions(tmp_path):
+    # sample.max 60 mL + the 10 mL addition + stop.volume_max_ml 20 mL = 90 mL:
+    # fits 90 mL, not 85 mL, although sample and titrant alone (80 mL) would
+    f = "config/methods/whey-ammonium.yaml"
+    acid = "    dosers:\n" + doser("acid")
+    r = run("-c", write_config(tmp_path, [station("fits", 90, 10) + acid]), f)
+    assert r.returncode == 0, r.stderr
+    r = run("-c", write_config(tmp_path, [station("over", 85, 10) + acid]), f)
+    assert r.returncode == 2
+    assert r.stderr.splitlines() == [
+        f + ":15:5: the beaker could reach 90 mL, above the station's vessel_max_ml (85 mL): "
+        "sample.max 60 mL + additions 10 mL + stop.volume_max_ml 20 mL"]
+
+
 def test_safety_and_methods_docs_state_the_rule_the_code_applies(tmp_path):
     # SAFETY.md said a volume_max_ml above the burette's capacity is refused,
     # while the code allows capacity x (1 + 20 refills): one rule in all three.

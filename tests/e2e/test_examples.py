@@ -36,6 +36,11 @@ EXPECTED = {
     # 3.00 x 0.02 x 1000 / 100 = 0.60 mmol/L, 18.00 x 0.02 x 1000 / 100 = 3.60 mmol/L
     "water-p-and-t-alkalinity": (100, [3.00, 18.00], 0.06,
                                  {"p_alkalinity": (0.60, 0.015), "t_alkalinity": (3.60, 0.015)}),
+    # Back titration: the before step adds 10.00 mL x 0.1000 mol/L = 1.000 mmol HCl to
+    # 50 mL x 0.0100 mol/L = 0.500 mmol NH3; the 0.500 mmol left takes 5.00 mL of 0.1 mol/L
+    # NaOH. (1.000 - 0.500) x 1000 / 50 = 10.00 mmol/L; x 14.007 = 140.07 mg/L as N
+    "whey-ammonium": (50, [5.00], 0.01, {"ammonia": (10.000, 0.01),
+                                         "ammonium_nitrogen": (140.07, 0.15)}),
 }
 
 

@@ -12,7 +12,8 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 {
 	/* A station like the simulator's: 150 mL beaker, 10 mL syringe. */
-	static const method_limits_t lim = {150.0, 10.0, 20};
+	static const method_limits_t lim = {
+	    .vessel_max_ml = 150.0, .burette_capacity_ml = 10.0, .max_refills = 20};
 	method_t m;
 	diag_list_t d = DIAG_LIST_INIT;
 

@@ -176,3 +176,64 @@ TEST(config_tokens)
 	diag_free(&d);
 	rmdir(dir);
 }
+
+/* dosers: each a named burette driver with its reagent; every mistake is
+ * reported at its line. */
+TEST(config_station_dosers)
+{
+	char dir[] = "/tmp/stopcock-cfg-XXXXXX", path[128];
+	static cfg_t c;
+	diag_list_t d = DIAG_LIST_INIT;
+
+	REQUIRE(mkdtemp(dir));
+	snprintf(path, sizeof path, "%s/c.yaml", dir);
+	write_file(path,
+	           "stations:\n"
+	           "  - name: bench-1\n"
+	           "    vessel_max_ml: 150\n"
+	           "    burette: {driver: x}\n"
+	           "    probe: {driver: y}\n"
+	           "    dosers:\n"
+	           "      acid: {reagent: HCl 0.1 mol/L, molarity: 0.1, burette: {driver: z}}\n"
+	           "      water-2:\n"
+	           "        reagent: water\n"
+	           "        molarity: 0.00001\n"
+	           "        burette: {driver: w}\n");
+	CHECK(cfg_load(path, &c, &d) == 0);
+	CHECK_INT(d.n, 0);
+	REQUIRE(c.stations[0].n_dosers == 2);
+	CHECK_STR(c.stations[0].dosers[0].name, "acid");
+	CHECK_STR(c.stations[0].dosers[0].reagent, "HCl 0.1 mol/L");
+	CHECK_NEAR(c.stations[0].dosers[0].molarity, 0.1, 0);
+	CHECK(c.stations[0].dosers[0].burette != NULL);
+	CHECK_STR(c.stations[0].dosers[1].name, "water-2");
+	CHECK_INT(c.stations[0].dosers[1].line, 9);
+	cfg_free(&c);
+
+	write_file(path, "stations:\n"
+	                 "  - name: bench-1\n"
+	                 "    vessel_max_ml: 150\n"
+	                 "    burette: {driver: x}\n"
+	                 "    probe: {driver: y}\n"
+	                 "    dosers:\n"
+	                 "      Acid: {reagent: HCl, molarity: 0.1, burette: {driver: z}}\n"
+	                 "      base: {reagent: NaOH, molarity: 30, burette: {driver: z}}\n"
+	                 "      salt: {reagent: NaCl, molarity: 1, burete: {driver: z}}\n"
+	                 "      plain: {molarity: 1, burette: [z]}\n");
+	CHECK(cfg_load(path, &c, &d) != 0);
+	{
+		char *all = diag_join(&d);
+		REQUIRE(all);
+		CHECK(strstr(all, ":7:7: doser name must be") != NULL);
+		CHECK(strstr(all, ":8:") != NULL && strstr(all, "dosers.base.molarity") != NULL);
+		CHECK(strstr(all, "did you mean 'burette'") != NULL);
+		CHECK(strstr(all, "missing key 'burette' in dosers.salt") != NULL);
+		CHECK(strstr(all, "missing key 'reagent' in dosers.plain") != NULL);
+		CHECK(strstr(all, ":10:") != NULL && strstr(all, "dosers.plain.burette") != NULL);
+		free(all);
+	}
+	diag_free(&d);
+	cfg_free(&c);
+	unlink(path);
+	rmdir(dir);
+}

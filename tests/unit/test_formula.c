@@ -118,9 +118,11 @@ static void check_error(const char *text, int want_col, const char *want_msg)
 
 TEST(formula_errors_point_at_the_column)
 {
-	check_error("end1_ml * foo", 11,
-	            "unknown variable 'foo' (allowed: end1_ml..end4_ml, end1_ph..end4_ph, "
-	            "half1_ph..half4_ph, blank_ml, titrant_molarity, titer, amount)");
+	check_error(
+	    "end1_ml * foo", 11,
+	    "unknown variable 'foo' (allowed: end1_ml..end4_ml, end1_ph..end4_ph, "
+	    "half1_ph..half4_ph, blank_ml, titrant_molarity, titer, amount, add1_ml..add4_ml, "
+	    "add1_molarity..add4_molarity, add1_titer..add4_titer)");
 	check_error("end1_ml * titr", 11, "unknown variable 'titr'; did you mean 'titer'?");
 	check_error("end5_ml", 1, "unknown variable 'end5_ml'; did you mean 'end1_ml'?");
 	check_error("1 +", 4, "expected a number, a variable or '(', found the end of the formula");
@@ -141,7 +143,8 @@ TEST(formula_errors_point_at_the_column)
 	check_error("sqrt(amount)", 1,
 	            "unknown variable 'sqrt' (allowed: end1_ml..end4_ml, "
 	            "end1_ph..end4_ph, half1_ph..half4_ph, blank_ml, "
-	            "titrant_molarity, titer, amount)");
+	            "titrant_molarity, titer, amount, add1_ml..add4_ml, "
+	            "add1_molarity..add4_molarity, add1_titer..add4_titer)");
 	check_error("1 + \xc3\xa9", 5, "expected a number, a variable or '(', found byte 0xc3");
 }
 

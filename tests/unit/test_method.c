@@ -3,7 +3,7 @@
  * The malformed corpus lives in tests/data/methods/bad/: each NAME.yaml has a
  * NAME.expect with the exact "line:col: message" lines method_load must give,
  * in order (an optional first line "# limits: vessel_max_ml=.. burette_capacity_ml=..
- * max_refills=.." checks against a station). Every config/methods/ file must
+ * max_refills=.. [dosers=NAME,NAME]" checks against a station). Every config/methods/ file must
  * pass (each *.yaml there). Tests run with the repository root as the working directory.
  */
 #include <dirent.h>
@@ -94,6 +94,21 @@ static void check_bad_file(const char *path)
 		           &lim.vessel_max_ml, &lim.burette_capacity_ml, &lim.max_refills) == 3;
 		if (!have_lim)
 			harness_fail(__FILE__, __LINE__, "%s: bad limits line", expect_path);
+		/* " dosers=a,b" (or "dosers=" for none) on the same line: the
+		 * station's dosing units */
+		const char *ds = strstr(expect, " dosers=");
+		const char *eol = strchr(expect, '\n');
+		if (ds && (!eol || ds < eol)) {
+			char names[METHOD_MAX_DOSERS][METHOD_ID_MAX];
+			int n = 0;
+			ds += 8;
+			while (*ds && *ds != '\n' && n < METHOD_MAX_DOSERS) {
+				size_t w = strcspn(ds, ",\n");
+				snprintf(names[n++], METHOD_ID_MAX, "%.*s", (int)w, ds);
+				ds += w + (ds[w] == ',');
+			}
+			method_limits_add_dosers(&lim, (const char(*)[METHOD_ID_MAX])names, n);
+		}
 	}
 	if (method_load(path, have_lim ? &lim : NULL, &m, &d) == 0)
 		harness_fail(__FILE__, __LINE__, "%s: accepted, but it is malformed", path);
@@ -147,7 +162,8 @@ TEST(method_examples_pass)
 		diag_list_t d = DIAG_LIST_INIT;
 		/* A 150 mL beaker on a 10 mL burette with 3 refills is the
 		 * simulator's station; every example must fit it. */
-		method_limits_t lim = {150.0, 10.0, 3};
+		method_limits_t lim = {
+		    .vessel_max_ml = 150.0, .burette_capacity_ml = 10.0, .max_refills = 3};
 		if (method_load(files[i], &lim, &m, &d) != 0) {
 			char *all = diag_join(&d);
 			harness_fail(__FILE__, __LINE__, "%s:\n%s", files[i], all ? all : "");

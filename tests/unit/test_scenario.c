@@ -17,6 +17,9 @@ static const struct {
     {"charge-on-strong.yaml", 3, 50,
      "sample[1]: 'charge' applies only to a weak system (with pka); strong components are singly "
      "charged"},
+    {"doser-neither-pka-nor-strong.yaml", 4, 9,
+     "dosers.acid needs 'pka' (a weak system) or 'strong' (acid, base or salt)"},
+    {"dosers-not-a-map.yaml", 3, 9, "dosers must be a mapping of keys (got a list)"},
     {"electrode-unknown-key.yaml", 4, 29,
      "unknown key 'slope' in electrode; did you mean 'slope_pct'?"},
     {"empty-pka.yaml", 3, 43, "sample[1].pka must list at least one pKa value"},
