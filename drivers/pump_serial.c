@@ -6,19 +6,15 @@
  * reply the driver asks for the status and re-sends only if the plunger has
  * not moved, so a noisy line cannot double a dose.
  */
-#include <limits.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <unistd.h>
 
-#include "datadir.h"
 #include "drv.h"
 #include "link.h"
 #include "pump_profile.h"
 #include "serial.h"
-#include "clock.h"
 
 typedef enum {
 	MODE_IDLE = 0,
@@ -44,45 +40,17 @@ typedef struct pump {
 	                   * restarted mid-refill finds it at the reservoir */
 } pump_t;
 
+typedef struct accept {
+	const pump_profile_t *prof;
+	pump_reply_t *rep;
+} accept_t;
+
 static const char *const own_keys[] = {"profile",          "capacity_ml",      "steps",
                                        "dose_rate_ml_min", "fill_rate_ml_min", NULL};
 
-static bool file_exists(const char *p)
+static int load_profile(const char *path, void *prof, diag_list_t *d)
 {
-	return access(p, R_OK) == 0;
-}
-
-/* A relative profile path: beside the config file, then in a pumps/ folder
- * beside it (the repository's config/), then in the data folder's pumps/
- * (datadir.h); never the current folder, so a check gives the same answer
- * wherever it is run. A bare name may leave out ".yaml". */
-static bool resolve_profile(const char *cfg_file, const char *name, char *out, size_t cap,
-                            char *data, size_t data_cap)
-{
-	if (name[0] == '/') {
-		snprintf(out, cap, "%s", name);
-		return file_exists(out);
-	}
-	char dir[PATH_MAX] = ".";
-	const char *slash = cfg_file ? strrchr(cfg_file, '/') : NULL;
-	if (slash)
-		snprintf(dir, sizeof(dir), "%.*s", (int)(slash - cfg_file), cfg_file);
-	const char *ext = strstr(name, ".yaml") ? "" : ".yaml";
-	char beside[PATH_MAX + 8], installed[PATH_MAX + 8];
-	snprintf(beside, sizeof(beside), "%s/pumps", dir);
-	if (datadir_find(data, data_cap, NULL) != 0)
-		snprintf(data, data_cap, "%s", "(none)");
-	snprintf(installed, sizeof(installed), "%s/pumps", data);
-	const char *dirs[] = {dir, beside, installed};
-	for (size_t i = 0; i < sizeof(dirs) / sizeof(dirs[0]); i++) {
-		snprintf(out, cap, "%s/%s", dirs[i], name);
-		if (file_exists(out))
-			return true;
-		snprintf(out, cap, "%s/%s%s", dirs[i], name, ext);
-		if (file_exists(out))
-			return true;
-	}
-	return false;
+	return pump_profile_load(path, prof, d);
 }
 
 static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, diag_list_t *d)
@@ -97,25 +65,8 @@ static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv
 		return -1;
 	serial_init(&p->ser);
 	ok &= link_serial_parse(doc, cfg, &p->link, d) == 0;
-	const yt_node_t *n = yt_get(cfg, "profile");
-	char name[LINK_PATH_MAX], path[PATH_MAX], data[PATH_MAX];
-	if (!n) {
-		yt_missing(doc, cfg, "profile", "burette", d);
-		ok = false;
-	} else if (yt_string(doc, n, "profile", name, sizeof(name), d)) {
-		if (!resolve_profile(doc->file, name, path, sizeof(path), data, sizeof(data))) {
-			yt_error(doc, n, d,
-			         "pump profile '%s' not found (looked beside this file, "
-			         "in pumps/ beside it and in %s/pumps)",
-			         name, data);
-			ok = false;
-		} else if (pump_profile_load(path, &p->prof, d) != 0) {
-			yt_error(doc, n, d, "pump profile '%s' is invalid (errors above)", path);
-			ok = false;
-		}
-	} else {
-		ok = false;
-	}
+	ok &= cmdp_profile_key(doc, cfg, "burette", "pump", "pumps", load_profile, &p->prof, d);
+	const yt_node_t *n;
 	p->steps = p->prof.steps;
 	p->capacity_ml = p->prof.capacity_ml;
 	if ((n = yt_get(cfg, "steps")))
@@ -158,38 +109,20 @@ static long speed_for(const pump_t *p, double rate_ml_min)
 	return v;
 }
 
+static bool accept_reply(void *ctx, const char *line)
+{
+	accept_t *a = ctx;
+	return pump_parse_reply(a->prof, line, a->rep) != PUMP_REPLY_UNKNOWN;
+}
+
 /* Send one command and wait for one reply that parses; garbage lines are
  * discarded until the deadline. No retry here. */
 static drv_status_t transact_once(pump_t *p, const char *cmd, pump_reply_t *rep, drv_err_t *err)
 {
-	char buf[PUMP_STR + 16];
-	int n = snprintf(buf, sizeof(buf), "%s%s", cmd, p->prof.command_end);
-	if (n < 0 || (size_t)n >= sizeof(buf))
-		return drv_fail(err, DRV_CONFIG, "pump: command too long");
-	double deadline = clock_mono_s() + (double)p->link.timeout_ms / 1000.0;
-	serial_drain(&p->ser);
-	drv_status_t st = serial_write(&p->ser, buf, (size_t)n, deadline, err);
-	if (st != DRV_OK)
-		return st;
-	int garbage = 0;
-	for (;;) {
-		char line[256];
-		st =
-		    serial_read_line(&p->ser, p->prof.reply_end, line, sizeof(line), deadline, err);
-		if (st == DRV_TIMEOUT && garbage)
-			return drv_fail(err, DRV_BAD_REPLY,
-			                "pump: %d unreadable line(s) and no valid reply to '%s' "
-			                "within %ld ms",
-			                garbage, cmd, p->link.timeout_ms);
-		if (st == DRV_TIMEOUT)
-			return drv_fail(err, DRV_TIMEOUT, "pump: no reply to '%s' within %ld ms",
-			                cmd, p->link.timeout_ms);
-		if (st != DRV_OK)
-			return st;
-		if (pump_parse_reply(&p->prof, line, rep) != PUMP_REPLY_UNKNOWN)
-			return DRV_OK;
-		garbage++;
-	}
+	memset(rep, 0, sizeof(*rep));
+	accept_t a = {&p->prof, rep};
+	return cmdp_transact_once(&p->ser, p->link.timeout_ms, p->prof.command_end,
+	                          p->prof.reply_end, "pump", cmd, accept_reply, &a, err);
 }
 
 static drv_status_t ensure_open(pump_t *p, drv_err_t *err);
