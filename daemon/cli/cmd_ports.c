@@ -257,7 +257,10 @@ static void run_command(bench_t *b, char *line)
 			}
 			json_decref(o);
 			o = head(word, st, t0, &e);
-			print_changer(o, &cs);
+			if (st == DRV_OK)
+				print_changer(o, &cs);
+			else if (cs.fault) /* the device's own error: a jam, a stuck lift */
+				json_object_set_new(o, "fault", json_true());
 		}
 	} else if (!strcmp(word, "sleep")) {
 		if (n == 2 && arg > 0 && arg < 3600)
