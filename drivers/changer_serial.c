@@ -115,9 +115,8 @@ changer_reply_kind_t changer_parse_reply(const changer_profile_t *p, const char 
 /* ---- the driver ---- */
 
 typedef struct changer {
-	link_serial_t link;
+	cmdp_line_t line; /* the serial link, its options and the profile's line ends */
 	changer_profile_t prof;
-	serial_t ser;
 	long positions;
 	bool fault;
 } changer_t;
@@ -139,8 +138,11 @@ static int ch_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, 
 	changer_t *c = calloc(1, sizeof(*c));
 	if (!c)
 		return -1;
-	serial_init(&c->ser);
-	ok &= link_serial_parse(doc, cfg, &c->link, d) == 0;
+	serial_init(&c->line.ser);
+	c->line.who = "changer";
+	c->line.command_end = c->prof.command_end;
+	c->line.reply_end = c->prof.reply_end;
+	ok &= link_serial_parse(doc, cfg, &c->line.link, d) == 0;
 	ok &=
 	    cmdp_profile_key(doc, cfg, "changer", "changer", "changers", load_profile, &c->prof, d);
 	c->positions = c->prof.positions;
@@ -180,27 +182,17 @@ static drv_status_t transact_once(changer_t *c, const char *cmd, changer_reply_t
 {
 	memset(rep, 0, sizeof(*rep));
 	accept_t a = {&c->prof, rep};
-	return cmdp_transact_once(&c->ser, c->link.timeout_ms, c->prof.command_end,
-	                          c->prof.reply_end, "changer", cmd, accept_reply, &a, err);
+	return cmdp_transact_once(&c->line, cmd, accept_reply, &a, err);
 }
 
-static drv_status_t ensure_open(changer_t *c, drv_err_t *err);
+static drv_status_t open_link(void *priv, drv_err_t *err);
 
 /* With bounded retries: for commands that are safe to repeat. */
 static drv_status_t transact(changer_t *c, const char *cmd, changer_reply_t *rep, drv_err_t *err)
 {
-	drv_status_t st = DRV_OK;
-	for (long i = 0; i <= c->link.retries; i++) {
-		st = ensure_open(c, err);
-		if (st != DRV_OK)
-			return st;
-		st = transact_once(c, cmd, rep, err);
-		if (st == DRV_OK || st == DRV_CONFIG)
-			return st;
-		if (st == DRV_UNPLUGGED && i > 0)
-			return st;
-	}
-	return st;
+	memset(rep, 0, sizeof(*rep));
+	accept_t a = {&c->prof, rep};
+	return cmdp_transact(&c->line, open_link, c, cmd, accept_reply, &a, err);
 }
 
 static drv_status_t expect_ok(changer_t *c, const char *what, const changer_reply_t *r,
@@ -271,24 +263,14 @@ static drv_status_t query(changer_t *c, drv_changer_status_t *out, drv_err_t *er
 }
 
 /* As the pump's: the first line on every open of the line is the halt, so
- * whatever the changer was doing while nobody could reach it stops first.
- * Any reply counts; silence closes the line again. */
-static drv_status_t open_link(changer_t *c, drv_err_t *err)
+ * whatever the changer was doing while nobody could reach it stops first. */
+static drv_status_t open_link(void *priv, drv_err_t *err)
 {
-	drv_status_t st = serial_open(&c->ser, &c->link, err);
-	if (st != DRV_OK)
-		return st;
-	for (long i = 0; i <= c->link.retries; i++) {
-		changer_reply_t r;
-		st = transact_once(c, c->prof.halt, &r, err);
-		if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
-			break;
-	}
-	if (st != DRV_OK) {
-		serial_close(&c->ser);
-		return st;
-	}
-	if (c->prof.init[0]) {
+	changer_t *c = priv;
+	changer_reply_t hr;
+	accept_t ha = {&c->prof, &hr};
+	drv_status_t st = cmdp_open_with_halt(&c->line, c->prof.halt, accept_reply, &ha, err);
+	if (st == DRV_OK && c->prof.init[0]) {
 		changer_reply_t r;
 		st = transact_once(c, c->prof.init, &r, err);
 		if (st == DRV_OK)
@@ -299,9 +281,7 @@ static drv_status_t open_link(changer_t *c, drv_err_t *err)
 
 static drv_status_t ensure_open(changer_t *c, drv_err_t *err)
 {
-	if (serial_is_open(&c->ser))
-		return DRV_OK;
-	return open_link(c, err);
+	return serial_is_open(&c->line.ser) ? DRV_OK : open_link(c, err);
 }
 
 static drv_status_t ch_open(void *priv, drv_err_t *err)
@@ -395,7 +375,7 @@ static void ch_close(void *priv)
 	changer_t *c = priv;
 	if (!c)
 		return;
-	serial_close(&c->ser);
+	serial_close(&c->line.ser);
 	free(c);
 }
 

@@ -343,35 +343,67 @@ bool cmdp_profile_key(const yt_doc_t *doc, const yt_node_t *cfg, const char *whe
 	return true;
 }
 
-drv_status_t cmdp_transact_once(serial_t *ser, long timeout_ms, const char *command_end,
-                                const char *reply_end, const char *who, const char *cmd,
-                                cmdp_accept_fn accept, void *ctx, drv_err_t *err)
+drv_status_t cmdp_transact_once(cmdp_line_t *l, const char *cmd, cmdp_accept_fn accept, void *ctx,
+                                drv_err_t *err)
 {
 	char buf[CMDP_STR * 2 + CMDP_END];
-	int n = snprintf(buf, sizeof(buf), "%s%s", cmd, command_end);
+	int n = snprintf(buf, sizeof(buf), "%s%s", cmd, l->command_end);
 	if (n < 0 || (size_t)n >= sizeof(buf))
-		return drv_fail(err, DRV_CONFIG, "%s: command too long", who);
+		return drv_fail(err, DRV_CONFIG, "%s: command too long", l->who);
+	long timeout_ms = l->link.timeout_ms;
 	double deadline = clock_mono_s() + (double)timeout_ms / 1000.0;
-	serial_drain(ser);
-	drv_status_t st = serial_write(ser, buf, (size_t)n, deadline, err);
+	serial_drain(&l->ser);
+	drv_status_t st = serial_write(&l->ser, buf, (size_t)n, deadline, err);
 	if (st != DRV_OK)
 		return st;
 	int garbage = 0;
 	for (;;) {
 		char line[256];
-		st = serial_read_line(ser, reply_end, line, sizeof(line), deadline, err);
+		st = serial_read_line(&l->ser, l->reply_end, line, sizeof(line), deadline, err);
 		if (st == DRV_TIMEOUT && garbage)
 			return drv_fail(err, DRV_BAD_REPLY,
 			                "%s: %d unreadable line(s) and no valid reply to '%s' "
 			                "within %ld ms",
-			                who, garbage, cmd, timeout_ms);
+			                l->who, garbage, cmd, timeout_ms);
 		if (st == DRV_TIMEOUT)
-			return drv_fail(err, DRV_TIMEOUT, "%s: no reply to '%s' within %ld ms", who,
-			                cmd, timeout_ms);
+			return drv_fail(err, DRV_TIMEOUT, "%s: no reply to '%s' within %ld ms",
+			                l->who, cmd, timeout_ms);
 		if (st != DRV_OK)
 			return st;
 		if (accept(ctx, line))
 			return DRV_OK;
 		garbage++;
 	}
+}
+
+drv_status_t cmdp_transact(cmdp_line_t *l, cmdp_reopen_fn reopen, void *drv, const char *cmd,
+                           cmdp_accept_fn accept, void *ctx, drv_err_t *err)
+{
+	drv_status_t st = DRV_OK;
+	for (long i = 0; i <= l->link.retries; i++) {
+		if (!serial_is_open(&l->ser) && (st = reopen(drv, err)) != DRV_OK)
+			return st;
+		st = cmdp_transact_once(l, cmd, accept, ctx, err);
+		if (st == DRV_OK || st == DRV_CONFIG)
+			return st;
+		if (st == DRV_UNPLUGGED && i > 0)
+			return st;
+	}
+	return st;
+}
+
+drv_status_t cmdp_open_with_halt(cmdp_line_t *l, const char *halt, cmdp_accept_fn accept, void *ctx,
+                                 drv_err_t *err)
+{
+	drv_status_t st = serial_open(&l->ser, &l->link, err);
+	if (st != DRV_OK)
+		return st;
+	for (long i = 0; i <= l->link.retries; i++) {
+		st = cmdp_transact_once(l, halt, accept, ctx, err);
+		if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
+			break;
+	}
+	if (st != DRV_OK)
+		serial_close(&l->ser); /* the next try opens again, and halts first */
+	return st;
 }

@@ -20,6 +20,7 @@
 
 #include "diag.h"
 #include "drv.h"
+#include "link.h"
 #include "serial.h"
 #include "yamltree.h"
 
@@ -92,14 +93,39 @@ bool cmdp_profile_key(const yt_doc_t *doc, const yt_node_t *cfg, const char *whe
                       int (*load)(const char *path, void *prof, diag_list_t *d), void *prof,
                       diag_list_t *d);
 
-/* Is this reply line one the driver understands (ctx: the driver)? */
+/* Is this reply line one the driver understands (ctx: where it keeps it)? */
 typedef bool (*cmdp_accept_fn)(void *ctx, const char *line);
 
+/* A driver's line: the transport, its link options, the profile's line ends
+ * and the name that starts every message ("pump", "changer"). */
+typedef struct cmdp_line {
+	serial_t ser;
+	link_serial_t link;
+	const char *who;
+	const char *command_end; /* point into the driver's profile */
+	const char *reply_end;
+} cmdp_line_t;
+
 /* Send one command (command_end appended) and wait for one reply line the
- * driver accepts; other lines are discarded until timeout_ms. No retry.
- * Messages start with `who` ("pump", "changer"). */
-drv_status_t cmdp_transact_once(serial_t *ser, long timeout_ms, const char *command_end,
-                                const char *reply_end, const char *who, const char *cmd,
-                                cmdp_accept_fn accept, void *ctx, drv_err_t *err);
+ * driver accepts; other lines are discarded until link.timeout_ms. No retry. */
+drv_status_t cmdp_transact_once(cmdp_line_t *l, const char *cmd, cmdp_accept_fn accept, void *ctx,
+                                drv_err_t *err);
+
+/* The driver's own open of a closed line (cmdp_open_with_halt and more). */
+typedef drv_status_t (*cmdp_reopen_fn)(void *drv, drv_err_t *err);
+
+/* For commands safe to repeat: reopen a closed line with `reopen`, then
+ * cmdp_transact_once, up to 1 + link.retries times after a timeout or a bad
+ * reply; a line lost again after the first try ends it. */
+drv_status_t cmdp_transact(cmdp_line_t *l, cmdp_reopen_fn reopen, void *drv, const char *cmd,
+                           cmdp_accept_fn accept, void *ctx, drv_err_t *err);
+
+/* Open the line; the first command it carries is `halt`, so whatever the
+ * device was doing while nobody could reach it stops first. Retried; any
+ * reply counts (a device in an error state may refuse the halt with an
+ * error and is still stopped); silence or a lost line fails the open and
+ * closes the line again, so the next try also starts with the halt. */
+drv_status_t cmdp_open_with_halt(cmdp_line_t *l, const char *halt, cmdp_accept_fn accept, void *ctx,
+                                 drv_err_t *err);
 
 #endif

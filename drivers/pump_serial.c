@@ -25,9 +25,8 @@ typedef enum {
 } pump_mode_t;
 
 typedef struct pump {
-	link_serial_t link;
+	cmdp_line_t line; /* the serial link, its options and the profile's line ends */
 	pump_profile_t prof;
-	serial_t ser;
 	long steps;         /* steps per full stroke (station may override the profile) */
 	double capacity_ml; /* syringe volume */
 	bool known;         /* pos is from the device */
@@ -63,8 +62,11 @@ static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv
 	pump_t *p = calloc(1, sizeof(*p));
 	if (!p)
 		return -1;
-	serial_init(&p->ser);
-	ok &= link_serial_parse(doc, cfg, &p->link, d) == 0;
+	serial_init(&p->line.ser);
+	p->line.who = "pump";
+	p->line.command_end = p->prof.command_end;
+	p->line.reply_end = p->prof.reply_end;
+	ok &= link_serial_parse(doc, cfg, &p->line.link, d) == 0;
 	ok &= cmdp_profile_key(doc, cfg, "burette", "pump", "pumps", load_profile, &p->prof, d);
 	const yt_node_t *n;
 	p->steps = p->prof.steps;
@@ -121,27 +123,17 @@ static drv_status_t transact_once(pump_t *p, const char *cmd, pump_reply_t *rep,
 {
 	memset(rep, 0, sizeof(*rep));
 	accept_t a = {&p->prof, rep};
-	return cmdp_transact_once(&p->ser, p->link.timeout_ms, p->prof.command_end,
-	                          p->prof.reply_end, "pump", cmd, accept_reply, &a, err);
+	return cmdp_transact_once(&p->line, cmd, accept_reply, &a, err);
 }
 
-static drv_status_t ensure_open(pump_t *p, drv_err_t *err);
+static drv_status_t open_link(void *priv, drv_err_t *err);
 
 /* With bounded retries: for commands that are safe to repeat. */
 static drv_status_t transact(pump_t *p, const char *cmd, pump_reply_t *rep, drv_err_t *err)
 {
-	drv_status_t st = DRV_OK;
-	for (long i = 0; i <= p->link.retries; i++) {
-		st = ensure_open(p, err);
-		if (st != DRV_OK)
-			return st;
-		st = transact_once(p, cmd, rep, err);
-		if (st == DRV_OK || st == DRV_CONFIG)
-			return st;
-		if (st == DRV_UNPLUGGED && i > 0)
-			return st;
-	}
-	return st;
+	memset(rep, 0, sizeof(*rep));
+	accept_t a = {&p->prof, rep};
+	return cmdp_transact(&p->line, open_link, p, cmd, accept_reply, &a, err);
 }
 
 static drv_status_t expect_ok(pump_t *p, const char *what, const pump_reply_t *r, drv_err_t *err)
@@ -209,25 +201,18 @@ static drv_status_t query(pump_t *p, bool *moving, drv_err_t *err)
  * line again so the next try also starts with the halt. A refill cut off
  * this way ends with the valve turned back to the outlet, its safe
  * position. */
-static drv_status_t open_link(pump_t *p, drv_err_t *err)
+static drv_status_t open_link(void *priv, drv_err_t *err)
 {
-	drv_status_t st = serial_open(&p->ser, &p->link, err);
-	if (st != DRV_OK)
-		return st;
+	pump_t *p = priv;
 	char cmd[PUMP_STR * 2];
 	pump_args_t a = {0};
 	if (pump_expand(p->prof.halt, &a, cmd, sizeof(cmd)) < 0)
 		return drv_fail(err, DRV_CONFIG, "pump: cannot expand '%s'", p->prof.halt);
-	for (long i = 0; i <= p->link.retries; i++) {
-		pump_reply_t r;
-		st = transact_once(p, cmd, &r, err);
-		if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
-			break;
-	}
-	if (st != DRV_OK) {
-		serial_close(&p->ser); /* the next try opens again, and halts first */
+	pump_reply_t hr;
+	accept_t ha = {&p->prof, &hr};
+	drv_status_t st = cmdp_open_with_halt(&p->line, cmd, accept_reply, &ha, err);
+	if (st != DRV_OK)
 		return st;
-	}
 	bool refilling = p->mode == MODE_VALVE_IN || p->mode == MODE_FILL;
 	/* Moves since the last status count in IDLE as in DOSE (query). */
 	p->mode = MODE_IDLE;
@@ -251,7 +236,7 @@ static drv_status_t open_link(pump_t *p, drv_err_t *err)
 
 static drv_status_t ensure_open(pump_t *p, drv_err_t *err)
 {
-	if (serial_is_open(&p->ser))
+	if (serial_is_open(&p->line.ser))
 		return DRV_OK;
 	return open_link(p, err);
 }
@@ -295,7 +280,7 @@ static drv_status_t pump_dose(void *priv, double volume_ml, drv_err_t *err)
 	if (pump_expand(p->prof.dose, &a, cmd, sizeof(cmd)) < 0)
 		return drv_fail(err, DRV_CONFIG, "pump: cannot expand dose command");
 	long before = p->pos;
-	for (long i = 0; i <= p->link.retries; i++) {
+	for (long i = 0; i <= p->line.link.retries; i++) {
 		pump_reply_t r;
 		st = ensure_open(p, err);
 		if (st != DRV_OK)
@@ -432,7 +417,7 @@ static void pump_close(void *priv)
 	pump_t *p = priv;
 	if (!p)
 		return;
-	serial_close(&p->ser);
+	serial_close(&p->line.ser);
 	free(p);
 }
 
