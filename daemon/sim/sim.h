@@ -43,6 +43,9 @@ typedef enum {
 #define SIM_LIFT_S         0.3  /* the head going up or down, s */
 #define SIM_AIR_STEP_MV    6.0  /* largest drift of an electrode in air per measurement, mV */
 #define SIM_AIR_LIMIT_MV   400.0
+#define SIM_CARRY_ML                                                                               \
+	0.05 /* solution the head takes from one beaker into the next                              \
+	      * when it was not rinsed between them, mL */
 
 /* Register map (input registers; holding registers 0..15 mirror them). */
 enum {
@@ -93,6 +96,8 @@ typedef struct sim_changer {
 	double pump_left_s; /* of the rinse or waste pump run in progress */
 	bool jammed, stuck; /* a move / a lift failed under a fault, until HALT */
 	double spilled_ml;  /* titrant dispensed with no beaker under the head, mL */
+	long wet_from;      /* the position whose solution wets the head; 0 when rinsed */
+	double carried_ml;  /* solution carried between beakers so far, mL */
 	double air_mv;      /* the drifting potential of the electrode in air, mV */
 	beaker_t *beakers[SIM_RACK_POSITIONS + 1]; /* by position; NULL: none */
 	long rinse, park;

@@ -4,7 +4,9 @@
  * pseudo-terminal. It knows its own mechanics: the rack turns only with the
  * head up, a move and a lift take time, and the probe is in the beaker at
  * the current position only while the head is down; with the head up it is
- * in air (sim_pump.c's measure). Carry-over between beakers is not modelled. */
+ * in air (sim_pump.c's measure). A head lowered into one beaker and then into
+ * another without a rinse between them (the rinse position, or the rinse
+ * pump) takes SIM_CARRY_ML of the first solution into the second. */
 #include <errno.h>
 #include <limits.h>
 #include <stdio.h>
@@ -177,6 +179,65 @@ static void route(sim_t *s)
 	s->beaker = c->lift == 1 && c->move_left_s <= 0 ? c->beakers[c->pos] : NULL;
 }
 
+/* Add `frac` of each component in `n` of `comps`, per mL of `per_ml` (mmol
+ * = mol/L x mL), to the sample of `to`, whose sample volume is `sample_ml`.
+ * A component of the same name and kind adds to the one there. */
+static void add_comps(chem_scenario_t *to, const chem_comp_t *comps, int n, double mmol_scale,
+                      double sample_ml)
+{
+	for (int i = 0; i < n; i++) {
+		double molar = comps[i].molar * mmol_scale / sample_ml;
+		int k = 0;
+		while (k < to->n_sample && (strcmp(to->sample[k].name, comps[i].name) ||
+		                            to->sample[k].kind != comps[i].kind))
+			k++;
+		if (k == to->n_sample) {
+			if (to->n_sample == CHEM_MAX_COMP)
+				continue; /* no room: that trace is left out */
+			to->sample[k] = comps[i];
+			to->sample[k].molar = 0;
+			to->n_sample++;
+		}
+		to->sample[k].molar += molar;
+	}
+}
+
+/* SIM_CARRY_ML of `from`'s solution (sample, water and titrant so far) into
+ * `to`: the sample volume of `to` grows by it, its own components keep their
+ * amounts, and its titrant so far is put back after the reload. */
+static void carry_over(sim_changer_t *c, beaker_t *from, beaker_t *to)
+{
+	const chem_scenario_t *a = beaker_scenario(from);
+	double v_a_ml = beaker_state(from)->volume_ml;
+	if (!(v_a_ml > 0))
+		return;
+	double f = SIM_CARRY_ML / v_a_ml; /* share of the first beaker carried */
+	chem_scenario_t b = *beaker_scenario(to);
+	double new_sample_ml = b.sample_ml + SIM_CARRY_ML;
+	for (int i = 0; i < b.n_sample; i++)
+		b.sample[i].molar *= b.sample_ml / new_sample_ml;
+	add_comps(&b, a->sample, a->n_sample, a->sample_ml * f, new_sample_ml);
+	add_comps(&b, a->titrant, a->n_titrant, beaker_titrant_ml(from) * f, new_sample_ml);
+	b.sample_ml = new_sample_ml;
+	double titrant_ml = beaker_titrant_ml(to);
+	beaker_load(to, &b);
+	beaker_add_ml(to, titrant_ml);
+	c->carried_ml += SIM_CARRY_ML;
+}
+
+/* The head has just come down at the current position. */
+static void lowered(sim_changer_t *c)
+{
+	beaker_t *here = c->beakers[c->pos];
+	if (c->pos == c->rinse) {
+		c->wet_from = 0; /* rinsed in water */
+	} else if (here) {
+		if (c->wet_from && c->wet_from != c->pos && c->beakers[c->wet_from])
+			carry_over(c, c->beakers[c->wet_from], here);
+		c->wet_from = c->pos;
+	}
+}
+
 void sim_changer_tick(sim_t *s, double dt)
 {
 	sim_changer_t *c = &s->changer;
@@ -197,6 +258,8 @@ void sim_changer_tick(sim_t *s, double dt)
 		} else if ((c->lift_left_s -= dt) <= 0) {
 			c->lift_left_s = 0;
 			c->lift = c->lift_to;
+			if (c->lift == 1)
+				lowered(c);
 		}
 	}
 	if (c->pump_left_s > 0 && (c->pump_left_s -= dt) < 0)
@@ -269,6 +332,8 @@ bool sim_changer_command(sim_t *s, const char *line, char *reply, size_t cap)
 			snprintf(reply, cap, "BUSY");
 		else {
 			c->pump_left_s = (double)n / 1000.0;
+			if (line[0] == 'R')
+				c->wet_from = 0; /* the rinse pump washes the head */
 			snprintf(reply, cap, "OK");
 		}
 	} else {

@@ -80,6 +80,7 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 			                    json_boolean(c->move_left_s > 0 || c->lift_left_s > 0 ||
 			                                 c->pump_left_s > 0));
 			json_object_set_new(o, "spilled_ml", real_or_null(c->spilled_ml));
+			json_object_set_new(o, "carried_ml", real_or_null(c->carried_ml));
 		}
 		char *text = json_dumps(o, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		snprintf(reply, cap, "%s", text ? text : "error: out of memory");

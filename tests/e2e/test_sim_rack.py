@@ -91,6 +91,7 @@ def test_rack_bench_config_and_state(rsim):
     st = rsim.state()
     assert st["position"] == 16 and st["lift"] == "up"   # parked, head up
     assert st["ph"] is None                               # no beaker: air
+    assert st["carried_ml"] == 0.0
     r = subprocess.run([benchlib.build_bin("stopcockd"), "--check-config", "-c",
                         str(rsim.config)], capture_output=True, text=True, timeout=20)
     assert r.returncode == 0, r.stderr
@@ -110,6 +111,7 @@ def test_ports_drive_the_changer(rsim):
     assert st["position"] == 2 and st["lift"] == "down"
     # the probe is in the water sample now: its pH, not air's null
     assert st["ph"] is not None and 6.5 < st["ph"] < 9.5
+    assert st["carried_ml"] == 0.0   # a clean head came down: nothing carried
 
 
 @pytest.mark.parametrize("kind,cmds,status,words", [

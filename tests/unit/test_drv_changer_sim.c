@@ -318,3 +318,82 @@ TEST(sim_rack_file)
 		msg = NULL;
 	}
 }
+
+/* ---- carry-over, on the simulator's own clock (no threads) ---- */
+
+/* One changer command, then time enough for it to finish. */
+static void step(sim_t *s, const char *cmd)
+{
+	char reply[128];
+	REQUIRE(sim_changer_command(s, cmd, reply, sizeof(reply)));
+	if (strcmp(reply, "OK") != 0)
+		fprintf(stderr, "'%s' -> '%s'\n", cmd, reply);
+	CHECK_STR(reply, "OK");
+	sim_tick(s, s->last_tick_s + 2.0);
+}
+
+static void visit(sim_t *s, const char *go)
+{
+	step(s, "HEAD UP");
+	step(s, go);
+	step(s, "HEAD DOWN");
+}
+
+/* Millimoles of the component named `name` in the beaker at `pos`. */
+static double mmol_of(sim_t *s, long pos, const char *name)
+{
+	const chem_scenario_t *sc = beaker_scenario(s->changer.beakers[pos]);
+	double n = 0;
+	for (int i = 0; i < sc->n_sample; i++)
+		if (!strcmp(sc->sample[i].name, name))
+			n += sc->sample[i].molar * sc->sample_ml;
+	return n;
+}
+
+TEST(sim_changer_carry_over)
+{
+	/* without a rinse: beaker 1's solution goes into beaker 2 */
+	fixture_t f;
+	memset(&f, 0, sizeof(f));
+	diag_list_t d = DIAG_LIST_INIT;
+	REQUIRE(scenario_parse("acid.yaml", acid_text, strlen(acid_text), &f.acid, &d) == 0);
+	REQUIRE(scenario_parse("base.yaml", base_text, strlen(base_text), &f.base, &d) == 0);
+	for (int rinse = 0; rinse < 3; rinse++) {
+		sim_rack_t rack;
+		memset(&rack, 0, sizeof(rack));
+		rack.scen[1] = &f.acid;
+		rack.scen[2] = &f.base;
+		rack.first = 1;
+		rack.rinse = 15;
+		REQUIRE(sim_init(&f.sim, &f.acid, 3) == 0);
+		REQUIRE(sim_changer_attach(&f.sim, &rack, 3) == 0);
+		double ph_before = beaker_true_ph(f.sim.changer.beakers[2]);
+		visit(&f.sim, "GO 1");
+		if (rinse == 1) { /* at the rinse position */
+			visit(&f.sim, "GO 15");
+		} else if (rinse == 2) { /* with the rinse pump */
+			step(&f.sim, "RINSE 500");
+		}
+		visit(&f.sim, "GO 2");
+		CHECK(f.sim.beaker == f.sim.changer.beakers[2]);
+		/* 0.05 mL of 0.1 M x 10/50 HCl: 0.001 mmol */
+		double carried = mmol_of(&f.sim, 2, "hydrochloric acid");
+		double naoh = mmol_of(&f.sim, 2, "sodium hydroxide");
+		CHECK_NEAR(naoh, 1.0, 1e-12); /* its own sample keeps its amount */
+		if (rinse == 0) {
+			CHECK_NEAR(carried, SIM_CARRY_ML * 0.1 * 10.0 / 50.0, 1e-12);
+			CHECK_NEAR(f.sim.changer.carried_ml, SIM_CARRY_ML, 1e-12);
+			CHECK(beaker_true_ph(f.sim.changer.beakers[2]) < ph_before - 1e-6);
+		} else {
+			CHECK_NEAR(carried, 0.0, 0);
+			CHECK_NEAR(f.sim.changer.carried_ml, 0.0, 0);
+			CHECK_NEAR(beaker_true_ph(f.sim.changer.beakers[2]), ph_before, 1e-12);
+		}
+		/* back into the same beaker: nothing more is carried */
+		step(&f.sim, "HEAD UP");
+		step(&f.sim, "HEAD DOWN");
+		CHECK_NEAR(mmol_of(&f.sim, 2, "hydrochloric acid"), carried, 1e-15);
+		sim_free(&f.sim);
+	}
+	diag_free(&d);
+}
