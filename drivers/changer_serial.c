@@ -69,15 +69,15 @@ int changer_profile_parse(const yt_doc_t *doc, changer_profile_t *p, diag_list_t
 	} else {
 		ok &= yt_long(doc, n, "positions", 1, 1000, &p->positions, d);
 	}
-	if (!cmdp_parse(doc, r, &spec, p, d))
-		return -1;
-	/* Without {lift} a status reply could not say whether the rack may turn. */
+	ok &= cmdp_parse(doc, r, &spec, p, d);
+	/* Without {lift} a status reply could not say whether the rack may turn
+	 * (a pattern that is missing has its own error already). */
 	const yt_node_t *rp = yt_get(r, "replies");
-	if (!strstr(p->moving, "{lift}")) {
+	if (p->moving[0] && !strstr(p->moving, "{lift}")) {
 		yt_error(doc, yt_get(rp, "moving"), d, "replies.moving must contain {lift}");
 		ok = false;
 	}
-	if (!strstr(p->idle, "{lift}")) {
+	if (p->idle[0] && !strstr(p->idle, "{lift}")) {
 		yt_error(doc, yt_get(rp, "idle"), d, "replies.idle must contain {lift}");
 		ok = false;
 	}

@@ -10,6 +10,7 @@
 #include <string.h>
 #include <unistd.h>
 
+#include "changer_profile.h"
 #include "drv.h"
 #include "harness.h"
 #include "scenario.h"
@@ -395,5 +396,34 @@ TEST(sim_changer_carry_over)
 		CHECK_NEAR(mmol_of(&f.sim, 2, "hydrochloric acid"), carried, 1e-15);
 		sim_free(&f.sim);
 	}
+	diag_free(&d);
+}
+
+TEST(changer_profile_errors)
+{
+	changer_profile_t p;
+	diag_list_t d = DIAG_LIST_INIT;
+	CHECK(changer_profile_load("config/changers/sim.yaml", &p, &d) == 0);
+	CHECK_INT(p.positions, 16);
+	CHECK_STR(p.move, "GO {position}");
+	/* a pump placeholder in a move, a status reply without {lift}, no halt */
+	const char *bad = "name: x\ncommand_end: \"\\n\"\nreply_end: \"\\n\"\npositions: 8\n"
+	                  "commands:\n  move: \"GO {steps}\"\n  lift_up: U\n  lift_down: D\n"
+	                  "  status: W\nreplies:\n  ok: OK\n  error: \"E {code}\"\n"
+	                  "  moving: \"M {position}\"\n  idle: \"I {position} {lift}\"\n";
+	yt_doc_t doc;
+	memset(&doc, 0, sizeof(doc));
+	REQUIRE(yt_load_buffer("bad.yaml", bad, strlen(bad), &doc, &d) == 0);
+	CHECK(changer_profile_parse(&doc, &p, &d) != 0);
+	char *msg = diag_join(&d);
+	REQUIRE(msg != NULL);
+	CHECK(strstr(msg, "bad.yaml:6:9: commands.move: unknown placeholder in \"GO {steps}\" "
+	                  "(allowed: {position}, {seconds}, {ms})") != NULL);
+	CHECK(strstr(msg, "missing key 'halt'") != NULL);
+	CHECK(strstr(msg, "bad.yaml:13:11: replies.moving must contain {lift}") != NULL);
+	if (!strstr(msg, "replies.moving must contain {lift}"))
+		fprintf(stderr, "%s\n", msg);
+	free(msg);
+	yt_free(&doc);
 	diag_free(&d);
 }
