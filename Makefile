@@ -231,12 +231,13 @@ soak: all san
 # ---- install ----
 install: all
 	install -d $(DESTDIR)$(BINDIR) $(DESTDIR)$(SBINDIR) $(DESTDIR)$(DATADIR)/methods \
-	  $(DESTDIR)$(DATADIR)/pumps $(DESTDIR)$(DATADIR)/scenarios \
+	  $(DESTDIR)$(DATADIR)/pumps $(DESTDIR)$(DATADIR)/changers $(DESTDIR)$(DATADIR)/scenarios \
 	  $(DESTDIR)$(SYSCONFDIR)/stopcock/methods
 	install -m 0755 $(BUILD)/bin/stopcockd $(DESTDIR)$(SBINDIR)/stopcockd
 	install -m 0755 $(BUILD)/bin/stopcock $(BUILD)/bin/stopcock-sim $(DESTDIR)$(BINDIR)/
 	install -m 0644 config/methods/*.yaml $(DESTDIR)$(DATADIR)/methods/
 	install -m 0644 config/pumps/*.yaml $(DESTDIR)$(DATADIR)/pumps/
+	install -m 0644 config/changers/*.yaml $(DESTDIR)$(DATADIR)/changers/
 	install -m 0644 config/scenarios/*.yaml $(DESTDIR)$(DATADIR)/scenarios/
 	install -d $(DESTDIR)$(DATADIR)/www && install -m 0644 daemon/server/www/* $(DESTDIR)$(DATADIR)/www/
 	@if [ -f config/stopcockd.yaml ]; then install -m 0644 config/stopcockd.yaml \

@@ -11,10 +11,12 @@
 extern const drv_burette_ops_t drv_pump_serial;
 extern const drv_probe_ops_t drv_probe_modbus;
 extern const drv_stirrer_ops_t drv_stirrer_modbus;
+extern const drv_changer_ops_t drv_changer_serial;
 
 static const drv_burette_ops_t *const burettes[] = {&drv_pump_serial, NULL};
 static const drv_probe_ops_t *const probes[] = {&drv_probe_modbus, NULL};
 static const drv_stirrer_ops_t *const stirrers[] = {&drv_stirrer_modbus, NULL};
+static const drv_changer_ops_t *const changers[] = {&drv_changer_serial, NULL};
 
 const char *drv_status_name(drv_status_t s)
 {
@@ -61,6 +63,11 @@ const drv_stirrer_ops_t *const *drv_stirrer_table(void)
 	return stirrers;
 }
 
+const drv_changer_ops_t *const *drv_changer_table(void)
+{
+	return changers;
+}
+
 const drv_probe_ops_t *drv_find_probe(const char *name)
 {
 	for (size_t i = 0; probes[i]; i++)
@@ -83,6 +90,19 @@ const drv_stirrer_ops_t *drv_find_stirrer(const char *name)
 		if (!strcmp(stirrers[i]->name, name))
 			return stirrers[i];
 	return NULL;
+}
+
+const drv_changer_ops_t *drv_find_changer(const char *name)
+{
+	for (size_t i = 0; changers[i]; i++)
+		if (!strcmp(changers[i]->name, name))
+			return changers[i];
+	return NULL;
+}
+
+static const char *changer_name(size_t i)
+{
+	return changers[i] ? changers[i]->name : NULL;
 }
 
 static const char *burette_name(size_t i)
@@ -169,6 +189,20 @@ int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer
 	return 0;
 }
 
+int drv_changer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_changer_t *out,
+                          diag_list_t *d)
+{
+	void *priv = NULL;
+	int i;
+	memset(out, 0, sizeof(*out));
+	i = driver_index(doc, cfg, "changer", changer_name, d);
+	if (i < 0 || changers[i]->configure(doc, cfg, &priv, d) != 0)
+		return -1;
+	out->ops = changers[i];
+	out->priv = priv;
+	return 0;
+}
+
 static drv_status_t not_configured(drv_err_t *err)
 {
 	return drv_fail(err, DRV_CONFIG, "device not configured");
@@ -245,4 +279,62 @@ void drv_stirrer_close(drv_stirrer_t *s)
 	if (s->ops)
 		s->ops->close(s->priv);
 	memset(s, 0, sizeof(*s));
+}
+
+const char *drv_lift_name(drv_lift_t l)
+{
+	switch (l) {
+	case DRV_LIFT_UP:
+		return "up";
+	case DRV_LIFT_DOWN:
+		return "down";
+	case DRV_LIFT_BETWEEN:
+		return "between";
+	}
+	return "between";
+}
+
+void drv_changer_info(const drv_changer_t *c, drv_changer_info_t *out)
+{
+	memset(out, 0, sizeof(*out));
+	if (c->ops)
+		c->ops->info(c->priv, out);
+}
+
+drv_status_t drv_changer_open(drv_changer_t *c, drv_err_t *err)
+{
+	return c->ops ? c->ops->open(c->priv, err) : not_configured(err);
+}
+
+drv_status_t drv_changer_move(drv_changer_t *c, long position, drv_err_t *err)
+{
+	return c->ops ? c->ops->move(c->priv, position, err) : not_configured(err);
+}
+
+drv_status_t drv_changer_lift(drv_changer_t *c, bool down, drv_err_t *err)
+{
+	return c->ops ? c->ops->lift(c->priv, down, err) : not_configured(err);
+}
+
+drv_status_t drv_changer_pump(drv_changer_t *c, drv_changer_pump_t which, double seconds_s,
+                              drv_err_t *err)
+{
+	return c->ops ? c->ops->pump(c->priv, which, seconds_s, err) : not_configured(err);
+}
+
+drv_status_t drv_changer_status(drv_changer_t *c, drv_changer_status_t *out, drv_err_t *err)
+{
+	return c->ops ? c->ops->status(c->priv, out, err) : not_configured(err);
+}
+
+drv_status_t drv_changer_halt(drv_changer_t *c, drv_err_t *err)
+{
+	return c->ops ? c->ops->halt(c->priv, err) : not_configured(err);
+}
+
+void drv_changer_close(drv_changer_t *c)
+{
+	if (c->ops)
+		c->ops->close(c->priv);
+	memset(c, 0, sizeof(*c));
 }

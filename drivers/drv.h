@@ -1,9 +1,9 @@
-/* drv.h: the device-driver interface (burette, probe, stirrer).
+/* drv.h: the device-driver interface (burette, probe, stirrer, sample changer).
  *
  * A driver knows its wire protocol and nothing of titration. Each driver file
  * drivers/<device>_<wire>.c exports one const ops struct; drivers/drivers.c
  * holds the one table and finds a driver by the `driver:` string of a
- * station's `burette:`, `probe:` or `stirrer:` subtree.
+ * station's `burette:`, `probe:`, `stirrer:` or `changer:` subtree.
  *
  * Life cycle of a handle (the daemon never reaches into a driver's state):
  *   drv_burette_configure(doc, subtree, &b, &diag)   parse + validate only; no I/O
@@ -122,15 +122,62 @@ typedef struct drv_stirrer_ops {
 	void (*close)(void *priv);
 } drv_stirrer_ops_t;
 
+/* ---- sample changer ---- */
+
+typedef enum {
+	DRV_LIFT_UP = 0, /* the head is clear of every beaker: the rack may turn */
+	DRV_LIFT_DOWN,   /* the head is in the beaker at the current position */
+	DRV_LIFT_BETWEEN /* on its way, or stopped part way */
+} drv_lift_t;
+
+typedef enum { DRV_CHANGER_RINSE = 0, DRV_CHANGER_WASTE } drv_changer_pump_t;
+
+typedef struct drv_changer_info {
+	long positions; /* positions are numbered 1 .. positions */
+	bool has_rinse; /* the profile has a rinse pump command */
+	bool has_waste; /* the profile has a waste pump command */
+} drv_changer_info_t;
+
+typedef struct drv_changer_status {
+	long position; /* where the rack is (the last position reached while moving) */
+	drv_lift_t lift;
+	bool moving; /* the rack, the lift or a pump is in motion */
+	bool fault;  /* the device reports an error (jam, stuck lift); cleared by halt */
+} drv_changer_status_t;
+
+typedef struct drv_changer_ops {
+	const char *name;
+	const char *summary;
+	int (*configure)(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, diag_list_t *d);
+	void (*info)(void *priv, drv_changer_info_t *out);
+	drv_status_t (*open)(void *priv, drv_err_t *err);
+	/* Start turning the rack to `position` (1 .. positions). Refused with
+	 * DRV_CONFIG unless the lift is up and nothing moves: the head must never
+	 * be dragged through a beaker wall. Poll status() until !moving. */
+	drv_status_t (*move)(void *priv, long position, drv_err_t *err);
+	/* Start lowering (down = true) or raising the head. Lowering is refused
+	 * with DRV_CONFIG while the rack moves. Poll status() until !moving. */
+	drv_status_t (*lift)(void *priv, bool down, drv_err_t *err);
+	/* Run the rinse or waste pump for seconds_s (> 0). */
+	drv_status_t (*pump)(void *priv, drv_changer_pump_t which, double seconds_s,
+	                     drv_err_t *err);
+	drv_status_t (*status)(void *priv, drv_changer_status_t *out, drv_err_t *err);
+	/* Stop the rack, the lift and the pumps at once. */
+	drv_status_t (*halt)(void *priv, drv_err_t *err);
+	void (*close)(void *priv);
+} drv_changer_ops_t;
+
 /* ---- the table (drivers/drivers.c) ---- */
 
 const drv_probe_ops_t *drv_find_probe(const char *name);
 const drv_burette_ops_t *drv_find_burette(const char *name);
 const drv_stirrer_ops_t *drv_find_stirrer(const char *name);
+const drv_changer_ops_t *drv_find_changer(const char *name);
 /* NULL-terminated lists, for help texts and docs. */
 const drv_probe_ops_t *const *drv_probe_table(void);
 const drv_burette_ops_t *const *drv_burette_table(void);
 const drv_stirrer_ops_t *const *drv_stirrer_table(void);
+const drv_changer_ops_t *const *drv_changer_table(void);
 
 /* ---- handles: what the daemon holds ---- */
 
@@ -149,6 +196,11 @@ typedef struct drv_stirrer {
 	void *priv;
 } drv_stirrer_t;
 
+typedef struct drv_changer {
+	const drv_changer_ops_t *ops;
+	void *priv;
+} drv_changer_t;
+
 /* Read `driver:` from the subtree `cfg`, find the driver, configure it.
  * An unknown driver name is an error at its mark listing the known ones.
  * Returns 0, or -1 with errors in d (the handle stays zeroed). */
@@ -157,6 +209,8 @@ int drv_probe_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_probe_t *
 int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette_t *out,
                           diag_list_t *d);
 int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer_t *out,
+                          diag_list_t *d);
+int drv_changer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_changer_t *out,
                           diag_list_t *d);
 
 /* Thin wrappers over the ops; each fills err when not DRV_OK. */
@@ -175,6 +229,18 @@ void drv_burette_close(drv_burette_t *b);
 drv_status_t drv_stirrer_open(drv_stirrer_t *s, drv_err_t *err);
 drv_status_t drv_stirrer_set(drv_stirrer_t *s, bool on, double rpm, drv_err_t *err);
 void drv_stirrer_close(drv_stirrer_t *s);
+
+void drv_changer_info(const drv_changer_t *c, drv_changer_info_t *out);
+drv_status_t drv_changer_open(drv_changer_t *c, drv_err_t *err);
+drv_status_t drv_changer_move(drv_changer_t *c, long position, drv_err_t *err);
+drv_status_t drv_changer_lift(drv_changer_t *c, bool down, drv_err_t *err);
+drv_status_t drv_changer_pump(drv_changer_t *c, drv_changer_pump_t which, double seconds_s,
+                              drv_err_t *err);
+drv_status_t drv_changer_status(drv_changer_t *c, drv_changer_status_t *out, drv_err_t *err);
+drv_status_t drv_changer_halt(drv_changer_t *c, drv_err_t *err);
+void drv_changer_close(drv_changer_t *c);
+/* "up", "down", "between". */
+const char *drv_lift_name(drv_lift_t l);
 
 /* Fill err->msg with a formatted message and return st (for one-line returns). */
 drv_status_t drv_fail(drv_err_t *err, drv_status_t st, const char *fmt, ...)

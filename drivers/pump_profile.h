@@ -2,7 +2,8 @@
  *
  * A profile (config/pumps/NAME.yaml, keys in docs/drivers.md) says how to talk
  * to one kind of pump: command templates with placeholders, terminators and
- * reply patterns. pump_serial.c drives any pump a profile describes.
+ * reply patterns, read by the shared command-profile mechanism
+ * (cmd_profile.h). pump_serial.c drives any pump a profile describes.
  *
  * Templates: literal text with {steps}, {volume_ul}, {volume_ml}, {speed}
  * (steps per second) and {position} (target plunger position in steps).
@@ -15,17 +16,18 @@
 
 #include <stdbool.h>
 
+#include "cmd_profile.h"
 #include "diag.h"
 #include "yamltree.h"
 
-#define PUMP_STR 96
+#define PUMP_STR CMDP_STR
 
 typedef struct pump_profile {
 	char name[64];
-	char command_end[8]; /* sent after each command */
-	char reply_end[8];   /* ends each reply line */
-	long steps;          /* steps per full stroke */
-	double capacity_ml;  /* syringe volume */
+	char command_end[CMDP_END]; /* sent after each command */
+	char reply_end[CMDP_END];   /* ends each reply line */
+	long steps;                 /* steps per full stroke */
+	double capacity_ml;         /* syringe volume */
 	double dose_rate_ml_min;
 	double fill_rate_ml_min;
 	long max_speed; /* highest {speed} the pump takes, steps/s */

@@ -6,19 +6,15 @@
  * reply the driver asks for the status and re-sends only if the plunger has
  * not moved, so a noisy line cannot double a dose.
  */
-#include <limits.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <unistd.h>
 
-#include "datadir.h"
 #include "drv.h"
 #include "link.h"
 #include "pump_profile.h"
 #include "serial.h"
-#include "clock.h"
 
 typedef enum {
 	MODE_IDLE = 0,
@@ -29,9 +25,8 @@ typedef enum {
 } pump_mode_t;
 
 typedef struct pump {
-	link_serial_t link;
+	cmdp_line_t line; /* the serial link, its options and the profile's line ends */
 	pump_profile_t prof;
-	serial_t ser;
 	long steps;         /* steps per full stroke (station may override the profile) */
 	double capacity_ml; /* syringe volume */
 	bool known;         /* pos is from the device */
@@ -44,45 +39,17 @@ typedef struct pump {
 	                   * restarted mid-refill finds it at the reservoir */
 } pump_t;
 
+typedef struct accept {
+	const pump_profile_t *prof;
+	pump_reply_t *rep;
+} accept_t;
+
 static const char *const own_keys[] = {"profile",          "capacity_ml",      "steps",
                                        "dose_rate_ml_min", "fill_rate_ml_min", NULL};
 
-static bool file_exists(const char *p)
+static int load_profile(const char *path, void *prof, diag_list_t *d)
 {
-	return access(p, R_OK) == 0;
-}
-
-/* A relative profile path: beside the config file, then in a pumps/ folder
- * beside it (the repository's config/), then in the data folder's pumps/
- * (datadir.h); never the current folder, so a check gives the same answer
- * wherever it is run. A bare name may leave out ".yaml". */
-static bool resolve_profile(const char *cfg_file, const char *name, char *out, size_t cap,
-                            char *data, size_t data_cap)
-{
-	if (name[0] == '/') {
-		snprintf(out, cap, "%s", name);
-		return file_exists(out);
-	}
-	char dir[PATH_MAX] = ".";
-	const char *slash = cfg_file ? strrchr(cfg_file, '/') : NULL;
-	if (slash)
-		snprintf(dir, sizeof(dir), "%.*s", (int)(slash - cfg_file), cfg_file);
-	const char *ext = strstr(name, ".yaml") ? "" : ".yaml";
-	char beside[PATH_MAX + 8], installed[PATH_MAX + 8];
-	snprintf(beside, sizeof(beside), "%s/pumps", dir);
-	if (datadir_find(data, data_cap, NULL) != 0)
-		snprintf(data, data_cap, "%s", "(none)");
-	snprintf(installed, sizeof(installed), "%s/pumps", data);
-	const char *dirs[] = {dir, beside, installed};
-	for (size_t i = 0; i < sizeof(dirs) / sizeof(dirs[0]); i++) {
-		snprintf(out, cap, "%s/%s", dirs[i], name);
-		if (file_exists(out))
-			return true;
-		snprintf(out, cap, "%s/%s%s", dirs[i], name, ext);
-		if (file_exists(out))
-			return true;
-	}
-	return false;
+	return pump_profile_load(path, prof, d);
 }
 
 static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, diag_list_t *d)
@@ -95,27 +62,13 @@ static int pump_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv
 	pump_t *p = calloc(1, sizeof(*p));
 	if (!p)
 		return -1;
-	serial_init(&p->ser);
-	ok &= link_serial_parse(doc, cfg, &p->link, d) == 0;
-	const yt_node_t *n = yt_get(cfg, "profile");
-	char name[LINK_PATH_MAX], path[PATH_MAX], data[PATH_MAX];
-	if (!n) {
-		yt_missing(doc, cfg, "profile", "burette", d);
-		ok = false;
-	} else if (yt_string(doc, n, "profile", name, sizeof(name), d)) {
-		if (!resolve_profile(doc->file, name, path, sizeof(path), data, sizeof(data))) {
-			yt_error(doc, n, d,
-			         "pump profile '%s' not found (looked beside this file, "
-			         "in pumps/ beside it and in %s/pumps)",
-			         name, data);
-			ok = false;
-		} else if (pump_profile_load(path, &p->prof, d) != 0) {
-			yt_error(doc, n, d, "pump profile '%s' is invalid (errors above)", path);
-			ok = false;
-		}
-	} else {
-		ok = false;
-	}
+	serial_init(&p->line.ser);
+	p->line.who = "pump";
+	p->line.command_end = p->prof.command_end;
+	p->line.reply_end = p->prof.reply_end;
+	ok &= link_serial_parse(doc, cfg, &p->line.link, d) == 0;
+	ok &= cmdp_profile_key(doc, cfg, "burette", "pump", "pumps", load_profile, &p->prof, d);
+	const yt_node_t *n;
 	p->steps = p->prof.steps;
 	p->capacity_ml = p->prof.capacity_ml;
 	if ((n = yt_get(cfg, "steps")))
@@ -158,57 +111,29 @@ static long speed_for(const pump_t *p, double rate_ml_min)
 	return v;
 }
 
+static bool accept_reply(void *ctx, const char *line)
+{
+	accept_t *a = ctx;
+	return pump_parse_reply(a->prof, line, a->rep) != PUMP_REPLY_UNKNOWN;
+}
+
 /* Send one command and wait for one reply that parses; garbage lines are
  * discarded until the deadline. No retry here. */
 static drv_status_t transact_once(pump_t *p, const char *cmd, pump_reply_t *rep, drv_err_t *err)
 {
-	char buf[PUMP_STR + 16];
-	int n = snprintf(buf, sizeof(buf), "%s%s", cmd, p->prof.command_end);
-	if (n < 0 || (size_t)n >= sizeof(buf))
-		return drv_fail(err, DRV_CONFIG, "pump: command too long");
-	double deadline = clock_mono_s() + (double)p->link.timeout_ms / 1000.0;
-	serial_drain(&p->ser);
-	drv_status_t st = serial_write(&p->ser, buf, (size_t)n, deadline, err);
-	if (st != DRV_OK)
-		return st;
-	int garbage = 0;
-	for (;;) {
-		char line[256];
-		st =
-		    serial_read_line(&p->ser, p->prof.reply_end, line, sizeof(line), deadline, err);
-		if (st == DRV_TIMEOUT && garbage)
-			return drv_fail(err, DRV_BAD_REPLY,
-			                "pump: %d unreadable line(s) and no valid reply to '%s' "
-			                "within %ld ms",
-			                garbage, cmd, p->link.timeout_ms);
-		if (st == DRV_TIMEOUT)
-			return drv_fail(err, DRV_TIMEOUT, "pump: no reply to '%s' within %ld ms",
-			                cmd, p->link.timeout_ms);
-		if (st != DRV_OK)
-			return st;
-		if (pump_parse_reply(&p->prof, line, rep) != PUMP_REPLY_UNKNOWN)
-			return DRV_OK;
-		garbage++;
-	}
+	memset(rep, 0, sizeof(*rep));
+	accept_t a = {&p->prof, rep};
+	return cmdp_transact_once(&p->line, cmd, accept_reply, &a, err);
 }
 
-static drv_status_t ensure_open(pump_t *p, drv_err_t *err);
+static drv_status_t open_link(void *priv, drv_err_t *err);
 
 /* With bounded retries: for commands that are safe to repeat. */
 static drv_status_t transact(pump_t *p, const char *cmd, pump_reply_t *rep, drv_err_t *err)
 {
-	drv_status_t st = DRV_OK;
-	for (long i = 0; i <= p->link.retries; i++) {
-		st = ensure_open(p, err);
-		if (st != DRV_OK)
-			return st;
-		st = transact_once(p, cmd, rep, err);
-		if (st == DRV_OK || st == DRV_CONFIG)
-			return st;
-		if (st == DRV_UNPLUGGED && i > 0)
-			return st;
-	}
-	return st;
+	memset(rep, 0, sizeof(*rep));
+	accept_t a = {&p->prof, rep};
+	return cmdp_transact(&p->line, open_link, p, cmd, accept_reply, &a, err);
 }
 
 static drv_status_t expect_ok(pump_t *p, const char *what, const pump_reply_t *r, drv_err_t *err)
@@ -276,25 +201,18 @@ static drv_status_t query(pump_t *p, bool *moving, drv_err_t *err)
  * line again so the next try also starts with the halt. A refill cut off
  * this way ends with the valve turned back to the outlet, its safe
  * position. */
-static drv_status_t open_link(pump_t *p, drv_err_t *err)
+static drv_status_t open_link(void *priv, drv_err_t *err)
 {
-	drv_status_t st = serial_open(&p->ser, &p->link, err);
-	if (st != DRV_OK)
-		return st;
+	pump_t *p = priv;
 	char cmd[PUMP_STR * 2];
 	pump_args_t a = {0};
 	if (pump_expand(p->prof.halt, &a, cmd, sizeof(cmd)) < 0)
 		return drv_fail(err, DRV_CONFIG, "pump: cannot expand '%s'", p->prof.halt);
-	for (long i = 0; i <= p->link.retries; i++) {
-		pump_reply_t r;
-		st = transact_once(p, cmd, &r, err);
-		if (st == DRV_OK || st == DRV_CONFIG || st == DRV_UNPLUGGED)
-			break;
-	}
-	if (st != DRV_OK) {
-		serial_close(&p->ser); /* the next try opens again, and halts first */
+	pump_reply_t hr;
+	accept_t ha = {&p->prof, &hr};
+	drv_status_t st = cmdp_open_with_halt(&p->line, cmd, accept_reply, &ha, err);
+	if (st != DRV_OK)
 		return st;
-	}
 	bool refilling = p->mode == MODE_VALVE_IN || p->mode == MODE_FILL;
 	/* Moves since the last status count in IDLE as in DOSE (query). */
 	p->mode = MODE_IDLE;
@@ -318,7 +236,7 @@ static drv_status_t open_link(pump_t *p, drv_err_t *err)
 
 static drv_status_t ensure_open(pump_t *p, drv_err_t *err)
 {
-	if (serial_is_open(&p->ser))
+	if (serial_is_open(&p->line.ser))
 		return DRV_OK;
 	return open_link(p, err);
 }
@@ -362,7 +280,7 @@ static drv_status_t pump_dose(void *priv, double volume_ml, drv_err_t *err)
 	if (pump_expand(p->prof.dose, &a, cmd, sizeof(cmd)) < 0)
 		return drv_fail(err, DRV_CONFIG, "pump: cannot expand dose command");
 	long before = p->pos;
-	for (long i = 0; i <= p->link.retries; i++) {
+	for (long i = 0; i <= p->line.link.retries; i++) {
 		pump_reply_t r;
 		st = ensure_open(p, err);
 		if (st != DRV_OK)
@@ -499,7 +417,7 @@ static void pump_close(void *priv)
 	pump_t *p = priv;
 	if (!p)
 		return;
-	serial_close(&p->ser);
+	serial_close(&p->line.ser);
 	free(p);
 }
 

@@ -94,7 +94,8 @@ typedef struct bench {
 	drv_burette_t bur;
 	drv_probe_t probe;
 	drv_stirrer_t stir;
-	bool has_bur, has_probe, has_stir;
+	drv_changer_t changer;
+	bool has_bur, has_probe, has_stir, has_changer;
 } bench_t;
 
 /* Every reply is one JSON object on one line, written by jansson: text in
@@ -133,10 +134,49 @@ static void print_burette(json_t *o, const drv_burette_status_t *b)
 	json_object_set_new(o, "fault", json_boolean(b->fault));
 }
 
+static void print_changer(json_t *o, const drv_changer_status_t *c)
+{
+	json_object_set_new(o, "position", json_integer(c->position));
+	json_object_set_new(o, "lift", json_string(drv_lift_name(c->lift)));
+	json_object_set_new(o, "moving", json_boolean(c->moving));
+	json_object_set_new(o, "fault", json_boolean(c->fault));
+}
+
 static void sleep_s(double s)
 {
 	struct timespec ts = {(time_t)s, (long)((s - floor(s)) * 1e9)};
 	nanosleep(&ts, NULL);
+}
+
+/* The changer's commands but its status; DRV_OK for changer-status and
+ * changer-wait, which run_command answers. */
+static drv_status_t changer_command(bench_t *b, const char *line, const char *word, drv_err_t *e)
+{
+	char a[16] = "";
+	double x = NAN;
+	bool has_num = sscanf(line, "%*s %lf", &x) == 1;
+	if (!strcmp(word, "changer-status") || !strcmp(word, "changer-wait"))
+		return DRV_OK;
+	if (!strcmp(word, "changer-move"))
+		return has_num && x == floor(x) && fabs(x) < 1e6
+		           ? drv_changer_move(&b->changer, (long)x, e)
+		           : drv_fail(e, DRV_CONFIG, "changer-move needs a whole position number");
+	if (!strcmp(word, "changer-lift")) {
+		if (sscanf(line, "%*s %15s", a) != 1 || (strcmp(a, "up") && strcmp(a, "down")))
+			return drv_fail(e, DRV_CONFIG, "changer-lift up | changer-lift down");
+		return drv_changer_lift(&b->changer, !strcmp(a, "down"), e);
+	}
+	if (!strcmp(word, "changer-rinse") || !strcmp(word, "changer-waste"))
+		return has_num ? drv_changer_pump(
+		                     &b->changer,
+		                     word[8] == 'r' ? DRV_CHANGER_RINSE : DRV_CHANGER_WASTE, x, e)
+		               : drv_fail(e, DRV_CONFIG, "%s needs seconds", word);
+	if (!strcmp(word, "changer-halt"))
+		return drv_changer_halt(&b->changer, e);
+	return drv_fail(
+	    e, DRV_CONFIG,
+	    "unknown changer command (changer-status, changer-wait [S], changer-move N, "
+	    "changer-lift up|down, changer-rinse S, changer-waste S, changer-halt)");
 }
 
 static void run_command(bench_t *b, char *line)
@@ -153,8 +193,9 @@ static void run_command(bench_t *b, char *line)
 	json_t *o = NULL;
 	bool need_bur = !strcmp(word, "status") || !strcmp(word, "dose") || !strcmp(word, "halt") ||
 	                !strcmp(word, "refill") || !strcmp(word, "wait");
+	bool need_changer = !strncmp(word, "changer", 7);
 	if ((need_bur && !b->has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
-	    (!strcmp(word, "stir") && !b->has_stir)) {
+	    (!strcmp(word, "stir") && !b->has_stir) || (need_changer && !b->has_changer)) {
 		st = drv_fail(&e, DRV_CONFIG, "this station has no such device");
 		emit(head(word, st, t0, &e));
 		return;
@@ -201,6 +242,26 @@ static void run_command(bench_t *b, char *line)
 		else
 			st = drv_stirrer_set(&b->stir, !strcmp(onoff, "on"), rpm, &e);
 		o = head(word, st, t0, &e);
+	} else if (need_changer) {
+		st = changer_command(b, line, word, &e);
+		o = head(word, st, t0, &e);
+		if (st == DRV_OK &&
+		    (!strcmp(word, "changer-status") || !strcmp(word, "changer-wait"))) {
+			drv_changer_status_t cs;
+			double limit = !strcmp(word, "changer-wait") && n == 2 ? arg : 0;
+			for (;;) {
+				st = drv_changer_status(&b->changer, &cs, &e);
+				if (st != DRV_OK || !cs.moving || clock_mono_s() - t0 >= limit)
+					break;
+				sleep_s(0.05);
+			}
+			json_decref(o);
+			o = head(word, st, t0, &e);
+			if (st == DRV_OK)
+				print_changer(o, &cs);
+			else if (cs.fault) /* the device's own error: a jam, a stuck lift */
+				json_object_set_new(o, "fault", json_true());
+		}
 	} else if (!strcmp(word, "sleep")) {
 		if (n == 2 && arg > 0 && arg < 3600)
 			sleep_s(arg);
@@ -209,7 +270,9 @@ static void run_command(bench_t *b, char *line)
 		snprintf(extra, sizeof(extra), "%s", word);
 		st = drv_fail(&e, DRV_CONFIG,
 		              "unknown command (read, status, dose ML, wait [S], refill, halt, "
-		              "stir on [RPM], stir off, sleep S)");
+		              "stir on [RPM], stir off, changer-status, changer-wait [S], "
+		              "changer-move N, changer-lift up|down, changer-rinse S, "
+		              "changer-waste S, changer-halt, sleep S)");
 		o = head(extra, st, t0, &e);
 	}
 	emit(o);
@@ -248,6 +311,8 @@ static int test_devices(const char *path, const char *station)
 		b.has_probe = drv_probe_configure(&doc, n, &b.probe, &d) == 0;
 	if ((n = yt_get(s, "stirrer")))
 		b.has_stir = drv_stirrer_configure(&doc, n, &b.stir, &d) == 0;
+	if ((n = yt_get(s, "changer")))
+		b.has_changer = drv_changer_configure(&doc, n, &b.changer, &d) == 0;
 	if (d.n)
 		goto out;
 	rc = 0;
@@ -275,6 +340,17 @@ static int test_devices(const char *path, const char *station)
 		drv_status_t st = drv_stirrer_open(&b.stir, &e);
 		emit(head("open stirrer", st, t0, &e));
 	}
+	if (b.has_changer) {
+		t0 = clock_mono_s();
+		drv_status_t st = drv_changer_open(&b.changer, &e);
+		json_t *o = head("open changer", st, t0, &e);
+		if (st == DRV_OK) {
+			drv_changer_info_t info;
+			drv_changer_info(&b.changer, &info);
+			json_object_set_new(o, "positions", json_integer(info.positions));
+		}
+		emit(o);
+	}
 	fflush(stdout);
 	char line[256];
 	while (fgets(line, sizeof(line), stdin)) {
@@ -290,6 +366,7 @@ out:
 	drv_burette_close(&b.bur);
 	drv_probe_close(&b.probe);
 	drv_stirrer_close(&b.stir);
+	drv_changer_close(&b.changer);
 	yt_free(&doc);
 	return rc;
 }

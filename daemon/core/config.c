@@ -18,8 +18,9 @@ static const char *const http_keys[] = {
     "threads",    "allowed_hosts",  NULL};
 /* clang-format on */
 static const char *const storage_keys[] = {"database", NULL};
-static const char *const station_keys[] = {"name",  "vessel_max_ml", "read_interval_s", "burette",
-                                           "probe", "stirrer",       "dosers",          NULL};
+static const char *const station_keys[] = {"name",    "vessel_max_ml", "read_interval_s",
+                                           "burette", "probe",         "stirrer",
+                                           "dosers",  "changer",       NULL};
 
 int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port)
 {
@@ -290,6 +291,12 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 		yt_want_map(&c->doc, st->stirrer, "stirrer", d);
 	if ((n = yt_get(s, "dosers")))
 		parse_dosers(c, st, n, d);
+	/* The sample changer (optional): its driver checks the subtree. */
+	st->changer = yt_get(s, "changer");
+	if (st->changer && yt_is_null(st->changer))
+		st->changer = NULL;
+	else if (st->changer)
+		yt_want_map(&c->doc, st->changer, "changer", d);
 }
 
 int cfg_load(const char *path, cfg_t *c, diag_list_t *d)

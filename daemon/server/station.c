@@ -36,6 +36,13 @@ static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_buret
 			drv_burette_configure(&c->doc, sc->dosers[i].burette, &db, d);
 		drv_burette_close(&db);
 	}
+	/* The sample changer is checked (so --check-config covers it) but not
+	 * held: no run drives it yet. */
+	if (sc->changer) {
+		drv_changer_t ch = {0};
+		drv_changer_configure(&c->doc, sc->changer, &ch, d);
+		drv_changer_close(&ch);
+	}
 }
 
 int station_check_config(const cfg_t *c, const cfg_station_t *sc, diag_list_t *d)

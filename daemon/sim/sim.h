@@ -1,8 +1,9 @@
 /* sim.h: the simulated bench of `stopcock-sim` (daemon/sim/stopcock_sim.c).
  *
  * One sim_t holds the beaker, the pump's mechanics, the transmitter's
- * register image and the injected fault, all under one mutex. Threads:
- * the pump (its pty, and the clock: sim_tick), Modbus TCP, Modbus RTU (when
+ * register image, the sample changer with its rack (with --rack) and the
+ * injected fault, all under one mutex. Threads: the pump (its pty, and the
+ * clock: sim_tick), the changer (its pty), Modbus TCP, Modbus RTU (when
  * asked) and the control socket. Protocols and register map: docs/drivers.md.
  */
 #ifndef STOPCOCK_SIM_H
@@ -15,6 +16,7 @@
 
 #include "beaker.h"
 #include "chem.h"
+#include "yamltree.h"
 
 typedef enum {
 	SIM_FAULT_NONE = 0,
@@ -26,12 +28,24 @@ typedef enum {
 	SIM_FAULT_STALL,            /* the pump motor stalls and reports an error */
 	SIM_FAULT_FROZEN_PROBE,     /* registers stop changing */
 	SIM_FAULT_UNPLUG,           /* ptys closed, TCP connections dropped */
+	SIM_FAULT_JAM,              /* the rack stops where it is; the changer reports an error */
+	SIM_FAULT_STUCK_LIFT,       /* the lift stops part way; the changer reports an error */
+	SIM_FAULT_MUTE_CHANGER,     /* the changer reads but never answers */
 	SIM_FAULT_COUNT
 } sim_fault_t;
 
 #define SIM_SLOW_PROBE_S   1.5  /* beyond a typical 300-500 ms response timeout */
 #define SIM_MEASURE_S      0.1  /* the transmitter measures at 10 Hz */
 #define SIM_PUMP_MAX_SPEED 8000 /* steps/s, as config/pumps/sim.yaml says */
+#define SIM_RACK_POSITIONS 16   /* as config/changers/sim.yaml says */
+#define SIM_MOVE_S         0.1  /* the rack's start and stop, s */
+#define SIM_MOVE_PER_POS_S 0.05 /* the rack turning past one position, s */
+#define SIM_LIFT_S         0.3  /* the head going up or down, s */
+#define SIM_AIR_STEP_MV    6.0  /* largest drift of an electrode in air per measurement, mV */
+#define SIM_AIR_LIMIT_MV   400.0
+#define SIM_CARRY_ML                                                                               \
+	0.05 /* solution the head takes from one beaker into the next                              \
+	      * when it was not rinsed between them, mL */
 
 /* Register map (input registers; holding registers 0..15 mirror them). */
 enum {
@@ -62,11 +76,39 @@ typedef struct sim_pump {
 	unsigned long replies; /* count, for the noise pattern */
 } sim_pump_t;
 
+/* A rack file (docs/stopcock-sim.1, RACK FILE): the scenario at each
+ * position, the rinse and the park positions (0 when not given). */
+typedef struct sim_rack {
+	chem_scenario_t *scen[SIM_RACK_POSITIONS + 1]; /* by position; NULL: no beaker */
+	char file[SIM_RACK_POSITIONS + 1][256];        /* as the rack file names it */
+	long rinse, park;
+	long first; /* the lowest position holding a beaker */
+} sim_rack_t;
+
+typedef struct sim_changer {
+	bool present;
+	long pos;           /* where the rack is, 1 .. SIM_RACK_POSITIONS */
+	long target;        /* where it is going */
+	double move_left_s; /* of the move in progress; 0 when still */
+	int lift;           /* 0 up, 1 down, 2 between (the {lift} of the profile) */
+	int lift_to;        /* 0 or 1 while the lift moves */
+	double lift_left_s; /* of the lift move in progress */
+	double pump_left_s; /* of the rinse or waste pump run in progress */
+	bool jammed, stuck; /* a move / a lift failed under a fault, until HALT */
+	double spilled_ml;  /* titrant dispensed with no beaker under the head, mL */
+	long wet_from;      /* the position whose solution wets the head; 0 when rinsed */
+	double carried_ml;  /* solution carried between beakers so far, mL */
+	double air_mv;      /* the drifting potential of the electrode in air, mV */
+	beaker_t *beakers[SIM_RACK_POSITIONS + 1]; /* by position; NULL: none */
+	long rinse, park;
+} sim_changer_t;
+
 typedef struct sim {
 	pthread_mutex_t mu;
 	beaker_t *beaker;
 	chem_scenario_t scen;
 	sim_pump_t pump;
+	sim_changer_t changer; /* .present only with a rack */
 	uint16_t regs[SIM_NREGS];
 	uint16_t counter;
 	double mv; /* last measured electrode mV */
@@ -80,6 +122,7 @@ typedef struct sim {
 	atomic_bool stop;
 	/* links */
 	char pump_link[512];
+	char changer_link[512];
 	char rtu_link[512];
 	char tcp_host[64];
 	int tcp_port;
@@ -97,11 +140,31 @@ void sim_tick(sim_t *s, double now_s);
  * false when there is no reply (mute). Caller holds s->mu. */
 bool sim_pump_command(sim_t *s, const char *line, char *reply, size_t cap);
 
+/* Read a rack file: each scenario relative to the rack file; errors as
+ * file:line:col in d. Returns 0 or -1 (r then holds nothing to free). */
+int sim_rack_load(const char *path, sim_rack_t *r, diag_list_t *d);
+int sim_rack_parse(const yt_doc_t *doc, sim_rack_t *r, diag_list_t *d);
+void sim_rack_free(sim_rack_t *r);
+
+/* Put a changer with this rack on the bench: a beaker per scenario, the
+ * head up at the park position (else the first beaker). s->beaker is then
+ * the beaker under the lowered head, NULL while the head is up. Returns 0,
+ * or -1 out of memory. */
+int sim_changer_attach(sim_t *s, const sim_rack_t *r, unsigned long long seed);
+
+/* One changer command line -> reply; false when there is no reply (mute).
+ * Caller holds s->mu. */
+bool sim_changer_command(sim_t *s, const char *line, char *reply, size_t cap);
+
+/* Advance the changer to now (from sim_tick). */
+void sim_changer_tick(sim_t *s, double dt_s);
+
 /* The control socket's command -> one reply line (no newline). Takes s->mu. */
 void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap);
 
 /* Threads (arg: sim_t *). Each returns when s->stop is set. */
 void *sim_pump_thread(void *arg);
+void *sim_changer_thread(void *arg);
 void *sim_tcp_thread(void *arg);
 void *sim_rtu_thread(void *arg);
 

@@ -55,11 +55,15 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		/* jansson writes the reply: a number that is not finite (a beaker
 		 * model gone wrong) is null, never text that is not JSON. */
 		json_t *o = json_object();
-		json_object_set_new(o, "dispensed_ml", real_or_null(beaker_titrant_ml(s->beaker)));
-		json_object_set_new(o, "ph", real_or_null(beaker_true_ph(s->beaker)));
+		/* With a changer and the head up there is no beaker: its numbers
+		 * are null, and the probe reads air. */
+		const beaker_t *b = s->beaker;
+		json_object_set_new(o, "dispensed_ml",
+		                    b ? real_or_null(beaker_titrant_ml(b)) : json_null());
+		json_object_set_new(o, "ph", b ? real_or_null(beaker_true_ph(b)) : json_null());
 		json_object_set_new(o, "mv", real_or_null(s->mv));
 		json_object_set_new(o, "temperature_c",
-		                    real_or_null(beaker_temperature_c(s->beaker)));
+		                    b ? real_or_null(beaker_temperature_c(b)) : json_null());
 		json_object_set_new(o, "moving", json_boolean(s->pump.moving));
 		json_object_set_new(o, "fault", f ? json_string(f) : json_null());
 		json_object_set_new(o, "contents_ml",
@@ -67,6 +71,17 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		json_object_set_new(o, "valve", json_string(s->pump.valve_in ? "in" : "out"));
 		json_object_set_new(o, "stirrer", json_boolean(s->stir_on));
 		json_object_set_new(o, "stirrer_rpm", json_integer((json_int_t)s->stir_rpm));
+		if (s->changer.present) {
+			const sim_changer_t *c = &s->changer;
+			static const char *const lifts[] = {"up", "down", "between"};
+			json_object_set_new(o, "position", json_integer((json_int_t)c->pos));
+			json_object_set_new(o, "lift", json_string(lifts[c->lift]));
+			json_object_set_new(o, "changer_moving",
+			                    json_boolean(c->move_left_s > 0 || c->lift_left_s > 0 ||
+			                                 c->pump_left_s > 0));
+			json_object_set_new(o, "spilled_ml", real_or_null(c->spilled_ml));
+			json_object_set_new(o, "carried_ml", real_or_null(c->carried_ml));
+		}
 		char *text = json_dumps(o, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		snprintf(reply, cap, "%s", text ? text : "error: out of memory");
 		free(text);
@@ -123,10 +138,16 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		}
 		diag_free(&d);
 		pthread_mutex_lock(&s->mu);
-		s->scen = sc;
-		beaker_load(s->beaker, &sc);
+		if (s->beaker) {
+			s->scen = sc;
+			beaker_load(s->beaker, &sc);
+			snprintf(reply, cap, "ok");
+		} else {
+			/* with a changer: the beaker under the lowered head */
+			snprintf(reply, cap,
+			         "error: load: no beaker under the head (lower it first)");
+		}
 		pthread_mutex_unlock(&s->mu);
-		snprintf(reply, cap, "ok");
 	} else {
 		snprintf(reply, cap, "error: unknown command '%s' (load, fault, clear, state)",
 		         word);

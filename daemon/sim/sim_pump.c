@@ -20,7 +20,7 @@
 
 static const char *const fault_names[SIM_FAULT_COUNT] = {
     NULL,    "noise",        "mute-pump", "mute-probe", "slow-probe", "modbus-exception",
-    "stall", "frozen-probe", "unplug"};
+    "stall", "frozen-probe", "unplug",    "jam",        "stuck-lift", "mute-changer"};
 
 const char *sim_fault_name(sim_fault_t f)
 {
@@ -53,10 +53,23 @@ static void put_float(uint16_t *r, double v)
 	r[1] = (uint16_t)(u & 0xffff);
 }
 
+/* An electrode in air: no liquid junction, so an unsteady potential that
+ * drifts without bound of its own (a random walk, held to a plausible span)
+ * plus noise; never a steady reading a titration could take. */
+static double air_mv(sim_t *s)
+{
+	double step = ((double)(rng_next(s) % 2001) / 1000.0 - 1.0) * SIM_AIR_STEP_MV;
+	double v = s->changer.air_mv + step;
+	if (v > SIM_AIR_LIMIT_MV || v < -SIM_AIR_LIMIT_MV)
+		v = s->changer.air_mv - step;
+	s->changer.air_mv = v;
+	return v + ((double)(rng_next(s) % 1001) / 1000.0 - 0.5) * 2.0;
+}
+
 static void measure(sim_t *s)
 {
-	double mv = beaker_mv(s->beaker);
-	double t_c = beaker_temperature_c(s->beaker);
+	double mv = s->beaker ? beaker_mv(s->beaker) : air_mv(s);
+	double t_c = s->beaker ? beaker_temperature_c(s->beaker) : s->scen.temperature_c;
 	const chem_electrode_t *e = &s->scen.electrode;
 	double ph = chem_ph_from_mv(e->offset_mv, e->slope_pct, mv, t_c);
 	s->mv = mv;
@@ -100,7 +113,14 @@ int sim_init(sim_t *s, const chem_scenario_t *scen, unsigned long long seed)
 
 void sim_free(sim_t *s)
 {
-	beaker_free(s->beaker);
+	if (s->changer.present) {
+		/* s->beaker points into the rack (or is NULL) */
+		for (int i = 0; i <= SIM_RACK_POSITIONS; i++)
+			beaker_free(s->changer.beakers[i]);
+		memset(s->changer.beakers, 0, sizeof(s->changer.beakers));
+	} else {
+		beaker_free(s->beaker);
+	}
 	s->beaker = NULL;
 	pthread_mutex_destroy(&s->mu);
 }
@@ -116,6 +136,8 @@ void sim_tick(sim_t *s, double t)
 		s->fault_until_s = 0;
 		s->next_measure_s = 0; /* thawed: measure at once (as on `clear`) */
 	}
+	if (s->changer.present)
+		sim_changer_tick(s, dt);
 	sim_pump_t *p = &s->pump;
 	if (p->moving && s->fault == SIM_FAULT_STALL) {
 		p->moving = false; /* the motor stalled where it was */
@@ -134,16 +156,26 @@ void sim_tick(sim_t *s, double t)
 		}
 		if (p->target < p->pos) {
 			p->pos -= n;
-			if (!p->valve_in) /* through the outlet into the beaker */
-				beaker_add_ml(s->beaker,
-				              (double)n * p->capacity_ml / (double)p->steps);
+			double ml = (double)n * p->capacity_ml / (double)p->steps;
+			if (p->valve_in)
+				;           /* back into the reservoir */
+			else if (s->beaker) /* through the outlet into the beaker */
+				beaker_add_ml(s->beaker, ml);
+			else /* the head is up: onto the rack's tray */
+				s->changer.spilled_ml += ml;
 		} else {
 			p->pos += n;
 		}
 		if (p->pos == p->target)
 			p->moving = false;
 	}
-	beaker_advance(s->beaker, dt);
+	if (s->changer.present) {
+		for (int i = 0; i <= SIM_RACK_POSITIONS; i++)
+			if (s->changer.beakers[i])
+				beaker_advance(s->changer.beakers[i], dt);
+	} else {
+		beaker_advance(s->beaker, dt);
+	}
 	if (t >= s->next_measure_s) {
 		if (s->fault != SIM_FAULT_FROZEN_PROBE)
 			measure(s);
@@ -308,9 +340,12 @@ static size_t frame_reply(sim_t *s, const char *reply, char *out, size_t cap)
 	return n > 0 ? o + (size_t)n : o;
 }
 
-void *sim_pump_thread(void *arg)
+typedef bool (*line_fn)(sim_t *s, const char *line, char *reply, size_t cap);
+
+/* Serve one device on a pty at `link`: a command a line (LF; CR ignored), a
+ * reply line each (CR LF); the pty goes away while the unplug fault lasts. */
+static void serve_pty(sim_t *s, const char *link, const char *what, line_fn cmd, bool noisy)
 {
-	sim_t *s = arg;
 	int master = -1, slave = -1;
 	char line[256];
 	size_t len = 0;
@@ -320,14 +355,14 @@ void *sim_pump_thread(void *arg)
 		bool unplugged = s->fault == SIM_FAULT_UNPLUG;
 		pthread_mutex_unlock(&s->mu);
 		if (unplugged && master >= 0) {
-			unlink(s->pump_link);
+			unlink(link);
 			close(master);
 			close(slave);
 			master = slave = -1;
 			len = 0;
 		}
-		if (!unplugged && master < 0 && sim_pty_open(s->pump_link, &master, &slave) != 0) {
-			fprintf(stderr, "stopcock-sim: cannot create the pump pty: %s\n",
+		if (!unplugged && master < 0 && sim_pty_open(link, &master, &slave) != 0) {
+			fprintf(stderr, "stopcock-sim: cannot create the %s pty: %s\n", what,
 			        strerror(errno));
 			master = -1;
 		}
@@ -358,17 +393,36 @@ void *sim_pump_thread(void *arg)
 			size_t n = 0;
 			pthread_mutex_lock(&s->mu);
 			sim_tick(s, clock_mono_s());
-			if (sim_pump_command(s, line, reply, sizeof(reply)))
-				n = frame_reply(s, reply, out, sizeof(out));
+			if (cmd(s, line, reply, sizeof(reply))) {
+				if (noisy) {
+					n = frame_reply(s, reply, out, sizeof(out));
+				} else {
+					int k = snprintf(out, sizeof(out), "%s\r\n", reply);
+					n = k > 0 ? (size_t)k : 0;
+				}
+			}
 			pthread_mutex_unlock(&s->mu);
 			if (n)
 				write_all(master, out, n);
 		}
 	}
 	if (master >= 0) {
-		unlink(s->pump_link);
+		unlink(link);
 		close(master);
 		close(slave);
 	}
+}
+
+void *sim_pump_thread(void *arg)
+{
+	sim_t *s = arg;
+	serve_pty(s, s->pump_link, "pump", sim_pump_command, true);
+	return NULL;
+}
+
+void *sim_changer_thread(void *arg)
+{
+	sim_t *s = arg;
+	serve_pty(s, s->changer_link, "changer", sim_changer_command, false);
 	return NULL;
 }

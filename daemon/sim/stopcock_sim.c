@@ -2,9 +2,10 @@
  *
  * A burette on a pseudo-terminal (config/pumps/sim.yaml's protocol), a pH/mV
  * transmitter and stirrer on Modbus TCP (and RTU on a second pty with
- * --rtu-link), backed by the beaker model; a control socket to change the
- * sample and inject faults. Prints `ready` when every link answers; SIGTERM
- * or SIGINT ends it cleanly with status 0. */
+ * --rtu-link), backed by the beaker model; with --rack a sample changer on
+ * its own pty (config/changers/sim.yaml's protocol) over a rack of beakers;
+ * a control socket to change the sample and inject faults. Prints `ready` when every link answers;
+ * SIGTERM or SIGINT ends it cleanly with status 0. */
 #include <errno.h>
 #include <fcntl.h>
 #include <getopt.h>
@@ -29,33 +30,39 @@
 
 typedef struct opts {
 	const char *scenario, *tcp, *pump_link, *rtu_link, *control, *config_out, *state_dir;
+	const char *rack, *changer_link;
 	const char *listen;
 	unsigned long long seed;
 } opts_t;
 
 static void usage(FILE *f)
 {
-	fprintf(f,
-	        "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
-	        "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
-	        "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n"
-	        "       stopcock-sim control SOCKET COMMAND [ARG...]\n"
-	        "\n"
-	        "options:\n"
-	        "      --scenario FILE     beaker scenario (YAML): sample, titrant, electrode\n"
-	        "      --modbus-tcp H:P    address of the simulated transmitter (Modbus TCP)\n"
-	        "      --pump-link PATH    symlink created to the burette's pseudo-terminal\n"
-	        "      --rtu-link PATH     symlink created to a Modbus RTU pseudo-terminal\n"
-	        "      --control SOCKET    Unix socket for sample changes and fault injection\n"
-	        "      --seed N            seed of the electrode noise (whole number, default 1)\n"
-	        "      --config-out FILE   write a stopcockd config for this bench to FILE\n"
-	        "      --state-dir DIR     state folder named in that config\n"
-	        "      --listen A:P        HTTP address named in that config\n"
-	        "  -V, --version           print the version and exit\n"
-	        "  -h, --help              print this help and exit\n"
-	        "\n"
-	        "exit status: 0 clean stop (SIGTERM/SIGINT), 1 runtime failure,\n"
-	        "             2 bad arguments or scenario\n");
+	fprintf(
+	    f, "usage: stopcock-sim --scenario S.yaml --modbus-tcp HOST:PORT --pump-link PATH\n"
+	       "                    [--rtu-link PATH] [--control SOCKET] [--seed N]\n"
+	       "                    [--config-out FILE --state-dir DIR [--listen ADDR:PORT]]\n"
+	       "       stopcock-sim --rack RACK.yaml [--changer-link PATH] --modbus-tcp HOST:PORT\n"
+	       "                    --pump-link PATH [the options above but --scenario]\n"
+	       "       stopcock-sim control SOCKET COMMAND [ARG...]\n"
+	       "\n"
+	       "options:\n"
+	       "      --scenario FILE     beaker scenario (YAML): sample, titrant, electrode\n"
+	       "      --rack FILE         a rack of beakers (YAML) on a simulated sample changer\n"
+	       "      --changer-link PATH symlink created to the changer's pseudo-terminal\n"
+	       "                          (default: the pump link with \".changer\" added)\n"
+	       "      --modbus-tcp H:P    address of the simulated transmitter (Modbus TCP)\n"
+	       "      --pump-link PATH    symlink created to the burette's pseudo-terminal\n"
+	       "      --rtu-link PATH     symlink created to a Modbus RTU pseudo-terminal\n"
+	       "      --control SOCKET    Unix socket for sample changes and fault injection\n"
+	       "      --seed N            seed of the electrode noise (whole number, default 1)\n"
+	       "      --config-out FILE   write a stopcockd config for this bench to FILE\n"
+	       "      --state-dir DIR     state folder named in that config\n"
+	       "      --listen A:P        HTTP address named in that config\n"
+	       "  -V, --version           print the version and exit\n"
+	       "  -h, --help              print this help and exit\n"
+	       "\n"
+	       "exit status: 0 clean stop (SIGTERM/SIGINT), 1 runtime failure,\n"
+	       "             2 bad arguments or scenario\n");
 }
 
 static int parse_args(int argc, char **argv, opts_t *o)
@@ -70,6 +77,8 @@ static int parse_args(int argc, char **argv, opts_t *o)
 	    {"config-out", required_argument, NULL, 'o'},
 	    {"state-dir", required_argument, NULL, 'd'},
 	    {"listen", required_argument, NULL, 'l'},
+	    {"rack", required_argument, NULL, 'R'},
+	    {"changer-link", required_argument, NULL, 'C'},
 	    {"version", no_argument, NULL, 'V'},
 	    {"help", no_argument, NULL, 'h'},
 	    {NULL, 0, NULL, 0},
@@ -103,6 +112,12 @@ static int parse_args(int argc, char **argv, opts_t *o)
 		case 'l':
 			o->listen = optarg;
 			break;
+		case 'R':
+			o->rack = optarg;
+			break;
+		case 'C':
+			o->changer_link = optarg;
+			break;
 		case 'S': {
 			long long seed;
 			if (!parse_whole(optarg, 0, LLONG_MAX, &seed)) {
@@ -128,9 +143,18 @@ static int parse_args(int argc, char **argv, opts_t *o)
 		fprintf(stderr, "stopcock-sim: unexpected argument %s\n", argv[optind]);
 		return -1;
 	}
-	if (!o->scenario || !o->tcp || !o->pump_link) {
-		fprintf(stderr, "stopcock-sim: --scenario, --modbus-tcp and --pump-link are "
-		                "required\n");
+	if (o->scenario && o->rack) {
+		fprintf(stderr, "stopcock-sim: give --scenario or --rack, not both\n");
+		return -1;
+	}
+	if (o->changer_link && !o->rack) {
+		fprintf(stderr, "stopcock-sim: --changer-link goes with --rack\n");
+		return -1;
+	}
+	if (!(o->scenario || o->rack) || !o->tcp || !o->pump_link) {
+		fprintf(stderr,
+		        "stopcock-sim: --scenario (or --rack), --modbus-tcp and --pump-link "
+		        "are required\n");
 		return -1;
 	}
 	if (!o->config_out != !o->state_dir) {
@@ -200,6 +224,15 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	         cfg_abs);
 	if (write_token(token) != 0)
 		return -1;
+	char changer[PATH_MAX * 2 + 256] = "";
+	if (s->changer.present)
+		snprintf(changer, sizeof(changer),
+		         "    changer:\n"
+		         "      driver: changer-serial\n"
+		         "      port: %s\n"
+		         "      timeout_ms: 500\n"
+		         "      profile: %s/changers/sim.yaml\n",
+		         s->changer_link, data);
 	FILE *f = fopen(o->config_out, "w");
 	if (!f)
 		return -1;
@@ -246,36 +279,46 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	    "      unit: 1\n"
 	    "      coil: %d\n"
 	    "      speed_register: %d\n"
-	    "      rpm: 300\n",
+	    "      rpm: 300\n"
+	    "%s",
 	    cfg_abs, o->listen ? o->listen : "127.0.0.1:8470", token, dir_abs, data, pump_abs, data,
 	    s->scen.burette.capacity_ml, s->scen.burette.steps, s->tcp_host, s->tcp_port,
 	    SIM_REG_MV, SIM_REG_TEMP, SIM_REG_STATUS, SIM_REG_COUNTER, s->tcp_host, s->tcp_port,
-	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM);
+	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM, changer);
 	return fclose(f) == 0 ? 0 : -1;
 }
 
 /* Both ends answer: a status query over the pump pty, a register read over
  * TCP (and RTU). Tries for up to 5 s. */
+/* Does the line-protocol device at `port` answer `cmd` with a line that
+ * starts with "AT "? */
+static bool line_answers(const char *port, const char *cmd)
+{
+	link_serial_t l = {.baud = 9600, .parity = 'N', .stop_bits = 1};
+	snprintf(l.port, sizeof(l.port), "%s", port);
+	serial_t ser;
+	serial_init(&ser);
+	drv_err_t e;
+	char line[128];
+	bool ok = serial_open(&ser, &l, &e) == DRV_OK &&
+	          serial_write(&ser, cmd, strlen(cmd), clock_mono_s() + 0.5, &e) == DRV_OK &&
+	          serial_read_line(&ser, "\r\n", line, sizeof(line), clock_mono_s() + 0.5, &e) ==
+	              DRV_OK &&
+	          !strncmp(line, "AT ", 3);
+	serial_close(&ser);
+	return ok;
+}
+
 static int self_check(const sim_t *s, const char *pump_abs)
 {
 	double until = clock_mono_s() + 5.0;
 	bool pump_ok = false, tcp_ok = false, rtu_ok = !s->rtu_link[0];
-	while (clock_mono_s() < until && !(pump_ok && tcp_ok && rtu_ok)) {
-		if (!pump_ok) {
-			link_serial_t l = {.baud = 9600, .parity = 'N', .stop_bits = 1};
-			snprintf(l.port, sizeof(l.port), "%s", pump_abs);
-			serial_t ser;
-			serial_init(&ser);
-			drv_err_t e;
-			char line[128];
-			if (serial_open(&ser, &l, &e) == DRV_OK &&
-			    serial_write(&ser, "STAT\n", 5, clock_mono_s() + 0.5, &e) == DRV_OK &&
-			    serial_read_line(&ser, "\r\n", line, sizeof(line), clock_mono_s() + 0.5,
-			                     &e) == DRV_OK &&
-			    !strncmp(line, "AT ", 3))
-				pump_ok = true;
-			serial_close(&ser);
-		}
+	bool changer_ok = !s->changer.present;
+	while (clock_mono_s() < until && !(pump_ok && tcp_ok && rtu_ok && changer_ok)) {
+		if (!pump_ok)
+			pump_ok = line_answers(pump_abs, "STAT\n");
+		if (!changer_ok)
+			changer_ok = line_answers(s->changer_link, "WHERE\n");
 		for (int k = 0; k < 2; k++) {
 			if (k == 0 ? tcp_ok : rtu_ok)
 				continue;
@@ -297,7 +340,7 @@ static int self_check(const sim_t *s, const char *pump_abs)
 			}
 			modbus_free(ctx);
 		}
-		if (!(pump_ok && tcp_ok && rtu_ok)) {
+		if (!(pump_ok && tcp_ok && rtu_ok && changer_ok)) {
 			struct timespec ts = {0, 50000000L};
 			nanosleep(&ts, NULL);
 		}
@@ -308,7 +351,9 @@ static int self_check(const sim_t *s, const char *pump_abs)
 		fprintf(stderr, "stopcock-sim: the Modbus TCP server does not answer\n");
 	if (!rtu_ok)
 		fprintf(stderr, "stopcock-sim: the Modbus RTU pty does not answer\n");
-	return pump_ok && tcp_ok && rtu_ok ? 0 : -1;
+	if (!changer_ok)
+		fprintf(stderr, "stopcock-sim: the changer pty does not answer\n");
+	return pump_ok && tcp_ok && rtu_ok && changer_ok ? 0 : -1;
 }
 
 int main(int argc, char **argv)
@@ -321,19 +366,25 @@ int main(int argc, char **argv)
 		return 2;
 	}
 	chem_scenario_t scen;
+	static sim_rack_t rack;
 	diag_list_t d = DIAG_LIST_INIT;
-	if (scenario_load(o.scenario, &scen, &d) != 0) {
+	if (o.rack ? sim_rack_load(o.rack, &rack, &d) : scenario_load(o.scenario, &scen, &d)) {
 		diag_print(&d, stderr);
 		diag_free(&d);
 		return 2;
 	}
 	diag_free(&d);
+	if (o.rack) /* the burette and the electrode: the first beaker's scenario */
+		scen = *rack.scen[rack.first];
 
 	static sim_t s;
-	if (sim_init(&s, &scen, o.seed) != 0) {
+	if (sim_init(&s, &scen, o.seed) != 0 ||
+	    (o.rack && sim_changer_attach(&s, &rack, o.seed) != 0)) {
 		fprintf(stderr, "stopcock-sim: out of memory\n");
+		sim_rack_free(&rack);
 		return 1;
 	}
+	sim_rack_free(&rack);
 	int rc = 1;
 	int ctl_fd = -1;
 	char pump_abs[LINK_PATH_MAX];
@@ -345,8 +396,12 @@ int main(int argc, char **argv)
 	}
 	snprintf(s.tcp_host, sizeof(s.tcp_host), "%.*s", (int)(colon - o.tcp), o.tcp);
 	int want_port = atoi(colon + 1);
+	char changer_rel[LINK_PATH_MAX + 16];
+	snprintf(changer_rel, sizeof(changer_rel), "%s.changer", o.pump_link);
 	if (abs_path(o.pump_link, pump_abs, sizeof(pump_abs)) != 0 ||
-	    (o.rtu_link && abs_path(o.rtu_link, s.rtu_link, sizeof(s.rtu_link)) != 0)) {
+	    (o.rtu_link && abs_path(o.rtu_link, s.rtu_link, sizeof(s.rtu_link)) != 0) ||
+	    (o.rack && abs_path(o.changer_link ? o.changer_link : changer_rel, s.changer_link,
+	                        sizeof(s.changer_link)) != 0)) {
 		fprintf(stderr, "stopcock-sim: the directory of a link path does not exist\n");
 		sim_free(&s);
 		return 2;
@@ -374,13 +429,15 @@ int main(int argc, char **argv)
 	pthread_sigmask(SIG_BLOCK, &set, NULL);
 	signal(SIGPIPE, SIG_IGN);
 
-	pthread_t th[4];
+	pthread_t th[5];
 	int nth = 0;
 	sim_control_arg_t ca = {&s, ctl_fd};
 	pthread_create(&th[nth++], NULL, sim_pump_thread, &s);
 	pthread_create(&th[nth++], NULL, sim_tcp_thread, &s);
 	if (o.rtu_link)
 		pthread_create(&th[nth++], NULL, sim_rtu_thread, &s);
+	if (o.rack)
+		pthread_create(&th[nth++], NULL, sim_changer_thread, &s);
 	if (ctl_fd >= 0)
 		pthread_create(&th[nth++], NULL, sim_control_thread, &ca);
 
@@ -391,8 +448,9 @@ int main(int argc, char **argv)
 		        strerror(errno));
 		goto out;
 	}
-	fprintf(stderr, "stopcock-sim: pump on %s, Modbus TCP on %s:%d%s%s\n", pump_abs, s.tcp_host,
-	        s.tcp_port, o.rtu_link ? ", RTU on " : "", o.rtu_link ? s.rtu_link : "");
+	fprintf(stderr, "stopcock-sim: pump on %s, Modbus TCP on %s:%d%s%s%s%s\n", pump_abs,
+	        s.tcp_host, s.tcp_port, o.rtu_link ? ", RTU on " : "", o.rtu_link ? s.rtu_link : "",
+	        o.rack ? ", changer on " : "", o.rack ? s.changer_link : "");
 	printf("ready\n");
 	fflush(stdout);
 	int sig;

@@ -1,13 +1,16 @@
-/* fuzz_pump.c: libFuzzer target for the pump's byte path: the framer
+/* fuzz_pump.c: libFuzzer target for the line devices' byte path: the framer
  * (serial_find_line) over the raw bytes, then the reply classifier
  * (pump_parse_reply) on every line, with both shipped pump profiles
- * (config/pumps; the fuzzer runs from the repository root). */
+ * (config/pumps; the fuzzer runs from the repository root); and the same
+ * lines through the changer's classifier (changer_parse_reply, with
+ * config/changers/sim.yaml), whose {lift} field the pump's lacks. */
 #include <stddef.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
+#include "changer_profile.h"
 #include "diag.h"
 #include "pump_profile.h"
 #include "serial.h"
@@ -15,6 +18,7 @@
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
 static pump_profile_t profiles[2];
+static changer_profile_t changer;
 
 static void load_profiles(void)
 {
@@ -29,6 +33,12 @@ static void load_profiles(void)
 		}
 		diag_free(&d);
 	}
+	diag_list_t d = DIAG_LIST_INIT;
+	if (changer_profile_load("config/changers/sim.yaml", &changer, &d) != 0) {
+		diag_print(&d, stderr);
+		exit(1);
+	}
+	diag_free(&d);
 }
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
@@ -65,6 +75,9 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 		memcpy(line, buf + off, take);
 		line[take] = '\0';
 		if (pump_parse_reply(p, line, &r) != r.kind && r.kind != PUMP_REPLY_UNKNOWN)
+			abort();
+		changer_reply_t cr;
+		if (changer_parse_reply(&changer, line, &cr) != cr.kind)
 			abort();
 		off += used;
 	}
