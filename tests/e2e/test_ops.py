@@ -68,7 +68,7 @@ def expected_files():
         "usr/lib/sysusers.d/stopcock.conf": (SYSUSERS, 0o644),
         "usr/lib/tmpfiles.d/stopcock.conf": (TMPFILES, 0o644),
     }
-    for kind in ("methods", "pumps", "scenarios"):
+    for kind in ("methods", "pumps", "changers", "scenarios"):
         for f in sorted((ROOT / "config" / kind).glob("*.yaml")):
             exp[f"usr/share/stopcock/{kind}/{f.name}"] = (f, 0o644)
     example = ROOT / "config" / "stopcockd.yaml"
@@ -92,7 +92,7 @@ def test_install_tree_is_complete(installed):
     exp = expected_files()
     # Every kind of thing the issue lists is there at all (an empty glob in
     # config/ would otherwise pass silently).
-    for kind in ("methods", "pumps", "scenarios", "www"):
+    for kind in ("methods", "pumps", "changers", "scenarios", "www"):
         assert any(k.startswith(f"usr/share/stopcock/{kind}/") for k in exp), \
             f"nothing to install in usr/share/stopcock/{kind}/"
     assert len(MAN_PAGES) == 5, [p.name for p in MAN_PAGES]
