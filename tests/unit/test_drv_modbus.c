@@ -1,7 +1,7 @@
 /* Modbus register decoding with explicit word order, and the register-map
- * schema. 0x41480000 is IEEE 754 binary32 for 12.5 (IEEE 754-2019, §3.4: the
- * libmodbus 3.1.6 float helpers of Debian 12 disagree with their own
- * documentation on word order, hence our own decoding; docs/drivers.md). */
+ * schema. 0x41480000 is IEEE 754 binary32 for 12.5 (IEEE 754-2019, §3.4).
+ * The word order is a register map's setting (docs/drivers.md), decoded
+ * here explicitly rather than by libmodbus's float helpers. */
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
