@@ -340,7 +340,10 @@ def test_whole_run_wait_and_show(bench, finished):
     run, w = finished
     rec = bench.get(f"/v1/runs/{run}")
     assert rec["state"] == "finished", (w.stderr, rec)
-    assert w.returncode == 0, w.stderr
+    # wait exits 1 for a finished run whose results are doubtful (the quick
+    # method's coarse steps can leave too few points on the jump), else 0.
+    doubtful = any(r["accept"] == "doubtful" for r in rec["results"])
+    assert w.returncode == (1 if doubtful else 0), (w.stderr, rec["endpoints"])
     # progress: one line per change when stderr is not a terminal
     progress = [l for l in w.stderr.splitlines() if l.startswith(f"run {run} ")]
     assert len(progress) >= 3, w.stderr

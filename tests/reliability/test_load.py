@@ -96,8 +96,15 @@ def test_reads_under_load_change_nothing(bench, tmp_path, request):
     assert w["non2xx"] == 0, out
     for rid, rec, _ in runs:
         assert rec["state"] == "finished", rec
+        ep = rec["endpoints"][0]
+        if ep.get("doubt"):
+            # This quick method's coarse steps can leave too few points on
+            # the jump; the engine then says so and no result reads as a
+            # pass (docs/engine.md, "Doubtful endpoints"), whatever the load.
+            assert rec["results"] and all(r["accept"] == "doubtful" for r in rec["results"]), rec
+            continue
         # The same endpoint: within the run-to-run scatter of the unloaded
         # bench (noise and dose pattern give ~0.04 mL, tests/reliability/test_faults.py).
-        assert rec["endpoints"][0]["volume_ml"] == pytest.approx(v0, abs=0.06)
+        assert ep["volume_ml"] == pytest.approx(v0, abs=0.06)
         assert rec["endpoints"][0]["volume_ml"] == pytest.approx(db.EXPECTED_ML, rel=0.03)
     assert bench.get("/v1/health")["status"] == "ok"
