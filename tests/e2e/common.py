@@ -4,6 +4,7 @@ puts tests/e2e on the import path)."""
 import os
 import pathlib
 import socket
+import subprocess
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 
@@ -26,3 +27,19 @@ def free_port():
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
+
+
+def run(cmd, **kw):
+    """subprocess.run with text output captured and a 120 s timeout."""
+    kw.setdefault("capture_output", True)
+    kw.setdefault("text", True)
+    kw.setdefault("timeout", 120)
+    return subprocess.run(cmd, **kw)
+
+
+def make_install(dest):
+    """`make install DESTDIR=dest PREFIX=/usr` of the build under test."""
+    r = run(["make", "--no-print-directory", f"BUILD={build_dir()}", "install",
+             f"DESTDIR={dest}", "PREFIX=/usr"], cwd=ROOT, timeout=600)
+    assert r.returncode == 0, f"make install failed:\n{r.stdout}\n{r.stderr}"
+    return dest

@@ -61,10 +61,12 @@ class Bench:
         self.start_daemon()
 
     # ---- processes ----
-    def start_daemon(self):
-        self.daemon = subprocess.Popen([binary("stopcockd"), "-c", str(self.config)],
+    def start_daemon(self, wrap=(), wait_s=15, poll_s=0.05):
+        """Start stopcockd (under `wrap`, e.g. valgrind, given `wait_s` to
+        answer) and wait until its station has read its devices."""
+        self.daemon = subprocess.Popen([*wrap, binary("stopcockd"), "-c", str(self.config)],
                                        stdout=self.daemon_log, stderr=self.daemon_log)
-        deadline = time.monotonic() + 15
+        deadline = time.monotonic() + wait_s
         while True:
             try:
                 if self.request("GET", "/v1/health").status == 200:
@@ -72,13 +74,13 @@ class Bench:
             except OSError:
                 pass
             assert self.daemon.poll() is None, f"stopcockd exited; see {self.tmp}/daemon.log"
-            assert time.monotonic() < deadline, "no /v1/health after 15 s"
-            time.sleep(0.05)
+            assert time.monotonic() < deadline, f"no /v1/health after {wait_s} s"
+            time.sleep(poll_s)
         # Until the station has read its devices once it says "offline".
-        deadline = time.monotonic() + 15
+        deadline = time.monotonic() + wait_s
         while self.station()["state"] == "offline":
-            assert time.monotonic() < deadline, "station still offline after 15 s"
-            time.sleep(0.05)
+            assert time.monotonic() < deadline, f"station still offline after {wait_s} s"
+            time.sleep(poll_s)
 
     def resume(self, name="sim1"):
         """An operator lets a station held after a restart start again

@@ -18,25 +18,14 @@ import urllib.request
 from pathlib import Path
 
 import pytest
-from common import build_dir, free_port  # noqa: E402
+from common import build_dir, free_port, make_install, run  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def run(cmd, **kw):
-    kw.setdefault("capture_output", True)
-    kw.setdefault("text", True)
-    kw.setdefault("timeout", 120)
-    return subprocess.run(cmd, **kw)
-
-
 @pytest.fixture(scope="module")
 def dest(tmp_path_factory):
-    d = tmp_path_factory.mktemp("destdir")
-    r = run(["make", "--no-print-directory", f"BUILD={build_dir()}", "install",
-             f"DESTDIR={d}", "PREFIX=/usr"], cwd=ROOT, timeout=600)
-    assert r.returncode == 0, f"make install failed:\n{r.stdout}\n{r.stderr}"
-    return d
+    return make_install(tmp_path_factory.mktemp("destdir"))
 
 
 def token_command(dest):

@@ -12,14 +12,13 @@ import re
 import shutil
 import signal
 import socket
-import subprocess
 import time
 import urllib.error
 import urllib.request
 from pathlib import Path
 
 import pytest
-from common import build_dir  # noqa: E402
+from common import build_dir, make_install, run  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]
 UNIT = ROOT / "systemd" / "stopcockd.service"
@@ -38,24 +37,13 @@ def need_tool(name, package):
     return path
 
 
-def run(cmd, **kw):
-    kw.setdefault("capture_output", True)
-    kw.setdefault("text", True)
-    kw.setdefault("timeout", 120)
-    return subprocess.run(cmd, **kw)
-
-
 # ---------------------------------------------------------------- install
 
 
 @pytest.fixture(scope="module")
 def installed(tmp_path_factory):
     """`make install DESTDIR=... PREFIX=/usr` into a fresh directory."""
-    dest = tmp_path_factory.mktemp("destdir")
-    r = run(["make", "--no-print-directory", f"BUILD={build_dir()}", "install",
-             f"DESTDIR={dest}", "PREFIX=/usr"], cwd=ROOT, timeout=600)
-    assert r.returncode == 0, f"make install failed:\n{r.stdout}\n{r.stderr}"
-    return dest
+    return make_install(tmp_path_factory.mktemp("destdir"))
 
 
 def expected_files():

@@ -220,24 +220,8 @@ class Bench(db.Bench):
             self._rewire()
         if not self.daemon_wrap:
             return super().start_daemon()
-        # Same as daemon_bench.Bench.start_daemon, under a wrapper (valgrind).
-        import subprocess
-        self.daemon = subprocess.Popen(self.daemon_wrap + [db.binary("stopcockd"), "-c",
-                                                           str(self.config)],
-                                       stdout=self.daemon_log, stderr=self.daemon_log)
-        deadline = time.monotonic() + 120
-        while True:
-            try:
-                if self.request("GET", "/v1/health").status == 200:
-                    break
-            except OSError:
-                pass
-            assert self.daemon.poll() is None, f"stopcockd exited; see {self.tmp}/daemon.log"
-            assert time.monotonic() < deadline, "no /v1/health after 120 s"
-            time.sleep(0.2)
-        while self.station()["state"] == "offline":
-            assert time.monotonic() < deadline, "station still offline"
-            time.sleep(0.2)
+        # Under a wrapper (valgrind) the daemon is slower to answer.
+        return super().start_daemon(wrap=self.daemon_wrap, wait_s=120, poll_s=0.2)
 
     def close(self):
         try:

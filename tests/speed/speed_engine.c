@@ -204,6 +204,21 @@ static double volume_at_ph(const chem_scenario_t *s, double ph, double lo, doubl
 	return (lo + hi) / 2;
 }
 
+/* The speed method and scenario named `name`; false (and the errors
+ * printed) when either does not load. */
+static bool load_pair(const char *name, method_t *m, chem_scenario_t *s)
+{
+	char mp[256], sp[256];
+	snprintf(mp, sizeof mp, "tests/speed/methods/%s.yaml", name);
+	snprintf(sp, sizeof sp, "tests/speed/scenarios/%s.yaml", name);
+	diag_list_t d = DIAG_LIST_INIT;
+	bool ok = method_load(mp, NULL, m, &d) == 0 && scenario_load(sp, s, &d) == 0;
+	if (!ok)
+		diag_print(&d, stdout);
+	diag_free(&d);
+	return ok;
+}
+
 /* P-then-T alkalinity (ISO 9963-1 on one aliquot, a detect list of two
  * targets): the error of each endpoint against the volume at its target pH,
  * over 20 seeds, median and worst. */
@@ -211,14 +226,8 @@ static void p_then_t_row(void)
 {
 	method_t m;
 	chem_scenario_t s;
-	diag_list_t d = DIAG_LIST_INIT;
-	if (method_load("tests/speed/methods/p-then-t.yaml", NULL, &m, &d) != 0 ||
-	    scenario_load("tests/speed/scenarios/p-then-t.yaml", &s, &d) != 0) {
-		diag_print(&d, stdout);
-		diag_free(&d);
+	if (!load_pair("p-then-t", &m, &s))
 		return;
-	}
-	diag_free(&d);
 	enum { SEEDS = 20 };
 	const double target[2] = {8.3, 4.5};
 	double ref[2], err[2][SEEDS], adds[SEEDS], dur[SEEDS];
@@ -259,21 +268,6 @@ static void p_then_t_row(void)
 	}
 	printf("%-12s   median additions/endpoint %.1f, simulated %.0f s/endpoint\n", "",
 	       speed_median(adds, SEEDS), speed_median(dur, SEEDS));
-}
-
-/* The bench method and scenario named `name`; false (and the errors
- * printed) when either does not load. */
-static bool load_pair(const char *name, method_t *m, chem_scenario_t *s)
-{
-	char mp[256], sp[256];
-	snprintf(mp, sizeof mp, "tests/speed/methods/%s.yaml", name);
-	snprintf(sp, sizeof sp, "tests/speed/scenarios/%s.yaml", name);
-	diag_list_t d = DIAG_LIST_INIT;
-	bool ok = method_load(mp, NULL, m, &d) == 0 && scenario_load(sp, s, &d) == 0;
-	if (!ok)
-		diag_print(&d, stdout);
-	diag_free(&d);
-	return ok;
 }
 
 SPEED(engine_panel)
