@@ -62,6 +62,14 @@ static int bracket_at(const engine_point_t *pts, int n, double v_ml)
 	return 0;
 }
 
+double endpoint_lag_ml(const engine_point_t *pts, int n, int i)
+{
+	if (i < 1 || i >= n || pts[i].settled)
+		return 0;
+	double h = pts[i].volume_ml - pts[i - 1].volume_ml;
+	return h > 0 ? h / sqrt(3.0) : 0;
+}
+
 /* Size of that addition, mL (0 outside the curve). */
 static double step_at(const engine_point_t *pts, int n, double v_ml)
 {
@@ -499,6 +507,17 @@ double endpoint_sigma_signal(const method_t *m)
 	return fmax(m->signal == SIGNAL_MV ? 0.1 : 0.002, m->still_within / 2);
 }
 
+/* The lag of the points around the addition ending at point i (it, the
+ * one before and the one after), mL: the largest (endpoint_lag_ml). */
+static double bracket_lag_ml(const engine_point_t *pts, int n, int i)
+{
+	double lag = 0;
+	for (int j = i - 1; j <= i + 1; j++)
+		if (j >= 0 && j < n)
+			lag = fmax(lag, endpoint_lag_ml(pts, n, j));
+	return lag;
+}
+
 /* u of a first-derivative volume v, mL: the peak lies somewhere on the
  * addition that brackets v (rectangular over that step h: h/sqrt 12; the
  * parabola through the top narrows it, so this is an upper figure where the
@@ -513,7 +532,8 @@ static double deriv_u(const method_t *m, const engine_point_t *pts, int n, doubl
 	double g = fmax(fabs(pts[i].dpdv), fabs(pts[i - 1].dpdv));
 	g = fmax(g, h > 0 ? fabs(pts[i].signal - pts[i - 1].signal) / h : 0);
 	double u_noise = g > 0 ? endpoint_sigma_signal(m) / g : 0;
-	return sqrt(h * h / 12 + u_noise * u_noise);
+	double u_lag = bracket_lag_ml(pts, n, i);
+	return sqrt(h * h / 12 + u_noise * u_noise + u_lag * u_lag);
 }
 
 /* V at signal t on the quadratic V(S) through points a, b, c (inverse
@@ -588,7 +608,8 @@ static double target_u(const method_t *m, const engine_point_t *pts, int n, doub
 		}
 	}
 	bend = fmin(bend, h / sqrt(3.0));
-	return sqrt(u_band * u_band + u_noise * u_noise + bend * bend);
+	double u_lag = bracket_lag_ml(pts, n, i);
+	return sqrt(u_band * u_band + u_noise * u_noise + bend * bend + u_lag * u_lag);
 }
 
 void endpoint_assess(const method_t *m, const engine_point_t *pts, int n, double quantum_ml,

@@ -34,6 +34,15 @@ double endpoint_interp(const engine_point_t *pts, int n, double v_ml, int field)
  * first derivative, signal units per mL. */
 void endpoint_central_dpdv(engine_point_t *pts, int n);
 
+/* How far, in volume, point i's reading may stand from its settled value
+ * because it was taken before the electrode was still (settled false: the
+ * still rule's wait_max_s ran out), mL: the electrode still showed a mix of
+ * this addition's signal and the one before, which on a curve's steep part
+ * reads like a point anywhere on the addition, so the addition's size h
+ * taken as rectangular, h/sqrt 3 (docs/engine.md, "Points taken
+ * unsettled"). 0 for a settled point and the first. */
+double endpoint_lag_ml(const engine_point_t *pts, int n, int i);
+
 /* Reading noise assumed for a settled point, signal units: half the
  * settling band, never below the meter's resolution. */
 double endpoint_sigma_signal(const method_t *m);

@@ -516,13 +516,17 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		return 1;
 	double *v = buf, *x = buf + n, *w = buf + 2 * n, *r = buf + 3 * n, *r2 = r + n + 2;
 	double *jac = r2 + n + 2;
+	double *lag = malloc((size_t)n * sizeof *lag);
 	int k = 0;
+	if (!lag)
+		goto out;
 	for (int i = 0; i < n; i++) {
 		double xi = 7.0 + (pts[i].signal - c->sig7) / c->sig_per_ph;
 		if (!isfinite(xi))
 			continue;
 		v[k] = pts[i].volume_ml;
 		x[k] = xi;
+		lag[k] = endpoint_lag_ml(pts, n, i);
 		k++;
 	}
 	if (k < 2 * ne + 4)
@@ -533,7 +537,8 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		int a = i > 0 ? i - 1 : i, b = i < k - 1 ? i + 1 : i;
 		double dx = fabs(x[b] - x[a]);
 		double dvdph = dx > 1e-9 ? (v[b] - v[a]) / dx : 1e3;
-		double s2 = dvdph * dvdph * sig_ph * sig_ph + c->sigma_ml * c->sigma_ml;
+		double s2 =
+		    dvdph * dvdph * sig_ph * sig_ph + c->sigma_ml * c->sigma_ml + lag[i] * lag[i];
 		w[i] = 1.0 / sqrt(s2);
 	}
 
@@ -725,6 +730,7 @@ int modelfit_refine(const modelfit_ctx_t *c, const engine_point_t *pts, int n,
 		}
 	}
 out:
+	free(lag);
 	free(scratch);
 	free(buf);
 	return rc;
