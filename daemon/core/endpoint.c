@@ -140,9 +140,14 @@ static double refine_peak(const seg_t *sg, int m, int k)
 		lo--;
 	while (hi < m - 1 && sg[hi + 1].g >= 0.6 * gk && sg[hi + 1].g > 0)
 		hi++;
+	/* A next segment far wider than the peak's (guided dosing's one
+	 * addition past the jump; adaptive additions grow at most 3x) averages
+	 * the slope over a span the peak's shape does not reach: its mean is no
+	 * sample of the bell at its middle, and a parabola through it pulls
+	 * the vertex out along that span. */
 	if (lo == k && k > 0 && sg[k - 1].g > 0)
 		lo = k - 1;
-	if (hi == k && k < m - 1 && sg[k + 1].g > 0)
+	if (hi == k && k < m - 1 && sg[k + 1].g > 0 && sg[k + 1].dv <= 4 * sg[k].dv)
 		hi = k + 1;
 	if (hi - lo < 2)
 		return sg[k].vm;

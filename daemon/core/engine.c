@@ -70,6 +70,9 @@ struct engine {
 	int n_ep;
 	engine_endpoint_t ep[METHOD_MAX_ENDPOINTS];
 	bool all_found;
+	/* guided: the volume of the point found past the last jump, from which
+	 * one addition of past_endpoint_ml went (past_last_jump); 0: none */
+	double past_from_ml;
 	bool target_recheck;  /* a target point was read again once (per criterion) */
 	double stop_after_ml; /* once all endpoints are found: dose up to here */
 
@@ -698,10 +701,11 @@ static double predicted_ve(const engine_t *e, int dir)
  * S = p + amp ln(V + b) - amp ln(Ve - V), with b = 0 and b = V0 (the
  * beaker's start volume). For each b from 0 to 2 V0 the last two points
  * fix Ve; the b whose curve also passes the third point from the end (within
- * a tenth of the rise) wins. NAN when none does: predicted_ve() stands. */
-static double predicted_ve3(const engine_t *e, int dir)
+ * a tenth of the rise) wins; the points are the first n of the run (the
+latest, or those before a point to be judged). NAN when none does:
+predicted_ve() stands. */
+static double predicted_ve3(const engine_t *e, int dir, int n)
 {
-	int n = e->n_pts;
 	if (n < 3 || dir == 0)
 		return NAN;
 	const engine_point_t *a = &e->pts[n - 3], *b = &e->pts[n - 2], *c = &e->pts[n - 1];
@@ -746,6 +750,41 @@ static bool jump_seen(const engine_t *e)
 	return smax >= 2 * smin;
 }
 
+/* Guided: whether the last point lies past the jump of the last endpoint
+ * the method asks for, so the points already resolve its inflection and the
+ * one addition of past_endpoint_ml can confirm it (the derivative falls
+ * behind the peak over that addition) instead of a point just past the jump
+ * and then that addition. It does when the equivalence volume the three
+ * points before the last predict lies between the last two, nearer the one
+ * before (the last addition crossed it), and the last addition moved the
+ * signal by at least half of min_jump and more than the one before (it was
+ * on the jump). Inflections only: a target is read where it is, and Gran's
+ * line wants no more than the derivative's endpoint. */
+static bool past_last_jump(const engine_t *e)
+{
+	const method_t *m = &e->m;
+	int n = e->n_pts, dir = run_dir(e);
+	if (m->detect != DETECT_INFLECTION || e->crit != e->n_crit - 1 || n < 5 || dir == 0 ||
+	    !(m->past_endpoint_ml > 0))
+		return false;
+	if (e->n_ep - e->n_done != e->crits[e->crit].count - 1)
+		return false;
+	const engine_point_t *a = &e->pts[n - 3], *b = &e->pts[n - 2], *c = &e->pts[n - 1];
+	double rise = (c->signal - b->signal) * dir, before = (b->signal - a->signal) * dir;
+	if (!(rise >= m->min_jump / 2) || !(rise > before))
+		return false;
+	double ve = predicted_ve3(e, dir, n - 1);
+	if (!(isfinite(ve) && ve > b->volume_ml && c->volume_ml - ve > ve - b->volume_ml))
+		return false;
+	/* ... and the jump is resolved already: three points within two
+	 * decades (2 pH, 2 Nernst slopes) of the middle of the last rise. */
+	double mid = (b->signal + c->signal) / 2, band = 2 * M_LN10 * decade_amp(e);
+	int on_jump = 0;
+	for (int i = 0; i < n; i++)
+		on_jump += fabs(e->pts[i].signal - mid) <= band;
+	return on_jump >= 3;
+}
+
 /* Guided: the share of the way to the predicted equivalence point one
  * addition covers. */
 #define PLAN_SHARE 0.9
@@ -756,6 +795,7 @@ static double next_dose_ml(const engine_t *e)
 	double dose;
 	int n = e->n_pts;
 	bool guided = m->dosing == DOSING_GUIDED;
+	bool past = guided && past_last_jump(e);
 	if (m->dosing == DOSING_CONSTANT) {
 		dose = m->dose_ml;
 	} else {
@@ -791,7 +831,7 @@ static double next_dose_ml(const engine_t *e)
 			 * early, so the next point is still before it); where the
 			 * rules above allow more, they hold. A target is never
 			 * approached faster than the rules above allow. */
-			double ve = predicted_ve3(e, run_dir(e));
+			double ve = predicted_ve3(e, run_dir(e), n);
 			if (!isfinite(ve))
 				ve = predicted_ve(e, run_dir(e));
 			if (!e->all_found && isfinite(ve)) {
@@ -799,14 +839,17 @@ static double next_dose_ml(const engine_t *e)
 				dose = m->detect == DETECT_TARGET ? fmin(dose, plan)
 				                                  : fmax(dose, plan);
 			}
+			if (past)
+				dose = fmax(dose, m->past_endpoint_ml);
 			dose = guided_after(e, dose);
 		}
 		/* Never more than three times the last addition: a flat stretch
 		 * read through noise must not launch a jump over the endpoint.
 		 * Guided: eight times while no slope has yet risen (the first
 		 * additions reach full size at once), and no limit past the last
-		 * endpoint (only the stop volume is ahead). */
-		if (n >= 2 && !(guided && e->all_found)) {
+		 * endpoint or past the last jump (only the stop volume is
+		 * ahead). */
+		if (n >= 2 && !(guided && e->all_found) && !past) {
 			double last = e->pts[n - 1].volume_ml - e->pts[n - 2].volume_ml;
 			double grow = guided && !jump_seen(e) ? 8 : 3;
 			if (last > 0 && dose > grow * last)
@@ -900,6 +943,13 @@ static engine_action_t after_point(engine_t *e)
 		if (++e->crit >= e->n_crit) {
 			e->all_found = true;
 			e->stop_after_ml = e->ep[e->n_done - 1].volume_ml + m->past_endpoint_ml;
+			/* That addition already went past_endpoint_ml beyond a
+			 * point past the jump: the derivative's parabola over
+			 * it may put the endpoint a little later, but the
+			 * inflection lies before that point. */
+			if (e->past_from_ml > 0)
+				e->stop_after_ml =
+				    fmin(e->stop_after_ml, e->past_from_ml + m->past_endpoint_ml);
 		} else {
 			/* the next criterion: dosing and the checks now see it */
 			method_for_criterion(&e->full, &e->crits[e->crit], &e->m);
@@ -926,6 +976,8 @@ static engine_action_t after_point(engine_t *e)
 		if (e->predose_left_ml >= e->quantum_ml)
 			return predose_chunk(e);
 	}
+	if (m->dosing == DOSING_GUIDED && past_last_jump(e))
+		e->past_from_ml = last->volume_ml;
 	return request_dose(e, next_dose_ml(e));
 }
 

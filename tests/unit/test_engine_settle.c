@@ -250,3 +250,45 @@ TEST(engine_guided_resolves_jump_coarse_aim)
 		engine_free(e);
 	}
 }
+
+/* Guided dosing, past the jump: once a point lies past the predicted
+ * equivalence volume with the jump resolved (three points within 2 pH of
+ * its middle), the addition of past_endpoint_ml goes at once and confirms
+ * the inflection; no point is spent just past the jump to see the
+ * derivative fall. Vinegar, 10.000 mL: one point at most between 10.000 and
+ * 10.250 mL (before: two, the crossing and the confirmation), the endpoint
+ * within 0.05 %, the derivative's own volume within 0.02 mL (the wide last
+ * addition does not pull its peak out), and the run stops right after. */
+TEST(engine_guided_past_jump_in_one_addition)
+{
+	method_t m;
+	chem_scenario_t s;
+	REQUIRE(fixture_method(
+	    HEAD_PH "dosing: {mode: guided, step_aim: 0.5, dose_min_ml: 0.02, dose_max_ml: 1.0}\n"
+	            "settle: {wait_min_s: 1, wait_max_s: 20, still_within: 0.02, still_for_s: "
+	            "1}\n" STOP_INFL,
+	    &m));
+	REQUIRE(fixture_scenario(VINEGAR("1.5", "0.15"), &s));
+	int shortcut = 0;
+	for (unsigned long long seed = 1; seed <= 6; seed++) {
+		simrun_opts_t o = {.seed = 60 + seed, .burette_start_ml = -1};
+		simrun_out_t out;
+		engine_t *e = simrun_run(&m, &s, &o, &out);
+		REQUIRE(e && engine_n_endpoints(e) == 1);
+		int n = engine_n_points(e), just_past = 0;
+		for (int i = 0; i < n; i++) {
+			double v = engine_point(e, i)->volume_ml;
+			just_past += v > 10.000 && v < 10.250;
+		}
+		shortcut += just_past <= 1;
+		const engine_endpoint_t *ep = engine_endpoint(e, 0);
+		CHECK_NEAR(ep->volume_ml, 10.000, 0.005);
+		CHECK_NEAR(ep->deriv_ml, 10.000, 0.02);
+		CHECK_STR(ep->doubt, "");
+		/* stopped at past_endpoint_ml beyond the point past the jump */
+		CHECK(engine_point(e, n - 1)->volume_ml >= ep->volume_ml + 0.5);
+		CHECK_STR(engine_stop_name(engine_stop_reason(e)), "endpoints_found");
+		engine_free(e);
+	}
+	CHECK(shortcut >= 4);
+}
