@@ -1115,6 +1115,24 @@ static void note_noise(engine_t *e, const settlefit_t *fit)
 	         need, u);
 }
 
+/* The tolerance of the extrapolated settled value, signal units: the
+ * method's band; in guided dosing on a large step (an inflection's jump) a
+ * share STEP_SHARE of the step the point makes, when that is more. A point
+ * on the steep part locates a volume through its step, not through its
+ * level: an error of 2 % of the step moves it by about 2 % of its addition
+ * along the curve, and the run's jump additions are its smallest. */
+#define STEP_SHARE 0.03
+
+static double extrap_tolerance(const engine_t *e, const settlefit_t *fit)
+{
+	double tol = e->m.still_within;
+	if (e->m.dosing != DOSING_GUIDED || e->m.detect == DETECT_TARGET || e->n_pts < 1 ||
+	    !fit->ok || !isfinite(fit->y_inf))
+		return tol;
+	double step = fabs(fit->y_inf - e->pts[e->n_pts - 1].signal);
+	return fmax(tol, STEP_SHARE * step);
+}
+
 /* A reading while settling: accept a point when settled by the
  * method's rule, or at wait_max_s. */
 static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
@@ -1154,7 +1172,8 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 			 * the run's points have fixed the electrode's time
 			 * constant, under that constant. */
 			fit = settle_fit(e, true);
-			if (fit.ok && fit.half <= m->still_within)
+			double tol = extrap_tolerance(e, &fit);
+			if (fit.ok && fit.half <= tol)
 				accept = settled = use_fit = true;
 			/* A large approach can fix its own settled value better
 			 * than the run's range of tau allows: the readings' own
@@ -1164,7 +1183,7 @@ static engine_action_t on_reading(engine_t *e, const engine_event_t *ev)
 				settlefit_t own = settlefit_fit(e->win_t + f0, e->win_s + f0, nfit,
 				                                assumed_noise(e), e->tau_lo_s / 2,
 				                                e->tau_hi_s * 2, false);
-				if (own.ok && own.half <= m->still_within) {
+				if (own.ok && own.half <= extrap_tolerance(e, &own)) {
 					fit = own;
 					accept = settled = use_fit = true;
 				}
