@@ -378,13 +378,17 @@ typedef struct mode {
 	const char *name;
 	method_dosing_t dosing;
 	method_settle_rule_t rule;
+	/* this panel's medians before the last round of issue 21 (the guided
+	 * addition past the jump, the step tolerance): additions/endpoint,
+	 * simulated s/endpoint at tau 1.5 s */
+	double adds_before, dur_before_s;
 } run_mode_t;
 
 static const run_mode_t modes[] = {
-    {"adaptive/still", DOSING_ADAPTIVE, SETTLE_STILL},
-    {"guided/still", DOSING_GUIDED, SETTLE_STILL},
-    {"adaptive/extrap", DOSING_ADAPTIVE, SETTLE_EXTRAPOLATE},
-    {"guided/extrap", DOSING_GUIDED, SETTLE_EXTRAPOLATE},
+    {"adaptive/still", DOSING_ADAPTIVE, SETTLE_STILL, 22.0, 96},
+    {"guided/still", DOSING_GUIDED, SETTLE_STILL, 16.0, 78},
+    {"adaptive/extrap", DOSING_ADAPTIVE, SETTLE_EXTRAPOLATE, 22.0, 72},
+    {"guided/extrap", DOSING_GUIDED, SETTLE_EXTRAPOLATE, 16.0, 62},
 };
 #define N_MODES (int)(sizeof modes / sizeof modes[0])
 
@@ -426,6 +430,7 @@ SPEED(engine_modes)
 	printf("%-12s %-16s %9s %9s %7s %8s %8s %7s\n", "scenario", "dosing/settle", "med_err_%",
 	       "worst_%", "adds/e", "sim_s/e", "cpu_us/p", "missed");
 	double med_adds[N_MODES][N_SCN], med_dur[N_MODES][N_SCN], med_err[N_MODES][N_SCN];
+	double single_adds[N_MODES][N_SCN]; /* single-endpoint rows only, else NaN */
 	bool err_ok[N_MODES], cpu_ok[N_MODES];
 	for (int k = 0; k < N_MODES; k++)
 		err_ok[k] = cpu_ok[k] = true;
@@ -435,6 +440,8 @@ SPEED(engine_modes)
 		if (!load_pair(scenarios[i], &m, &s)) {
 			for (int k = 0; k < N_MODES; k++)
 				med_adds[k][i] = med_dur[k][i] = med_err[k][i] = NAN;
+			for (int k = 0; k < N_MODES; k++)
+				single_adds[k][i] = NAN;
 			continue;
 		}
 		bool tau15 = fabs(s.electrode.tau_s - 1.5) < 1e-9;
@@ -447,6 +454,7 @@ SPEED(engine_modes)
 			       modes[k].name, a.med_err, a.worst_err, a.med_adds, a.med_dur, a.cpu,
 			       a.missed);
 			med_adds[k][i] = a.med_adds;
+			single_adds[k][i] = m.count == 1 ? a.med_adds : NAN;
 			med_dur[k][i] = tau15 ? a.med_dur : NAN;
 			med_err[k][i] = a.med_err;
 			if (m.count == 1 && !(a.med_err <= 0.01 && a.worst_err <= 0.05))
@@ -456,16 +464,19 @@ SPEED(engine_modes)
 		}
 	}
 	for (int k = 0; k < N_MODES; k++) {
-		double ma = speed_median(med_adds[k], N_SCN), md = speed_median(med_dur[k], N_SCN),
-		       me = speed_median(med_err[k], N_SCN);
+		double ma = speed_median(single_adds[k], N_SCN),
+		       mall = speed_median(med_adds[k], N_SCN),
+		       md = speed_median(med_dur[k], N_SCN), me = speed_median(med_err[k], N_SCN);
 		bool guided = modes[k].dosing == DOSING_GUIDED;
-		printf("summary %-16s: median error %.4f %%; single-endpoint rows median <= "
-		       "0.01 %% and worst <= 0.05 %%: %s; median additions/endpoint %.1f%s%s; "
-		       "median simulated %.0f s/endpoint at tau 1.5 s (<= 60 s: %s); CPU <= 100 "
-		       "us/point: %s\n",
-		       modes[k].name, me, met(err_ok[k]), ma, guided ? " (<= 15: " : "",
-		       guided ? (ma <= 15 ? "met)" : "NOT met)") : "", md, met(md <= 60),
-		       met(cpu_ok[k]));
+		printf(
+		    "summary %-16s: median error %.4f %%; single-endpoint rows median <= "
+		    "0.01 %% and worst <= 0.05 %%: %s; median additions/endpoint on them %.1f%s%s "
+		    "(before %.1f), over all rows %.1f; median simulated %.0f s/endpoint at tau "
+		    "1.5 s (<= 60 s: %s; "
+		    "before %.0f s); CPU <= 100 us/point: %s\n",
+		    modes[k].name, me, met(err_ok[k]), ma, guided ? " (<= 15: " : "",
+		    guided ? (ma <= 15 ? "met)" : "NOT met)") : "", modes[k].adds_before, mall, md,
+		    met(md <= 60), modes[k].dur_before_s, met(cpu_ok[k]));
 	}
 }
 
