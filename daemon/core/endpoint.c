@@ -22,6 +22,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "chem.h"
+
 int endpoint_direction(const engine_point_t *pts, int n, int hint)
 {
 	if (n >= 2) {
@@ -324,6 +326,70 @@ out:
 	return found;
 }
 
+/* Excess of strong acid over base in the beaker's liquid, mol/L, as a
+ * point's pH shows it: [H+] - [OH-] (NaN without a pH). */
+static double excess_of(const engine_point_t *p)
+{
+	if (!isfinite(p->ph))
+		return NAN;
+	double t_c = isfinite(p->temperature_c) ? p->temperature_c : 25.0;
+	return pow(10.0, -p->ph) - pow(10.0, p->ph - chem_pkw(t_c));
+}
+
+/* Volume at which the straight line in the excess through points a and b
+ * reaches the excess of pH t_ph, mL; NaN when they do not fix one. */
+static double excess_crossing(const engine_point_t *a, const engine_point_t *b, double t_ph)
+{
+	double da = excess_of(a), db = excess_of(b);
+	double t_c = isfinite(b->temperature_c) ? b->temperature_c : 25.0;
+	double dt = pow(10.0, -t_ph) - pow(10.0, t_ph - chem_pkw(t_c));
+	if (!isfinite(da) || !isfinite(db) || da == db)
+		return NAN;
+	return a->volume_ml + (dt - da) / (db - da) * (b->volume_ml - a->volume_ml);
+}
+
+/* A pH target crossed in one addition from an acid to a basic point (or
+ * back) on a strong system: there the charge balance makes the excess
+ * [H+] - [OH-] a straight line in the volume near the equivalence point
+ * (V0 + V changes by a fraction of a percent over the addition), so the
+ * crossing is read on that line, not on the pH's (which bends like a
+ * logarithm on either side). Strong is what the points show: the line
+ * through the two points before the bracket (or the two after it) reaches
+ * the target's excess within a quarter of the bracketing addition of the
+ * bracket's own line. Returns the crossing at the bracket ending at point
+ * i, mL, and in *miss the larger distance to the neighbouring lines (the
+ * curve's own bend); NaN when this does not apply. */
+static double strong_crossing(const method_t *m, const engine_point_t *pts, int n, int i,
+                              double *miss)
+{
+	if (m->signal != SIGNAL_PH || i < 1 || i >= n)
+		return NAN;
+	const engine_point_t *p0 = &pts[i - 1], *p1 = &pts[i];
+	double t_c = isfinite(p1->temperature_c) ? p1->temperature_c : 25.0;
+	double neutral = chem_pkw(t_c) / 2;
+	if (!((p0->ph - neutral) * (p1->ph - neutral) < 0))
+		return NAN;
+	double v = excess_crossing(p0, p1, m->target);
+	double h = p1->volume_ml - p0->volume_ml;
+	if (!isfinite(v) || !(h > 0))
+		return NAN;
+	double worst = -1;
+	if (i >= 2) {
+		double w = excess_crossing(&pts[i - 2], p0, m->target);
+		if (isfinite(w))
+			worst = fmax(worst, fabs(w - v));
+	}
+	if (i + 1 < n) {
+		double w = excess_crossing(p1, &pts[i + 1], m->target);
+		if (isfinite(w))
+			worst = fmax(worst, fabs(w - v));
+	}
+	if (!(worst >= 0) || !(worst <= h / 4))
+		return NAN;
+	*miss = worst;
+	return v;
+}
+
 static int find_target(const method_t *m, const engine_point_t *pts, int n, int dir,
                        engine_endpoint_t *out, int cap)
 {
@@ -348,6 +414,9 @@ static int find_target(const method_t *m, const engine_point_t *pts, int n, int 
 		double v0 = pts[i - 1].volume_ml, v1 = pts[i].volume_ml;
 		double f = s1 != s0 ? (t - s0) / (s1 - s0) : 1.0;
 		v = v0 + f * (v1 - v0);
+		double miss = 0, vs = strong_crossing(m, pts, n, i, &miss);
+		if (isfinite(vs) && vs >= v0 && vs <= v1)
+			v = vs;
 	}
 	if (!isfinite(v))
 		return 0;
@@ -613,6 +682,12 @@ static double target_u(const method_t *m, const engine_point_t *pts, int n, doub
 		}
 	}
 	bend = fmin(bend, h / sqrt(3.0));
+	/* A strong system's crossing (find_target read it on the line of the
+	 * excess): the curve's own bend is how far the neighbouring lines miss
+	 * it, and the other shapes above do not apply. */
+	double miss = 0, vs = strong_crossing(m, pts, n, i, &miss);
+	if (isfinite(vs) && fabs(vs - v_ml) < 1e-12)
+		bend = miss;
 	double u_lag = bracket_lag_ml(pts, n, i);
 	return sqrt(u_band * u_band + u_noise * u_noise + bend * bend + u_lag * u_lag);
 }

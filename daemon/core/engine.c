@@ -308,10 +308,18 @@ static int run_dir(const engine_t *e)
 {
 	int hint = 0;
 	double s0 = e->n_pts ? e->pts[0].signal : NAN;
-	if (e->m.detect == DETECT_TARGET && e->m.has_target && isfinite(s0))
+	/* A target: the side the run starts on, until the signal has moved by
+	 * more than the settling band. A first addition's change within it may
+	 * be noise the other way (a strong acid's pH 1.763 -> 1.761), read as a
+	 * direction that puts the start past the target; a start really past it
+	 * (a water below pH 8.3 for P alkalinity) shows once the signal moves. */
+	if (e->m.detect == DETECT_TARGET && e->m.has_target && isfinite(s0)) {
 		hint = e->m.target > s0 ? 1 : -1;
-	else if (e->m.has_signal_limit && isfinite(s0))
+		if (!(fabs(e->pts[e->n_pts - 1].signal - s0) > e->m.still_within))
+			return hint;
+	} else if (e->m.has_signal_limit && isfinite(s0)) {
 		hint = e->m.signal_limit > s0 ? 1 : -1;
+	}
 	return endpoint_direction(e->pts, e->n_pts, hint);
 }
 
