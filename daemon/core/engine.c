@@ -952,10 +952,10 @@ static engine_action_t after_point(engine_t *e)
 			e->all_found = true;
 			e->stop_after_ml = e->ep[e->n_done - 1].volume_ml + m->past_endpoint_ml;
 			/* That addition already went past_endpoint_ml beyond a
-			 * point past the jump: the derivative's parabola over
-			 * it may put the endpoint a little later, but the
-			 * inflection lies before that point. */
-			if (e->past_from_ml > 0)
+			 * point past the jump, and the endpoint lies before
+			 * that point (else the jump went on: the rule above). */
+			if (e->past_from_ml > 0 &&
+			    e->ep[e->n_done - 1].volume_ml <= e->past_from_ml)
 				e->stop_after_ml =
 				    fmin(e->stop_after_ml, e->past_from_ml + m->past_endpoint_ml);
 		} else {
