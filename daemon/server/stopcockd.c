@@ -406,6 +406,8 @@ int main(int argc, char **argv)
 			               "TOKEN FILE)");
 		diag_free(&td);
 	}
+	if (o.check)
+		cfg_mqtt_check_files(&cfg, &d);
 	if (d.n) {
 		diag_print(&d, stderr);
 		rc = 2;
