@@ -196,6 +196,7 @@ bench: deps
 bench-run: all $(REL)/speed
 	$(REL)/speed
 	@if [ -f tests/speed/speed_http.sh ]; then bash tests/speed/speed_http.sh $(abspath $(BUILD)); fi
+	$(PYTHON) tests/speed/speed_mqtt.py $(abspath $(BUILD))
 
 # ---- fuzzing: libFuzzer targets tests/fuzz/fuzz_*.c (clang, ASan+UBSan) ----
 # `make fuzz FUZZ_SECONDS=N` replays tests/fuzz/regress/<target>/, then fuzzes

@@ -86,7 +86,7 @@ class Sub:
     """A subscriber with a persistent session (clean_session off), QoS 1,
     reconnecting by itself: what a LIMS would run."""
 
-    def __init__(self, broker, topic, tls_ca=None, auth=None, persistent=True):
+    def __init__(self, broker, topic, tls_ca=None, auth=None, persistent=True, keepalive_s=5):
         self.msgs = []
         self.lock = threading.Lock()
         self.ready = threading.Event()
@@ -100,7 +100,7 @@ class Sub:
         self.c.on_connect = lambda c, u, f, rc: (c.subscribe(topic, qos=1), None)[1]
         self.c.on_subscribe = lambda c, u, mid, q: self.ready.set()
         self.c.on_message = self._on_message
-        self.c.connect("127.0.0.1", broker.port, keepalive=5)
+        self.c.connect("127.0.0.1", broker.port, keepalive=keepalive_s)
         self.c.loop_start()
         assert self.ready.wait(10), "the subscription was not acknowledged"
         if persistent:
@@ -140,7 +140,10 @@ class MqttBench(db.Bench):
     def start_daemon(self, **kw):
         cfg = yaml.safe_load(self.config.read_text())
         cfg["stations"][0]["burette"]["profile"] = str(FAST_PUMP)
-        cfg["mqtt"] = self.mqtt
+        if self.mqtt is None:  # no mqtt: section at all
+            cfg.pop("mqtt", None)
+        else:
+            cfg["mqtt"] = self.mqtt
         self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
         return super().start_daemon(**kw)
 
