@@ -71,10 +71,22 @@ class Broker:
         """SIGSTOP (a stalled broker: connections open, nothing read) or SIGCONT."""
         self.proc.send_signal(signal.SIGSTOP if stopped else signal.SIGCONT)
 
+    def running(self):
+        """Make sure it runs (after a test that stopped or killed it failed)."""
+        if self.proc.poll() is None:
+            self.pause(False)
+        else:
+            self.start()
+
     def close(self):
         if self.proc.poll() is None:
+            self.pause(False)
             self.proc.terminate()
-            self.proc.wait(timeout=10)
+            try:
+                self.proc.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait()
         self.log.close()
 
 

@@ -88,7 +88,10 @@ def test_broker_killed_mid_run_loses_nothing(bench, broker):
         bench.fresh_beaker()
         rids = [bench.fast_run("OUTAGE-1"), bench.fast_run("OUTAGE-2")]
         bench.wait_points(rids[0], 2)
-        broker.kill()
+        # Stalled first: the connection stays up, so the first result is
+        # sent into it and never acknowledged; then killed, which loses it
+        # at the broker. Only a row kept until its PUBACK brings it back.
+        broker.pause(True)
         down_at = time.monotonic()
         bench.wait_state(rids[0], ("finished", "failed", "aborted"), timeout_s=60)
         # the finished run waits in the outbox, and /metrics says so
@@ -96,7 +99,11 @@ def test_broker_killed_mid_run_loses_nothing(bench, broker):
         while (bench.metric("stopcock_mqtt_outbox_messages") or 0) < 1:
             assert time.monotonic() < deadline, "no backlog in /metrics"
             time.sleep(0.1)
-        assert bench.metric("stopcock_mqtt_connected") == 0
+        broker.kill()
+        deadline = time.monotonic() + 10
+        while bench.metric("stopcock_mqtt_connected") != 0:
+            assert time.monotonic() < deadline, "the daemon did not see the broker go"
+            time.sleep(0.1)
         time.sleep(max(0.0, BROKER_DOWN_S - (time.monotonic() - down_at)))
         broker.start()
         up_at = time.monotonic()
@@ -115,6 +122,7 @@ def test_broker_killed_mid_run_loses_nothing(bench, broker):
         assert [r["seq"] for r in got] == sorted(r["seq"] for r in got)
     finally:
         sub.close()
+        broker.running()
 
 
 def test_daemon_killed_with_results_in_the_outbox(bench, broker):
@@ -150,6 +158,7 @@ def test_daemon_killed_with_results_in_the_outbox(bench, broker):
         assert [r for r in unique if r["id"] == rid] == feed
     finally:
         sub.close()
+        broker.running()
 
 
 def make_cert(d):
