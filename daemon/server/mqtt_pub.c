@@ -21,9 +21,9 @@
  * little. */
 #define WINDOW         32
 #define BACKOFF_MIN_S  0.5
-#define BACKOFF_MAX_S  10.0 /* a broker back from an outage is found within 10 s */
-#define STATION_MIN_S  1.0  /* readings alone republish a station at most this often */
-#define STATION_POLL_S 0.1  /* how often station snapshots are compared */
+#define BACKOFF_MAX_S  5.0 /* a broker back from an outage is found within 5 s */
+#define STATION_MIN_S  1.0 /* readings alone republish a station at most this often */
+#define STATION_POLL_S 0.1 /* how often station snapshots are compared */
 #define PRUNE_EVERY_S  60.0
 #define LOOP_MS        50 /* mosquitto_loop's wait: also how soon a stop is seen */
 
