@@ -21,13 +21,15 @@ PYTHON ?= /usr/bin/python3
 BUILD ?= build
 PYTEST_WORKERS ?= 3
 
-PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystemd nettle libcurl
+PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystemd nettle libcurl \
+	libmosquitto
 
 # Debian packages the build, the tests, the demo and the benchmarks need.
 # python3-serial-asyncio: pymodbus 3.0 imports it even for TCP; it is only a
 # Recommends, which --no-install-recommends skips.
 DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-dev \
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev nettle-dev libcurl4-openssl-dev \
+	libmosquitto-dev mosquitto mosquitto-clients python3-paho-mqtt openssl \
 	python3 python3-pytest python3-pytest-xdist python3-pymodbus python3-serial-asyncio python3-serial python3-scipy \
 	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
 	python3-yaml systemd strace chromium fonts-dejavu-core nodejs cppcheck clang-format
@@ -194,6 +196,7 @@ bench: deps
 bench-run: all $(REL)/speed
 	$(REL)/speed
 	@if [ -f tests/speed/speed_http.sh ]; then bash tests/speed/speed_http.sh $(abspath $(BUILD)); fi
+	$(PYTHON) tests/speed/speed_mqtt.py $(abspath $(BUILD))
 
 # ---- fuzzing: libFuzzer targets tests/fuzz/fuzz_*.c (clang, ASan+UBSan) ----
 # `make fuzz FUZZ_SECONDS=N` replays tests/fuzz/regress/<target>/, then fuzzes

@@ -5,12 +5,13 @@
 
 #include <arpa/inet.h>
 #include <errno.h>
+#include <unistd.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
 static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
-                                       "calibration", "standardization", NULL};
+                                       "calibration", "standardization", "mqtt",        NULL};
 /* clang-format off */
 static const char *const http_keys[] = {
     "listen",     "token_file",     "read_needs_token",     "max_connections",
@@ -299,6 +300,212 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 		yt_want_map(&c->doc, st->changer, "changer", d);
 }
 
+/* ---- mqtt: (docs/mqtt.md) ---- */
+
+static const char *const mqtt_keys[] = {"host",
+                                        "port",
+                                        "topic_prefix",
+                                        "client_id",
+                                        "username",
+                                        "password_file",
+                                        "tls",
+                                        "keepalive_s",
+                                        "outbox_max_messages",
+                                        "outbox_max_age_days",
+                                        NULL};
+static const char *const mqtt_tls_keys[] = {"ca_file", "cert_file", "key_file", NULL};
+
+/* A topic prefix is the first levels of every topic: text without the
+ * wildcards + and #, not starting with '$' (the broker's own topics), with no
+ * empty level and no '/' at either end. */
+static const char *topic_prefix_problem(const char *s)
+{
+	size_t n = strlen(s);
+
+	if (n == 0)
+		return "is empty";
+	if (!text_utf8_valid(s, n) || text_control_at(s, n, false) != TEXT_NONE)
+		return "holds a control character or is not UTF-8";
+	if (strpbrk(s, "+#"))
+		return "holds an MQTT wildcard (+ or #)";
+	if (s[0] == '$')
+		return "starts with '$', which brokers keep for their own topics";
+	if (s[0] == '/' || s[n - 1] == '/' || strstr(s, "//"))
+		return "has an empty level (a '/' at an end or two in a row)";
+	return NULL;
+}
+
+static bool host_or_address(const char *s, char *out, size_t cap)
+{
+	unsigned char buf[16];
+
+	if (inet_pton(AF_INET, s, buf) == 1 || inet_pton(AF_INET6, s, buf) == 1) {
+		if (strlen(s) >= cap)
+			return false;
+		memcpy(out, s, strlen(s) + 1);
+		return true;
+	}
+	return parse_host_name(s, out, cap);
+}
+
+static void parse_mqtt_tls(cfg_t *c, const yt_node_t *t, diag_list_t *d)
+{
+	cfg_mqtt_t *m = &c->mqtt;
+	const yt_node_t *n;
+	bool on;
+
+	/* `tls: off` (or false, or nothing) leaves it off. */
+	if (yt_is_null(t))
+		return;
+	if (t->kind != YT_MAP) {
+		if (t->plain && !strcmp(t->str, "off"))
+			return;
+		if (yt_bool(&c->doc, t, "mqtt.tls", &on, d) && on)
+			yt_error(&c->doc, t, d,
+			         "mqtt.tls is off, or {ca_file: FILE} with cert_file and key_file "
+			         "for a client certificate");
+		return;
+	}
+	yt_check_keys(&c->doc, t, mqtt_tls_keys, "mqtt.tls", d);
+	m->tls = true;
+	if (!(n = yt_get(t, "ca_file")))
+		yt_missing(&c->doc, t, "ca_file", "mqtt.tls", d);
+	else
+		get_path(c, n, "mqtt.tls.ca_file", m->ca_file, sizeof m->ca_file, d);
+	if ((n = yt_get(t, "cert_file")))
+		get_path(c, n, "mqtt.tls.cert_file", m->cert_file, sizeof m->cert_file, d);
+	if ((n = yt_get(t, "key_file")))
+		get_path(c, n, "mqtt.tls.key_file", m->key_file, sizeof m->key_file, d);
+	if (!m->cert_file[0] != !m->key_file[0])
+		yt_error(&c->doc, t, d,
+		         "mqtt.tls: a client certificate needs both cert_file and key_file");
+}
+
+static void parse_mqtt(cfg_t *c, const yt_node_t *q, diag_list_t *d)
+{
+	cfg_mqtt_t *m = &c->mqtt;
+	const yt_node_t *n;
+	char tmp[CFG_HOST_MAX + 2];
+	long v;
+
+	if (!yt_want_map(&c->doc, q, "mqtt", d))
+		return;
+	yt_check_keys(&c->doc, q, mqtt_keys, "mqtt", d);
+	m->enabled = true;
+	m->line = q->line;
+	m->col = q->col;
+	if (!(n = yt_get(q, "host")))
+		yt_missing(&c->doc, q, "host", "mqtt", d);
+	else if (yt_string(&c->doc, n, "mqtt.host", tmp, sizeof tmp, d) &&
+	         !host_or_address(tmp, m->host, sizeof m->host))
+		yt_error(&c->doc, n, d,
+		         "mqtt.host must be a host name or a numeric address, without a port "
+		         "(got '%s'; the port is mqtt.port)",
+		         tmp);
+	if ((n = yt_get(q, "port")) && yt_long(&c->doc, n, "mqtt.port", 1, 65535, &v, d))
+		m->port = (int)v;
+	if ((n = yt_get(q, "topic_prefix")) &&
+	    yt_string(&c->doc, n, "mqtt.topic_prefix", m->topic_prefix, sizeof m->topic_prefix,
+	              d)) {
+		const char *why = topic_prefix_problem(m->topic_prefix);
+		if (why)
+			yt_error(&c->doc, n, d, "mqtt.topic_prefix %s (got '%s')", why,
+			         m->topic_prefix);
+	}
+	if ((n = yt_get(q, "client_id")) &&
+	    yt_string(&c->doc, n, "mqtt.client_id", m->client_id, sizeof m->client_id, d) &&
+	    (!m->client_id[0] ||
+	     strspn(m->client_id,
+	            "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789-_.") !=
+	         strlen(m->client_id)))
+		yt_error(&c->doc, n, d,
+		         "mqtt.client_id must be 1 to %zu letters, digits, '-', '_' and '.' "
+		         "(got '%s')",
+		         sizeof m->client_id - 1, m->client_id);
+	if ((n = yt_get(q, "username")) &&
+	    yt_string(&c->doc, n, "mqtt.username", m->username, sizeof m->username, d) &&
+	    text_control_at(m->username, strlen(m->username), false) != TEXT_NONE)
+		yt_error(&c->doc, n, d, "mqtt.username holds a control character");
+	if ((n = yt_get(q, "password_file"))) {
+		get_path(c, n, "mqtt.password_file", m->password_file, sizeof m->password_file, d);
+		if (!m->username[0])
+			yt_error(&c->doc, n, d, "mqtt.password_file needs mqtt.username");
+	}
+	if ((n = yt_get(q, "tls")))
+		parse_mqtt_tls(c, n, d);
+	get_uint(&c->doc, q, "keepalive_s", "mqtt.keepalive_s", 5, 3600, &m->keepalive_s, d);
+	get_uint(&c->doc, q, "outbox_max_messages", "mqtt.outbox_max_messages", 100, 10000000,
+	         &m->outbox_max_messages, d);
+	get_uint(&c->doc, q, "outbox_max_age_days", "mqtt.outbox_max_age_days", 1, 3650,
+	         &m->outbox_max_age_days, d);
+}
+
+int cfg_read_secret(const char *path, char *out, size_t cap, diag_list_t *d)
+{
+	FILE *f = fopen(path, "r");
+	size_t n;
+
+	out[0] = '\0';
+	if (!f) {
+		diag_add(d, path, 0, 0, "cannot read the password file: %s", strerror(errno));
+		return -1;
+	}
+	if (!fgets(out, (int)cap, f))
+		out[0] = '\0';
+	fclose(f);
+	n = strcspn(out, "\r\n");
+	if (out[n] == '\0' && n == cap - 1) {
+		memset(out, 0, cap);
+		diag_add(d, path, 1, 1, "the password is too long (at most %zu bytes)", cap - 2);
+		return -1;
+	}
+	out[n] = '\0';
+	if (n == 0) {
+		diag_add(d, path, 1, 1, "the password file's first line is empty");
+		return -1;
+	}
+	return 0;
+}
+
+/* A file named by key (under mqtt:, or mqtt.tls when tls) that cannot be
+ * read: at the key's line, naming the file, not its content. */
+static void mqtt_file_readable(const cfg_t *c, const char *key, bool tls, const char *path,
+                               diag_list_t *d)
+{
+	const yt_node_t *q = yt_get(c->doc.root, "mqtt");
+	const yt_node_t *n = yt_get(tls ? yt_get(q, "tls") : q, key);
+
+	if (!path[0] || access(path, R_OK) == 0 || !n)
+		return;
+	diag_add(d, c->path, n->line, n->col, "mqtt.%s%s: cannot read '%s': %s", tls ? "tls." : "",
+	         key, path, strerror(errno));
+}
+
+void cfg_mqtt_check_files(const cfg_t *c, diag_list_t *d)
+{
+	const cfg_mqtt_t *m = &c->mqtt;
+	char secret[256];
+	diag_list_t sd = DIAG_LIST_INIT;
+
+	if (!m->enabled)
+		return;
+	mqtt_file_readable(c, "password_file", false, m->password_file, d);
+	if (m->password_file[0] && access(m->password_file, R_OK) == 0 &&
+	    cfg_read_secret(m->password_file, secret, sizeof secret, &sd)) {
+		const yt_node_t *n = yt_get(yt_get(c->doc.root, "mqtt"), "password_file");
+		for (size_t i = 0; i < sd.n; i++)
+			diag_add(d, c->path, n ? n->line : 0, n ? n->col : 0, "%s: %s",
+			         sd.v[i].file, sd.v[i].msg);
+	}
+	memset(secret, 0, sizeof secret);
+	diag_free(&sd);
+	if (m->tls) {
+		mqtt_file_readable(c, "ca_file", true, m->ca_file, d);
+		mqtt_file_readable(c, "cert_file", true, m->cert_file, d);
+		mqtt_file_readable(c, "key_file", true, m->key_file, d);
+	}
+}
+
 int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 {
 	const yt_node_t *root, *n;
@@ -317,6 +524,10 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	snprintf(c->allowed_hosts[0], sizeof c->allowed_hosts[0], "localhost");
 	c->threads = 4;
 	snprintf(c->database, sizeof c->database, "/var/lib/stopcock/stopcock.db");
+	c->mqtt.port = 1883;
+	c->mqtt.keepalive_s = 30;
+	c->mqtt.outbox_max_messages = 100000; /* about a year of a busy bench's runs */
+	c->mqtt.outbox_max_age_days = 30;
 
 	if (yt_load_file(path, &c->doc, d))
 		return -1;
@@ -334,6 +545,8 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	}
 	if ((n = yt_get(root, "methods_dir")) && !yt_is_null(n))
 		get_path(c, n, "methods_dir", c->methods_dir, sizeof c->methods_dir, d);
+	if ((n = yt_get(root, "mqtt")))
+		parse_mqtt(c, n, d);
 	c->calibration = yt_get(root, "calibration");
 	c->standardization = yt_get(root, "standardization");
 	if (!(n = yt_get(root, "stations"))) {

@@ -53,6 +53,27 @@ typedef struct cfg_station {
 	cfg_doser_t dosers[CFG_MAX_DOSERS];
 } cfg_station_t;
 
+/* The optional mqtt: section (docs/mqtt.md): where results, events and
+ * station states are published. enabled is false without the section. */
+#define CFG_TOPIC_MAX 200
+typedef struct cfg_mqtt {
+	bool enabled;
+	char host[CFG_HOST_MAX + 1];      /* a host name or a numeric address */
+	int port;                         /* default 1883 (8883 is usual with tls) */
+	char topic_prefix[CFG_TOPIC_MAX]; /* "" = stopcock/<hostname>, set by the daemon */
+	char client_id[64];               /* "" = stopcock-<hostname>-<pid>, set by the daemon */
+	char username[128];               /* "" = none */
+	char password_file[CFG_PATH_MAX]; /* "" = none; the password is its first line */
+	bool tls;
+	char ca_file[CFG_PATH_MAX];
+	char cert_file[CFG_PATH_MAX]; /* client certificate and key: both or neither */
+	char key_file[CFG_PATH_MAX];
+	unsigned keepalive_s;
+	unsigned outbox_max_messages; /* the outbox policy (docs/mqtt.md, "Outbox") */
+	unsigned outbox_max_age_days;
+	int line, col; /* of the section, for messages */
+} cfg_mqtt_t;
+
 typedef struct cfg {
 	char path[CFG_PATH_MAX]; /* the file read */
 	/* http */
@@ -78,7 +99,8 @@ typedef struct cfg {
 	/* parsed by calib.h (calib_config_parse, standardization_config_parse); NULL: absent */
 	const yt_node_t *calibration;
 	const yt_node_t *standardization;
-	yt_doc_t doc; /* owns the station subtrees */
+	cfg_mqtt_t mqtt; /* the optional mqtt: section */
+	yt_doc_t doc;    /* owns the station subtrees */
 } cfg_t;
 
 /* Load and check. Returns 0, or -1 with every error added (sorted). On -1 the
@@ -105,6 +127,15 @@ typedef struct cfg_tokens {
 } cfg_tokens_t;
 
 int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d);
+
+/* The first line of a password file (mqtt.password_file), without its line
+ * end, into out. 0, or -1 with a diagnostic naming the file (never its
+ * content). */
+int cfg_read_secret(const char *path, char *out, size_t cap, diag_list_t *d);
+
+/* --check-config: the mqtt files (password, CA, certificate, key) can be
+ * read and the password file has a password; errors at the config's line. */
+void cfg_mqtt_check_files(const cfg_t *c, diag_list_t *d);
 
 const cfg_station_t *cfg_station(const cfg_t *c, const char *name);
 

@@ -32,6 +32,7 @@ typedef struct http_ctx {
 	atomic_long requests_2xx, requests_4xx, requests_5xx;
 	atomic_long body_too_large, auth_failures;
 	atomic_long deadline_cuts, over_limit; /* http_guard.h */
+	struct mqtt_pub *mqtt;                 /* the MQTT publisher; NULL without mqtt: */
 } http_ctx_t;
 
 typedef struct http_server http_server_t;

@@ -11,6 +11,7 @@
 #include <time.h>
 
 #include "station.h"
+#include "mqtt_pub.h"
 #include "clock.h"
 #include "names.h"
 #include "sbuf.h"
@@ -20,7 +21,7 @@ static json_t *real_or_null(bool have, double v)
 	return have && isfinite(v) ? json_real(v) : json_null();
 }
 
-static json_t *station_json(station_t *st)
+json_t *http_station_json(station_t *st)
 {
 	station_snapshot_t s;
 	json_t *reading, *burette;
@@ -50,7 +51,7 @@ void http_get_stations(const http_req_t *q, http_reply_t *r)
 {
 	json_t *arr = json_array();
 	for (int i = 0; i < q->ctx->n_stations; i++)
-		json_array_append_new(arr, station_json(q->ctx->stations[i]));
+		json_array_append_new(arr, http_station_json(q->ctx->stations[i]));
 	http_reply_json(r, 200, json_pack("{s:o}", "stations", arr));
 }
 
@@ -303,6 +304,7 @@ char *http_metrics_text(http_ctx_t *ctx, size_t *out_len)
 		sbuf_addf(&b, "stopcock_wake_lateness_max_seconds{station=\"%s\"} %.6f\n", s.name,
 		          s.wake_late_max_s);
 	}
+	mqtt_pub_metrics(ctx->mqtt, ctx->store, &b); /* nothing without an mqtt: section */
 	sbuf_addf(&b,
 	          "# TYPE stopcock_http_requests counter\n"
 	          "# HELP stopcock_http_requests HTTP requests answered, by status class.\n"

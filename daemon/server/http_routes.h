@@ -51,6 +51,8 @@ void http_post_method_check(const http_req_t *q, http_reply_t *r);
 void http_get_metrics(const http_req_t *q, http_reply_t *r);
 void http_get_health(const http_req_t *q, http_reply_t *r);
 void http_get_stations(const http_req_t *q, http_reply_t *r);
+/* One station as GET /v1/stations lists it (also the MQTT station topic). */
+json_t *http_station_json(station_t *st);
 void http_post_halt(const http_req_t *q, http_reply_t *r);
 void http_post_resume(const http_req_t *q, http_reply_t *r);
 void http_get_methods(const http_req_t *q, http_reply_t *r);

@@ -22,6 +22,7 @@
 #include "http.h"
 #include "log.h"
 #include "method.h"
+#include "mqtt_pub.h"
 #include "notify.h"
 #include "recover.h"
 #include "station.h"
@@ -328,6 +329,7 @@ int main(int argc, char **argv)
 	store_t *store = NULL;
 	static http_ctx_t ctx;
 	http_server_t *http = NULL;
+	mqtt_pub_t *mqtt = NULL;
 	method_limits_t lim;
 	sigset_t set;
 	char err[512];
@@ -406,6 +408,8 @@ int main(int argc, char **argv)
 			               "TOKEN FILE)");
 		diag_free(&td);
 	}
+	if (o.check)
+		cfg_mqtt_check_files(&cfg, &d);
 	if (d.n) {
 		diag_print(&d, stderr);
 		rc = 2;
@@ -433,6 +437,10 @@ int main(int argc, char **argv)
 		goto out;
 	}
 	ctx.store = store;
+	/* Before recovery, so the runs it ends reach the broker too; off
+	 * without an mqtt: section, so the outbox then stays empty. */
+	if (store_outbox_enable(store, cfg.mqtt.enabled) != STORE_OK)
+		log_warn("mqtt: could not switch the outbox %s", cfg.mqtt.enabled ? "on" : "off");
 	/* Running runs become interrupted, queued ones are queued again, and
 	 * their stations are held until an operator resumes them (recover.h). */
 	stale_pending = !recover_start(&ctx);
@@ -452,6 +460,14 @@ int main(int argc, char **argv)
 		struct timespec ts;
 		clock_gettime(CLOCK_MONOTONIC, &ts);
 		ctx.started_mono_s = (double)ts.tv_sec + ts.tv_nsec / 1e9;
+	}
+	if (cfg.mqtt.enabled) {
+		mqtt = mqtt_pub_start(&cfg, store, stations, n, err, sizeof err);
+		if (!mqtt) {
+			log_err("mqtt: %s", err);
+			goto out;
+		}
+		ctx.mqtt = mqtt;
 	}
 	http = http_start(&ctx, err, sizeof err);
 	if (!http) {
@@ -551,6 +567,8 @@ out:
 			recover_note_holds(&ctx, had_run);
 	}
 	http_stop(http);
+	/* After the stations, so the runs they ended are offered to the broker. */
+	mqtt_pub_stop(mqtt);
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
 	titer_book_free(titers);

@@ -58,6 +58,22 @@ static const char *const migrations[] = {
      "ALTER TABLE titrants ADD COLUMN replicates TEXT;"),
     /* 2 -> 3: the daemon's heartbeat, for the end time of a run a crash cut. */
     "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
+    /* 3 -> 4: the MQTT outbox (docs/mqtt.md, "Outbox"): what is still to
+     * be published. Triggers add a row in the very transaction that gives a
+     * run its seq or adds an event, so nothing final escapes it; they add
+     * nothing unless the daemon has an mqtt: section (meta outbox=on).
+     * A row names its run or event; the payload is read when it is sent. */
+    ("CREATE TABLE outbox (id INTEGER PRIMARY KEY AUTOINCREMENT, kind TEXT NOT NULL,"
+     "  ref INTEGER NOT NULL, at_s INTEGER NOT NULL);"
+     "CREATE TRIGGER outbox_result AFTER UPDATE OF seq ON runs"
+     "  WHEN NEW.seq IS NOT NULL AND OLD.seq IS NULL"
+     "  AND (SELECT value FROM meta WHERE key='outbox') = 'on'"
+     "  BEGIN INSERT INTO outbox (kind, ref, at_s)"
+     "  VALUES ('result', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"
+     "CREATE TRIGGER outbox_event AFTER INSERT ON events"
+     "  WHEN (SELECT value FROM meta WHERE key='outbox') = 'on'"
+     "  BEGIN INSERT INTO outbox (kind, ref, at_s)"
+     "  VALUES ('event', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -1023,4 +1039,65 @@ store_status_t store_calib_update(store_t *s, int64_t id, const char *state, con
 	            "tttti", state, at, expires_at, record_json, id);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+/* ---- the MQTT outbox (writes; docs/mqtt.md, "Outbox") ---- */
+
+store_status_t store_outbox_enable(store_t *s, bool on)
+{
+	int rc;
+	pthread_mutex_lock(&s->wlock);
+	rc = meta_set(s->w, "outbox", on ? "on" : "off");
+	pthread_mutex_unlock(&s->wlock);
+	return rc ? STORE_ERR : STORE_OK;
+}
+
+store_status_t store_outbox_remove(store_t *s, const int64_t *ids, int n)
+{
+	store_status_t ret = STORE_OK;
+
+	if (n <= 0)
+		return STORE_OK;
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s)) {
+		pthread_mutex_unlock(&s->wlock);
+		return STORE_ERR;
+	}
+	for (int i = 0; i < n && ret == STORE_OK; i++)
+		if (exec_w(s, "DELETE FROM outbox WHERE id=?", "i", ids[i]) != SQLITE_DONE)
+			ret = STORE_ERR;
+	if (ret == STORE_OK && commit(s))
+		ret = STORE_ERR;
+	else if (ret != STORE_OK)
+		rollback(s);
+	pthread_mutex_unlock(&s->wlock);
+	return ret;
+}
+
+long store_outbox_prune(store_t *s, long max_messages, double max_age_s, double now_s)
+{
+	long n = -1;
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (exec_w(s, "DELETE FROM outbox WHERE at_s < ?", "d", now_s - max_age_s) != SQLITE_DONE)
+		goto out_tx;
+	n = sqlite3_changes(s->w);
+	/* the oldest go first: the newest are what a subscriber waits for */
+	if (exec_w(s,
+	           "DELETE FROM outbox WHERE id <= (SELECT id FROM outbox ORDER BY id DESC "
+	           "LIMIT 1 OFFSET ?)",
+	           "i", (int64_t)max_messages) != SQLITE_DONE)
+		goto out_tx;
+	n += sqlite3_changes(s->w);
+	if (commit(s))
+		n = -1;
+	goto out;
+out_tx:
+	rollback(s);
+	n = -1;
+out:
+	pthread_mutex_unlock(&s->wlock);
+	return n;
 }

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 3
+#define STORE_SCHEMA_VERSION 4
 
 typedef struct store store_t;
 
@@ -215,5 +215,27 @@ json_t *store_calib_json(store_t *s, int64_t id, bool *db_err);
  * latest accepted one not expired at `now` (RFC 3339). */
 json_t *store_calib_latest(store_t *s, const char *station, bool accepted_only, const char *now,
                            bool *db_err);
+
+/* ---- the MQTT outbox (docs/mqtt.md, "Outbox") ----
+ * While enabled, every run that becomes final and every event gets a row,
+ * in the same transaction (triggers of the schema); the publisher sends the
+ * rows oldest first and removes each once the broker has acknowledged it. */
+
+/* On: the triggers add rows from now on; off: they add none (the default). */
+store_status_t store_outbox_enable(store_t *s, bool on);
+typedef struct store_outbox_msg {
+	int64_t id;     /* the row, rising in commit order */
+	bool is_result; /* a run's final record (ref: run id), else an event (ref: event id) */
+	int64_t ref;
+} store_outbox_msg_t;
+/* Up to max rows with id > after_id, oldest first; how many, -1 on error. */
+int store_outbox_peek(store_t *s, int64_t after_id, store_outbox_msg_t *out, int max);
+/* Remove the rows the broker acknowledged, in one transaction. */
+store_status_t store_outbox_remove(store_t *s, const int64_t *ids, int n);
+/* The policy: rows older than max_age_s, then the oldest beyond the newest
+ * max_messages, are dropped. Returns how many, -1 on error. */
+long store_outbox_prune(store_t *s, long max_messages, double max_age_s, double now_s);
+/* Rows waiting and the age of the oldest, s (0 when none); 0 or -1. */
+int store_outbox_stats(store_t *s, long *count, double *oldest_age_s, double now_s);
 
 #endif

@@ -547,3 +547,44 @@ json_t *store_calib_latest(store_t *s, const char *station, bool accepted_only, 
 	rq_close(&q);
 	return j;
 }
+
+/* ---- the MQTT outbox (reads) ---- */
+
+int store_outbox_peek(store_t *s, int64_t after_id, store_outbox_msg_t *out, int max)
+{
+	rq_t q;
+	int n = 0;
+
+	if (rq_open(&q, s, "SELECT id, kind, ref FROM outbox WHERE id > ? ORDER BY id LIMIT ?"))
+		return -1;
+	sqlite3_bind_int64(q.st, 1, after_id);
+	sqlite3_bind_int(q.st, 2, max);
+	while (n < max && sqlite3_step(q.st) == SQLITE_ROW) {
+		const char *kind = (const char *)sqlite3_column_text(q.st, 1);
+		out[n].id = sqlite3_column_int64(q.st, 0);
+		out[n].is_result = kind && !strcmp(kind, "result");
+		out[n].ref = sqlite3_column_int64(q.st, 2);
+		n++;
+	}
+	rq_close(&q);
+	return n;
+}
+
+int store_outbox_stats(store_t *s, long *count, double *oldest_age_s, double now_s)
+{
+	rq_t q;
+	int ret = -1;
+
+	*count = 0;
+	*oldest_age_s = 0;
+	if (rq_open(&q, s, "SELECT COUNT(*), MIN(at_s) FROM outbox"))
+		return -1;
+	if (sqlite3_step(q.st) == SQLITE_ROW) {
+		*count = (long)sqlite3_column_int64(q.st, 0);
+		if (sqlite3_column_type(q.st, 1) != SQLITE_NULL)
+			*oldest_age_s = now_s - (double)sqlite3_column_int64(q.st, 1);
+		ret = 0;
+	}
+	rq_close(&q);
+	return ret;
+}

@@ -237,3 +237,75 @@ TEST(config_station_dosers)
 	unlink(path);
 	rmdir(dir);
 }
+
+/* The mqtt: section (docs/mqtt.md): absent means off; defaults; every bad
+ * key at its line. */
+TEST(config_mqtt_section)
+{
+	char dir[] = "/tmp/stopcock-cfg-XXXXXX", path[128], pw[160];
+	static cfg_t c;
+	diag_list_t d = DIAG_LIST_INIT;
+	static const char stations[] = "stations:\n"
+	                               "  - name: b1\n"
+	                               "    vessel_max_ml: 100\n"
+	                               "    burette: {driver: x}\n"
+	                               "    probe: {driver: y}\n";
+	char text[1024], secret[64];
+
+	REQUIRE(mkdtemp(dir));
+	snprintf(path, sizeof path, "%s/c.yaml", dir);
+	write_file(path, stations);
+	CHECK(cfg_load(path, &c, &d) == 0);
+	CHECK(!c.mqtt.enabled);
+	cfg_free(&c);
+
+	snprintf(text, sizeof text,
+	         "mqtt:\n  host: broker.lab\n  username: bench-7\n  password_file: pw\n"
+	         "  tls: {ca_file: ca.pem}\n%s",
+	         stations);
+	write_file(path, text);
+	CHECK(cfg_load(path, &c, &d) == 0);
+	CHECK_INT(d.n, 0);
+	CHECK(c.mqtt.enabled);
+	CHECK_STR(c.mqtt.host, "broker.lab");
+	CHECK_INT(c.mqtt.port, 1883);
+	CHECK_INT(c.mqtt.keepalive_s, 30);
+	CHECK_STR(c.mqtt.topic_prefix, ""); /* the daemon makes stopcock/<hostname> */
+	CHECK(c.mqtt.tls);
+	snprintf(pw, sizeof pw, "%s/pw", dir);
+	CHECK_STR(c.mqtt.password_file, pw);
+	/* --check-config: the files named must be readable */
+	cfg_mqtt_check_files(&c, &d);
+	CHECK_INT(d.n, 2);
+	diag_free(&d);
+	write_file(pw, "s3cret-word\nignored\n");
+	CHECK(cfg_read_secret(pw, secret, sizeof secret, &d) == 0);
+	CHECK_STR(secret, "s3cret-word");
+	cfg_free(&c);
+
+	snprintf(text, sizeof text,
+	         "mqtt:\n  host: \"broker:1883\"\n  port: 0\n  topic_prefix: lab/+/x\n"
+	         "  client_id: \"a b\"\n  password_file: pw\n  tls: {cert_file: c.pem}\n"
+	         "  keepalive_s: 1\n  qos: 2\n%s",
+	         stations);
+	write_file(path, text);
+	CHECK(cfg_load(path, &c, &d) != 0);
+	{
+		char *all = diag_join(&d);
+		REQUIRE(all);
+		CHECK(strstr(all, ":2:") && strstr(all, "mqtt.host"));
+		CHECK(strstr(all, ":3:") && strstr(all, "mqtt.port"));
+		CHECK(strstr(all, ":4:") && strstr(all, "wildcard"));
+		CHECK(strstr(all, ":5:") && strstr(all, "mqtt.client_id"));
+		CHECK(strstr(all, ":6:") && strstr(all, "needs mqtt.username"));
+		CHECK(strstr(all, ":7:") && strstr(all, "both cert_file and key_file"));
+		CHECK(strstr(all, ":8:") && strstr(all, "keepalive_s"));
+		CHECK(strstr(all, ":9:") && strstr(all, "unknown key 'qos'"));
+		free(all);
+	}
+	diag_free(&d);
+	cfg_free(&c);
+	unlink(pw);
+	unlink(path);
+	rmdir(dir);
+}

@@ -198,3 +198,62 @@ TEST(store_points_rewrite_replaces_in_place)
 	store_close(s);
 	rm_tmp(dir);
 }
+
+/* The MQTT outbox (docs/mqtt.md): off by default; while on, a run's final
+ * state and an event each put a row in the same transaction, oldest first,
+ * crash-interrupted runs too; rows go when acknowledged or by the policy. */
+TEST(store_outbox_follows_final_runs_and_events)
+{
+	char dir[64], path[128], err[256];
+	store_t *s = open_tmp(dir, path);
+	store_outbox_msg_t m[8];
+	int64_t a, b, c, ids[2];
+	long count;
+	double age;
+
+	REQUIRE(s);
+	a = new_run(s, "A");
+	b = new_run(s, "B");
+	c = new_run(s, "C");
+	CHECK_INT(store_run_finish(s, a, "finished", NULL, NULL), STORE_OK);
+	CHECK_INT(store_outbox_peek(s, 0, m, 8), 0); /* off: nothing */
+	CHECK_INT(store_outbox_enable(s, true), STORE_OK);
+	CHECK_INT(store_run_update(s, b, "running", "dosing", NULL), STORE_OK);
+	CHECK_INT(store_outbox_peek(s, 0, m, 8), 0); /* not final yet */
+	CHECK_INT(store_run_finish(s, b, "failed", NULL, NULL), STORE_OK);
+	CHECK_INT(store_event_add(s, NULL, "sim1", b, "run", "failed", "x", "daemon"), STORE_OK);
+	CHECK_INT(store_run_update(s, c, "running", "dosing", NULL), STORE_OK);
+	store_close(s);
+	/* c was running: a crash; at the next start it becomes interrupted */
+	s = store_open(path, err, sizeof err);
+	REQUIRE(s);
+	CHECK_INT(store_interrupt_stale(s, "2026-01-01T00:01:00.000Z", NULL, NULL), 1);
+	REQUIRE(store_outbox_peek(s, 0, m, 8) == 4);
+	CHECK(m[0].is_result && m[0].ref == b);
+	CHECK(!m[1].is_result);
+	CHECK(m[2].is_result && m[2].ref == c);
+	CHECK(!m[3].is_result); /* the interrupted run's audit line */
+	CHECK(m[0].id < m[1].id && m[1].id < m[2].id && m[2].id < m[3].id);
+	CHECK_INT(store_outbox_peek(s, m[1].id, m, 8), 2);
+	CHECK_INT(m[0].ref, c);
+	/* acknowledged rows go */
+	REQUIRE(store_outbox_peek(s, 0, m, 8) == 4);
+	ids[0] = m[0].id;
+	ids[1] = m[2].id;
+	CHECK_INT(store_outbox_remove(s, ids, 2), STORE_OK);
+	CHECK_INT(store_outbox_stats(s, &count, &age, 2e9), 0);
+	CHECK_INT(count, 2);
+	CHECK(age > 0);
+	/* the policy: beyond 1 message the oldest goes; beyond an age all do */
+	CHECK_INT(store_outbox_prune(s, 1, 1e10, 2e9), 1);
+	REQUIRE(store_outbox_peek(s, 0, m, 8) == 1);
+	CHECK_INT(m[0].id, ids[1] + 1);
+	CHECK_INT(store_outbox_prune(s, 100, 1.0, 1e10), 1);
+	CHECK_INT(store_outbox_peek(s, 0, m, 8), 0);
+	/* off again: nothing more */
+	CHECK_INT(store_outbox_enable(s, false), STORE_OK);
+	CHECK_INT(store_event_add(s, NULL, NULL, 0, "daemon", "start", "x", "daemon"), STORE_OK);
+	CHECK_INT(store_outbox_peek(s, 0, m, 8), 0);
+	store_close(s);
+	rm_tmp(dir);
+}
