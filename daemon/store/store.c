@@ -58,6 +58,8 @@ static const char *const migrations[] = {
      "ALTER TABLE titrants ADD COLUMN replicates TEXT;"),
     /* 2 -> 3: the daemon's heartbeat, for the end time of a run a crash cut. */
     "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
+    /* 3 -> 4: runs at a sample changer's position */
+    "ALTER TABLE runs ADD COLUMN position INTEGER;",
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -720,11 +722,11 @@ int64_t store_run_create(store_t *s, const store_run_new_t *r)
 	if (exec_w(
 	        s,
 	        "INSERT INTO runs (station, method_id, method_revision, method_sha256, sample_id,"
-	        " amount, unit, signal, state, queued_at, record)"
-	        " VALUES (?,?,?,?,?,?,?,?,'queued',?,?)",
-	        "ttittdtttt", r->station, r->method_id, (int64_t)r->method_revision,
-	        r->method_sha256, r->sample_id, r->amount, r->unit, r->signal, r->queued_at,
-	        r->record_json) == SQLITE_DONE) {
+	        " amount, unit, signal, state, queued_at, record, position)"
+	        " VALUES (?,?,?,?,?,?,?,?,'queued',?,?,?)",
+	        r->position > 0 ? "ttittdtttti" : "ttittdttttn", r->station, r->method_id,
+	        (int64_t)r->method_revision, r->method_sha256, r->sample_id, r->amount, r->unit,
+	        r->signal, r->queued_at, r->record_json, (int64_t)r->position) == SQLITE_DONE) {
 		id = sqlite3_last_insert_rowid(s->w);
 		issued_write(s);
 	}
