@@ -57,8 +57,8 @@ TEST(station_rack_turns_only_with_the_head_up_and_every_dosing_unit_halted)
 	CHECK(station_move_allowed(DRV_LIFT_UP, false, false));
 	CHECK(!station_move_allowed(DRV_LIFT_DOWN, false, false));
 	CHECK(!station_move_allowed(DRV_LIFT_BETWEEN, false, false));
-	CHECK(!station_move_allowed(DRV_LIFT_UP, true, false));  /* still moving */
-	CHECK(!station_move_allowed(DRV_LIFT_UP, false, true));  /* a doser or the burette */
+	CHECK(!station_move_allowed(DRV_LIFT_UP, true, false)); /* still moving */
+	CHECK(!station_move_allowed(DRV_LIFT_UP, false, true)); /* a doser or the burette */
 	CHECK(!station_move_allowed(DRV_LIFT_DOWN, true, true));
 }
 
