@@ -24,6 +24,7 @@ import time
 import pytest
 
 import daemon_bench as db
+import reliability_bench as rb
 
 RACK = db.ROOT / "tests" / "data" / "rack"
 TRUTH = {1: 15.0, 2: 20.0, 3: 25.0, 4: 30.0, 5: 15.0, 6: 20.0, 7: 25.0}
@@ -73,7 +74,7 @@ def bias_pct(rec, truth):
     return (result(rec) - truth) / truth * 100
 
 
-def test_rack_with_rinse_each_result_at_its_stoichiometry(bench):
+def test_rack_with_rinse_each_result_at_its_stoichiometry(bench, request):
     recs = run_at(bench, "rack-acid", [1, 2, 3, 4])
     for p, rec in zip([1, 2, 3, 4], recs):
         assert rec["state"] == "finished", rec["faults"]
@@ -84,8 +85,9 @@ def test_rack_with_rinse_each_result_at_its_stoichiometry(bench):
         assert rinse["started_at"] <= rinse["ended_at"]
         assert rec["dosers"] == {"acid": {"delivered_ml": 0.0,
                                           "reagent": "hydrochloric acid 0.1 mol/L"}}
-    print("\nrack with rinse, bias % at positions 1-4:",
-          [round(bias_pct(r, TRUTH[p]), 3) for p, r in zip([1, 2, 3, 4], recs)])
+    rb.report(request, [
+        "rack with rinse: position %d, %.4f mmol/L against %.2f (%+.3f %%)"
+        % (p, result(r), TRUTH[p], bias_pct(r, TRUTH[p])) for p, r in zip([1, 2, 3, 4], recs)])
     sim = bench.sim_state()
     # after the last run the head waits at the park position, down
     assert (sim["position"], sim["lift"]) == (16, "down")
@@ -94,7 +96,7 @@ def test_rack_with_rinse_each_result_at_its_stoichiometry(bench):
     assert st["changer"] == {"position": 16, "lift": "down", "moving": False}
 
 
-def test_ammonia_back_titration_at_a_position(bench):
+def test_ammonia_back_titration_at_a_position(bench, request):
     dispensed_before = bench.sim_state()["dosers"]["acid"]["dispensed_ml"]
     [rec] = run_at(bench, "rack-ammonia", [9], amount=20.0)
     assert rec["state"] == "finished", rec["faults"]
@@ -111,16 +113,20 @@ def test_ammonia_back_titration_at_a_position(bench):
     # 0.400 mmol HCl - 0.200 mmol NH3 leaves 0.200 mmol: 2.000 mL of 0.1 mol/L NaOH
     [ep] = rec["endpoints"]
     assert ep["volume_ml"] == pytest.approx(2.000, rel=0.001)
-    print(f"\nammonia back titration: {result(rec)} mmol/L against 10.00")
+    rb.report(request, ["rack ammonia back titration: position 9, %.4f mmol/L against 10.00 "
+                        "(%.4f mL HCl delivered, endpoint %.4f mL)"
+                        % (result(rec), add["volume_ml"], ep["volume_ml"])])
     assert abs(result(rec) - 10.0) <= 0.01
 
 
-def test_rack_without_rinse_is_biased_by_carry_over(bench):
+def test_rack_without_rinse_is_biased_by_carry_over(bench, request):
     carried_before = bench.sim_state()["carried_ml"]
     recs = run_at(bench, "rack-acid-unrinsed", [5, 6, 7])
     assert all(r["state"] == "finished" for r in recs), [r["faults"] for r in recs]
     biases = [bias_pct(r, TRUTH[p]) for p, r in zip([5, 6, 7], recs)]
-    print("\nrack without rinse, bias % at positions 5-7:", [round(b, 3) for b in biases])
+    rb.report(request, [
+        "rack without rinse: position %d, %.4f mmol/L against %.2f (%+.3f %%)"
+        % (p, result(r), TRUTH[p], b) for p, r, b in zip([5, 6, 7], recs, biases)])
     # 5 follows a rinsed head; 6 and 7 each take 0.05 mL of the last beaker,
     # whose excess NaOH (1.5 mL past the endpoint) eats some of their acid
     assert abs(biases[0]) <= 0.1
@@ -189,7 +195,7 @@ def assert_all_halted(bench):
     return sim
 
 
-def test_reading_with_the_head_up_is_refused(bench):
+def test_reading_with_the_head_up_is_refused(bench, request):
     ready(bench)
     r = queue(bench, "rack-acid", 13)
     assert r.status == 201, r.body
@@ -202,13 +208,16 @@ def test_reading_with_the_head_up_is_refused(bench):
     assert "head_up" in [f["code"] for f in rec["faults"]], rec["faults"]
     st = wait_held(bench)
     assert "head_up" in st["held_reason"]
+    rb.report(request, [f"rack head raised during a titration: run {rec['state']} (head_up "
+                        f"after {len(bench.get(f'/v1/runs/{run_id}/points')['points'])} "
+                        "points); station held, daemon up"])
     assert_all_halted(bench)
     resume_when_idle(bench)
 
 
 @pytest.mark.parametrize("fault,position", [("jam", 10), ("stuck-lift", 11),
                                             ("mute-changer", 12)])
-def test_changer_fault_halts_fails_and_holds(bench, fault, position):
+def test_changer_fault_halts_fails_and_holds(bench, request, fault, position):
     ready(bench)
     assert bench.control(f"fault {fault}") == "ok"
     r = queue(bench, "rack-acid", position)
@@ -221,6 +230,9 @@ def test_changer_fault_halts_fails_and_holds(bench, fault, position):
     assert st["held_reason"].startswith("changer: ")
     assert_all_halted(bench)
     assert bench.request("GET", "/v1/health").status == 200  # the daemon is up
+    msg = next(f["message"] for f in rec["faults"] if f["code"] == "changer")
+    rb.report(request, [f"rack fault {fault}: run {rec['state']} ({msg}); station held, "
+                        "burette and dosers halted, daemon up"])
     # nothing more starts on a held station: a queued run waits
     r = queue(bench, "rack-acid", position + 1 if position < 12 else 13)
     assert r.status == 201
