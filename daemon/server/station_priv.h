@@ -149,10 +149,10 @@ enum { STEP_DONE = 0, STEP_INTERRUPTED = 1, STEP_FAULT = -1 };
 
 typedef struct station_step_done {
 	method_step_kind_t kind;
-	bool before;              /* of before (else after) */
-	char doser[CFG_NAME_MAX]; /* add */
-	double volume_ml;         /* add: delivered, mL (NaN: none known) */
-	double s;                 /* stir, wait, rinse: asked for, s */
+	bool before;               /* of before (else after) */
+	char doser[METHOD_ID_MAX]; /* add */
+	double volume_ml;          /* add: delivered, mL (NaN: none known) */
+	double s;                  /* stir, wait, rinse: asked for, s */
 	char started_at[32], ended_at[32];
 } station_step_done_t;
 
