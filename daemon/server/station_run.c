@@ -1121,6 +1121,8 @@ void station_run_job(station_t *s, station_job_t *job)
 	if (act.new_point >= 0)
 		store_new_points(&r);
 	if (!r.fault && !r.interrupted && !r.step_fault) {
+		/* an after step's addition lands on the titrated beaker */
+		r.sc.in_beaker_ml += r.dispensed_ml;
 		int rc = station_run_steps(&r.sc, job->method.after, job->method.n_after, false);
 		if (rc == STEP_DONE)
 			rc = station_park(&r.sc);
