@@ -324,33 +324,76 @@ drv_status_t station_changer_status(station_t *s, drv_changer_status_t *st, drv_
 	return rc;
 }
 
-bool station_halt_all(station_t *s, const char *why)
+bool station_halt_doser(station_t *s, int i, const char *why)
+{
+	struct station_doser *o = &s->dosers[i];
+	drv_err_t err = {{0}};
+	bool done = false;
+
+	/* tried also on a line that failed: the driver reopens it once (drv.h) */
+	for (int k = 0; k < 2 && !done; k++)
+		done = drv_burette_halt(&o->bur, &err) == DRV_OK;
+	if (done && o->halt_pending)
+		log_notice("station %s: doser %s halted (%s)", s->name, o->name, why);
+	if (!done && !o->halt_pending) {
+		log_err("station %s: doser %s not confirmed halted (%s): %s; trying again until it "
+		        "answers",
+		        s->name, o->name, why, err.msg);
+		station_set_error(s, "a doser did not confirm its halt; trying again");
+	}
+	o->halt_pending = !done;
+	if (!done)
+		s->extra_halt_next_s = clock_mono_s() + STATION_HALT_RETRY_MAX_S;
+	return done;
+}
+
+static bool halt_changer(station_t *s, const char *why)
 {
 	drv_err_t err = {{0}};
+	bool done = false;
+
+	for (int k = 0; k < 2 && !done; k++)
+		done = drv_changer_halt(&s->chg, &err) == DRV_OK;
+	if (done && s->chg_halt_pending)
+		log_notice("station %s: changer halted (%s)", s->name, why);
+	if (!done && !s->chg_halt_pending)
+		log_err("station %s: changer not confirmed halted (%s): %s; trying again until it "
+		        "answers",
+		        s->name, why, err.msg);
+	s->chg_halt_pending = !done;
+	if (!done)
+		s->extra_halt_next_s = clock_mono_s() + STATION_HALT_RETRY_MAX_S;
+	return done;
+}
+
+bool station_halt_all(station_t *s, const char *why)
+{
 	bool ok = station_halt_burette(s, why);
 
-	for (int i = 0; i < s->n_dosers; i++) {
-		struct station_doser *o = &s->dosers[i];
-		bool done = false;
-		for (int k = 0; k < 2 && o->open && !done; k++)
-			done = drv_burette_halt(&o->bur, &err) == DRV_OK;
-		if (!done) {
-			log_err("station %s: doser %s not confirmed halted (%s): %s", s->name,
-			        o->name, why, o->open ? err.msg : "not connected");
-			ok = false;
-		}
-	}
-	if (s->has_changer) {
-		bool done = false;
-		for (int k = 0; k < 2 && s->chg_open && !done; k++)
-			done = drv_changer_halt(&s->chg, &err) == DRV_OK;
-		if (!done) {
-			log_err("station %s: changer not confirmed halted (%s): %s", s->name, why,
-			        s->chg_open ? err.msg : "not connected");
-			ok = false;
-		}
-	}
+	for (int i = 0; i < s->n_dosers; i++)
+		ok = station_halt_doser(s, i, why) && ok;
+	if (s->has_changer)
+		ok = halt_changer(s, why) && ok;
 	return ok;
+}
+
+bool station_extra_halts_retry(station_t *s)
+{
+	bool pending = s->chg_halt_pending;
+
+	for (int i = 0; i < s->n_dosers; i++)
+		pending = pending || s->dosers[i].halt_pending;
+	if (!pending)
+		return true;
+	if (clock_mono_s() < s->extra_halt_next_s)
+		return false;
+	pending = false;
+	for (int i = 0; i < s->n_dosers; i++)
+		if (s->dosers[i].halt_pending)
+			pending = !station_halt_doser(s, i, "halt not yet acknowledged") || pending;
+	if (s->chg_halt_pending)
+		pending = !halt_changer(s, "halt not yet acknowledged") || pending;
+	return !pending;
 }
 
 double station_halt_retry_s(int failed_tries)
@@ -746,6 +789,7 @@ static void idle_tick(station_t *s, double *next_read)
 	bool measuring, dirty;
 
 	station_halt_retry(s);
+	station_extra_halts_retry(s);
 	open_devices(s, false);
 	/* No run: the stirrer should be off. An off that failed (its link was
 	 * the thing that failed, e.g. a Modbus line shared with the probe) is
@@ -816,14 +860,16 @@ static void *station_main(void *arg)
 	for (;;) {
 		station_job_t *job = NULL;
 		int unstored = station_store_pending(s, false);
+		bool extras_halted = station_extra_halts_retry(s);
 		pthread_mutex_lock(&s->lock);
 		atomic_store_explicit(&s->heartbeat_us, notify_now_us(), memory_order_relaxed);
 		if (s->stop_req) {
 			station_unlock(s);
 			break;
 		}
-		/* nothing starts on a burette that may still be moving */
-		if (s->qn && !unstored && !s->halt_pending && !s->snap.held &&
+		/* nothing starts on a burette that may still be moving, nor while
+		 * a doser or the changer may be */
+		if (s->qn && !unstored && !s->halt_pending && extras_halted && !s->snap.held &&
 		    !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
 			job = s->queue[0];
 			memmove(s->queue, s->queue + 1, (size_t)(s->qn - 1) * sizeof s->queue[0]);

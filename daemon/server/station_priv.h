@@ -57,7 +57,10 @@ struct station {
 		drv_burette_t bur;
 		drv_burette_info_t info;
 		bool open;
+		bool halt_pending; /* a halt it did not acknowledge: sent again */
 	} dosers[CFG_MAX_DOSERS];
+	bool chg_halt_pending;    /* a halt the changer did not acknowledge: sent again */
+	double extra_halt_next_s; /* monotonic time of the next try of those, s */
 
 	pthread_t thread;
 	bool started;
@@ -137,8 +140,15 @@ void station_set_error(station_t *s, const char *msg);
  * device on every open); true when all of them are open. */
 bool station_open_extras(station_t *s);
 /* Halt every dosing unit (the burette and each doser) and the changer; true
- * when each acknowledged. */
+ * when each acknowledged. A doser or changer that did not is marked and sent
+ * the halt again (station_extra_halts_retry) until it answers; no run starts
+ * meanwhile. */
 bool station_halt_all(station_t *s, const char *why);
+/* Try the pending halts of dosers and the changer again when their time has
+ * come; true when none is pending (any more). */
+bool station_extra_halts_retry(station_t *s);
+/* Halt one doser (two tries); marks it pending when it does not answer. */
+bool station_halt_doser(station_t *s, int i, const char *why);
 /* Ask the changer where it is and publish it; DRV_OK with *st. */
 drv_status_t station_changer_status(station_t *s, drv_changer_status_t *st, drv_err_t *err);
 

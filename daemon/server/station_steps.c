@@ -179,15 +179,10 @@ int station_head_to(station_step_ctx_t *c, long position, bool lower)
 
 bool station_halt_all_dosing(station_t *s, const char *why)
 {
-	drv_err_t err = {{0}};
 	bool ok = station_halt_burette(s, why);
 
-	for (int i = 0; i < s->n_dosers; i++) {
-		bool done = false;
-		for (int k = 0; k < 2 && s->dosers[i].open && !done; k++)
-			done = drv_burette_halt(&s->dosers[i].bur, &err) == DRV_OK;
-		ok = ok && done;
-	}
+	for (int i = 0; i < s->n_dosers; i++)
+		ok = station_halt_doser(s, i, why) && ok;
 	return ok;
 }
 
@@ -248,8 +243,13 @@ static int doser_add(station_step_ctx_t *c, struct station_doser *o, double ml,
 		} else {
 			rc = wait_doser(c, o, &bs);
 		}
-		if (rc == STEP_FAULT)
-			(void)drv_burette_status(&o->bur, &bs, &err);
+		/* After a fault the doser's own count says what went in; when it
+		 * cannot be read (its line is gone) nobody knows: NaN, null in the
+		 * record, never a guess. */
+		if (rc == STEP_FAULT && drv_burette_status(&o->bur, &bs, &err) != DRV_OK) {
+			*delivered_ml = NAN;
+			return rc;
+		}
 		if (bs.dispensed_ml > before && isfinite(bs.dispensed_ml))
 			*delivered_ml += bs.dispensed_ml - before;
 		if (rc != STEP_DONE)
@@ -348,9 +348,10 @@ int station_run_steps(station_step_ctx_t *c, const method_step_t *steps, int n, 
 				break;
 			}
 			rc = doser_add(c, o, st->ml, &delivered);
-			c->delivered_ml[idx] += delivered;
-			c->in_beaker_ml += delivered;
-			c->added_ml += delivered;
+			c->delivered_ml[idx] += delivered; /* NaN stays: unknown */
+			/* unknown counts as all of it, for the beaker's total */
+			c->in_beaker_ml += isfinite(delivered) ? delivered : st->ml;
+			c->added_ml += isfinite(delivered) ? delivered : st->ml;
 			if (d)
 				d->volume_ml = delivered;
 			if (before && c->n_adds < METHOD_MAX_ADDS) {
@@ -408,6 +409,9 @@ void station_fault_stop(station_t *s, const char *code)
 	station_halt_all_dosing(s, code);
 	for (int k = 0; k < 2 && s->has_changer && s->chg_open && !answered; k++)
 		answered = drv_changer_halt(&s->chg, &err) == DRV_OK;
+	s->chg_halt_pending = s->has_changer && !answered;
+	if (s->chg_halt_pending)
+		s->extra_halt_next_s = clock_mono_s() + STATION_HALT_RETRY_MAX_S;
 	/* Raise the head where it is safe: only a changer that answered its
 	 * halt is given a command (a silent line may hear half of one). The head
 	 * out of the beaker keeps a tip from dripping into it. */
@@ -441,7 +445,10 @@ json_t *station_steps_json(const station_step_ctx_t *c)
 	}
 	for (int i = 0; i < s->n_dosers; i++)
 		json_object_set_new(dosers, s->dosers[i].name,
-		                    json_pack("{s:f,s:s}", "delivered_ml", c->delivered_ml[i],
+		                    json_pack("{s:o,s:s}", "delivered_ml",
+		                              isfinite(c->delivered_ml[i])
+		                                  ? json_real(c->delivered_ml[i])
+		                                  : json_null(),
 		                              "reagent", s->dosers[i].reagent));
 	json_object_set_new(o, "steps", steps);
 	json_object_set_new(o, "dosers", dosers);

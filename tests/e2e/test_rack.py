@@ -244,6 +244,39 @@ def test_changer_fault_halts_fails_and_holds(bench, request, fault, position):
     resume_when_idle(bench)
 
 
+def test_doser_fault_halts_fails_and_holds(bench, request):
+    ready(bench)
+    r = queue(bench, "rack-ammonia", 14, amount=20.0)
+    assert r.status == 201, r.body
+    run_id = r.json()["id"]
+    deadline = time.monotonic() + 30
+    while not bench.sim_state()["dosers"]["acid"]["moving"]:
+        assert time.monotonic() < deadline, "the doser never started"
+        time.sleep(0.05)
+    # every line of the bench gone for 2 s, in the middle of the addition
+    assert bench.control("fault unplug 2") == "ok"
+    rec = bench.wait_state(run_id, FINAL, 60)
+    assert rec["state"] == "failed"
+    [add] = rec["steps"]
+    # the doser's count could not be read with its line gone: unknown, not a guess
+    assert add["kind"] == "add" and add["volume_ml"] is None
+    assert rec["dosers"]["acid"]["delivered_ml"] is None
+    codes = [f["code"] for f in rec["faults"]]
+    assert "doser" in codes, rec["faults"]
+    assert rec["endpoints"] == [] and rec["dispensed_ml"] == 0  # never titrated
+    st = wait_held(bench)
+    assert st["held_reason"].startswith("doser: ")
+    time.sleep(2.5)  # the lines are back
+    before = assert_all_halted(bench)["dosers"]["acid"]["dispensed_ml"]
+    time.sleep(0.5)  # halted for good: its count stands still
+    assert bench.sim_state()["dosers"]["acid"]["dispensed_ml"] == before
+    assert bench.request("GET", "/v1/health").status == 200
+    rb.report(request, [f"rack doser fault (lines unplugged mid-addition): run {rec['state']}, "
+                        f"doser halted once its line was back ({before:.3f} of 4 mL in, by "
+                        "its own count); station held, daemon up"])
+    resume_when_idle(bench)
+
+
 def test_nothing_moves_after_a_restart(bench):
     # a run queued on a held station, then the daemon restarts: the run is
     # queued again, the station is held, and the changer stays where it is
