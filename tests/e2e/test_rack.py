@@ -246,6 +246,7 @@ def test_changer_fault_halts_fails_and_holds(bench, request, fault, position):
 
 def test_doser_fault_halts_fails_and_holds(bench, request):
     ready(bench)
+    count0 = bench.sim_state()["dosers"]["acid"]["dispensed_ml"]
     r = queue(bench, "rack-ammonia", 14, amount=20.0)
     assert r.status == 201, r.body
     run_id = r.json()["id"]
@@ -272,8 +273,8 @@ def test_doser_fault_halts_fails_and_holds(bench, request):
     assert bench.sim_state()["dosers"]["acid"]["dispensed_ml"] == before
     assert bench.request("GET", "/v1/health").status == 200
     rb.report(request, [f"rack doser fault (lines unplugged mid-addition): run {rec['state']}, "
-                        f"doser halted once its line was back ({before:.3f} of 4 mL in, by "
-                        "its own count); station held, daemon up"])
+                        f"doser halted once its line was back ({before - count0:.3f} of 4 mL in, "
+                        "by its own count); station held, daemon up"])
     resume_when_idle(bench)
 
 
