@@ -118,10 +118,11 @@ typedef struct changer {
 	cmdp_line_t line; /* the serial link, its options and the profile's line ends */
 	changer_profile_t prof;
 	long positions;
+	long rinse, park; /* positions of the rack; 0: none */
 	bool fault;
 } changer_t;
 
-static const char *const own_keys[] = {"profile", "positions", NULL};
+static const char *const own_keys[] = {"profile", "positions", "rinse", "park", NULL};
 
 static int load_profile(const char *path, void *prof, diag_list_t *d)
 {
@@ -150,6 +151,17 @@ static int ch_configure(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, 
 	/* A rack with fewer places than the mechanism can reach. */
 	if (ok && (n = yt_get(cfg, "positions")))
 		ok &= yt_long(doc, n, "positions", 1, c->prof.positions, &c->positions, d);
+	/* Where the head is rinsed and where it waits between runs: places of
+	 * the rack, which a station uses for a method's rinse and after a run. */
+	if (ok && (n = yt_get(cfg, "rinse")))
+		ok &= yt_long(doc, n, "rinse", 1, c->positions, &c->rinse, d);
+	if (ok && (n = yt_get(cfg, "park")))
+		ok &= yt_long(doc, n, "park", 1, c->positions, &c->park, d);
+	if (ok && c->rinse && c->rinse == c->park) {
+		yt_error(doc, yt_get(cfg, "park"), d,
+		         "park: position %ld is the rinse position too", c->park);
+		ok = false;
+	}
 	if (!ok) {
 		free(c);
 		return -1;
@@ -164,6 +176,8 @@ static void ch_info(void *priv, drv_changer_info_t *out)
 	out->positions = c->positions;
 	out->has_rinse = c->prof.rinse[0] != '\0';
 	out->has_waste = c->prof.waste[0] != '\0';
+	out->rinse = c->rinse;
+	out->park = c->park;
 }
 
 typedef struct accept {

@@ -136,6 +136,8 @@ typedef struct drv_changer_info {
 	long positions; /* positions are numbered 1 .. positions */
 	bool has_rinse; /* the profile has a rinse pump command */
 	bool has_waste; /* the profile has a waste pump command */
+	long rinse;     /* the position holding water for rinsing the head; 0: none */
+	long park;      /* where the head waits between runs, in storage solution; 0: none */
 } drv_changer_info_t;
 
 typedef struct drv_changer_status {

@@ -19,14 +19,18 @@
 
 int cmd_start(int argc, char **argv)
 {
-	static const char usage[] = "start --station N --method M --sample-id ID --amount X";
+	static const char usage[] =
+	    "start --station N --method M --sample-id ID --amount X [--position P]";
 	const char *station = NULL, *method = NULL, *sample = NULL, *amount_s = NULL;
+	const char *position_s = NULL;
 	const client_arg_t args[] = {
 	    {"station", &station, NULL, "N  the station to run on"},
 	    {"method", &method, NULL, "M  the method id (its latest revision runs)"},
 	    {"sample-id", &sample, NULL, "ID  the sample's id, as the LIMS knows it"},
 	    {"amount", &amount_s, NULL,
 	     "X  the sample amount, in the method's sample unit (mL or g)"},
+	    {"position", &position_s, NULL,
+	     "P  the sample's rack position (1 or more), on a station with a sample changer"},
 	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "start");
@@ -46,8 +50,17 @@ int cmd_start(int argc, char **argv)
 		                    "sample unit says), not '%s'",
 		                    amount_s);
 
+	long long position = 0;
+	if (position_s && !parse_whole(position_s, 1, 1000000, &position))
+		return client_usage(&c, usage,
+		                    "--position must be a whole number of 1 or more (the rack "
+		                    "position), not '%s'",
+		                    position_s);
+
 	json_t *body = json_pack("{s:s,s:s,s:s,s:f}", "station", station, "method", method,
 	                         "sample_id", sample, "amount", amount);
+	if (body && position > 0)
+		json_object_set_new(body, "position", json_integer((json_int_t)position));
 	json_t *reply = NULL;
 	int rc = client_json(&c, "POST", "/v1/runs", body, true, &reply, NULL);
 	json_decref(body);

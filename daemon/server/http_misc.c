@@ -38,13 +38,20 @@ json_t *http_station_json(station_t *st)
 	              real_or_null(s.has_burette, s.contents_ml), "halt_pending", s.halt_pending);
 	/* A held station that runs nothing says so in its state (docs/api.md). */
 	const char *state = s.held && !s.run_id && !strcmp(s.state, "idle") ? "held" : s.state;
-	return json_pack("{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o}", "name", s.name, "state",
-	                 state, "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading",
-	                 reading, "burette", burette, "run",
-	                 s.run_id ? json_integer(s.run_id) : json_null(), "vessel_max_ml",
-	                 s.vessel_max_ml, "queued", s.queued, "error",
-	                 s.last_error[0] ? json_string(s.last_error) : json_null(), "held", s.held,
-	                 "held_reason", s.held ? json_string(s.held_reason) : json_null());
+	/* The sample changer as it last answered; null without one. */
+	json_t *changer =
+	    !s.has_changer ? json_null()
+	    : s.changer_known
+	        ? json_pack("{s:I,s:s,s:b}", "position", (json_int_t)s.changer_position, "lift",
+	                    s.changer_lift, "moving", s.changer_moving)
+	        : json_pack("{s:n,s:n,s:n}", "position", "lift", "moving");
+	return json_pack(
+	    "{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o,s:o}", "name", s.name, "state", state,
+	    "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading", reading, "burette",
+	    burette, "run", s.run_id ? json_integer(s.run_id) : json_null(), "vessel_max_ml",
+	    s.vessel_max_ml, "queued", s.queued, "error",
+	    s.last_error[0] ? json_string(s.last_error) : json_null(), "held", s.held,
+	    "held_reason", s.held ? json_string(s.held_reason) : json_null(), "changer", changer);
 }
 
 void http_get_stations(const http_req_t *q, http_reply_t *r)

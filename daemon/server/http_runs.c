@@ -63,12 +63,24 @@ void http_post_run(const http_req_t *q, http_reply_t *r)
 		                 jerr.text);
 		return;
 	}
-	if (json_unpack_ex(body, &jerr, JSON_STRICT, "{s:s,s:s,s:s,s:F}", "station", &req.station,
-	                   "method", &req.method_id, "sample_id", &req.sample_id, "amount",
-	                   &req.amount)) {
+	json_t *pos = NULL;
+	if (json_unpack_ex(body, &jerr, JSON_STRICT, "{s:s,s:s,s:s,s:F,s?o}", "station",
+	                   &req.station, "method", &req.method_id, "sample_id", &req.sample_id,
+	                   "amount", &req.amount, "position", &pos)) {
 		http_reply_error(r, 400, "bad_request", "%s", jerr.text);
 		json_decref(body);
 		return;
+	}
+	if (pos && !json_is_null(pos)) {
+		if (!json_is_integer(pos) || json_integer_value(pos) < 1 ||
+		    json_integer_value(pos) > 1000000) {
+			http_reply_error(r, 400, "bad_request",
+			                 "position must be a whole number of 1 or more (the rack "
+			                 "position of the sample)");
+			json_decref(body);
+			return;
+		}
+		req.position = (int)json_integer_value(pos);
 	}
 	if (run_submit(q->ctx, &req, &res) == SUBMIT_OK) {
 		http_audit(q, req.station, res.run_id, "run", "queued",

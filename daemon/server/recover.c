@@ -96,6 +96,11 @@ static void requeue_one(http_ctx_t *ctx, json_t *row, int *held_runs)
 	}
 	job->run_id = id;
 	job->amount = json_real_value(json_object_get(row, "amount"));
+	/* the rack position it was queued for; the station is held below, so
+	 * nothing moves to it before an operator resumes */
+	json_t *pos = json_object_get(rec, "position");
+	job->position =
+	    json_is_integer(pos) && json_integer_value(pos) > 0 ? (long)json_integer_value(pos) : 0;
 	snprintf(job->sample_id, sizeof job->sample_id, "%s",
 	         json_string_value(json_object_get(row, "sample_id")));
 	snprintf(job->queued_at, sizeof job->queued_at, "%s",

@@ -19,8 +19,10 @@
 #define IDLE_READ_S 1.0 /* probe reading while idle, for the live value */
 #define REOPEN_S    2.0 /* retry unanswering devices this often */
 
+/* Configure the devices; the changer and the dosers into `x` when given
+ * (the station keeps them), else only checked and freed. */
 static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_burette_t *b,
-                              drv_probe_t *p, drv_stirrer_t *st, diag_list_t *d)
+                              drv_probe_t *p, drv_stirrer_t *st, station_t *x, diag_list_t *d)
 {
 	if (sc->burette)
 		drv_burette_configure(&c->doc, sc->burette, b, d);
@@ -28,21 +30,40 @@ static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_buret
 		drv_probe_configure(&c->doc, sc->probe, p, d);
 	if (sc->stirrer)
 		drv_stirrer_configure(&c->doc, sc->stirrer, st, d);
-	/* Each doser is a burette driver of its own: its keys are checked
-	 * here, at start and by --check-config; nothing runs it yet. */
+	/* Each doser is a burette driver of its own. */
 	for (int i = 0; i < sc->n_dosers; i++) {
 		drv_burette_t db = {0};
-		if (sc->dosers[i].burette)
-			drv_burette_configure(&c->doc, sc->dosers[i].burette, &db, d);
+		if (sc->dosers[i].burette &&
+		    drv_burette_configure(&c->doc, sc->dosers[i].burette, &db, d) == 0 && x) {
+			struct station_doser *o = &x->dosers[x->n_dosers++];
+			snprintf(o->name, sizeof o->name, "%s", sc->dosers[i].name);
+			snprintf(o->reagent, sizeof o->reagent, "%s", sc->dosers[i].reagent);
+			o->molarity = sc->dosers[i].molarity;
+			o->bur = db;
+			drv_burette_info(&o->bur, &o->info);
+			continue;
+		}
 		drv_burette_close(&db);
 	}
-	/* The sample changer is checked (so --check-config covers it) but not
-	 * held: no run drives it yet. */
 	if (sc->changer) {
 		drv_changer_t ch = {0};
-		drv_changer_configure(&c->doc, sc->changer, &ch, d);
+		if (drv_changer_configure(&c->doc, sc->changer, &ch, d) == 0 && x) {
+			x->chg = ch;
+			x->has_changer = true;
+			drv_changer_info(&x->chg, &x->chg_info);
+			return;
+		}
 		drv_changer_close(&ch);
 	}
+}
+
+static void close_extras(station_t *s)
+{
+	for (int i = 0; i < s->n_dosers; i++)
+		drv_burette_close(&s->dosers[i].bur);
+	s->n_dosers = 0;
+	drv_changer_close(&s->chg);
+	s->has_changer = false;
 }
 
 int station_check_config(const cfg_t *c, const cfg_station_t *sc, diag_list_t *d)
@@ -52,7 +73,7 @@ int station_check_config(const cfg_t *c, const cfg_station_t *sc, diag_list_t *d
 	drv_stirrer_t st = {0};
 	size_t before = d->n;
 
-	configure_devices(c, sc, &b, &p, &st, d);
+	configure_devices(c, sc, &b, &p, &st, NULL, d);
 	drv_burette_close(&b);
 	drv_probe_close(&p);
 	drv_stirrer_close(&st);
@@ -71,9 +92,10 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 	snprintf(s->name, sizeof s->name, "%s", sc->name);
 	s->vessel_max_ml = sc->vessel_max_ml;
 	s->read_interval_s = sc->read_interval_s;
-	configure_devices(c, sc, &s->bur, &s->probe, &s->stir, d);
+	configure_devices(c, sc, &s->bur, &s->probe, &s->stir, s, d);
 	s->has_stirrer = sc->stirrer != NULL;
 	if (d->n > before) {
+		close_extras(s);
 		drv_burette_close(&s->bur);
 		drv_probe_close(&s->probe);
 		drv_stirrer_close(&s->stir);
@@ -101,6 +123,8 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 	snprintf(s->snap.state, sizeof s->snap.state, "offline");
 	s->snap.capacity_ml = s->info.capacity_ml;
 	s->snap.vessel_max_ml = s->vessel_max_ml;
+	s->snap.has_changer = s->has_changer;
+	snprintf(s->snap.changer_lift, sizeof s->snap.changer_lift, "up");
 	pthread_mutex_lock(&s->lock);
 	station_unlock(s); /* the first published snapshot */
 	return s;
@@ -119,6 +143,52 @@ double station_vessel_max_ml(const station_t *s)
 double station_capacity_ml(const station_t *s)
 {
 	return s->info.capacity_ml;
+}
+
+bool station_changer(const station_t *s, long *positions, long *rinse, long *park)
+{
+	if (!s->has_changer)
+		return false;
+	*positions = s->chg_info.positions;
+	*rinse = s->chg_info.rinse;
+	*park = s->chg_info.park;
+	return true;
+}
+
+bool station_can_run_step(const station_t *s, const method_step_t *st, char *why, size_t cap)
+{
+	switch (st->kind) {
+	case STEP_ADD:
+		for (int i = 0; i < s->n_dosers; i++)
+			if (!strcmp(s->dosers[i].name, st->doser))
+				return true;
+		snprintf(why, cap, "station %s has no dosing unit '%s'", s->name, st->doser);
+		return false;
+	case STEP_STIR:
+		if (s->has_stirrer)
+			return true;
+		snprintf(why, cap, "station %s has no stirrer for stir_s", s->name);
+		return false;
+	case STEP_RINSE:
+		if (s->has_changer && (s->chg_info.has_rinse || s->chg_info.rinse))
+			return true;
+		snprintf(why, cap,
+		         "station %s cannot rinse the head for rinse_s: it needs a sample changer "
+		         "with a rinse pump or a rinse position",
+		         s->name);
+		return false;
+	case STEP_WAIT:
+		return true;
+	}
+	return true;
+}
+
+int station_doser_names(const station_t *s, char (*out)[METHOD_ID_MAX], int cap)
+{
+	int n = 0;
+	for (int i = 0; i < s->n_dosers && n < cap; i++)
+		snprintf(out[n++], METHOD_ID_MAX, "%s", s->dosers[i].name);
+	return n;
 }
 
 void station_set_error(station_t *s, const char *msg)
@@ -172,6 +242,7 @@ static void open_devices(station_t *s, bool force)
 			note_health(s, "probe", &s->probe_bad, false, err.msg);
 		}
 	}
+	station_open_extras(s);
 	if (s->has_stirrer && !s->stir_open) {
 		if (drv_stirrer_open(&s->stir, &err) == DRV_OK) {
 			s->stir_open = true;
@@ -196,7 +267,133 @@ int station_halt_at_start(station_t *s, char *err, size_t cap)
 		snprintf(err, cap, "%s", e.msg);
 		return -1;
 	}
+	/* The changer and the dosers halt on opening too: nothing moves after a
+	 * restart (one that does not answer yet is opened by the thread). */
+	station_open_extras(s);
 	return 0;
+}
+
+bool station_open_extras(station_t *s)
+{
+	drv_err_t err = {{0}};
+	bool all = true;
+
+	if (s->has_changer && !s->chg_open) {
+		if (drv_changer_open(&s->chg, &err) == DRV_OK) {
+			s->chg_open = true;
+			log_info("station %s: changer open", s->name);
+		} else {
+			log_warn("station %s: changer: %s", s->name, err.msg);
+			all = false;
+		}
+	}
+	for (int i = 0; i < s->n_dosers; i++) {
+		struct station_doser *o = &s->dosers[i];
+		if (o->open)
+			continue;
+		if (drv_burette_open(&o->bur, &err) == DRV_OK) {
+			o->open = true;
+			if (drv_burette_halt(&o->bur, &err) != DRV_OK)
+				log_warn("station %s: doser %s: halt after open: %s", s->name,
+				         o->name, err.msg);
+			log_info("station %s: doser %s open", s->name, o->name);
+		} else {
+			log_warn("station %s: doser %s: %s", s->name, o->name, err.msg);
+			all = false;
+		}
+	}
+	return all;
+}
+
+drv_status_t station_changer_status(station_t *s, drv_changer_status_t *st, drv_err_t *err)
+{
+	drv_status_t rc;
+
+	if (!s->chg_open && !station_open_extras(s) && !s->chg_open)
+		return drv_fail(err, DRV_UNPLUGGED, "changer is not connected");
+	rc = drv_changer_status(&s->chg, st, err);
+	if (rc == DRV_OK) {
+		pthread_mutex_lock(&s->lock);
+		s->snap.changer_known = true;
+		s->snap.changer_position = st->position;
+		snprintf(s->snap.changer_lift, sizeof s->snap.changer_lift, "%s",
+		         drv_lift_name(st->lift));
+		s->snap.changer_moving = st->moving;
+		station_unlock(s);
+	}
+	return rc;
+}
+
+bool station_halt_doser(station_t *s, int i, const char *why)
+{
+	struct station_doser *o = &s->dosers[i];
+	drv_err_t err = {{0}};
+	bool done = false;
+
+	/* tried also on a line that failed: the driver reopens it once (drv.h) */
+	for (int k = 0; k < 2 && !done; k++)
+		done = drv_burette_halt(&o->bur, &err) == DRV_OK;
+	if (done && o->halt_pending)
+		log_notice("station %s: doser %s halted (%s)", s->name, o->name, why);
+	if (!done && !o->halt_pending) {
+		log_err("station %s: doser %s not confirmed halted (%s): %s; trying again until it "
+		        "answers",
+		        s->name, o->name, why, err.msg);
+		station_set_error(s, "a doser did not confirm its halt; trying again");
+	}
+	o->halt_pending = !done;
+	if (!done)
+		s->extra_halt_next_s = clock_mono_s() + STATION_HALT_RETRY_MAX_S;
+	return done;
+}
+
+static bool halt_changer(station_t *s, const char *why)
+{
+	drv_err_t err = {{0}};
+	bool done = false;
+
+	for (int k = 0; k < 2 && !done; k++)
+		done = drv_changer_halt(&s->chg, &err) == DRV_OK;
+	if (done && s->chg_halt_pending)
+		log_notice("station %s: changer halted (%s)", s->name, why);
+	if (!done && !s->chg_halt_pending)
+		log_err("station %s: changer not confirmed halted (%s): %s; trying again until it "
+		        "answers",
+		        s->name, why, err.msg);
+	s->chg_halt_pending = !done;
+	if (!done)
+		s->extra_halt_next_s = clock_mono_s() + STATION_HALT_RETRY_MAX_S;
+	return done;
+}
+
+bool station_halt_all(station_t *s, const char *why)
+{
+	bool ok = station_halt_burette(s, why);
+
+	for (int i = 0; i < s->n_dosers; i++)
+		ok = station_halt_doser(s, i, why) && ok;
+	if (s->has_changer)
+		ok = halt_changer(s, why) && ok;
+	return ok;
+}
+
+bool station_extra_halts_retry(station_t *s)
+{
+	bool pending = s->chg_halt_pending;
+
+	for (int i = 0; i < s->n_dosers; i++)
+		pending = pending || s->dosers[i].halt_pending;
+	if (!pending)
+		return true;
+	if (clock_mono_s() < s->extra_halt_next_s)
+		return false;
+	pending = false;
+	for (int i = 0; i < s->n_dosers; i++)
+		if (s->dosers[i].halt_pending)
+			pending = !station_halt_doser(s, i, "halt not yet acknowledged") || pending;
+	if (s->chg_halt_pending)
+		pending = !halt_changer(s, "halt not yet acknowledged") || pending;
+	return !pending;
 }
 
 double station_halt_retry_s(int failed_tries)
@@ -592,6 +789,7 @@ static void idle_tick(station_t *s, double *next_read)
 	bool measuring, dirty;
 
 	station_halt_retry(s);
+	station_extra_halts_retry(s);
 	open_devices(s, false);
 	/* No run: the stirrer should be off. An off that failed (its link was
 	 * the thing that failed, e.g. a Modbus line shared with the probe) is
@@ -610,7 +808,7 @@ static void idle_tick(station_t *s, double *next_read)
 	if (s->halt_req) {
 		s->halt_req = false;
 		station_unlock(s);
-		station_halt_burette(s, "halt requested");
+		station_halt_all(s, "halt requested");
 		pthread_mutex_lock(&s->lock);
 	}
 	station_unlock(s);
@@ -642,6 +840,10 @@ static void idle_tick(station_t *s, double *next_read)
 		}
 		note_health(s, "burette", &s->bur_bad, ok, err.msg);
 	}
+	if (s->has_changer && s->chg_open) {
+		drv_changer_status_t cs;
+		(void)station_changer_status(s, &cs, &err); /* for the status and the page */
+	}
 	if (s->bur_open && s->probe_open && !s->bur_bad && !s->probe_bad && !s->n_pending &&
 	    !s->halt_pending)
 		station_set_error(s, "");
@@ -658,14 +860,16 @@ static void *station_main(void *arg)
 	for (;;) {
 		station_job_t *job = NULL;
 		int unstored = station_store_pending(s, false);
+		bool extras_halted = station_extra_halts_retry(s);
 		pthread_mutex_lock(&s->lock);
 		atomic_store_explicit(&s->heartbeat_us, notify_now_us(), memory_order_relaxed);
 		if (s->stop_req) {
 			station_unlock(s);
 			break;
 		}
-		/* nothing starts on a burette that may still be moving */
-		if (s->qn && !unstored && !s->halt_pending && !s->snap.held &&
+		/* nothing starts on a burette that may still be moving, nor while
+		 * a doser or the changer may be */
+		if (s->qn && !unstored && !s->halt_pending && extras_halted && !s->snap.held &&
 		    !(s->cal && calib_session_state(s->cal) == CALIB_MEASURING)) {
 			job = s->queue[0];
 			memmove(s->queue, s->queue + 1, (size_t)(s->qn - 1) * sizeof s->queue[0]);
@@ -701,8 +905,9 @@ static void *station_main(void *arg)
 			station_unlock(s);
 		}
 	}
-	/* Shutting down: halt the burette, end queued runs. */
-	station_halt_burette(s, "daemon stopping");
+	/* Shutting down: halt the burette (and the dosers and the changer), end
+	 * queued runs. */
+	station_halt_all(s, "daemon stopping");
 	/* A last try for unstored final records; those still refused end as
 	 * `interrupted` at the next start, their points kept. */
 	if (station_store_pending(s, true))
@@ -771,6 +976,7 @@ void station_free(station_t *s)
 	drv_burette_close(&s->bur);
 	drv_probe_close(&s->probe);
 	drv_stirrer_close(&s->stir);
+	close_extras(s);
 	for (int i = 0; i < s->qn; i++)
 		free(s->queue[i]);
 	calib_session_free(s->cal);

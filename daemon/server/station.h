@@ -25,6 +25,7 @@
 #include "calib.h"
 #include "config.h"
 #include "diag.h"
+#include "drv.h"
 #include "method.h"
 #include "store.h"
 
@@ -66,6 +67,12 @@ typedef struct station_snapshot {
 	uint64_t heartbeat_us; /* notify_now_us() of the thread's last loop */
 	bool held;             /* nothing starts until an operator resumes the station */
 	char held_reason[200]; /* why, for the status; "" when not held */
+	/* the sample changer, as it last answered (has_changer: the station has one) */
+	bool has_changer;
+	bool changer_known; /* it has answered since the daemon started */
+	long changer_position;
+	char changer_lift[8]; /* up, down, between */
+	bool changer_moving;
 } station_snapshot_t;
 
 /* Configure the drivers from the config (no I/O). NULL with errors in d. */
@@ -90,6 +97,14 @@ const char *station_name(const station_t *s);
 double station_vessel_max_ml(const station_t *s);
 /* Syringe volume from the driver's configuration, mL. */
 double station_capacity_ml(const station_t *s);
+/* The station's sample changer: false when it has none; else its number of
+ * positions, and its rinse and park positions (0: none). */
+bool station_changer(const station_t *s, long *positions, long *rinse, long *park);
+/* Can the station run this step (the doser of an add, a stirrer for
+ * stir_s, a changer that rinses for rinse_s)? false with why. */
+bool station_can_run_step(const station_t *s, const method_step_t *st, char *why, size_t cap);
+/* The station's dosing units' names (for method_limits_add_dosers); how many. */
+int station_doser_names(const station_t *s, char (*out)[METHOD_ID_MAX], int cap);
 
 void station_snapshot(station_t *s, station_snapshot_t *out);
 
@@ -100,6 +115,16 @@ void station_snapshot(station_t *s, station_snapshot_t *out);
  * (also for NaN or non-positive input). Pure; station_run.c uses it. */
 int station_dose_interlock(double dispensed_ml, double dose_ml, double method_max_ml,
                            double vessel_max_ml, double quantum_ml, double *allowed_ml);
+
+/* The changer's interlocks (SAFETY.md, "Moving mechanics"), pure; used by
+ * station_steps.c. The rack may turn only with the head up, the changer
+ * still and no dosing unit moving; the head may go down only at the run's
+ * position or the rack's rinse or park position (0: none); an addition may
+ * not take the beaker's total (sample + additions + titrant, mL) past
+ * vessel_max_ml (<= 0: none): 0 when it may, -1 when not (or bad input). */
+bool station_move_allowed(drv_lift_t lift, bool changer_moving, bool dosing_unit_moving);
+bool station_lower_allowed(long at_position, long run_position, long rinse, long park);
+int station_add_interlock(double in_beaker_ml, double add_ml, double vessel_max_ml);
 
 /* A halt the burette did not acknowledge is tried again, after failed_tries
  * failures, this many seconds later: short at first, then never more than
@@ -115,6 +140,7 @@ double station_halt_retry_s(int failed_tries);
 /* A queued run: the method is copied. */
 typedef struct station_job {
 	int64_t run_id;
+	long position; /* rack position of the sample, 0 = none (no changer) */
 	method_t method;
 	double amount;
 	char sample_id[128];
@@ -140,7 +166,8 @@ typedef enum {
 /* Abort a run that is current or queued on this station. The burette is
  * halted by the thread at its next step (within one device deadline). */
 station_cmd_t station_abort(station_t *s, int64_t run_id);
-/* Halt the burette at once; the current run becomes aborted. */
+/* Halt the burette, the dosers and the changer at once; the current run
+ * becomes aborted. */
 station_cmd_t station_halt(station_t *s);
 
 /* The daemon's titer book (titer_book.h), shared by every station; before

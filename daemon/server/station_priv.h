@@ -2,6 +2,7 @@
 #ifndef STOPCOCK_STATION_PRIV_H
 #define STOPCOCK_STATION_PRIV_H
 
+#include <jansson.h>
 #include <pthread.h>
 #include <stdatomic.h>
 #include <stdbool.h>
@@ -42,6 +43,24 @@ struct station {
 	bool bur_bad, probe_bad; /* the last idle check failed (logged once) */
 	bool stir_on;
 	double next_open_try_s; /* monotonic, s */
+	/* The sample changer and the extra dosing units (station thread only,
+	 * like the burette): a run moves the head to its position and runs the
+	 * method's steps with them (station_steps.c). */
+	bool has_changer, chg_open;
+	drv_changer_t chg;
+	drv_changer_info_t chg_info;
+	int n_dosers;
+	struct station_doser {
+		char name[CFG_NAME_MAX];
+		char reagent[160];
+		double molarity; /* nominal, mol/L */
+		drv_burette_t bur;
+		drv_burette_info_t info;
+		bool open;
+		bool halt_pending; /* a halt it did not acknowledge: sent again */
+	} dosers[CFG_MAX_DOSERS];
+	bool chg_halt_pending;    /* a halt the changer did not acknowledge: sent again */
+	double extra_halt_next_s; /* monotonic time of the next try of those, s */
 
 	pthread_t thread;
 	bool started;
@@ -116,6 +135,69 @@ bool station_halt_burette(station_t *s, const char *why);
  * pending (any more). */
 bool station_halt_retry(station_t *s);
 void station_set_error(station_t *s, const char *msg);
+
+/* Open the changer and the dosers that are closed (each driver halts its
+ * device on every open); true when all of them are open. */
+bool station_open_extras(station_t *s);
+/* Halt every dosing unit (the burette and each doser) and the changer; true
+ * when each acknowledged. A doser or changer that did not is marked and sent
+ * the halt again (station_extra_halts_retry) until it answers; no run starts
+ * meanwhile. */
+bool station_halt_all(station_t *s, const char *why);
+/* Try the pending halts of dosers and the changer again when their time has
+ * come; true when none is pending (any more). */
+bool station_extra_halts_retry(station_t *s);
+/* Halt one doser (two tries); marks it pending when it does not answer. */
+bool station_halt_doser(station_t *s, int i, const char *why);
+/* Ask the changer where it is and publish it; DRV_OK with *st. */
+drv_status_t station_changer_status(station_t *s, drv_changer_status_t *st, drv_err_t *err);
+
+/* ---- a run's changer moves and steps (station_steps.c) ---- */
+
+enum { STEP_DONE = 0, STEP_INTERRUPTED = 1, STEP_FAULT = -1 };
+#define STATION_MAX_DONE (2 * METHOD_MAX_STEPS)
+
+typedef struct station_step_done {
+	method_step_kind_t kind;
+	bool before;               /* of before (else after) */
+	char doser[METHOD_ID_MAX]; /* add */
+	double volume_ml;          /* add: delivered, mL (NaN: none known) */
+	double s;                  /* stir, wait, rinse: asked for, s */
+	char started_at[32], ended_at[32];
+} station_step_done_t;
+
+typedef struct station_step_ctx {
+	station_t *s;
+	int64_t run_id;
+	long position;                       /* the run's rack position; 0: none */
+	double in_beaker_ml;                 /* sample + additions + titrant so far, mL */
+	double added_ml;                     /* by the steps' additions, mL */
+	double delivered_ml[CFG_MAX_DOSERS]; /* by doser index, mL */
+	int n_adds;                          /* additions of before, in order: addN_* */
+	double add_ml[METHOD_MAX_ADDS];
+	int add_doser[METHOD_MAX_ADDS];
+	int n_done;
+	station_step_done_t done[STATION_MAX_DONE];
+	char code[32]; /* on STEP_FAULT */
+	char msg[300];
+} station_step_ctx_t;
+
+/* The head to `position`: up (every dosing unit halted first), the rack
+ * turned, and down when `lower`. STEP_DONE, STEP_INTERRUPTED, or STEP_FAULT
+ * with c->code and c->msg. */
+int station_head_to(station_step_ctx_t *c, long position, bool lower);
+/* Run steps in order; the same returns. */
+int station_run_steps(station_step_ctx_t *c, const method_step_t *steps, int n, bool before);
+/* After a run: the head to the park position (down, in storage solution),
+ * or up when the rack has none. */
+int station_park(station_step_ctx_t *c);
+/* Halt the burette and every doser; true when each acknowledged. */
+bool station_halt_all_dosing(station_t *s, const char *why);
+/* After a changer or doser fault: halt every dosing unit and the changer,
+ * raise the head where safe. */
+void station_fault_stop(station_t *s, const char *code);
+/* {"steps": [...], "dosers": {name: {delivered_ml, reagent}}} (new reference). */
+json_t *station_steps_json(const station_step_ctx_t *c);
 
 /* Execute one run to its end (station_run.c). */
 void station_run_job(station_t *s, station_job_t *job);

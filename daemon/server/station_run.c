@@ -47,11 +47,31 @@ typedef struct run {
 	bool fault;              /* a device fault ended the run */
 	bool interrupted;        /* stop / halt / abort */
 	double live_read_mono_s; /* when the live reading was last taken */
+	double sample_ml;        /* the sample's volume when measured in mL, else 0 */
+	station_step_ctx_t sc;   /* the head's moves and the method's steps */
+	bool step_fault;         /* a step, a move or the changer failed (sc.code, sc.msg) */
+	char hold[200];          /* hold the station after the run, why; "" when not */
 } run_t;
 
 static void now_text(char out[32])
 {
 	time_format_rfc3339(clock_wall_s(), out);
+}
+
+/* What a run at a rack position adds to the record (docs/api.md): the
+ * position, the steps done and each doser's delivered volume. */
+static void record_extras(const run_t *r, json_t *j)
+{
+	if (!j)
+		return;
+	json_object_set_new(j, "position",
+	                    r->job->position > 0 ? json_integer(r->job->position) : json_null());
+	if (r->s->n_dosers > 0 || r->sc.n_done > 0) {
+		json_t *x = station_steps_json(&r->sc);
+		if (x)
+			json_object_update(j, x);
+		json_decref(x);
+	}
 }
 
 static char *record_text(run_t *r)
@@ -61,8 +81,10 @@ static char *record_text(run_t *r)
 	char *text;
 
 	now_text(at);
-	record_fill_from_engine(&r->rec, r->e, at);
+	if (r->e)
+		record_fill_from_engine(&r->rec, r->e, at);
 	j = record_to_json(&r->rec);
+	record_extras(r, j);
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(j);
 	return text;
@@ -122,6 +144,7 @@ static int store_new_points(run_t *r)
 
 static bool burette_status(run_t *r, drv_burette_status_t *bs, drv_err_t *err);
 static double t_run(const run_t *r);
+static void mech_fault(run_t *r);
 
 /* Halt the burette for the run and read where it stopped (bs). A halt the
  * burette does not acknowledge is tried again (station_halt_retry) and so is
@@ -359,10 +382,15 @@ static engine_action_t do_dose(run_t *r, double dose_ml)
 	char msg[300];
 	int w;
 
-	/* Interlocks: the method's and the vessel's limits on the run total. */
-	if (s->vessel_max_ml > 0 && s->vessel_max_ml < limit_ml)
-		limit_ml = s->vessel_max_ml;
-	if (station_dose_interlock(r->dispensed_ml, dose_ml, m->volume_max_ml, s->vessel_max_ml, q,
+	/* Interlocks: the method's limit on the run total, and the vessel's on
+	 * the beaker's (the sample in mL and the additions are in it too). */
+	double room_ml =
+	    s->vessel_max_ml > 0 ? s->vessel_max_ml - r->sample_ml - r->sc.added_ml : 0;
+	if (s->vessel_max_ml > 0 && room_ml < limit_ml)
+		limit_ml = room_ml;
+	if (s->vessel_max_ml > 0 && !(room_ml > 0))
+		room_ml = 1e-12; /* nothing fits: station_dose_interlock refuses */
+	if (station_dose_interlock(r->dispensed_ml, dose_ml, m->volume_max_ml, room_ml, q,
 	                           &allowed_ml)) {
 		snprintf(msg, sizeof msg,
 		         "interlock: a dose of %.4f mL would pass the limit of %.3f mL "
@@ -438,6 +466,28 @@ static engine_action_t do_read(run_t *r, double scheduled_t_s)
 	drv_err_t err = {{0}};
 	engine_event_t ev = {.kind = ENGINE_EV_READING};
 
+	/* Never titrate with the head up: on a station with a changer every
+	 * reading is taken only when the changer says the head is down. */
+	if (r->s->has_changer) {
+		drv_changer_status_t cs = {.lift = DRV_LIFT_BETWEEN};
+		drv_status_t cst = station_changer_status(r->s, &cs, &err);
+		if (cst != DRV_OK || cs.fault || cs.lift != DRV_LIFT_DOWN) {
+			if (cst == DRV_OK && !cs.fault) {
+				snprintf(r->sc.code, sizeof r->sc.code, "head_up");
+				snprintf(r->sc.msg, sizeof r->sc.msg,
+				         "interlock: a reading with the head %s is refused; the "
+				         "titration stops",
+				         drv_lift_name(cs.lift));
+			} else {
+				snprintf(r->sc.code, sizeof r->sc.code, "changer");
+				snprintf(r->sc.msg, sizeof r->sc.msg,
+				         "changer during the titration: %s",
+				         err.msg[0] ? err.msg : "it reports a fault");
+			}
+			mech_fault(r);
+			return fault_halted(r, t_run(r), r->sc.code, r->sc.msg);
+		}
+	}
 	for (int i = 0; i < PROBE_TRIES; i++) {
 		if (station_read_probe(r->s, &rd, &err) == DRV_OK)
 			break;
@@ -773,6 +823,8 @@ static void finish(run_t *r)
 	/* Stopping the daemon is not an operator's abort: the run is
 	 * interrupted (docs/lims.md). */
 	const char *state = !strcmp(cut, "interrupted") ? "interrupted" : final_state(r);
+	/* a fault of an after step or of the park fails a finished titration */
+	bool after_fault = r->step_fault && !r->fault && !strcmp(state, "finished");
 	char *text;
 	int64_t seq = 0;
 	int n = engine_n_points(r->e);
@@ -793,6 +845,8 @@ static void finish(run_t *r)
 	now_text(r->rec.ended_at);
 	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);
 	memset(&note, 0, sizeof note);
+	if (after_fault)
+		state = "failed";
 	if (!strcmp(state, "finished") && r->job->method.purpose == PURPOSE_STANDARDIZE)
 		standardization_add(r, &note);
 	text = record_text(r);
@@ -821,6 +875,17 @@ static void finish(run_t *r)
 				json_array_append_new(fl, json_pack("{s:s,s:s,s:s}", "at",
 				                                    r->rec.ended_at, "code", cut,
 				                                    "message", words));
+		}
+		if (after_fault) {
+			json_t *fl = json_object_get(j, "faults");
+			json_object_set_new(j, "stop_reason", json_string("fault"));
+			json_object_set_new(j, "stop_detail", json_string(r->sc.msg));
+			if (json_is_array(fl))
+				json_array_append_new(
+				    fl, json_pack("{s:s,s:s,s:s}", "at", r->rec.ended_at, "code",
+				                  r->sc.code, "message", r->sc.msg));
+			store_event_add(r->s->store, r->rec.ended_at, r->s->name, r->job->run_id,
+			                "fault", r->sc.code, r->sc.msg, "daemon");
 		}
 		if (note.have)
 			json_object_set_new(j, "standardization", standardization_json(&note));
@@ -858,8 +923,9 @@ static void finish(run_t *r)
 	           r->dispensed_ml, (long long)seq);
 }
 
-/* A run that cannot start (no calibration, no devices): failed at once. */
-static void fail_early(run_t *r, const char *code, const char *msg)
+/* A run that ends before its titration: failed (no calibration, no devices,
+ * a fault of a move or a step) or aborted (a halt or an abort meanwhile). */
+static void end_early(run_t *r, const char *state, const char *code, const char *msg)
 {
 	char at[32];
 	json_t *j;
@@ -867,17 +933,58 @@ static void fail_early(run_t *r, const char *code, const char *msg)
 
 	now_text(at);
 	record_add_fault(&r->rec, at, code, msg);
-	snprintf(r->rec.state, sizeof r->rec.state, "failed");
+	snprintf(r->rec.state, sizeof r->rec.state, "%s", state);
 	snprintf(r->rec.ended_at, sizeof r->rec.ended_at, "%s", at);
-	snprintf(r->rec.stop_reason, sizeof r->rec.stop_reason, "fault");
+	snprintf(r->rec.stop_reason, sizeof r->rec.stop_reason, "%s",
+	         strcmp(state, "failed") ? state : "fault");
 	j = record_to_json(&r->rec);
+	record_extras(r, j);
 	text = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(j);
-	store_run_finish(r->s->store, r->job->run_id, "failed", text, NULL);
-	station_audit_run(r->s, r->job->run_id, "failed", msg);
-	store_event_add(r->s->store, at, r->s->name, r->job->run_id, "fault", code, msg, "daemon");
+	store_run_finish(r->s->store, r->job->run_id, state, text, NULL);
+	station_audit_run(r->s, r->job->run_id, state, msg);
+	store_event_add(r->s->store, at, r->s->name, r->job->run_id,
+	                strcmp(state, "failed") ? "abort" : "fault", code, msg, "daemon");
 	free(text);
 	log_err("station %s run %lld: %s", r->s->name, (long long)r->job->run_id, msg);
+}
+
+static void fail_early(run_t *r, const char *code, const char *msg)
+{
+	end_early(r, "failed", code, msg);
+}
+
+/* A fault of the changer or a doser: every dosing unit halted, the head
+ * raised where safe, and the station held until an operator resumes it. */
+static void mech_fault(run_t *r)
+{
+	station_fault_stop(r->s, r->sc.code);
+	snprintf(r->hold, sizeof r->hold, "%.24s: %.120s; check the rack and the head, then resume",
+	         r->sc.code, r->sc.msg);
+	r->step_fault = true;
+}
+
+/* The head to the run's position and the method's before steps. Returns
+ * true when the titration may start; else the run is ended. */
+static bool before_titration(run_t *r)
+{
+	const method_t *m = &r->job->method;
+	int rc = STEP_DONE;
+
+	if (r->job->position > 0)
+		rc = station_head_to(&r->sc, r->job->position, true);
+	if (rc == STEP_DONE)
+		rc = station_run_steps(&r->sc, m->before, m->n_before, true);
+	if (rc == STEP_DONE)
+		return true;
+	if (rc == STEP_INTERRUPTED) {
+		end_early(r, "aborted", "aborted",
+		          "an operator halted the station or aborted the run before its titration");
+		return false;
+	}
+	mech_fault(r);
+	fail_early(r, r->sc.code, r->sc.msg);
+	return false;
 }
 
 static void note_lateness(station_t *s, double late_s)
@@ -912,14 +1019,49 @@ void station_run_job(station_t *s, station_job_t *job)
 	now_text(r.rec.started_at);
 	snprintf(r.rec.state, sizeof r.rec.state, "running");
 
+	r.sc.s = s;
+	r.sc.run_id = job->run_id;
+	r.sc.position = job->position;
+	r.sample_ml = job->method.sample_unit == UNIT_ML ? job->amount : 0;
+	r.sc.in_beaker_ml = r.sample_ml;
+
 	if (!s->bur_open || !s->probe_open) {
 		fail_early(&r, "offline", "the station's devices are not answering");
+		return;
+	}
+	if ((s->has_changer || s->n_dosers) && !station_open_extras(s)) {
+		fail_early(&r, "offline", "the station's changer or a doser is not answering");
 		return;
 	}
 	if (!prepare_params(&r, &p, msg, sizeof msg)) {
 		fail_early(&r, "no_calibration", msg);
 		return;
 	}
+	text = record_text(&r);
+	store_run_update(s->store, job->run_id, "running", NULL, text);
+	free(text);
+	if (!before_titration(&r)) {
+		if (r.hold[0])
+			station_hold(s, r.hold);
+		return;
+	}
+	/* addN_* from what the dosers really delivered */
+	for (int i = 0; i < r.sc.n_adds && i < FORMULA_MAX_ADD; i++) {
+		const struct station_doser *o = &s->dosers[r.sc.add_doser[i]];
+		double titer = 1.0;
+		p.add_ml[i] = r.sc.add_ml[i];
+		p.add_molarity[i] = o->molarity;
+		if (store_titrant_get(s->store, o->reagent, &titer, NULL) != STORE_OK ||
+		    !(titer > 0))
+			titer = 1.0;
+		p.add_titer[i] = titer;
+		p.n_adds = i + 1;
+	}
+	if (r.sc.added_ml > 0)
+		p.start_volume_ml = r.sample_ml + r.sc.added_ml;
+	/* the titrant may fill what the sample and the additions left */
+	if (s->vessel_max_ml > 0)
+		p.vessel_max_ml = s->vessel_max_ml - r.sample_ml - r.sc.added_ml;
 	r.e = engine_new(&job->method, &p);
 	if (!r.e) {
 		fail_early(&r, "internal", "out of memory");
@@ -978,6 +1120,19 @@ void station_run_job(station_t *s, station_job_t *job)
 	}
 	if (act.new_point >= 0)
 		store_new_points(&r);
+	if (!r.fault && !r.interrupted && !r.step_fault) {
+		/* an after step's addition lands on the titrated beaker */
+		r.sc.in_beaker_ml += r.dispensed_ml;
+		int rc = station_run_steps(&r.sc, job->method.after, job->method.n_after, false);
+		if (rc == STEP_DONE)
+			rc = station_park(&r.sc);
+		if (rc == STEP_INTERRUPTED)
+			r.interrupted = true;
+		else if (rc == STEP_FAULT)
+			mech_fault(&r);
+	}
 	finish(&r);
 	engine_free(r.e);
+	if (r.hold[0])
+		station_hold(s, r.hold);
 }

@@ -58,9 +58,12 @@ static bool calibration_ok(http_ctx_t *ctx, station_t *st, const method_t *m, ch
 	return ok;
 }
 
-static char *record_text(const run_record_t *rec)
+static char *record_text(const run_record_t *rec, int position)
 {
 	json_t *rj = record_to_json(rec);
+	if (rj)
+		json_object_set_new(rj, "position",
+		                    position > 0 ? json_integer(position) : json_null());
 	char *t = rj ? json_dumps(rj, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_decref(rj);
 	return t;
@@ -104,6 +107,41 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 		fail(res, SUBMIT_NOT_FOUND, "no station '%s'", station);
 		goto out;
 	}
+	{
+		/* A station with a sample changer titrates only at a named
+		 * position: its head goes down nowhere else (SAFETY.md). */
+		long positions = 0, rinse = 0, park = 0;
+		bool changer = station_changer(st, &positions, &rinse, &park);
+		if (req->position < 0) {
+			fail(res, SUBMIT_BAD_REQUEST,
+			     "position must be a whole number of 1 or more");
+			goto out;
+		}
+		if (req->position > 0 && !changer) {
+			fail(res, SUBMIT_BAD_REQUEST,
+			     "station %s has no sample changer; leave position out", station);
+			goto out;
+		}
+		if (changer && req->position == 0) {
+			fail(res, SUBMIT_BAD_REQUEST,
+			     "station %s has a sample changer: give the sample's position (1 to "
+			     "%ld)",
+			     station, positions);
+			goto out;
+		}
+		if (changer && req->position > positions) {
+			fail(res, SUBMIT_BAD_REQUEST,
+			     "position %d is outside station %s's rack (1 to %ld)", req->position,
+			     station, positions);
+			goto out;
+		}
+		if (changer && (req->position == rinse || req->position == park)) {
+			fail(res, SUBMIT_BAD_REQUEST,
+			     "position %d is the rack's %s position, not a sample's", req->position,
+			     req->position == rinse ? "rinse" : "park");
+			goto out;
+		}
+	}
 	ss = store_method_latest(ctx->store, method_id, &text, &len, &rev, sha);
 	if (ss == STORE_NOT_FOUND) {
 		/* A misspelt id gets the near one, as `stopcock check` does for keys. */
@@ -144,15 +182,21 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 		free(all);
 		goto out;
 	}
-	/* A station does not run before/after steps yet: a back titration
-	 * without its addition would report a wrong value, so refuse it
-	 * (`stopcock predict` runs the steps against the simulated beaker). */
-	if (job->method.n_before > 0 || job->method.n_after > 0) {
-		fail(res, SUBMIT_INVALID_METHOD,
-		     "method '%s' revision %ld has before/after steps, which station %s cannot "
-		     "run yet",
-		     method_id, rev, station);
-		goto out;
+	/* Each step needs its device on this station (a doser, the stirrer, a
+	 * changer that rinses): a back titration without its addition would
+	 * report a wrong value. */
+	for (int i = 0; i < job->method.n_before + job->method.n_after; i++) {
+		bool before = i < job->method.n_before;
+		const method_step_t *step =
+		    before ? &job->method.before[i] : &job->method.after[i - job->method.n_before];
+		if (!station_can_run_step(st, step, msg, sizeof msg)) {
+			fail(res, SUBMIT_INVALID_METHOD,
+			     "method '%s' revision %ld: %s[%d] (%s): %s", method_id, rev,
+			     before ? "before" : "after",
+			     (before ? i : i - job->method.n_before) + 1,
+			     method_step_name(step->kind), msg);
+			goto out;
+		}
 	}
 	if (amount < job->method.sample_min || amount > job->method.sample_max) {
 		fail(res, SUBMIT_BAD_REQUEST,
@@ -166,6 +210,7 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 		goto out;
 	}
 	job->amount = amount;
+	job->position = req->position;
 	snprintf(job->sample_id, sizeof job->sample_id, "%s", sample_id);
 	time_format_rfc3339(clock_wall_s(), job->queued_at);
 	snprintf(job->requested_by, sizeof job->requested_by, "%s", req->requested_by);
@@ -185,7 +230,7 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 		    titer > 0)
 			rec->titrant.titer = titer;
 	}
-	rec_text = record_text(rec);
+	rec_text = record_text(rec, req->position);
 	id = store_run_create(ctx->store,
 	                      &(store_run_new_t){.station = station,
 	                                         .method_id = method_id,
@@ -196,7 +241,8 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	                                         .unit = method_unit_name(job->method.sample_unit),
 	                                         .signal = method_signal_name(job->method.signal),
 	                                         .queued_at = job->queued_at,
-	                                         .record_json = rec_text});
+	                                         .record_json = rec_text,
+	                                         .position = req->position});
 	if (id < 0) {
 		fail(res, SUBMIT_DATABASE, "the database failed");
 		goto out;
@@ -204,7 +250,7 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	/* The record's id is known only now. */
 	rec->id = id;
 	free(rec_text);
-	rec_text = record_text(rec);
+	rec_text = record_text(rec, req->position);
 	store_run_update(ctx->store, id, NULL, NULL, rec_text);
 	job->run_id = id;
 	if (station_enqueue(st, job)) {

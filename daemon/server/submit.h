@@ -30,6 +30,7 @@ typedef struct {
 	const char *sample_id;
 	double amount; /* in the method's sample unit */
 	const char *requested_by;
+	int position; /* rack position, 0 = none */
 } run_request_t;
 
 typedef struct {

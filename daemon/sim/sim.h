@@ -103,12 +103,29 @@ typedef struct sim_changer {
 	long rinse, park;
 } sim_changer_t;
 
+/* A dosing unit of the rack's scenarios (their `dosers:`): a syringe pump
+ * of its own on its own pty, speaking the burette's protocol, whose reagent
+ * goes into the beaker under the lowered head. */
+#define SIM_MAX_DOSERS 4
+struct sim;
+typedef struct sim_doser {
+	char name[CHEM_NAME_MAX];
+	chem_comp_t reagent; /* molar: the reagent's concentration, mol/L */
+	sim_pump_t pump;
+	double dispensed_ml; /* through the outlet since start, mL */
+	char link[512];
+	struct sim *sim; /* for its thread */
+	int index;
+} sim_doser_t;
+
 typedef struct sim {
 	pthread_mutex_t mu;
 	beaker_t *beaker;
 	chem_scenario_t scen;
 	sim_pump_t pump;
 	sim_changer_t changer; /* .present only with a rack */
+	int n_dosers;
+	sim_doser_t dosers[SIM_MAX_DOSERS];
 	uint16_t regs[SIM_NREGS];
 	uint16_t counter;
 	double mv; /* last measured electrode mV */
@@ -165,6 +182,14 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap);
 /* Threads (arg: sim_t *). Each returns when s->stop is set. */
 void *sim_pump_thread(void *arg);
 void *sim_changer_thread(void *arg);
+void *sim_doser_thread(void *arg); /* arg: sim_doser_t * */
+
+/* The dosers the rack's scenarios name (the first scenario naming one gives
+ * its reagent), each a pump like the burette, full, on a link `base`.NAME.
+ * Returns how many (at most SIM_MAX_DOSERS). */
+int sim_dosers_attach(sim_t *s, const sim_rack_t *r, const char *base);
+/* One doser command line -> reply; false when there is no reply (mute). */
+bool sim_doser_command(sim_t *s, int doser, const char *line, char *reply, size_t cap);
 void *sim_tcp_thread(void *arg);
 void *sim_rtu_thread(void *arg);
 

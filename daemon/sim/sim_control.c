@@ -82,10 +82,37 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 			json_object_set_new(o, "spilled_ml", real_or_null(c->spilled_ml));
 			json_object_set_new(o, "carried_ml", real_or_null(c->carried_ml));
 		}
+		if (s->n_dosers > 0) {
+			json_t *ds = json_object();
+			for (int i = 0; i < s->n_dosers; i++) {
+				const sim_doser_t *d = &s->dosers[i];
+				double per = d->pump.capacity_ml / (double)d->pump.steps;
+				json_object_set_new(
+				    ds, d->name,
+				    json_pack("{s:o,s:o,s:b}", "dispensed_ml",
+				              real_or_null(d->dispensed_ml), "contents_ml",
+				              real_or_null((double)d->pump.pos * per), "moving",
+				              d->pump.moving));
+			}
+			json_object_set_new(o, "dosers", ds);
+		}
 		char *text = json_dumps(o, JSON_COMPACT | JSON_REAL_PRECISION(10));
 		snprintf(reply, cap, "%s", text ? text : "error: out of memory");
 		free(text);
 		json_decref(o);
+		pthread_mutex_unlock(&s->mu);
+	} else if (!strcmp(word, "lift") && !strcmp(rest, "up")) {
+		/* Someone raises the head by hand (a test of the head-up interlock):
+		 * at once, whatever the changer was doing. */
+		pthread_mutex_lock(&s->mu);
+		if (!s->changer.present) {
+			snprintf(reply, cap, "error: lift needs a rack (--rack)");
+		} else {
+			s->changer.lift = 0;
+			s->changer.lift_left_s = 0;
+			s->beaker = NULL;
+			snprintf(reply, cap, "ok");
+		}
 		pthread_mutex_unlock(&s->mu);
 	} else if (!strcmp(word, "clear") && !*rest) {
 		pthread_mutex_lock(&s->mu);
@@ -149,8 +176,8 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 		}
 		pthread_mutex_unlock(&s->mu);
 	} else {
-		snprintf(reply, cap, "error: unknown command '%s' (load, fault, clear, state)",
-		         word);
+		snprintf(reply, cap,
+		         "error: unknown command '%s' (load, fault, clear, state, lift up)", word);
 	}
 }
 
@@ -267,8 +294,10 @@ int sim_control_client(int argc, char **argv)
 	int fd;
 
 	if (argc < 2) {
-		fprintf(stderr, "usage: stopcock-sim control SOCKET COMMAND [ARG...]\n"
-		                "  commands: load S.yaml | fault KIND [SECONDS] | clear | state\n");
+		fprintf(
+		    stderr,
+		    "usage: stopcock-sim control SOCKET COMMAND [ARG...]\n"
+		    "  commands: load S.yaml | fault KIND [SECONDS] | clear | state | lift up\n");
 		return 2;
 	}
 	for (int i = 1; i < argc; i++) {

@@ -125,6 +125,52 @@ void sim_free(sim_t *s)
 	pthread_mutex_destroy(&s->mu);
 }
 
+/* Move a plunger on by dt s; what leaves through the outlet goes into the
+ * beaker under the head (titrant for the burette, doser < 0; the doser's
+ * reagent for a doser), or onto the tray with the head up. A stall stops
+ * the burette only (the fault names the burette's motor). */
+static void advance(sim_t *s, sim_pump_t *p, int doser, double dt)
+{
+	if (p->moving && doser < 0 && s->fault == SIM_FAULT_STALL) {
+		p->moving = false; /* the motor stalled where it was */
+		p->target = p->pos;
+		p->frac = 0;
+	}
+	if (!p->moving)
+		return;
+	double want = p->speed * dt + p->frac;
+	long left = labs(p->target - p->pos);
+	long n = (long)floor(want);
+	if (n >= left) {
+		n = left;
+		p->frac = 0;
+	} else {
+		p->frac = want - (double)n;
+	}
+	if (p->target < p->pos) {
+		p->pos -= n;
+		double ml = (double)n * p->capacity_ml / (double)p->steps;
+		if (p->valve_in) {
+			/* back into the reservoir */
+		} else if (doser >= 0) {
+			sim_doser_t *d = &s->dosers[doser];
+			d->dispensed_ml += ml;
+			chem_comp_t reagent = d->reagent; /* beaker_add_reagent may change it */
+			if (!s->beaker || ml <= 0 ||
+			    beaker_add_reagent(s->beaker, &reagent, ml) != 0)
+				s->changer.spilled_ml += ml > 0 ? ml : 0;
+		} else if (s->beaker) { /* through the outlet into the beaker */
+			beaker_add_ml(s->beaker, ml);
+		} else { /* the head is up: onto the rack's tray */
+			s->changer.spilled_ml += ml;
+		}
+	} else {
+		p->pos += n;
+	}
+	if (p->pos == p->target)
+		p->moving = false;
+}
+
 void sim_tick(sim_t *s, double t)
 {
 	double dt = t - s->last_tick_s;
@@ -138,37 +184,9 @@ void sim_tick(sim_t *s, double t)
 	}
 	if (s->changer.present)
 		sim_changer_tick(s, dt);
-	sim_pump_t *p = &s->pump;
-	if (p->moving && s->fault == SIM_FAULT_STALL) {
-		p->moving = false; /* the motor stalled where it was */
-		p->target = p->pos;
-		p->frac = 0;
-	}
-	if (p->moving) {
-		double want = p->speed * dt + p->frac;
-		long left = labs(p->target - p->pos);
-		long n = (long)floor(want);
-		if (n >= left) {
-			n = left;
-			p->frac = 0;
-		} else {
-			p->frac = want - (double)n;
-		}
-		if (p->target < p->pos) {
-			p->pos -= n;
-			double ml = (double)n * p->capacity_ml / (double)p->steps;
-			if (p->valve_in)
-				;           /* back into the reservoir */
-			else if (s->beaker) /* through the outlet into the beaker */
-				beaker_add_ml(s->beaker, ml);
-			else /* the head is up: onto the rack's tray */
-				s->changer.spilled_ml += ml;
-		} else {
-			p->pos += n;
-		}
-		if (p->pos == p->target)
-			p->moving = false;
-	}
+	advance(s, &s->pump, -1, dt);
+	for (int i = 0; i < s->n_dosers; i++)
+		advance(s, &s->dosers[i].pump, i, dt);
 	if (s->changer.present) {
 		for (int i = 0; i <= SIM_RACK_POSITIONS; i++)
 			if (s->changer.beakers[i])
@@ -199,10 +217,8 @@ static bool parse_two(const char *args, long *a, long *b)
 	return *end == '\0';
 }
 
-static bool command(sim_t *s, const char *line, char *reply, size_t cap)
+static bool command(sim_pump_t *p, bool stalled, const char *line, char *reply, size_t cap)
 {
-	sim_pump_t *p = &s->pump;
-	bool stalled = s->fault == SIM_FAULT_STALL;
 	long n, speed;
 	if (!strcmp(line, "STAT")) {
 		if (stalled)
@@ -255,7 +271,43 @@ bool sim_pump_command(sim_t *s, const char *line, char *reply, size_t cap)
 {
 	if (s->fault == SIM_FAULT_MUTE_PUMP || s->fault == SIM_FAULT_UNPLUG)
 		return false;
-	return command(s, line, reply, cap);
+	return command(&s->pump, s->fault == SIM_FAULT_STALL, line, reply, cap);
+}
+
+bool sim_doser_command(sim_t *s, int doser, const char *line, char *reply, size_t cap)
+{
+	if (doser < 0 || doser >= s->n_dosers || s->fault == SIM_FAULT_UNPLUG)
+		return false;
+	return command(&s->dosers[doser].pump, false, line, reply, cap);
+}
+
+int sim_dosers_attach(sim_t *s, const sim_rack_t *r, const char *base)
+{
+	s->n_dosers = 0;
+	for (int i = 1; i <= SIM_RACK_POSITIONS; i++) {
+		const chem_scenario_t *sc = r->scen[i];
+		for (int k = 0; sc && k < sc->n_dosers; k++) {
+			int j = 0;
+			while (j < s->n_dosers && strcmp(s->dosers[j].name, sc->doser_name[k]))
+				j++;
+			if (j < s->n_dosers || s->n_dosers == SIM_MAX_DOSERS)
+				continue;
+			sim_doser_t *d = &s->dosers[s->n_dosers];
+			memset(d, 0, sizeof(*d));
+			snprintf(d->name, sizeof(d->name), "%s", sc->doser_name[k]);
+			d->reagent = sc->doser[k];
+			d->pump.steps = s->pump.steps;
+			d->pump.capacity_ml = s->pump.capacity_ml;
+			d->pump.pos = d->pump.steps; /* full, valve at the outlet */
+			d->pump.target = d->pump.pos;
+			char link[sizeof(d->link)];
+			snprintf(link, sizeof(link), "%.400s.%s", base, sc->doser_name[k]);
+			memcpy(d->link, link, sizeof(link));
+			d->sim = s;
+			d->index = s->n_dosers++;
+		}
+	}
+	return s->n_dosers;
 }
 
 int sim_pty_open(const char *link_path, int *master, int *slave)
@@ -340,11 +392,24 @@ static size_t frame_reply(sim_t *s, const char *reply, char *out, size_t cap)
 	return n > 0 ? o + (size_t)n : o;
 }
 
-typedef bool (*line_fn)(sim_t *s, const char *line, char *reply, size_t cap);
+typedef bool (*line_fn)(sim_t *s, int unit, const char *line, char *reply, size_t cap);
+
+static bool pump_line(sim_t *s, int unit, const char *line, char *reply, size_t cap)
+{
+	(void)unit;
+	return sim_pump_command(s, line, reply, cap);
+}
+
+static bool changer_line(sim_t *s, int unit, const char *line, char *reply, size_t cap)
+{
+	(void)unit;
+	return sim_changer_command(s, line, reply, cap);
+}
 
 /* Serve one device on a pty at `link`: a command a line (LF; CR ignored), a
  * reply line each (CR LF); the pty goes away while the unplug fault lasts. */
-static void serve_pty(sim_t *s, const char *link, const char *what, line_fn cmd, bool noisy)
+static void serve_pty(sim_t *s, const char *link, const char *what, line_fn cmd, int unit,
+                      bool noisy)
 {
 	int master = -1, slave = -1;
 	char line[256];
@@ -393,7 +458,7 @@ static void serve_pty(sim_t *s, const char *link, const char *what, line_fn cmd,
 			size_t n = 0;
 			pthread_mutex_lock(&s->mu);
 			sim_tick(s, clock_mono_s());
-			if (cmd(s, line, reply, sizeof(reply))) {
+			if (cmd(s, unit, line, reply, sizeof(reply))) {
 				if (noisy) {
 					n = frame_reply(s, reply, out, sizeof(out));
 				} else {
@@ -416,13 +481,20 @@ static void serve_pty(sim_t *s, const char *link, const char *what, line_fn cmd,
 void *sim_pump_thread(void *arg)
 {
 	sim_t *s = arg;
-	serve_pty(s, s->pump_link, "pump", sim_pump_command, true);
+	serve_pty(s, s->pump_link, "pump", pump_line, -1, true);
 	return NULL;
 }
 
 void *sim_changer_thread(void *arg)
 {
 	sim_t *s = arg;
-	serve_pty(s, s->changer_link, "changer", sim_changer_command, false);
+	serve_pty(s, s->changer_link, "changer", changer_line, -1, false);
+	return NULL;
+}
+
+void *sim_doser_thread(void *arg)
+{
+	sim_doser_t *d = arg;
+	serve_pty(d->sim, d->link, "doser", sim_doser_command, d->index, false);
 	return NULL;
 }

@@ -224,15 +224,37 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	         cfg_abs);
 	if (write_token(token) != 0)
 		return -1;
-	char changer[PATH_MAX * 2 + 256] = "";
+	char changer[PATH_MAX * 2 + 256] = "", places[64] = "";
+	if (s->changer.rinse)
+		snprintf(places, sizeof(places), "      rinse: %ld\n", s->changer.rinse);
+	if (s->changer.park)
+		snprintf(places + strlen(places), sizeof(places) - strlen(places),
+		         "      park: %ld\n", s->changer.park);
 	if (s->changer.present)
 		snprintf(changer, sizeof(changer),
 		         "    changer:\n"
 		         "      driver: changer-serial\n"
 		         "      port: %s\n"
 		         "      timeout_ms: 500\n"
-		         "      profile: %s/changers/sim.yaml\n",
-		         s->changer_link, data);
+		         "      profile: %s/changers/sim.yaml\n"
+		         "%s",
+		         s->changer_link, data, places);
+	/* each simulated doser: the burette's pump profile on its own pty */
+	char dosers[SIM_MAX_DOSERS * (PATH_MAX * 2 + 512) + 16] = "";
+	for (int i = 0; i < s->n_dosers; i++) {
+		const sim_doser_t *dz = &s->dosers[i];
+		size_t len = strlen(dosers);
+		snprintf(
+		    dosers + len, sizeof(dosers) - len,
+		    "%s      %s:\n"
+		    "        reagent: %s %.6g mol/L\n"
+		    "        molarity: %.6g\n"
+		    "        burette: {driver: pump-serial, port: %s, baud: 9600, parity: none, "
+		    "stop_bits: 1, timeout_ms: 500, profile: %s/pumps/sim.yaml, capacity_ml: "
+		    "%.6g, steps: %ld}\n",
+		    i == 0 ? "    dosers:\n" : "", dz->name, dz->reagent.name, dz->reagent.molar,
+		    dz->reagent.molar, dz->link, data, dz->pump.capacity_ml, dz->pump.steps);
+	}
 	FILE *f = fopen(o->config_out, "w");
 	if (!f)
 		return -1;
@@ -280,11 +302,11 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	    "      coil: %d\n"
 	    "      speed_register: %d\n"
 	    "      rpm: 300\n"
-	    "%s",
+	    "%s%s",
 	    cfg_abs, o->listen ? o->listen : "127.0.0.1:8470", token, dir_abs, data, pump_abs, data,
 	    s->scen.burette.capacity_ml, s->scen.burette.steps, s->tcp_host, s->tcp_port,
 	    SIM_REG_MV, SIM_REG_TEMP, SIM_REG_STATUS, SIM_REG_COUNTER, s->tcp_host, s->tcp_port,
-	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM, changer);
+	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM, changer, dosers);
 	return fclose(f) == 0 ? 0 : -1;
 }
 
@@ -314,9 +336,20 @@ static int self_check(const sim_t *s, const char *pump_abs)
 	double until = clock_mono_s() + 5.0;
 	bool pump_ok = false, tcp_ok = false, rtu_ok = !s->rtu_link[0];
 	bool changer_ok = !s->changer.present;
+	bool dosers_ok[SIM_MAX_DOSERS] = {false};
+	for (int i = 0; i < s->n_dosers; i++)
+		dosers_ok[i] = false;
+	for (int i = s->n_dosers; i < SIM_MAX_DOSERS; i++)
+		dosers_ok[i] = true;
 	while (clock_mono_s() < until && !(pump_ok && tcp_ok && rtu_ok && changer_ok)) {
 		if (!pump_ok)
 			pump_ok = line_answers(pump_abs, "STAT\n");
+		/* each doser answers too, or the pump does not count as ready */
+		for (int i = 0; i < s->n_dosers; i++)
+			if (!dosers_ok[i])
+				dosers_ok[i] = line_answers(s->dosers[i].link, "STAT\n");
+		for (int i = 0; i < s->n_dosers && pump_ok; i++)
+			pump_ok = dosers_ok[i];
 		if (!changer_ok)
 			changer_ok = line_answers(s->changer_link, "WHERE\n");
 		for (int k = 0; k < 2; k++) {
@@ -346,7 +379,7 @@ static int self_check(const sim_t *s, const char *pump_abs)
 		}
 	}
 	if (!pump_ok)
-		fprintf(stderr, "stopcock-sim: the pump pty does not answer\n");
+		fprintf(stderr, "stopcock-sim: the pump pty (or a doser's) does not answer\n");
 	if (!tcp_ok)
 		fprintf(stderr, "stopcock-sim: the Modbus TCP server does not answer\n");
 	if (!rtu_ok)
@@ -384,13 +417,13 @@ int main(int argc, char **argv)
 		sim_rack_free(&rack);
 		return 1;
 	}
-	sim_rack_free(&rack);
 	int rc = 1;
 	int ctl_fd = -1;
 	char pump_abs[LINK_PATH_MAX];
 	const char *colon = strrchr(o.tcp, ':');
 	if (!colon || colon - o.tcp >= (long)sizeof(s.tcp_host)) {
 		fprintf(stderr, "stopcock-sim: --modbus-tcp wants HOST:PORT (got %s)\n", o.tcp);
+		sim_rack_free(&rack);
 		sim_free(&s);
 		return 2;
 	}
@@ -403,10 +436,14 @@ int main(int argc, char **argv)
 	    (o.rack && abs_path(o.changer_link ? o.changer_link : changer_rel, s.changer_link,
 	                        sizeof(s.changer_link)) != 0)) {
 		fprintf(stderr, "stopcock-sim: the directory of a link path does not exist\n");
+		sim_rack_free(&rack);
 		sim_free(&s);
 		return 2;
 	}
 	snprintf(s.pump_link, sizeof(s.pump_link), "%s", pump_abs);
+	if (o.rack) /* a doser per name in the rack's scenarios, beside the pump */
+		sim_dosers_attach(&s, &rack, pump_abs);
+	sim_rack_free(&rack);
 	/* Open every fd early (libmodbus uses select: fds must stay < 1024). */
 	s.tcp_listen_fd = sim_tcp_listen(s.tcp_host, want_port, &s.tcp_port);
 	if (s.tcp_listen_fd < 0) {
@@ -429,7 +466,7 @@ int main(int argc, char **argv)
 	pthread_sigmask(SIG_BLOCK, &set, NULL);
 	signal(SIGPIPE, SIG_IGN);
 
-	pthread_t th[5];
+	pthread_t th[5 + SIM_MAX_DOSERS];
 	int nth = 0;
 	sim_control_arg_t ca = {&s, ctl_fd};
 	pthread_create(&th[nth++], NULL, sim_pump_thread, &s);
@@ -438,6 +475,8 @@ int main(int argc, char **argv)
 		pthread_create(&th[nth++], NULL, sim_rtu_thread, &s);
 	if (o.rack)
 		pthread_create(&th[nth++], NULL, sim_changer_thread, &s);
+	for (int i = 0; i < s.n_dosers; i++)
+		pthread_create(&th[nth++], NULL, sim_doser_thread, &s.dosers[i]);
 	if (ctl_fd >= 0)
 		pthread_create(&th[nth++], NULL, sim_control_thread, &ca);
 

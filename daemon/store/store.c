@@ -74,6 +74,8 @@ static const char *const migrations[] = {
      "  WHEN (SELECT value FROM meta WHERE key='outbox') = 'on'"
      "  BEGIN INSERT INTO outbox (kind, ref, at_s)"
      "  VALUES ('event', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"),
+    /* 4 -> 5: runs at a sample changer's position */
+    "ALTER TABLE runs ADD COLUMN position INTEGER;",
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -736,11 +738,11 @@ int64_t store_run_create(store_t *s, const store_run_new_t *r)
 	if (exec_w(
 	        s,
 	        "INSERT INTO runs (station, method_id, method_revision, method_sha256, sample_id,"
-	        " amount, unit, signal, state, queued_at, record)"
-	        " VALUES (?,?,?,?,?,?,?,?,'queued',?,?)",
-	        "ttittdtttt", r->station, r->method_id, (int64_t)r->method_revision,
-	        r->method_sha256, r->sample_id, r->amount, r->unit, r->signal, r->queued_at,
-	        r->record_json) == SQLITE_DONE) {
+	        " amount, unit, signal, state, queued_at, record, position)"
+	        " VALUES (?,?,?,?,?,?,?,?,'queued',?,?,?)",
+	        r->position > 0 ? "ttittdtttti" : "ttittdttttn", r->station, r->method_id,
+	        (int64_t)r->method_revision, r->method_sha256, r->sample_id, r->amount, r->unit,
+	        r->signal, r->queued_at, r->record_json, (int64_t)r->position) == SQLITE_DONE) {
 		id = sqlite3_last_insert_rowid(s->w);
 		issued_write(s);
 	}

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 4
+#define STORE_SCHEMA_VERSION 5 /* the number of migrations in store.c */
 
 typedef struct store store_t;
 
@@ -103,6 +103,7 @@ typedef struct store_run_new {
 	const char *signal; /* "ph" or "mv": the curve's unit */
 	const char *queued_at;
 	const char *record_json; /* the initial record; may be NULL */
+	int position;            /* rack position of the sample; 0: none (NULL) */
 } store_run_new_t;
 
 int64_t store_run_create(store_t *s, const store_run_new_t *r); /* id, or -1 */

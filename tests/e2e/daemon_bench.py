@@ -36,7 +36,7 @@ class Reply:
 class Bench:
     """stopcock-sim + stopcockd on free ports in a temporary directory."""
 
-    def __init__(self, tmp, scenario=SCENARIO, extra_config=""):
+    def __init__(self, tmp, scenario=SCENARIO, extra_config="", rack=None):
         self.tmp = pathlib.Path(tmp)
         self.port = free_port()
         self.url = f"http://127.0.0.1:{self.port}"
@@ -47,7 +47,8 @@ class Bench:
         self.daemon_log = open(self.tmp / "daemon.log", "a")
         self.daemon = None
         self.sim = subprocess.Popen(
-            [binary("stopcock-sim"), "--scenario", str(scenario), "--modbus-tcp",
+            [binary("stopcock-sim"),
+             *(["--rack", str(rack)] if rack else ["--scenario", str(scenario)]), "--modbus-tcp",
              f"127.0.0.1:{free_port()}", "--pump-link", str(self.tmp / "pump"),
              "--control", str(self.ctl), "--config-out", str(self.config),
              "--state-dir", str(self.tmp / "state"), "--listen", f"127.0.0.1:{self.port}"],

@@ -3,8 +3,8 @@
 result formula of add1_* gives the sample's content. The expected values are
 worked out here from the stoichiometry, and the beaker's pH after the
 addition by the independent reference (chem_reference.py, scipy's brentq).
-The daemon refuses to queue a method with steps, which its stations cannot
-run yet."""
+The daemon refuses to queue a method with steps on a station that lacks
+the devices they need (tests/e2e/test_rack.py runs them on a rack)."""
 import json
 import os
 import re
@@ -129,9 +129,9 @@ def bench(tmp_path_factory):
     b.close()
 
 
-def test_daemon_refuses_to_queue_a_method_with_steps(bench):
-    # Stored (a method is valid offline), but a station cannot run its steps yet:
-    # queuing it is refused and leaves no run behind.
+def test_daemon_refuses_a_method_whose_steps_the_station_cannot_run(bench):
+    # Stored (a method is valid offline), but this station has no doser `acid`
+    # (nor a changer to rinse with): queuing it is refused and leaves no run.
     name = bench.put_method("config/methods/whey-ammonium.yaml")
     before = bench.get("/v1/runs?limit=1000")["runs"]
     r = bench.write("POST", "/v1/runs", json.dumps(
@@ -139,7 +139,7 @@ def test_daemon_refuses_to_queue_a_method_with_steps(bench):
     assert r.status == 422, r.body
     err = r.json()["error"]
     assert err["code"] == "invalid_method"
-    assert "has before/after steps, which station sim1 cannot run yet" in err["message"]
+    assert "before[1] (add): station sim1 has no dosing unit 'acid'" in err["message"]
     assert len(bench.get("/v1/runs?limit=1000")["runs"]) == len(before)
 
 

@@ -51,3 +51,41 @@ TEST(station_halt_retry_is_short_and_bounded)
 	CHECK_NEAR(station_halt_retry_s(1000000), STATION_HALT_RETRY_MAX_S, 1e-12);
 	CHECK_NEAR(station_halt_retry_s(-5), STATION_HALT_RETRY_MIN_S, 1e-12);
 }
+
+TEST(station_rack_turns_only_with_the_head_up_and_every_dosing_unit_halted)
+{
+	CHECK(station_move_allowed(DRV_LIFT_UP, false, false));
+	CHECK(!station_move_allowed(DRV_LIFT_DOWN, false, false));
+	CHECK(!station_move_allowed(DRV_LIFT_BETWEEN, false, false));
+	CHECK(!station_move_allowed(DRV_LIFT_UP, true, false)); /* still moving */
+	CHECK(!station_move_allowed(DRV_LIFT_UP, false, true)); /* a doser or the burette */
+	CHECK(!station_move_allowed(DRV_LIFT_DOWN, true, true));
+}
+
+TEST(station_head_goes_down_only_where_a_run_or_the_rack_names)
+{
+	/* the run's position, the rack's rinse (15) and park (16) */
+	CHECK(station_lower_allowed(3, 3, 15, 16));
+	CHECK(station_lower_allowed(15, 3, 15, 16));
+	CHECK(station_lower_allowed(16, 3, 15, 16));
+	/* any other beaker, or no position at all */
+	CHECK(!station_lower_allowed(4, 3, 15, 16));
+	CHECK(!station_lower_allowed(0, 0, 0, 0));
+	CHECK(!station_lower_allowed(5, 0, 0, 0));
+	/* a rack without rinse or park positions: 0 names none */
+	CHECK(station_lower_allowed(7, 7, 0, 0));
+	CHECK(!station_lower_allowed(8, 7, 0, 0));
+}
+
+TEST(station_addition_may_not_overflow_the_beaker)
+{
+	/* 40 mL of sample and additions in a 150 mL beaker */
+	CHECK_INT(station_add_interlock(40.0, 25.0, 150.0), 0);
+	CHECK_INT(station_add_interlock(125.0, 25.0, 150.0), 0); /* exactly full */
+	CHECK_INT(station_add_interlock(125.0, 25.01, 150.0), -1);
+	CHECK_INT(station_add_interlock(149.0, 2.0, 150.0), -1);
+	CHECK_INT(station_add_interlock(0.0, 0.0, 150.0), -1); /* nothing to add */
+	CHECK_INT(station_add_interlock(0.0, NAN, 150.0), -1);
+	CHECK_INT(station_add_interlock(NAN, 1.0, 150.0), -1);
+	CHECK_INT(station_add_interlock(500.0, 1.0, 0.0), 0); /* no vessel limit */
+}

@@ -126,6 +126,11 @@ async function main() {
 			document.querySelector('section.station .field:nth-child(4) .value').textContent));
 		const mv = await card.locator('.field:nth-child(2) .value').textContent();
 		check(Number.isFinite(Number(mv)), `live mV shown (${mv})`);
+		// the card has a changer line, shown only for a station with a sample
+		// changer (this bench has none: `changer` is null in its status)
+		check(await card.locator('.changer').count() === 1 &&
+			await card.locator('.changer').isHidden() &&
+			await card.locator('.position').isHidden(), 'no changer line nor position without a changer');
 		// Keyboard: the first Tab lands on the skip link, the next on the nav.
 		await page.keyboard.press('Tab');
 		check(await page.evaluate(() => document.activeElement.className === 'skip'),

@@ -1,5 +1,6 @@
 // stations.js: every station at a glance: state, live reading and its age,
-// the burette, the current run, a start form and the halt button.
+// the burette, the sample changer (position and head), the current run, a
+// start form and the halt button.
 import {api, get, h, fmt, errorText, confirmAction} from './api.js';
 
 const STALE_S = 5; // a reading older than this is flagged (the engine halts dosing on stale ones)
@@ -18,6 +19,15 @@ function card(name, methods) {
 	const age = field('reading age');
 	const bar = h('progress', {max: 1, value: 0, 'aria-label': `burette of ${name}`});
 	const bur = h('span', {class: 'burette-text'}, '—');
+	// The sample changer, on a station that has one: where the rack is and
+	// whether the head is in a beaker (docs/operations.md, "A rack of samples").
+	const chgText = h('span', {class: 'changer-text'}, '—');
+	const changer = h('div', {class: 'changer', hidden: true},
+		h('span', {class: 'label'}, 'changer'), chgText);
+	const position = h('input', {name: 'position', id: `position-${name}`, type: 'number',
+		step: '1', min: '1', placeholder: 'rack position'});
+	const positionRow = h('span', {class: 'position', hidden: true},
+		h('label', {for: position.id}, 'Position'), position);
 	const run = h('span', {class: 'run-link'}, 'none');
 	const queued = h('span', {}, '0');
 	const err = h('p', {class: 'station-error', role: 'alert'});
@@ -41,6 +51,7 @@ function card(name, methods) {
 		h('label', {for: method.id}, 'Method'), method,
 		h('label', {for: sample.id}, 'Sample id'), sample,
 		h('label', {for: amount.id}, 'Amount'), h('span', {class: 'amount'}, amount, unit),
+		positionRow,
 		h('button', {type: 'submit', class: 'primary'}, 'Start'), note);
 	const setMethods = (list) => {
 		const keep = method.value;
@@ -53,8 +64,10 @@ function card(name, methods) {
 		ev.preventDefault();
 		note.textContent = 'starting…';
 		try {
-			const r = await api('POST', '/v1/runs', {station: name, method: method.value,
-				sample_id: sample.value.trim(), amount: Number(amount.value)});
+			const body = {station: name, method: method.value,
+				sample_id: sample.value.trim(), amount: Number(amount.value)};
+			if (!positionRow.hidden && position.value !== '') body.position = Number(position.value);
+			const r = await api('POST', '/v1/runs', body);
 			note.textContent = `run ${r.id} queued`;
 			location.hash = `#/run/${r.id}`;
 		} catch (e) {
@@ -89,6 +102,7 @@ function card(name, methods) {
 	h('header', {}, h('h2', {}, name), state, phase, halt), held,
 	h('div', {class: 'readings'}, ph.el, mv.el, temp.el, age.el),
 	h('div', {class: 'burette'}, h('span', {class: 'label'}, 'burette'), bar, bur),
+	changer,
 	h('p', {class: 'current'}, 'Current run: ', run, ' · queued: ', queued),
 	err, form);
 	const update = (st) => {
@@ -114,6 +128,14 @@ function card(name, methods) {
 		halt.disabled = st.state === 'offline';
 		held.hidden = !st.held;
 		heldWhy.textContent = st.held_reason || '';
+		const c = st.changer;
+		changer.hidden = !c;
+		positionRow.hidden = !c;
+		if (c) {
+			chgText.textContent = Number.isFinite(c.position)
+				? `position ${c.position} · head ${c.lift}${c.moving ? ' · moving' : ''}`
+				: 'not answering';
+		}
 	};
 	return {el, update, setMethods};
 }
