@@ -266,6 +266,10 @@ static void load_tokens(const cfg_t *cfg, http_ctx_t *ctx)
 		cfg_load_tokens(cfg->token_file, &t, &td);
 		log_diags(&td);
 		diag_free(&td);
+		for (int i = 0; i < t.n; i++)
+			if (t.v[i].no_roles)
+				log_warn("%s:%d: token '%s' has no roles: it keeps every role",
+				         cfg->token_file, t.v[i].line, t.v[i].name);
 	}
 	if (t.n == 0)
 		log_warn("no valid write tokens: every write request will get 401");
@@ -402,9 +406,19 @@ int main(int argc, char **argv)
 		cfg_load_tokens(cfg.token_file, &t, &td);
 		for (size_t i = 0; i < td.n; i++)
 			at_config_line(&cfg, "token_file", &td.v[i], &d,
-			               " (lines 'name:TOKEN'; how to make one: stopcockd.yaml(5), "
-			               "TOKEN FILE)");
+			               " (lines 'name:role,role:TOKEN'; how to make one: "
+			               "stopcockd.yaml(5), TOKEN FILE)");
 		diag_free(&td);
+		/* A warning, not an error: files from before roles keep working. */
+		for (int i = 0; i < t.n; i++)
+			if (t.v[i].no_roles)
+				fprintf(
+				    stderr,
+				    "%s:%d: warning: token '%s' has no roles, so it keeps every "
+				    "role (read, operate, review, admin); give it only what it "
+				    "needs: "
+				    "'%s:read:TOKEN'\n",
+				    cfg.token_file, t.v[i].line, t.v[i].name, t.v[i].name);
 	}
 	if (d.n) {
 		diag_print(&d, stderr);

@@ -202,9 +202,14 @@ def test_route_table_is_the_spec():
     assert set(table) == set(spec), \
         f"only in the table: {sorted(set(table) - set(spec))}; " \
         f"only in the spec: {sorted(set(spec) - set(table))}"
+    # A write's role is the spec's x-role (docs/api.md, "Roles"): operate
+    # unless it says otherwise.
+    by_role = {"operate": "WRITE", "review": "REVIEW", "admin": "ADMIN",
+               "operate,admin": "CURATE"}
     for (m, p), auth in sorted(table.items()):
         want = ("OPEN" if spec[m, p].get("security") == [{}]
-                else "WRITE" if is_write(m) else "READ")
+                else by_role[spec[m, p].get("x-role", "operate")] if is_write(m)
+                else "READ")
         assert auth == want, f"{m.upper()} {p}: the table says {auth}, the spec {want}"
 
 
@@ -376,6 +381,8 @@ def test_every_operation_answers_as_documented(daemon):
 
     st, health = do("get", "/v1/health")
     assert st == 200
+    st, me = do("get", "/v1/whoami")
+    assert st == 200 and "operate" in me["roles"], me
     st, stations = do("get", "/v1/stations")
     assert st == 200 and stations["stations"], "no station"
     station = stations["stations"][0]["name"]
@@ -525,7 +532,7 @@ def route_table():
     """(METHOD, pattern, authorization) for every row of the daemon's route
     table (daemon/server/http_routes.c)."""
     text = (ROOT / "daemon" / "server" / "http_routes.c").read_text()
-    rows = re.findall(r'\{\s*"([A-Z]+)",\s*"(/[^"]*)",\s*\w+,\s*HTTP_(OPEN|READ|WRITE)', text)
+    rows = re.findall(r'\{\s*"([A-Z]+)",\s*"(/[^"]*)",\s*\w+,\s*HTTP_(OPEN|READ|WRITE|REVIEW|ADMIN|CURATE)', text)
     assert rows, "no rows found in daemon/server/http_routes.c; adjust this test"
     return rows
 
