@@ -1,6 +1,7 @@
 /* cmd_audit.c: `stopcock titrants` and `stopcock events`, the two read-only
  * views a lab needs to show where a result's titer came from and who did
- * what (GET /v1/titrants and GET /v1/events, docs/api.md). */
+ * what (GET /v1/titrants and GET /v1/events, docs/api.md), and `stopcock
+ * events --verify`, the check of the audit trail's hash chain. */
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -66,13 +67,49 @@ int cmd_titrants(int argc, char **argv)
 
 /* ---- events ---- */
 
+/* GET /v1/events/verify: 0 when the chain holds, 1 naming the first broken
+ * event otherwise. */
+static int verify_events(client_t *c)
+{
+	json_t *j = NULL;
+	int rc = client_json(c, "GET", "/v1/events/verify", NULL, false, &j, NULL);
+	if (rc) {
+		json_decref(j);
+		return client_exit(c, rc);
+	}
+	const json_t *head = json_object_get(j, "head"), *bad = json_object_get(j, "first_broken");
+	const json_t *n = json_object_get(j, "checked");
+	long long checked = json_is_integer(n) ? (long long)json_integer_value(n) : 0;
+	if (json_is_true(json_object_get(j, "ok"))) {
+		const json_t *hid = json_object_get(head, "id");
+		printf("audit trail intact: %lld events chained", checked);
+		if (json_is_integer(hid))
+			printf(", last %lld with hash %s", (long long)json_integer_value(hid),
+			       client_str(head, "hash", "?"));
+		printf("\n");
+	} else {
+		const json_t *bid = json_object_get(bad, "id");
+		printf("audit trail BROKEN at event %lld (%s %s): %s\n",
+		       json_is_integer(bid) ? (long long)json_integer_value(bid) : 0LL,
+		       client_str(bad, "kind", "-"), client_str(bad, "at", "-"),
+		       client_str(bad, "why", "?"));
+		rc = -1;
+	}
+	json_decref(j);
+	client_free(c);
+	return rc ? CLIENT_EXIT_FAIL : CLIENT_EXIT_OK;
+}
+
 int cmd_events(int argc, char **argv)
 {
-	static const char usage[] = "events [--after SEQ] [--limit N]";
+	static const char usage[] = "events [--after SEQ] [--limit N] | events --verify";
 	const char *after_s = NULL, *limit_s = NULL;
+	bool verify = false;
 	const client_arg_t args[] = {
 	    {"after", &after_s, NULL, "SEQ  only events after this one (default 0)"},
 	    {"limit", &limit_s, NULL, "N  at most this many events, 1 to 1000 (default 100)"},
+	    {"verify", NULL, &verify,
+	     "   check the whole trail's hash chain; exit 1 naming the first broken event"},
 	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "events");
@@ -81,6 +118,11 @@ int cmd_events(int argc, char **argv)
 		return early;
 	if (pos < argc)
 		return client_usage(&c, usage, "unexpected argument '%s'", argv[pos]);
+	if (verify && (after_s || limit_s))
+		return client_usage(&c, usage,
+		                    "--verify checks the whole trail: no --after, --limit");
+	if (verify)
+		return verify_events(&c);
 	long long after = 0, limit = 100;
 	if (after_s && !(client_parse_id(after_s, &after) || !strcmp(after_s, "0")))
 		return client_usage(&c, usage, "--after must be an event number >= 0 (got '%s')",

@@ -1,5 +1,6 @@
 /* http_records.c: what a regulated lab's records need (docs/api.md,
- * "Roles"): who the caller is and what its token may do. */
+ * "Roles", "GET /v1/events/verify"): who the caller is and what its token
+ * may do, and the check of the audit trail's hash chain. */
 #include "http.h"
 #include "http_routes.h"
 
@@ -27,4 +28,16 @@ void http_get_whoami(const http_req_t *q, http_reply_t *r)
 	                json_pack("{s:o,s:o,s:b}", "name",
 	                          q->token_name ? json_string(q->token_name) : json_null(), "roles",
 	                          roles, "read_needs_token", q->ctx->cfg->read_needs_token));
+}
+
+void http_get_events_verify(const http_req_t *q, http_reply_t *r)
+{
+	bool db_err;
+	json_t *j = store_events_verify(q->ctx->store, &db_err);
+
+	if (!j) {
+		http_reply_error(r, 500, "database", "could not read the audit trail");
+		return;
+	}
+	http_reply_json(r, 200, j);
 }

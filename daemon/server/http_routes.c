@@ -40,6 +40,7 @@ static const http_route_t routes[] = {
     {"POST", "/v1/runs/{id}/abort", http_post_abort, HTTP_WRITE, "run"},
     {"GET", "/v1/results", http_get_results, HTTP_READ, NULL},
     {"GET", "/v1/events", http_get_events, HTTP_READ, NULL},
+    {"GET", "/v1/events/verify", http_get_events_verify, HTTP_READ, NULL},
     {"GET", "/v1/titrants", http_get_titrants, HTTP_READ, NULL},
     {"POST", "/v1/calibrations", http_post_calibration, HTTP_WRITE, NULL},
     {"GET", "/v1/calibrations/latest", http_get_calibration_latest, HTTP_READ, NULL},

@@ -58,6 +58,11 @@ static const char *const migrations[] = {
      "ALTER TABLE titrants ADD COLUMN replicates TEXT;"),
     /* 2 -> 3: the daemon's heartbeat, for the end time of a run a crash cut. */
     "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
+    /* 3 -> 4: records (issue 24): the audit trail is a hash chain
+     * (store_chain.c); the rows from before are chained once, at the first
+     * open after this migration (store_chain_backfill). */
+    ("ALTER TABLE events ADD COLUMN hash TEXT;"
+     "INSERT OR REPLACE INTO meta (key, value) VALUES ('events_chain', 'pending');"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -141,7 +146,7 @@ static int64_t one_int(sqlite3 *db, const char *sql)
 	return v;
 }
 
-static void meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
+void store_meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
 {
 	sqlite3_stmt *st;
 	out[0] = '\0';
@@ -154,7 +159,7 @@ static void meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
 	sqlite3_finalize(st);
 }
 
-static int meta_set(sqlite3 *db, const char *key, const char *value)
+int store_meta_set(sqlite3 *db, const char *key, const char *value)
 {
 	sqlite3_stmt *st;
 	int rc;
@@ -222,11 +227,11 @@ static int history_start(store_t *s, char *err, size_t cap)
 	long long fid = 0, fseq = 0;
 	FILE *f;
 
-	meta_get(s->w, "history", s->history, sizeof s->history);
-	meta_get(s->w, "seq_floor", buf, sizeof buf);
+	store_meta_get(s->w, "history", s->history, sizeof s->history);
+	store_meta_get(s->w, "seq_floor", buf, sizeof buf);
 	s->seq_floor = buf[0] ? strtoll(buf, NULL, 10) : 0;
 	if (!s->history[0]) {
-		if (new_history(s->history) || meta_set(s->w, "history", s->history)) {
+		if (new_history(s->history) || store_meta_set(s->w, "history", s->history)) {
 			snprintf(err, cap, "%s: cannot start the database's history", s->path);
 			return -1;
 		}
@@ -244,15 +249,15 @@ static int history_start(store_t *s, char *err, size_t cap)
 		int64_t id_floor = fid > db_max_id(s) ? fid : db_max_id(s);
 		int64_t seq_floor = fseq > db_max_seq(s) ? fseq : db_max_seq(s);
 		snprintf(old, sizeof old, "%s", s->history);
-		if (new_history(s->history) || meta_set(s->w, "history", s->history) ||
-		    meta_set(s->w, "restored_from", fh)) {
+		if (new_history(s->history) || store_meta_set(s->w, "history", s->history) ||
+		    store_meta_set(s->w, "restored_from", fh)) {
 			snprintf(err, cap, "%s: cannot start a new history after a restore",
 			         s->path);
 			return -1;
 		}
 		snprintf(num, sizeof num, "%lld", (long long)seq_floor);
 		s->seq_floor = seq_floor;
-		if (meta_set(s->w, "seq_floor", num) ||
+		if (store_meta_set(s->w, "seq_floor", num) ||
 		    sqlite3_exec(
 		        s->w, "INSERT OR IGNORE INTO sqlite_sequence(name, seq) VALUES('runs', 0)",
 		        NULL, NULL, NULL) != SQLITE_OK) {
@@ -314,6 +319,12 @@ store_t *store_open(const char *path, char *err, size_t err_cap)
 		return NULL;
 	}
 	if (migrate(s->w, err, err_cap) || history_start(s, err, err_cap)) {
+		store_close(s);
+		return NULL;
+	}
+	if (store_chain_backfill(s)) {
+		snprintf(err, err_cap, "%s: cannot chain the audit trail's earlier events: %s",
+		         path, sqlite3_errmsg(s->w));
 		store_close(s);
 		return NULL;
 	}
@@ -529,11 +540,9 @@ int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *s
 			held((const char *)sqlite3_column_text(st, 1), arg);
 		/* into the audit trail in the same transaction: the run's end and
 		 * its line there are one change */
-		if (exec_w(s,
-		           "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
-		           "VALUES (?,?,?,'run','interrupted',?,'daemon')",
-		           "ttit", at, (const char *)sqlite3_column_text(st, 1), id,
-		           restored ? why_restored : why) != SQLITE_DONE)
+		if (store_chain_append(s, at, (const char *)sqlite3_column_text(st, 1), id, "run",
+		                       "interrupted", restored ? why_restored : why,
+		                       "daemon") != SQLITE_DONE)
 			goto fail_tx;
 		n++;
 	}
@@ -964,10 +973,7 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
 		at = now;
 	}
 	pthread_mutex_lock(&s->wlock);
-	rc = exec_w(s,
-	            "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
-	            "VALUES (?,?,NULLIF(?,0),?,?,?,?)",
-	            "ttitttt", at, station, run_id, kind, code, message, actor);
+	rc = store_chain_append(s, at, station, run_id, kind, code, message, actor);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
 }

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 3
+#define STORE_SCHEMA_VERSION 4
 
 typedef struct store store_t;
 
@@ -152,6 +152,12 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
  * {"events":[{id, at, kind, code, station, run_id, actor, message}],
  *  "next_after": last id (after when none)}. NULL on a database error. */
 json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err);
+
+/* Check the audit trail's hash chain (store_chain.c) from its first event:
+ * {"ok", "checked": rows read, "head": {id, hash} of the last good row or
+ * null, "first_broken": {id, at, kind, why} or null}. NULL on a database
+ * error. Reads on a connection of its own. */
+json_t *store_events_verify(store_t *s, bool *db_err);
 
 /* The stored record with "seq" (null until final), NULL when unknown. */
 json_t *store_run_json(store_t *s, int64_t id, bool *db_err);

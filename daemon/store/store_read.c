@@ -376,7 +376,7 @@ json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err)
 
 	*db_err = false;
 	if (rq_open(&q, s,
-	            "SELECT id, at, kind, code, station, run_id, actor, message FROM events "
+	            "SELECT id, at, kind, code, station, run_id, actor, message, hash FROM events "
 	            "WHERE id > ? ORDER BY id LIMIT ?")) {
 		*db_err = true;
 		return NULL;
@@ -388,13 +388,14 @@ json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err)
 		last = sqlite3_column_int64(q.st, 0);
 		json_array_append_new(
 		    arr,
-		    json_pack("{s:I,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "id", (json_int_t)last, "at",
+		    json_pack("{s:I,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "id", (json_int_t)last, "at",
 		              text_or_null(q.st, 1), "kind", text_or_null(q.st, 2), "code",
 		              text_or_null(q.st, 3), "station", text_or_null(q.st, 4), "run_id",
 		              sqlite3_column_type(q.st, 5) == SQLITE_NULL
 		                  ? json_null()
 		                  : json_integer(sqlite3_column_int64(q.st, 5)),
-		              "actor", text_or_null(q.st, 6), "message", text_or_null(q.st, 7)));
+		              "actor", text_or_null(q.st, 6), "message", text_or_null(q.st, 7),
+		              "hash", text_or_null(q.st, 8)));
 	}
 	rq_close(&q);
 	return json_pack("{s:o,s:I}", "events", arr, "next_after", (json_int_t)last);

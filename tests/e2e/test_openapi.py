@@ -447,6 +447,8 @@ def test_every_operation_answers_as_documented(daemon):
     assert any(e["kind"] == "run" and e["run_id"] == rid for e in ev["events"]), ev
     st, _ = do("get", "/v1/events", "/v1/events?after=-1")
     assert st == 400
+    st, ver = do("get", "/v1/events/verify")
+    assert st == 200 and ver["ok"], ver
     st, tl = do("get", "/v1/titrants", "/v1/titrants")
     assert st == 200 and isinstance(tl["titrants"], list), tl
     st, runs = do("get", "/v1/runs", f"/v1/runs?station={station}&limit=5")
