@@ -25,6 +25,7 @@ static const struct {
     {"titrants", cmd_titrants,
      "titrants                      stored titers and how they were found"},
     {"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
+    {"review", cmd_review, "review RUN --approve|--reject [--reason TEXT]  sign a run's results"},
     {"ports", cmd_ports, "ports                         list serial ports"},
     {"help", NULL, "help [COMMAND]                this list, or one command's options"},
 };

@@ -38,6 +38,8 @@ static const http_route_t routes[] = {
     {"GET", "/v1/runs/{id}/points", http_get_points, HTTP_READ, "run"},
     {"GET", "/v1/runs/{id}/curve.svg", http_get_curve, HTTP_READ, "run"},
     {"POST", "/v1/runs/{id}/abort", http_post_abort, HTTP_WRITE, "run"},
+    {"POST", "/v1/runs/{id}/review", http_post_review, HTTP_REVIEW, "run"},
+    {"POST", "/v1/runs/{id}/correct", http_post_correct, HTTP_WRITE, "run"},
     {"GET", "/v1/results", http_get_results, HTTP_READ, NULL},
     {"GET", "/v1/events", http_get_events, HTTP_READ, NULL},
     {"GET", "/v1/events/verify", http_get_events_verify, HTTP_READ, NULL},

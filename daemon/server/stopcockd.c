@@ -326,7 +326,7 @@ int main(int argc, char **argv)
 {
 	opts_t o = {0};
 	static cfg_t cfg; /* large; static keeps it off the stack */
-	diag_list_t d = DIAG_LIST_INIT;
+	diag_list_t d = DIAG_LIST_INIT, warn = DIAG_LIST_INIT; /* warn: --check-config's */
 	calib_config_t cal;
 	station_t *stations[CFG_MAX_STATIONS] = {0};
 	store_t *store = NULL;
@@ -409,16 +409,16 @@ int main(int argc, char **argv)
 			               " (lines 'name:role,role:TOKEN'; how to make one: "
 			               "stopcockd.yaml(5), TOKEN FILE)");
 		diag_free(&td);
-		/* A warning, not an error: files from before roles keep working. */
+		/* A warning, not an error: files from before roles keep working.
+		 * Said once the config is otherwise good, after any errors. */
 		for (int i = 0; i < t.n; i++)
 			if (t.v[i].no_roles)
-				fprintf(
-				    stderr,
-				    "%s:%d: warning: token '%s' has no roles, so it keeps every "
-				    "role (read, operate, review, admin); give it only what it "
-				    "needs: "
-				    "'%s:read:TOKEN'\n",
-				    cfg.token_file, t.v[i].line, t.v[i].name, t.v[i].name);
+				diag_add(
+				    &warn, cfg.token_file, t.v[i].line, 1,
+				    "warning: token '%s' has no roles, so it keeps every role "
+				    "(read, operate, review, admin); give it only what it needs: "
+				    "'%s:read:TOKEN'",
+				    t.v[i].name, t.v[i].name);
 	}
 	if (d.n) {
 		diag_print(&d, stderr);
@@ -426,6 +426,7 @@ int main(int argc, char **argv)
 		goto out;
 	}
 	if (o.check) {
+		diag_print(&warn, stderr);
 		printf("%s: ok (%d station%s)\n", o.config, n, n == 1 ? "" : "s");
 		rc = 0;
 		goto out;
@@ -570,6 +571,7 @@ out:
 	titer_book_free(titers);
 	store_close(store);
 	pthread_rwlock_destroy(&ctx.tokens_lock);
+	diag_free(&warn);
 	diag_free(&d);
 	cfg_free(&cfg);
 	return rc;

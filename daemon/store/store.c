@@ -962,6 +962,68 @@ out:
 	return ret;
 }
 
+store_status_t store_run_revise(store_t *s, int64_t id, store_revise_fn fn, void *arg,
+                                int64_t *seq_out)
+{
+	store_revise_t ev;
+	store_status_t ret = STORE_ERR;
+	sqlite3_stmt *st = NULL;
+	json_t *rec = NULL;
+	char *text = NULL, station[64] = "";
+	int64_t seq;
+	bool final = false, found = false;
+
+	memset(&ev, 0, sizeof ev);
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (sqlite3_prepare_v2(s->w, "SELECT seq IS NOT NULL, record, station FROM runs WHERE id=?",
+	                       -1, &st, NULL) != SQLITE_OK)
+		goto out_tx;
+	sqlite3_bind_int64(st, 1, id);
+	if (sqlite3_step(st) == SQLITE_ROW) {
+		const char *r = (const char *)sqlite3_column_text(st, 1);
+		found = true;
+		final = sqlite3_column_int(st, 0) != 0;
+		rec = r ? json_loads(r, 0, NULL) : NULL;
+		snprintf(station, sizeof station, "%s", (const char *)sqlite3_column_text(st, 2));
+	}
+	sqlite3_finalize(st);
+	if (!found || !final || !json_is_object(rec)) {
+		ret = !found ? STORE_NOT_FOUND : final ? STORE_ERR : STORE_CONFLICT;
+		goto out_tx;
+	}
+	/* The caller's change, decided on the record as it is now, under the
+	 * writer's lock: two reviewers cannot both sign one version. */
+	ret = fn(rec, arg, &ev);
+	if (ret != STORE_OK)
+		goto out_tx;
+	ret = STORE_ERR;
+	text = json_dumps(rec, JSON_COMPACT | JSON_REAL_PRECISION(10));
+	seq = next_seq(s);
+	if (!text || seq < 0 ||
+	    exec_w(s, "UPDATE runs SET seq=?, record=? WHERE id=?", "iti", seq, text, id) !=
+	        SQLITE_DONE ||
+	    (ev.results_changed && write_outcome_rows(s, id, rec)) ||
+	    store_chain_append(s, ev.at, station, id, ev.kind, ev.code, ev.message, ev.actor) !=
+	        SQLITE_DONE)
+		goto out_tx;
+	if (commit(s) == 0) {
+		ret = STORE_OK;
+		if (seq_out)
+			*seq_out = seq;
+		issued_write(s);
+	}
+	goto out;
+out_tx:
+	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	json_decref(rec);
+	free(text);
+	return ret;
+}
+
 store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
                                const char *kind, const char *code, const char *message,
                                const char *actor)

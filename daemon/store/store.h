@@ -142,6 +142,23 @@ store_status_t store_points_rewrite(store_t *s, int64_t run_id, const store_poin
 store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const char *record_json,
                                 int64_t *seq_out);
 
+/* A change to a final run's record after the fact (a review, a corrected
+ * version of the results; docs/lims.md, "Review and corrections"). In one
+ * transaction under the writer's lock: fn gets the stored record (without
+ * seq) and changes it in place, or refuses (STORE_CONFLICT, its reason in
+ * its own arg); then the record is stored, the run gets a new seq (it
+ * enters the result feed again), its results rows follow when
+ * ev->results_changed, and ev's audit event is chained. STORE_NOT_FOUND;
+ * STORE_CONFLICT without calling fn for a run that has not ended. */
+typedef struct store_revise {
+	const char *at, *kind, *code, *actor; /* the audit event fn fills in */
+	char message[512];
+	bool results_changed;
+} store_revise_t;
+typedef store_status_t (*store_revise_fn)(json_t *record, void *arg, store_revise_t *ev);
+store_status_t store_run_revise(store_t *s, int64_t id, store_revise_fn fn, void *arg,
+                                int64_t *seq_out);
+
 /* An audit-trail or fault row (at NULL: now; run_id 0 when none; station,
  * code, message may be NULL). actor: who did it: the write token's name, "daemon" for what
  * the daemon did by itself, "signal" for a reload by SIGHUP. */

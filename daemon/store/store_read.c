@@ -208,6 +208,12 @@ static json_t *row_record(sqlite3_stmt *st)
 	/* The columns win over a record written before the last state change. */
 	json_object_set_new(j, "id", json_integer(sqlite3_column_int64(st, 2)));
 	json_object_set_new(j, "state", col_json_text(st, 3));
+	/* Not reviewed yet (docs/lims.md, "Review and corrections"): a review
+	 * or a correction stores its own. */
+	if (!json_object_get(j, "review"))
+		json_object_set_new(j, "review",
+		                    json_pack("{s:s,s:n,s:n,s:n,s:i}", "state", "pending", "by",
+		                              "at", "reason", "version", 1));
 	return j;
 }
 
@@ -503,6 +509,12 @@ static json_t *calib_row(sqlite3_stmt *st)
 	json_object_set_new(j, "id", json_integer(sqlite3_column_int64(st, 1)));
 	json_object_set_new(j, "station", col_json_text(st, 2));
 	json_object_set_new(j, "state", col_json_text(st, 3));
+	/* Not reviewed yet (docs/lims.md, "Review and corrections"): a review
+	 * or a correction stores its own. */
+	if (!json_object_get(j, "review"))
+		json_object_set_new(j, "review",
+		                    json_pack("{s:s,s:n,s:n,s:n,s:i}", "state", "pending", "by",
+		                              "at", "reason", "version", 1));
 	return j;
 }
 

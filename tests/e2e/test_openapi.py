@@ -438,6 +438,14 @@ def test_every_operation_answers_as_documented(daemon):
     assert st in (200, 409)
     st, _ = do("post", "/v1/runs/{id}/abort", f"/v1/runs/{rid}/abort")
     assert st == 409, "aborting a final run must be a conflict"
+    # The token that requested the run may not review it (four eyes), and an
+    # aborted run has no results to correct.
+    st, _ = do("post", "/v1/runs/{id}/review", f"/v1/runs/{rid}/review",
+               body={"decision": "approve"})
+    assert st == 409
+    st, _ = do("post", "/v1/runs/{id}/correct", f"/v1/runs/{rid}/correct",
+               body={"amount": 5.0, "reason": "spec"})
+    assert st == 409
     st, _ = do("get", "/v1/runs/{id}", "/v1/runs/999999")
     assert st == 404
     st, page = do("get", "/v1/results", "/v1/results?after=0&limit=10")

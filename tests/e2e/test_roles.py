@@ -77,6 +77,14 @@ def test_each_write_route_needs_its_role(bench):
     r = call(bench, "operate", "POST", f"/v1/runs/{rid}/abort")
     assert r.status == 200, r.body
     bench.wait_state(rid, ("aborted", "finished", "failed"), timeout_s=30)
+    review = json.dumps({"decision": "reject", "reason": "aborted at the bench"})
+    refused_to_all_but(bench, ["review"], "POST", f"/v1/runs/{rid}/review", review)
+    r = call(bench, "review", "POST", f"/v1/runs/{rid}/review", review)
+    assert r.status == 200, r.body
+    correct = json.dumps({"amount": 5.0, "reason": "roles"})
+    refused_to_all_but(bench, ["operate"], "POST", f"/v1/runs/{rid}/correct", correct)
+    r = call(bench, "operate", "POST", f"/v1/runs/{rid}/correct", correct)
+    assert r.status == 409, r.body  # allowed, but an aborted run has no results to correct
 
     refused_to_all_but(bench, ["operate"], "POST", "/v1/stations/sim1/halt")
     r = call(bench, "operate", "POST", "/v1/stations/sim1/halt")
@@ -107,7 +115,7 @@ def test_a_line_without_roles_keeps_every_right_and_check_config_says_so(bench):
     out = subprocess.run([db.binary("stopcockd"), "--check-config", "-c", str(bench.config)],
                          capture_output=True, text=True)
     assert out.returncode == 0, out.stderr
-    assert f"{bench.tmp / 'token'}:1: warning: token 'bench' has no roles" in out.stderr
+    assert f"{bench.tmp / 'token'}:1:1: warning: token 'bench' has no roles" in out.stderr
     assert "'lims'" not in out.stderr  # lines with roles are not warned about
 
 
