@@ -8,6 +8,7 @@
 #include <string.h>
 
 #include "client.h"
+#include "numparse.h"
 #include "cmd.h"
 
 /* Grow a column's width *w (characters) to fit s. */
@@ -20,9 +21,57 @@ static void widen(int *w, const char *s)
 
 /* ---- titrants ---- */
 
+/* `stopcock titrants set NAME --titer X --reason TEXT`: a certified
+ * titrant's titer entered by hand (POST /v1/titrants). */
+static int titrants_set(int argc, char **argv)
+{
+	static const char usage[] =
+	    "titrants set NAME --titer X --reason TEXT [--valid-days N] [--molarity M]";
+	const char *titer_s = NULL, *reason = NULL, *days_s = NULL, *mol_s = NULL;
+	const client_arg_t args[] = {
+	    {"titer", &titer_s, NULL, "X  the titer (correction factor, above 0, at most 2)"},
+	    {"reason", &reason, NULL, "TEXT  why: the certificate, the lot"},
+	    {"valid-days", &days_s, NULL, "N  days it stays valid (default: the daemon's)"},
+	    {"molarity", &mol_s, NULL, "M  nominal mol/L, for a titrant not stored yet"},
+	    {NULL, NULL, NULL, NULL}};
+	client_t c;
+	client_init(&c, "titrants set");
+	int pos, early = client_parse(&c, argc, argv, usage, args, &pos);
+	if (early >= 0)
+		return early;
+	if (pos != argc - 1)
+		return client_usage(&c, usage, "give the titrant's name, as its methods name it");
+	double titer, days = 0, mol = 0;
+	if (!titer_s || !parse_decimal(titer_s, &titer))
+		return client_usage(&c, usage, "--titer X is needed, a number");
+	if (!reason || !*reason)
+		return client_usage(&c, usage, "--reason TEXT is needed");
+	if (days_s && !parse_decimal(days_s, &days))
+		return client_usage(&c, usage, "--valid-days must be a number of days");
+	if (mol_s && !parse_decimal(mol_s, &mol))
+		return client_usage(&c, usage, "--molarity must be a number in mol/L");
+	json_t *body =
+	    json_pack("{s:s,s:f,s:s}", "name", argv[pos], "titer", titer, "reason", reason);
+	if (days_s)
+		json_object_set_new(body, "valid_days", json_real(days));
+	if (mol_s)
+		json_object_set_new(body, "molarity", json_real(mol));
+	json_t *reply = NULL;
+	int rc = client_json(&c, "POST", "/v1/titrants", body, true, &reply, NULL);
+	json_decref(body);
+	if (rc == 0)
+		printf("%s: titer %.6f entered by %s, valid until %s\n",
+		       client_str(reply, "name", "?"), client_num(reply, "titer"),
+		       client_str(reply, "by", "?"), client_str(reply, "valid_until", "?"));
+	json_decref(reply);
+	return client_exit(&c, rc);
+}
+
 int cmd_titrants(int argc, char **argv)
 {
-	static const char usage[] = "titrants";
+	static const char usage[] = "titrants | titrants set NAME --titer X --reason TEXT";
+	if (argc > 1 && !strcmp(argv[1], "set"))
+		return titrants_set(argc - 1, argv + 1);
 	client_t c;
 	client_init(&c, "titrants");
 	int early = client_parse_bare(&c, argc, argv, usage);

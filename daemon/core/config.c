@@ -10,7 +10,9 @@
 #include <string.h>
 
 static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
-                                       "calibration", "standardization", NULL};
+                                       "calibration", "standardization", "records",     NULL};
+static const char *const records_keys[] = {"titer_required", "titer_valid_days", "blank_valid_days",
+                                           NULL};
 /* clang-format off */
 static const char *const http_keys[] = {
     "listen",     "token_file",     "read_needs_token",     "max_connections",
@@ -317,6 +319,9 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	snprintf(c->allowed_hosts[0], sizeof c->allowed_hosts[0], "localhost");
 	c->threads = 4;
 	snprintf(c->database, sizeof c->database, "/var/lib/stopcock/stopcock.db");
+	c->titer_required = true;
+	c->titer_valid_days = 30; /* a month: common practice for 0.1 mol/L NaOH */
+	c->blank_valid_days = 7;
 
 	if (yt_load_file(path, &c->doc, d))
 		return -1;
@@ -334,6 +339,18 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	}
 	if ((n = yt_get(root, "methods_dir")) && !yt_is_null(n))
 		get_path(c, n, "methods_dir", c->methods_dir, sizeof c->methods_dir, d);
+	if ((n = yt_get(root, "records")) && yt_want_map(&c->doc, n, "records", d)) {
+		const yt_node_t *v;
+		yt_check_keys(&c->doc, n, records_keys, "records", d);
+		if ((v = yt_get(n, "titer_required")))
+			yt_bool(&c->doc, v, "records.titer_required", &c->titer_required, d);
+		if ((v = yt_get(n, "titer_valid_days")))
+			yt_double_range(&c->doc, v, "records.titer_valid_days", "days", 0.01, 3650,
+			                &c->titer_valid_days, d);
+		if ((v = yt_get(n, "blank_valid_days")))
+			yt_double_range(&c->doc, v, "records.blank_valid_days", "days", 0.01, 3650,
+			                &c->blank_valid_days, d);
+	}
 	c->calibration = yt_get(root, "calibration");
 	c->standardization = yt_get(root, "standardization");
 	if (!(n = yt_get(root, "stations"))) {

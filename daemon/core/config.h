@@ -75,6 +75,12 @@ typedef struct cfg {
 	char methods_dir[CFG_PATH_MAX]; /* "" when none */
 	int n_stations;
 	cfg_station_t stations[CFG_MAX_STATIONS];
+	/* records: (docs/config.md): an assay needs a stored titer unless
+	 * titer_required is false; a titer or blank older than its validity,
+	 * days, refuses the assay. Per titrant, a titer entered by hand
+	 * carries its own valid_days. */
+	bool titer_required;
+	double titer_valid_days, blank_valid_days;
 	/* parsed by calib.h (calib_config_parse, standardization_config_parse); NULL: absent */
 	const yt_node_t *calibration;
 	const yt_node_t *standardization;

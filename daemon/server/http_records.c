@@ -397,3 +397,73 @@ out:
 	json_decref(rec);
 	json_decref(body);
 }
+
+/* ---- a titer entered by hand (docs/api.md, "POST /v1/titrants") ---- */
+
+void http_post_titrant(const http_req_t *q, http_reply_t *r)
+{
+	json_error_t jerr;
+	json_t *body = body_object(
+	    q, r, "{\"name\", \"titer\", \"reason\", \"valid_days\", \"molarity\" (new titrants)}");
+	const char *name = NULL, *reason = NULL;
+	double titer = 0, valid_days = q->ctx->cfg->titer_valid_days, molarity = 0;
+	bool has_days = false, has_mol = false;
+	char at[32];
+
+	if (!body)
+		return;
+	if (json_unpack_ex(body, &jerr, JSON_STRICT, "{s:s,s:F,s:s,s?F,s?F}", "name", &name,
+	                   "titer", &titer, "reason", &reason, "valid_days", &valid_days,
+	                   "molarity", &molarity)) {
+		http_reply_error(r, 400, "bad_request", "%s", jerr.text);
+		goto out;
+	}
+	has_days = json_object_get(body, "valid_days") != NULL;
+	has_mol = json_object_get(body, "molarity") != NULL;
+	if (!*name || strlen(name) >= METHOD_TEXT_MAX ||
+	    text_control_at(name, strlen(name), false) != TEXT_NONE) {
+		http_reply_error(
+		    r, 400, "bad_request",
+		    "name is the titrant as the methods name it (1 to %d bytes of text)",
+		    METHOD_TEXT_MAX - 1);
+		goto out;
+	}
+	if (!isfinite(titer) || titer <= 0 || titer > 2) {
+		http_reply_error(r, 400, "bad_request",
+		                 "titer must be above 0 and at most 2 (got %g)", titer);
+		goto out;
+	}
+	if (has_days && (!isfinite(valid_days) || valid_days < 0.01 || valid_days > 3650)) {
+		http_reply_error(r, 400, "bad_request", "valid_days must be 0.01 to 3650");
+		goto out;
+	}
+	if (has_mol && (!isfinite(molarity) || molarity <= 0 || molarity > 20)) {
+		http_reply_error(r, 400, "bad_request",
+		                 "molarity must be above 0 and at most 20 mol/L");
+		goto out;
+	}
+	if (!reason_ok(reason, r, true))
+		goto out;
+	time_format_rfc3339(clock_wall_s(), at);
+	switch (store_titrant_enter(q->ctx->store, name, has_mol ? molarity : 0, titer, at,
+	                            valid_days, reason, http_actor(q))) {
+	case STORE_OK: {
+		char until[32];
+		time_format_rfc3339(clock_wall_s() + valid_days * 86400.0, until);
+		http_reply_json(r, 201,
+		                json_pack("{s:s,s:f,s:s,s:f,s:s,s:s,s:s}", "name", name, "titer",
+		                          titer, "at", at, "valid_days", valid_days, "valid_until",
+		                          until, "reason", reason, "by", http_actor(q)));
+		break;
+	}
+	case STORE_NOT_FOUND:
+		http_reply_error(r, 400, "bad_request",
+		                 "titrant '%s' is not stored yet: give its molarity (mol/L) too",
+		                 name);
+		break;
+	default:
+		http_reply_error(r, 500, "database", "could not store the titer");
+	}
+out:
+	json_decref(body);
+}

@@ -44,6 +44,7 @@ static const http_route_t routes[] = {
     {"GET", "/v1/events", http_get_events, HTTP_READ, NULL},
     {"GET", "/v1/events/verify", http_get_events_verify, HTTP_READ, NULL},
     {"GET", "/v1/titrants", http_get_titrants, HTTP_READ, NULL},
+    {"POST", "/v1/titrants", http_post_titrant, HTTP_CURATE, NULL},
     {"POST", "/v1/calibrations", http_post_calibration, HTTP_WRITE, NULL},
     {"GET", "/v1/calibrations/latest", http_get_calibration_latest, HTTP_READ, NULL},
     {"GET", "/v1/calibrations/{id}", http_get_calibration, HTTP_READ, "calibration"},

@@ -60,9 +60,14 @@ static const char *const migrations[] = {
     "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
     /* 3 -> 4: records (issue 24): the audit trail is a hash chain
      * (store_chain.c); the rows from before are chained once, at the first
-     * open after this migration (store_chain_backfill). */
+     * open after this migration (store_chain_backfill). Titers entered by
+     * hand keep their validity, reason and author. */
     ("ALTER TABLE events ADD COLUMN hash TEXT;"
-     "INSERT OR REPLACE INTO meta (key, value) VALUES ('events_chain', 'pending');"),
+     "INSERT OR REPLACE INTO meta (key, value) VALUES ('events_chain', 'pending');"
+     /* a titer entered by hand: its validity (days), reason and author */
+     "ALTER TABLE titrants ADD COLUMN valid_days REAL;"
+     "ALTER TABLE titrants ADD COLUMN reason TEXT;"
+     "ALTER TABLE titrants ADD COLUMN set_by TEXT;"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -1054,6 +1059,49 @@ store_status_t store_titrant_set(store_t *s, const char *name, double molarity, 
 	    "tddtit", name, molarity, titer, at, run_id, replicates_json);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+store_status_t store_titrant_enter(store_t *s, const char *name, double molarity, double titer,
+                                   const char *at, double valid_days, const char *reason,
+                                   const char *by)
+{
+	store_status_t ret = STORE_ERR;
+	char msg[768];
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (molarity <= 0) { /* keep the stored one */
+		sqlite3_stmt *st;
+		if (sqlite3_prepare_v2(s->w, "SELECT molarity FROM titrants WHERE name=?", -1, &st,
+		                       NULL) != SQLITE_OK)
+			goto out_tx;
+		sqlite3_bind_text(st, 1, name, -1, SQLITE_STATIC);
+		if (sqlite3_step(st) == SQLITE_ROW)
+			molarity = sqlite3_column_double(st, 0);
+		sqlite3_finalize(st);
+		if (molarity <= 0) {
+			ret = STORE_NOT_FOUND;
+			goto out_tx;
+		}
+	}
+	snprintf(msg, sizeof msg, "%s: titer %.6f entered by hand, valid %g days: %s", name, titer,
+	         valid_days, reason);
+	if (exec_w(
+	        s,
+	        "INSERT OR REPLACE INTO titrants (name, molarity, titer, at, run_id, replicates, "
+	        "valid_days, reason, set_by) VALUES (?,?,?,?,NULL,NULL,?,?,?)",
+	        "tddtdtt", name, molarity, titer, at, valid_days, reason, by) != SQLITE_DONE ||
+	    store_chain_append(s, at, NULL, 0, "titrant", "entered", msg, by) != SQLITE_DONE)
+		goto out_tx;
+	if (commit(s) == 0)
+		ret = STORE_OK;
+	goto out;
+out_tx:
+	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	return ret;
 }
 
 store_status_t store_blank_set(store_t *s, const char *method_id, double blank_ml, const char *at,

@@ -211,6 +211,12 @@ int store_run_counts(store_t *s, const char *const *states, long *n, int n_state
 typedef struct store_source {
 	char at[32];
 	int64_t run_id;
+	/* a titer entered by hand (store_titrant_enter): its validity, days
+	 * (NaN: the config's records.titer_valid_days), why and by whom ("" for
+	 * a standardization's) */
+	double valid_days;
+	char reason[512];
+	char by[64];
 } store_source_t;
 
 /* src may be NULL. */
@@ -219,7 +225,15 @@ store_status_t store_titrant_get(store_t *s, const char *name, double *titer, st
  * text, stored as given), or NULL. */
 store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
                                  const char *at, int64_t run_id, const char *replicates_json);
-/* {"titrants":[{name, molarity, titer, at, run_id, standardization}]} by name. */
+/* A titer entered by hand (a certified titrant; docs/api.md, "POST
+ * /v1/titrants"): replaces the stored one, with its validity (days), reason
+ * and who; molarity <= 0 keeps the stored molarity (STORE_NOT_FOUND when
+ * there is none). The audit event is chained in the same transaction. */
+store_status_t store_titrant_enter(store_t *s, const char *name, double molarity, double titer,
+                                   const char *at, double valid_days, const char *reason,
+                                   const char *by);
+/* {"titrants":[{name, molarity, titer, at, run_id, standardization,
+ * valid_days, source, reason, by}]} by name. */
 json_t *store_titrants_json(store_t *s, bool *db_err);
 store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml,
                                store_source_t *src);

@@ -457,6 +457,9 @@ def test_every_operation_answers_as_documented(daemon):
     assert st == 400
     st, ver = do("get", "/v1/events/verify")
     assert st == 200 and ver["ok"], ver
+    st, _ = do("post", "/v1/titrants", body={"name": "spec titrant", "titer": 1.0,
+                                             "molarity": 0.1, "reason": "spec"})
+    assert st == 201
     st, tl = do("get", "/v1/titrants", "/v1/titrants")
     assert st == 200 and isinstance(tl["titrants"], list), tl
     st, runs = do("get", "/v1/runs", f"/v1/runs?station={station}&limit=5")

@@ -93,6 +93,13 @@ def test_each_write_route_needs_its_role(bench):
     r = call(bench, "operate", "POST", "/v1/stations/sim1/resume")
     assert r.status == 200, r.body
 
+    titer = json.dumps({"name": "NaOH 0.1 mol/L", "titer": 1.0, "molarity": 0.1,
+                        "reason": "certificate"})
+    refused_to_all_but(bench, ["operate", "admin"], "POST", "/v1/titrants", titer)
+    for role in ("operate", "admin"):
+        r = call(bench, role, "POST", "/v1/titrants", titer)
+        assert r.status == 201, r.body
+
     cal_body = json.dumps({"station": "sim1", "buffers": [4.01, 7.00]})
     refused_to_all_but(bench, ["operate"], "POST", "/v1/calibrations", cal_body)
     r = call(bench, "operate", "POST", "/v1/calibrations", cal_body)
