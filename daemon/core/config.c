@@ -12,7 +12,7 @@
 static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
                                        "calibration", "standardization", "records",     NULL};
 static const char *const records_keys[] = {"titer_required", "titer_valid_days", "blank_valid_days",
-                                           NULL};
+                                           "lab_name", NULL};
 /* clang-format off */
 static const char *const http_keys[] = {
     "listen",     "token_file",     "read_needs_token",     "max_connections",
@@ -347,6 +347,9 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 		if ((v = yt_get(n, "titer_valid_days")))
 			yt_double_range(&c->doc, v, "records.titer_valid_days", "days", 0.01, 3650,
 			                &c->titer_valid_days, d);
+		if ((v = yt_get(n, "lab_name")))
+			yt_string(&c->doc, v, "records.lab_name", c->lab_name, sizeof c->lab_name,
+			          d);
 		if ((v = yt_get(n, "blank_valid_days")))
 			yt_double_range(&c->doc, v, "records.blank_valid_days", "days", 0.01, 3650,
 			                &c->blank_valid_days, d);

@@ -81,6 +81,7 @@ typedef struct cfg {
 	 * carries its own valid_days. */
 	bool titer_required;
 	double titer_valid_days, blank_valid_days;
+	char lab_name[128]; /* records.lab_name: the header of a run's PDF report; "" none */
 	/* parsed by calib.h (calib_config_parse, standardization_config_parse); NULL: absent */
 	const yt_node_t *calibration;
 	const yt_node_t *standardization;

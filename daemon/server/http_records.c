@@ -14,6 +14,7 @@
 
 #include "clock.h"
 #include "correction.h"
+#include "report.h"
 #include "text.h"
 #include "timefmt.h"
 
@@ -466,4 +467,47 @@ void http_post_titrant(const http_req_t *q, http_reply_t *r)
 	}
 out:
 	json_decref(body);
+}
+
+/* ---- the one-page report (docs/api.md, "GET /v1/runs/{id}/report.pdf") ---- */
+
+void http_get_report(const http_req_t *q, http_reply_t *r)
+{
+	bool db_err = false;
+	json_t *rec = store_run_json(q->ctx->store, q->id, &db_err);
+	json_t *pts = rec ? store_points_json(q->ctx->store, q->id, &db_err) : NULL;
+	method_t *m = NULL;
+	char *text = NULL, sha[65], *pdf = NULL;
+	size_t len = 0;
+	long rev;
+	diag_list_t d = DIAG_LIST_INIT;
+
+	if (!rec || !pts) {
+		if (db_err)
+			http_reply_error(r, 500, "database", "could not read run %lld", q->id);
+		else
+			http_reply_error(r, 404, "not_found", "no run %lld", q->id);
+		goto out;
+	}
+	/* The method revision that ran gives the results' limits. */
+	const json_t *meth = json_object_get(rec, "method");
+	m = calloc(1, sizeof *m);
+	if (m && (store_method_revision(q->ctx->store, rec_str(meth, "id"),
+	                                (long)json_integer_value(json_object_get(meth, "revision")),
+	                                &text, &len, &rev, sha) != STORE_OK ||
+	          method_parse(rec_str(meth, "id"), text, len, NULL, m, &d))) {
+		free(m);
+		m = NULL;
+	}
+	pdf = report_pdf(rec, json_object_get(pts, "points"), m, q->ctx->cfg->lab_name, &len);
+	if (!pdf)
+		http_reply_error(r, 500, "internal", "could not draw the report");
+	else
+		http_reply_text(r, 200, "application/pdf", pdf, len);
+out:
+	diag_free(&d);
+	free(text);
+	free(m);
+	json_decref(pts);
+	json_decref(rec);
 }

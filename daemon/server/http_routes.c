@@ -37,6 +37,7 @@ static const http_route_t routes[] = {
     {"GET", "/v1/runs/{id}", http_get_run, HTTP_READ, "run"},
     {"GET", "/v1/runs/{id}/points", http_get_points, HTTP_READ, "run"},
     {"GET", "/v1/runs/{id}/curve.svg", http_get_curve, HTTP_READ, "run"},
+    {"GET", "/v1/runs/{id}/report.pdf", http_get_report, HTTP_READ, "run"},
     {"POST", "/v1/runs/{id}/abort", http_post_abort, HTTP_WRITE, "run"},
     {"POST", "/v1/runs/{id}/review", http_post_review, HTTP_REVIEW, "run"},
     {"POST", "/v1/runs/{id}/correct", http_post_correct, HTTP_WRITE, "run"},

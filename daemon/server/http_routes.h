@@ -86,5 +86,6 @@ void http_get_events_verify(const http_req_t *q, http_reply_t *r);
 void http_post_review(const http_req_t *q, http_reply_t *r);
 void http_post_correct(const http_req_t *q, http_reply_t *r);
 void http_post_titrant(const http_req_t *q, http_reply_t *r);
+void http_get_report(const http_req_t *q, http_reply_t *r);
 
 #endif

@@ -25,6 +25,7 @@
 #include "notify.h"
 #include "recover.h"
 #include "station.h"
+#include "report.h"
 #include "standardization.h"
 #include "store.h"
 #include "titer_book.h"
@@ -566,6 +567,7 @@ out:
 			recover_note_holds(&ctx, had_run);
 	}
 	http_stop(http);
+	report_cleanup(); /* after the last request that may draw a report */
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
 	titer_book_free(titers);

@@ -434,6 +434,8 @@ def test_every_operation_answers_as_documented(daemon):
     st, csv = do("get", "/v1/runs/{id}/points", f"/v1/runs/{rid}/points?format=csv")
     assert st == 200
     st, _ = do("get", "/v1/runs/{id}/curve.svg", f"/v1/runs/{rid}/curve.svg")
+    st, pdf = do("get", "/v1/runs/{id}/report.pdf", f"/v1/runs/{rid}/report.pdf")
+    assert st == 200 and pdf.startswith(b"%PDF-")
     st, _ = do("post", "/v1/runs/{id}/abort", f"/v1/runs/{rid}/abort")
     assert st in (200, 409)
     st, _ = do("post", "/v1/runs/{id}/abort", f"/v1/runs/{rid}/abort")
