@@ -22,7 +22,7 @@ BUILD ?= build
 PYTEST_WORKERS ?= 3
 
 PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystemd nettle libcurl \
-	libmosquitto
+	libmosquitto pangocairo cairo-pdf fontconfig
 
 # Debian packages the build, the tests, the demo and the benchmarks need.
 # python3-serial-asyncio: pymodbus 3.0 imports it even for TCP; it is only a
@@ -30,6 +30,7 @@ PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystem
 DEB_PKGS := build-essential pkg-config libserialport-dev libmodbus-dev libyaml-dev \
 	libmicrohttpd-dev libsqlite3-dev libjansson-dev libsystemd-dev nettle-dev libcurl4-openssl-dev \
 	libmosquitto-dev mosquitto mosquitto-clients python3-paho-mqtt openssl \
+	libcairo2-dev libpango1.0-dev poppler-utils \
 	python3 python3-pytest python3-pytest-xdist python3-pymodbus python3-serial-asyncio python3-serial python3-scipy \
 	curl wrk valgrind sqlite3 man-db groff-base clang libclang-rt-14-dev \
 	python3-yaml systemd strace chromium fonts-dejavu-core nodejs cppcheck clang-format

@@ -1,5 +1,6 @@
 /* client.c: what every `stopcock` client command shares (see client.h). */
 #include "client.h"
+#include "config.h"
 #include "text.h"
 #include "numparse.h"
 
@@ -145,8 +146,12 @@ char *client_read_token(const char *path, char *err, size_t err_len)
 			s[--n] = '\0';
 		if (!n || s[0] == '#')
 			continue;
+		/* "name:token" or "name:role,role:token" (docs/api.md, "Roles") */
 		char *colon = strchr(s, ':');
-		char *t = colon ? colon + 1 : s;
+		char *second = colon ? strchr(colon + 1, ':') : NULL;
+		if (second && !cfg_is_roles_field(colon + 1, (size_t)(second - colon - 1)))
+			second = NULL; /* a ':' inside a token from before roles */
+		char *t = second ? second + 1 : colon ? colon + 1 : s;
 		while (isspace((unsigned char)*t))
 			t++;
 		if (*t)

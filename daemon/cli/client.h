@@ -69,9 +69,10 @@ void client_say(const client_t *c, const char *fmt, ...) __attribute__((format(p
 int client_usage(const client_t *c, const char *usage, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
 
-/* Read the token from a file of "name:token" lines: the first line that is
- * not blank or a '#' comment; the part after the first ':' (the whole line
- * when there is none). Returns a malloc'd token, or NULL with err set. */
+/* Read the token from a file of "name:token" or "name:role,role:token"
+ * lines: the first line that is not blank or a '#' comment; the part after
+ * the roles field, else after the first ':' (the whole line when there is
+ * none). Returns a malloc'd token, or NULL with err set. */
 char *client_read_token(const char *path, char *err, size_t err_len);
 
 /* One request. `body` (may be NULL) is sent as JSON; `write` adds the token.

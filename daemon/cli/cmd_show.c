@@ -11,7 +11,7 @@
 #include "client.h"
 #include "cmd.h"
 
-static const char usage[] = "show RUN [--csv] [--svg FILE]";
+static const char usage[] = "show RUN [--csv] [--svg FILE] [--pdf FILE]";
 
 static void print_record(const json_t *r)
 {
@@ -154,11 +154,12 @@ static int write_file(const client_t *c, const char *file, const char *buf, size
 int cmd_show(int argc, char **argv)
 {
 	bool csv = false;
-	const char *svg_file = NULL;
+	const char *svg_file = NULL, *pdf_file = NULL;
 	const client_arg_t args[] = {
 	    {"csv", NULL, &csv,
 	     "   the points as CSV (t_s, volume_ml, mv, ph, ...) instead of the summary"},
 	    {"svg", &svg_file, NULL, "FILE  also write the curve as SVG to FILE"},
+	    {"pdf", &pdf_file, NULL, "FILE  also write the run's one-page report as PDF to FILE"},
 	    {NULL, NULL, NULL, NULL}};
 	client_t c;
 	client_init(&c, "show");
@@ -170,6 +171,9 @@ int cmd_show(int argc, char **argv)
 		return client_usage(&c, usage, "give one run id (a positive integer)");
 	if (csv && svg_file && !strcmp(svg_file, "-"))
 		return client_usage(&c, usage, "--csv and --svg - both want stdout");
+	bool pdf_out = pdf_file && !strcmp(pdf_file, "-");
+	if (pdf_out && (csv || (svg_file && !strcmp(svg_file, "-"))))
+		return client_usage(&c, usage, "--pdf - wants stdout for itself");
 
 	char path[96];
 	int rc = 0;
@@ -177,7 +181,7 @@ int cmd_show(int argc, char **argv)
 		snprintf(path, sizeof path, "/v1/runs/%lld", id);
 		json_t *rec = NULL;
 		rc = client_json(&c, "GET", path, NULL, false, &rec, NULL);
-		if (rc == 0 && !(svg_file && !strcmp(svg_file, "-")))
+		if (rc == 0 && !(svg_file && !strcmp(svg_file, "-")) && !pdf_out)
 			print_record(rec);
 		json_decref(rec);
 	} else {
@@ -197,6 +201,17 @@ int cmd_show(int argc, char **argv)
 			rc = write_file(&c, svg_file, r.body, r.body_len);
 			if (rc == 0 && strcmp(svg_file, "-"))
 				fprintf(stderr, "curve of run %lld written to %s\n", id, svg_file);
+			httpc_resp_free(&r);
+		}
+	}
+	if (rc == 0 && pdf_file) {
+		snprintf(path, sizeof path, "/v1/runs/%lld/report.pdf", id);
+		httpc_resp_t r;
+		rc = client_raw(&c, "GET", path, &r, NULL);
+		if (rc == 0) {
+			rc = write_file(&c, pdf_file, r.body, r.body_len);
+			if (rc == 0 && strcmp(pdf_file, "-"))
+				fprintf(stderr, "report of run %lld written to %s\n", id, pdf_file);
 			httpc_resp_free(&r);
 		}
 	}

@@ -16,7 +16,7 @@ static const struct {
     {"curve", cmd_curve, "curve S.yaml --ml 0,1,2.5,...  model pH and mV after each volume"},
     {"start", cmd_start, "start --station N --method M --sample-id ID --amount X"},
     {"status", cmd_status, "status                        stations and their current runs"},
-    {"show", cmd_show, "show RUN [--csv] [--svg FILE]"},
+    {"show", cmd_show, "show RUN [--csv] [--svg FILE] [--pdf FILE]"},
     {"wait", cmd_wait, "wait RUN [--timeout S]"},
     {"abort", cmd_abort, "abort RUN"},
     {"halt", cmd_halt, "halt --station N"},
@@ -25,6 +25,7 @@ static const struct {
     {"titrants", cmd_titrants,
      "titrants                      stored titers and how they were found"},
     {"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
+    {"review", cmd_review, "review RUN --approve|--reject [--reason TEXT]  sign a run's results"},
     {"ports", cmd_ports, "ports                         list serial ports"},
     {"help", NULL, "help [COMMAND]                this list, or one command's options"},
 };

@@ -11,7 +11,10 @@
 #include <string.h>
 
 static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
-                                       "calibration", "standardization", "mqtt",        NULL};
+                                       "calibration", "standardization", "mqtt",        "records",
+                                       NULL};
+static const char *const records_keys[] = {"titer_required", "titer_valid_days", "blank_valid_days",
+                                           "lab_name", NULL};
 /* clang-format off */
 static const char *const http_keys[] = {
     "listen",     "token_file",     "read_needs_token",     "max_connections",
@@ -528,6 +531,9 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	c->mqtt.keepalive_s = 30;
 	c->mqtt.outbox_max_messages = 100000; /* about a year of a busy bench's runs */
 	c->mqtt.outbox_max_age_days = 30;
+	c->titer_required = true;
+	c->titer_valid_days = 30; /* a month: common practice for 0.1 mol/L NaOH */
+	c->blank_valid_days = 7;
 
 	if (yt_load_file(path, &c->doc, d))
 		return -1;
@@ -547,6 +553,21 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 		get_path(c, n, "methods_dir", c->methods_dir, sizeof c->methods_dir, d);
 	if ((n = yt_get(root, "mqtt")))
 		parse_mqtt(c, n, d);
+	if ((n = yt_get(root, "records")) && yt_want_map(&c->doc, n, "records", d)) {
+		const yt_node_t *v;
+		yt_check_keys(&c->doc, n, records_keys, "records", d);
+		if ((v = yt_get(n, "titer_required")))
+			yt_bool(&c->doc, v, "records.titer_required", &c->titer_required, d);
+		if ((v = yt_get(n, "titer_valid_days")))
+			yt_double_range(&c->doc, v, "records.titer_valid_days", "days", 0.01, 3650,
+			                &c->titer_valid_days, d);
+		if ((v = yt_get(n, "lab_name")))
+			yt_string(&c->doc, v, "records.lab_name", c->lab_name, sizeof c->lab_name,
+			          d);
+		if ((v = yt_get(n, "blank_valid_days")))
+			yt_double_range(&c->doc, v, "records.blank_valid_days", "days", 0.01, 3650,
+			                &c->blank_valid_days, d);
+	}
 	c->calibration = yt_get(root, "calibration");
 	c->standardization = yt_get(root, "standardization");
 	if (!(n = yt_get(root, "stations"))) {
@@ -575,6 +596,67 @@ const cfg_station_t *cfg_station(const cfg_t *c, const char *name)
 	return NULL;
 }
 
+static const char *const role_names[CFG_N_ROLES] = {"read", "operate", "review", "admin"};
+
+const char *cfg_role_name(int i)
+{
+	return i >= 0 && i < CFG_N_ROLES ? role_names[i] : "?";
+}
+
+const char *cfg_roles_text(unsigned roles, char *buf, size_t cap)
+{
+	size_t used = 0;
+
+	if (!cap)
+		return buf;
+	buf[0] = '\0';
+	for (int i = 0; i < CFG_N_ROLES; i++) {
+		if (!(roles & (1u << i)))
+			continue;
+		int k = snprintf(buf + used, cap - used, "%s%s", used ? "," : "", role_names[i]);
+		if (k < 0 || (size_t)k >= cap - used)
+			break;
+		used += (size_t)k;
+	}
+	return buf;
+}
+
+bool cfg_is_roles_field(const char *s, size_t n)
+{
+	return strspn(s, "abcdefghijklmnopqrstuvwxyz,") >= n;
+}
+
+/* "read,operate" into *roles; a diagnostic at col for an empty or unknown
+ * word (a misspelt role must not fall back to every right). */
+static int parse_roles(const char *s, unsigned *roles, diag_list_t *d, const char *path, int lineno,
+                       int col)
+{
+	*roles = 0;
+	for (;;) {
+		size_t n = strcspn(s, ",");
+		int i;
+		for (i = 0; i < CFG_N_ROLES; i++)
+			if (strlen(role_names[i]) == n && !strncmp(s, role_names[i], n))
+				break;
+		if (i == CFG_N_ROLES && !n) {
+			diag_add(d, path, lineno, col,
+			         "an empty role (the roles are read, operate, review, admin)");
+			return -1;
+		}
+		if (i == CFG_N_ROLES) {
+			diag_add(d, path, lineno, col,
+			         "unknown role '%.*s' (the roles are read, operate, review, admin)",
+			         (int)n, s);
+			return -1;
+		}
+		*roles |= 1u << i;
+		if (!s[n])
+			return 0;
+		col += (int)n + 1;
+		s += n + 1;
+	}
+}
+
 int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d)
 {
 	FILE *f = fopen(path, "r");
@@ -597,10 +679,24 @@ int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d)
 			continue;
 		colon = strchr(p, ':');
 		if (!colon) {
-			diag_add(d, path, lineno, 1, "a token line is 'name:token'");
+			diag_add(d, path, lineno, 1,
+			         "a token line is 'name:role,role:token' or 'name:token'");
 			continue;
 		}
 		*colon = '\0';
+		/* A second ':' after a field of lower-case words ends the roles
+		 * field: "name:read,operate:token". Otherwise the ':' is part of
+		 * a token from before roles ("sim:3f9a:x"). */
+		char *roles_s = NULL, *second = strchr(colon + 1, ':');
+		unsigned roles = CFG_ROLES_ALL;
+		if (second && cfg_is_roles_field(colon + 1, (size_t)(second - colon - 1))) {
+			roles_s = colon + 1;
+			*second = '\0';
+			colon = second;
+			if (parse_roles(roles_s, &roles, d, path, lineno,
+			                (int)(roles_s - line) + 1))
+				continue;
+		}
 		end = colon + 1 + strlen(colon + 1);
 		while (end > colon + 1 && (end[-1] == ' ' || end[-1] == '\t'))
 			*--end = '\0';
@@ -638,6 +734,9 @@ int cfg_load_tokens(const char *path, cfg_tokens_t *t, diag_list_t *d)
 		memcpy(t->v[t->n].name, p, keep);
 		t->v[t->n].name[keep] = '\0';
 		snprintf(t->v[t->n].token, sizeof t->v[t->n].token, "%.255s", colon + 1);
+		t->v[t->n].roles = roles;
+		t->v[t->n].no_roles = roles_s == NULL;
+		t->v[t->n].line = lineno;
 		t->n++;
 	}
 	fclose(f);

@@ -96,6 +96,13 @@ typedef struct cfg {
 	char methods_dir[CFG_PATH_MAX]; /* "" when none */
 	int n_stations;
 	cfg_station_t stations[CFG_MAX_STATIONS];
+	/* records: (docs/config.md): an assay needs a stored titer unless
+	 * titer_required is false; a titer or blank older than its validity,
+	 * days, refuses the assay. Per titrant, a titer entered by hand
+	 * carries its own valid_days. */
+	bool titer_required;
+	double titer_valid_days, blank_valid_days;
+	char lab_name[128]; /* records.lab_name: the header of a run's PDF report; "" none */
 	/* parsed by calib.h (calib_config_parse, standardization_config_parse); NULL: absent */
 	const yt_node_t *calibration;
 	const yt_node_t *standardization;
@@ -114,11 +121,34 @@ int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port);
 /* Resolve `rel` against the directory of `base_file` into out. */
 void cfg_resolve_path(const char *base_file, const char *rel, char *out, size_t cap);
 
-/* Write tokens: file of lines "name:token" (blank lines and '#' comments
- * skipped). Tokens shorter than 16 bytes are refused: they are guessable. */
+/* Tokens: file of lines "name:role,role:token" or "name:token" (blank lines
+ * and '#' comments skipped). Tokens shorter than 16 bytes are refused: they
+ * are guessable. The roles (docs/api.md, "Roles") say what a token may do; a
+ * line without roles keeps every role, as before roles existed, and
+ * --check-config warns about it. */
+enum {
+	CFG_ROLE_READ = 1u << 0,    /* GET routes when reads need a token */
+	CFG_ROLE_OPERATE = 1u << 1, /* runs, halt, resume, calibrations, titers */
+	CFG_ROLE_REVIEW = 1u << 2,  /* approve or reject results */
+	CFG_ROLE_ADMIN = 1u << 3,   /* methods, titers */
+	CFG_ROLES_ALL = (1u << 4) - 1,
+};
+#define CFG_N_ROLES 4
+
+/* The n bytes at s are a roles field (lower-case letters and commas): in a
+ * line "name:FIELD:rest", rest is then the token. */
+bool cfg_is_roles_field(const char *s, size_t n);
+/* The name of role bit i (0 read, 1 operate, 2 review, 3 admin). */
+const char *cfg_role_name(int i);
+/* "read,operate" for a set of roles, into buf ("" for none). */
+const char *cfg_roles_text(unsigned roles, char *buf, size_t cap);
+
 typedef struct cfg_token {
 	char name[64];
 	char token[256];
+	unsigned roles; /* CFG_ROLE_* bits */
+	bool no_roles;  /* a "name:token" line: every role, and a warning */
+	int line;       /* in the token file */
 } cfg_token_t;
 
 typedef struct cfg_tokens {

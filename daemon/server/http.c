@@ -174,8 +174,9 @@ void http_audit(const http_req_t *q, const char *station, int64_t run_id, const 
 		log_warn("could not store the audit event %s/%s: %s", kind, code, msg);
 }
 
-/* The name of the matching token, copied into buf, or NULL. */
-static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *buf, size_t cap)
+/* The name of the matching token, copied into buf, and its roles, or NULL. */
+static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *buf, size_t cap,
+                               unsigned *roles)
 {
 	const char *h =
 	    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_AUTHORIZATION);
@@ -195,6 +196,7 @@ static const char *check_token(http_ctx_t *ctx, struct MHD_Connection *c, char *
 		const cfg_token_t *t = &ctx->tokens.v[i];
 		if (ct_equal(h, len, t->token, strlen(t->token)) && !found) {
 			snprintf(buf, cap, "%s", t->name);
+			*roles = t->roles;
 			found = buf;
 		}
 	}
@@ -351,8 +353,29 @@ static enum MHD_Result on_request(void *cls, struct MHD_Connection *c, const cha
 	q.body_len = cs->len;
 	q.conn = c;
 	auth = http_routes_auth(method, url);
-	if (auth == HTTP_WRITE || (auth == HTTP_READ && ctx->cfg->read_needs_token)) {
-		q.token_name = check_token(ctx, c, q.token_buf, sizeof q.token_buf);
+	/* A token sent where none is needed still says who asks (GET /v1/whoami). */
+	if (auth != HTTP_OPEN ||
+	    MHD_lookup_connection_value(c, MHD_HEADER_KIND, MHD_HTTP_HEADER_AUTHORIZATION))
+		q.token_name = check_token(ctx, c, q.token_buf, sizeof q.token_buf, &q.roles);
+	if (auth != HTTP_OPEN && (auth != HTTP_READ || ctx->cfg->read_needs_token)) {
+		unsigned need = http_auth_roles(auth);
+		if (q.token_name && !(q.roles & need)) {
+			char names[64], msg[256];
+			/* Counted with the refused tokens: a probe of what a
+			 * stolen read token may do shows in /metrics too. */
+			atomic_fetch_add(&ctx->auth_failures, 1);
+			cfg_roles_text(need, names, sizeof names);
+			snprintf(msg, sizeof msg,
+			         "the token '%s' lacks the role %s this request needs",
+			         q.token_name, need & (need - 1) ? "operate or admin" : names);
+			/* The name is UTF-8 (checked at load), so the pack holds. */
+			http_reply_json(&r, 403,
+			                json_pack("{s:{s:s,s:s,s:s}}", "error", "code", "forbidden",
+			                          "message", msg, "role", names));
+			ret = send_reply(c, ctx, &r);
+			free(r.body);
+			return ret;
+		}
 		if (!q.token_name) {
 			const char *h = MHD_lookup_connection_value(c, MHD_HEADER_KIND,
 			                                            MHD_HTTP_HEADER_AUTHORIZATION);

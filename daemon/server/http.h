@@ -57,6 +57,7 @@ typedef struct http_req {
 	void *conn;             /* struct MHD_Connection * */
 	const char *token_name; /* who wrote, for the events table (in token_buf) */
 	char token_buf[64];
+	unsigned roles; /* the token's CFG_ROLE_* bits (0 without a token) */
 	/* Set by http_routes_dispatch: the text of the path's {...} segment
 	 * (NULL when its pattern has none) and, when the route takes a numeric
 	 * id, that id. */

@@ -24,22 +24,28 @@ static const http_route_t routes[] = {
     {"GET", "/www/{name}", http_get_www_file, HTTP_OPEN, NULL},
     {"GET", "/metrics", http_get_metrics, HTTP_READ, NULL},
     {"GET", "/v1/health", http_get_health, HTTP_OPEN, NULL},
+    {"GET", "/v1/whoami", http_get_whoami, HTTP_OPEN, NULL},
     {"GET", "/v1/stations", http_get_stations, HTTP_READ, NULL},
     {"POST", "/v1/stations/{name}/halt", http_post_halt, HTTP_WRITE, NULL},
     {"POST", "/v1/stations/{name}/resume", http_post_resume, HTTP_WRITE, NULL},
     {"GET", "/v1/methods", http_get_methods, HTTP_READ, NULL},
     {"GET", "/v1/methods/{id}", http_get_method, HTTP_READ, NULL},
-    {"PUT", "/v1/methods/{id}", http_put_method, HTTP_WRITE, NULL},
-    {"POST", "/v1/methods/{id}/check", http_post_method_check, HTTP_WRITE, NULL},
+    {"PUT", "/v1/methods/{id}", http_put_method, HTTP_ADMIN, NULL},
+    {"POST", "/v1/methods/{id}/check", http_post_method_check, HTTP_ADMIN, NULL},
     {"GET", "/v1/runs", http_get_runs, HTTP_READ, NULL},
     {"POST", "/v1/runs", http_post_run, HTTP_WRITE, NULL},
     {"GET", "/v1/runs/{id}", http_get_run, HTTP_READ, "run"},
     {"GET", "/v1/runs/{id}/points", http_get_points, HTTP_READ, "run"},
     {"GET", "/v1/runs/{id}/curve.svg", http_get_curve, HTTP_READ, "run"},
+    {"GET", "/v1/runs/{id}/report.pdf", http_get_report, HTTP_READ, "run"},
     {"POST", "/v1/runs/{id}/abort", http_post_abort, HTTP_WRITE, "run"},
+    {"POST", "/v1/runs/{id}/review", http_post_review, HTTP_REVIEW, "run"},
+    {"POST", "/v1/runs/{id}/correct", http_post_correct, HTTP_WRITE, "run"},
     {"GET", "/v1/results", http_get_results, HTTP_READ, NULL},
     {"GET", "/v1/events", http_get_events, HTTP_READ, NULL},
+    {"GET", "/v1/events/verify", http_get_events_verify, HTTP_READ, NULL},
     {"GET", "/v1/titrants", http_get_titrants, HTTP_READ, NULL},
+    {"POST", "/v1/titrants", http_post_titrant, HTTP_CURATE, NULL},
     {"POST", "/v1/calibrations", http_post_calibration, HTTP_WRITE, NULL},
     {"GET", "/v1/calibrations/latest", http_get_calibration_latest, HTTP_READ, NULL},
     {"GET", "/v1/calibrations/{id}", http_get_calibration, HTTP_READ, "calibration"},
@@ -134,6 +140,25 @@ bool http_routes_known(const char *method, const char *path)
 	const char *param;
 	size_t len;
 	return find(method, path, &param, &len) != NULL;
+}
+
+unsigned http_auth_roles(http_auth_t a)
+{
+	switch (a) {
+	case HTTP_OPEN:
+		return 0;
+	case HTTP_READ:
+		return CFG_ROLE_READ;
+	case HTTP_WRITE:
+		return CFG_ROLE_OPERATE;
+	case HTTP_REVIEW:
+		return CFG_ROLE_REVIEW;
+	case HTTP_ADMIN:
+		return CFG_ROLE_ADMIN;
+	case HTTP_CURATE:
+		return CFG_ROLE_OPERATE | CFG_ROLE_ADMIN;
+	}
+	return CFG_ROLES_ALL;
 }
 
 http_auth_t http_routes_auth(const char *method, const char *path)

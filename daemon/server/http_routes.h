@@ -17,10 +17,17 @@
 #include "http.h"
 
 typedef enum http_auth {
-	HTTP_OPEN,  /* no token, even with http.read_needs_token (probes, the page's files) */
-	HTTP_READ,  /* a token only when http.read_needs_token is set */
-	HTTP_WRITE, /* a token always */
+	HTTP_OPEN,   /* no token, even with http.read_needs_token (probes, the page's files) */
+	HTTP_READ,   /* a token with `read` only when http.read_needs_token is set */
+	HTTP_WRITE,  /* a token with `operate` always (runs, halt, resume, calibrations) */
+	HTTP_REVIEW, /* a token with `review` always */
+	HTTP_ADMIN,  /* a token with `admin` always (methods) */
+	HTTP_CURATE, /* a token with `operate` or `admin` always (a titer by hand) */
 } http_auth_t;
+
+/* The roles (CFG_ROLE_* bits) of which a token needs one for a route of
+ * this authorization; 0 for HTTP_OPEN. */
+unsigned http_auth_roles(http_auth_t a);
 
 /* The methods of the routes on path, as for an Allow header ("GET, HEAD,
  * POST"; GET brings HEAD), into buf; NULL when no route has this path. */
@@ -74,5 +81,13 @@ void http_post_calibration(const http_req_t *q, http_reply_t *r);
 void http_get_calibration_latest(const http_req_t *q, http_reply_t *r);
 void http_get_calibration(const http_req_t *q, http_reply_t *r);
 void http_post_calibration_next(const http_req_t *q, http_reply_t *r);
+
+/* http_records.c */
+void http_get_whoami(const http_req_t *q, http_reply_t *r);
+void http_get_events_verify(const http_req_t *q, http_reply_t *r);
+void http_post_review(const http_req_t *q, http_reply_t *r);
+void http_post_correct(const http_req_t *q, http_reply_t *r);
+void http_post_titrant(const http_req_t *q, http_reply_t *r);
+void http_get_report(const http_req_t *q, http_reply_t *r);
 
 #endif

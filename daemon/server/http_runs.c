@@ -43,6 +43,7 @@ void http_post_run(const http_req_t *q, http_reply_t *r)
 	    [SUBMIT_INVALID_METHOD] = {422, "invalid_method"},
 	    [SUBMIT_NO_CALIBRATION] = {409, "no_calibration"},
 	    [SUBMIT_QUEUE_FULL] = {409, "queue_full"},
+	    [SUBMIT_NO_TITER] = {409, "no_titer"},
 	    [SUBMIT_DATABASE] = {500, "database"},
 	    [SUBMIT_NO_MEMORY] = {500, "internal"},
 	};

@@ -26,6 +26,7 @@
 #include "notify.h"
 #include "recover.h"
 #include "station.h"
+#include "report.h"
 #include "standardization.h"
 #include "store.h"
 #include "titer_book.h"
@@ -267,6 +268,10 @@ static void load_tokens(const cfg_t *cfg, http_ctx_t *ctx)
 		cfg_load_tokens(cfg->token_file, &t, &td);
 		log_diags(&td);
 		diag_free(&td);
+		for (int i = 0; i < t.n; i++)
+			if (t.v[i].no_roles)
+				log_warn("%s:%d: token '%s' has no roles: it keeps every role",
+				         cfg->token_file, t.v[i].line, t.v[i].name);
 	}
 	if (t.n == 0)
 		log_warn("no valid write tokens: every write request will get 401");
@@ -323,7 +328,7 @@ int main(int argc, char **argv)
 {
 	opts_t o = {0};
 	static cfg_t cfg; /* large; static keeps it off the stack */
-	diag_list_t d = DIAG_LIST_INIT;
+	diag_list_t d = DIAG_LIST_INIT, warn = DIAG_LIST_INIT; /* warn: --check-config's */
 	calib_config_t cal;
 	station_t *stations[CFG_MAX_STATIONS] = {0};
 	store_t *store = NULL;
@@ -404,9 +409,19 @@ int main(int argc, char **argv)
 		cfg_load_tokens(cfg.token_file, &t, &td);
 		for (size_t i = 0; i < td.n; i++)
 			at_config_line(&cfg, "token_file", &td.v[i], &d,
-			               " (lines 'name:TOKEN'; how to make one: stopcockd.yaml(5), "
-			               "TOKEN FILE)");
+			               " (lines 'name:role,role:TOKEN'; how to make one: "
+			               "stopcockd.yaml(5), TOKEN FILE)");
 		diag_free(&td);
+		/* A warning, not an error: files from before roles keep working.
+		 * Said once the config is otherwise good, after any errors. */
+		for (int i = 0; i < t.n; i++)
+			if (t.v[i].no_roles)
+				diag_add(
+				    &warn, cfg.token_file, t.v[i].line, 1,
+				    "warning: token '%s' has no roles, so it keeps every role "
+				    "(read, operate, review, admin); give it only what it needs: "
+				    "'%s:read:TOKEN'",
+				    t.v[i].name, t.v[i].name);
 	}
 	if (o.check)
 		cfg_mqtt_check_files(&cfg, &d);
@@ -416,6 +431,7 @@ int main(int argc, char **argv)
 		goto out;
 	}
 	if (o.check) {
+		diag_print(&warn, stderr);
 		printf("%s: ok (%d station%s)\n", o.config, n, n == 1 ? "" : "s");
 		rc = 0;
 		goto out;
@@ -569,11 +585,13 @@ out:
 	http_stop(http);
 	/* After the stations, so the runs they ended are offered to the broker. */
 	mqtt_pub_stop(mqtt);
+	report_cleanup(); /* after the last request that may draw a report */
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
 	titer_book_free(titers);
 	store_close(store);
 	pthread_rwlock_destroy(&ctx.tokens_lock);
+	diag_free(&warn);
 	diag_free(&d);
 	cfg_free(&cfg);
 	return rc;

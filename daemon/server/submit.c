@@ -13,6 +13,7 @@
 #include "clock.h"
 #include "record.h"
 #include "timefmt.h"
+#include "titer_valid.h"
 
 static submit_error_t fail(run_submit_result_t *res, submit_error_t e, const char *fmt, ...)
     __attribute__((format(printf, 3, 4)));
@@ -208,6 +209,15 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	if (!calibration_ok(ctx, st, &job->method, msg, sizeof msg)) {
 		fail(res, SUBMIT_NO_CALIBRATION, "%s", msg);
 		goto out;
+	}
+	{ /* records (issue 24): never again a silent titer of 1.0 */
+		bool db_err;
+		if (!titer_valid_for_run(ctx->cfg, ctx->store, &job->method, clock_wall_s(), msg,
+		                         sizeof msg, &db_err)) {
+			fail(res, db_err ? SUBMIT_DATABASE : SUBMIT_NO_TITER, "%s",
+			     db_err ? "the database failed" : msg);
+			goto out;
+		}
 	}
 	job->amount = amount;
 	job->position = req->position;

@@ -20,6 +20,7 @@ typedef enum {
 	SUBMIT_INVALID_METHOD, /* the method cannot run on this station */
 	SUBMIT_NO_CALIBRATION, /* a pH run without a valid calibration */
 	SUBMIT_QUEUE_FULL,     /* the station's queue is full */
+	SUBMIT_NO_TITER,       /* an assay without a valid titer or blank (titer_valid.h) */
 	SUBMIT_DATABASE,       /* the store failed; the request may be retried */
 	SUBMIT_NO_MEMORY,
 } submit_error_t;

@@ -76,6 +76,24 @@ static const char *const migrations[] = {
      "  VALUES ('event', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"),
     /* 4 -> 5: runs at a sample changer's position */
     "ALTER TABLE runs ADD COLUMN position INTEGER;",
+    /* 5 -> 6: records: the audit trail is a hash chain
+     * (store_chain.c); the rows from before are chained once, at the first
+     * open after this migration (store_chain_backfill). Titers entered by
+     * hand keep their validity, reason and author. */
+    ("ALTER TABLE events ADD COLUMN hash TEXT;"
+     "INSERT OR REPLACE INTO meta (key, value) VALUES ('events_chain', 'pending');"
+     /* a titer entered by hand: its validity (days), reason and author */
+     "ALTER TABLE titrants ADD COLUMN valid_days REAL;"
+     "ALTER TABLE titrants ADD COLUMN reason TEXT;"
+     "ALTER TABLE titrants ADD COLUMN set_by TEXT;"
+     /* a review or a correction gives a run a new seq (docs/lims.md): the
+      * broker hears of it as the feed does */
+     "DROP TRIGGER outbox_result;"
+     "CREATE TRIGGER outbox_result AFTER UPDATE OF seq ON runs"
+     "  WHEN NEW.seq IS NOT NULL AND NEW.seq IS NOT OLD.seq"
+     "  AND (SELECT value FROM meta WHERE key='outbox') = 'on'"
+     "  BEGIN INSERT INTO outbox (kind, ref, at_s)"
+     "  VALUES ('result', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
@@ -159,7 +177,7 @@ static int64_t one_int(sqlite3 *db, const char *sql)
 	return v;
 }
 
-static void meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
+void store_meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
 {
 	sqlite3_stmt *st;
 	out[0] = '\0';
@@ -172,7 +190,7 @@ static void meta_get(sqlite3 *db, const char *key, char *out, size_t cap)
 	sqlite3_finalize(st);
 }
 
-static int meta_set(sqlite3 *db, const char *key, const char *value)
+int store_meta_set(sqlite3 *db, const char *key, const char *value)
 {
 	sqlite3_stmt *st;
 	int rc;
@@ -240,11 +258,11 @@ static int history_start(store_t *s, char *err, size_t cap)
 	long long fid = 0, fseq = 0;
 	FILE *f;
 
-	meta_get(s->w, "history", s->history, sizeof s->history);
-	meta_get(s->w, "seq_floor", buf, sizeof buf);
+	store_meta_get(s->w, "history", s->history, sizeof s->history);
+	store_meta_get(s->w, "seq_floor", buf, sizeof buf);
 	s->seq_floor = buf[0] ? strtoll(buf, NULL, 10) : 0;
 	if (!s->history[0]) {
-		if (new_history(s->history) || meta_set(s->w, "history", s->history)) {
+		if (new_history(s->history) || store_meta_set(s->w, "history", s->history)) {
 			snprintf(err, cap, "%s: cannot start the database's history", s->path);
 			return -1;
 		}
@@ -262,15 +280,15 @@ static int history_start(store_t *s, char *err, size_t cap)
 		int64_t id_floor = fid > db_max_id(s) ? fid : db_max_id(s);
 		int64_t seq_floor = fseq > db_max_seq(s) ? fseq : db_max_seq(s);
 		snprintf(old, sizeof old, "%s", s->history);
-		if (new_history(s->history) || meta_set(s->w, "history", s->history) ||
-		    meta_set(s->w, "restored_from", fh)) {
+		if (new_history(s->history) || store_meta_set(s->w, "history", s->history) ||
+		    store_meta_set(s->w, "restored_from", fh)) {
 			snprintf(err, cap, "%s: cannot start a new history after a restore",
 			         s->path);
 			return -1;
 		}
 		snprintf(num, sizeof num, "%lld", (long long)seq_floor);
 		s->seq_floor = seq_floor;
-		if (meta_set(s->w, "seq_floor", num) ||
+		if (store_meta_set(s->w, "seq_floor", num) ||
 		    sqlite3_exec(
 		        s->w, "INSERT OR IGNORE INTO sqlite_sequence(name, seq) VALUES('runs', 0)",
 		        NULL, NULL, NULL) != SQLITE_OK) {
@@ -332,6 +350,12 @@ store_t *store_open(const char *path, char *err, size_t err_cap)
 		return NULL;
 	}
 	if (migrate(s->w, err, err_cap) || history_start(s, err, err_cap)) {
+		store_close(s);
+		return NULL;
+	}
+	if (store_chain_backfill(s)) {
+		snprintf(err, err_cap, "%s: cannot chain the audit trail's earlier events: %s",
+		         path, sqlite3_errmsg(s->w));
 		store_close(s);
 		return NULL;
 	}
@@ -547,11 +571,9 @@ int store_interrupt_stale(store_t *s, const char *at, void (*held)(const char *s
 			held((const char *)sqlite3_column_text(st, 1), arg);
 		/* into the audit trail in the same transaction: the run's end and
 		 * its line there are one change */
-		if (exec_w(s,
-		           "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
-		           "VALUES (?,?,?,'run','interrupted',?,'daemon')",
-		           "ttit", at, (const char *)sqlite3_column_text(st, 1), id,
-		           restored ? why_restored : why) != SQLITE_DONE)
+		if (store_chain_append(s, at, (const char *)sqlite3_column_text(st, 1), id, "run",
+		                       "interrupted", restored ? why_restored : why,
+		                       "daemon") != SQLITE_DONE)
 			goto fail_tx;
 		n++;
 	}
@@ -971,6 +993,68 @@ out:
 	return ret;
 }
 
+store_status_t store_run_revise(store_t *s, int64_t id, store_revise_fn fn, void *arg,
+                                int64_t *seq_out)
+{
+	store_revise_t ev;
+	store_status_t ret = STORE_ERR;
+	sqlite3_stmt *st = NULL;
+	json_t *rec = NULL;
+	char *text = NULL, station[64] = "";
+	int64_t seq;
+	bool final = false, found = false;
+
+	memset(&ev, 0, sizeof ev);
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (sqlite3_prepare_v2(s->w, "SELECT seq IS NOT NULL, record, station FROM runs WHERE id=?",
+	                       -1, &st, NULL) != SQLITE_OK)
+		goto out_tx;
+	sqlite3_bind_int64(st, 1, id);
+	if (sqlite3_step(st) == SQLITE_ROW) {
+		const char *r = (const char *)sqlite3_column_text(st, 1);
+		found = true;
+		final = sqlite3_column_int(st, 0) != 0;
+		rec = r ? json_loads(r, 0, NULL) : NULL;
+		snprintf(station, sizeof station, "%s", (const char *)sqlite3_column_text(st, 2));
+	}
+	sqlite3_finalize(st);
+	if (!found || !final || !json_is_object(rec)) {
+		ret = !found ? STORE_NOT_FOUND : final ? STORE_ERR : STORE_CONFLICT;
+		goto out_tx;
+	}
+	/* The caller's change, decided on the record as it is now, under the
+	 * writer's lock: two reviewers cannot both sign one version. */
+	ret = fn(rec, arg, &ev);
+	if (ret != STORE_OK)
+		goto out_tx;
+	ret = STORE_ERR;
+	text = json_dumps(rec, JSON_COMPACT | JSON_REAL_PRECISION(10));
+	seq = next_seq(s);
+	if (!text || seq < 0 ||
+	    exec_w(s, "UPDATE runs SET seq=?, record=? WHERE id=?", "iti", seq, text, id) !=
+	        SQLITE_DONE ||
+	    (ev.results_changed && write_outcome_rows(s, id, rec)) ||
+	    store_chain_append(s, ev.at, station, id, ev.kind, ev.code, ev.message, ev.actor) !=
+	        SQLITE_DONE)
+		goto out_tx;
+	if (commit(s) == 0) {
+		ret = STORE_OK;
+		if (seq_out)
+			*seq_out = seq;
+		issued_write(s);
+	}
+	goto out;
+out_tx:
+	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	json_decref(rec);
+	free(text);
+	return ret;
+}
+
 store_status_t store_event_add(store_t *s, const char *at, const char *station, int64_t run_id,
                                const char *kind, const char *code, const char *message,
                                const char *actor)
@@ -982,10 +1066,7 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
 		at = now;
 	}
 	pthread_mutex_lock(&s->wlock);
-	rc = exec_w(s,
-	            "INSERT INTO events (at, station, run_id, kind, code, message, actor) "
-	            "VALUES (?,?,NULLIF(?,0),?,?,?,?)",
-	            "ttitttt", at, station, run_id, kind, code, message, actor);
+	rc = store_chain_append(s, at, station, run_id, kind, code, message, actor);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
 }
@@ -1004,6 +1085,49 @@ store_status_t store_titrant_set(store_t *s, const char *name, double molarity, 
 	    "tddtit", name, molarity, titer, at, run_id, replicates_json);
 	pthread_mutex_unlock(&s->wlock);
 	return rc == SQLITE_DONE ? STORE_OK : STORE_ERR;
+}
+
+store_status_t store_titrant_enter(store_t *s, const char *name, double molarity, double titer,
+                                   const char *at, double valid_days, const char *reason,
+                                   const char *by)
+{
+	store_status_t ret = STORE_ERR;
+	char msg[768];
+
+	pthread_mutex_lock(&s->wlock);
+	if (begin(s))
+		goto out;
+	if (molarity <= 0) { /* keep the stored one */
+		sqlite3_stmt *st;
+		if (sqlite3_prepare_v2(s->w, "SELECT molarity FROM titrants WHERE name=?", -1, &st,
+		                       NULL) != SQLITE_OK)
+			goto out_tx;
+		sqlite3_bind_text(st, 1, name, -1, SQLITE_STATIC);
+		if (sqlite3_step(st) == SQLITE_ROW)
+			molarity = sqlite3_column_double(st, 0);
+		sqlite3_finalize(st);
+		if (molarity <= 0) {
+			ret = STORE_NOT_FOUND;
+			goto out_tx;
+		}
+	}
+	snprintf(msg, sizeof msg, "%s: titer %.6f entered by hand, valid %g days: %s", name, titer,
+	         valid_days, reason);
+	if (exec_w(
+	        s,
+	        "INSERT OR REPLACE INTO titrants (name, molarity, titer, at, run_id, replicates, "
+	        "valid_days, reason, set_by) VALUES (?,?,?,?,NULL,NULL,?,?,?)",
+	        "tddtdtt", name, molarity, titer, at, valid_days, reason, by) != SQLITE_DONE ||
+	    store_chain_append(s, at, NULL, 0, "titrant", "entered", msg, by) != SQLITE_DONE)
+		goto out_tx;
+	if (commit(s) == 0)
+		ret = STORE_OK;
+	goto out;
+out_tx:
+	rollback(s);
+out:
+	pthread_mutex_unlock(&s->wlock);
+	return ret;
 }
 
 store_status_t store_blank_set(store_t *s, const char *method_id, double blank_ml, const char *at,
@@ -1049,7 +1173,7 @@ store_status_t store_outbox_enable(store_t *s, bool on)
 {
 	int rc;
 	pthread_mutex_lock(&s->wlock);
-	rc = meta_set(s->w, "outbox", on ? "on" : "off");
+	rc = store_meta_set(s->w, "outbox", on ? "on" : "off");
 	pthread_mutex_unlock(&s->wlock);
 	return rc ? STORE_ERR : STORE_OK;
 }

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 5 /* the number of migrations in store.c */
+#define STORE_SCHEMA_VERSION 6 /* the number of migrations in store.c */
 
 typedef struct store store_t;
 
@@ -143,6 +143,23 @@ store_status_t store_points_rewrite(store_t *s, int64_t run_id, const store_poin
 store_status_t store_run_finish(store_t *s, int64_t id, const char *state, const char *record_json,
                                 int64_t *seq_out);
 
+/* A change to a final run's record after the fact (a review, a corrected
+ * version of the results; docs/lims.md, "Review and corrections"). In one
+ * transaction under the writer's lock: fn gets the stored record (without
+ * seq) and changes it in place, or refuses (STORE_CONFLICT, its reason in
+ * its own arg); then the record is stored, the run gets a new seq (it
+ * enters the result feed again), its results rows follow when
+ * ev->results_changed, and ev's audit event is chained. STORE_NOT_FOUND;
+ * STORE_CONFLICT without calling fn for a run that has not ended. */
+typedef struct store_revise {
+	const char *at, *kind, *code, *actor; /* the audit event fn fills in */
+	char message[512];
+	bool results_changed;
+} store_revise_t;
+typedef store_status_t (*store_revise_fn)(json_t *record, void *arg, store_revise_t *ev);
+store_status_t store_run_revise(store_t *s, int64_t id, store_revise_fn fn, void *arg,
+                                int64_t *seq_out);
+
 /* An audit-trail or fault row (at NULL: now; run_id 0 when none; station,
  * code, message may be NULL). actor: who did it: the write token's name, "daemon" for what
  * the daemon did by itself, "signal" for a reload by SIGHUP. */
@@ -153,6 +170,12 @@ store_status_t store_event_add(store_t *s, const char *at, const char *station, 
  * {"events":[{id, at, kind, code, station, run_id, actor, message}],
  *  "next_after": last id (after when none)}. NULL on a database error. */
 json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err);
+
+/* Check the audit trail's hash chain (store_chain.c) from its first event:
+ * {"ok", "checked": rows read, "head": {id, hash} of the last good row or
+ * null, "first_broken": {id, at, kind, why} or null}. NULL on a database
+ * error. Reads on a connection of its own. */
+json_t *store_events_verify(store_t *s, bool *db_err);
 
 /* The stored record with "seq" (null until final), NULL when unknown. */
 json_t *store_run_json(store_t *s, int64_t id, bool *db_err);
@@ -189,6 +212,12 @@ int store_run_counts(store_t *s, const char *const *states, long *n, int n_state
 typedef struct store_source {
 	char at[32];
 	int64_t run_id;
+	/* a titer entered by hand (store_titrant_enter): its validity, days
+	 * (NaN: the config's records.titer_valid_days), why and by whom ("" for
+	 * a standardization's) */
+	double valid_days;
+	char reason[512];
+	char by[64];
 } store_source_t;
 
 /* src may be NULL. */
@@ -197,7 +226,15 @@ store_status_t store_titrant_get(store_t *s, const char *name, double *titer, st
  * text, stored as given), or NULL. */
 store_status_t store_titrant_set(store_t *s, const char *name, double molarity, double titer,
                                  const char *at, int64_t run_id, const char *replicates_json);
-/* {"titrants":[{name, molarity, titer, at, run_id, standardization}]} by name. */
+/* A titer entered by hand (a certified titrant; docs/api.md, "POST
+ * /v1/titrants"): replaces the stored one, with its validity (days), reason
+ * and who; molarity <= 0 keeps the stored molarity (STORE_NOT_FOUND when
+ * there is none). The audit event is chained in the same transaction. */
+store_status_t store_titrant_enter(store_t *s, const char *name, double molarity, double titer,
+                                   const char *at, double valid_days, const char *reason,
+                                   const char *by);
+/* {"titrants":[{name, molarity, titer, at, run_id, standardization,
+ * valid_days, source, reason, by}]} by name. */
 json_t *store_titrants_json(store_t *s, bool *db_err);
 store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml,
                                store_source_t *src);

@@ -5,6 +5,8 @@
 #include <pthread.h>
 #include <sqlite3.h>
 #include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
 
 #define STORE_READERS 8
 
@@ -24,5 +26,17 @@ struct store {
 
 /* busy_timeout, synchronous=FULL, foreign_keys=ON. */
 int store_setup_conn(sqlite3 *db);
+
+/* The meta table (key, value) on a connection. */
+void store_meta_get(sqlite3 *db, const char *key, char *out, size_t cap);
+int store_meta_set(sqlite3 *db, const char *key, const char *value);
+
+/* store_chain.c. Add one event row with its chain hash; the caller holds
+ * wlock (and may be inside a transaction). An SQLite step result. */
+int store_chain_append(store_t *s, const char *at, const char *station, int64_t run_id,
+                       const char *kind, const char *code, const char *message, const char *actor);
+/* At open, after the migration that brought the hash column: chain the rows
+ * from before it, once (meta "events_chain" goes from "pending" to "on"). */
+int store_chain_backfill(store_t *s);
 
 #endif

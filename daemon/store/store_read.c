@@ -208,6 +208,12 @@ static json_t *row_record(sqlite3_stmt *st)
 	/* The columns win over a record written before the last state change. */
 	json_object_set_new(j, "id", json_integer(sqlite3_column_int64(st, 2)));
 	json_object_set_new(j, "state", col_json_text(st, 3));
+	/* Not reviewed yet (docs/lims.md, "Review and corrections"): a review
+	 * or a correction stores its own. */
+	if (!json_object_get(j, "review"))
+		json_object_set_new(j, "review",
+		                    json_pack("{s:s,s:n,s:n,s:n,s:i}", "state", "pending", "by",
+		                              "at", "reason", "version", 1));
 	return j;
 }
 
@@ -376,7 +382,7 @@ json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err)
 
 	*db_err = false;
 	if (rq_open(&q, s,
-	            "SELECT id, at, kind, code, station, run_id, actor, message FROM events "
+	            "SELECT id, at, kind, code, station, run_id, actor, message, hash FROM events "
 	            "WHERE id > ? ORDER BY id LIMIT ?")) {
 		*db_err = true;
 		return NULL;
@@ -388,13 +394,14 @@ json_t *store_events_after(store_t *s, int64_t after, int limit, bool *db_err)
 		last = sqlite3_column_int64(q.st, 0);
 		json_array_append_new(
 		    arr,
-		    json_pack("{s:I,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "id", (json_int_t)last, "at",
+		    json_pack("{s:I,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "id", (json_int_t)last, "at",
 		              text_or_null(q.st, 1), "kind", text_or_null(q.st, 2), "code",
 		              text_or_null(q.st, 3), "station", text_or_null(q.st, 4), "run_id",
 		              sqlite3_column_type(q.st, 5) == SQLITE_NULL
 		                  ? json_null()
 		                  : json_integer(sqlite3_column_int64(q.st, 5)),
-		              "actor", text_or_null(q.st, 6), "message", text_or_null(q.st, 7)));
+		              "actor", text_or_null(q.st, 6), "message", text_or_null(q.st, 7),
+		              "hash", text_or_null(q.st, 8)));
 	}
 	rq_close(&q);
 	return json_pack("{s:o,s:I}", "events", arr, "next_after", (json_int_t)last);
@@ -407,8 +414,8 @@ json_t *store_titrants_json(store_t *s, bool *db_err)
 
 	*db_err = false;
 	if (rq_open(&q, s,
-	            "SELECT name, molarity, titer, at, run_id, replicates FROM titrants ORDER BY "
-	            "name")) {
+	            "SELECT name, molarity, titer, at, run_id, replicates, valid_days, reason, "
+	            "set_by FROM titrants ORDER BY name")) {
 		*db_err = true;
 		return NULL;
 	}
@@ -425,6 +432,18 @@ json_t *store_titrants_json(store_t *s, bool *db_err)
 		                  ? json_null()
 		                  : json_integer(sqlite3_column_int64(q.st, 4)),
 		              "standardization", stats ? stats : json_null()));
+		/* Entered by hand or measured: for the record and the page. */
+		json_t *t = json_array_get(arr, json_array_size(arr) - 1);
+		json_object_set_new(t, "valid_days",
+		                    sqlite3_column_type(q.st, 6) == SQLITE_NULL
+		                        ? json_null()
+		                        : json_real(sqlite3_column_double(q.st, 6)));
+		json_object_set_new(t, "source",
+		                    json_string(sqlite3_column_type(q.st, 7) == SQLITE_NULL
+		                                    ? "standardization"
+		                                    : "entered"));
+		json_object_set_new(t, "reason", text_or_null(q.st, 7));
+		json_object_set_new(t, "by", text_or_null(q.st, 8));
 	}
 	rq_close(&q);
 	return json_pack("{s:o}", "titrants", arr);
@@ -457,8 +476,10 @@ static store_status_t value_get(store_t *s, const char *sql, const char *key, do
 	rq_t q;
 	store_status_t ret = STORE_NOT_FOUND;
 
-	if (src)
+	if (src) {
 		memset(src, 0, sizeof *src);
+		src->valid_days = NAN;
+	}
 	if (rq_open(&q, s, sql))
 		return STORE_ERR;
 	sqlite3_bind_text(q.st, 1, key, -1, SQLITE_TRANSIENT);
@@ -469,6 +490,15 @@ static store_status_t value_get(store_t *s, const char *sql, const char *key, do
 			snprintf(src->at, sizeof src->at, "%s", at ? at : "");
 			src->run_id = sqlite3_column_int64(q.st, 2);
 		}
+		/* a titer's own validity, reason and author, when asked */
+		if (src && sqlite3_column_count(q.st) >= 6) {
+			const char *why = (const char *)sqlite3_column_text(q.st, 4);
+			const char *by = (const char *)sqlite3_column_text(q.st, 5);
+			if (sqlite3_column_type(q.st, 3) != SQLITE_NULL)
+				src->valid_days = sqlite3_column_double(q.st, 3);
+			snprintf(src->reason, sizeof src->reason, "%s", why ? why : "");
+			snprintf(src->by, sizeof src->by, "%s", by ? by : "");
+		}
 		ret = STORE_OK;
 	}
 	rq_close(&q);
@@ -477,8 +507,10 @@ static store_status_t value_get(store_t *s, const char *sql, const char *key, do
 
 store_status_t store_titrant_get(store_t *s, const char *name, double *titer, store_source_t *src)
 {
-	return value_get(s, "SELECT titer, at, run_id FROM titrants WHERE name=?", name, titer,
-	                 src);
+	return value_get(s,
+	                 "SELECT titer, at, run_id, valid_days, reason, set_by FROM titrants WHERE "
+	                 "name=?",
+	                 name, titer, src);
 }
 
 store_status_t store_blank_get(store_t *s, const char *method_id, double *blank_ml,
@@ -502,6 +534,12 @@ static json_t *calib_row(sqlite3_stmt *st)
 	json_object_set_new(j, "id", json_integer(sqlite3_column_int64(st, 1)));
 	json_object_set_new(j, "station", col_json_text(st, 2));
 	json_object_set_new(j, "state", col_json_text(st, 3));
+	/* Not reviewed yet (docs/lims.md, "Review and corrections"): a review
+	 * or a correction stores its own. */
+	if (!json_object_get(j, "review"))
+		json_object_set_new(j, "review",
+		                    json_pack("{s:s,s:n,s:n,s:n,s:i}", "state", "pending", "by",
+		                              "at", "reason", "version", 1));
 	return j;
 }
 

@@ -202,9 +202,14 @@ def test_route_table_is_the_spec():
     assert set(table) == set(spec), \
         f"only in the table: {sorted(set(table) - set(spec))}; " \
         f"only in the spec: {sorted(set(spec) - set(table))}"
+    # A write's role is the spec's x-role (docs/api.md, "Roles"): operate
+    # unless it says otherwise.
+    by_role = {"operate": "WRITE", "review": "REVIEW", "admin": "ADMIN",
+               "operate,admin": "CURATE"}
     for (m, p), auth in sorted(table.items()):
         want = ("OPEN" if spec[m, p].get("security") == [{}]
-                else "WRITE" if is_write(m) else "READ")
+                else by_role[spec[m, p].get("x-role", "operate")] if is_write(m)
+                else "READ")
         assert auth == want, f"{m.upper()} {p}: the table says {auth}, the spec {want}"
 
 
@@ -376,6 +381,8 @@ def test_every_operation_answers_as_documented(daemon):
 
     st, health = do("get", "/v1/health")
     assert st == 200
+    st, me = do("get", "/v1/whoami")
+    assert st == 200 and "operate" in me["roles"], me
     st, stations = do("get", "/v1/stations")
     assert st == 200 and stations["stations"], "no station"
     station = stations["stations"][0]["name"]
@@ -427,10 +434,20 @@ def test_every_operation_answers_as_documented(daemon):
     st, csv = do("get", "/v1/runs/{id}/points", f"/v1/runs/{rid}/points?format=csv")
     assert st == 200
     st, _ = do("get", "/v1/runs/{id}/curve.svg", f"/v1/runs/{rid}/curve.svg")
+    st, pdf = do("get", "/v1/runs/{id}/report.pdf", f"/v1/runs/{rid}/report.pdf")
+    assert st == 200 and pdf.startswith(b"%PDF-")
     st, _ = do("post", "/v1/runs/{id}/abort", f"/v1/runs/{rid}/abort")
     assert st in (200, 409)
     st, _ = do("post", "/v1/runs/{id}/abort", f"/v1/runs/{rid}/abort")
     assert st == 409, "aborting a final run must be a conflict"
+    # The token that requested the run may not review it (four eyes), and an
+    # aborted run has no results to correct.
+    st, _ = do("post", "/v1/runs/{id}/review", f"/v1/runs/{rid}/review",
+               body={"decision": "approve"})
+    assert st == 409
+    st, _ = do("post", "/v1/runs/{id}/correct", f"/v1/runs/{rid}/correct",
+               body={"amount": 5.0, "reason": "spec"})
+    assert st == 409
     st, _ = do("get", "/v1/runs/{id}", "/v1/runs/999999")
     assert st == 404
     st, page = do("get", "/v1/results", "/v1/results?after=0&limit=10")
@@ -440,6 +457,11 @@ def test_every_operation_answers_as_documented(daemon):
     assert any(e["kind"] == "run" and e["run_id"] == rid for e in ev["events"]), ev
     st, _ = do("get", "/v1/events", "/v1/events?after=-1")
     assert st == 400
+    st, ver = do("get", "/v1/events/verify")
+    assert st == 200 and ver["ok"], ver
+    st, _ = do("post", "/v1/titrants", body={"name": "spec titrant", "titer": 1.0,
+                                             "molarity": 0.1, "reason": "spec"})
+    assert st == 201
     st, tl = do("get", "/v1/titrants", "/v1/titrants")
     assert st == 200 and isinstance(tl["titrants"], list), tl
     st, runs = do("get", "/v1/runs", f"/v1/runs?station={station}&limit=5")
@@ -525,7 +547,7 @@ def route_table():
     """(METHOD, pattern, authorization) for every row of the daemon's route
     table (daemon/server/http_routes.c)."""
     text = (ROOT / "daemon" / "server" / "http_routes.c").read_text()
-    rows = re.findall(r'\{\s*"([A-Z]+)",\s*"(/[^"]*)",\s*\w+,\s*HTTP_(OPEN|READ|WRITE)', text)
+    rows = re.findall(r'\{\s*"([A-Z]+)",\s*"(/[^"]*)",\s*\w+,\s*HTTP_(OPEN|READ|WRITE|REVIEW|ADMIN|CURATE)', text)
     assert rows, "no rows found in daemon/server/http_routes.c; adjust this test"
     return rows
 

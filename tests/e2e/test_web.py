@@ -22,6 +22,7 @@ import os
 import pathlib
 import queue
 import shutil
+import signal
 import subprocess
 import threading
 import time
@@ -39,6 +40,9 @@ SCRIPT_TIMEOUT_S = 150
 # logic is the same as with the defaults; tests/e2e/test_calibration.py does the same).
 CALIB_CONFIG = ("calibration:\n"
                 "  stable: {drift_mv: 0.3, window_s: 3, min_s: 1.5, max_s: 60}\n")
+
+
+READ_TOKEN = "web-read-only-token-0123456789"
 
 
 def buffer_scenario(tmp, ph):
@@ -61,6 +65,14 @@ def buffer_scenario(tmp, ph):
 def bench(tmp_path_factory):
     b = db.Bench(tmp_path_factory.mktemp("web"), extra_config=CALIB_CONFIG)
     b.put_method()
+    # A token that may only read: the page hides what it cannot do.
+    with open(b.tmp / "token", "a") as f:
+        f.write(f"lims:read:{READ_TOKEN}\n")
+    b.daemon.send_signal(signal.SIGHUP)
+    deadline = time.monotonic() + 10
+    while b.request("GET", "/v1/whoami", token=READ_TOKEN).status != 200:
+        assert time.monotonic() < deadline, "SIGHUP did not load the tokens"
+        time.sleep(0.1)
     yield b
     b.close()
 
@@ -149,6 +161,7 @@ def test_bench_page_in_chromium(bench, tmp_path):
     buffers = [[ph, str(buffer_scenario(tmp_path, ph))] for ph in (4.01, 7.00, 10.01)]
     env = dict(os.environ,
                STOPCOCK_URL=bench.url, STOPCOCK_TOKEN=bench.token,
+               STOPCOCK_READ_TOKEN=READ_TOKEN,
                STOPCOCK_CONTROL=str(bench.ctl), STOPCOCK_SCENARIO=str(bench.scenario),
                STOPCOCK_BUFFERS=json.dumps(buffers), STOPCOCK_SHOTS=str(OUT))
     log = open(OUT / "test_page.log", "w")

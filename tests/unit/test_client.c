@@ -30,6 +30,7 @@ TEST(client_read_token_lines)
 	    {"lims:abc123\n", "abc123"},
 	    {"# tokens for the bench\n\n  sim:3f9a:with-colon  \nother:x\n", "3f9a:with-colon"},
 	    {"justthetoken\n", "justthetoken"},
+	    {"qa:review,read:0123456789abcdef\n", "0123456789abcdef"},
 	    {"name:   spaced\n", "spaced"},
 	};
 	for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {

@@ -177,6 +177,48 @@ TEST(config_tokens)
 	rmdir(dir);
 }
 
+/* Roles: "name:role,role:token"; "name:token" keeps every role and says so;
+ * a misspelt role is an error at its column, never every right. */
+TEST(config_token_roles)
+{
+	char dir[] = "/tmp/stopcock-tok-XXXXXX", path[128], buf[64];
+	cfg_tokens_t t;
+	diag_list_t d = DIAG_LIST_INIT;
+
+	REQUIRE(mkdtemp(dir));
+	snprintf(path, sizeof path, "%s/token", dir);
+	write_file(path, "lims:read:0123456789abcdef0123\n"
+	                 "ana:read,operate:abcdef0123456789abcd\n"
+	                 "old:fedcba9876543210fedc\n"
+	                 "typo:read,operat:1111111111111111111\n"
+	                 "empty::2222222222222222222\n"
+	                 "colon:3f9a:with-colon-0123456\n");
+	CHECK(cfg_load_tokens(path, &t, &d) != 0);
+	REQUIRE(t.n == 4);
+	CHECK_STR(t.v[0].name, "lims");
+	CHECK_STR(t.v[0].token, "0123456789abcdef0123");
+	CHECK_INT(t.v[0].roles, CFG_ROLE_READ);
+	CHECK(!t.v[0].no_roles);
+	CHECK_STR(t.v[1].token, "abcdef0123456789abcd");
+	CHECK_INT(t.v[1].roles, CFG_ROLE_READ | CFG_ROLE_OPERATE);
+	CHECK_STR(cfg_roles_text(t.v[1].roles, buf, sizeof buf), "read,operate");
+	CHECK_INT(t.v[2].roles, CFG_ROLES_ALL);
+	CHECK(t.v[2].no_roles);
+	CHECK_INT(t.v[2].line, 3);
+	REQUIRE(d.n == 2);
+	CHECK_INT(d.v[0].line, 4);
+	CHECK_INT(d.v[0].col, 11);
+	CHECK(strstr(d.v[0].msg, "unknown role 'operat'") != NULL);
+	CHECK_INT(d.v[1].line, 5);
+	CHECK_STR(cfg_roles_text(CFG_ROLES_ALL, buf, sizeof buf), "read,operate,review,admin");
+	/* A ':' inside a token from before roles stays part of it. */
+	CHECK_STR(t.v[3].token, "3f9a:with-colon-0123456");
+	CHECK(t.v[3].no_roles);
+	diag_free(&d);
+	unlink(path);
+	rmdir(dir);
+}
+
 /* dosers: each a named burette driver with its reagent; every mistake is
  * reported at its line. */
 TEST(config_station_dosers)

@@ -49,6 +49,21 @@ TEST(routes_known_is_method_and_path)
 	CHECK(!http_routes_known("GET", "/v1/nowhere"));
 }
 
+/* Each write route names the role it needs (docs/api.md, "Roles"). */
+TEST(routes_roles)
+{
+	CHECK_INT(http_routes_auth("PUT", "/v1/methods/acid"), HTTP_ADMIN);
+	CHECK_INT(http_routes_auth("POST", "/v1/methods/acid/check"), HTTP_ADMIN);
+	CHECK_INT(http_routes_auth("POST", "/v1/runs"), HTTP_WRITE);
+	CHECK_INT(http_routes_auth("GET", "/v1/whoami"), HTTP_OPEN);
+	CHECK_INT(http_auth_roles(HTTP_OPEN), 0);
+	CHECK_INT(http_auth_roles(HTTP_READ), CFG_ROLE_READ);
+	CHECK_INT(http_auth_roles(HTTP_WRITE), CFG_ROLE_OPERATE);
+	CHECK_INT(http_auth_roles(HTTP_REVIEW), CFG_ROLE_REVIEW);
+	CHECK_INT(http_auth_roles(HTTP_ADMIN), CFG_ROLE_ADMIN);
+	CHECK_INT(http_auth_roles(HTTP_CURATE), CFG_ROLE_OPERATE | CFG_ROLE_ADMIN);
+}
+
 TEST(routes_authorization)
 {
 	CHECK_INT(http_routes_auth("GET", "/v1/health"), HTTP_OPEN);
@@ -59,8 +74,6 @@ TEST(routes_authorization)
 	CHECK_INT(http_routes_auth("GET", "/v1/stations"), HTTP_READ);
 	CHECK_INT(http_routes_auth("GET", "/v1/runs/3/curve.svg"), HTTP_READ);
 	CHECK_INT(http_routes_auth("POST", "/v1/runs"), HTTP_WRITE);
-	CHECK_INT(http_routes_auth("PUT", "/v1/methods/acid"), HTTP_WRITE);
-	CHECK_INT(http_routes_auth("POST", "/v1/methods/acid/check"), HTTP_WRITE);
 	/* No route: a read needs what reads need, anything else a token. */
 	CHECK_INT(http_routes_auth("GET", "/v1/nowhere"), HTTP_READ);
 	CHECK_INT(http_routes_auth("DELETE", "/v1/nowhere"), HTTP_WRITE);

@@ -458,6 +458,21 @@ async function main() {
 		expectNetErrors = false;
 		check(true, 'the page recovers after the restart');
 
+		// ---- a token that may only read: the page hides what it cannot do ----
+		step('roles');
+		check(await page.evaluate(() => document.body.classList.contains('can-operate')),
+			'the full token may operate');
+		await page.evaluate((t) => sessionStorage.setItem('stopcock.token', t),
+			process.env.STOPCOCK_READ_TOKEN || '');
+		await page.goto(`${URL}/#/stations`);
+		await page.reload();
+		await page.waitForFunction(() => document.body.classList.contains('can-read'), null,
+			{timeout: 10000});
+		check(await page.locator('section.station button.halt').isHidden() &&
+			await page.locator('section.station form.start').isHidden(),
+		'a read-only token sees no HALT and no start form');
+		await page.evaluate((t) => sessionStorage.setItem('stopcock.token', t), TOKEN);
+
 		// ---- a 10-inch tablet ----
 		step('tablet');
 		await page.setViewportSize({width: 800, height: 1280});

@@ -143,12 +143,32 @@ export function askToken(note) {
 	return asking;
 }
 
-// The dialog takes the token alone or its whole `name:token` line from the
-// token file, as the CLI reads it: the part after the first colon.
+// The dialog takes the token alone or its whole `name:token` or
+// `name:role,role:token` line from the token file, as the CLI reads it.
 export function tokenOf(text) {
 	const t = text.trim();
-	const colon = t.indexOf(':');
-	return (colon >= 0 ? t.slice(colon + 1) : t).trim();
+	const parts = t.split(':');
+	// a middle field of lower-case words is the roles, else part of the token
+	const skip = parts.length > 2 && /^[a-z,]+$/.test(parts[1]) ? 2 : 1;
+	return (parts.length > 1 ? parts.slice(skip).join(':') : t).trim();
+}
+
+// What the token may do (GET /v1/whoami), as classes on <body>: "has-token"
+// and "can-ROLE"; app.css hides each [data-needs=ROLE] the token lacks. No
+// token: everything shows, and a click asks for one.
+async function showRoles() {
+	const b = document.body;
+	for (const c of [...b.classList]) if (c.startsWith('can-')) b.classList.remove(c);
+	b.classList.toggle('has-token', !!getToken());
+	if (!getToken()) return;
+	try {
+		const headers = {Authorization: `Bearer ${getToken()}`};
+		const r = await fetch('/v1/whoami', {headers, cache: 'no-store'});
+		if (!r.ok) return;
+		for (const role of (await r.json()).roles || []) b.classList.add(`can-${role}`);
+	} catch {
+		/* the link state shows a daemon that does not answer */
+	}
 }
 
 function ask(note) {
@@ -194,6 +214,7 @@ export function showTokenState() {
 	const have = !!getToken();
 	b.textContent = have ? 'Writes unlocked · lock' : 'Unlock writes';
 	b.setAttribute('aria-pressed', have ? 'true' : 'false');
+	showRoles();
 }
 
 export function setupToken() {

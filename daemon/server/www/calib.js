@@ -31,7 +31,8 @@ function start(root, msg) {
 		inputmode: 'decimal', autocomplete: 'off', 'aria-describedby': 'cal-buffers-hint'});
 	const note = h('p', {class: 'form-note', role: 'status'});
 	const latest = h('div', {class: 'latest'});
-	const form = h('form', {class: 'card start cal-start', 'aria-label': 'start a calibration'},
+	const form = h('form', {class: 'card start cal-start', 'aria-label': 'start a calibration',
+		'data-needs': 'operate'},
 		h('h2', {}, 'New calibration'),
 		h('label', {for: 'cal-station'}, 'Station'), station,
 		h('label', {for: 'cal-buffers'}, 'Buffers (pH at 25 °C)'),
@@ -83,7 +84,8 @@ function flow(root, msg, id) {
 	const steps = h('ol', {class: 'steps'});
 	const prompt = h('div', {class: 'prompt', role: 'status', 'aria-live': 'polite'});
 	const live = h('p', {class: 'live'});
-	const measure = h('button', {type: 'button', class: 'primary big-button', hidden: true},
+	const measure = h('button', {type: 'button', class: 'primary big-button', hidden: true,
+		'data-needs': 'operate'},
 		'Measure');
 	const result = h('div', {class: 'card result-card'});
 	root.append(h('div', {class: 'run-grid'},

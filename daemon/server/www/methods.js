@@ -10,7 +10,7 @@ export function methodsView(root) {
 	const msg = h('p', {class: 'view-error', role: 'alert'});
 	const newId = h('input', {id: 'new-method', name: 'id', pattern: '[a-z0-9-]+', required: true,
 		autocomplete: 'off', placeholder: 'e.g. orchard-malic'});
-	const create = h('form', {class: 'filters', 'aria-label': 'new method'},
+	const create = h('form', {class: 'filters', 'aria-label': 'new method', 'data-needs': 'admin'},
 		h('label', {for: 'new-method'}, 'New method id'), newId,
 		h('button', {type: 'submit'}, 'Write it'));
 	create.addEventListener('submit', (ev) => {
@@ -87,9 +87,11 @@ export function editorView(root, id) {
 		autocapitalize: 'off', autocomplete: 'off', 'aria-label': `YAML text of method ${id}`,
 		'aria-describedby': 'diag-list'});
 	const list = h('ul', {class: 'diagnostics', id: 'diag-list', 'aria-label': 'errors'});
-	const check = h('button', {type: 'button'}, 'Check');
-	const raise = h('button', {type: 'button', hidden: true}, 'Raise revision');
-	const save = h('button', {type: 'button', class: 'primary'}, 'Save as new revision');
+	const check = h('button', {type: 'button', 'data-needs': 'admin'}, 'Check');
+	const raise = h('button', {type: 'button', hidden: true, 'data-needs': 'admin'},
+		'Raise revision');
+	const save = h('button', {type: 'button', class: 'primary', 'data-needs': 'admin'},
+		'Save as new revision');
 	let stored = 0;
 	let timer = 0;
 	let lastDiags = [];

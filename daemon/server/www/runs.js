@@ -92,7 +92,8 @@ export function runView(root, id) {
 	const endpoints = h('div', {class: 'endpoints'});
 	const results = h('div', {class: 'results'});
 	const faults = h('div', {class: 'faults'});
-	const abort = h('button', {type: 'button', class: 'danger', hidden: true}, 'Abort run');
+	const abort = h('button', {type: 'button', class: 'danger', hidden: true, 'data-needs': 'operate'},
+		'Abort run');
 	const links = h('p', {class: 'links'},
 		h('a', {href: `/v1/runs/${id}/points?format=csv`, download: `run-${id}.csv`}, 'points as CSV'),
 		' · ',

@@ -32,12 +32,13 @@ function card(name, methods) {
 	const queued = h('span', {}, '0');
 	const err = h('p', {class: 'station-error', role: 'alert'});
 	const note = h('p', {class: 'form-note', role: 'status'});
-	const halt = h('button', {type: 'button', class: 'halt', 'data-halt': name},
+	const halt = h('button', {type: 'button', class: 'halt', 'data-halt': name, 'data-needs': 'operate'},
 		'HALT');
 	// After a restart a station that had a run is held until someone has
 	// looked at the beaker (docs/operations.md, "After a stop or a crash").
 	const heldWhy = h('span', {class: 'held-reason'});
-	const resume = h('button', {type: 'button', class: 'primary resume'}, 'Resume');
+	const resume = h('button', {type: 'button', class: 'primary resume', 'data-needs': 'operate'},
+		'Resume');
 	const held = h('div', {class: 'held', role: 'status', hidden: true},
 		h('strong', {}, 'Held: '), heldWhy, ' ', resume);
 	const method = h('select', {name: 'method', id: `method-${name}`, required: true});
@@ -46,7 +47,7 @@ function card(name, methods) {
 	const amount = h('input', {name: 'amount', id: `amount-${name}`, type: 'number',
 		step: 'any', min: '0', required: true, value: '10'});
 	const unit = h('span', {class: 'unit'}, 'mL or g, as the method says');
-	const form = h('form', {class: 'start', 'aria-label': `start a run on ${name}`},
+	const form = h('form', {class: 'start', 'aria-label': `start a run on ${name}`, 'data-needs': 'operate'},
 		h('h3', {}, 'Start a run'),
 		h('label', {for: method.id}, 'Method'), method,
 		h('label', {for: sample.id}, 'Sample id'), sample,

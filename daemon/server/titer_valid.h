@@ -1,0 +1,22 @@
+/* titer_valid.h: may an assay start with the titer and blank stored now?
+ * (docs/calibration.md, "Titer and blank validity"). Checked when a run is
+ * queued (submit.c): an assay whose formulas read `titer` needs a stored
+ * titer (unless records.titer_required is false) that has not expired, and
+ * one that reads `blank_ml` needs a blank that has not expired.
+ */
+#ifndef STOPCOCK_TITER_VALID_H
+#define STOPCOCK_TITER_VALID_H
+
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "config.h"
+#include "method.h"
+#include "store.h"
+
+/* True when m may start at now_s (Unix time, s); false with the reason in
+ * msg; *db_err when the store failed instead. */
+bool titer_valid_for_run(const cfg_t *cfg, store_t *store, const method_t *m, double now_s,
+                         char *msg, size_t cap, bool *db_err);
+
+#endif

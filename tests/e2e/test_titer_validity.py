@@ -1,0 +1,101 @@
+"""Titer and blank validity (docs/calibration.md, "Titer and blank
+validity") through a real stopcockd whose config requires a titer: an assay
+without one is refused with 409 and the reason; a certified titer entered by
+hand (POST /v1/titrants, `stopcock titrants set`) by an operate or admin
+token, with its reason, lets it start and is in the audit trail; a titer
+whose date is past its validity refuses the assay again."""
+import json
+import os
+import signal
+import subprocess
+import time
+
+import pytest
+
+import daemon_bench as db
+
+TITRANT = "NaOH 0.1 mol/L"
+TOKENS = {"ana": ("read,operate", "ana-operate-token-0123456789"),
+          "boss": ("admin", "boss-admin-token-0123456789"),
+          "lims": ("read", "lims-read-token-0123456789")}
+
+
+@pytest.fixture(scope="module")
+def bench(tmp_path_factory):
+    b = db.Bench(tmp_path_factory.mktemp("titer"))
+    b.put_method()
+    b.stop_daemon()
+    text = b.config.read_text()
+    assert "records: {titer_required: false}" in text
+    b.config.write_text(text.replace("records: {titer_required: false}",
+                                     "records: {titer_required: true, titer_valid_days: 30}"))
+    lines = [f"bench:{b.token}"] + [f"{n}:{r}:{t}" for n, (r, t) in TOKENS.items()]
+    (b.tmp / "token").write_text("\n".join(lines) + "\n")
+    b.start_daemon()
+    yield b
+    b.close()
+
+
+def post(bench, who, path, body):
+    return bench.request("POST", path, json.dumps(body), token=TOKENS[who][1],
+                         headers={"Content-Type": "application/json"})
+
+
+def start(bench):
+    return post(bench, "ana", "/v1/runs", {"station": "sim1", "method": "wash-acid-mv",
+                                           "sample_id": "TITER-1", "amount": 10.0})
+
+
+def sql(bench, statement):
+    db_path = next(l.split(":", 1)[1].strip() for l in bench.config.read_text().splitlines()
+                   if l.strip().startswith("database:"))
+    r = subprocess.run(["sqlite3", "-cmd", ".timeout 5000", db_path, statement],
+                       capture_output=True, text=True, timeout=30)
+    assert r.returncode == 0, r.stderr
+
+
+def test_an_assay_without_a_titer_is_refused(bench):
+    r = start(bench)
+    assert r.status == 409, r.body
+    err = r.json()["error"]
+    assert err["code"] == "no_titer" and "has no titer" in err["message"], err
+    assert bench.get("/v1/runs?limit=10")["runs"] == []  # nothing was queued
+
+
+def test_a_titer_is_entered_by_operate_or_admin_with_a_reason(bench, tmp_path):
+    body = {"name": TITRANT, "titer": 1.0, "molarity": 0.1, "reason": "certificate 4711"}
+    assert post(bench, "lims", "/v1/titrants", body).status == 403
+    r = post(bench, "ana", "/v1/titrants", {**body, "reason": ""})
+    assert r.status == 400, r.body  # a reason is required
+    r = post(bench, "boss", "/v1/titrants", {**body, "valid_days": 90})
+    assert r.status == 201, r.body
+    assert r.json()["by"] == "boss" and r.json()["valid_days"] == 90
+    # and from the CLI, by the analyst
+    token = tmp_path / "token"
+    token.write_text(f"ana:read,operate:{TOKENS['ana'][1]}\n")
+    env = dict(os.environ, STOPCOCK_URL=bench.url, STOPCOCK_TOKEN_FILE=str(token))
+    out = subprocess.run([db.binary("stopcock"), "titrants", "set", TITRANT, "--titer", "1.002",
+                          "--reason", "certificate 4712, new lot", "--valid-days", "60"],
+                         env=env, capture_output=True, text=True, timeout=30)
+    assert out.returncode == 0, out.stderr
+    assert f"{TITRANT}: titer 1.002000 entered by ana" in out.stdout, out.stdout
+    t = next(x for x in bench.get("/v1/titrants")["titrants"] if x["name"] == TITRANT)
+    assert t["titer"] == 1.002 and t["source"] == "entered" and t["valid_days"] == 60
+    assert t["reason"] == "certificate 4712, new lot" and t["by"] == "ana"
+    evs = bench.get("/v1/events?after=0&limit=1000")["events"]
+    assert [e["actor"] for e in evs if e["kind"] == "titrant"] == ["boss", "ana"]
+    assert bench.get("/v1/events/verify")["ok"]
+
+
+def test_a_valid_titer_lets_the_assay_start_and_an_expired_one_refuses_it(bench):
+    bench.fresh_beaker()
+    r = start(bench)
+    assert r.status == 201, r.body
+    rid = r.json()["id"]
+    assert bench.write("POST", f"/v1/runs/{rid}/abort").status == 200
+    bench.wait_state(rid, ("aborted", "finished", "failed"), timeout_s=30)
+    # a titer entered long ago: past its 60 days
+    sql(bench, f"UPDATE titrants SET at='2020-01-01T00:00:00.000Z' WHERE name='{TITRANT}'")
+    r = start(bench)
+    assert r.status == 409, r.body
+    assert "expired" in r.json()["error"]["message"], r.body
