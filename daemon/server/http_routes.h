@@ -73,4 +73,12 @@ void http_get_calibration_latest(const http_req_t *q, http_reply_t *r);
 void http_get_calibration(const http_req_t *q, http_reply_t *r);
 void http_post_calibration_next(const http_req_t *q, http_reply_t *r);
 
+/* http_series.c */
+void http_post_series(const http_req_t *q, http_reply_t *r);
+void http_get_series(const http_req_t *q, http_reply_t *r);
+void http_get_series_list(const http_req_t *q, http_reply_t *r);
+void http_get_series_feed(const http_req_t *q, http_reply_t *r);
+void http_post_series_abort(const http_req_t *q, http_reply_t *r);
+void http_post_series_next(const http_req_t *q, http_reply_t *r);
+
 #endif

@@ -24,6 +24,7 @@
 #include "method.h"
 #include "notify.h"
 #include "recover.h"
+#include "series.h"
 #include "station.h"
 #include "standardization.h"
 #include "store.h"
@@ -435,6 +436,11 @@ int main(int argc, char **argv)
 	ctx.store = store;
 	/* Running runs become interrupted, queued ones are queued again, and
 	 * their stations are held until an operator resumes them (recover.h). */
+	/* Series first: a series the last daemon left going ends interrupted,
+	 * and so does the run it had queued, which recover_start would queue
+	 * again otherwise (series.h). */
+	if (series_recover_start(store) < 0)
+		log_err("series: cannot mark the last daemon's series interrupted");
 	stale_pending = !recover_start(&ctx);
 	if (cfg.methods_dir[0]) {
 		diag_list_t md = DIAG_LIST_INIT;
@@ -452,6 +458,11 @@ int main(int argc, char **argv)
 		struct timespec ts;
 		clock_gettime(CLOCK_MONOTONIC, &ts);
 		ctx.started_mono_s = (double)ts.tv_sec + ts.tv_nsec / 1e9;
+	}
+	ctx.series = series_service_start(&ctx);
+	if (!ctx.series) {
+		log_err("series: cannot start its thread");
+		goto out;
 	}
 	http = http_start(&ctx, err, sizeof err);
 	if (!http) {
@@ -544,6 +555,9 @@ out:
 			station_snapshot(stations[i], &s);
 			had_run[i] = s.run_id != 0;
 		}
+		/* A series goes no further once the daemon stops (series.h). */
+		series_service_stop(ctx.series);
+		ctx.series = NULL;
 		for (int i = 0; i < cfg.n_stations; i++)
 			if (stations[i])
 				station_stop(stations[i]); /* no-op when not started */

@@ -58,6 +58,12 @@ static const char *const migrations[] = {
      "ALTER TABLE titrants ADD COLUMN replicates TEXT;"),
     /* 2 -> 3: the daemon's heartbeat, for the end time of a run a crash cut. */
     "CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);",
+    /* 3 -> 4: series (store_series.c): a work list of samples for one station,
+     * its record as JSON; seq for the finished-series feed. */
+    ("CREATE TABLE series ("
+     "  id INTEGER PRIMARY KEY AUTOINCREMENT, station TEXT NOT NULL, state TEXT NOT NULL,"
+     "  created_at TEXT NOT NULL, ended_at TEXT, seq INTEGER UNIQUE, record TEXT NOT NULL);"
+     "CREATE INDEX series_state ON series(state);"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
