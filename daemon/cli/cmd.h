@@ -19,5 +19,6 @@ int cmd_resume(int argc, char **argv);
 int cmd_calibrate(int argc, char **argv);
 int cmd_titrants(int argc, char **argv); /* cmd_audit.c */
 int cmd_events(int argc, char **argv);
+int cmd_series(int argc, char **argv); /* cmd_series.c */
 
 #endif

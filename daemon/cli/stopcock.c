@@ -25,6 +25,8 @@ static const struct {
     {"titrants", cmd_titrants,
      "titrants                      stored titers and how they were found"},
     {"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
+    {"series", cmd_series,
+     "series start|show|wait|abort|next  a work list of samples (series --help)"},
     {"ports", cmd_ports, "ports                         list serial ports"},
     {"help", NULL, "help [COMMAND]                this list, or one command's options"},
 };

@@ -16,11 +16,13 @@ known amounts:
 import json
 import math
 import signal
+import subprocess
 import time
 
 import pytest
 
 import daemon_bench as db
+from common import binary
 
 METHOD = db.DATA / "fast-acid-rep-mv.yaml"
 
@@ -148,18 +150,76 @@ def test_on_failure_stop_ends_the_series_at_the_first_failure(bench, duplicates)
     assert s["samples"][1]["runs"] == []
 
 
-def test_on_failure_continue_titrates_every_beaker(bench, duplicates):
-    # The same first beaker; the series goes on to the second.
+def cli(bench, *args, timeout=60):
+    return subprocess.run([binary("stopcock"), *map(str, args), "--url", bench.url,
+                           "--token-file", str(bench.tmp / "token")],
+                          capture_output=True, text=True, timeout=timeout)
+
+
+def test_on_failure_continue_titrates_every_beaker_through_the_cli(bench, duplicates):
+    # The same first beaker; the series goes on to the second. Queued,
+    # moved on and followed with `stopcock series`.
+    wl = bench.tmp / "continue.csv"
+    wl.write_text("sample_id,method,amount,position,factor:dilution\r\n"
+                  "HIGH-1,fast-acid-rep-mv,10.0,1;2,2\r\n")
     load_beaker(bench, 0.0220)
-    sid = post_series(bench, [sample("HIGH-1", [1, 2])], on_failure="continue")
-    s = run_series(bench, sid, [0.0220, 0.0220])
+    p = cli(bench, "series", "start", "--station", "sim1", "--on-failure", "continue", wl)
+    assert p.returncode == 0, p.stderr
+    sid = int(p.stdout.strip())
+    deadline = time.monotonic() + 90
+    while not (s := bench.get(f"/v1/series/{sid}"))["waiting"]:
+        assert time.monotonic() < deadline and s["state"] in ("queued", "running"), s
+        time.sleep(0.1)
+    load_beaker(bench, 0.0220)
+    p = cli(bench, "series", "next", sid)
+    assert p.returncode == 0 and "next beaker in place" in p.stdout, p.stderr
+    p = cli(bench, "series", "wait", sid, timeout=90)
+    assert p.returncode == 0, (p.stdout, p.stderr)
+    assert f"series {sid} on sim1: finished (on_failure continue)" in p.stdout, p.stdout
+    assert "acid: n 2, mean 22." in p.stdout, p.stdout
+    s = bench.get(f"/v1/series/{sid}")
     assert s["state"] == "finished", s
+    assert s["samples"][0]["factors"] == {"dilution": 2.0}
     assert len(s["samples"][0]["runs"]) == 2
     for rid in s["samples"][0]["runs"]:
         assert next(x["accept"] for x in bench.run(rid)["results"]) == "high"
     # The results out of limits still count in the statistics: they are values.
     assert s["samples"][0]["stats"]["acid"]["n"] == 2
     assert s["samples"][0]["stats"]["acid"]["mean"] == pytest.approx(22.0, rel=0.015)
+    p = cli(bench, "series", "show", sid)
+    assert p.returncode == 0 and "HIGH-1 (fast-acid-rep-mv, 10): runs" in p.stdout, p.stdout
+    p = cli(bench, "series", "next", sid)
+    assert p.returncode == 1 and "already finished" in p.stderr, p.stderr
+
+
+def test_work_list_errors_are_file_row_column_and_nothing_is_sent(bench):
+    before = bench.get("/v1/series?limit=1000")["series"]
+    wl = bench.tmp / "bad.csv"
+    wl.write_text("sample_id,method,amount,position,colour\n"
+                  "A-1,fast-acid-rep-mv,ten,1;x,red\n"
+                  "A-2,fast-acid-rep-mv,weigh,3;4,blue\n"
+                  ",fast-acid-rep-mv,10\n")
+    p = cli(bench, "series", "start", "--station", "sim1", wl)
+    assert p.returncode == 2, p
+    lines = p.stderr.strip().splitlines()
+    assert lines == [
+        f"{wl}:1:5: unknown column 'colour' (columns: sample_id, method, amount, position, "
+        "factor:NAME)",
+        f"{wl}:2:3: amount must be a number above 0, not 'ten'",
+        f"{wl}:2:4: position 'x' is not a whole number 1 to 999",
+        f"{wl}:3:3: amount \"weigh\" needs a balance, which stopcockd does not drive yet: "
+        "give the amount as a number",
+        f"{wl}:4:4: the row has 3 fields, the header 5",
+    ], p.stderr
+    wl.write_text("sample_id,method\n")
+    p = cli(bench, "series", "start", "--station", "sim1", wl)
+    assert p.returncode == 2 and f"{wl}:1:1: the header has no column amount" in p.stderr
+    # The daemon refuses what the file alone cannot show: fewer positions than
+    # the method's replicates.
+    wl.write_text("sample_id,method,amount,position\nA-1,fast-acid-rep-mv,10,1\n")
+    p = cli(bench, "series", "start", "--station", "sim1", wl)
+    assert p.returncode == 1 and "asks for 2 replicates" in p.stderr, p.stderr
+    assert bench.get("/v1/series?limit=1000")["series"] == before
 
 
 def test_device_fault_stops_the_series_even_with_continue(bench, duplicates):
