@@ -24,6 +24,7 @@
 #include "method.h"
 #include "notify.h"
 #include "recover.h"
+#include "notify_cmd.h"
 #include "series.h"
 #include "station.h"
 #include "standardization.h"
@@ -335,7 +336,8 @@ int main(int argc, char **argv)
 	int rc = 1, n = 0;
 	uint64_t wd_us;
 	bool stale_pending = false;
-	titer_book_t *titers = NULL; /* the replicate titers, daemon-wide */
+	titer_book_t *titers = NULL;   /* the replicate titers, daemon-wide */
+	notify_cmd_t *notifier = NULL; /* notify_command's thread, when configured */
 	double beat_s = 0, stale_try_s = 0;
 
 	sigemptyset(&set);
@@ -436,6 +438,9 @@ int main(int argc, char **argv)
 	ctx.store = store;
 	/* Running runs become interrupted, queued ones are queued again, and
 	 * their stations are held until an operator resumes them (recover.h). */
+	/* Alarms from here on (notify_cmd.h), so that a series cut by the last
+	 * daemon reaches a person too. */
+	notifier = notify_cmd_start(&ctx);
 	/* Series first: a series the last daemon left going ends interrupted,
 	 * and so does the run it had queued, which recover_start would queue
 	 * again otherwise (series.h). */
@@ -567,6 +572,7 @@ out:
 	http_stop(http);
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
+	notify_cmd_stop(notifier); /* after the stations: their last events are sent */
 	titer_book_free(titers);
 	store_close(store);
 	pthread_rwlock_destroy(&ctx.tokens_lock);

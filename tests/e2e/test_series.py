@@ -11,7 +11,9 @@ known amounts:
   - a device fault mid-series stops it whatever on_failure says;
   - SIGKILL mid-series: the series and its run end interrupted, the finished
     sample keeps its result, nothing is queued after the restart;
-  - the series feed gives each final series once, in order, across a restart.
+  - the series feed gives each final series once, in order, across a restart;
+  - the notify command receives the events (series finished and stopped, a
+    device fault, a failed run) as JSON on its input and in its environment.
 """
 import json
 import math
@@ -27,9 +29,22 @@ from common import binary
 METHOD = db.DATA / "fast-acid-rep-mv.yaml"
 
 
+# notify_command: a small script that files each event's JSON (its standard
+# input) and three of its environment variables, one line each.
+NOTIFY = """#!/bin/sh
+{ cat; echo "env $STOPCOCK_EVENT station=$STOPCOCK_STATION series=$STOPCOCK_SERIES"; } >> "$1"
+echo "told $STOPCOCK_EVENT"
+"""
+
+
 @pytest.fixture(scope="module")
 def bench(tmp_path_factory):
-    b = db.Bench(tmp_path_factory.mktemp("series"))
+    tmp = tmp_path_factory.mktemp("series")
+    script = tmp / "alarm.sh"
+    script.write_text(NOTIFY)
+    script.chmod(0o755)
+    b = db.Bench(tmp, extra_config=f"notify_command: [{script}, {tmp / 'alarms.txt'}]\n"
+                                   "notify_timeout_s: 5\n")
     b.put_method(METHOD)
     yield b
     b.close()
@@ -301,3 +316,42 @@ def test_sigkill_mid_series_ends_it_interrupted_and_the_feed_is_exactly_once(ben
     assert bench.get(f"/v1/series/feed?after={page['next_after']}")["series"] == []
     assert [x["id"] for x in bench.get("/v1/series/feed?after=0")["series"]] == ids
     bench.resume()
+
+
+def alarms(bench):
+    path = bench.tmp / "alarms.txt"
+    if not path.exists():
+        return [], []
+    lines = path.read_text().splitlines()
+    return [json.loads(x) for x in lines if x.startswith("{")], \
+        [x for x in lines if x.startswith("env ")]
+
+
+def test_notify_command_receives_the_events(bench, duplicates):
+    # Every series of this module has ended by now; the alarms follow
+    # within a poll of the audit trail.
+    deadline = time.monotonic() + 10
+    while True:
+        events, env = alarms(bench)
+        kinds = [e["event"] for e in events]
+        if {"series_finished", "series_stopped", "device_fault", "run_failed"} <= set(kinds):
+            break
+        assert time.monotonic() < deadline, kinds
+        time.sleep(0.2)
+    sid = duplicates[0]
+    done = next(e for e in events if e["event"] == "series_finished")
+    assert done["series"] == sid and done["station"] == "sim1", done
+    assert f"env series_finished station=sim1 series={sid}" in env
+    fault = next(e for e in events if e["event"] == "device_fault")
+    assert fault["run"] and fault["code"] and fault["message"], fault
+    stopped = [e for e in events if e["event"] == "series_stopped"]
+    assert any("on_failure is stop" in e["message"] for e in stopped), stopped
+    assert any("device fault" in e["message"] for e in stopped), stopped
+    # The series SIGKILL cut: told by the next daemon.
+    assert any(e["code"] == "interrupted" for e in stopped), stopped
+    # Each event once: the restarts did not send old ones again.
+    keys = [(e["event"], e["at"], e["message"]) for e in events]
+    assert len(keys) == len(set(keys)), keys
+    # The program's output is in the daemon's log.
+    log = (bench.tmp / "daemon.log").read_text(errors="replace")
+    assert "notify_command (series_finished): told series_finished" in log
