@@ -453,13 +453,22 @@ void series_service_stop(series_service_t *sv)
 	pthread_mutex_unlock(&sv->lock);
 	pthread_join(sv->thread, NULL);
 	/* The stations stop next and end the current runs; the series is cut
-	 * and never resumed (series.h). */
+	 * and never resumed (series.h). Requests may still come in: under the
+	 * lock, and series_submit refuses new ones now. */
+	pthread_mutex_lock(&sv->lock);
 	while (sv->active) {
 		series_t *s = sv->active;
 		sv->active = s->next;
 		finish(sv, s, "interrupted", "the daemon stopped");
 		series_free(s);
 	}
+	pthread_mutex_unlock(&sv->lock);
+}
+
+void series_service_free(series_service_t *sv)
+{
+	if (!sv)
+		return;
 	pthread_mutex_destroy(&sv->lock);
 	pthread_cond_destroy(&sv->wake);
 	free(sv);
@@ -515,6 +524,7 @@ int series_recover_start(store_t *store)
 		json_object_set_new(rec, "state", json_string("interrupted"));
 		json_object_set_new(rec, "ended_at", json_string(at));
 		json_object_set_new(rec, "prompt", json_null());
+		json_object_set_new(rec, "current_run", json_null());
 		json_object_set_new(rec, "waiting", json_false());
 		json_object_set_new(rec, "detail",
 		                    json_string("the daemon stopped during the series; a series is "
@@ -642,7 +652,8 @@ static series_error_t parse_sample(series_service_t *sv, const json_t *row, int 
 	json_t *pos = json_object_get(row, "position");
 	int n = 0;
 	if (json_is_integer(pos)) {
-		p->positions[n++] = (int)json_integer_value(pos);
+		json_int_t pv = json_integer_value(pos);
+		p->positions[n++] = pv >= 1 && pv <= 999 ? (int)pv : -1;
 	} else if (json_is_array(pos)) {
 		size_t j;
 		json_t *e;
@@ -656,7 +667,8 @@ static series_error_t parse_sample(series_service_t *sv, const json_t *row, int 
 				return bad(err, cap, SERIES_BAD_REQUEST,
 				           "samples[%d].position[%zu] must be a whole number", i,
 				           j);
-			p->positions[n++] = (int)json_integer_value(e);
+			json_int_t pv = json_integer_value(e);
+			p->positions[n++] = pv >= 1 && pv <= 999 ? (int)pv : -1;
 		}
 	} else if (pos && !json_is_null(pos)) {
 		return bad(err, cap, SERIES_BAD_REQUEST,
@@ -665,8 +677,7 @@ static series_error_t parse_sample(series_service_t *sv, const json_t *row, int 
 	for (int j = 0; j < n; j++)
 		if (p->positions[j] < 1 || p->positions[j] > 999)
 			return bad(err, cap, SERIES_BAD_REQUEST,
-			           "samples[%d].position must be 1 to 999 (got %d)", i,
-			           p->positions[j]);
+			           "samples[%d].position must be whole numbers 1 to 999", i);
 	if (n == 0) {
 		/* No positions (a station without a changer): the method's count. */
 		p->reps = (int)want;
@@ -704,12 +715,9 @@ series_error_t series_submit(series_service_t *sv, const json_t *body, const cha
 	                                     strcmp(json_string_value(onf), "continue"))))
 		return bad(err, cap, SERIES_BAD_REQUEST,
 		           "on_failure must be \"stop\" or \"continue\"");
-	int si = -1;
-	for (int i = 0; i < sv->ctx->n_stations; i++)
-		if (!strcmp(station_name(sv->ctx->stations[i]), station))
-			si = i;
-	if (si < 0)
+	if (!http_find_station(sv->ctx, station))
 		return bad(err, cap, SERIES_NOT_FOUND, "no station '%s'", station);
+	const cfg_station_t *sc = sv->ctx->cfg ? cfg_station(sv->ctx->cfg, station) : NULL;
 
 	series_t *s = calloc(1, sizeof *s);
 	if (!s || !(s->samples = calloc(json_array_size(samples), sizeof *s->samples))) {
@@ -720,7 +728,7 @@ series_error_t series_submit(series_service_t *sv, const json_t *body, const cha
 	snprintf(s->state, sizeof s->state, "queued");
 	snprintf(s->requested_by, sizeof s->requested_by, "%s", actor ? actor : "");
 	s->stop_on_failure = !onf || !strcmp(json_string_value(onf), "stop");
-	s->has_changer = sv->ctx->cfg && sv->ctx->cfg->stations[si].changer != NULL;
+	s->has_changer = sc && sc->changer != NULL;
 	now_text(s->created_at);
 	size_t i;
 	json_t *row;
@@ -748,6 +756,17 @@ series_error_t series_submit(series_service_t *sv, const json_t *body, const cha
 	}
 	s->id = id;
 	pthread_mutex_lock(&sv->lock);
+	if (sv->stopping) {
+		/* Stored but never started: it ends at once, as a series the
+		 * daemon's stop cut. */
+		finish(sv, s, "interrupted", "the daemon was stopping when the series came");
+		series_free(s);
+		pthread_mutex_unlock(&sv->lock);
+		return bad(err, cap, SERIES_CONFLICT,
+		           "the daemon is stopping: series %lld was not "
+		           "started",
+		           (long long)id);
+	}
 	save(sv, s); /* the record with its id */
 	series_t **pp = &sv->active;
 	while (*pp)
@@ -816,4 +835,18 @@ series_error_t series_next(series_service_t *sv, int64_t id, char *err, size_t c
 	pthread_cond_signal(&sv->wake);
 	pthread_mutex_unlock(&sv->lock);
 	return s ? e : not_active(sv, id, err, cap);
+}
+
+json_t *series_on_station(series_service_t *sv, const char *station)
+{
+	json_t *j = NULL;
+	if (!sv)
+		return NULL;
+	pthread_mutex_lock(&sv->lock);
+	for (series_t *s = sv->active; s && !j; s = s->next)
+		if (!strcmp(s->station, station))
+			j = json_pack("{s:I,s:s,s:o}", "id", (json_int_t)s->id, "state", s->state,
+			              "prompt", str_or_null(s->prompt));
+	pthread_mutex_unlock(&sv->lock);
+	return j;
 }

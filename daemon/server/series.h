@@ -37,8 +37,11 @@ int series_recover_start(store_t *store);
 /* Start the service thread (after the stations); NULL when it cannot. */
 series_service_t *series_service_start(http_ctx_t *ctx);
 /* At a stop, before the stations stop: every series still going ends
- * `interrupted`; joins the thread and frees. NULL is a no-op. */
+ * `interrupted`; joins the thread. Requests may still call in (new series are
+ * refused) until series_service_free, after the HTTP server stopped. NULL is
+ * a no-op for both. */
 void series_service_stop(series_service_t *sv);
+void series_service_free(series_service_t *sv);
 
 typedef enum {
 	SERIES_OK = 0,
@@ -48,6 +51,10 @@ typedef enum {
 	SERIES_CONFLICT,       /* 409: wrong state */
 	SERIES_DATABASE,       /* 500 */
 } series_error_t;
+
+/* The first series going on a station as {"id","state","prompt"} (prompt
+ * null unless it waits for the operator), or NULL when none is. */
+json_t *series_on_station(series_service_t *sv, const char *station);
 
 /* POST /v1/series: check body, store the series, let the thread start it.
  * On SERIES_OK *id_out; otherwise err holds the message. */

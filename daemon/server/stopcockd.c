@@ -562,17 +562,19 @@ out:
 		}
 		/* A series goes no further once the daemon stops (series.h). */
 		series_service_stop(ctx.series);
-		ctx.series = NULL;
 		for (int i = 0; i < cfg.n_stations; i++)
 			if (stations[i])
 				station_stop(stations[i]); /* no-op when not started */
 		if (ctx.store)
 			recover_note_holds(&ctx, had_run);
 	}
+	/* After the stations stopped, so their last events are sent; before
+	 * they are freed, since it reads their snapshots. */
+	notify_cmd_stop(notifier);
 	http_stop(http);
+	series_service_free(ctx.series);
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
-	notify_cmd_stop(notifier); /* after the stations: their last events are sent */
 	titer_book_free(titers);
 	store_close(store);
 	pthread_rwlock_destroy(&ctx.tokens_lock);

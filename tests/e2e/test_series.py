@@ -87,6 +87,9 @@ def run_series(bench, sid, beakers, timeout_s=120):
             return s
         if s["waiting"]:
             assert s["prompt"] and f"series next {sid}" in s["prompt"], s
+            # The station shows the same prompt (the page reads it there).
+            assert bench.station()["series"] == {"id": sid, "state": "running",
+                                                 "prompt": s["prompt"]}
             load_beaker(bench, beakers[placed])
             placed += 1
             r = bench.write("POST", f"/v1/series/{sid}/next")
