@@ -22,11 +22,23 @@ import subprocess
 import time
 
 import pytest
+import yaml
 
 import daemon_bench as db
-from common import binary
+from common import ROOT, binary
 
 METHOD = db.DATA / "fast-acid-rep-mv.yaml"
+# The simulator's pump profile at its top speed, as tests/reliability uses it:
+# a beaker takes seconds.
+FAST_PUMP = ROOT / "tests" / "data" / "reliability" / "sim-fast.yaml"
+
+
+class FastBench(db.Bench):
+    def start_daemon(self, *args, **kw):
+        cfg = yaml.safe_load(self.config.read_text())
+        cfg["stations"][0]["burette"]["profile"] = str(FAST_PUMP)
+        self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
+        return super().start_daemon(*args, **kw)
 
 
 # notify_command: a small script that files each event's JSON (its standard
@@ -43,7 +55,7 @@ def bench(tmp_path_factory):
     script = tmp / "alarm.sh"
     script.write_text(NOTIFY)
     script.chmod(0o755)
-    b = db.Bench(tmp, extra_config=f"notify_command: [{script}, {tmp / 'alarms.txt'}]\n"
+    b = FastBench(tmp, extra_config=f"notify_command: [{script}, {tmp / 'alarms.txt'}]\n"
                                    "notify_timeout_s: 5\n")
     b.put_method(METHOD)
     yield b
