@@ -9,6 +9,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/statvfs.h>
 #include <sys/types.h>
 #include <sys/wait.h>
 #include <time.h>
@@ -23,6 +24,7 @@ extern char **environ;
 #define NOTIFY_POLL_S   0.5  /* how often the audit trail and the stations are read, s */
 #define NOTIFY_PAGE     100  /* events read at once */
 #define NOTIFY_OUT_LINE 1024 /* the longest output line logged, bytes */
+#define NOTIFY_SLOW_S   60.0 /* how often disk space and calibrations are looked at, s */
 
 struct notify_cmd {
 	http_ctx_t *ctx;
@@ -32,7 +34,22 @@ struct notify_cmd {
 	bool stopping;
 	int64_t cursor; /* the last audit-trail event looked at */
 	bool halt_pending[CFG_MAX_STATIONS];
+	double slow_at_s;                     /* clock_mono_s of the last slow look */
+	bool disk_low;                        /* told, until the space is back */
+	int64_t calib_told[CFG_MAX_STATIONS]; /* the calibration told of as expiring */
 };
+
+bool notify_cmd_disk_low(double avail_bytes, double total_bytes)
+{
+	return total_bytes > 0 && (avail_bytes < NOTIFY_DISK_LOW_FRACTION * total_bytes ||
+	                           avail_bytes < NOTIFY_DISK_LOW_BYTES);
+}
+
+bool notify_cmd_expiring(double expires_at_unix_s, double now_unix_s)
+{
+	double left_s = expires_at_unix_s - now_unix_s;
+	return expires_at_unix_s > 0 && left_s > 0 && left_s <= NOTIFY_EXPIRE_WARN_S;
+}
 
 const char *notify_cmd_event_of(const char *kind, const char *code)
 {
@@ -252,6 +269,52 @@ static void look(notify_cmd_t *nc)
 	}
 }
 
+/* Once a minute: the database's disk, and each station's calibration. */
+static void look_slow(notify_cmd_t *nc)
+{
+	const cfg_t *cfg = nc->ctx->cfg;
+	char dir[CFG_PATH_MAX], at[32], msg[400];
+	double now = clock_wall_s();
+	time_format_rfc3339(now, at);
+	snprintf(dir, sizeof dir, "%s", cfg->database);
+	char *slash = strrchr(dir, '/');
+	if (slash)
+		*(slash == dir ? slash + 1 : slash) = '\0';
+	else
+		snprintf(dir, sizeof dir, ".");
+	struct statvfs v;
+	if (statvfs(dir, &v) == 0) {
+		double avail = (double)v.f_bavail * (double)v.f_frsize;
+		double total = (double)v.f_blocks * (double)v.f_frsize;
+		bool low = notify_cmd_disk_low(avail, total);
+		if (low && !nc->disk_low) {
+			snprintf(msg, sizeof msg,
+			         "%.0f MiB left of %.0f MiB on %.200s (the database's disk)",
+			         avail / 1048576.0, total / 1048576.0, dir);
+			run_program(nc, "disk_nearly_full", at, NULL, 0, 0, "disk", msg);
+		}
+		nc->disk_low = low;
+	}
+	for (int k = 0; k < nc->ctx->n_stations && k < CFG_MAX_STATIONS; k++) {
+		const char *name = station_name(nc->ctx->stations[k]);
+		bool db_err;
+		json_t *c = store_calib_latest(nc->ctx->store, name, true, at, &db_err);
+		double exp_s = 0;
+		int64_t id = json_integer_value(json_object_get(c, "id"));
+		const char *exp = json_string_value(json_object_get(c, "expires_at"));
+		if (c && exp && time_parse_rfc3339(exp, &exp_s) &&
+		    notify_cmd_expiring(exp_s, now) && nc->calib_told[k] != id) {
+			snprintf(msg, sizeof msg,
+			         "calibration %lld of station %s expires at %s: calibrate again "
+			         "before the next pH run",
+			         (long long)id, name, exp);
+			run_program(nc, "calibration_expiring", at, name, 0, 0, "calibration", msg);
+			nc->calib_told[k] = id;
+		}
+		json_decref(c);
+	}
+}
+
 static void *notify_main(void *arg)
 {
 	notify_cmd_t *nc = arg;
@@ -260,6 +323,10 @@ static void *notify_main(void *arg)
 		bool stopping = nc->stopping;
 		pthread_mutex_unlock(&nc->lock);
 		look(nc);
+		if (clock_mono_s() - nc->slow_at_s >= NOTIFY_SLOW_S) {
+			nc->slow_at_s = clock_mono_s();
+			look_slow(nc);
+		}
 		pthread_mutex_lock(&nc->lock);
 		if (stopping)
 			break;

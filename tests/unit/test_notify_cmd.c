@@ -91,3 +91,21 @@ TEST(notify_command_events_of_the_audit_trail)
 	CHECK(!notify_cmd_event_of("method", "stored"));
 	CHECK(!notify_cmd_event_of(NULL, "failed"));
 }
+
+TEST(notify_command_disk_and_calibration_thresholds)
+{
+	const double mib = 1048576.0;
+	/* 5 % of the disk or 200 MiB, whichever is more. */
+	CHECK(!notify_cmd_disk_low(10000 * mib, 100000 * mib));
+	CHECK(notify_cmd_disk_low(4999 * mib, 100000 * mib));
+	CHECK(notify_cmd_disk_low(199 * mib, 2000 * mib)); /* 10 % but under 200 MiB */
+	CHECK(!notify_cmd_disk_low(300 * mib, 2000 * mib));
+	CHECK(!notify_cmd_disk_low(0, 0)); /* no size known: nothing to say */
+	/* Told in the last 2 h of a calibration's validity, not after it expired. */
+	const double now = 1.8e9;
+	CHECK(notify_cmd_expiring(now + 3600, now));
+	CHECK(notify_cmd_expiring(now + 7200, now));
+	CHECK(!notify_cmd_expiring(now + 7201, now));
+	CHECK(!notify_cmd_expiring(now - 1, now));
+	CHECK(!notify_cmd_expiring(0, now));
+}
