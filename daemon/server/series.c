@@ -352,19 +352,14 @@ static bool step_next_beaker(series_service_t *sv, series_t *s)
 	/* Without a changer the operator places every beaker after the first
 	 * (the first is in place when the series is started). */
 	if (!s->has_changer && !first && !s->released) {
-		char want[300];
+		char want[300], where[32] = "";
+		/* Name the rack position the work list gives, if any. */
+		if (pos > 0)
+			snprintf(where, sizeof where, ", position %d", pos);
 		snprintf(want, sizeof want,
 		         "place the beaker of sample %s (replicate %d of %d%s), then "
 		         "`stopcock series next %lld`",
-		         p->sample_id, s->cur_rep + 1, p->reps, pos > 0 ? ", position" : "",
-		         (long long)s->id);
-		if (pos > 0) {
-			/* Name the rack position the work list gives. */
-			snprintf(want, sizeof want,
-			         "place the beaker of sample %s (replicate %d of %d, position %d), "
-			         "then `stopcock series next %lld`",
-			         p->sample_id, s->cur_rep + 1, p->reps, pos, (long long)s->id);
-		}
+		         p->sample_id, s->cur_rep + 1, p->reps, where, (long long)s->id);
 		if (strcmp(want, s->prompt)) {
 			snprintf(s->prompt, sizeof s->prompt, "%s", want);
 			save(sv, s);
