@@ -20,5 +20,6 @@ int cmd_calibrate(int argc, char **argv);
 int cmd_titrants(int argc, char **argv); /* cmd_audit.c */
 int cmd_events(int argc, char **argv);
 int cmd_review(int argc, char **argv); /* cmd_records.c */
+int cmd_series(int argc, char **argv); /* cmd_series.c */
 
 #endif

@@ -10,9 +10,9 @@
 #include <stdlib.h>
 #include <string.h>
 
-static const char *const top_keys[] = {"http",        "storage",         "methods_dir", "stations",
-                                       "calibration", "standardization", "mqtt",        "records",
-                                       NULL};
+static const char *const top_keys[] = {
+    "http",   "storage", "methods_dir",    "stations",         "calibration", "standardization",
+    "mqtt",   "records", "notify_command", "notify_timeout_s", NULL};
 static const char *const records_keys[] = {"titer_required", "titer_valid_days", "blank_valid_days",
                                            "lab_name", NULL};
 /* clang-format off */
@@ -509,6 +509,34 @@ void cfg_mqtt_check_files(const cfg_t *c, diag_list_t *d)
 	}
 }
 
+/* notify_command: a program (a path; relative to this file's folder) or a
+ * list of the program and its arguments. No shell reads it. */
+static void parse_notify(cfg_t *c, const yt_node_t *n, diag_list_t *d)
+{
+	if (n->kind != YT_SEQ) {
+		if (yt_string(&c->doc, n, "notify_command", c->notify_argv[0],
+		              sizeof c->notify_argv[0], d)) {
+			get_path(c, n, "notify_command", c->notify_argv[0],
+			         sizeof c->notify_argv[0], d);
+			c->n_notify_argv = 1;
+		}
+		return;
+	}
+	if (n->n == 0 || n->n > CFG_NOTIFY_MAX_ARGS) {
+		yt_error(&c->doc, n, d,
+		         "notify_command must list the program and at most %d arguments",
+		         CFG_NOTIFY_MAX_ARGS - 1);
+		return;
+	}
+	for (size_t i = 0; i < n->n; i++) {
+		char *out = c->notify_argv[i];
+		if (!yt_string(&c->doc, n->items[i], "notify_command", out, CFG_PATH_MAX, d))
+			return;
+	}
+	get_path(c, n->items[0], "notify_command", c->notify_argv[0], CFG_PATH_MAX, d);
+	c->n_notify_argv = (int)n->n;
+}
+
 int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 {
 	const yt_node_t *root, *n;
@@ -534,6 +562,7 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 	c->titer_required = true;
 	c->titer_valid_days = 30; /* a month: common practice for 0.1 mol/L NaOH */
 	c->blank_valid_days = 7;
+	c->notify_timeout_s = CFG_NOTIFY_TIMEOUT_S;
 
 	if (yt_load_file(path, &c->doc, d))
 		return -1;
@@ -568,6 +597,11 @@ int cfg_load(const char *path, cfg_t *c, diag_list_t *d)
 			yt_double_range(&c->doc, v, "records.blank_valid_days", "days", 0.01, 3650,
 			                &c->blank_valid_days, d);
 	}
+	if ((n = yt_get(root, "notify_command")) && !yt_is_null(n))
+		parse_notify(c, n, d);
+	if ((n = yt_get(root, "notify_timeout_s")))
+		yt_double_range(&c->doc, n, "notify_timeout_s", "s", 0.1, 600.0,
+		                &c->notify_timeout_s, d);
 	c->calibration = yt_get(root, "calibration");
 	c->standardization = yt_get(root, "standardization");
 	if (!(n = yt_get(root, "stations"))) {

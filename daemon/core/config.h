@@ -20,12 +20,14 @@
 #include "diag.h"
 #include "yamltree.h"
 
-#define CFG_MAX_STATIONS 16
-#define CFG_NAME_MAX     32
-#define CFG_PATH_MAX     1024
-#define CFG_MAX_HOSTS    16  /* http.allowed_hosts entries */
-#define CFG_HOST_MAX     254 /* a DNS name, without a trailing dot */
-#define CFG_MAX_TOKENS   32
+#define CFG_MAX_STATIONS     16
+#define CFG_NAME_MAX         32
+#define CFG_PATH_MAX         1024
+#define CFG_NOTIFY_MAX_ARGS  8    /* notify_command: the program and 7 arguments */
+#define CFG_NOTIFY_TIMEOUT_S 10.0 /* notify_timeout_s default, s */
+#define CFG_MAX_HOSTS        16   /* http.allowed_hosts entries */
+#define CFG_HOST_MAX         254  /* a DNS name, without a trailing dot */
+#define CFG_MAX_TOKENS       32
 
 /* An extra dosing unit of a station: a burette driver of its own holding
  * a reagent, used by a method's add steps (docs/methods.md, "Steps"). Its
@@ -103,6 +105,12 @@ typedef struct cfg {
 	bool titer_required;
 	double titer_valid_days, blank_valid_days;
 	char lab_name[128]; /* records.lab_name: the header of a run's PDF report; "" none */
+	/* notify_command (docs/operations.md, "Alarms"): the program and its
+	 * arguments, run without a shell on events a person must see; n 0 when
+	 * none. notify_timeout_s: how long it may run before it is killed. */
+	int n_notify_argv;
+	char notify_argv[CFG_NOTIFY_MAX_ARGS][CFG_PATH_MAX];
+	double notify_timeout_s;
 	/* parsed by calib.h (calib_config_parse, standardization_config_parse); NULL: absent */
 	const yt_node_t *calibration;
 	const yt_node_t *standardization;

@@ -8,6 +8,7 @@
  */
 #include "method.h"
 #include "method_priv.h"
+#include "stats.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -101,6 +102,7 @@ void method_defaults(method_t *m)
 	m->past_endpoint_ml = 0.5;
 	m->volume_max_ml = 10.0;
 	m->time_max_s = 1800.0;
+	m->replicates = 1;
 }
 
 /* Defaults in signal units change with the signal: a 0.1 pH step is about
@@ -129,7 +131,8 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"dose_ml", "wait_min_s", "wait_max_s", "still_within", "still_for_s", "kind",
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
 		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", "rule", "u_max_pct",
-		"before", "after", "add", "doser", "ml", "wait_s", "rinse_s",
+		"before", "after", "add", "doser", "ml", "wait_s", "rinse_s", "replicates",
+		"max_rsd_pct",
 		NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
@@ -850,12 +853,38 @@ static void parse_stop(mp_ctx_t *c, const yt_node_t *root)
 	    &c->f_time_max);
 }
 
+/* replicates: {count: N, max_rsd_pct: X}: beakers per sample a series
+ * titrates and the relative SD their results may show (docs/methods.md,
+ * "Replicates"). Both keys are needed: a count without a limit would accept
+ * any spread, a limit without a count judges nothing. */
+static void parse_replicates(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"count", "max_rsd_pct", NULL};
+	method_t *m = c->m;
+	bool bad;
+	const yt_node_t *r = section(c, root, "replicates", false, keys, &bad), *n;
+	mp_field_t f;
+	if (!r)
+		return;
+	n = yt_get(r, "count");
+	if (!n)
+		missing(c, r, "count", "replicates");
+	else if (!yt_long(c->doc, n, "replicates.count", 1, STATS_MAX_N, &m->replicates, c->d))
+		m->replicates = 1;
+	if (!yt_get(r, "max_rsd_pct"))
+		missing(c, r, "max_rsd_pct", "replicates");
+	/* 50 %: beyond any spread a titration result could be accepted with. */
+	num(c, r, "max_rsd_pct", "replicates.max_rsd_pct", "%", 0.0, true, 50.0, &m->max_rsd_pct,
+	    &f);
+}
+
 static int method_from_doc(const yt_doc_t *doc, const char *name, const method_limits_t *lim,
                            method_t *m, diag_list_t *d)
 {
-	static const char *const top[] = {
-	    "method", "title",  "revision", "purpose", "titrant", "sample", "signal", "start",
-	    "dosing", "settle", "detect",   "stop",    "results", "before", "after",  NULL};
+	static const char *const top[] = {"method",     "title",  "revision", "purpose", "titrant",
+	                                  "sample",     "signal", "start",    "dosing",  "settle",
+	                                  "detect",     "stop",   "results",  "before",  "after",
+	                                  "replicates", NULL};
 	mp_ctx_t c;
 	size_t before = d ? d->n : 0;
 	diag_list_t local = DIAG_LIST_INIT;
@@ -878,6 +907,7 @@ static int method_from_doc(const yt_doc_t *doc, const char *name, const method_l
 	parse_settle(&c, doc->root);
 	parse_detect(&c, doc->root);
 	parse_stop(&c, doc->root);
+	parse_replicates(&c, doc->root);
 	check_order(&c);
 	mp_parse_steps(&c, doc->root);
 	mp_parse_results(&c, doc->root);

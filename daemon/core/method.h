@@ -135,6 +135,12 @@ typedef struct method {
 	method_step_t before[METHOD_MAX_STEPS];
 	method_step_t after[METHOD_MAX_STEPS];
 
+	/* replicates: beakers per sample in a series (1 when the key is absent)
+	 * and the largest accepted relative SD of their results, % (0: no
+	 * limit). */
+	long replicates;
+	double max_rsd_pct;
+
 	char sha256[65]; /* hex of the exact file bytes */
 } method_t;
 

@@ -197,6 +197,7 @@ json_t *record_to_json(const run_record_t *r)
 	put(o, "started_at", str_or_null(r->started_at), &ok);
 	put(o, "ended_at", str_or_null(r->ended_at), &ok);
 	put(o, "requested_by", str_or_null(r->requested_by), &ok);
+	put(o, "series", r->series_id > 0 ? json_integer(r->series_id) : json_null(), &ok);
 
 	json_t *t = json_object();
 	if (t) {

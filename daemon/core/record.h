@@ -72,6 +72,7 @@ typedef struct run_record {
 	char phase[16]; /* stirring dosing settling evaluating; "" -> null */
 	char queued_at[RECORD_TIME_MAX], started_at[RECORD_TIME_MAX], ended_at[RECORD_TIME_MAX];
 	char requested_by[64]; /* the write token's name that queued the run; "" -> null */
+	long long series_id;   /* the series that queued the run; <= 0 -> null */
 	struct {
 		char name[METHOD_TEXT_MAX];
 		double molarity; /* mol/L, nominal */

@@ -7,6 +7,7 @@
 #include <strings.h>
 
 #include "standardization.h"
+#include "stats.h"
 
 void standardization_config_defaults(standardization_config_t *c)
 {
@@ -58,21 +59,12 @@ int standardization_replicates(const double *titers, int n, double max_rsd_pct,
 			return -1;
 		}
 	}
-	/* Two passes (mean, then squared deviations): exact enough for titers
-	 * near 1, where a one-pass sum of squares would cancel badly. */
-	double sum = 0;
-	for (int i = 0; i < n; i++)
-		sum += titers[i];
-	out->mean = sum / n;
+	stats_mean_sd(titers, n, &out->mean, &out->sd);
 	if (n < 2) {
 		snprintf(out->reason, sizeof out->reason,
 		         "one replicate gives no spread: at least 2 are needed");
 		return 0;
 	}
-	double ss = 0;
-	for (int i = 0; i < n; i++)
-		ss += (titers[i] - out->mean) * (titers[i] - out->mean);
-	out->sd = sqrt(ss / (n - 1));
 	out->rsd_pct = 100.0 * out->sd / out->mean;
 	if (out->rsd_pct <= max_rsd_pct) {
 		out->accepted = true;

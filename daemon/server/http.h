@@ -20,8 +20,11 @@
 #include "station.h"
 #include "store.h"
 
+struct series_service;
+
 typedef struct http_ctx {
 	const cfg_t *cfg;
+	struct series_service *series; /* series.h; NULL until it started */
 	store_t *store;
 	station_t **stations;
 	int n_stations;

@@ -10,6 +10,7 @@
 #include <string.h>
 #include <time.h>
 
+#include "series.h"
 #include "station.h"
 #include "mqtt_pub.h"
 #include "clock.h"
@@ -21,12 +22,13 @@ static json_t *real_or_null(bool have, double v)
 	return have && isfinite(v) ? json_real(v) : json_null();
 }
 
-json_t *http_station_json(station_t *st)
+json_t *http_station_json(struct series_service *sv, station_t *st)
 {
 	station_snapshot_t s;
 	json_t *reading, *burette;
 
 	station_snapshot(st, &s);
+	json_t *series = sv ? series_on_station(sv, s.name) : NULL;
 	reading = s.has_reading ? json_pack("{s:o,s:o,s:o,s:o}", "ph", real_or_null(s.has_ph, s.ph),
 	                                    "mv", json_real(s.mv), "temperature_c",
 	                                    real_or_null(s.has_temperature, s.temperature_c),
@@ -46,19 +48,20 @@ json_t *http_station_json(station_t *st)
 	                    s.changer_lift, "moving", s.changer_moving)
 	        : json_pack("{s:n,s:n,s:n}", "position", "lift", "moving");
 	return json_pack(
-	    "{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o,s:o}", "name", s.name, "state", state,
+	    "{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o,s:o,s:o}", "name", s.name, "state", state,
 	    "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading", reading, "burette",
 	    burette, "run", s.run_id ? json_integer(s.run_id) : json_null(), "vessel_max_ml",
 	    s.vessel_max_ml, "queued", s.queued, "error",
 	    s.last_error[0] ? json_string(s.last_error) : json_null(), "held", s.held,
-	    "held_reason", s.held ? json_string(s.held_reason) : json_null(), "changer", changer);
+	    "held_reason", s.held ? json_string(s.held_reason) : json_null(), "changer", changer,
+	    "series", series ? series : json_null());
 }
 
 void http_get_stations(const http_req_t *q, http_reply_t *r)
 {
 	json_t *arr = json_array();
 	for (int i = 0; i < q->ctx->n_stations; i++)
-		json_array_append_new(arr, http_station_json(q->ctx->stations[i]));
+		json_array_append_new(arr, http_station_json(q->ctx->series, q->ctx->stations[i]));
 	http_reply_json(r, 200, json_pack("{s:o}", "stations", arr));
 }
 

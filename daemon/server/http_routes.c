@@ -50,6 +50,12 @@ static const http_route_t routes[] = {
     {"GET", "/v1/calibrations/latest", http_get_calibration_latest, HTTP_READ, NULL},
     {"GET", "/v1/calibrations/{id}", http_get_calibration, HTTP_READ, "calibration"},
     {"POST", "/v1/calibrations/{id}/next", http_post_calibration_next, HTTP_WRITE, "calibration"},
+    {"GET", "/v1/series", http_get_series_list, HTTP_READ, NULL},
+    {"POST", "/v1/series", http_post_series, HTTP_WRITE, NULL},
+    {"GET", "/v1/series/feed", http_get_series_feed, HTTP_READ, NULL},
+    {"GET", "/v1/series/{id}", http_get_series, HTTP_READ, "series"},
+    {"POST", "/v1/series/{id}/abort", http_post_series_abort, HTTP_WRITE, "series"},
+    {"POST", "/v1/series/{id}/next", http_post_series_next, HTTP_WRITE, "series"},
 };
 
 #define N_ROUTES (sizeof routes / sizeof routes[0])

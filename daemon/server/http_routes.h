@@ -59,7 +59,8 @@ void http_get_metrics(const http_req_t *q, http_reply_t *r);
 void http_get_health(const http_req_t *q, http_reply_t *r);
 void http_get_stations(const http_req_t *q, http_reply_t *r);
 /* One station as GET /v1/stations lists it (also the MQTT station topic). */
-json_t *http_station_json(station_t *st);
+struct series_service;
+json_t *http_station_json(struct series_service *sv, station_t *st);
 void http_post_halt(const http_req_t *q, http_reply_t *r);
 void http_post_resume(const http_req_t *q, http_reply_t *r);
 void http_get_methods(const http_req_t *q, http_reply_t *r);
@@ -89,5 +90,12 @@ void http_post_review(const http_req_t *q, http_reply_t *r);
 void http_post_correct(const http_req_t *q, http_reply_t *r);
 void http_post_titrant(const http_req_t *q, http_reply_t *r);
 void http_get_report(const http_req_t *q, http_reply_t *r);
+/* http_series.c */
+void http_post_series(const http_req_t *q, http_reply_t *r);
+void http_get_series(const http_req_t *q, http_reply_t *r);
+void http_get_series_list(const http_req_t *q, http_reply_t *r);
+void http_get_series_feed(const http_req_t *q, http_reply_t *r);
+void http_post_series_abort(const http_req_t *q, http_reply_t *r);
+void http_post_series_next(const http_req_t *q, http_reply_t *r);
 
 #endif

@@ -43,6 +43,7 @@ struct mqtt_pub {
 	store_t *store;
 	station_t **stations;
 	int n_stations;
+	struct series_service *series; /* for the station JSON's `series`; may be NULL */
 	char prefix[CFG_TOPIC_MAX];
 	char client_id[96];
 	pthread_t thread;
@@ -188,9 +189,9 @@ static int publish(mqtt_pub_t *p, const char *leaf, const char *payload, bool re
 
 /* The station as GET /v1/stations gives it; *key and *cmp for the change
  * tests (malloc'd). NULL on out of memory. */
-static char *station_texts(station_t *st, char **key, char **cmp)
+static char *station_texts(mqtt_pub_t *p, station_t *st, char **key, char **cmp)
 {
-	json_t *j = http_station_json(st);
+	json_t *j = http_station_json(p->series, st);
 	char *full = j ? json_dumps(j, JSON_COMPACT | JSON_REAL_PRECISION(10)) : NULL;
 	json_t *k =
 	    j ? json_pack("{s:O*,s:O*,s:O*,s:O*,s:O*,s:O*}", "state", json_object_get(j, "state"),
@@ -220,7 +221,7 @@ static void publish_stations(mqtt_pub_t *p, bool force)
 
 	for (int i = 0; i < p->n_stations; i++) {
 		station_pub_t *s = &p->st[i];
-		char *key, *cmp, *full = station_texts(p->stations[i], &key, &cmp);
+		char *key, *cmp, *full = station_texts(p, p->stations[i], &key, &cmp);
 		char leaf[64];
 		bool changed_key = !s->key || strcmp(key ? key : "", s->key);
 		bool changed = !s->full || strcmp(cmp ? cmp : "", s->full);
@@ -419,8 +420,8 @@ static void names(mqtt_pub_t *p, const cfg_mqtt_t *m)
 		         (long)getpid());
 }
 
-mqtt_pub_t *mqtt_pub_start(const cfg_t *cfg, store_t *store, station_t **stations, int n, char *err,
-                           size_t cap)
+mqtt_pub_t *mqtt_pub_start(const cfg_t *cfg, store_t *store, station_t **stations, int n,
+                           struct series_service *series, char *err, size_t cap)
 {
 	mqtt_pub_t *p = calloc(1, sizeof *p);
 
@@ -432,6 +433,7 @@ mqtt_pub_t *mqtt_pub_start(const cfg_t *cfg, store_t *store, station_t **station
 	p->store = store;
 	p->stations = stations;
 	p->n_stations = n;
+	p->series = series;
 	names(p, &cfg->mqtt);
 	mosquitto_lib_init();
 	if (pthread_create(&p->thread, NULL, publisher, p)) {

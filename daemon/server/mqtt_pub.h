@@ -27,8 +27,9 @@ typedef struct mqtt_pub mqtt_pub_t;
 /* Start the thread (cfg->mqtt.enabled). The config and stations must
  * outlive it. NULL with a message in err when the thread cannot start; a
  * broker that cannot be reached is no error (it is retried). */
-mqtt_pub_t *mqtt_pub_start(const cfg_t *cfg, store_t *store, station_t **stations, int n, char *err,
-                           size_t cap);
+struct series_service;
+mqtt_pub_t *mqtt_pub_start(const cfg_t *cfg, store_t *store, station_t **stations, int n,
+                           struct series_service *series, char *err, size_t cap);
 /* Publish `offline`, disconnect, join and free; NULL is a no-op. */
 void mqtt_pub_stop(mqtt_pub_t *p);
 

@@ -146,6 +146,7 @@ typedef struct station_job {
 	char sample_id[128];
 	char queued_at[32];
 	char requested_by[64]; /* the write token's name that queued it */
+	int64_t series_id;     /* the series that queued it, 0 when none */
 } station_job_t;
 
 /* Post a run; 0, or -1 when the queue is full. */

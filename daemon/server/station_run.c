@@ -1016,6 +1016,7 @@ void station_run_job(station_t *s, station_job_t *job)
 	r.rec.sample.amount = job->amount;
 	snprintf(r.rec.queued_at, sizeof r.rec.queued_at, "%s", job->queued_at);
 	snprintf(r.rec.requested_by, sizeof r.rec.requested_by, "%s", job->requested_by);
+	r.rec.series_id = job->series_id;
 	now_text(r.rec.started_at);
 	snprintf(r.rec.state, sizeof r.rec.state, "running");
 

@@ -25,6 +25,8 @@
 #include "mqtt_pub.h"
 #include "notify.h"
 #include "recover.h"
+#include "notify_cmd.h"
+#include "series.h"
 #include "station.h"
 #include "report.h"
 #include "standardization.h"
@@ -341,7 +343,8 @@ int main(int argc, char **argv)
 	int rc = 1, n = 0;
 	uint64_t wd_us;
 	bool stale_pending = false;
-	titer_book_t *titers = NULL; /* the replicate titers, daemon-wide */
+	titer_book_t *titers = NULL;   /* the replicate titers, daemon-wide */
+	notify_cmd_t *notifier = NULL; /* notify_command's thread, when configured */
 	double beat_s = 0, stale_try_s = 0;
 
 	sigemptyset(&set);
@@ -459,6 +462,14 @@ int main(int argc, char **argv)
 		log_warn("mqtt: could not switch the outbox %s", cfg.mqtt.enabled ? "on" : "off");
 	/* Running runs become interrupted, queued ones are queued again, and
 	 * their stations are held until an operator resumes them (recover.h). */
+	/* Alarms from here on (notify_cmd.h), so that a series cut by the last
+	 * daemon reaches a person too. */
+	notifier = notify_cmd_start(&ctx);
+	/* Series first: a series the last daemon left going ends interrupted,
+	 * and so does the run it had queued, which recover_start would queue
+	 * again otherwise (series.h). */
+	if (series_recover_start(store) < 0)
+		log_err("series: cannot mark the last daemon's series interrupted");
 	stale_pending = !recover_start(&ctx);
 	if (cfg.methods_dir[0]) {
 		diag_list_t md = DIAG_LIST_INIT;
@@ -477,8 +488,13 @@ int main(int argc, char **argv)
 		clock_gettime(CLOCK_MONOTONIC, &ts);
 		ctx.started_mono_s = (double)ts.tv_sec + ts.tv_nsec / 1e9;
 	}
+	ctx.series = series_service_start(&ctx);
+	if (!ctx.series) {
+		log_err("series: cannot start its thread");
+		goto out;
+	}
 	if (cfg.mqtt.enabled) {
-		mqtt = mqtt_pub_start(&cfg, store, stations, n, err, sizeof err);
+		mqtt = mqtt_pub_start(&cfg, store, stations, n, ctx.series, err, sizeof err);
 		if (!mqtt) {
 			log_err("mqtt: %s", err);
 			goto out;
@@ -576,16 +592,22 @@ out:
 			station_snapshot(stations[i], &s);
 			had_run[i] = s.run_id != 0;
 		}
+		/* A series goes no further once the daemon stops (series.h). */
+		series_service_stop(ctx.series);
 		for (int i = 0; i < cfg.n_stations; i++)
 			if (stations[i])
 				station_stop(stations[i]); /* no-op when not started */
 		if (ctx.store)
 			recover_note_holds(&ctx, had_run);
 	}
+	/* After the stations stopped, so their last events are sent; before
+	 * they are freed, since it reads their snapshots. */
+	notify_cmd_stop(notifier);
 	http_stop(http);
 	/* After the stations, so the runs they ended are offered to the broker. */
 	mqtt_pub_stop(mqtt);
 	report_cleanup(); /* after the last request that may draw a report */
+	series_service_free(ctx.series);
 	for (int i = 0; i < cfg.n_stations; i++)
 		station_free(stations[i]);
 	titer_book_free(titers);

@@ -224,6 +224,7 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	snprintf(job->sample_id, sizeof job->sample_id, "%s", sample_id);
 	time_format_rfc3339(clock_wall_s(), job->queued_at);
 	snprintf(job->requested_by, sizeof job->requested_by, "%s", req->requested_by);
+	job->series_id = req->series_id;
 
 	record_init(rec);
 	snprintf(rec->station, sizeof rec->station, "%s", station);
@@ -232,6 +233,7 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	rec->sample.amount = amount;
 	snprintf(rec->queued_at, sizeof rec->queued_at, "%s", job->queued_at);
 	snprintf(rec->requested_by, sizeof rec->requested_by, "%s", job->requested_by);
+	rec->series_id = req->series_id;
 	rec->titrant.titer = 1.0;
 	{
 		double titer;

@@ -31,7 +31,8 @@ typedef struct {
 	const char *sample_id;
 	double amount; /* in the method's sample unit */
 	const char *requested_by;
-	int position; /* rack position, 0 = none */
+	int position;      /* rack position, 0 = none */
+	int64_t series_id; /* the series queuing the run, 0 when none */
 } run_request_t;
 
 typedef struct {

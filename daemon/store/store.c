@@ -94,6 +94,12 @@ static const char *const migrations[] = {
      "  AND (SELECT value FROM meta WHERE key='outbox') = 'on'"
      "  BEGIN INSERT INTO outbox (kind, ref, at_s)"
      "  VALUES ('result', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"),
+    /* 6 -> 7: series (store_series.c): a work list of samples for one station,
+     * its record as JSON; seq for the finished-series feed. */
+    ("CREATE TABLE series ("
+     "  id INTEGER PRIMARY KEY AUTOINCREMENT, station TEXT NOT NULL, state TEXT NOT NULL,"
+     "  created_at TEXT NOT NULL, ended_at TEXT, seq INTEGER UNIQUE, record TEXT NOT NULL);"
+     "CREATE INDEX series_state ON series(state);"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 6 /* the number of migrations in store.c */
+#define STORE_SCHEMA_VERSION 7 /* the number of migrations in store.c */
 
 typedef struct store store_t;
 
@@ -275,5 +275,30 @@ store_status_t store_outbox_remove(store_t *s, const int64_t *ids, int n);
 long store_outbox_prune(store_t *s, long max_messages, double max_age_s, double now_s);
 /* Rows waiting and the age of the oldest, s (0 when none); 0 or -1. */
 int store_outbox_stats(store_t *s, long *count, double *oldest_age_s, double now_s);
+/* ---- series (store_series.c; docs/api.md, "Series") ----
+ *
+ * A series is one row: station, state, times and its record as JSON (the
+ * series service's business). Finishing one (any final state) gives it the
+ * next series seq in the same transaction: GET /v1/series/feed?after=SEQ sees
+ * every final series once, in order, across restarts, as the run feed does. */
+int64_t store_series_create(store_t *s, const char *station, const char *created_at,
+                            const char *record_json); /* id, or -1 */
+/* Replace the record of a series that is not final (state may be NULL). */
+store_status_t store_series_update(store_t *s, int64_t id, const char *state,
+                                   const char *record_json);
+/* Final state, ended_at, record and the next seq, in one transaction.
+ * STORE_CONFLICT when it is already final. */
+store_status_t store_series_finish(store_t *s, int64_t id, const char *state, const char *ended_at,
+                                   const char *record_json, int64_t *seq_out);
+/* The record with "seq" (null until final); NULL when unknown. */
+json_t *store_series_json(store_t *s, int64_t id, bool *db_err);
+/* Newest first, at most limit: {"series": [records]}. */
+json_t *store_series_list(store_t *s, int limit, bool *db_err);
+/* Final series with seq > after, oldest first: {"series": [records],
+ * "next_after": SEQ, "history": id}. */
+json_t *store_series_after(store_t *s, int64_t after, int limit, bool *db_err);
+/* Ids of the series still `queued` or `running`, oldest first (a JSON array
+ * of integers); NULL on error. */
+json_t *store_series_open(store_t *s);
 
 #endif

@@ -450,6 +450,32 @@ def test_every_operation_answers_as_documented(daemon):
     assert st == 409
     st, _ = do("get", "/v1/runs/{id}", "/v1/runs/999999")
     assert st == 404
+    # A series of one sample, aborted at once (docs/api.md, "Series").
+    st, _ = do("post", "/v1/series", body={"station": station, "samples": []})
+    assert st == 400
+    st, ser = do("post", "/v1/series", body={"station": station, "samples": [
+        {"sample_id": "FWC-openapi-s1", "method": "openapi-mv", "amount": 10,
+         "position": [1]}]})
+    assert st == 201, ser
+    sid = ser["id"]
+    st, _ = do("post", "/v1/series/{id}/next", f"/v1/series/{sid}/next")
+    assert st == 409, "the first beaker needs no operator"
+    st, _ = do("post", "/v1/series/{id}/abort", f"/v1/series/{sid}/abort")
+    assert st == 202
+    end = time.monotonic() + 20
+    while (one := do("get", "/v1/series/{id}", f"/v1/series/{sid}")[1])["state"] in (
+            "queued", "running"):
+        assert time.monotonic() < end, one
+        time.sleep(0.2)
+    assert one["state"] == "aborted", one
+    st, _ = do("post", "/v1/series/{id}/abort", f"/v1/series/{sid}/abort")
+    assert st == 409
+    st, _ = do("get", "/v1/series/{id}", "/v1/series/999999")
+    assert st == 404
+    st, sl = do("get", "/v1/series", "/v1/series?limit=5")
+    assert st == 200 and sl["series"][0]["id"] == sid, sl
+    st, feed = do("get", "/v1/series/feed", "/v1/series/feed?after=0")
+    assert st == 200 and [x["id"] for x in feed["series"]] == [sid], feed
     st, page = do("get", "/v1/results", "/v1/results?after=0&limit=10")
     assert st == 200
     st, ev = do("get", "/v1/events", "/v1/events?after=0&limit=50")

@@ -249,7 +249,27 @@ TEST(method_documented_defaults)
 	CHECK_NEAR(m.volume_max_ml, 20, 0);
 	CHECK_NEAR(m.time_max_s, 1800, 0);
 	CHECK_INT(m.n_results, 0);
+	CHECK_INT(m.replicates, 1);
+	CHECK_NEAR(m.max_rsd_pct, 0, 0);
 	CHECK_INT(d.n, 0);
+	diag_free(&d);
+}
+
+TEST(method_replicates_key)
+{
+	/* replicates: {count, max_rsd_pct} (docs/methods.md, "replicates"). */
+	char text[1024];
+	method_t m;
+	diag_list_t d = DIAG_LIST_INIT;
+	snprintf(text, sizeof text, "%sreplicates: {count: 3, max_rsd_pct: 0.5}\n", minimal);
+	REQUIRE(method_parse("tiny.yaml", text, strlen(text), NULL, &m, &d) == 0);
+	CHECK_INT(m.replicates, 3);
+	CHECK_NEAR(m.max_rsd_pct, 0.5, 0);
+	snprintf(text, sizeof text, "%sreplicates: {count: 21, max_rsd_pct: 0.5}\n", minimal);
+	CHECK_INT(method_parse("tiny.yaml", text, strlen(text), NULL, &m, &d), -1);
+	REQUIRE(d.n == 1);
+	CHECK_STR(d.v[0].msg, "replicates.count must be between 1 and 20 (got 21)");
+	CHECK_INT(d.v[0].line, 8);
 	diag_free(&d);
 }
 

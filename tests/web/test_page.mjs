@@ -342,6 +342,14 @@ async function main() {
 			'results at a glance');
 		await shot(page, '06-runs');
 
+		// ---- the series list (docs/bench-page.md; a series itself in tests/e2e/test_series.py) ----
+		step('series list');
+		await page.click('nav a[data-nav="series"]');
+		await page.waitForFunction(() => document.querySelector('main h1')?.textContent === 'Series');
+		check(await page.locator('main table thead th').count() === 6, 'the series table has its columns');
+		check(await page.locator('nav a[data-nav="series"][aria-current]').count() === 1,
+			'the nav marks the series view');
+
 		// ---- methods: list, one method, the editor ----
 		step('methods');
 		await page.click('nav a[data-nav="methods"]');

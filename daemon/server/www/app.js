@@ -10,6 +10,7 @@ import {stationsView} from './stations.js';
 import {runView, runsView} from './runs.js';
 import {methodsView, methodView, editorView} from './methods.js';
 import {calibrationView} from './calib.js';
+import {seriesListView, seriesView} from './series.js';
 
 const BACKOFF_MS = 3000;
 
@@ -17,6 +18,8 @@ const routes = [
 	[/^#\/stations$/, 'stations', (root) => stationsView(root)],
 	[/^#\/runs$/, 'runs', (root) => runsView(root)],
 	[/^#\/run\/(\d+)$/, 'runs', (root, m) => runView(root, Number(m[1]))],
+	[/^#\/series$/, 'series', (root) => seriesListView(root)],
+	[/^#\/series\/(\d+)$/, 'series', (root, m) => seriesView(root, Number(m[1]))],
 	[/^#\/methods$/, 'methods', (root) => methodsView(root)],
 	[/^#\/method\/([a-z0-9-]+)$/, 'methods', (root, m) => methodView(root, m[1])],
 	[/^#\/method\/([a-z0-9-]+)\/edit$/, 'methods', (root, m) => editorView(root, m[1])],

@@ -1,6 +1,7 @@
 // stations.js: every station at a glance: state, live reading and its age,
-// the burette, the sample changer (position and head), the current run, a
-// start form and the halt button.
+// the burette, the sample changer (position and head), the current run, the
+// series going on it (with what it asks of the operator), a start form and
+// the halt button.
 import {api, get, h, fmt, errorText, confirmAction} from './api.js';
 
 const STALE_S = 5; // a reading older than this is flagged (the engine halts dosing on stale ones)
@@ -41,6 +42,32 @@ function card(name, methods) {
 		'Resume');
 	const held = h('div', {class: 'held', role: 'status', hidden: true},
 		h('strong', {}, 'Held: '), heldWhy, ' ', resume);
+	// A series without a changer asks for each beaker (docs/api.md, "Series").
+	let seriesId = 0;
+	const seriesLink = h('span', {});
+	const seriesPrompt = h('span', {class: 'series-prompt'});
+	const next = h('button', {type: 'button', class: 'primary series-next'}, 'Beaker placed');
+	const stopSeries = h('button', {type: 'button', class: 'series-abort'}, 'Abort series');
+	const series = h('div', {class: 'series', role: 'status', hidden: true},
+		h('strong', {}, 'Series '), seriesLink, ' ', seriesPrompt, ' ', next, ' ', stopSeries);
+	next.addEventListener('click', async () => {
+		try {
+			await api('POST', `/v1/series/${seriesId}/next`);
+		} catch (e) {
+			err.textContent = `series not moved on: ${errorText(e)}`;
+		}
+	});
+	stopSeries.addEventListener('click', async () => {
+		if (!(await confirmAction(`Abort series ${seriesId}?`,
+			`Its current run is aborted (the burette halted) and nothing more of it is queued.`,
+			'Abort series')))
+			return;
+		try {
+			await api('POST', `/v1/series/${seriesId}/abort`);
+		} catch (e) {
+			err.textContent = `series not aborted: ${errorText(e)}`;
+		}
+	});
 	const method = h('select', {name: 'method', id: `method-${name}`, required: true});
 	const sample = h('input', {name: 'sample', id: `sample-${name}`, required: true,
 		autocomplete: 'off', placeholder: 'e.g. OLC-batch-12'});
@@ -100,7 +127,7 @@ function card(name, methods) {
 	});
 	const el = h('section', {class: 'station card', 'data-station': name,
 		'aria-label': `station ${name}`},
-	h('header', {}, h('h2', {}, name), state, phase, halt), held,
+	h('header', {}, h('h2', {}, name), state, phase, halt), held, series,
 	h('div', {class: 'readings'}, ph.el, mv.el, temp.el, age.el),
 	h('div', {class: 'burette'}, h('span', {class: 'label'}, 'burette'), bar, bur),
 	changer,
@@ -137,6 +164,12 @@ function card(name, methods) {
 				? `position ${c.position} · head ${c.lift}${c.moving ? ' · moving' : ''}`
 				: 'not answering';
 		}
+		const s = st.series;
+		series.hidden = !s;
+		seriesId = s ? s.id : 0;
+		seriesLink.replaceChildren(s ? h('a', {href: `#/series/${s.id}`}, String(s.id)) : '');
+		seriesPrompt.textContent = s ? (s.prompt ? `waits: ${s.prompt}` : s.state) : '';
+		next.hidden = !(s && s.prompt);
 	};
 	return {el, update, setMethods};
 }
