@@ -11,8 +11,8 @@
 #include <string.h>
 
 static const char *const top_keys[] = {
-    "http",   "storage", "methods_dir",    "stations",         "calibration", "standardization",
-    "mqtt",   "records", "notify_command", "notify_timeout_s", NULL};
+    "http", "storage", "methods_dir",    "stations",         "calibration", "standardization",
+    "mqtt", "records", "notify_command", "notify_timeout_s", NULL};
 static const char *const records_keys[] = {"titer_required", "titer_valid_days", "blank_valid_days",
                                            "lab_name", NULL};
 /* clang-format off */

@@ -47,14 +47,14 @@ json_t *http_station_json(struct series_service *sv, station_t *st)
 	        ? json_pack("{s:I,s:s,s:b}", "position", (json_int_t)s.changer_position, "lift",
 	                    s.changer_lift, "moving", s.changer_moving)
 	        : json_pack("{s:n,s:n,s:n}", "position", "lift", "moving");
-	return json_pack(
-	    "{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o,s:o,s:o}", "name", s.name, "state", state,
-	    "phase", s.phase[0] ? json_string(s.phase) : json_null(), "reading", reading, "burette",
-	    burette, "run", s.run_id ? json_integer(s.run_id) : json_null(), "vessel_max_ml",
-	    s.vessel_max_ml, "queued", s.queued, "error",
-	    s.last_error[0] ? json_string(s.last_error) : json_null(), "held", s.held,
-	    "held_reason", s.held ? json_string(s.held_reason) : json_null(), "changer", changer,
-	    "series", series ? series : json_null());
+	return json_pack("{s:s,s:s,s:o,s:o,s:o,s:o,s:f,s:i,s:o,s:b,s:o,s:o,s:o}", "name", s.name,
+	                 "state", state, "phase", s.phase[0] ? json_string(s.phase) : json_null(),
+	                 "reading", reading, "burette", burette, "run",
+	                 s.run_id ? json_integer(s.run_id) : json_null(), "vessel_max_ml",
+	                 s.vessel_max_ml, "queued", s.queued, "error",
+	                 s.last_error[0] ? json_string(s.last_error) : json_null(), "held", s.held,
+	                 "held_reason", s.held ? json_string(s.held_reason) : json_null(),
+	                 "changer", changer, "series", series ? series : json_null());
 }
 
 void http_get_stations(const http_req_t *q, http_reply_t *r)
