@@ -19,7 +19,7 @@ DESTDIR ?=
 CC ?= cc
 PYTHON ?= /usr/bin/python3
 BUILD ?= build
-PYTEST_WORKERS ?= 3
+PYTEST_WORKERS ?= 4
 
 PKGS := libserialport libmodbus yaml-0.1 libmicrohttpd sqlite3 jansson libsystemd nettle libcurl \
 	libmosquitto pangocairo cairo-pdf fontconfig
@@ -176,7 +176,7 @@ check-run: all san $(REL)/unit_tests
 	@echo "== end-to-end tests ($(PYTEST_WORKERS) at a time: they mostly wait on the bench's real time)"
 	@rm -f $(BUILD)/figures.txt
 	STOPCOCK_BUILD=$(abspath $(BUILD)) STOPCOCK_FIGURES=$(abspath $(BUILD))/figures.txt \
-	  $(PYTHON) -m pytest -q -p no:cacheprovider -n $(PYTEST_WORKERS) --dist loadfile tests
+	  $(PYTHON) -m pytest -q -p no:cacheprovider -n $(PYTEST_WORKERS) --dist loadfile --durations=12 tests
 	@echo "== reliability figures (docs/reliability.md)"
 	@cat $(BUILD)/figures.txt 2>/dev/null || true
 
