@@ -138,6 +138,13 @@ unset 'pids[${#pids[@]}-1]'
 exec {cal_out}<&- {cal_in}>&-
 [ "$cal_rc" -eq 0 ] || { echo "demo: the calibration was not accepted" >&2; exit 1; }
 
+# The titrant's titer, entered by hand from the bottle's certificate (docs/api.md,
+# "Titrants"); a lab that standardizes its own titrant runs a standardization
+# instead. The run record names the titer it used, with its date and reason.
+say "titer: certified NaOH 0.1 mol/L, 1.000, entered by hand"
+"$bin/stopcock" titrants set "NaOH 0.1 mol/L" --molarity 0.1000 --titer 1.000 \
+	--reason "certified titrant: certificate of the bottle in use (demo)"
+
 control load "$scenario"
 sample=ORCHARD-LANE-0412
 say "queue: cider-acidity on sample $sample, 10 mL"
