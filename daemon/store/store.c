@@ -110,6 +110,7 @@ static const char *const migrations[] = {
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
+_Static_assert(N_MIGRATIONS == STORE_SCHEMA_VERSION, "STORE_SCHEMA_VERSION counts the migrations");
 
 int store_setup_conn(sqlite3 *db)
 {

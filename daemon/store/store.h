@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 7 /* the number of migrations in store.c */
+#define STORE_SCHEMA_VERSION 8 /* the number of migrations in store.c */
 
 typedef struct store store_t;
 
