@@ -129,6 +129,25 @@ static void print_station(client_t *c, const json_t *st)
 	       client_fmt(b1, sizeof b1, client_num(rd, "ph"), 2),
 	       client_fmt(b2, sizeof b2, client_num(rd, "mv"), 1), temp, age, dispensed, syringe,
 	       runs);
+	/* The sample changer and the series, under the station's line. */
+	const json_t *ch = json_object_get(st, "changer");
+	if (json_is_object(ch)) {
+		const json_t *pos = json_object_get(ch, "position");
+		if (json_is_integer(pos))
+			printf("  changer: position %lld, head %s%s\n",
+			       (long long)json_integer_value(pos), client_str(ch, "lift", "?"),
+			       json_is_true(json_object_get(ch, "moving")) ? ", moving" : "");
+		else
+			printf("  changer: not answered yet\n");
+	}
+	const json_t *se = json_object_get(st, "series");
+	if (json_is_object(se)) {
+		const char *prompt = client_str(se, "prompt", NULL);
+		printf("  series %lld: %s%s%s\n",
+		       (long long)json_integer_value(json_object_get(se, "id")),
+		       client_str(se, "state", "?"), prompt ? ", waiting: " : "",
+		       prompt ? prompt : "");
+	}
 	/* What needs a person, under the station's line. */
 	if (json_is_true(json_object_get(bu, "halt_pending")))
 		printf("  burette not confirmed halted: %s\n",

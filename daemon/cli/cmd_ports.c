@@ -15,6 +15,7 @@
 #include <libserialport.h>
 
 #include "cmd.h"
+#include "config.h"
 #include "drv.h"
 #include "yamltree.h"
 #include "clock.h"
@@ -90,12 +91,20 @@ static int list_ports(void)
 	return 0;
 }
 
+/* A dosing unit: a burette driver of its own, under the station's `dosers:`. */
+typedef struct doser {
+	char name[CFG_NAME_MAX];
+	drv_burette_t bur;
+} doser_t;
+
 typedef struct bench {
 	drv_burette_t bur;
 	drv_probe_t probe;
 	drv_stirrer_t stir;
 	drv_changer_t changer;
 	bool has_bur, has_probe, has_stir, has_changer;
+	doser_t dosers[CFG_MAX_DOSERS];
+	int n_dosers;
 } bench_t;
 
 /* Every reply is one JSON object on one line, written by jansson: text in
@@ -191,10 +200,40 @@ static void run_command(bench_t *b, char *line)
 	drv_status_t st = DRV_OK;
 	double t0 = clock_mono_s();
 	json_t *o = NULL;
-	bool need_bur = !strcmp(word, "status") || !strcmp(word, "dose") || !strcmp(word, "halt") ||
-	                !strcmp(word, "refill") || !strcmp(word, "wait");
+	/* doser-status NAME, doser-dose NAME ML, ...: the burette's commands on
+	 * a dosing unit's own driver */
+	drv_burette_t *bur = &b->bur;
+	bool has_bur = b->has_bur;
+	const char *w = word; /* the burette command */
+	char doser[CFG_NAME_MAX] = "";
+	if (!strncmp(word, "doser-", 6)) {
+		w = word + 6;
+		n = sscanf(line, "%*s %31s %lf", doser, &arg);
+		has_bur = false;
+		for (int i = 0; i < b->n_dosers; i++)
+			if (!strcmp(b->dosers[i].name, doser)) {
+				bur = &b->dosers[i].bur;
+				has_bur = true;
+			}
+		if (!has_bur || (strcmp(w, "status") && strcmp(w, "dose") && strcmp(w, "halt") &&
+		                 strcmp(w, "refill") && strcmp(w, "wait"))) {
+			st = has_bur
+			         ? drv_fail(&e, DRV_CONFIG,
+			                    "unknown doser command (doser-status NAME, doser-wait "
+			                    "NAME [S], doser-dose NAME ML, doser-refill NAME, "
+			                    "doser-halt NAME)")
+			         : drv_fail(&e, DRV_CONFIG, "this station has no doser named '%s'",
+			                    doser);
+			o = head(word, st, t0, &e);
+			json_object_set_new(o, "doser", json_string(doser));
+			emit(o);
+			return;
+		}
+	}
+	bool need_bur = !strcmp(w, "status") || !strcmp(w, "dose") || !strcmp(w, "halt") ||
+	                !strcmp(w, "refill") || !strcmp(w, "wait");
 	bool need_changer = !strncmp(word, "changer", 7);
-	if ((need_bur && !b->has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
+	if ((need_bur && !has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
 	    (!strcmp(word, "stir") && !b->has_stir) || (need_changer && !b->has_changer)) {
 		st = drv_fail(&e, DRV_CONFIG, "this station has no such device");
 		emit(head(word, st, t0, &e));
@@ -211,11 +250,11 @@ static void run_command(bench_t *b, char *line)
 			if (r.has_temperature)
 				json_object_set_new(o, "temperature_c", num(r.temperature_c, 1e2));
 		}
-	} else if (!strcmp(word, "status") || !strcmp(word, "wait")) {
+	} else if (!strcmp(w, "status") || !strcmp(w, "wait")) {
 		drv_burette_status_t bs;
-		double limit = (!strcmp(word, "wait") && n == 2) ? arg : 0;
+		double limit = (!strcmp(w, "wait") && n == 2) ? arg : 0;
 		for (;;) {
-			st = drv_burette_status(&b->bur, &bs, &e);
+			st = drv_burette_status(bur, &bs, &e);
 			if (st != DRV_OK || !bs.moving || clock_mono_s() - t0 >= limit)
 				break;
 			sleep_s(0.05);
@@ -223,15 +262,15 @@ static void run_command(bench_t *b, char *line)
 		o = head(word, st, t0, &e);
 		if (st == DRV_OK)
 			print_burette(o, &bs);
-	} else if (!strcmp(word, "dose")) {
-		st = n == 2 ? drv_burette_dose(&b->bur, arg, &e)
-		            : drv_fail(&e, DRV_CONFIG, "dose needs a volume in mL");
+	} else if (!strcmp(w, "dose")) {
+		st = n == 2 ? drv_burette_dose(bur, arg, &e)
+		            : drv_fail(&e, DRV_CONFIG, "%s needs a volume in mL", word);
 		o = head(word, st, t0, &e);
-	} else if (!strcmp(word, "halt")) {
-		st = drv_burette_halt(&b->bur, &e);
+	} else if (!strcmp(w, "halt")) {
+		st = drv_burette_halt(bur, &e);
 		o = head(word, st, t0, &e);
-	} else if (!strcmp(word, "refill")) {
-		st = drv_burette_refill(&b->bur, &e);
+	} else if (!strcmp(w, "refill")) {
+		st = drv_burette_refill(bur, &e);
 		o = head(word, st, t0, &e);
 	} else if (!strcmp(word, "stir")) {
 		char onoff[8] = "";
@@ -268,13 +307,17 @@ static void run_command(bench_t *b, char *line)
 		o = head(word, st, t0, &e);
 	} else {
 		snprintf(extra, sizeof(extra), "%s", word);
-		st = drv_fail(&e, DRV_CONFIG,
-		              "unknown command (read, status, dose ML, wait [S], refill, halt, "
-		              "stir on [RPM], stir off, changer-status, changer-wait [S], "
-		              "changer-move N, changer-lift up|down, changer-rinse S, "
-		              "changer-waste S, changer-halt, sleep S)");
+		st = drv_fail(
+		    &e, DRV_CONFIG,
+		    "unknown command (read, status, dose ML, wait [S], refill, halt, "
+		    "stir on [RPM], stir off, changer-status, changer-wait [S], "
+		    "changer-move N, changer-lift up|down, changer-rinse S, "
+		    "changer-waste S, changer-halt, doser-status NAME, doser-wait NAME [S], "
+		    "doser-dose NAME ML, doser-refill NAME, doser-halt NAME, sleep S)");
 		o = head(extra, st, t0, &e);
 	}
+	if (doser[0])
+		json_object_set_new(o, "doser", json_string(doser));
 	emit(o);
 }
 
@@ -313,6 +356,19 @@ static int test_devices(const char *path, const char *station)
 		b.has_stir = drv_stirrer_configure(&doc, n, &b.stir, &d) == 0;
 	if ((n = yt_get(s, "changer")))
 		b.has_changer = drv_changer_configure(&doc, n, &b.changer, &d) == 0;
+	if ((n = yt_get(s, "dosers")) && !yt_is_null(n) && yt_want_map(&doc, n, "dosers", &d))
+		for (size_t i = 0; i < n->n && b.n_dosers < CFG_MAX_DOSERS; i++) {
+			const yt_node_t *u = n->items[i];
+			const yt_node_t *dn = u->kind == YT_MAP ? yt_get(u, "burette") : NULL;
+			doser_t *o = &b.dosers[b.n_dosers];
+			if (!dn) {
+				yt_error(&doc, n->keys[i], &d, "doser '%s' needs a burette",
+				         n->keys[i]->str);
+			} else if (drv_burette_configure(&doc, dn, &o->bur, &d) == 0) {
+				snprintf(o->name, sizeof o->name, "%s", n->keys[i]->str);
+				b.n_dosers++;
+			}
+		}
 	if (d.n)
 		goto out;
 	rc = 0;
@@ -351,6 +407,19 @@ static int test_devices(const char *path, const char *station)
 		}
 		emit(o);
 	}
+	for (int i = 0; i < b.n_dosers; i++) {
+		char what[CFG_NAME_MAX + 16];
+		t0 = clock_mono_s();
+		drv_status_t st = drv_burette_open(&b.dosers[i].bur, &e);
+		snprintf(what, sizeof what, "open doser %s", b.dosers[i].name);
+		json_t *o = head(what, st, t0, &e);
+		if (st == DRV_OK) {
+			drv_burette_info_t info;
+			drv_burette_info(&b.dosers[i].bur, &info);
+			json_object_set_new(o, "capacity_ml", num(info.capacity_ml, 1e4));
+		}
+		emit(o);
+	}
 	fflush(stdout);
 	char line[256];
 	while (fgets(line, sizeof(line), stdin)) {
@@ -367,6 +436,8 @@ out:
 	drv_probe_close(&b.probe);
 	drv_stirrer_close(&b.stir);
 	drv_changer_close(&b.changer);
+	for (int i = 0; i < b.n_dosers; i++)
+		drv_burette_close(&b.dosers[i].bur);
 	yt_free(&doc);
 	return rc;
 }
@@ -385,7 +456,11 @@ int cmd_ports(int argc, char **argv)
 			    "       stopcock ports --test CONFIG [--station NAME]\n"
 			    "           talk to a station's devices: commands on stdin (read, "
 			    "status,\n           dose ML, wait [S], refill, halt, stir on [RPM], "
-			    "stir off, sleep S),\n           one JSON line each on stdout\n");
+			    "stir off,\n           changer-move N, changer-lift up|down, "
+			    "changer-status, ...,\n           doser-status NAME, doser-dose NAME "
+			    "ML, "
+			    "doser-halt NAME, ...,\n           sleep S), one JSON line each on "
+			    "stdout\n");
 			return 0;
 		} else {
 			fprintf(stderr, "stopcock ports: unknown argument '%s' (try --help)\n",

@@ -244,9 +244,9 @@ static void publish_stations(mqtt_pub_t *p, bool force)
 	}
 }
 
-/* The payload of an outbox row: the run's record as GET /v1/runs/{id}, or
- * the event as GET /v1/events lists it. NULL with *gone when it no longer
- * exists, NULL alone on a database error. */
+/* The payload of an outbox row: the run's record as GET /v1/runs/{id}, the
+ * series as GET /v1/series/{id}, or the event as GET /v1/events lists it.
+ * NULL with *gone when it no longer exists, NULL alone on a database error. */
 static char *payload_of(mqtt_pub_t *p, const store_outbox_msg_t *m, bool *gone)
 {
 	bool db_err = false;
@@ -256,6 +256,8 @@ static char *payload_of(mqtt_pub_t *p, const store_outbox_msg_t *m, bool *gone)
 	*gone = false;
 	if (m->is_result) {
 		j = store_run_json(p->store, m->ref, &db_err);
+	} else if (m->is_series) {
+		j = store_series_json(p->store, m->ref, &db_err);
 	} else {
 		wrap = store_events_after(p->store, m->ref - 1, 1, &db_err);
 		json_t *e = json_array_get(json_object_get(wrap, "events"), 0);
@@ -293,7 +295,11 @@ static void feed_outbox(mqtt_pub_t *p)
 			p->last_sent_id = rows[i].id;
 			continue;
 		}
-		if (publish(p, rows[i].is_result ? "results" : "events", body, false, &mid)) {
+		if (publish(p,
+		            rows[i].is_result   ? "results"
+		            : rows[i].is_series ? "series"
+		                                : "events",
+		            body, false, &mid)) {
 			free(body);
 			return;
 		}
@@ -472,8 +478,8 @@ void mqtt_pub_metrics(mqtt_pub_t *p, store_t *store, sbuf_t *b)
 	          "# HELP stopcock_mqtt_connected 1 while the broker has accepted the connection.\n"
 	          "stopcock_mqtt_connected %d\n"
 	          "# TYPE stopcock_mqtt_outbox_messages gauge\n"
-	          "# HELP stopcock_mqtt_outbox_messages Results and events not yet acknowledged "
-	          "by the broker.\n"
+	          "# HELP stopcock_mqtt_outbox_messages Results, series and events not yet "
+	          "acknowledged by the broker.\n"
 	          "stopcock_mqtt_outbox_messages %ld\n"
 	          "# TYPE stopcock_mqtt_outbox_oldest_seconds gauge\n"
 	          "# UNIT stopcock_mqtt_outbox_oldest_seconds seconds\n"

@@ -100,9 +100,17 @@ static const char *const migrations[] = {
      "  id INTEGER PRIMARY KEY AUTOINCREMENT, station TEXT NOT NULL, state TEXT NOT NULL,"
      "  created_at TEXT NOT NULL, ended_at TEXT, seq INTEGER UNIQUE, record TEXT NOT NULL);"
      "CREATE INDEX series_state ON series(state);"),
+    /* 7 -> 8: finished series on the broker (docs/mqtt.md): the series seq
+     * adds an outbox row in its own transaction, as a run's seq does. */
+    ("CREATE TRIGGER outbox_series AFTER UPDATE OF seq ON series"
+     "  WHEN NEW.seq IS NOT NULL AND OLD.seq IS NULL"
+     "  AND (SELECT value FROM meta WHERE key='outbox') = 'on'"
+     "  BEGIN INSERT INTO outbox (kind, ref, at_s)"
+     "  VALUES ('series', NEW.id, CAST(strftime('%s','now') AS INTEGER)); END;"),
 };
 
 #define N_MIGRATIONS ((int)(sizeof migrations / sizeof migrations[0]))
+_Static_assert(N_MIGRATIONS == STORE_SCHEMA_VERSION, "STORE_SCHEMA_VERSION counts the migrations");
 
 int store_setup_conn(sqlite3 *db)
 {

@@ -26,7 +26,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define STORE_SCHEMA_VERSION 7 /* the number of migrations in store.c */
+#define STORE_SCHEMA_VERSION 8 /* the number of migrations in store.c */
 
 typedef struct store store_t;
 
@@ -255,7 +255,7 @@ json_t *store_calib_latest(store_t *s, const char *station, bool accepted_only, 
                            bool *db_err);
 
 /* ---- the MQTT outbox (docs/mqtt.md, "Outbox") ----
- * While enabled, every run that becomes final and every event gets a row,
+ * While enabled, every run or series that becomes final and every event gets a row,
  * in the same transaction (triggers of the schema); the publisher sends the
  * rows oldest first and removes each once the broker has acknowledged it. */
 
@@ -264,6 +264,7 @@ store_status_t store_outbox_enable(store_t *s, bool on);
 typedef struct store_outbox_msg {
 	int64_t id;     /* the row, rising in commit order */
 	bool is_result; /* a run's final record (ref: run id), else an event (ref: event id) */
+	bool is_series; /* a finished series (ref: series id) */
 	int64_t ref;
 } store_outbox_msg_t;
 /* Up to max rows with id > after_id, oldest first; how many, -1 on error. */

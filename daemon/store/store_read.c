@@ -601,6 +601,7 @@ int store_outbox_peek(store_t *s, int64_t after_id, store_outbox_msg_t *out, int
 		const char *kind = (const char *)sqlite3_column_text(q.st, 1);
 		out[n].id = sqlite3_column_int64(q.st, 0);
 		out[n].is_result = kind && !strcmp(kind, "result");
+		out[n].is_series = kind && !strcmp(kind, "series");
 		out[n].ref = sqlite3_column_int64(q.st, 2);
 		n++;
 	}

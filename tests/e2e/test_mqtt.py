@@ -4,7 +4,8 @@ subscribes with paho-mqtt. One simulated bench and daemon serve the module;
 the tests change the daemon's mqtt: section and restart it where they must.
 
 What is checked: a run's record on <prefix>/results equals GET /v1/runs/{id}
-and the retained station state follows the run; `offline` appears when the
+and the retained station state follows the run; a finished series on
+<prefix>/series equals GET /v1/series/{id}; `offline` appears when the
 daemon is killed; with the broker killed mid-run and restarted, or the daemon
 killed while results wait in its outbox, every result arrives, in seq order,
 none twice once repeats of (prefix, seq) are dropped; TLS with a certificate
@@ -79,6 +80,39 @@ def test_a_run_end_to_end(bench, broker):
         assert not late.of("lab/b7/results")  # results are not retained
     finally:
         late.close()
+
+
+def test_a_finished_series_is_published(bench, broker):
+    # Two beakers without a changer: the series waits before the second one
+    # until the operator says `next` (docs/api.md, "Series").
+    sub = Sub(broker, "lab/b7/series", persistent=False)
+    try:
+        bench.fresh_beaker()
+        samples = [{"sample_id": f"SER-{i}", "method": "fast-acid-mv", "amount": 10.0}
+                   for i in (1, 2)]
+        r = bench.write("POST", "/v1/series",
+                        json.dumps({"station": "sim1", "samples": samples,
+                                    "on_failure": "continue"}))
+        assert r.status == 201, r.body
+        sid = r.json()["id"]
+        deadline = time.monotonic() + 90
+        while (s := bench.get(f"/v1/series/{sid}"))["state"] in ("queued", "running"):
+            if s["waiting"]:
+                bench.fresh_beaker()
+                assert bench.write("POST", f"/v1/series/{sid}/next").status == 202
+            assert time.monotonic() < deadline, s
+            time.sleep(0.1)
+        sub.wait(lambda: sub.of("lab/b7/series"), what="the series")
+        time.sleep(0.5)  # a repeat, were there one, would be here by now
+        got = [json.loads(p) for p, _ in sub.of("lab/b7/series")]
+        # once, the very record of the HTTP API, its seq included
+        assert got == [bench.get(f"/v1/series/{sid}")], got
+        assert got[0]["seq"] is not None and got[0]["state"] == "finished", got[0]["detail"]
+        assert [len(x["runs"]) for x in got[0]["samples"]] == [1, 1]
+        sub.wait(lambda: bench.metric("stopcock_mqtt_outbox_messages") == 0,
+                 what="an empty outbox")
+    finally:
+        sub.close()
 
 
 def test_broker_killed_mid_run_loses_nothing(bench, broker):

@@ -19,11 +19,13 @@ used once each). Truths: HCl mmol/L = its molarity x 1000 (10 mL samples,
 0.1000 mol/L NaOH); ammonia 10.00 mmol/L (tests/data/rack/ammonia.yaml)."""
 import json
 import pathlib
+import subprocess
 import time
 
 import pytest
 
 import daemon_bench as db
+from common import binary
 import reliability_bench as rb
 
 RACK = db.ROOT / "tests" / "data" / "rack"
@@ -101,6 +103,11 @@ def test_rack_with_rinse_each_result_at_its_stoichiometry(bench, request):
     assert sim["spilled_ml"] == 0.0  # no titrant ever left with the head up
     st = bench.station()
     assert st["changer"] == {"position": 16, "lift": "down", "moving": False}
+    # and `stopcock status` shows it under the station's line
+    p = subprocess.run([binary("stopcock"), "status", "--url", bench.url, "--token-file",
+                        str(bench.tmp / "token")], capture_output=True, text=True, timeout=30)
+    assert p.returncode == 0, p.stderr
+    assert "\n  changer: position 16, head down\n" in p.stdout, p.stdout
 
 
 def test_ammonia_back_titration_at_a_position(bench, request):

@@ -200,6 +200,10 @@ def test_on_failure_continue_titrates_every_beaker_through_the_cli(bench, duplic
     while not (s := bench.get(f"/v1/series/{sid}"))["waiting"]:
         assert time.monotonic() < deadline and s["state"] in ("queued", "running"), s
         time.sleep(0.1)
+    # `stopcock status` shows the series under its station, with the prompt
+    p = cli(bench, "status")
+    assert p.returncode == 0, p.stderr
+    assert f"\n  series {sid}: running, waiting: {s['prompt']}\n" in p.stdout, p.stdout
     load_beaker(bench, 0.0220)
     p = cli(bench, "series", "next", sid)
     assert p.returncode == 0 and "next beaker in place" in p.stdout, p.stderr

@@ -1,7 +1,8 @@
 """stopcock-sim --rack as docs/stopcock-sim.1 describes it: a sample changer on
 its own pty over a rack of beakers, written into --config-out, checked by
 `stopcockd --check-config` and driven through `stopcock ports --test` (the
-changer-serial driver against the simulated changer); the rack file's errors
+changer-serial driver against the simulated changer, a doser's burette driver
+against its own simulated pump); the rack file's errors
 with file:line:col; and each changer fault ending in a clear error."""
 import json
 import os
@@ -19,7 +20,7 @@ SCEN = os.path.join(benchlib.ROOT, "config", "scenarios")
 
 
 def write_rack(d, text):
-    for name in ("cider-acidity.yaml", "water-alkalinity.yaml"):
+    for name in ("cider-acidity.yaml", "water-alkalinity.yaml", "whey-ammonium.yaml"):
         shutil.copy(os.path.join(SCEN, name), d / name)
     rack = d / "rack.yaml"
     rack.write_text(text)
@@ -31,11 +32,11 @@ GOOD = ("positions:\n  1: cider-acidity.yaml\n  2: water-alkalinity.yaml\n"
 
 
 class RackSim:
-    def __init__(self, d):
+    def __init__(self, d, rack_text=GOOD):
         self.dir = d
         self.config = d / "stopcockd.yaml"
         self.ctl_path = str(d / "ctl")
-        rack = write_rack(d, GOOD)
+        rack = write_rack(d, rack_text)
         self.proc = subprocess.Popen(
             [benchlib.build_bin("stopcock-sim"), "--rack", str(rack),
              "--modbus-tcp", f"127.0.0.1:{free_port()}", "--pump-link", str(d / "pump"),
@@ -82,6 +83,32 @@ def rsim(tmp_path):
     s = RackSim(tmp_path)
     yield s
     assert s.stop() == 0
+
+
+def test_ports_drive_a_doser(tmp_path):
+    # whey-ammonium's beaker names the doser `acid`: the simulator gives it
+    # a pty of its own and writes it under the station's dosers:
+    sim = RackSim(tmp_path, "positions:\n  1: whey-ammonium.yaml\nrinse: 15\npark: 16\n")
+    try:
+        opened, out = sim.ports("doser-dose acid 0.5", "doser-wait acid 20",
+                                "doser-status acid", "doser-halt acid", "doser-dose acid",
+                                "doser-status base", "doser-stir acid", "status")
+        assert opened["open doser acid"]["status"] == "ok", opened
+        assert opened["open doser acid"]["capacity_ml"] > 0
+        assert [(o["cmd"], o["status"], o.get("doser")) for o in out] == [
+            ("doser-dose", "ok", "acid"), ("doser-wait", "ok", "acid"),
+            ("doser-status", "ok", "acid"), ("doser-halt", "ok", "acid"),
+            ("doser-dose", "config", "acid"), ("doser-status", "config", "base"),
+            ("doser-stir", "config", "acid"), ("status", "ok", None)]
+        assert out[1]["moving"] is False
+        assert out[1]["dispensed_ml"] == pytest.approx(0.5, abs=1e-3)
+        assert "needs a volume" in out[4]["error"]
+        assert "no doser named 'base'" in out[5]["error"]
+        # the doser's own line moved, not the burette's
+        assert out[7]["dispensed_ml"] == 0.0
+        assert sim.state()["dosers"]["acid"]["dispensed_ml"] == pytest.approx(0.5, abs=1e-3)
+    finally:
+        assert sim.stop() == 0
 
 
 def test_rack_bench_config_and_state(rsim):
