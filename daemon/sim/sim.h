@@ -42,6 +42,7 @@ typedef enum {
 #define SIM_RACK_POSITIONS 16   /* as config/changers/sim.yaml says */
 #define SIM_MOVE_S         0.1  /* the rack's start and stop, s */
 #define SIM_MOVE_PER_POS_S 0.05 /* the rack turning past one position, s */
+#define SIM_BALANCE_SETTLE 2    /* settling replies before each stable weight */
 #define SIM_LIFT_S         0.3  /* the head going up or down, s */
 #define SIM_AIR_STEP_MV    6.0  /* largest drift of an electrode in air per measurement, mV */
 #define SIM_AIR_LIMIT_MV   400.0
