@@ -216,11 +216,8 @@ static json_t *worklist_read(const char *path, diag_list_t *d)
 				json_object_set_new(s, "method", json_string(v));
 			} else if (i == col_amount) {
 				double a;
-				if (!strcmp(v, "weigh"))
-					diag_add(d, path, row, i + 1,
-					         "amount \"weigh\" needs a balance, which "
-					         "stopcockd does "
-					         "not drive yet: give the amount as a number");
+				if (!strcmp(v, "weigh")) /* the station's balance weighs it */
+					json_object_set_new(s, "amount", json_string("weigh"));
 				else if (!parse_decimal(v, &a) || !(a > 0))
 					diag_add(d, path, row, i + 1,
 					         "amount must be a number above 0, not '%s'", v);
