@@ -463,7 +463,10 @@ static bool step_next_beaker(series_service_t *sv, series_t *s)
 	                     .amount = p->weigh ? p->weights[s->cur_rep].value_g : p->amount,
 	                     .requested_by = s->requested_by,
 	                     .position = s->has_changer ? pos : 0,
-	                     .series_id = s->id};
+	                     .series_id = s->id,
+	                     .weight_value = p->weigh ? p->weights[s->cur_rep].value : 0,
+	                     .weight_unit = p->weights[s->cur_rep].unit,
+	                     .weight_source = p->weights[s->cur_rep].source};
 	run_submit_result_t res;
 	if (run_submit(sv->ctx, &req, &res) != SUBMIT_OK) {
 		finish(sv, s, "failed", "sample %s could not be queued: %s", p->sample_id,

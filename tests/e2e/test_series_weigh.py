@@ -82,6 +82,7 @@ def test_weighed_amount_is_the_runs_amount_and_the_result_uses_it(bench):
     rec = bench.run(p["runs"][0])
     assert rec["state"] == "finished", rec
     assert rec["sample"]["amount"] == pytest.approx(WEIGHT_G)
+    assert rec["weighing"] == {"value": WEIGHT_G, "unit": "g", "source": "balance"}
     # 0.0200 mol/L in 10 mL ends near 2 mL: 2 x 0.1 x 1000 / 12.5 = 16.
     assert acid(rec) == pytest.approx(16.0, rel=0.015)
 
@@ -111,6 +112,8 @@ def test_mute_balance_waits_with_the_fault_and_takes_a_typed_weight(bench):
          "source": "typed: balance line down; weighed on the spare"}]
     rec = bench.run(s["samples"][0]["runs"][0])
     assert rec["sample"]["amount"] == pytest.approx(8.0)
+    assert rec["weighing"] == {"value": 8000, "unit": "mg",
+                               "source": "typed: balance line down; weighed on the spare"}
     assert acid(rec) == pytest.approx(25.0, rel=0.015)
     # Nothing waits for a weight any more.
     r = bench.write("POST", f"/v1/series/{sid}/weight",
