@@ -95,7 +95,8 @@ typedef struct bench {
 	drv_probe_t probe;
 	drv_stirrer_t stir;
 	drv_changer_t changer;
-	bool has_bur, has_probe, has_stir, has_changer;
+	drv_balance_t balance;
+	bool has_bur, has_probe, has_stir, has_changer, has_balance;
 } bench_t;
 
 /* Every reply is one JSON object on one line, written by jansson: text in
@@ -195,7 +196,8 @@ static void run_command(bench_t *b, char *line)
 	                !strcmp(word, "refill") || !strcmp(word, "wait");
 	bool need_changer = !strncmp(word, "changer", 7);
 	if ((need_bur && !b->has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
-	    (!strcmp(word, "stir") && !b->has_stir) || (need_changer && !b->has_changer)) {
+	    (!strcmp(word, "stir") && !b->has_stir) || (need_changer && !b->has_changer) ||
+	    (!strcmp(word, "balance-weigh") && !b->has_balance)) {
 		st = drv_fail(&e, DRV_CONFIG, "this station has no such device");
 		emit(head(word, st, t0, &e));
 		return;
@@ -262,6 +264,14 @@ static void run_command(bench_t *b, char *line)
 			else if (cs.fault) /* the device's own error: a jam, a stuck lift */
 				json_object_set_new(o, "fault", json_true());
 		}
+	} else if (!strcmp(word, "balance-weigh")) {
+		drv_weight_t w;
+		st = drv_balance_weigh(&b->balance, &w, &e);
+		o = head(word, st, t0, &e);
+		if (st == DRV_OK) {
+			json_object_set_new(o, "value", json_real(w.value));
+			json_object_set_new(o, "unit", json_string(w.unit));
+		}
 	} else if (!strcmp(word, "sleep")) {
 		if (n == 2 && arg > 0 && arg < 3600)
 			sleep_s(arg);
@@ -272,7 +282,7 @@ static void run_command(bench_t *b, char *line)
 		              "unknown command (read, status, dose ML, wait [S], refill, halt, "
 		              "stir on [RPM], stir off, changer-status, changer-wait [S], "
 		              "changer-move N, changer-lift up|down, changer-rinse S, "
-		              "changer-waste S, changer-halt, sleep S)");
+		              "changer-waste S, changer-halt, balance-weigh, sleep S)");
 		o = head(extra, st, t0, &e);
 	}
 	emit(o);
@@ -313,6 +323,8 @@ static int test_devices(const char *path, const char *station)
 		b.has_stir = drv_stirrer_configure(&doc, n, &b.stir, &d) == 0;
 	if ((n = yt_get(s, "changer")))
 		b.has_changer = drv_changer_configure(&doc, n, &b.changer, &d) == 0;
+	if ((n = yt_get(s, "balance")))
+		b.has_balance = drv_balance_configure(&doc, n, &b.balance, &d) == 0;
 	if (d.n)
 		goto out;
 	rc = 0;
@@ -351,6 +363,10 @@ static int test_devices(const char *path, const char *station)
 		}
 		emit(o);
 	}
+	if (b.has_balance) {
+		t0 = clock_mono_s();
+		emit(head("open balance", drv_balance_open(&b.balance, &e), t0, &e));
+	}
 	fflush(stdout);
 	char line[256];
 	while (fgets(line, sizeof(line), stdin)) {
@@ -367,6 +383,7 @@ out:
 	drv_probe_close(&b.probe);
 	drv_stirrer_close(&b.stir);
 	drv_changer_close(&b.changer);
+	drv_balance_close(&b.balance);
 	yt_free(&doc);
 	return rc;
 }

@@ -16,6 +16,7 @@ import time
 import pytest
 import yaml
 
+import benchlib
 import daemon_bench as db
 from common import ROOT
 
@@ -119,3 +120,18 @@ def test_mute_balance_waits_with_the_fault_and_takes_a_typed_weight(bench):
     r = bench.write("POST", f"/v1/series/{sid}/weight",
                     json.dumps({"value": 1, "unit": "g", "reason": "x"}))
     assert r.status in (404, 409), r.body
+
+
+def test_ports_test_weighs_on_the_configured_balance(bench):
+    dev = benchlib.Devices(str(bench.config))
+    try:
+        opened = dev.open(4)  # burette, probe, stirrer, balance
+        assert opened[-1]["cmd"] == "open balance" and opened[-1]["status"] == "ok", opened
+        r = dev.do("balance-weigh")
+        assert r["status"] == "ok" and r["value"] == WEIGHT_G and r["unit"] == "g", r
+        assert bench.control("fault balance-garbage") == "ok"
+        r = dev.do("balance-weigh")
+        assert r["status"] == "bad_reply" and "unreadable" in r["error"], r
+    finally:
+        assert bench.control("clear") == "ok"
+        dev.close()
