@@ -293,9 +293,11 @@ static void print_series(const json_t *s)
 	json_t *x;
 	json_array_foreach(json_object_get(s, "samples"), i, x)
 	{
+		/* "weigh": each beaker's amount comes from the balance */
+		const char *weigh = json_string_value(json_object_get(x, "amount"));
 		printf("  %s (%s, %s): runs", client_str(x, "sample_id", "?"),
 		       client_str(x, "method", "?"),
-		       client_fmt(b1, sizeof b1, client_num(x, "amount"), -1));
+		       weigh ? weigh : client_fmt(b1, sizeof b1, client_num(x, "amount"), -1));
 		size_t k;
 		json_t *r;
 		json_array_foreach(json_object_get(x, "runs"), k, r)

@@ -11,6 +11,7 @@ module:
   - a station without a balance refuses "weigh" with a clear 400.
 """
 import json
+import subprocess
 import time
 
 import pytest
@@ -18,7 +19,7 @@ import yaml
 
 import benchlib
 import daemon_bench as db
-from common import ROOT
+from common import ROOT, binary
 
 WEIGHT_G = 12.5
 METHOD_TEXT = (db.DATA / "fast-acid-rep-mv.yaml").read_text()
@@ -135,3 +136,12 @@ def test_ports_test_weighs_on_the_configured_balance(bench):
     finally:
         assert bench.control("clear") == "ok"
         dev.close()
+
+
+def test_series_show_names_weigh_as_the_amount(bench):
+    done = [s for s in bench.get("/v1/series?limit=10")["series"] if s["state"] == "finished"]
+    assert done, "the tests above finish a weighed series first"
+    p = subprocess.run([binary("stopcock"), "series", "show", str(done[0]["id"]), "--url",
+                        bench.url, "--token-file", str(bench.tmp / "token")],
+                       capture_output=True, text=True, timeout=30)
+    assert p.returncode == 0 and "(fast-acid-weighed, weigh): runs" in p.stdout, p
