@@ -411,11 +411,13 @@ static bool weigh_beaker(series_service_t *sv, series_t *s)
 	if (st == DRV_OK)
 		snprintf(e.msg, sizeof e.msg, "balance: weight %g %s is not above zero", w.value,
 		         w.unit);
+	/* Bounded so the whole prompt fits: the fault and where to type. */
 	char want[300];
 	snprintf(want, sizeof want,
-	         "weigh sample %s (replicate %d of %d): %s; asked again in %.0f s, or type the "
-	         "weight: POST /v1/series/%lld/weight",
-	         p->sample_id, rep + 1, p->reps, e.msg, SERIES_WEIGH_RETRY_S, (long long)s->id);
+	         "weigh sample %.48s (replicate %d of %d): %.90s; asked again in %d s, or type "
+	         "the weight: POST /v1/series/%lld/weight",
+	         p->sample_id, rep + 1, p->reps, e.msg, (int)SERIES_WEIGH_RETRY_S,
+	         (long long)s->id);
 	s->next_weigh_s = clock_mono_s() + SERIES_WEIGH_RETRY_S;
 	if (strcmp(want, s->prompt)) {
 		snprintf(s->prompt, sizeof s->prompt, "%s", want);
