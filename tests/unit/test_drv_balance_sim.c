@@ -185,3 +185,32 @@ TEST(drv_balance_profile_needs_text)
 	diag_free(&d);
 	yt_free(&doc);
 }
+
+/* With a rack, the pan holds the weight of the position the changer is at,
+ * else the fixed weight; the simulator's own command, no pty. */
+TEST(sim_balance_weighs_the_changer_position)
+{
+	sim_t s;
+	chem_scenario_t scen;
+	diag_list_t d = DIAG_LIST_INIT;
+	REQUIRE(scenario_parse("s.yaml", scen_text, strlen(scen_text), &scen, &d) == 0);
+	REQUIRE(sim_init(&s, &scen, 5) == 0);
+	s.balance.present = true;
+	s.balance.fixed_g = 1.0;
+	s.balance.weight_g[3] = 0.2041;
+	s.changer.present = true;
+	s.changer.pos = 3;
+	char reply[128];
+	CHECK(sim_balance_command(&s, "WEIGH", reply, sizeof reply));
+	CHECK_STR(reply, "STABLE 0.2041 g");
+	s.changer.pos = 4;
+	CHECK(sim_balance_command(&s, "WEIGH", reply, sizeof reply));
+	CHECK_STR(reply, "STABLE 1.0000 g");
+	CHECK(sim_balance_command(&s, "TARE", reply, sizeof reply));
+	CHECK_STR(reply, "FAULT 1 unknown command");
+	s.fault = SIM_FAULT_MUTE_BALANCE;
+	CHECK(!sim_balance_command(&s, "WEIGH", reply, sizeof reply));
+	s.changer.present = false; /* no rack: sim_free frees the bench's own beaker */
+	sim_free(&s);
+	diag_free(&d);
+}
