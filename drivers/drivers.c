@@ -12,11 +12,13 @@ extern const drv_burette_ops_t drv_pump_serial;
 extern const drv_probe_ops_t drv_probe_modbus;
 extern const drv_stirrer_ops_t drv_stirrer_modbus;
 extern const drv_changer_ops_t drv_changer_serial;
+extern const drv_balance_ops_t drv_balance_serial;
 
 static const drv_burette_ops_t *const burettes[] = {&drv_pump_serial, NULL};
 static const drv_probe_ops_t *const probes[] = {&drv_probe_modbus, NULL};
 static const drv_stirrer_ops_t *const stirrers[] = {&drv_stirrer_modbus, NULL};
 static const drv_changer_ops_t *const changers[] = {&drv_changer_serial, NULL};
+static const drv_balance_ops_t *const balances[] = {&drv_balance_serial, NULL};
 
 const char *drv_status_name(drv_status_t s)
 {
@@ -66,6 +68,24 @@ const drv_stirrer_ops_t *const *drv_stirrer_table(void)
 const drv_changer_ops_t *const *drv_changer_table(void)
 {
 	return changers;
+}
+
+const drv_balance_ops_t *const *drv_balance_table(void)
+{
+	return balances;
+}
+
+const drv_balance_ops_t *drv_find_balance(const char *name)
+{
+	for (size_t i = 0; balances[i]; i++)
+		if (!strcmp(balances[i]->name, name))
+			return balances[i];
+	return NULL;
+}
+
+static const char *balance_name(size_t i)
+{
+	return balances[i] ? balances[i]->name : NULL;
 }
 
 const drv_probe_ops_t *drv_find_probe(const char *name)
@@ -199,6 +219,20 @@ int drv_changer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_changer
 	if (i < 0 || changers[i]->configure(doc, cfg, &priv, d) != 0)
 		return -1;
 	out->ops = changers[i];
+	out->priv = priv;
+	return 0;
+}
+
+int drv_balance_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_balance_t *out,
+                          diag_list_t *d)
+{
+	void *priv = NULL;
+	int i;
+	memset(out, 0, sizeof(*out));
+	i = driver_index(doc, cfg, "balance", balance_name, d);
+	if (i < 0 || balances[i]->configure(doc, cfg, &priv, d) != 0)
+		return -1;
+	out->ops = balances[i];
 	out->priv = priv;
 	return 0;
 }
@@ -337,4 +371,22 @@ void drv_changer_close(drv_changer_t *c)
 	if (c->ops)
 		c->ops->close(c->priv);
 	memset(c, 0, sizeof(*c));
+}
+
+drv_status_t drv_balance_open(drv_balance_t *b, drv_err_t *err)
+{
+	return b->ops ? b->ops->open(b->priv, err) : not_configured(err);
+}
+
+drv_status_t drv_balance_weigh(drv_balance_t *b, drv_weight_t *out, drv_err_t *err)
+{
+	memset(out, 0, sizeof(*out));
+	return b->ops ? b->ops->weigh(b->priv, out, err) : not_configured(err);
+}
+
+void drv_balance_close(drv_balance_t *b)
+{
+	if (b->ops)
+		b->ops->close(b->priv);
+	memset(b, 0, sizeof(*b));
 }

@@ -169,17 +169,38 @@ typedef struct drv_changer_ops {
 	void (*close)(void *priv);
 } drv_changer_ops_t;
 
+/* ---- balance ---- */
+
+typedef struct drv_weight {
+	double value; /* in `unit` */
+	char unit[8]; /* "g", "mg" or "kg", as the balance said it */
+} drv_weight_t;
+
+typedef struct drv_balance_ops {
+	const char *name;
+	const char *summary;
+	int (*configure)(const yt_doc_t *doc, const yt_node_t *cfg, void **priv, diag_list_t *d);
+	drv_status_t (*open)(void *priv, drv_err_t *err);
+	/* Ask for a stable weight; while the balance says it has not settled,
+	 * ask again until its stable_timeout_ms. Never a weight the balance did
+	 * not say was stable. */
+	drv_status_t (*weigh)(void *priv, drv_weight_t *out, drv_err_t *err);
+	void (*close)(void *priv);
+} drv_balance_ops_t;
+
 /* ---- the table (drivers/drivers.c) ---- */
 
 const drv_probe_ops_t *drv_find_probe(const char *name);
 const drv_burette_ops_t *drv_find_burette(const char *name);
 const drv_stirrer_ops_t *drv_find_stirrer(const char *name);
 const drv_changer_ops_t *drv_find_changer(const char *name);
+const drv_balance_ops_t *drv_find_balance(const char *name);
 /* NULL-terminated lists, for help texts and docs. */
 const drv_probe_ops_t *const *drv_probe_table(void);
 const drv_burette_ops_t *const *drv_burette_table(void);
 const drv_stirrer_ops_t *const *drv_stirrer_table(void);
 const drv_changer_ops_t *const *drv_changer_table(void);
+const drv_balance_ops_t *const *drv_balance_table(void);
 
 /* ---- handles: what the daemon holds ---- */
 
@@ -203,6 +224,11 @@ typedef struct drv_changer {
 	void *priv;
 } drv_changer_t;
 
+typedef struct drv_balance {
+	const drv_balance_ops_t *ops;
+	void *priv;
+} drv_balance_t;
+
 /* Read `driver:` from the subtree `cfg`, find the driver, configure it.
  * An unknown driver name is an error at its mark listing the known ones.
  * Returns 0, or -1 with errors in d (the handle stays zeroed). */
@@ -213,6 +239,8 @@ int drv_burette_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_burette
 int drv_stirrer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_stirrer_t *out,
                           diag_list_t *d);
 int drv_changer_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_changer_t *out,
+                          diag_list_t *d);
+int drv_balance_configure(const yt_doc_t *doc, const yt_node_t *cfg, drv_balance_t *out,
                           diag_list_t *d);
 
 /* Thin wrappers over the ops; each fills err when not DRV_OK. */
@@ -241,6 +269,9 @@ drv_status_t drv_changer_pump(drv_changer_t *c, drv_changer_pump_t which, double
 drv_status_t drv_changer_status(drv_changer_t *c, drv_changer_status_t *out, drv_err_t *err);
 drv_status_t drv_changer_halt(drv_changer_t *c, drv_err_t *err);
 void drv_changer_close(drv_changer_t *c);
+drv_status_t drv_balance_open(drv_balance_t *b, drv_err_t *err);
+drv_status_t drv_balance_weigh(drv_balance_t *b, drv_weight_t *out, drv_err_t *err);
+void drv_balance_close(drv_balance_t *b);
 /* "up", "down", "between". */
 const char *drv_lift_name(drv_lift_t l);
 

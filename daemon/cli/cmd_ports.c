@@ -102,7 +102,8 @@ typedef struct bench {
 	drv_probe_t probe;
 	drv_stirrer_t stir;
 	drv_changer_t changer;
-	bool has_bur, has_probe, has_stir, has_changer;
+	drv_balance_t balance;
+	bool has_bur, has_probe, has_stir, has_changer, has_balance;
 	doser_t dosers[CFG_MAX_DOSERS];
 	int n_dosers;
 } bench_t;
@@ -234,7 +235,8 @@ static void run_command(bench_t *b, char *line)
 	                !strcmp(w, "refill") || !strcmp(w, "wait");
 	bool need_changer = !strncmp(word, "changer", 7);
 	if ((need_bur && !has_bur) || (!strcmp(word, "read") && !b->has_probe) ||
-	    (!strcmp(word, "stir") && !b->has_stir) || (need_changer && !b->has_changer)) {
+	    (!strcmp(word, "stir") && !b->has_stir) || (need_changer && !b->has_changer) ||
+	    (!strcmp(word, "balance-weigh") && !b->has_balance)) {
 		st = drv_fail(&e, DRV_CONFIG, "this station has no such device");
 		emit(head(word, st, t0, &e));
 		return;
@@ -301,6 +303,14 @@ static void run_command(bench_t *b, char *line)
 			else if (cs.fault) /* the device's own error: a jam, a stuck lift */
 				json_object_set_new(o, "fault", json_true());
 		}
+	} else if (!strcmp(word, "balance-weigh")) {
+		drv_weight_t w;
+		st = drv_balance_weigh(&b->balance, &w, &e);
+		o = head(word, st, t0, &e);
+		if (st == DRV_OK) {
+			json_object_set_new(o, "value", json_real(w.value));
+			json_object_set_new(o, "unit", json_string(w.unit));
+		}
 	} else if (!strcmp(word, "sleep")) {
 		if (n == 2 && arg > 0 && arg < 3600)
 			sleep_s(arg);
@@ -313,7 +323,8 @@ static void run_command(bench_t *b, char *line)
 		    "stir on [RPM], stir off, changer-status, changer-wait [S], "
 		    "changer-move N, changer-lift up|down, changer-rinse S, "
 		    "changer-waste S, changer-halt, doser-status NAME, doser-wait NAME [S], "
-		    "doser-dose NAME ML, doser-refill NAME, doser-halt NAME, sleep S)");
+		    "doser-dose NAME ML, doser-refill NAME, doser-halt NAME, balance-weigh, sleep "
+		    "S)");
 		o = head(extra, st, t0, &e);
 	}
 	if (doser[0])
@@ -369,6 +380,8 @@ static int test_devices(const char *path, const char *station)
 				b.n_dosers++;
 			}
 		}
+	if ((n = yt_get(s, "balance")))
+		b.has_balance = drv_balance_configure(&doc, n, &b.balance, &d) == 0;
 	if (d.n)
 		goto out;
 	rc = 0;
@@ -420,6 +433,10 @@ static int test_devices(const char *path, const char *station)
 		}
 		emit(o);
 	}
+	if (b.has_balance) {
+		t0 = clock_mono_s();
+		emit(head("open balance", drv_balance_open(&b.balance, &e), t0, &e));
+	}
 	fflush(stdout);
 	char line[256];
 	while (fgets(line, sizeof(line), stdin)) {
@@ -438,6 +455,7 @@ out:
 	drv_changer_close(&b.changer);
 	for (int i = 0; i < b.n_dosers; i++)
 		drv_burette_close(&b.dosers[i].bur);
+	drv_balance_close(&b.balance);
 	yt_free(&doc);
 	return rc;
 }
@@ -459,7 +477,8 @@ int cmd_ports(int argc, char **argv)
 			    "stir off,\n           changer-move N, changer-lift up|down, "
 			    "changer-status, ...,\n           doser-status NAME, doser-dose NAME "
 			    "ML, "
-			    "doser-halt NAME, ...,\n           sleep S), one JSON line each on "
+			    "doser-halt NAME, ..., balance-weigh,\n           sleep S), one JSON "
+			    "line each on "
 			    "stdout\n");
 			return 0;
 		} else {

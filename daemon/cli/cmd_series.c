@@ -216,11 +216,8 @@ static json_t *worklist_read(const char *path, diag_list_t *d)
 				json_object_set_new(s, "method", json_string(v));
 			} else if (i == col_amount) {
 				double a;
-				if (!strcmp(v, "weigh"))
-					diag_add(d, path, row, i + 1,
-					         "amount \"weigh\" needs a balance, which "
-					         "stopcockd does "
-					         "not drive yet: give the amount as a number");
+				if (!strcmp(v, "weigh")) /* the station's balance weighs it */
+					json_object_set_new(s, "amount", json_string("weigh"));
 				else if (!parse_decimal(v, &a) || !(a > 0))
 					diag_add(d, path, row, i + 1,
 					         "amount must be a number above 0, not '%s'", v);
@@ -296,9 +293,11 @@ static void print_series(const json_t *s)
 	json_t *x;
 	json_array_foreach(json_object_get(s, "samples"), i, x)
 	{
+		/* "weigh": each beaker's amount comes from the balance */
+		const char *weigh = json_string_value(json_object_get(x, "amount"));
 		printf("  %s (%s, %s): runs", client_str(x, "sample_id", "?"),
 		       client_str(x, "method", "?"),
-		       client_fmt(b1, sizeof b1, client_num(x, "amount"), -1));
+		       weigh ? weigh : client_fmt(b1, sizeof b1, client_num(x, "amount"), -1));
 		size_t k;
 		json_t *r;
 		json_array_foreach(json_object_get(x, "runs"), k, r)

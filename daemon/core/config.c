@@ -22,9 +22,9 @@ static const char *const http_keys[] = {
     "threads",    "allowed_hosts",  NULL};
 /* clang-format on */
 static const char *const storage_keys[] = {"database", NULL};
-static const char *const station_keys[] = {"name",    "vessel_max_ml", "read_interval_s",
-                                           "burette", "probe",         "stirrer",
-                                           "dosers",  "changer",       NULL};
+static const char *const station_keys[] = {
+    "name",    "vessel_max_ml", "read_interval_s", "burette", "probe",
+    "stirrer", "dosers",        "changer",         "balance", NULL};
 
 int cfg_parse_listen(const char *s, char *addr, size_t addr_cap, int *port)
 {
@@ -301,6 +301,12 @@ static void parse_station(cfg_t *c, const yt_node_t *s, diag_list_t *d)
 		st->changer = NULL;
 	else if (st->changer)
 		yt_want_map(&c->doc, st->changer, "changer", d);
+	/* The balance (optional) that weighs a series' samples. */
+	st->balance = yt_get(s, "balance");
+	if (st->balance && yt_is_null(st->balance))
+		st->balance = NULL;
+	else if (st->balance)
+		yt_want_map(&c->doc, st->balance, "balance", d);
 }
 
 /* ---- mqtt: (docs/mqtt.md) ---- */

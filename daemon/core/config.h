@@ -49,6 +49,7 @@ typedef struct cfg_station {
 	const yt_node_t *probe;
 	const yt_node_t *stirrer; /* NULL when absent */
 	const yt_node_t *changer; /* sample changer; NULL when absent */
+	const yt_node_t *balance; /* weighs series samples; NULL when absent */
 	int line, col;            /* of the station's entry, for messages */
 	/* dosers: the station's extra dosing units (docs/config.md) */
 	int n_dosers;

@@ -40,6 +40,15 @@ void record_init(run_record_t *r)
 	r->duration_s = NAN;
 }
 
+void record_set_weighing(run_record_t *r, double value, const char *unit, const char *source)
+{
+	if (!(value > 0))
+		return;
+	r->weighing.value = value;
+	snprintf(r->weighing.unit, sizeof r->weighing.unit, "%s", unit);
+	snprintf(r->weighing.source, sizeof r->weighing.source, "%s", source);
+}
+
 void record_set_method(run_record_t *r, const method_t *m)
 {
 	snprintf(r->method.id, sizeof r->method.id, "%s", m->id);
@@ -198,6 +207,11 @@ json_t *record_to_json(const run_record_t *r)
 	put(o, "ended_at", str_or_null(r->ended_at), &ok);
 	put(o, "requested_by", str_or_null(r->requested_by), &ok);
 	put(o, "series", r->series_id > 0 ? json_integer(r->series_id) : json_null(), &ok);
+	put(o, "weighing",
+	    r->weighing.value > 0 ? json_pack("{s:f,s:s,s:s}", "value", r->weighing.value, "unit",
+	                                      r->weighing.unit, "source", r->weighing.source)
+	                          : json_null(),
+	    &ok);
 
 	json_t *t = json_object();
 	if (t) {

@@ -73,6 +73,13 @@ typedef struct run_record {
 	char queued_at[RECORD_TIME_MAX], started_at[RECORD_TIME_MAX], ended_at[RECORD_TIME_MAX];
 	char requested_by[64]; /* the write token's name that queued the run; "" -> null */
 	long long series_id;   /* the series that queued the run; <= 0 -> null */
+	/* The sample's weight when a series weighed it (docs/api.md, "Series"):
+	 * as the balance or the operator gave it; value 0 -> null. */
+	struct {
+		double value;     /* in unit */
+		char unit[8];     /* "g", "mg" or "kg" */
+		char source[200]; /* "balance" or "typed: REASON" */
+	} weighing;
 	struct {
 		char name[METHOD_TEXT_MAX];
 		double molarity; /* mol/L, nominal */
@@ -113,6 +120,8 @@ void record_init(run_record_t *r);
 
 /* Method id/revision/sha256, titrant name and molarity, sample unit. */
 void record_set_method(run_record_t *r, const method_t *m);
+/* The sample's weight (value 0: not weighed; nothing is set). */
+void record_set_weighing(run_record_t *r, double value, const char *unit, const char *source);
 
 /* The evaluation part from an engine (running or done): endpoints, results,
  * additions, dispensed_ml, phase, and stop_reason once done. A fault that

@@ -56,6 +56,7 @@ static const http_route_t routes[] = {
     {"GET", "/v1/series/{id}", http_get_series, HTTP_READ, "series"},
     {"POST", "/v1/series/{id}/abort", http_post_series_abort, HTTP_WRITE, "series"},
     {"POST", "/v1/series/{id}/next", http_post_series_next, HTTP_WRITE, "series"},
+    {"POST", "/v1/series/{id}/weight", http_post_series_weight, HTTP_WRITE, "series"},
 };
 
 #define N_ROUTES (sizeof routes / sizeof routes[0])

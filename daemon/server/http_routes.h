@@ -97,5 +97,6 @@ void http_get_series_list(const http_req_t *q, http_reply_t *r);
 void http_get_series_feed(const http_req_t *q, http_reply_t *r);
 void http_post_series_abort(const http_req_t *q, http_reply_t *r);
 void http_post_series_next(const http_req_t *q, http_reply_t *r);
+void http_post_series_weight(const http_req_t *q, http_reply_t *r);
 
 #endif

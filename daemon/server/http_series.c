@@ -154,3 +154,36 @@ void http_post_series_next(const http_req_t *q, http_reply_t *r)
 {
 	command(q, r, true);
 }
+
+void http_post_series_weight(const http_req_t *q, http_reply_t *r)
+{
+	char err[300];
+	if (!service_up(q, r))
+		return;
+	json_error_t jerr;
+	json_t *body = q->body && q->body_len
+	                   ? json_loadb(q->body, q->body_len, JSON_REJECT_DUPLICATES, &jerr)
+	                   : NULL;
+	if (!body || !json_is_object(body)) {
+		json_decref(body);
+		http_reply_error(r, 400, "bad_request",
+		                 "the body must be JSON {\"value\",\"unit\",\"reason\"}");
+		return;
+	}
+	json_t *v = json_object_get(body, "value");
+	const char *unit = json_string_value(json_object_get(body, "unit"));
+	const char *reason = json_string_value(json_object_get(body, "reason"));
+	series_error_t e =
+	    series_weight(q->ctx->series, q->id, json_is_number(v) ? json_number_value(v) : 0, unit,
+	                  reason, err, sizeof err);
+	if (e != SERIES_OK) {
+		json_decref(body);
+		reply_error(r, e, err);
+		return;
+	}
+	http_audit(q, NULL, 0, "series", "weight", "series %lld: typed %g %s: %s", q->id,
+	           json_number_value(v), unit, reason);
+	json_decref(body);
+	http_reply_json(r, 202,
+	                json_pack("{s:I,s:s}", "id", (json_int_t)q->id, "requested", "weight"));
+}

@@ -23,6 +23,19 @@
  * takes longer, so the delay between runs stays small against it. */
 #define SERIES_POLL_S 0.2
 
+/* The weight of one beaker: from the station's balance, or typed by the
+ * operator with a reason. value_g 0: not weighed yet. */
+typedef struct {
+	double value;     /* as the balance or the operator gave it, in `unit` */
+	double value_g;   /* the same in grams: the run's amount */
+	char unit[8];     /* "g", "mg" or "kg" */
+	char source[200]; /* "balance" or "typed: REASON" */
+} weighing_t;
+
+/* Retry a balance that failed this often, s: the operator may type the
+ * weight meanwhile. */
+#define SERIES_WEIGH_RETRY_S 5.0
+
 typedef struct {
 	char sample_id[128];
 	char method[METHOD_ID_MAX];
@@ -32,6 +45,8 @@ typedef struct {
 	double max_rsd_pct;         /* the method's replicates.max_rsd_pct, 0 = no limit */
 	int n_runs;
 	int64_t runs[STATS_MAX_N];
+	bool weigh; /* amount "weigh": each beaker's weight is its amount */
+	weighing_t weights[STATS_MAX_N];
 	json_t *factors; /* the row's factors (object), or NULL */
 	json_t *stats;   /* computed once the sample is done, or NULL */
 } sample_t;
@@ -52,6 +67,9 @@ typedef struct series {
 	int64_t cur_run;         /* the run it waits for, 0 when none */
 	bool released;           /* the operator placed the next beaker */
 	bool abort_wanted, abort_sent;
+	drv_balance_t bal; /* the station's balance, configured when a row weighs */
+	bool has_balance;
+	double next_weigh_s; /* clock_mono_s of the next try after a balance fault */
 	struct series *next;
 } series_t;
 
@@ -95,11 +113,25 @@ static json_t *series_json(const series_t *s)
 				json_array_append_new(pos, json_integer(p->positions[k]));
 		for (int k = 0; k < p->n_runs; k++)
 			json_array_append_new(runs, json_integer(p->runs[k]));
+		json_t *weights = NULL;
+		if (p->weigh) {
+			weights = json_array();
+			for (int k = 0; k < p->reps; k++) {
+				const weighing_t *w = &p->weights[k];
+				json_array_append_new(
+				    weights, w->value_g > 0
+				                 ? json_pack("{s:f,s:s,s:s}", "value", w->value,
+				                             "unit", w->unit, "source", w->source)
+				                 : json_null());
+			}
+		}
 		json_array_append_new(
-		    samples, json_pack("{s:s,s:s,s:f,s:o,s:i,s:o,s:O?,s:O?}", "sample_id",
-		                       p->sample_id, "method", p->method, "amount", p->amount,
-		                       "position", pos, "replicates", p->reps, "runs", runs,
-		                       "factors", p->factors, "stats", p->stats ? p->stats : NULL));
+		    samples,
+		    json_pack("{s:s,s:s,s:o,s:o,s:i,s:o,s:O?,s:O?,s:o?}", "sample_id", p->sample_id,
+		              "method", p->method, "amount",
+		              p->weigh ? json_string("weigh") : json_real(p->amount), "position",
+		              pos, "replicates", p->reps, "runs", runs, "factors", p->factors,
+		              "stats", p->stats ? p->stats : NULL, "weights", weights));
 	}
 	return json_pack("{s:I,s:s,s:s,s:s,s:s,s:o,s:o,s:o,s:o,s:o,s:o,s:b}", "id",
 	                 (json_int_t)s->id, "station", s->station, "state", s->state, "on_failure",
@@ -136,6 +168,7 @@ static void series_free(series_t *s)
 		json_decref(s->samples[i].stats);
 	}
 	free(s->samples);
+	drv_balance_close(&s->bal);
 	free(s);
 }
 
@@ -336,6 +369,64 @@ static bool step_run_ended(series_service_t *sv, series_t *s)
 	return true;
 }
 
+static double grams(double value, const char *unit)
+{
+	return !strcmp(unit, "mg") ? value / 1000.0 : !strcmp(unit, "kg") ? value * 1000.0 : value;
+}
+
+/* Ask the balance for the current beaker's weight. Called with sv->lock
+ * held; the lock is let go while the balance answers (up to its
+ * stable_timeout_ms), so the series stays readable and abortable, and the
+ * station's thread never waits on it. Returns true with the weight kept, or
+ * false with a prompt naming the fault: the series waits, asks again after
+ * SERIES_WEIGH_RETRY_S, and takes a typed weight meanwhile. Never a made-up
+ * amount. */
+static bool weigh_beaker(series_service_t *sv, series_t *s)
+{
+	sample_t *p = &s->samples[s->cur_sample];
+	int rep = s->cur_rep;
+	if (clock_mono_s() < s->next_weigh_s)
+		return false;
+	drv_weight_t w;
+	drv_err_t e = {0};
+	pthread_mutex_unlock(&sv->lock);
+	drv_status_t st = drv_balance_open(&s->bal, &e);
+	if (st == DRV_OK)
+		st = drv_balance_weigh(&s->bal, &w, &e);
+	pthread_mutex_lock(&sv->lock);
+	weighing_t *k = &p->weights[rep];
+	if (k->value_g > 0) /* typed while the balance was asked */
+		return true;
+	if (st == DRV_OK && grams(w.value, w.unit) > 0) {
+		k->value = w.value;
+		k->value_g = grams(w.value, w.unit);
+		snprintf(k->unit, sizeof k->unit, "%s", w.unit);
+		snprintf(k->source, sizeof k->source, "balance");
+		s->prompt[0] = '\0';
+		log_info("series %lld: sample %s replicate %d weighed %.6g %s on the balance",
+		         (long long)s->id, p->sample_id, rep + 1, w.value, w.unit);
+		save(sv, s);
+		return true;
+	}
+	if (st == DRV_OK)
+		snprintf(e.msg, sizeof e.msg, "balance: weight %g %s is not above zero", w.value,
+		         w.unit);
+	/* Bounded so the whole prompt fits: the fault and where to type. */
+	char want[300];
+	snprintf(want, sizeof want,
+	         "weigh sample %.48s (replicate %d of %d): %.90s; asked again in %d s, or type "
+	         "the weight: POST /v1/series/%lld/weight",
+	         p->sample_id, rep + 1, p->reps, e.msg, (int)SERIES_WEIGH_RETRY_S,
+	         (long long)s->id);
+	s->next_weigh_s = clock_mono_s() + SERIES_WEIGH_RETRY_S;
+	if (strcmp(want, s->prompt)) {
+		snprintf(s->prompt, sizeof s->prompt, "%s", want);
+		log_warn("series %lld: %s", (long long)s->id, want);
+		save(sv, s);
+	}
+	return false;
+}
+
 static bool step_next_beaker(series_service_t *sv, series_t *s)
 {
 	if (s->abort_wanted) {
@@ -366,13 +457,18 @@ static bool step_next_beaker(series_service_t *sv, series_t *s)
 		}
 		return true;
 	}
+	if (p->weigh && !(p->weights[s->cur_rep].value_g > 0) && !weigh_beaker(sv, s))
+		return true; /* waiting for a weight: the prompt says why */
 	run_request_t req = {.station = s->station,
 	                     .method_id = p->method,
 	                     .sample_id = p->sample_id,
-	                     .amount = p->amount,
+	                     .amount = p->weigh ? p->weights[s->cur_rep].value_g : p->amount,
 	                     .requested_by = s->requested_by,
 	                     .position = s->has_changer ? pos : 0,
-	                     .series_id = s->id};
+	                     .series_id = s->id,
+	                     .weight_value = p->weigh ? p->weights[s->cur_rep].value : 0,
+	                     .weight_unit = p->weights[s->cur_rep].unit,
+	                     .weight_source = p->weights[s->cur_rep].source};
 	run_submit_result_t res;
 	if (run_submit(sv->ctx, &req, &res) != SUBMIT_OK) {
 		finish(sv, s, "failed", "sample %s could not be queued: %s", p->sample_id,
@@ -554,8 +650,8 @@ static series_error_t bad(char *err, size_t cap, series_error_t e, const char *f
 }
 
 /* One row of samples[] into p (i: its index, for messages). */
-static series_error_t parse_sample(series_service_t *sv, const json_t *row, int i, sample_t *p,
-                                   char *err, size_t cap)
+static series_error_t parse_sample(series_service_t *sv, const json_t *row, int i, bool has_balance,
+                                   sample_t *p, char *err, size_t cap)
 {
 	static const char *const keys[] = {"position", "sample_id", "method",
 	                                   "amount",   "factors",   NULL};
@@ -584,18 +680,18 @@ static series_error_t parse_sample(series_service_t *sv, const json_t *row, int 
 	if (!mid || !name_is_id(mid, METHOD_ID_MAX))
 		return bad(err, cap, SERIES_BAD_REQUEST, "samples[%d].method must be a method id",
 		           i);
-	if (json_is_string(amount) && !strcmp(json_string_value(amount), "weigh"))
-		return bad(
-		    err, cap, SERIES_BAD_REQUEST,
-		    "samples[%d].amount \"weigh\" needs a balance, which this daemon does not "
-		    "drive yet: give the amount as a number",
-		    i);
-	if (!json_is_number(amount) || !(json_number_value(amount) > 0))
+	p->weigh = json_is_string(amount) && !strcmp(json_string_value(amount), "weigh");
+	if (p->weigh && !has_balance)
 		return bad(err, cap, SERIES_BAD_REQUEST,
-		           "samples[%d].amount must be a number above 0", i);
+		           "samples[%d].amount \"weigh\" needs a balance: this station has no "
+		           "balance: in the config (docs/config.md); give the amount as a number",
+		           i);
+	if (!p->weigh && (!json_is_number(amount) || !(json_number_value(amount) > 0)))
+		return bad(err, cap, SERIES_BAD_REQUEST,
+		           "samples[%d].amount must be a number above 0, or \"weigh\"", i);
 	snprintf(p->sample_id, sizeof p->sample_id, "%s", sid);
 	snprintf(p->method, sizeof p->method, "%s", mid);
-	p->amount = json_number_value(amount);
+	p->amount = p->weigh ? 0 : json_number_value(amount);
 	json_t *f = json_object_get(row, "factors");
 	if (f) {
 		json_t *fv;
@@ -635,7 +731,8 @@ static series_error_t parse_sample(series_service_t *sv, const json_t *row, int 
 	}
 	long want = m->replicates;
 	p->max_rsd_pct = m->max_rsd_pct;
-	bool in_range = p->amount >= m->sample_min && p->amount <= m->sample_max;
+	/* A weighed amount is checked when the run is queued, like any other. */
+	bool in_range = p->weigh || (p->amount >= m->sample_min && p->amount <= m->sample_max);
 	double lo = m->sample_min, hi = m->sample_max;
 	free(m);
 	if (!in_range)
@@ -724,6 +821,14 @@ series_error_t series_submit(series_service_t *sv, const json_t *body, const cha
 	snprintf(s->requested_by, sizeof s->requested_by, "%s", actor ? actor : "");
 	s->stop_on_failure = !onf || !strcmp(json_string_value(onf), "stop");
 	s->has_changer = sc && sc->changer != NULL;
+	/* The balance was checked with the config; a handle of its own here, so
+	 * a weighing never waits on the station's thread nor it on a weighing. */
+	if (sc && sc->balance) {
+		diag_list_t d = DIAG_LIST_INIT;
+		s->has_balance =
+		    drv_balance_configure(&sv->ctx->cfg->doc, sc->balance, &s->bal, &d) == 0;
+		diag_free(&d);
+	}
 	now_text(s->created_at);
 	size_t i;
 	json_t *row;
@@ -736,7 +841,7 @@ series_error_t series_submit(series_service_t *sv, const json_t *body, const cha
 			           i);
 		}
 		s->n_samples = (int)i + 1;
-		e = parse_sample(sv, row, (int)i, &s->samples[i], err, cap);
+		e = parse_sample(sv, row, (int)i, s->has_balance, &s->samples[i], err, cap);
 		if (e != SERIES_OK) {
 			series_free(s);
 			return e;
@@ -827,6 +932,39 @@ series_error_t series_next(series_service_t *sv, int64_t id, char *err, size_t c
 		        s->state);
 	else if (s)
 		s->released = true;
+	pthread_cond_signal(&sv->wake);
+	pthread_mutex_unlock(&sv->lock);
+	return s ? e : not_active(sv, id, err, cap);
+}
+
+series_error_t series_weight(series_service_t *sv, int64_t id, double value, const char *unit,
+                             const char *reason, char *err, size_t cap)
+{
+	if (!(value > 0) || !unit ||
+	    (strcmp(unit, "g") && strcmp(unit, "mg") && strcmp(unit, "kg")))
+		return bad(err, cap, SERIES_BAD_REQUEST,
+		           "value must be a number above 0 and unit \"g\", \"mg\" or \"kg\"");
+	if (!reason || !*reason || strlen(reason) > 150 ||
+	    text_control_at(reason, strlen(reason), false) != TEXT_NONE)
+		return bad(err, cap, SERIES_BAD_REQUEST,
+		           "reason must say why the weight is typed (1 to 150 characters)");
+	series_error_t e = SERIES_OK;
+	pthread_mutex_lock(&sv->lock);
+	series_t *s = find(sv, id);
+	sample_t *p = s && s->cur_sample < s->n_samples ? &s->samples[s->cur_sample] : NULL;
+	if (s && (!p || !p->weigh || s->cur_run || p->weights[s->cur_rep].value_g > 0)) {
+		e = bad(err, cap, SERIES_CONFLICT,
+		        "series %lld is not waiting for a weight (it is %s)", (long long)id,
+		        s->state);
+	} else if (s) {
+		weighing_t *k = &p->weights[s->cur_rep];
+		k->value = value;
+		k->value_g = grams(value, unit);
+		snprintf(k->unit, sizeof k->unit, "%s", unit);
+		snprintf(k->source, sizeof k->source, "typed: %s", reason);
+		s->prompt[0] = '\0';
+		save(sv, s);
+	}
 	pthread_cond_signal(&sv->wake);
 	pthread_mutex_unlock(&sv->lock);
 	return s ? e : not_active(sv, id, err, cap);

@@ -65,5 +65,9 @@ series_error_t series_submit(series_service_t *sv, const json_t *body, const cha
 series_error_t series_abort(series_service_t *sv, int64_t id, char *err, size_t cap);
 /* The operator placed the next beaker (a station without a changer). */
 series_error_t series_next(series_service_t *sv, int64_t id, char *err, size_t cap);
+/* The operator's weight for the beaker the series waits to weigh (unit g,
+ * mg or kg), with the reason it is typed rather than weighed. */
+series_error_t series_weight(series_service_t *sv, int64_t id, double value, const char *unit,
+                             const char *reason, char *err, size_t cap);
 
 #endif

@@ -45,6 +45,12 @@ static void configure_devices(const cfg_t *c, const cfg_station_t *sc, drv_buret
 		}
 		drv_burette_close(&db);
 	}
+	/* The balance: checked here; the series service opens its own handle. */
+	if (sc->balance) {
+		drv_balance_t bal = {0};
+		drv_balance_configure(&c->doc, sc->balance, &bal, d);
+		drv_balance_close(&bal);
+	}
 	if (sc->changer) {
 		drv_changer_t ch = {0};
 		if (drv_changer_configure(&c->doc, sc->changer, &ch, d) == 0 && x) {

@@ -147,6 +147,9 @@ typedef struct station_job {
 	char queued_at[32];
 	char requested_by[64]; /* the write token's name that queued it */
 	int64_t series_id;     /* the series that queued it, 0 when none */
+	double weight_value;   /* the weighed amount as given, in weight_unit; 0: not weighed */
+	char weight_unit[8];
+	char weight_source[200]; /* "balance" or "typed: REASON" */
 } station_job_t;
 
 /* Post a run; 0, or -1 when the queue is full. */

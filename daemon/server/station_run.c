@@ -1017,6 +1017,7 @@ void station_run_job(station_t *s, station_job_t *job)
 	snprintf(r.rec.queued_at, sizeof r.rec.queued_at, "%s", job->queued_at);
 	snprintf(r.rec.requested_by, sizeof r.rec.requested_by, "%s", job->requested_by);
 	r.rec.series_id = job->series_id;
+	record_set_weighing(&r.rec, job->weight_value, job->weight_unit, job->weight_source);
 	now_text(r.rec.started_at);
 	snprintf(r.rec.state, sizeof r.rec.state, "running");
 

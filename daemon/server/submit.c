@@ -225,6 +225,11 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	time_format_rfc3339(clock_wall_s(), job->queued_at);
 	snprintf(job->requested_by, sizeof job->requested_by, "%s", req->requested_by);
 	job->series_id = req->series_id;
+	if (req->weight_value > 0 && req->weight_unit && req->weight_source) {
+		job->weight_value = req->weight_value;
+		snprintf(job->weight_unit, sizeof job->weight_unit, "%s", req->weight_unit);
+		snprintf(job->weight_source, sizeof job->weight_source, "%s", req->weight_source);
+	}
 
 	record_init(rec);
 	snprintf(rec->station, sizeof rec->station, "%s", station);
@@ -234,6 +239,7 @@ submit_error_t run_submit(http_ctx_t *ctx, const run_request_t *req, run_submit_
 	snprintf(rec->queued_at, sizeof rec->queued_at, "%s", job->queued_at);
 	snprintf(rec->requested_by, sizeof rec->requested_by, "%s", job->requested_by);
 	rec->series_id = req->series_id;
+	record_set_weighing(rec, job->weight_value, job->weight_unit, job->weight_source);
 	rec->titrant.titer = 1.0;
 	{
 		double titer;

@@ -33,6 +33,10 @@ typedef struct {
 	const char *requested_by;
 	int position;      /* rack position, 0 = none */
 	int64_t series_id; /* the series queuing the run, 0 when none */
+	/* A weighed amount as the balance or the operator gave it (amount holds
+	 * it in grams); weight_value 0: not weighed. */
+	double weight_value;
+	const char *weight_unit, *weight_source;
 } run_request_t;
 
 typedef struct {

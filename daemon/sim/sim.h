@@ -31,6 +31,8 @@ typedef enum {
 	SIM_FAULT_JAM,              /* the rack stops where it is; the changer reports an error */
 	SIM_FAULT_STUCK_LIFT,       /* the lift stops part way; the changer reports an error */
 	SIM_FAULT_MUTE_CHANGER,     /* the changer reads but never answers */
+	SIM_FAULT_MUTE_BALANCE,     /* the balance reads but never answers */
+	SIM_FAULT_BALANCE_GARBAGE,  /* the balance answers every question with garbage */
 	SIM_FAULT_COUNT
 } sim_fault_t;
 
@@ -40,6 +42,7 @@ typedef enum {
 #define SIM_RACK_POSITIONS 16   /* as config/changers/sim.yaml says */
 #define SIM_MOVE_S         0.1  /* the rack's start and stop, s */
 #define SIM_MOVE_PER_POS_S 0.05 /* the rack turning past one position, s */
+#define SIM_BALANCE_SETTLE 2    /* settling replies before each stable weight */
 #define SIM_LIFT_S         0.3  /* the head going up or down, s */
 #define SIM_AIR_STEP_MV    6.0  /* largest drift of an electrode in air per measurement, mV */
 #define SIM_AIR_LIMIT_MV   400.0
@@ -82,8 +85,21 @@ typedef struct sim_rack {
 	chem_scenario_t *scen[SIM_RACK_POSITIONS + 1]; /* by position; NULL: no beaker */
 	char file[SIM_RACK_POSITIONS + 1][256];        /* as the rack file names it */
 	long rinse, park;
-	long first; /* the lowest position holding a beaker */
+	long first;                              /* the lowest position holding a beaker */
+	double weight_g[SIM_RACK_POSITIONS + 1]; /* `weights:` by position, g; 0: none */
 } sim_rack_t;
+
+/* The balance (config/balances/sim.yaml's protocol): on the pan is the
+ * sample of the position the changer is at when the rack file gives it a
+ * weight, else fixed_g. Each weight is first reported settling `settle`
+ * times, as a pan still swinging. */
+typedef struct sim_balance {
+	bool present;
+	double fixed_g;
+	double weight_g[SIM_RACK_POSITIONS + 1]; /* by position, g; 0: none */
+	int settle;                              /* settling replies before each stable weight */
+	int settle_left;                         /* of the weighing in progress */
+} sim_balance_t;
 
 typedef struct sim_changer {
 	bool present;
@@ -124,6 +140,7 @@ typedef struct sim {
 	chem_scenario_t scen;
 	sim_pump_t pump;
 	sim_changer_t changer; /* .present only with a rack */
+	sim_balance_t balance; /* .present only with a balance link */
 	int n_dosers;
 	sim_doser_t dosers[SIM_MAX_DOSERS];
 	uint16_t regs[SIM_NREGS];
@@ -140,6 +157,7 @@ typedef struct sim {
 	/* links */
 	char pump_link[512];
 	char changer_link[512];
+	char balance_link[512];
 	char rtu_link[512];
 	char tcp_host[64];
 	int tcp_port;
@@ -176,12 +194,17 @@ bool sim_changer_command(sim_t *s, const char *line, char *reply, size_t cap);
 /* Advance the changer to now (from sim_tick). */
 void sim_changer_tick(sim_t *s, double dt_s);
 
+/* One balance command line -> reply; false when there is no reply (mute).
+ * Caller holds s->mu. */
+bool sim_balance_command(sim_t *s, const char *line, char *reply, size_t cap);
+
 /* The control socket's command -> one reply line (no newline). Takes s->mu. */
 void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap);
 
 /* Threads (arg: sim_t *). Each returns when s->stop is set. */
 void *sim_pump_thread(void *arg);
 void *sim_changer_thread(void *arg);
+void *sim_balance_thread(void *arg);
 void *sim_doser_thread(void *arg); /* arg: sim_doser_t * */
 
 /* The dosers the rack's scenarios name (the first scenario naming one gives

@@ -17,7 +17,7 @@
 #include "scenario.h"
 #include "sim.h"
 
-static const char *const rack_keys[] = {"positions", "rinse", "park", NULL};
+static const char *const rack_keys[] = {"positions", "rinse", "park", "weights", NULL};
 
 void sim_rack_free(sim_rack_t *r)
 {
@@ -118,6 +118,27 @@ int sim_rack_parse(const yt_doc_t *doc, sim_rack_t *r, diag_list_t *d)
 			         *dst[k], r->file[*dst[k]]);
 			ok = false;
 		}
+	}
+	/* The sample weighed into each beaker, g: what the balance reports. */
+	const yt_node_t *w = yt_get(root, "weights");
+	if (w && !yt_want_map(doc, w, "weights", d))
+		ok = false;
+	for (size_t i = 0; w && w->kind == YT_MAP && i < w->n; i++) {
+		long p;
+		double g;
+		if (!position_of(doc, w->keys[i], "a position", &p, d)) {
+			ok = false;
+			continue;
+		}
+		const yt_node_t *v = w->items[i];
+		if (v->kind != YT_SCALAR || !v->plain || !parse_decimal(v->str, &g) || !(g > 0) ||
+		    g > 1000) {
+			yt_error(doc, v, d, "weights: position %ld wants grams above 0 (got %s)", p,
+			         v->kind == YT_SCALAR ? v->str : "a list or map");
+			ok = false;
+			continue;
+		}
+		r->weight_g[p] = g;
 	}
 	if (r->rinse && r->rinse == r->park) {
 		yt_error(doc, yt_get(root, "park"), d,

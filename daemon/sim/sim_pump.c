@@ -19,8 +19,9 @@
 #include "clock.h"
 
 static const char *const fault_names[SIM_FAULT_COUNT] = {
-    NULL,    "noise",        "mute-pump", "mute-probe", "slow-probe", "modbus-exception",
-    "stall", "frozen-probe", "unplug",    "jam",        "stuck-lift", "mute-changer"};
+    NULL,           "noise",          "mute-pump", "mute-probe", "slow-probe", "modbus-exception",
+    "stall",        "frozen-probe",   "unplug",    "jam",        "stuck-lift", "mute-changer",
+    "mute-balance", "balance-garbage"};
 
 const char *sim_fault_name(sim_fault_t f)
 {
@@ -489,6 +490,19 @@ void *sim_changer_thread(void *arg)
 {
 	sim_t *s = arg;
 	serve_pty(s, s->changer_link, "changer", changer_line, -1, false);
+	return NULL;
+}
+
+static bool balance_line(sim_t *s, int unit, const char *line, char *reply, size_t cap)
+{
+	(void)unit;
+	return sim_balance_command(s, line, reply, cap);
+}
+
+void *sim_balance_thread(void *arg)
+{
+	sim_t *s = arg;
+	serve_pty(s, s->balance_link, "balance", balance_line, -1, false);
 	return NULL;
 }
 

@@ -33,6 +33,7 @@ typedef struct opts {
 	const char *rack, *changer_link;
 	const char *listen;
 	unsigned long long seed;
+	double balance_g; /* --balance-weight: the weight on the pan, g; 0: none */
 } opts_t;
 
 static void usage(FILE *f)
@@ -50,6 +51,9 @@ static void usage(FILE *f)
 	       "      --rack FILE         a rack of beakers (YAML) on a simulated sample changer\n"
 	       "      --changer-link PATH symlink created to the changer's pseudo-terminal\n"
 	       "                          (default: the pump link with \".changer\" added)\n"
+	       "      --balance-weight G  a balance on its own pty (the pump link with\n"
+	       "                          \".balance\" added) weighing G grams; a rack file's\n"
+	       "                          weights: put one on the bench too\n"
 	       "      --modbus-tcp H:P    address of the simulated transmitter (Modbus TCP)\n"
 	       "      --pump-link PATH    symlink created to the burette's pseudo-terminal\n"
 	       "      --rtu-link PATH     symlink created to a Modbus RTU pseudo-terminal\n"
@@ -79,6 +83,7 @@ static int parse_args(int argc, char **argv, opts_t *o)
 	    {"listen", required_argument, NULL, 'l'},
 	    {"rack", required_argument, NULL, 'R'},
 	    {"changer-link", required_argument, NULL, 'C'},
+	    {"balance-weight", required_argument, NULL, 'B'},
 	    {"version", no_argument, NULL, 'V'},
 	    {"help", no_argument, NULL, 'h'},
 	    {NULL, 0, NULL, 0},
@@ -117,6 +122,16 @@ static int parse_args(int argc, char **argv, opts_t *o)
 			break;
 		case 'C':
 			o->changer_link = optarg;
+			break;
+		case 'B':
+			if (!parse_decimal(optarg, &o->balance_g) || !(o->balance_g > 0) ||
+			    o->balance_g > 1000) {
+				fprintf(stderr,
+				        "stopcock-sim: --balance-weight wants grams above 0 and at "
+				        "most 1000 (got %s)\n",
+				        optarg);
+				return -1;
+			}
 			break;
 		case 'S': {
 			long long seed;
@@ -224,6 +239,16 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	         cfg_abs);
 	if (write_token(token) != 0)
 		return -1;
+	char balance[PATH_MAX * 2 + 256] = "";
+	if (s->balance.present)
+		snprintf(balance, sizeof(balance),
+		         "    balance:\n"
+		         "      driver: balance-serial\n"
+		         "      port: %s\n"
+		         "      timeout_ms: 500\n"
+		         "      stable_timeout_ms: 5000\n"
+		         "      profile: %s/balances/sim.yaml\n",
+		         s->balance_link, data);
 	char changer[PATH_MAX * 2 + 256] = "", places[64] = "";
 	if (s->changer.rinse)
 		snprintf(places, sizeof(places), "      rinse: %ld\n", s->changer.rinse);
@@ -305,11 +330,11 @@ static int write_config(const opts_t *o, const sim_t *s, const char *pump_abs)
 	    "      coil: %d\n"
 	    "      speed_register: %d\n"
 	    "      rpm: 300\n"
-	    "%s%s",
+	    "%s%s%s",
 	    cfg_abs, o->listen ? o->listen : "127.0.0.1:8470", token, dir_abs, data, pump_abs, data,
 	    s->scen.burette.capacity_ml, s->scen.burette.steps, s->tcp_host, s->tcp_port,
 	    SIM_REG_MV, SIM_REG_TEMP, SIM_REG_STATUS, SIM_REG_COUNTER, s->tcp_host, s->tcp_port,
-	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM, changer, dosers);
+	    SIM_COIL_STIRRER, SIM_HOLD_STIR_RPM, changer, dosers, balance);
 	return fclose(f) == 0 ? 0 : -1;
 }
 
@@ -446,6 +471,15 @@ int main(int argc, char **argv)
 	snprintf(s.pump_link, sizeof(s.pump_link), "%s", pump_abs);
 	if (o.rack) /* a doser per name in the rack's scenarios, beside the pump */
 		sim_dosers_attach(&s, &rack, pump_abs);
+	/* The balance: with --balance-weight, or a rack file that weighs. */
+	s.balance.fixed_g = o.balance_g;
+	s.balance.present = o.balance_g > 0;
+	for (int i = 1; i <= SIM_RACK_POSITIONS; i++) {
+		s.balance.weight_g[i] = rack.weight_g[i];
+		s.balance.present = s.balance.present || rack.weight_g[i] > 0;
+	}
+	s.balance.settle = s.balance.settle_left = SIM_BALANCE_SETTLE;
+	snprintf(s.balance_link, sizeof(s.balance_link), "%s.balance", pump_abs);
 	sim_rack_free(&rack);
 	/* Open every fd early (libmodbus uses select: fds must stay < 1024). */
 	s.tcp_listen_fd = sim_tcp_listen(s.tcp_host, want_port, &s.tcp_port);
@@ -469,7 +503,7 @@ int main(int argc, char **argv)
 	pthread_sigmask(SIG_BLOCK, &set, NULL);
 	signal(SIGPIPE, SIG_IGN);
 
-	pthread_t th[5 + SIM_MAX_DOSERS];
+	pthread_t th[6 + SIM_MAX_DOSERS];
 	int nth = 0;
 	sim_control_arg_t ca = {&s, ctl_fd};
 	pthread_create(&th[nth++], NULL, sim_pump_thread, &s);
@@ -478,6 +512,8 @@ int main(int argc, char **argv)
 		pthread_create(&th[nth++], NULL, sim_rtu_thread, &s);
 	if (o.rack)
 		pthread_create(&th[nth++], NULL, sim_changer_thread, &s);
+	if (s.balance.present)
+		pthread_create(&th[nth++], NULL, sim_balance_thread, &s);
 	for (int i = 0; i < s.n_dosers; i++)
 		pthread_create(&th[nth++], NULL, sim_doser_thread, &s.dosers[i]);
 	if (ctl_fd >= 0)

@@ -36,7 +36,7 @@ class Reply:
 class Bench:
     """stopcock-sim + stopcockd on free ports in a temporary directory."""
 
-    def __init__(self, tmp, scenario=SCENARIO, extra_config="", rack=None):
+    def __init__(self, tmp, scenario=SCENARIO, extra_config="", rack=None, sim_args=()):
         self.tmp = pathlib.Path(tmp)
         self.port = free_port()
         self.url = f"http://127.0.0.1:{self.port}"
@@ -51,7 +51,8 @@ class Bench:
              *(["--rack", str(rack)] if rack else ["--scenario", str(scenario)]), "--modbus-tcp",
              f"127.0.0.1:{free_port()}", "--pump-link", str(self.tmp / "pump"),
              "--control", str(self.ctl), "--config-out", str(self.config),
-             "--state-dir", str(self.tmp / "state"), "--listen", f"127.0.0.1:{self.port}"],
+             "--state-dir", str(self.tmp / "state"), "--listen", f"127.0.0.1:{self.port}",
+             *sim_args],
             stdout=subprocess.PIPE, stderr=self.sim_log, text=True)
         line = self.sim.stdout.readline().strip()
         assert line == "ready", f"stopcock-sim printed {line!r}; see {self.tmp}/sim.log"

@@ -460,6 +460,10 @@ def test_every_operation_answers_as_documented(daemon):
     sid = ser["id"]
     st, _ = do("post", "/v1/series/{id}/next", f"/v1/series/{sid}/next")
     assert st == 409, "the first beaker needs no operator"
+    # The row has a number as its amount: no weight to type.
+    st, _ = do("post", "/v1/series/{id}/weight", f"/v1/series/{sid}/weight",
+               body={"value": 10.0, "unit": "g", "reason": "openapi"})
+    assert st == 409
     st, _ = do("post", "/v1/series/{id}/abort", f"/v1/series/{sid}/abort")
     assert st == 202
     end = time.monotonic() + 20

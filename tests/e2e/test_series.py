@@ -241,8 +241,6 @@ def test_work_list_errors_are_file_row_column_and_nothing_is_sent(bench):
         "factor:NAME)",
         f"{wl}:2:3: amount must be a number above 0, not 'ten'",
         f"{wl}:2:4: position 'x' is not a whole number 1 to 999",
-        f"{wl}:3:3: amount \"weigh\" needs a balance, which stopcockd does not drive yet: "
-        "give the amount as a number",
         f"{wl}:4:4: the row has 3 fields, the header 5",
     ], p.stderr
     wl.write_text("sample_id,method\n")
@@ -253,6 +251,10 @@ def test_work_list_errors_are_file_row_column_and_nothing_is_sent(bench):
     wl.write_text("sample_id,method,amount,position\nA-1,fast-acid-rep-mv,10,1\n")
     p = cli(bench, "series", "start", "--station", "sim1", wl)
     assert p.returncode == 1 and "asks for 2 replicates" in p.stderr, p.stderr
+    # "weigh" passes the file; this bench's station has no balance to weigh with.
+    wl.write_text("sample_id,method,amount,position\nA-1,fast-acid-rep-mv,weigh,1;2\n")
+    p = cli(bench, "series", "start", "--station", "sim1", wl)
+    assert p.returncode == 1 and "this station has no balance:" in p.stderr, p.stderr
     assert bench.get("/v1/series?limit=1000")["series"] == before
 
 

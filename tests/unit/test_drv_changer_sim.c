@@ -287,6 +287,16 @@ TEST(sim_rack_file)
 	CHECK_INT(r.first, 1);
 	CHECK_INT(r.rinse, 15);
 	CHECK_INT(r.park, 16);
+	CHECK(r.weight_g[1] == 0); /* no weights: key, no weight */
+	sim_rack_free(&r);
+	yt_free(&doc);
+	const char *weighed =
+	    "positions:\n  1: scenarios/cider.yaml\nweights: {1: 10.012, 5: 0.2041}\n";
+	REQUIRE(yt_load_buffer("tests/data/rack.yaml", weighed, strlen(weighed), &doc, &d) == 0);
+	CHECK(sim_rack_parse(&doc, &r, &d) == 0);
+	CHECK_NEAR(r.weight_g[1], 10.012, 1e-12);
+	CHECK_NEAR(r.weight_g[5], 0.2041, 1e-12);
+	CHECK(r.weight_g[2] == 0);
 	sim_rack_free(&r);
 	yt_free(&doc);
 	diag_free(&d);
@@ -308,6 +318,10 @@ TEST(sim_rack_file)
 	    {"positions: {}\n", "the rack holds no beaker"},
 	    {"positions:\n  1: scenarios/cider.yaml\npark: -2\n",
 	     "tests/data/rack.yaml:3:7: park must be a position number 1..16 (got -2)"},
+	    {"positions:\n  1: scenarios/cider.yaml\nweights: {1: heavy}\n",
+	     "tests/data/rack.yaml:3:14: weights: position 1 wants grams above 0 (got heavy)"},
+	    {"positions:\n  1: scenarios/cider.yaml\nweights: {0: 1.5}\n",
+	     "tests/data/rack.yaml:3:11: a position must be a position number 1..16 (got 0)"},
 	};
 	for (size_t i = 0; i < sizeof(bad) / sizeof(bad[0]); i++) {
 		CHECK(rack_text(bad[i].text, &msg) != 0);

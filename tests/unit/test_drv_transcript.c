@@ -1,8 +1,9 @@
 /* Replay an annotated device transcript (tests/data/drivers/NAME.transcript) through
  * a pty: a fake device thread checks each command the driver sends and
  * answers from the transcript, so a profile is tested byte for byte: the
- * pump's second profile (CR terminators, an init command, volumes in uL) and
- * the sample changer's (config/changers/sim.yaml). */
+ * pump's second profile (CR terminators, an init command, volumes in uL),
+ * the sample changer's (config/changers/sim.yaml) and the balance's
+ * (config/balances/sim.yaml). */
 #include <poll.h>
 #include <pthread.h>
 #include <stdio.h>
@@ -242,6 +243,61 @@ out:
 	CHECK_STR(r.mismatch, "");
 	CHECK_INT(r.done, r.n);
 	drv_changer_close(&c);
+	yt_free(&doc);
+	diag_free(&d);
+	close(r.master);
+	close(slave);
+	unlink(link);
+}
+
+TEST(drv_transcript_balance_sim)
+{
+	static replay_t r;
+	memset(&r, 0, sizeof(r));
+	r.cmd_end = '\n';
+	r.reply_end = "\r\n";
+	REQUIRE(load(&r, "tests/data/drivers/balance-sim.transcript") == 0);
+	REQUIRE(r.n > 10);
+	char link[128];
+	int slave;
+	snprintf(link, sizeof(link), "/tmp/stopcock-unit-transcript-bal-%d", (int)getpid());
+	REQUIRE(sim_pty_open(link, &r.master, &slave) == 0);
+	pthread_t th;
+	pthread_create(&th, NULL, pump, &r);
+
+	char cfg[300];
+	snprintf(cfg, sizeof(cfg),
+	         "{driver: balance-serial, port: %s, timeout_ms: 300, retries: 1, "
+	         "stable_timeout_ms: 3000, profile: config/balances/sim.yaml}",
+	         link);
+	yt_doc_t doc;
+	memset(&doc, 0, sizeof(doc));
+	diag_list_t d = DIAG_LIST_INIT;
+	drv_balance_t b;
+	memset(&b, 0, sizeof(b));
+	drv_err_t e;
+	drv_weight_t w;
+	if (yt_load_buffer("t.yaml", cfg, strlen(cfg), &doc, &d) != 0 ||
+	    drv_balance_configure(&doc, doc.root, &b, &d) != 0) {
+		diag_print(&d, stderr);
+		CHECK(0);
+		goto out;
+	}
+	CHECK(drv_balance_open(&b, &e) == DRV_OK);
+	CHECK(drv_balance_weigh(&b, &w, &e) == DRV_OK);
+	CHECK_NEAR(w.value, 10.012, 1e-12);
+	CHECK_STR(w.unit, "g");
+	CHECK(drv_balance_weigh(&b, &w, &e) == DRV_OK);
+	CHECK_NEAR(w.value, 250.3, 1e-12);
+	CHECK_STR(w.unit, "mg");
+	CHECK(drv_balance_weigh(&b, &w, &e) == DRV_DEVICE_ERROR);
+	CHECK(strstr(e.msg, "error 4") && strstr(e.msg, "overload"));
+	CHECK(w.value == 0 && w.unit[0] == '\0');
+out:
+	pthread_join(th, NULL);
+	CHECK_STR(r.mismatch, "");
+	CHECK_INT(r.done, r.n);
+	drv_balance_close(&b);
 	yt_free(&doc);
 	diag_free(&d);
 	close(r.master);

@@ -98,7 +98,7 @@ export function seriesView(root, id) {
 			for (const x of s.samples) {
 				const names = Object.keys(x.stats || {});
 				const first = [h('td', {}, x.sample_id), h('td', {}, x.method),
-					h('td', {}, fmt(x.amount, 4)), h('td', {}, x.position.join(' ')),
+					h('td', {}, typeof x.amount === 'string' ? x.amount : fmt(x.amount, 4)), h('td', {}, x.position.join(' ')),
 					h('td', {}, runLinks(x.runs))];
 				if (!names.length) {
 					rows.push(h('tr', {}, ...first, h('td', {colspan: 7}, '—')));
