@@ -8,6 +8,7 @@
 #include "station.h"
 #include "station_priv.h"
 #include "titer_book.h"
+#include "titer_valid.h"
 
 #include <math.h>
 #include <pthread.h>
@@ -1033,6 +1034,16 @@ void station_run_job(station_t *s, station_job_t *job)
 	if ((s->has_changer || s->n_dosers) && !station_open_extras(s)) {
 		fail_early(&r, "offline", "the station's changer or a doser is not answering");
 		return;
+	}
+	{ /* The titer was valid when the run was queued; it may have
+	   * expired while the run waited (docs/calibration.md). */
+		bool db_err;
+		if (!titer_valid_for_run(s->cfg, s->store, &job->method, clock_wall_s(), msg,
+		                         sizeof msg, &db_err)) {
+			fail_early(&r, db_err ? "database" : "no_titer",
+			           db_err ? "the database failed reading the titer" : msg);
+			return;
+		}
 	}
 	if (!prepare_params(&r, &p, msg, sizeof msg)) {
 		fail_early(&r, "no_calibration", msg);

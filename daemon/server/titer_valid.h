@@ -1,6 +1,7 @@
 /* titer_valid.h: may an assay start with the titer and blank stored now?
  * (docs/calibration.md, "Titer and blank validity"). Checked when a run is
- * queued (submit.c): an assay whose formulas read `titer` needs a stored
+ * queued (submit.c) and again when its station takes it (station_run.c),
+ * since a value may expire while the run waits: an assay whose formulas read `titer` needs a stored
  * titer (unless records.titer_required is false) that has not expired, and
  * one that reads `blank_ml` needs a blank that has not expired.
  */

@@ -99,3 +99,28 @@ def test_a_valid_titer_lets_the_assay_start_and_an_expired_one_refuses_it(bench)
     r = start(bench)
     assert r.status == 409, r.body
     assert "expired" in r.json()["error"]["message"], r.body
+
+
+def test_a_titer_that_expires_while_the_run_waits_fails_it_at_its_start(bench):
+    """Checked again when the station takes the run: queued with a valid
+    titer, started after it expired, it fails with the fault `no_titer`
+    and doses nothing (docs/calibration.md)."""
+    r = post(bench, "boss", "/v1/titrants", {"name": TITRANT, "titer": 1.0, "valid_days": 30,
+                                              "reason": "certificate 4713"})
+    assert r.status == 201, r.body
+    bench.fresh_beaker()
+    first = start(bench)
+    assert first.status == 201, first.body
+    first = first.json()["id"]
+    bench.wait_state(first, ("running",), timeout_s=30)
+    waiting = start(bench)
+    assert waiting.status == 201, waiting.body  # valid when queued
+    waiting = waiting.json()["id"]
+    assert bench.run(waiting)["state"] == "queued"
+    sql(bench, f"UPDATE titrants SET at='2020-01-01T00:00:00.000Z' WHERE name='{TITRANT}'")
+    assert bench.write("POST", f"/v1/runs/{first}/abort").status == 200
+    rec = bench.wait_state(waiting, ("aborted", "finished", "failed"), timeout_s=30)
+    assert rec["state"] == "failed", rec
+    fault = rec["faults"][-1]
+    assert fault["code"] == "no_titer" and "expired" in fault["message"], rec["faults"]
+    assert bench.get(f"/v1/runs/{waiting}/points")["points"] == []
