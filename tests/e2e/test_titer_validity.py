@@ -4,6 +4,7 @@ without one is refused with 409 and the reason; a certified titer entered by
 hand (POST /v1/titrants, `stopcock titrants set`) by an operate or admin
 token, with its reason, lets it start and is in the audit trail; a titer
 whose date is past its validity refuses the assay again."""
+import datetime
 import json
 import os
 import signal
@@ -92,8 +93,17 @@ def test_a_valid_titer_lets_the_assay_start_and_an_expired_one_refuses_it(bench)
     r = start(bench)
     assert r.status == 201, r.body
     rid = r.json()["id"]
+    bench.wait_state(rid, ("running",), timeout_s=30)
     assert bench.write("POST", f"/v1/runs/{rid}/abort").status == 200
-    bench.wait_state(rid, ("aborted", "finished", "failed"), timeout_s=30)
+    rec = bench.wait_state(rid, ("aborted", "finished", "failed"), timeout_s=30)
+    # the record names the titer it used: entered by hand, why, by whom, until when
+    t = rec["titrant"]
+    assert t["titer"] == 1.002 and t["titer_source"] == "entered" and t["titer_run_id"] is None
+    assert t["titer_reason"] == "certificate 4712, new lot" and t["titer_by"] == "ana"
+    at = datetime.datetime.fromisoformat(t["titer_at"].replace("Z", "+00:00"))
+    until = datetime.datetime.fromisoformat(t["titer_valid_until"].replace("Z", "+00:00"))
+    assert abs((until - at).total_seconds() - 60 * 86400) < 0.002, t
+    assert t["blank_source"] is None and t["blank_valid_until"] is None  # no blank stored
     # a titer entered long ago: past its 60 days
     sql(bench, f"UPDATE titrants SET at='2020-01-01T00:00:00.000Z' WHERE name='{TITRANT}'")
     r = start(bench)
