@@ -20,7 +20,7 @@
 /* How long a stored titer (src from store_titrant_get) and the blank of m
  * stay valid, days: their own validity, else the config's default. */
 double titer_valid_days(const cfg_t *cfg, const store_source_t *src);
-double blank_valid_days(const cfg_t *cfg, const method_t *m);
+double blank_valid_days(const cfg_t *cfg, const method_t *m); /* m may be NULL */
 /* The end of a validity of valid_days from `at` (RFC 3339) into until;
  * false ("") when `at` cannot be read. */
 bool valid_until(const char *at, double valid_days, char until[32]);

@@ -20,10 +20,20 @@ TOKENS = {"ana": ("read,operate", "ana-operate-token-0123456789"),
           "boss": ("admin", "boss-admin-token-0123456789"),
           "lims": ("read", "lims-read-token-0123456789")}
 
+# notify_command: files each event's JSON (its standard input), one a line.
+NOTIFY = """#!/bin/sh
+cat >> "$1"
+"""
+
 
 @pytest.fixture(scope="module")
 def bench(tmp_path_factory):
-    b = db.Bench(tmp_path_factory.mktemp("titer"))
+    tmp = tmp_path_factory.mktemp("titer")
+    script = tmp / "alarm.sh"
+    script.write_text(NOTIFY)
+    script.chmod(0o755)
+    b = db.Bench(tmp, extra_config=f"notify_command: [{script}, {tmp / 'alarms.txt'}]\n"
+                                   "notify_timeout_s: 5\n")
     b.put_method()
     b.stop_daemon()
     text = b.config.read_text()
@@ -134,3 +144,36 @@ def test_a_titer_that_expires_while_the_run_waits_fails_it_at_its_start(bench):
     fault = rec["faults"][-1]
     assert fault["code"] == "no_titer" and "expired" in fault["message"], rec["faults"]
     assert bench.get(f"/v1/runs/{waiting}/points")["points"] == []
+
+
+def alarms(bench):
+    path = bench.tmp / "alarms.txt"
+    text = path.read_text() if path.exists() else ""
+    return [json.loads(l) for l in text.splitlines() if l.strip()]
+
+
+def test_an_alarm_warns_a_day_before_a_titer_or_blank_expires(bench):
+    # a blank measured six and a half days ago: half a day of its 7 left
+    at = (datetime.datetime.now(datetime.timezone.utc) - datetime.timedelta(days=6.5))
+    sql(bench, "INSERT OR REPLACE INTO blanks (method_id, volume_ml, at, run_id) VALUES "
+               f"('{TITRANT}', 0.05, '{at.strftime('%Y-%m-%dT%H:%M:%S.000Z')}', NULL)")
+    # a titer valid for half a day: the new titrant event makes the daemon look
+    r = post(bench, "boss", "/v1/titrants", {"name": TITRANT, "titer": 0.998, "valid_days": 0.5,
+                                              "reason": "certificate 4714, short-lived"})
+    assert r.status == 201, r.body
+    deadline = time.monotonic() + 15
+    while not {"titer_expiring", "blank_expiring"} <= {e["event"] for e in alarms(bench)}:
+        assert time.monotonic() < deadline, alarms(bench)
+        time.sleep(0.2)
+    told = {e["event"]: e for e in alarms(bench)}
+    assert TITRANT in told["titer_expiring"]["message"], told
+    assert "standardize it again" in told["titer_expiring"]["message"], told
+    assert told["titer_expiring"]["code"] == "titer"
+    assert "run the blank method again" in told["blank_expiring"]["message"], told
+    # told once each, though the daemon looks again at every titer stored
+    assert post(bench, "ana", "/v1/titrants", {"name": "HCl 0.1 mol/L", "titer": 1.0,
+                                               "molarity": 0.1, "valid_days": 30,
+                                               "reason": "certificate 4715"}).status == 201
+    time.sleep(1.5)
+    kinds = [e["event"] for e in alarms(bench)]
+    assert kinds.count("titer_expiring") == 1 and kinds.count("blank_expiring") == 1, kinds
