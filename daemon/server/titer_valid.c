@@ -25,8 +25,7 @@ double titer_valid_days(const cfg_t *cfg, const store_source_t *src)
 
 double blank_valid_days(const cfg_t *cfg, const method_t *m)
 {
-	(void)m;
-	return cfg->blank_valid_days;
+	return m && isfinite(m->blank_valid_days) ? m->blank_valid_days : cfg->blank_valid_days;
 }
 
 bool valid_until(const char *at, double valid_days, char until[32])

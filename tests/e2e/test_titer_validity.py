@@ -177,3 +177,28 @@ def test_an_alarm_warns_a_day_before_a_titer_or_blank_expires(bench):
     time.sleep(1.5)
     kinds = [e["event"] for e in alarms(bench)]
     assert kinds.count("titer_expiring") == 1 and kinds.count("blank_expiring") == 1, kinds
+
+
+def test_a_method_may_ask_for_a_fresher_blank_than_the_default(bench):
+    """`blank: {valid_days: N}` in a method (docs/methods.md): the blank of
+    6.5 days stored above is within the default 7 days, not within 1."""
+    text = db.METHOD_MV.read_text().replace("method: wash-acid-mv", "method: wash-acid-blank")
+    text = text.replace("formula: end1_ml * titrant_molarity",
+                        "formula: (end1_ml - blank_ml) * titrant_molarity")
+    assert "blank_ml" in text
+    r = bench.write("PUT", "/v1/methods/wash-acid-blank", text)
+    assert r.status in (200, 201), r.body
+    body = {"station": "sim1", "method": "wash-acid-blank", "sample_id": "BLANK-1", "amount": 10.0}
+    r = post(bench, "ana", "/v1/runs", body)
+    assert r.status == 201, r.body  # the default: 7 days
+    rid = r.json()["id"]
+    assert bench.write("POST", f"/v1/runs/{rid}/abort").status == 200
+    bench.wait_state(rid, ("aborted", "finished", "failed"), timeout_s=30)
+    text = text.replace("revision: 1", "revision: 2") + "blank: {valid_days: 1}\n"
+    r = bench.write("PUT", "/v1/methods/wash-acid-blank", text)
+    assert r.status in (200, 201), r.body
+    r = post(bench, "ana", "/v1/runs", body)
+    assert r.status == 409, r.body
+    err = r.json()["error"]
+    assert err["code"] == "no_titer" and "blank" in err["message"], err
+    assert "after 1 days" in err["message"], err
