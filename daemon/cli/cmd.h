@@ -19,7 +19,8 @@ int cmd_resume(int argc, char **argv);
 int cmd_calibrate(int argc, char **argv);
 int cmd_titrants(int argc, char **argv); /* cmd_audit.c */
 int cmd_events(int argc, char **argv);
-int cmd_review(int argc, char **argv); /* cmd_records.c */
-int cmd_series(int argc, char **argv); /* cmd_series.c */
+int cmd_review(int argc, char **argv);  /* cmd_records.c */
+int cmd_correct(int argc, char **argv); /* cmd_records.c */
+int cmd_series(int argc, char **argv);  /* cmd_series.c */
 
 #endif

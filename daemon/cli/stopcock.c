@@ -26,6 +26,8 @@ static const struct {
      "titrants                      stored titers and how they were found"},
     {"events", cmd_events, "events [--after SEQ] [--limit N]  the audit trail"},
     {"review", cmd_review, "review RUN --approve|--reject [--reason TEXT]  sign a run's results"},
+    {"correct", cmd_correct,
+     "correct RUN --reason TEXT [--amount X] [--titer X] [--blank-ml X]  a new result version"},
     {"series", cmd_series,
      "series start|show|wait|abort|next  a work list of samples (series --help)"},
     {"ports", cmd_ports, "ports                         list serial ports"},

@@ -103,6 +103,7 @@ void method_defaults(method_t *m)
 	m->volume_max_ml = 10.0;
 	m->time_max_s = 1800.0;
 	m->replicates = 1;
+	m->blank_valid_days = NAN;
 }
 
 /* Defaults in signal units change with the signal: a 0.1 pH step is about
@@ -132,7 +133,7 @@ static void missing(mp_ctx_t *c, const yt_node_t *map, const char *key, const ch
 		"count", "min_jump", "window", "target", "past_endpoint_ml", "volume_max_ml",
 		"signal_limit", "time_max_s", "formula", "decimals", "accept", "fallback", "rule", "u_max_pct",
 		"before", "after", "add", "doser", "ml", "wait_s", "rinse_s", "replicates",
-		"max_rsd_pct",
+		"max_rsd_pct", "blank", "valid_days",
 		NULL};
 	/* clang-format on */
 	for (size_t i = 0; map && map->kind == YT_MAP && i < map->n; i++) {
@@ -878,13 +879,31 @@ static void parse_replicates(mp_ctx_t *c, const yt_node_t *root)
 	    &f);
 }
 
+/* blank: {valid_days: N}: a method that needs a fresher blank than the
+ * daemon's default (docs/methods.md, "blank"). 0.01 to 3650 days, the range
+ * of records.blank_valid_days. */
+static void parse_blank(mp_ctx_t *c, const yt_node_t *root)
+{
+	static const char *const keys[] = {"valid_days", NULL};
+	bool bad;
+	const yt_node_t *b = section(c, root, "blank", false, keys, &bad);
+	mp_field_t f;
+	if (!b)
+		return;
+	if (!yt_get(b, "valid_days"))
+		missing(c, b, "valid_days", "blank");
+	else if (!num(c, b, "valid_days", "blank.valid_days", "days", 0.01, false, 3650.0,
+	              &c->m->blank_valid_days, &f))
+		c->m->blank_valid_days = NAN;
+}
+
 static int method_from_doc(const yt_doc_t *doc, const char *name, const method_limits_t *lim,
                            method_t *m, diag_list_t *d)
 {
 	static const char *const top[] = {"method",     "title",  "revision", "purpose", "titrant",
 	                                  "sample",     "signal", "start",    "dosing",  "settle",
 	                                  "detect",     "stop",   "results",  "before",  "after",
-	                                  "replicates", NULL};
+	                                  "replicates", "blank",  NULL};
 	mp_ctx_t c;
 	size_t before = d ? d->n : 0;
 	diag_list_t local = DIAG_LIST_INIT;
@@ -908,6 +927,7 @@ static int method_from_doc(const yt_doc_t *doc, const char *name, const method_l
 	parse_detect(&c, doc->root);
 	parse_stop(&c, doc->root);
 	parse_replicates(&c, doc->root);
+	parse_blank(&c, doc->root);
 	check_order(&c);
 	mp_parse_steps(&c, doc->root);
 	mp_parse_results(&c, doc->root);

@@ -141,6 +141,11 @@ typedef struct method {
 	long replicates;
 	double max_rsd_pct;
 
+	/* blank: {valid_days: N}: how old a stored blank this method's
+	 * formulas may use, days (NaN when the key is absent: the daemon
+	 * config's records.blank_valid_days) */
+	double blank_valid_days;
+
 	char sha256[65]; /* hex of the exact file bytes */
 } method_t;
 

@@ -220,9 +220,15 @@ json_t *record_to_json(const run_record_t *r)
 		put(t, "titer", record_real_or_null(r->titrant.titer), &ok);
 		put(t, "titer_at", str_or_null(r->titrant.titer_at), &ok);
 		put(t, "titer_run_id", id_or_null(r->titrant.titer_run_id), &ok);
+		put(t, "titer_source", str_or_null(r->titrant.titer_source), &ok);
+		put(t, "titer_valid_until", str_or_null(r->titrant.titer_valid_until), &ok);
+		put(t, "titer_reason", str_or_null(r->titrant.titer_reason), &ok);
+		put(t, "titer_by", str_or_null(r->titrant.titer_by), &ok);
 		put(t, "blank_ml", record_real_or_null(r->titrant.blank_ml), &ok);
 		put(t, "blank_at", str_or_null(r->titrant.blank_at), &ok);
 		put(t, "blank_run_id", id_or_null(r->titrant.blank_run_id), &ok);
+		put(t, "blank_source", str_or_null(r->titrant.blank_source), &ok);
+		put(t, "blank_valid_until", str_or_null(r->titrant.blank_valid_until), &ok);
 	}
 	put(o, "titrant", t, &ok);
 

@@ -88,9 +88,17 @@ typedef struct run_record {
 		 * "" / 0 -> null; blank_ml NaN -> null (no blank stored) */
 		char titer_at[RECORD_TIME_MAX];
 		long long titer_run_id;
+		/* "standardization" or "entered" (by hand: titer_reason,
+		 * titer_by); the end of its validity; "" -> null */
+		char titer_source[16];
+		char titer_valid_until[RECORD_TIME_MAX];
+		char titer_reason[512];
+		char titer_by[64];
 		double blank_ml;
 		char blank_at[RECORD_TIME_MAX];
 		long long blank_run_id;
+		char blank_source[16]; /* "blank_run"; "" -> null */
+		char blank_valid_until[RECORD_TIME_MAX];
 	} titrant;
 	bool has_calibration;
 	struct {

@@ -18,6 +18,7 @@
 #include "clock.h"
 #include "log.h"
 #include "timefmt.h"
+#include "titer_valid.h"
 
 extern char **environ;
 
@@ -25,6 +26,7 @@ extern char **environ;
 #define NOTIFY_PAGE     100  /* events read at once */
 #define NOTIFY_OUT_LINE 1024 /* the longest output line logged, bytes */
 #define NOTIFY_SLOW_S   60.0 /* how often disk space and calibrations are looked at, s */
+#define NOTIFY_TOLD_MAX 64   /* titers and blanks remembered as told */
 
 struct notify_cmd {
 	http_ctx_t *ctx;
@@ -37,6 +39,11 @@ struct notify_cmd {
 	double slow_at_s;                     /* clock_mono_s of the last slow look */
 	bool disk_low;                        /* told, until the space is back */
 	int64_t calib_told[CFG_MAX_STATIONS]; /* the calibration told of as expiring */
+	/* titers and blanks told of as expiring ("titer|name|at"), oldest
+	 * replaced first; a new titer or blank has a new `at` */
+	char told[NOTIFY_TOLD_MAX][240];
+	int told_next;
+	bool titers_changed; /* a titer or blank was stored: look at them now */
 };
 
 bool notify_cmd_disk_low(double avail_bytes, double total_bytes)
@@ -45,10 +52,20 @@ bool notify_cmd_disk_low(double avail_bytes, double total_bytes)
 	                           avail_bytes < NOTIFY_DISK_LOW_BYTES);
 }
 
-bool notify_cmd_expiring(double expires_at_unix_s, double now_unix_s)
+static bool expires_within(double expires_at_unix_s, double now_unix_s, double window_s)
 {
 	double left_s = expires_at_unix_s - now_unix_s;
-	return expires_at_unix_s > 0 && left_s > 0 && left_s <= NOTIFY_EXPIRE_WARN_S;
+	return expires_at_unix_s > 0 && left_s > 0 && left_s <= window_s;
+}
+
+bool notify_cmd_expiring(double expires_at_unix_s, double now_unix_s)
+{
+	return expires_within(expires_at_unix_s, now_unix_s, NOTIFY_EXPIRE_WARN_S);
+}
+
+bool notify_cmd_titer_expiring(double expires_at_unix_s, double now_unix_s)
+{
+	return expires_within(expires_at_unix_s, now_unix_s, NOTIFY_TITER_WARN_S);
 }
 
 const char *notify_cmd_event_of(const char *kind, const char *code)
@@ -245,6 +262,9 @@ static void look(notify_cmd_t *nc)
 		const char *code = json_string_value(json_object_get(e, "code"));
 		const char *msg = json_string_value(json_object_get(e, "message"));
 		const char *ev = notify_cmd_event_of(kind, code);
+		if (kind && (!strcmp(kind, "titrant") || !strcmp(kind, "blank") ||
+		             !strcmp(kind, "standardization")))
+			nc->titers_changed = true;
 		if (ev)
 			run_program(nc, ev, json_string_value(json_object_get(e, "at")),
 			            json_string_value(json_object_get(e, "station")),
@@ -267,6 +287,58 @@ static void look(notify_cmd_t *nc)
 		}
 		nc->halt_pending[k] = s.halt_pending;
 	}
+}
+
+/* Tell once of one titer or blank (what: "titer" or "blank") whose
+ * validity from `at` for valid_days ends within NOTIFY_TITER_WARN_S. */
+static void tell_expiring(notify_cmd_t *nc, const char *what, const char *name, const char *at,
+                          double valid_days, double now, const char *now_text)
+{
+	char until[32], key[240], msg[400], event[32];
+	double until_s;
+	if (!valid_until(at, valid_days, until) || !time_parse_rfc3339(until, &until_s) ||
+	    !notify_cmd_titer_expiring(until_s, now))
+		return;
+	snprintf(key, sizeof key, "%s|%.160s|%s", what, name, at);
+	for (int i = 0; i < NOTIFY_TOLD_MAX; i++)
+		if (!strcmp(nc->told[i], key))
+			return;
+	snprintf(nc->told[nc->told_next], sizeof nc->told[0], "%s", key);
+	nc->told_next = (nc->told_next + 1) % NOTIFY_TOLD_MAX;
+	snprintf(msg, sizeof msg, "the %s of '%.160s' (%s) expires at %s: %s", what, name, at,
+	         until,
+	         strcmp(what, "titer") ? "run the blank method again"
+	                               : "standardize it again or enter a new one");
+	snprintf(event, sizeof event, "%s_expiring", what);
+	run_program(nc, event, now_text, NULL, 0, 0, what, msg);
+}
+
+/* Each titrant's titer and blank (docs/calibration.md, "Titer and blank
+ * validity"): told before they expire. */
+static void look_titers(notify_cmd_t *nc)
+{
+	const cfg_t *cfg = nc->ctx->cfg;
+	char at[32];
+	double now = clock_wall_s();
+	bool db_err;
+	json_t *all = store_titrants_json(nc->ctx->store, &db_err), *t;
+	size_t i;
+	time_format_rfc3339(now, at);
+	json_array_foreach(json_object_get(all, "titrants"), i, t)
+	{
+		const char *name = json_string_value(json_object_get(t, "name"));
+		store_source_t src;
+		double v;
+		if (!name)
+			continue;
+		if (store_titrant_get(nc->ctx->store, name, &v, &src) == STORE_OK && v > 0)
+			tell_expiring(nc, "titer", name, src.at, titer_valid_days(cfg, &src), now,
+			              at);
+		if (store_blank_get(nc->ctx->store, name, &v, &src) == STORE_OK)
+			tell_expiring(nc, "blank", name, src.at, blank_valid_days(cfg, NULL), now,
+			              at);
+	}
+	json_decref(all);
 }
 
 /* Once a minute: the database's disk, and each station's calibration. */
@@ -326,6 +398,11 @@ static void *notify_main(void *arg)
 		if (clock_mono_s() - nc->slow_at_s >= NOTIFY_SLOW_S) {
 			nc->slow_at_s = clock_mono_s();
 			look_slow(nc);
+			nc->titers_changed = true;
+		}
+		if (nc->titers_changed) {
+			nc->titers_changed = false;
+			look_titers(nc);
 		}
 		pthread_mutex_lock(&nc->lock);
 		if (stopping)

@@ -9,6 +9,8 @@
  *   series_stopped      a series ended `failed`, `aborted` or `interrupted`
  *   burette_not_halted  a burette did not confirm a halt (tried again until it does)
  *   calibration_expiring a station's valid calibration expires within 2 h
+ *   titer_expiring      a titrant's stored titer expires within 24 h
+ *   blank_expiring      a titrant's stored blank expires within 24 h
  *   disk_nearly_full    the database's disk has less than 5 % or 200 MiB free
  *
  * The event goes in environment variables (STOPCOCK_EVENT, STOPCOCK_AT,
@@ -42,10 +44,15 @@ const char *notify_cmd_event_of(const char *kind, const char *code);
 #define NOTIFY_DISK_LOW_FRACTION 0.05              /* of the disk's size */
 #define NOTIFY_DISK_LOW_BYTES    (200.0 * 1048576) /* 200 MiB, bytes */
 #define NOTIFY_EXPIRE_WARN_S     (2 * 3600.0)      /* before a calibration expires, s */
+/* before a titer or blank expires, s: a day, to standardize or run the
+ * blank again before the next day's assays */
+#define NOTIFY_TITER_WARN_S (24 * 3600.0)
 /* True when so little space is left that a person should be told. Pure. */
 bool notify_cmd_disk_low(double avail_bytes, double total_bytes);
 /* True when a calibration valid until expires_at (Unix s; 0: none) expires
  * within NOTIFY_EXPIRE_WARN_S of now. Pure. */
 bool notify_cmd_expiring(double expires_at_unix_s, double now_unix_s);
+/* The same for a titer or a blank: within NOTIFY_TITER_WARN_S. Pure. */
+bool notify_cmd_titer_expiring(double expires_at_unix_s, double now_unix_s);
 
 #endif

@@ -267,14 +267,19 @@ static void body(page_t *p, const json_t *rec, const json_t *points, const metho
 	}
 	p->y += 3;
 	line(p, FONT_B, "Titrant, blank and calibration used");
-	line(p, FONT, "%s, nominal %s mol/L, titer %s, determined %s (%s)", str(t, "name", "-"),
-	     fmt_num(a, sizeof a, num(t, "molarity"), 4), fmt_num(b, sizeof b, num(t, "titer"), 5),
-	     str(t, "titer_at", "-"),
+	line(p, FONT, "%s, nominal %s mol/L, titer %s, determined %s (%s), valid until %s",
+	     str(t, "name", "-"), fmt_num(a, sizeof a, num(t, "molarity"), 4),
+	     fmt_num(b, sizeof b, num(t, "titer"), 5), str(t, "titer_at", "-"),
 	     json_is_integer(json_object_get(t, "titer_run_id")) ? "standardization run"
 	     : json_is_string(json_object_get(t, "titer_at"))    ? "entered by hand"
-	                                                         : "no stored titer");
-	line(p, FONT, "Blank %s mL, determined %s", fmt_num(a, sizeof a, num(t, "blank_ml"), 4),
-	     str(t, "blank_at", "-"));
+	                                                         : "no stored titer",
+	     str(t, "titer_valid_until", "-"));
+	if (json_is_string(json_object_get(t, "titer_reason")))
+		line(p, FONT, "Titer entered by %s: %s", str(t, "titer_by", "-"),
+		     str(t, "titer_reason", "-"));
+	line(p, FONT, "Blank %s mL, determined %s, valid until %s",
+	     fmt_num(a, sizeof a, num(t, "blank_ml"), 4), str(t, "blank_at", "-"),
+	     str(t, "blank_valid_until", "-"));
 	if (json_is_object(cal))
 		line(p, FONT, "Electrode calibration %lld: slope %s %%, offset %s mV, at %s",
 		     (long long)json_integer_value(json_object_get(cal, "id")),

@@ -98,6 +98,7 @@ station_t *station_new(const cfg_t *c, const cfg_station_t *sc, const calib_conf
 	snprintf(s->name, sizeof s->name, "%s", sc->name);
 	s->vessel_max_ml = sc->vessel_max_ml;
 	s->read_interval_s = sc->read_interval_s;
+	s->cfg = c;
 	configure_devices(c, sc, &s->bur, &s->probe, &s->stir, s, d);
 	s->has_stirrer = sc->stirrer != NULL;
 	if (d->n > before) {

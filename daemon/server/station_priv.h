@@ -31,6 +31,7 @@ struct station {
 	double vessel_max_ml;
 	double read_interval_s;
 	store_t *store;
+	const cfg_t *cfg; /* the daemon's, for the titer rules at a run's start */
 
 	/* devices: touched only by the station thread (and by
 	 * station_halt_at_start before the thread exists) */

@@ -8,6 +8,7 @@
 #include "station.h"
 #include "station_priv.h"
 #include "titer_book.h"
+#include "titer_valid.h"
 
 #include <math.h>
 #include <pthread.h>
@@ -539,6 +540,13 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 	if (store_titrant_get(s->store, m->titrant_name, &titer, &src) == STORE_OK && titer > 0) {
 		snprintf(r->rec.titrant.titer_at, sizeof r->rec.titrant.titer_at, "%s", src.at);
 		r->rec.titrant.titer_run_id = src.run_id;
+		snprintf(r->rec.titrant.titer_source, sizeof r->rec.titrant.titer_source, "%s",
+		         src.run_id > 0 ? "standardization" : "entered");
+		valid_until(src.at, titer_valid_days(s->cfg, &src),
+		            r->rec.titrant.titer_valid_until);
+		snprintf(r->rec.titrant.titer_reason, sizeof r->rec.titrant.titer_reason, "%s",
+		         src.reason);
+		snprintf(r->rec.titrant.titer_by, sizeof r->rec.titrant.titer_by, "%s", src.by);
 	} else {
 		titer = 1.0;
 	}
@@ -553,6 +561,9 @@ static bool prepare_params(run_t *r, engine_params_t *p, char *msg, size_t cap)
 		r->rec.titrant.blank_ml = blank;
 		snprintf(r->rec.titrant.blank_at, sizeof r->rec.titrant.blank_at, "%s", src.at);
 		r->rec.titrant.blank_run_id = src.run_id;
+		snprintf(r->rec.titrant.blank_source, sizeof r->rec.titrant.blank_source,
+		         "blank_run");
+		valid_until(src.at, blank_valid_days(s->cfg, m), r->rec.titrant.blank_valid_until);
 	}
 	p->burette_capacity_ml = s->info.capacity_ml;
 	p->burette_steps = s->info.steps;
@@ -1034,6 +1045,16 @@ void station_run_job(station_t *s, station_job_t *job)
 	if ((s->has_changer || s->n_dosers) && !station_open_extras(s)) {
 		fail_early(&r, "offline", "the station's changer or a doser is not answering");
 		return;
+	}
+	{ /* The titer was valid when the run was queued; it may have
+	   * expired while the run waited (docs/calibration.md). */
+		bool db_err;
+		if (!titer_valid_for_run(s->cfg, s->store, &job->method, clock_wall_s(), msg,
+		                         sizeof msg, &db_err)) {
+			fail_early(&r, db_err ? "database" : "no_titer",
+			           db_err ? "the database failed reading the titer" : msg);
+			return;
+		}
 	}
 	if (!prepare_params(&r, &p, msg, sizeof msg)) {
 		fail_early(&r, "no_calibration", msg);

@@ -18,14 +18,32 @@ static unsigned vars_used(const method_t *m)
 	return used;
 }
 
-/* Expired at now_s after valid_days from `at`? *until gets the end. */
-static bool expired(const char *at, double valid_days, double now_s, char until[32])
+double titer_valid_days(const cfg_t *cfg, const store_source_t *src)
+{
+	return isfinite(src->valid_days) ? src->valid_days : cfg->titer_valid_days;
+}
+
+double blank_valid_days(const cfg_t *cfg, const method_t *m)
+{
+	return m && isfinite(m->blank_valid_days) ? m->blank_valid_days : cfg->blank_valid_days;
+}
+
+bool valid_until(const char *at, double valid_days, char until[32])
 {
 	double t;
 	until[0] = '\0';
 	if (!time_parse_rfc3339(at, &t))
-		return true; /* a date that cannot be read vouches for nothing */
+		return false;
 	time_format_rfc3339(t + valid_days * SECONDS_PER_DAY, until);
+	return true;
+}
+
+/* Expired at now_s after valid_days from `at`? *until gets the end. */
+static bool expired(const char *at, double valid_days, double now_s, char until[32])
+{
+	double t;
+	if (!valid_until(at, valid_days, until) || !time_parse_rfc3339(at, &t))
+		return true; /* a date that cannot be read vouches for nothing */
 	return now_s > t + valid_days * SECONDS_PER_DAY;
 }
 
@@ -58,7 +76,7 @@ bool titer_valid_for_run(const cfg_t *cfg, store_t *store, const method_t *m, do
 			         m->titrant_name);
 			return false;
 		}
-		days = isfinite(src.valid_days) ? src.valid_days : cfg->titer_valid_days;
+		days = titer_valid_days(cfg, &src);
 		if (expired(src.at, days, now_s, until)) {
 			snprintf(msg, cap,
 			         "the titer %.6f of '%s' (%s %s) expired %s after %g days: "
@@ -75,13 +93,13 @@ bool titer_valid_for_run(const cfg_t *cfg, store_t *store, const method_t *m, do
 			*db_err = true;
 			return false;
 		}
-		if (st == STORE_OK && expired(src.at, cfg->blank_valid_days, now_s, until)) {
+		days = blank_valid_days(cfg, m);
+		if (st == STORE_OK && expired(src.at, days, now_s, until)) {
 			snprintf(
 			    msg, cap,
 			    "the blank %.4f mL of '%s' (measured %s) expired %s after %g days: "
 			    "run the blank method again",
-			    v, m->titrant_name, src.at, until[0] ? until : "?",
-			    cfg->blank_valid_days);
+			    v, m->titrant_name, src.at, until[0] ? until : "?", days);
 			return false;
 		}
 	}

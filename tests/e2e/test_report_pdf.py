@@ -35,6 +35,10 @@ def bench(tmp_path_factory):
 @pytest.fixture(scope="module")
 def reviewed(bench):
     bench.fresh_beaker()
+    r = bench.write("POST", "/v1/titrants", json.dumps(
+        {"name": "NaOH 0.1 mol/L", "titer": 1.0, "molarity": 0.1, "reason": "certificate 99",
+         "valid_days": 30}))
+    assert r.status == 201, r.body
     rid = bench.start_run(sample="PDF-SAMPLE-77")
     rec = bench.wait_state(rid, ("finished", "failed", "aborted"), timeout_s=90)
     assert rec["state"] == "finished", rec
@@ -72,6 +76,10 @@ def test_the_report_holds_what_a_person_files(bench, reviewed, tmp_path):
     assert f"acid = {acid['value']:.4f} mmol/L" in text, text
     assert "limits 10 to 30" in text and f"verdict {acid['accept']}" in text
     assert "approved by qa" in text and "curve looked at" in text
+    # the titer used, where it came from and until when it was valid
+    t = reviewed["titrant"]
+    assert "Titer entered by sim: certificate 99" in text, text
+    assert f"valid until {t['titer_valid_until']}" in text, text
     ep = reviewed["endpoints"][0]
     assert f"EP1 {ep['volume_ml']:.4f} mL ± {ep['u_volume_ml']:.4f} mL" in text, text
 

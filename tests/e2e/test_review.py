@@ -115,6 +115,26 @@ def test_a_correction_is_a_new_version_announced_in_the_feed(bench, run):
     assert r.status == 409, r.body
 
 
+def test_the_client_corrects_a_run(bench, run, tmp_path):
+    acid = bench.run(run)["result_versions"][0]["results"][0]["value"]
+    token = tmp_path / "token"
+    token.write_text(f"ana:read,operate:{TOKENS['ana'][1]}\n")
+    env = dict(os.environ, STOPCOCK_URL=bench.url, STOPCOCK_TOKEN_FILE=str(token))
+    cli = [db.binary("stopcock"), "correct", str(run)]
+    out = subprocess.run(cli + ["--amount", "25"], env=env, capture_output=True, text=True,
+                         timeout=30)
+    assert out.returncode == 2 and "--reason TEXT is needed" in out.stderr, out.stderr
+    out = subprocess.run(cli + ["--amount", "25", "--reason", "read again: 25 mL"], env=env,
+                         capture_output=True, text=True, timeout=30)
+    assert out.returncode == 0, out.stderr
+    assert f"run {run} version 3 stored, waiting for review" in out.stdout, out.stdout
+    rec = bench.run(run)
+    assert rec["version"] == 3 and rec["sample"]["amount"] == 25.0
+    assert rec["results"][0]["value"] == pytest.approx(acid * 10 / 25, abs=0.011)
+    assert rec["result_versions"][-1]["reason"] == "read again: 25 mL"
+    assert rec["result_versions"][-1]["by"] == "ana"
+
+
 def test_an_approval_is_signed_and_the_record_then_refuses_change(bench, run, tmp_path):
     seq0 = bench.run(run)["seq"]
     token = tmp_path / "token"
@@ -124,7 +144,7 @@ def test_an_approval_is_signed_and_the_record_then_refuses_change(bench, run, tm
                           "checked against the bench log"], env=env, capture_output=True,
                          text=True, timeout=30)
     assert out.returncode == 0, out.stderr
-    assert f"run {run} version 2 approved by qa" in out.stdout, out.stdout
+    assert f"run {run} version 3 approved by qa" in out.stdout, out.stdout
     rec = bench.run(run)
     assert rec["review"]["state"] == "approved" and rec["review"]["by"] == "qa"
     assert rec["review"]["reason"] == "checked against the bench log"

@@ -21,6 +21,7 @@ phthalate, CRC Handbook, from memory), malic acid pKa 3.40 and 5.20 (docs/chemis
 section 1); the titrant's true molarity 0.1023 mol/L against its nominal
 0.1000.
 """
+import datetime
 import json
 import os
 import pathlib
@@ -49,6 +50,13 @@ ELECTRODE = (f"electrode: {{offset_mv: {OFFSET_MV}, slope_pct: {SLOPE_PCT}, tau_
 WATER_HCL = 0.00025  # mol/L of acid in the lab's dilution water: what the blank sees
 KHP_G = (0.1021, 0.1107, 0.0968)  # three weighings, g
 MALIC = 0.030  # mol/L in the cider
+
+
+def days_between(at, until):
+    """Days from one RFC 3339 time to another (to the millisecond they carry)."""
+    def parse(text):
+        return datetime.datetime.fromisoformat(text.replace("Z", "+00:00"))
+    return (parse(until) - parse(at)).total_seconds() / 86400
 
 
 def write(tmp, name, text):
@@ -286,6 +294,11 @@ def test_ana_titrates_a_cider_with_the_days_calibration_titer_and_blank(day):
     assert t["titer_run_id"] == day.day["titer_run"]
     assert t["blank_ml"] == pytest.approx(day.day["blank_ml"], abs=1e-9)
     assert t["blank_run_id"] == day.day["blank_run"]
+    # with their sources and validity ends (the defaults: 30 and 7 days)
+    assert t["titer_source"] == "standardization" and t["blank_source"] == "blank_run"
+    assert t["titer_reason"] is None and t["titer_by"] is None
+    assert days_between(t["titer_at"], t["titer_valid_until"]) == pytest.approx(30, abs=1e-7)
+    assert days_between(t["blank_at"], t["blank_valid_until"]) == pytest.approx(7, abs=1e-7)
     assert rec["calibration"]["id"] == day.day["cal_id"]
     assert rec["requested_by"] == "ana"
     end = rec["endpoints"][0]["volume_ml"]

@@ -108,4 +108,9 @@ TEST(notify_command_disk_and_calibration_thresholds)
 	CHECK(!notify_cmd_expiring(now + 7201, now));
 	CHECK(!notify_cmd_expiring(now - 1, now));
 	CHECK(!notify_cmd_expiring(0, now));
+	/* A titer or blank: in its last day. */
+	CHECK(notify_cmd_titer_expiring(now + 86400, now));
+	CHECK(notify_cmd_titer_expiring(now + 7201, now));
+	CHECK(!notify_cmd_titer_expiring(now + 86401, now));
+	CHECK(!notify_cmd_titer_expiring(now - 1, now));
 }

@@ -100,9 +100,11 @@ async function main() {
 				!(expectNetErrors && /Failed to load|ERR_/.test(m.text())))
 				problems.push(`console: ${m.text()}`);
 		});
-		// The only error status the page meets here: no calibration yet (404).
+		// The only error statuses the page meets here: no calibration yet (404),
+		// and the four-eyes refusal of a review by the run's own requester (409).
 		page.on('response', (r) => {
-			if (r.status() >= 400 && !(r.status() === 404 && /\/v1\/calibrations\/latest/.test(r.url())))
+			if (r.status() >= 400 && !(r.status() === 404 && /\/v1\/calibrations\/latest/.test(r.url())) &&
+				!(r.status() === 409 && /\/v1\/runs\/\d+\/review$/.test(r.url())))
 				problems.push(`HTTP ${r.status()} for ${r.url()}`);
 		});
 		page.on('pageerror', (e) => problems.push(`page error: ${e.message}`));
@@ -470,6 +472,15 @@ async function main() {
 		step('roles');
 		check(await page.evaluate(() => document.body.classList.contains('can-operate')),
 			'the full token may operate');
+		// it may review too, but not the run it requested itself (four eyes)
+		await page.goto(`${URL}/#/run/${runId}`);
+		await page.locator('.review-form button.approve').waitFor({timeout: 10000});
+		await page.fill('.review-form input', 'looks right');
+		await page.click('.review-form button.approve');
+		await page.waitForFunction(() => /four eyes/.test(document.querySelector('.view-error')?.textContent || ''),
+			null, {timeout: 10000});
+		check((await page.textContent('.review-state')).includes('pending'),
+			'a reviewer sees Approve and Reject; the requester\'s own approval is refused');
 		await page.evaluate((t) => sessionStorage.setItem('stopcock.token', t),
 			process.env.STOPCOCK_READ_TOKEN || '');
 		await page.goto(`${URL}/#/stations`);
@@ -479,6 +490,9 @@ async function main() {
 		check(await page.locator('section.station button.halt').isHidden() &&
 			await page.locator('section.station form.start').isHidden(),
 		'a read-only token sees no HALT and no start form');
+		await page.goto(`${URL}/#/run/${runId}`);
+		await page.locator('.review-state').waitFor();
+		check(await page.locator('.review-form').isHidden(), 'a read-only token sees no review buttons');
 		await page.evaluate((t) => sessionStorage.setItem('stopcock.token', t), TOKEN);
 
 		// ---- a 10-inch tablet ----

@@ -94,6 +94,27 @@ export function runView(root, id) {
 	const faults = h('div', {class: 'faults'});
 	const abort = h('button', {type: 'button', class: 'danger', hidden: true, 'data-needs': 'operate'},
 		'Abort run');
+	// The second person's signature (docs/lims.md, "Review and corrections"):
+	// shown to a token with the review role while the results wait for it.
+	const reviewState = h('p', {class: 'review-state'});
+	const reviewReason = h('input', {type: 'text', name: 'reason', maxlength: '500',
+		placeholder: 'reason (needed to reject)', 'aria-label': 'reason of the review'});
+	const approve = h('button', {type: 'button', class: 'approve'}, 'Approve');
+	const reject = h('button', {type: 'button', class: 'reject danger'}, 'Reject');
+	const reviewForm = h('div', {class: 'review-form', hidden: true, 'data-needs': 'review'},
+		reviewReason, approve, reject);
+	const review = h('div', {class: 'card review'}, h('h2', {}, 'Review'), reviewState, reviewForm);
+	const sign = async (decision) => {
+		try {
+			await api('POST', `/v1/runs/${id}/review`, {decision, reason: reviewReason.value});
+			reviewReason.value = '';
+			await view.refresh();
+		} catch (e) {
+			msg.textContent = `${decision} failed: ${errorText(e)}`;
+		}
+	};
+	approve.addEventListener('click', () => sign('approve'));
+	reject.addEventListener('click', () => sign('reject'));
 	const links = h('p', {class: 'links'},
 		h('a', {href: `/v1/runs/${id}/points?format=csv`, download: `run-${id}.csv`}, 'points as CSV'),
 		' · ',
@@ -107,7 +128,7 @@ export function runView(root, id) {
 		h('div', {class: 'run-grid lower'},
 			h('div', {class: 'card'}, h('h2', {}, 'Results'), results),
 			h('div', {class: 'card'}, h('h2', {}, 'Endpoints'), endpoints, faults)),
-		links);
+		review, links);
 	abort.addEventListener('click', async () => {
 		if (!(await confirmAction(`Abort run ${id}?`,
 			'The burette stops at once and the run ends as aborted.', 'Abort run')))
@@ -197,6 +218,13 @@ export function runView(root, id) {
 			faults.replaceChildren(...(fl.length ? [h('h3', {}, 'Faults'),
 				h('ul', {}, fl.map((f) => h('li', {}, `${when(f.at)}: ${f.code}: ${f.message}`)))]
 				: []));
+			const rv = rec.review;
+			review.hidden = !rv;
+			if (rv)
+				reviewState.textContent = `version ${rec.version ?? 1}: ${rv.state}`
+					+ (rv.by ? ` by ${rv.by}, ${when(rv.at)}` : '')
+					+ (rv.reason ? `: ${rv.reason}` : '');
+			reviewForm.hidden = !rv || rv.state !== 'pending';
 			// A final run changes no more: poll slowly, in case of a restart.
 			final = FINAL.has(rec.state);
 			view.every_ms = final ? 10000 : 1000;
