@@ -107,7 +107,7 @@ async function main() {
 		});
 		page.on('pageerror', (e) => problems.push(`page error: ${e.message}`));
 		const requests = [];
-		page.on('request', (r) => requests.push({t: Date.now(), url: r.url()}));
+		page.on('request', (r) => requests.push({t: Date.now(), url: r.url(), method: r.method()}));
 
 		// ---- the stations view ----
 		step('stations view');
@@ -346,9 +346,58 @@ async function main() {
 		step('series list');
 		await page.click('nav a[data-nav="series"]');
 		await page.waitForFunction(() => document.querySelector('main h1')?.textContent === 'Series');
-		check(await page.locator('main table thead th').count() === 6, 'the series table has its columns');
+		check(await page.locator('main table.runs-table thead th').count() === 6, 'the series table has its columns');
 		check(await page.locator('nav a[data-nav="series"][aria-current]').count() === 1,
 			'the nav marks the series view');
+		// A work list with one error: the page names its row and column and
+		// sends nothing (the same message as `stopcock series start`).
+		const seriesPosts = () => requests.filter((r) => r.method === 'POST' &&
+			new globalThis.URL(r.url).pathname === '/v1/series').length;
+		await page.waitForFunction(() => document.querySelector('#wl-station')?.value === 'sim1');
+		await page.setInputFiles('#wl-file', {name: 'bad.csv', mimeType: 'text/csv',
+			buffer: Buffer.from('sample_id,method,amount,position\nMBD-ser-1,wash-acid-mv,ten,1\n')});
+		await page.locator('ul.wl-errors li').first().waitFor();
+		const wlErrors = await page.$$eval('ul.wl-errors li', (l) => l.map((x) => x.textContent));
+		check(wlErrors.length === 1 &&
+			wlErrors[0] === "bad.csv:2:3: amount must be a number above 0, not 'ten'",
+		`the work list's error is shown as row:column (${wlErrors.join(' | ')})`);
+		check(await page.locator('form.series-start button[type="submit"]').isDisabled(),
+			'Start series is disabled while an error remains');
+		await page.evaluate(() => document.querySelector('form.series-start').requestSubmit());
+		await page.waitForFunction(() => /correct the work list/.test(
+			document.querySelector('form.series-start .form-note').textContent));
+		check(seriesPosts() === 0, 'a work list with an error sends nothing');
+		// A good one: previewed with the method's sample unit, then started.
+		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
+		await page.setInputFiles('#wl-file', {name: 'good.csv', mimeType: 'text/csv',
+			buffer: Buffer.from('sample_id,method,amount,position,factor:dilution\r\n' +
+				'MBD-ser-1,wash-acid-mv,10,1,2\r\n')});
+		await page.waitForFunction(() => document.querySelectorAll('ul.wl-errors li').length === 0 &&
+			document.querySelectorAll('.wl-preview tbody tr').length === 1);
+		await page.waitForFunction(() => document.querySelector('.wl-preview tbody td.wl-amount')?.textContent === '10 mL');
+		check((await page.textContent('.wl-preview tbody tr')).includes('dilution 2'),
+			'the preview shows the sample, its amount in mL and its factor');
+		await shot(page, '06b-series-start');
+		await page.click('form.series-start button[type="submit"]');
+		await page.waitForURL(/#\/series\/\d+$/);
+		const seriesId = Number(page.url().match(/#\/series\/(\d+)$/)[1]);
+		await page.waitForFunction((id) => document.querySelector('main h1')?.textContent === `Series ${id}`,
+			seriesId);
+		const started = await apiGet(`/v1/series/${seriesId}`);
+		check(seriesPosts() === 1 && started.station === 'sim1' && started.samples.length === 1 &&
+			started.samples[0].sample_id === 'MBD-ser-1' && started.samples[0].amount === 10 &&
+			started.samples[0].position.join() === '1' && started.samples[0].factors.dilution === 2,
+		`the good work list started series ${seriesId} and the page shows it`);
+		// Stop it so that the station is free for the calibration below.
+		const ab = await fetch(`${URL}/v1/series/${seriesId}/abort`, {method: 'POST',
+			headers: {Authorization: `Bearer ${TOKEN}`}});
+		check(ab.status === 202 || ab.status === 409, `series ${seriesId} stopped (${ab.status})`);
+		for (let i = 0; i < 100; i++) {
+			const x = await apiGet(`/v1/series/${seriesId}`);
+			const st = (await apiGet('/v1/stations')).stations[0];
+			if (!['queued', 'running'].includes(x.state) && st.state === 'idle') break;
+			await new Promise((r) => setTimeout(r, 200));
+		}
 
 		// ---- methods: list, one method, the editor ----
 		step('methods');
@@ -479,6 +528,9 @@ async function main() {
 		check(await page.locator('section.station button.halt').isHidden() &&
 			await page.locator('section.station form.start').isHidden(),
 		'a read-only token sees no HALT and no start form');
+		await page.goto(`${URL}/#/series`);
+		await page.waitForFunction(() => document.querySelector('main h1')?.textContent === 'Series');
+		check(await page.locator('form.series-start').isHidden(), 'nor the series form');
 		await page.evaluate((t) => sessionStorage.setItem('stopcock.token', t), TOKEN);
 
 		// ---- a 10-inch tablet ----
