@@ -94,6 +94,7 @@ async function main() {
 		// shows up here; the page must have none (a stopped daemon is expected
 		// to give network errors in the restart step only).
 		let expectNetErrors = false;
+		let expectSeriesRefused = false; // the one refusal the series step asks for
 		page.on('console', (m) => {
 			// HTTP error statuses are judged by the response check below.
 			if (m.type() === 'error' && !/the server responded with a status of/.test(m.text()) &&
@@ -102,7 +103,8 @@ async function main() {
 		});
 		// The only error status the page meets here: no calibration yet (404).
 		page.on('response', (r) => {
-			if (r.status() >= 400 && !(r.status() === 404 && /\/v1\/calibrations\/latest/.test(r.url())))
+			if (r.status() >= 400 && !(r.status() === 404 && /\/v1\/calibrations\/latest/.test(r.url())) &&
+				!(r.status() === 400 && expectSeriesRefused && /\/v1\/series$/.test(r.url())))
 				problems.push(`HTTP ${r.status()} for ${r.url()}`);
 		});
 		page.on('pageerror', (e) => problems.push(`page error: ${e.message}`));
@@ -367,6 +369,29 @@ async function main() {
 		await page.waitForFunction(() => /correct the work list/.test(
 			document.querySelector('form.series-start .form-note').textContent));
 		check(seriesPosts() === 0, 'a work list with an error sends nothing');
+		// Rows built by hand go through the same checks; a refusal of the
+		// daemon (an amount above the method's sample.max, 50 mL) is said in words.
+		await page.check('#wl-src-hand');
+		const hand = page.locator('.wl-hand tbody tr').first();
+		await hand.locator('input[name="sample_id"]').fill('MBD-ser-2');
+		await hand.locator('select[name="method"]').selectOption(METHOD);
+		await hand.locator('input[name="amount"]').fill('500');
+		await hand.locator('input[name="position"]').fill('0');
+		await page.waitForFunction(() => document.querySelector('ul.wl-errors li')?.textContent ===
+			"sample 1, column 4: position '0' is not a whole number 1 to 999");
+		check(true, 'a hand-built row with a bad position shows its error');
+		await hand.locator('input[name="position"]').fill('1');
+		await page.waitForFunction(() => document.querySelector('.wl-preview tbody td.wl-amount')?.textContent === '500 mL' &&
+			document.querySelectorAll('ul.wl-errors li').length === 0);
+		check((await hand.locator('.unit').textContent()) === 'mL', 'the hand-built row shows the unit');
+		expectSeriesRefused = true;
+		await page.click('form.series-start button[type="submit"]');
+		await page.waitForFunction(() => /^not started: the daemon refused the work list: /.test(
+			document.querySelector('form.series-start .form-note').textContent));
+		expectSeriesRefused = false;
+		check(/#\/series$/.test(page.url()), `a refused series stays on the form (${
+			await page.textContent('form.series-start .form-note')})`);
+		await page.check('#wl-src-file');
 		// A good one: previewed with the method's sample unit, then started.
 		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
 		await page.setInputFiles('#wl-file', {name: 'good.csv', mimeType: 'text/csv',
@@ -384,7 +409,7 @@ async function main() {
 		await page.waitForFunction((id) => document.querySelector('main h1')?.textContent === `Series ${id}`,
 			seriesId);
 		const started = await apiGet(`/v1/series/${seriesId}`);
-		check(seriesPosts() === 1 && started.station === 'sim1' && started.samples.length === 1 &&
+		check(seriesPosts() === 2 && started.station === 'sim1' && started.samples.length === 1 &&
 			started.samples[0].sample_id === 'MBD-ser-1' && started.samples[0].amount === 10 &&
 			started.samples[0].position.join() === '1' && started.samples[0].factors.dilution === 2,
 		`the good work list started series ${seriesId} and the page shows it`);
