@@ -420,8 +420,8 @@ export function seriesView(root, id) {
 	const detail = h('p', {class: 'station-error', role: 'status'});
 	const body = h('tbody');
 	const note = h('p', {class: 'form-note', role: 'status'});
-	const next = h('button', {type: 'button', class: 'primary'}, 'Beaker placed');
-	const abort = h('button', {type: 'button', class: 'halt'}, 'Abort series');
+	const next = h('button', {type: 'button', class: 'primary', 'data-needs': 'operate'}, 'Beaker placed');
+	const abort = h('button', {type: 'button', class: 'halt', 'data-needs': 'operate'}, 'Abort series');
 	next.addEventListener('click', async () => {
 		try {
 			await api('POST', `/v1/series/${id}/next`);
