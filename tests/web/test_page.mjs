@@ -392,6 +392,14 @@ async function main() {
 		check(/#\/series$/.test(page.url()), `a refused series stays on the form (${
 			await page.textContent('form.series-start .form-note')})`);
 		await page.check('#wl-src-file');
+		// The page reads a work list as `stopcock series start` does: the same
+		// errors at the same row and column (tests/e2e/test_web.py ran the CLI).
+		const wl = JSON.parse(process.env.STOPCOCK_WORKLIST || '{}');
+		const pageSays = await page.evaluate(async (text) =>
+			(await import('/www/series.js')).parseWorkList(text).errors
+				.map((e) => `mixed.csv:${e.row}:${e.col}: ${e.message}`), wl.text || '');
+		check(wl.cli && wl.cli.length >= 6 && JSON.stringify(pageSays) === JSON.stringify(wl.cli),
+			`the page and the CLI find the same errors (page: ${pageSays.join(' | ')}; cli: ${(wl.cli || []).join(' | ')})`);
 		// A good one: previewed with the method's sample unit, then started.
 		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
 		await page.setInputFiles('#wl-file', {name: 'good.csv', mimeType: 'text/csv',
