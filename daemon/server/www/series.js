@@ -32,7 +32,8 @@ function decimal(s) {
 	return Number.isFinite(v) ? v : null;
 }
 
-// One CSV record from text at *pos: {fields} or {error, col}; null at the end.
+// One CSV record of text from index at.i (moved past it): {fields} or
+// {error, col}; null at the end of the text.
 function csvRecord(text, at) {
 	if (at.i >= text.length) return null;
 	const fields = [];
