@@ -159,11 +159,21 @@ def test_bench_page_in_chromium(bench, tmp_path):
     for old in OUT.glob("*.png"):
         old.unlink()
     buffers = [[ph, str(buffer_scenario(tmp_path, ph))] for ph in (4.01, 7.00, 10.01)]
+    # A work list with an error of each kind, and what the CLI says of it:
+    # the page must say the same (docs/bench-page.md, "Starting a series").
+    worklist = ('\ufeffsample_id,method,amount,bogus,method,position,factor:dilution\r\n'
+                'A,M,weigh,1,x,1;0,2\r\n,x,0\n\nB,m,5,1,m,"3 4",two\n"x\n')
+    (tmp_path / "mixed.csv").write_text(worklist, encoding="utf-8")
+    cli = subprocess.run([db.binary("stopcock"), "series", "start", "--station", "sim1",
+                          "mixed.csv"], cwd=tmp_path, capture_output=True, text=True, timeout=30)
+    assert cli.returncode != 0 and cli.stderr.count("mixed.csv:") >= 6, cli.stderr
     env = dict(os.environ,
                STOPCOCK_URL=bench.url, STOPCOCK_TOKEN=bench.token,
                STOPCOCK_READ_TOKEN=READ_TOKEN,
                STOPCOCK_CONTROL=str(bench.ctl), STOPCOCK_SCENARIO=str(bench.scenario),
-               STOPCOCK_BUFFERS=json.dumps(buffers), STOPCOCK_SHOTS=str(OUT))
+               STOPCOCK_BUFFERS=json.dumps(buffers), STOPCOCK_SHOTS=str(OUT),
+               STOPCOCK_WORKLIST=json.dumps({"text": worklist,
+                                             "cli": cli.stderr.strip().splitlines()}))
     log = open(OUT / "test_page.log", "w")
     p = subprocess.Popen([node_bin(), str(WEB / "test_page.mjs")], cwd=ROOT, env=env,
                          stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=log, text=True)

@@ -94,6 +94,7 @@ async function main() {
 		// shows up here; the page must have none (a stopped daemon is expected
 		// to give network errors in the restart step only).
 		let expectNetErrors = false;
+		let expectSeriesRefused = false; // the one refusal the series step asks for
 		page.on('console', (m) => {
 			// HTTP error statuses are judged by the response check below.
 			if (m.type() === 'error' && !/the server responded with a status of/.test(m.text()) &&
@@ -101,15 +102,17 @@ async function main() {
 				problems.push(`console: ${m.text()}`);
 		});
 		// The only error statuses the page meets here: no calibration yet (404),
-		// and the four-eyes refusal of a review by the run's own requester (409).
+		// the four-eyes refusal of a review by the run's own requester (409), and
+		// the daemon's refusal of a series the test sends on purpose (400).
 		page.on('response', (r) => {
 			if (r.status() >= 400 && !(r.status() === 404 && /\/v1\/calibrations\/latest/.test(r.url())) &&
-				!(r.status() === 409 && /\/v1\/runs\/\d+\/review$/.test(r.url())))
+				!(r.status() === 409 && /\/v1\/runs\/\d+\/review$/.test(r.url())) &&
+				!(r.status() === 400 && expectSeriesRefused && /\/v1\/series$/.test(r.url())))
 				problems.push(`HTTP ${r.status()} for ${r.url()}`);
 		});
 		page.on('pageerror', (e) => problems.push(`page error: ${e.message}`));
 		const requests = [];
-		page.on('request', (r) => requests.push({t: Date.now(), url: r.url()}));
+		page.on('request', (r) => requests.push({t: Date.now(), url: r.url(), method: r.method()}));
 
 		// ---- the stations view ----
 		step('stations view');
@@ -348,9 +351,89 @@ async function main() {
 		step('series list');
 		await page.click('nav a[data-nav="series"]');
 		await page.waitForFunction(() => document.querySelector('main h1')?.textContent === 'Series');
-		check(await page.locator('main table thead th').count() === 6, 'the series table has its columns');
+		check(await page.locator('main table.runs-table thead th').count() === 6, 'the series table has its columns');
 		check(await page.locator('nav a[data-nav="series"][aria-current]').count() === 1,
 			'the nav marks the series view');
+		// A work list with one error: the page names its row and column and
+		// sends nothing (the same message as `stopcock series start`).
+		const seriesPosts = () => requests.filter((r) => r.method === 'POST' &&
+			new globalThis.URL(r.url).pathname === '/v1/series').length;
+		await page.waitForFunction(() => document.querySelector('#wl-station')?.value === 'sim1');
+		await page.setInputFiles('#wl-file', {name: 'bad.csv', mimeType: 'text/csv',
+			buffer: Buffer.from('sample_id,method,amount,position\nMBD-ser-1,wash-acid-mv,ten,1\n')});
+		await page.locator('ul.wl-errors li').first().waitFor();
+		const wlErrors = await page.$$eval('ul.wl-errors li', (l) => l.map((x) => x.textContent));
+		check(wlErrors.length === 1 &&
+			wlErrors[0] === "bad.csv:2:3: amount must be a number above 0, not 'ten'",
+		`the work list's error is shown as row:column (${wlErrors.join(' | ')})`);
+		check(await page.locator('form.series-start button[type="submit"]').isDisabled(),
+			'Start series is disabled while an error remains');
+		await page.evaluate(() => document.querySelector('form.series-start').requestSubmit());
+		await page.waitForFunction(() => /correct the work list/.test(
+			document.querySelector('form.series-start .form-note').textContent));
+		check(seriesPosts() === 0, 'a work list with an error sends nothing');
+		// Rows built by hand go through the same checks; a refusal of the
+		// daemon (an amount above the method's sample.max, 50 mL) is said in words.
+		await page.check('#wl-src-hand');
+		const hand = page.locator('.wl-hand tbody tr').first();
+		await hand.locator('input[name="sample_id"]').fill('MBD-ser-2');
+		await hand.locator('select[name="method"]').selectOption(METHOD);
+		await hand.locator('input[name="amount"]').fill('500');
+		await hand.locator('input[name="position"]').fill('0');
+		await page.waitForFunction(() => document.querySelector('ul.wl-errors li')?.textContent ===
+			"sample 1, column 4: position '0' is not a whole number 1 to 999");
+		check(true, 'a hand-built row with a bad position shows its error');
+		await hand.locator('input[name="position"]').fill('1');
+		await page.waitForFunction(() => document.querySelector('.wl-preview tbody td.wl-amount')?.textContent === '500 mL' &&
+			document.querySelectorAll('ul.wl-errors li').length === 0);
+		check((await hand.locator('.unit').textContent()) === 'mL', 'the hand-built row shows the unit');
+		expectSeriesRefused = true;
+		await page.click('form.series-start button[type="submit"]');
+		await page.waitForFunction(() => /^not started: the daemon refused the work list: /.test(
+			document.querySelector('form.series-start .form-note').textContent));
+		expectSeriesRefused = false;
+		check(/#\/series$/.test(page.url()), `a refused series stays on the form (${
+			await page.textContent('form.series-start .form-note')})`);
+		await page.check('#wl-src-file');
+		// The page reads a work list as `stopcock series start` does: the same
+		// errors at the same row and column (tests/e2e/test_web.py ran the CLI).
+		const wl = JSON.parse(process.env.STOPCOCK_WORKLIST || '{}');
+		const pageSays = await page.evaluate(async (text) =>
+			(await import('/www/series.js')).parseWorkList(text).errors
+				.map((e) => `mixed.csv:${e.row}:${e.col}: ${e.message}`), wl.text || '');
+		check(wl.cli && wl.cli.length >= 6 && JSON.stringify(pageSays) === JSON.stringify(wl.cli),
+			`the page and the CLI find the same errors (page: ${pageSays.join(' | ')}; cli: ${(wl.cli || []).join(' | ')})`);
+		// A good one: previewed with the method's sample unit, then started.
+		check((await control(`load ${SCENARIO}`)) === 'ok', 'fresh beaker');
+		await page.setInputFiles('#wl-file', {name: 'good.csv', mimeType: 'text/csv',
+			buffer: Buffer.from('sample_id,method,amount,position,factor:dilution\r\n' +
+				'MBD-ser-1,wash-acid-mv,10,1,2\r\n')});
+		await page.waitForFunction(() => document.querySelectorAll('ul.wl-errors li').length === 0 &&
+			document.querySelectorAll('.wl-preview tbody tr').length === 1);
+		await page.waitForFunction(() => document.querySelector('.wl-preview tbody td.wl-amount')?.textContent === '10 mL');
+		check((await page.textContent('.wl-preview tbody tr')).includes('dilution 2'),
+			'the preview shows the sample, its amount in mL and its factor');
+		await shot(page, '06b-series-start');
+		await page.click('form.series-start button[type="submit"]');
+		await page.waitForURL(/#\/series\/\d+$/);
+		const seriesId = Number(page.url().match(/#\/series\/(\d+)$/)[1]);
+		await page.waitForFunction((id) => document.querySelector('main h1')?.textContent === `Series ${id}`,
+			seriesId);
+		const started = await apiGet(`/v1/series/${seriesId}`);
+		check(seriesPosts() === 2 && started.station === 'sim1' && started.samples.length === 1 &&
+			started.samples[0].sample_id === 'MBD-ser-1' && started.samples[0].amount === 10 &&
+			started.samples[0].position.join() === '1' && started.samples[0].factors.dilution === 2,
+		`the good work list started series ${seriesId} and the page shows it`);
+		// Stop it so that the station is free for the calibration below.
+		const ab = await fetch(`${URL}/v1/series/${seriesId}/abort`, {method: 'POST',
+			headers: {Authorization: `Bearer ${TOKEN}`}});
+		check(ab.status === 202 || ab.status === 409, `series ${seriesId} stopped (${ab.status})`);
+		for (let i = 0; i < 100; i++) {
+			const x = await apiGet(`/v1/series/${seriesId}`);
+			const st = (await apiGet('/v1/stations')).stations[0];
+			if (!['queued', 'running'].includes(x.state) && st.state === 'idle') break;
+			await new Promise((r) => setTimeout(r, 200));
+		}
 
 		// ---- methods: list, one method, the editor ----
 		step('methods');
@@ -493,6 +576,9 @@ async function main() {
 		await page.goto(`${URL}/#/run/${runId}`);
 		await page.locator('.review-state').waitFor();
 		check(await page.locator('.review-form').isHidden(), 'a read-only token sees no review buttons');
+		await page.goto(`${URL}/#/series`);
+		await page.waitForFunction(() => document.querySelector('main h1')?.textContent === 'Series');
+		check(await page.locator('form.series-start').isHidden(), 'nor the series form');
 		await page.evaluate((t) => sessionStorage.setItem('stopcock.token', t), TOKEN);
 
 		// ---- a 10-inch tablet ----
