@@ -46,8 +46,8 @@ function card(name, methods) {
 	let seriesId = 0;
 	const seriesLink = h('span', {});
 	const seriesPrompt = h('span', {class: 'series-prompt'});
-	const next = h('button', {type: 'button', class: 'primary series-next'}, 'Beaker placed');
-	const stopSeries = h('button', {type: 'button', class: 'series-abort'}, 'Abort series');
+	const next = h('button', {type: 'button', class: 'primary series-next', 'data-needs': 'operate'}, 'Beaker placed');
+	const stopSeries = h('button', {type: 'button', class: 'series-abort', 'data-needs': 'operate'}, 'Abort series');
 	const series = h('div', {class: 'series', role: 'status', hidden: true},
 		h('strong', {}, 'Series '), seriesLink, ' ', seriesPrompt, ' ', next, ' ', stopSeries);
 	next.addEventListener('click', async () => {
