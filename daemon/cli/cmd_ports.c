@@ -304,12 +304,12 @@ static void run_command(bench_t *b, char *line)
 				json_object_set_new(o, "fault", json_true());
 		}
 	} else if (!strcmp(word, "balance-weigh")) {
-		drv_weight_t w;
-		st = drv_balance_weigh(&b->balance, &w, &e);
+		drv_weight_t wt;
+		st = drv_balance_weigh(&b->balance, &wt, &e);
 		o = head(word, st, t0, &e);
 		if (st == DRV_OK) {
-			json_object_set_new(o, "value", json_real(w.value));
-			json_object_set_new(o, "unit", json_string(w.unit));
+			json_object_set_new(o, "value", json_real(wt.value));
+			json_object_set_new(o, "unit", json_string(wt.unit));
 		}
 	} else if (!strcmp(word, "sleep")) {
 		if (n == 2 && arg > 0 && arg < 3600)
