@@ -34,6 +34,21 @@ FROZEN_AFTER_S = 2.0
 MEASURED = ("t_s", "volume_ml", "mv", "ph", "temperature_c", "settled")
 
 
+def endpoint_right_or_marked(rec, rel=0.03):
+    """The run's first endpoint is within rel of the stoichiometric 2.000 mL
+    (tests/data/daemon/wash-acid.yaml), or every result says it is doubtful:
+    never a wrong endpoint passed as right. A fault ridden out on a busy
+    machine can leave the jump's points unsettled; the engine then marks them
+    (docs/engine.md, "Uncertainty") rather than the test failing by chance.
+    Returns the endpoint volume, mL."""
+    v = rec["endpoints"][0]["volume_ml"]
+    if abs(v - db.EXPECTED_ML) > rel * db.EXPECTED_ML:
+        assert rec["results"] and all(r["accept"] == "doubtful" for r in rec["results"]), (
+            f"endpoint {v} mL is more than {rel:.0%} off {db.EXPECTED_ML} mL and not marked",
+            rec["endpoints"], rec["results"])
+    return v
+
+
 def report(request, lines):
     """Print figure lines for docs/reliability.md and the closing note past
     pytest's output capture (so `make check` shows them), and append them to
