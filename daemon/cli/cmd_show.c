@@ -33,11 +33,19 @@ static void print_record(const json_t *r)
 	       client_fmt(b1, sizeof b1, client_num(t, "molarity"), 4),
 	       client_fmt(b2, sizeof b2, client_num(t, "titer"), 4));
 	json_t *tr = json_object_get(t, "titer_run_id");
+	const char *src = client_str(t, "titer_source", NULL);
 	if (json_is_integer(tr))
 		printf(" (run %lld, %s)", (long long)json_integer_value(tr),
 		       client_str(t, "titer_at", "-"));
+	else if (src && !strcmp(src, "entered"))
+		printf(" (entered by %s: %s)", client_str(t, "titer_by", "-"),
+		       client_str(t, "titer_reason", "-"));
+	else if (src)
+		printf(" (%s)", src);
 	else
 		printf(" (none stored)");
+	if (client_str(t, "titer_valid_until", NULL))
+		printf(", valid until %s", client_str(t, "titer_valid_until", "-"));
 	printf("\n");
 	if (isfinite(client_num(t, "blank_ml"))) {
 		json_t *br = json_object_get(t, "blank_run_id");
