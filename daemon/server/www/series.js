@@ -89,8 +89,10 @@ function checkCell(key, v, out) {
 		return ID_RE.test(v) ? null : `method '${v}' is not a method id ([a-z0-9-])`;
 	}
 	if (key === 'amount') {
-		if (v === 'weigh')
-			return 'amount "weigh" needs a balance, which stopcockd does not drive yet: give the amount as a number';
+		if (v === 'weigh') { // the station's balance weighs each beaker (the daemon checks it has one)
+			out.amount = 'weigh';
+			return null;
+		}
 		const a = decimal(v);
 		if (a === null || !(a > 0)) return `amount must be a number above 0, not '${v}'`;
 		out.amount = a;
@@ -319,7 +321,7 @@ function startForm() {
 		for (const [i, s] of shown.samples.entries()) {
 			const unit = await unitOf(s.method);
 			rows.push(h('tr', {}, h('td', {}, String(i + 1)), h('td', {}, s.sample_id),
-				h('td', {}, s.method), h('td', {class: 'wl-amount'}, `${s.amount}${unit ? ` ${unit}` : ''}`),
+				h('td', {}, s.method), h('td', {class: 'wl-amount'}, s.amount === 'weigh' ? 'weigh' : `${s.amount}${unit ? ` ${unit}` : ''}`),
 				h('td', {}, s.position ? s.position.join(' ') : 'as the method says'),
 				h('td', {}, s.factors ? Object.entries(s.factors).map(([k, v]) => `${k} ${v}`).join(', ') : '')));
 		}
