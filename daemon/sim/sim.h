@@ -222,6 +222,9 @@ int sim_control_bind(const char *path);
  * command, prints the reply; 0 on a reply other than "error: ...". */
 int sim_control_client(int argc, char **argv);
 void *sim_control_thread(void *arg); /* arg: sim_control_arg_t * */
+/* Inject fault f (SIM_FAULT_NONE clears it), for for_s seconds, or until
+ * changed when for_s <= 0; under the state's mutex. */
+void sim_set_fault(sim_t *s, sim_fault_t f, double for_s);
 typedef struct sim_control_arg {
 	sim_t *sim;
 	int listen_fd;

@@ -139,10 +139,7 @@ void sim_control_command(sim_t *s, const char *line, char *reply, size_t cap)
 			snprintf(reply, cap,
 			         "error: fault %s [SECONDS]: SECONDS must be a number > 0", kind);
 		} else {
-			pthread_mutex_lock(&s->mu);
-			s->fault = f;
-			s->fault_until_s = n == 2 ? clock_mono_s() + secs : 0;
-			pthread_mutex_unlock(&s->mu);
+			sim_set_fault(s, f, n == 2 ? secs : 0);
 			snprintf(reply, cap, "ok");
 		}
 	} else if (!strcmp(word, "load")) {
@@ -363,4 +360,12 @@ int sim_control_client(int argc, char **argv)
 	}
 	printf("%s\n", reply);
 	return 0;
+}
+
+void sim_set_fault(sim_t *s, sim_fault_t f, double for_s)
+{
+	pthread_mutex_lock(&s->mu);
+	s->fault = f;
+	s->fault_until_s = for_s > 0 ? clock_mono_s() + for_s : 0;
+	pthread_mutex_unlock(&s->mu);
 }

@@ -117,9 +117,7 @@ TEST(drv_balance_sim_never_settles_is_an_error)
 
 static void set_fault(fixture_t *f, sim_fault_t k)
 {
-	pthread_mutex_lock(&f->sim.mu);
-	f->sim.fault = k;
-	pthread_mutex_unlock(&f->sim.mu);
+	sim_set_fault(&f->sim, k, 0);
 }
 
 TEST(drv_balance_sim_garbage_and_mute)

@@ -87,9 +87,7 @@ static void teardown(fixture_t *f)
 
 static void set_fault(fixture_t *f, sim_fault_t k)
 {
-	pthread_mutex_lock(&f->sim.mu);
-	f->sim.fault = k;
-	pthread_mutex_unlock(&f->sim.mu);
+	sim_set_fault(&f->sim, k, 0);
 }
 
 /* Poll until nothing moves (or an error); max_s bounds a broken test only. */

@@ -70,9 +70,7 @@ static void teardown(fixture_t *f)
 
 static void set_fault(fixture_t *f, sim_fault_t k)
 {
-	pthread_mutex_lock(&f->sim.mu);
-	f->sim.fault = k;
-	pthread_mutex_unlock(&f->sim.mu);
+	sim_set_fault(&f->sim, k, 0);
 }
 
 static drv_status_t wait_idle(fixture_t *f, drv_burette_status_t *st, double max_s)
